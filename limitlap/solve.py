@@ -1,0 +1,256 @@
+r"""Quasi-steady-state (QSS) speed profile and lap time on a given line.
+
+The car is a point mass in steady state at every station except for its speed. The
+classic scheme (Lenzo & Rossi 2020, §1; Siegler, Deakin & Crolla, SAE 2000-01-3563):
+
+1. the cornering speed limit at every station from the lateral limit, with downforce;
+2. a forward pass, accelerating as hard as the combined-slip law leaves after the
+   lateral demand, a backward pass braking likewise, and the minimum of the two;
+3. closed laps are periodic: both passes start at the global minimum of the cornering
+   limit (a valid state of any lap) and run once round the loop.
+
+Both passes integrate :math:`db/ds = 2 a_x(b)` in :math:`b = v^2` (the variable of
+Lipp & Boyd 2014) with an explicit trapezoidal (Heun) step, second order in the station
+spacing, so halving the spacing barely moves the lap time.
+
+References
+----------
+.. [1] B. Lenzo and V. Rossi, "A Simple Mono-Dimensional Approach for Lap Time
+   Optimisation", Applied Sciences 10(4):1498, 2020, doi:10.3390/app10041498.
+.. [2] T. Lipp and S. Boyd, "Minimum-time speed optimisation over a fixed path",
+   International Journal of Control, 2014, doi:10.1080/00207179.2013.875224.
+.. [3] W. F. Milliken and D. L. Milliken, *Race Car Vehicle Dynamics*, SAE R-146, 1995.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+
+import numpy as np
+
+from limitlap import _kernels
+from limitlap.errors import LimitlapError
+from limitlap.line import Line
+from limitlap.units import G0_M_S2, V_CAP_M_S
+from limitlap.vehicle import Vehicle, check_grip_scale
+
+
+@dataclass(frozen=True, eq=False)
+class Profile:
+    """A solved speed profile on a line (all SI).
+
+    Attributes
+    ----------
+    distance_m : numpy.ndarray
+        Station distance. [m]
+    speed_m_s : numpy.ndarray
+        Speed at each station. [m/s]
+    accel_lon_m_s2 : numpy.ndarray
+        Longitudinal acceleration of the step leaving each station,
+        :math:`(v_{i+1}^2 - v_i^2) / (2 \Delta s_i)`; the last station of an open line
+        repeats the one before. [m/s²]
+    accel_lat_m_s2 : numpy.ndarray
+        Lateral acceleration :math:`\kappa v^2`, + left. [m/s²]
+    time_s : numpy.ndarray
+        Elapsed time at each station from the first. [s]
+    lap_time_s : float
+        Time for the whole line (closed: back to the first station). [s]
+    speed_limit_m_s : numpy.ndarray
+        Cornering speed limit from lateral grip alone. [m/s]
+    grip_scale : float
+        Grip scale the profile was solved at. [-]
+    """
+
+    distance_m: np.ndarray
+    speed_m_s: np.ndarray
+    accel_lon_m_s2: np.ndarray
+    accel_lat_m_s2: np.ndarray
+    time_s: np.ndarray
+    lap_time_s: float
+    speed_limit_m_s: np.ndarray
+    grip_scale: float = 1.0
+
+
+def vehicle_array(vehicle: Vehicle, grip_scale: float = 1.0) -> np.ndarray:
+    """Pack a complete vehicle into the kernels' parameter array (see :mod:`_kernels`)."""
+    vehicle.require_complete()
+    k = check_grip_scale(grip_scale)
+    veh = np.empty(_kernels.N_VEH)
+    veh[_kernels.I_MASS] = vehicle.mass_kg
+    veh[_kernels.I_POWER] = vehicle.power_w
+    veh[_kernels.I_DRAG_AREA] = vehicle.drag_area_m2
+    veh[_kernels.I_LIFT_AREA] = vehicle.downforce_area_m2
+    veh[_kernels.I_CRR] = vehicle.rolling_coeff
+    veh[_kernels.I_RHO] = vehicle.air_density_kg_m3
+    veh[_kernels.I_MU_LAT] = vehicle.mu_lat * k
+    veh[_kernels.I_MU_BRK] = vehicle.mu_brk * k
+    veh[_kernels.I_MU_TRAC] = vehicle.mu_trac * k
+    veh[_kernels.I_EXPONENT] = vehicle.exponent
+    veh[_kernels.I_G] = G0_M_S2
+    veh[_kernels.I_V_CAP] = V_CAP_M_S
+    return veh
+
+
+def cornering_speed_limit(curvature_1_m, vehicle: Vehicle, grip_scale: float = 1.0):
+    r"""Highest steady speed the tyres allow at each point of the line.
+
+    Parameters
+    ----------
+    curvature_1_m : array-like
+        Path curvature, + for left-hand bends. [1/m]
+    vehicle : Vehicle
+        Complete vehicle. Mass [kg], lift area [m²], air density [kg/m³], mu_lat [-].
+    grip_scale : float
+        Grip scale k on the friction coefficients. [-]
+
+    Returns
+    -------
+    numpy.ndarray
+        Speed limit; ``V_CAP_M_S`` where grip never runs out. [m/s]
+
+    Notes
+    -----
+    Solves :math:`m v^2 |\kappa| = \mu (m g + \tfrac12 \rho C_L A v^2)` for :math:`v`
+    (Milliken & Milliken 1995, steady-state cornering, with aero load):
+    :math:`v^2 = \mu g / (|\kappa| - \mu k_z / m)`, :math:`k_z = \tfrac12\rho C_L A`.
+    Above the critical radius :math:`R_c = m / (\mu k_z)` (Lenzo & Rossi 2020) the
+    denominator is not positive: the corner is flat out as far as grip goes.
+
+    Examples
+    --------
+    >>> from limitlap.vehicle import Vehicle
+    >>> car = Vehicle("dot", 1000.0, math.inf, 0.0, 0.0, 0.0, mu_lat=1.0, mu_brk=1.0,
+    ...               mu_trac=1.0, exponent=2.0)
+    >>> round(float(cornering_speed_limit([0.01], car)[0]), 4)  # sqrt(1 * 9.80665 * 100)
+    31.3156
+    """
+    curvature = np.ascontiguousarray(curvature_1_m, dtype=np.float64)
+    if curvature.ndim != 1 or not np.isfinite(curvature).all():
+        raise LimitlapError("curvature must be a 1-D array of finite values")
+    veh = vehicle_array(vehicle, grip_scale)
+    return np.sqrt(_kernels.cornering_speed_limit(curvature, veh))
+
+
+def _line_arrays(line: Line):
+    curvature = np.ascontiguousarray(line.curvature_1_m, dtype=np.float64)
+    ds = np.ascontiguousarray(line.ds_m, dtype=np.float64)
+    grad = np.ascontiguousarray(line.gradient, dtype=np.float64)
+    if curvature.ndim != 1 or curvature.shape[0] < 3:
+        raise LimitlapError("a line needs at least 3 stations")
+    if not (np.isfinite(curvature).all() and np.isfinite(grad).all()):
+        raise LimitlapError("line curvature and gradient must be finite")
+    if np.any(ds[: curvature.shape[0] - (0 if line.closed else 1)] <= 0.0):
+        raise LimitlapError("line stations must be at increasing distance")
+    sin_grad = grad / np.sqrt(1.0 + grad * grad)  # dz/ds = tan(theta) -> sin(theta)
+    return curvature, sin_grad, ds
+
+
+def solve_profile(
+    line: Line,
+    vehicle: Vehicle,
+    grip_scale: float = 1.0,
+    *,
+    entry_speed_m_s: float | None = None,
+    exit_speed_m_s: float | None = None,
+) -> Profile:
+    r"""Fastest speed profile a point mass can follow on ``line`` within its envelope.
+
+    Parameters
+    ----------
+    line : Line
+        Closed lap or open stretch.
+    vehicle : Vehicle
+        Complete vehicle (INTERFACE §3).
+    grip_scale : float
+        Grip scale k, 0.2-2.0: multiplies the three friction coefficients only. [-]
+    entry_speed_m_s, exit_speed_m_s : float, optional
+        Open lines only: speed at the first station (default: the cornering limit
+        there) and the highest speed allowed at the last (default: free). [m/s]
+
+    Returns
+    -------
+    Profile
+
+    Notes
+    -----
+    Envelope of INTERFACE §3, with :math:`q = \tfrac12\rho v^2`,
+    :math:`N = m g + q C_L A`: lateral :math:`\mu_y N`, braking
+    :math:`\mu_b N + q C_D A + C_{rr} m g`, driving :math:`\min(\mu_t N, P/v) - q C_D A -
+    C_{rr} m g`, combined on the tyre forces
+    :math:`(|F_x|/F_{x,max})^n + (|F_y|/F_{y,max})^n \le 1`. Gradient adds
+    :math:`-g\sin\theta` to the longitudinal balance; its (second-order) effect on the
+    normal load is left out, as in INTERFACE §3.
+    """
+    curvature, sin_grad, ds = _line_arrays(line)
+    veh = vehicle_array(vehicle, grip_scale)
+    b_cap = V_CAP_M_S**2
+    b_entry = b_cap if entry_speed_m_s is None else float(entry_speed_m_s) ** 2
+    b_exit = b_cap if exit_speed_m_s is None else float(exit_speed_m_s) ** 2
+    b, b_lim = _kernels.solve_speed_squared(
+        curvature, sin_grad, ds, veh, bool(line.closed), b_entry, b_exit
+    )
+    v = np.sqrt(b)
+    t, total = _kernels.elapsed_time(v, ds, bool(line.closed))
+    if line.closed:
+        b_next = np.roll(b, -1)
+        a_x = (b_next - b) / (2.0 * ds)
+    else:
+        a_x = np.empty_like(b)
+        a_x[:-1] = np.diff(b) / (2.0 * ds[:-1])
+        a_x[-1] = a_x[-2]
+    if not math.isfinite(total):
+        raise LimitlapError("the car cannot complete this line (speed falls to zero)")
+    return Profile(
+        distance_m=line.distance_m.copy(),
+        speed_m_s=v,
+        accel_lon_m_s2=a_x,
+        accel_lat_m_s2=curvature * b,
+        time_s=t,
+        lap_time_s=float(total),
+        speed_limit_m_s=np.sqrt(b_lim),
+        grip_scale=float(grip_scale),
+    )
+
+
+def lap_times_for_scales(line: Line, vehicle: Vehicle, grip_scales) -> np.ndarray:
+    """Lap time for each grip scale, in one compiled loop (for sweeps).
+
+    Parameters
+    ----------
+    line : Line
+    vehicle : Vehicle
+    grip_scales : array-like
+        Grip scales, each 0.2-2.0. [-]
+
+    Returns
+    -------
+    numpy.ndarray
+        Lap time per scale. [s]
+    """
+    scales = np.ascontiguousarray(grip_scales, dtype=np.float64)
+    for k in scales:
+        check_grip_scale(k)
+    curvature, sin_grad, ds = _line_arrays(line)
+    veh = vehicle_array(vehicle, 1.0)
+    b_cap = V_CAP_M_S**2
+    return _kernels.lap_times_for_scales(
+        curvature, sin_grad, ds, veh, bool(line.closed), b_cap, b_cap, scales
+    )
+
+
+def combined_usage(profile: Profile, curvature_1_m, vehicle: Vehicle) -> np.ndarray:
+    r"""Share of the combined grip each station of ``profile`` uses, 0-1 (INTERFACE §3).
+
+    :math:`u = ((|F_x|/F_{x,max})^n + (|F_y|/F_{y,max})^n)^{1/n}` on the tyre forces,
+    where the tyre force is what the acceleration needs after drag, rolling resistance
+    and gradient; driving takes :math:`\min(\mu_t N, P/v)` as its maximum.
+    """
+    from limitlap import limits
+
+    return limits.combined_usage(
+        profile.speed_m_s,
+        profile.accel_lon_m_s2,
+        profile.accel_lat_m_s2,
+        vehicle.scaled(profile.grip_scale) if profile.grip_scale != 1.0 else vehicle,
+    )
