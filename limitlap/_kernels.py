@@ -133,15 +133,17 @@ def _backward_step(b_j, k_j, s_j, k_i, s_i, ds, b_lim_i, veh):
 
 
 @njit(cache=True)
-def solve_speed_squared(curvature_1_m, sin_grad, ds_m, veh, closed, b_entry, b_exit):
+def solve_speed_squared(curvature_1_m, sin_grad, ds_m, veh, closed, b_entry, b_exit, b_max):
     """Kernel of :func:`limitlap.solve.solve_profile`: the QSS speed² profile.
 
     ``ds_m[i]`` is the length of the step from station i to i+1; for a closed lap the
     last one runs back to station 0. Open lines start at ``b_entry`` and end no faster
-    than ``b_exit``. Returns (b, b_lim).
+    than ``b_exit``. ``b_max`` caps v² per station on top of the grip limit (a slower
+    driver, a pit-lane limit). Returns (b, b_lim) with b_lim the grip-only limit.
     """
     n = curvature_1_m.shape[0]
-    b_lim = cornering_speed_limit(curvature_1_m, veh)
+    b_grip = cornering_speed_limit(curvature_1_m, veh)
+    b_lim = np.minimum(b_grip, b_max)
     fwd = np.empty(n)
     bwd = np.empty(n)
     if closed:
@@ -183,7 +185,7 @@ def solve_speed_squared(curvature_1_m, sin_grad, ds_m, veh, closed, b_entry, b_e
     b = np.empty(n)
     for i in range(n):
         b[i] = min(fwd[i], bwd[i])
-    return b, b_lim
+    return b, b_grip
 
 
 @njit(cache=True)
@@ -201,7 +203,7 @@ def elapsed_time(speed_m_s, ds_m, closed):
 
 
 @njit(cache=True)
-def lap_times_for_scales(curvature_1_m, sin_grad, ds_m, veh, closed, b_entry, b_exit, scales):
+def lap_times_for_scales(curvature_1_m, sin_grad, ds_m, veh, closed, b_entry, b_exit, b_max, scales):
     """Lap time for each grip scale in ``scales`` (a sweep), same line and car."""
     out = np.empty(scales.shape[0])
     v2 = veh.copy()
@@ -209,7 +211,7 @@ def lap_times_for_scales(curvature_1_m, sin_grad, ds_m, veh, closed, b_entry, b_
         v2[I_MU_LAT] = veh[I_MU_LAT] * scales[k]
         v2[I_MU_BRK] = veh[I_MU_BRK] * scales[k]
         v2[I_MU_TRAC] = veh[I_MU_TRAC] * scales[k]
-        b, _ = solve_speed_squared(curvature_1_m, sin_grad, ds_m, v2, closed, b_entry, b_exit)
+        b, _ = solve_speed_squared(curvature_1_m, sin_grad, ds_m, v2, closed, b_entry, b_exit, b_max)
         v = np.sqrt(b)
         _, total = elapsed_time(v, ds_m, closed)
         out[k] = total

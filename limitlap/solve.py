@@ -153,6 +153,7 @@ def solve_profile(
     *,
     entry_speed_m_s: float | None = None,
     exit_speed_m_s: float | None = None,
+    speed_cap_m_s=None,
 ) -> Profile:
     r"""Fastest speed profile a point mass can follow on ``line`` within its envelope.
 
@@ -167,6 +168,9 @@ def solve_profile(
     entry_speed_m_s, exit_speed_m_s : float, optional
         Open lines only: speed at the first station (default: the cornering limit
         there) and the highest speed allowed at the last (default: free). [m/s]
+    speed_cap_m_s : array-like, optional
+        Extra speed ceiling per station, on top of grip (a slower driver, a speed
+        limit); ``inf`` where none. [m/s]
 
     Returns
     -------
@@ -187,8 +191,15 @@ def solve_profile(
     b_cap = V_CAP_M_S**2
     b_entry = b_cap if entry_speed_m_s is None else float(entry_speed_m_s) ** 2
     b_exit = b_cap if exit_speed_m_s is None else float(exit_speed_m_s) ** 2
+    if speed_cap_m_s is None:
+        b_max = np.full(curvature.shape[0], b_cap)
+    else:
+        cap = np.asarray(speed_cap_m_s, dtype=np.float64)
+        if cap.shape != curvature.shape or np.any(~(cap > 0)):
+            raise LimitlapError("speed cap must be positive, one value per station")
+        b_max = np.minimum(cap * cap, b_cap)
     b, b_lim = _kernels.solve_speed_squared(
-        curvature, sin_grad, ds, veh, bool(line.closed), b_entry, b_exit
+        curvature, sin_grad, ds, veh, bool(line.closed), b_entry, b_exit, b_max
     )
     v = np.sqrt(b)
     t, total = _kernels.elapsed_time(v, ds, bool(line.closed))
@@ -234,8 +245,9 @@ def lap_times_for_scales(line: Line, vehicle: Vehicle, grip_scales) -> np.ndarra
     curvature, sin_grad, ds = _line_arrays(line)
     veh = vehicle_array(vehicle, 1.0)
     b_cap = V_CAP_M_S**2
+    b_max = np.full(curvature.shape[0], b_cap)
     return _kernels.lap_times_for_scales(
-        curvature, sin_grad, ds, veh, bool(line.closed), b_cap, b_cap, scales
+        curvature, sin_grad, ds, veh, bool(line.closed), b_cap, b_cap, b_max, scales
     )
 
 
