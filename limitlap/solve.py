@@ -266,3 +266,28 @@ def combined_usage(profile: Profile, curvature_1_m, vehicle: Vehicle) -> np.ndar
         profile.accel_lat_m_s2,
         vehicle.scaled(profile.grip_scale) if profile.grip_scale != 1.0 else vehicle,
     )
+
+
+def profile_csv_text(profile: Profile, line: Line | None = None) -> str:
+    """The profile as CSV text with unit brackets (SI except speed in km/h).
+
+    Columns: distance [m], speed [km/h], accel_lon [m/s^2], accel_lat [m/s^2], time [s],
+    speed_limit [km/h], and curvature [1/m] when the line is given.
+    """
+    from limitlap.units import KMH_TO_M_S
+
+    cols = [
+        ("distance [m]", profile.distance_m, "{:.3f}"),
+        ("speed [km/h]", profile.speed_m_s / KMH_TO_M_S, "{:.3f}"),
+        ("accel_lon [m/s^2]", profile.accel_lon_m_s2, "{:.4f}"),
+        ("accel_lat [m/s^2]", profile.accel_lat_m_s2, "{:.4f}"),
+        ("time [s]", profile.time_s, "{:.4f}"),
+        ("speed_limit [km/h]", profile.speed_limit_m_s / KMH_TO_M_S, "{:.3f}"),
+    ]
+    if line is not None:
+        cols.append(("curvature [1/m]", line.curvature_1_m, "{:.6e}"))
+    header = ",".join(c[0] for c in cols)
+    data = np.column_stack([c[1] for c in cols])
+    fmt = ",".join(c[2] for c in cols)
+    body = "\n".join(fmt.format(*row) for row in data)
+    return header + "\n" + body + "\n"

@@ -1,0 +1,5 @@
+"""``python -m limitlap`` runs the command line."""
+
+from limitlap.cli import main
+
+main()
