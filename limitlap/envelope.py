@@ -1,0 +1,787 @@
+r"""The g-g-V grip envelope fitted to a driver's best samples, and the grip estimate.
+
+The envelope is the point-mass model of INTERFACE §3 (functions in
+:mod:`limitlap.limits`, shared with the solver): with :math:`q = \tfrac12\rho v^2` and
+:math:`N = m g + q C_L A`, the tyre forces obey
+
+.. math:: (|F_x| / F_{x,max})^n + (|F_y| / \mu_y N)^n \le 1,
+
+:math:`F_{x,max} = \min(\mu_t N, P/v)` when driving and :math:`\mu_b N` when braking,
+:math:`F_x = m a_x + q C_D A + C_{rr} m g`, :math:`F_y = m a_y`.
+
+Fitting follows the polar-binning method (REFERENCES §2.2): normalise every sample by
+a provisional envelope at its own speed, so the boundary becomes the unit superellipse;
+bin by speed band and by direction; take the sample at a high quantile of the
+normalised radius in each bin as a boundary point; fit the physical parameters to the
+boundary points with robust least squares; repeat the normalisation with the fitted
+envelope until the parameters settle. A high quantile rather than the maximum keeps
+single spikes out (for samples uniform over the area the q-quantile of the normalised
+radius is :math:`\sqrt q`, REFERENCES §2.2).
+
+References
+----------
+.. [1] R. S. Rice, "Measuring Car-Driver Interaction with the g-g Diagram", SAE
+   Technical Paper 730018, 1973, doi:10.4271/730018.
+.. [2] W. F. Milliken and D. L. Milliken, *Race Car Vehicle Dynamics*, SAE R-146, 1995
+   (friction circle and ellipse).
+.. [3] R. Koenker and G. Bassett, "Regression quantiles", Econometrica 46(1):33-50,
+   1978 (high quantile as the boundary statistic; details from memory).
+.. [4] S. Butterworth, "On the theory of filter amplifiers", Wireless Engineer 7,
+   536-541, 1930 (the low-pass filter; run forwards and backwards for zero phase,
+   as :func:`scipy.signal.filtfilt` does).
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass, field, replace
+
+import numpy as np
+from scipy import optimize, signal
+from scipy.ndimage import median_filter
+
+from limitlap.errors import LimitlapError
+from limitlap.limits import (
+    combined_usage,
+    drive_force_max_n,
+    normal_load_n,
+    resistance_n,
+)
+from limitlap.units import G0_M_S2
+from limitlap.vehicle import Vehicle
+
+#: Rolling-resistance coefficient used when the vehicle file gives none. It cannot be
+#: separated from the friction coefficients in the g-g data (it adds to braking and
+#: subtracts from traction by the same constant). Common practice, no published source.
+ROLLING_COEFF_DEFAULT = 0.012
+
+#: Plausibility windows for fitted values: (low, high, unit label, factor to the label).
+#: Lateral limit from REFERENCES T4.6 (0.5-6 g); the others are common practice, no
+#: published source (wide enough for road cars to single-seaters).
+PLAUSIBLE = {
+    "lateral_g": (0.5, 6.0),
+    "mu": (0.3, 3.0),
+    "exponent": (1.2, 6.0),
+    "power_w": (5.0e3, 1.5e6),
+    "drag_area_m2": (0.05, 3.0),
+    "downforce_area_m2": (-0.5, 8.0),
+}
+
+# Parameter order in the least-squares vector, with internal scale to SI and bounds (SI).
+_PARAMS = (
+    "mu_lat",
+    "mu_brk",
+    "mu_trac",
+    "exponent",
+    "power_w",
+    "drag_area_m2",
+    "downforce_area_m2",
+)
+_BOUNDS = {
+    "mu_lat": (0.05, 8.0),
+    "mu_brk": (0.05, 8.0),
+    "mu_trac": (0.05, 8.0),
+    "exponent": (1.0, 10.0),
+    "power_w": (1.0e3, 5.0e6),
+    "drag_area_m2": (0.0, 5.0),
+    "downforce_area_m2": (-2.0, 20.0),
+}
+_SCALE = {"power_w": 1.0e5}  # fit power in units of 100 kW for conditioning
+
+
+@dataclass(frozen=True, eq=False)
+class Selection:
+    """Samples chosen for the envelope (all arrays as long as the input).
+
+    Attributes
+    ----------
+    speed_m_s : numpy.ndarray
+        Speed, blanks filled where they could be. [m/s]
+    accel_lon_m_s2, accel_lat_m_s2 : numpy.ndarray
+        Accelerations after spike removal and low-pass filtering (when a sample rate was
+        given), + forward and + left. [m/s²]
+    used : numpy.ndarray
+        True for samples that count. [-]
+    n_spikes : int
+        Samples rejected as spikes or short transients. [-]
+    """
+
+    speed_m_s: np.ndarray
+    accel_lon_m_s2: np.ndarray
+    accel_lat_m_s2: np.ndarray
+    used: np.ndarray
+    n_spikes: int = 0
+
+
+@dataclass(frozen=True, eq=False)
+class EnvelopeBand:
+    """One speed band of the fitted envelope, for reporting and plotting.
+
+    Attributes
+    ----------
+    speed_lo_m_s, speed_hi_m_s : float
+        Band edges. [m/s]
+    n_samples : int
+        Used samples in the band. [-]
+    n_near_limit : int
+        Of those, samples within 5 % of the fitted limit (combined usage >= 0.95). [-]
+    speed_m_s, accel_lon_m_s2, accel_lat_m_s2 : numpy.ndarray
+        The boundary points found in the band (one per direction bin). [m/s], [m/s²]
+    """
+
+    speed_lo_m_s: float
+    speed_hi_m_s: float
+    n_samples: int
+    n_near_limit: int
+    speed_m_s: np.ndarray
+    accel_lon_m_s2: np.ndarray
+    accel_lat_m_s2: np.ndarray
+
+
+@dataclass(frozen=True, eq=False)
+class EnvelopeFit:
+    """Result of :func:`fit_envelope`.
+
+    Attributes
+    ----------
+    vehicle : Vehicle
+        Complete vehicle: the base's given values plus the fitted ones.
+    quality : dict[str, float]
+        ``rms_residual_m_s2`` (radial distance of the boundary points from the fitted
+        envelope, in the tyre-force plane), ``share_outside`` (used samples with combined
+        usage > 1), ``n_used``, ``n_boundary_points``, ``speed_min_m_s``,
+        ``speed_max_m_s``, ``quantile``, ``passes``.
+    uncertainty : dict[str, float]
+        One standard deviation per fitted parameter, same names and units as
+        :class:`Vehicle` fields.
+    bands : tuple[EnvelopeBand, ...]
+        Per speed band: sample counts and boundary points.
+    used : numpy.ndarray
+        Mask over the input samples: True where a sample went into the fit. [-]
+    fitted : tuple[str, ...]
+        Names of the vehicle fields taken from the fit.
+    warnings : list[str]
+        Plain one-line notes for the user.
+    """
+
+    vehicle: Vehicle
+    quality: dict
+    uncertainty: dict
+    bands: tuple
+    used: np.ndarray
+    fitted: tuple
+    warnings: list = field(default_factory=list)
+
+
+def _as_1d(name, values, n=None):
+    arr = np.asarray(values, dtype=np.float64)
+    if arr.ndim != 1:
+        raise LimitlapError(f"{name} must be a 1-D array")
+    if n is not None and arr.shape[0] != n:
+        raise LimitlapError(f"{name} has {arr.shape[0]} samples, expected {n}")
+    return arr
+
+
+def _fill_gaps(values):
+    """Linear interpolation over the index across interior blanks (NaN)."""
+    out = values.copy()
+    ok = np.isfinite(out)
+    if ok.sum() >= 2 and not ok.all():
+        idx = np.arange(out.shape[0])
+        first, last = np.flatnonzero(ok)[[0, -1]]
+        inner = (~ok) & (idx > first) & (idx < last)
+        out[inner] = np.interp(idx[inner], idx[ok], out[ok])
+    return out
+
+
+def _runs(ok):
+    """Start and end (exclusive) of the runs of True in a boolean array."""
+    padded = np.concatenate(([False], ok, [False])).astype(np.int8)
+    edges = np.flatnonzero(np.diff(padded))
+    return edges[0::2], edges[1::2]
+
+
+def select_samples(
+    speed_m_s,
+    accel_lon_m_s2,
+    accel_lat_m_s2,
+    mask=None,
+    *,
+    sample_rate_hz=None,
+    cutoff_hz=3.0,
+    persistence_s=0.3,
+    spike_threshold_m_s2=2.0,
+    min_speed_m_s=10.0,
+) -> Selection:
+    """Choose the samples that show sustained grip.
+
+    Parameters
+    ----------
+    speed_m_s : array-like
+        Speed per sample; blanks (NaN) between slower GPS samples are filled by
+        linear interpolation over the sample index when ``sample_rate_hz`` is given. [m/s]
+    accel_lon_m_s2, accel_lat_m_s2 : array-like
+        Longitudinal (+ forward) and lateral (+ left) acceleration per sample. [m/s²]
+    mask : array-like of bool, optional
+        True for samples on complete laps (out-laps and in-laps excluded); all when
+        omitted. [-]
+    sample_rate_hz : float, optional
+        Uniform sample rate. When given, spikes are removed and the accelerations
+        low-pass filtered; without it (e.g. samples on distance stations) neither. [Hz]
+    cutoff_hz : float, default 3.0
+        Cut-off of the zero-phase 2nd-order Butterworth low-pass [4]_; "a few Hz" is
+        common practice, no published source (REFERENCES §2.2). [Hz]
+    persistence_s : float, default 0.3
+        Width of the running median: a value must last about half of it to count as
+        sustained grip (0.2-0.5 s is common practice, no published source). [s]
+    spike_threshold_m_s2 : float, default 2.0
+        A sample further than this from the running median (in either axis) is a spike
+        or short transient (kerb strike) and is dropped. Common practice. [m/s²]
+    min_speed_m_s : float, default 10.0
+        Slower samples (pit lane, stops) are dropped. Common practice. [m/s]
+
+    Returns
+    -------
+    Selection
+        Filtered arrays and the mask of samples used.
+    """
+    v = _as_1d("speed", speed_m_s)
+    n = v.shape[0]
+    ax = _as_1d("longitudinal acceleration", accel_lon_m_s2, n).copy()
+    ay = _as_1d("lateral acceleration", accel_lat_m_s2, n).copy()
+    keep = np.ones(n, bool) if mask is None else np.asarray(mask, dtype=bool)
+    if keep.shape != (n,):
+        raise LimitlapError(f"sample mask has shape {keep.shape}, expected ({n},)")
+    n_spikes = 0
+    if sample_rate_hz is not None:
+        fs = float(sample_rate_hz)
+        if not (math.isfinite(fs) and fs > 0.0):
+            raise LimitlapError(f"sample rate {sample_rate_hz} Hz is not a positive number")
+        v = _fill_gaps(v)
+        finite = np.isfinite(ax) & np.isfinite(ay)
+        width = max(3, round(persistence_s * fs) | 1)  # odd window
+        wn = cutoff_hz / (0.5 * fs)
+        sos = signal.butter(2, wn, output="sos") if wn < 1.0 else None
+        spike = np.zeros(n, bool)
+        starts, ends = _runs(finite)
+        for a, b in zip(starts, ends, strict=True):  # one pass per unbroken stretch
+            seg = slice(a, b)
+            for arr in (ax, ay):
+                med = median_filter(arr[seg], size=width, mode="nearest")
+                bad = np.abs(arr[seg] - med) > spike_threshold_m_s2
+                spike[seg] |= bad
+                arr[seg] = np.where(bad, med, arr[seg])  # replace before filtering
+            if sos is not None and b - a > 15:  # sosfiltfilt's default pad length
+                ax[seg] = signal.sosfiltfilt(sos, ax[seg])
+                ay[seg] = signal.sosfiltfilt(sos, ay[seg])
+            elif sos is not None:
+                finite[seg] = False  # too short to filter: leave out
+        n_spikes = int((spike & keep).sum())
+        keep = keep & ~spike & finite
+    ok = keep & np.isfinite(v) & np.isfinite(ax) & np.isfinite(ay) & (v >= min_speed_m_s)
+    return Selection(v, ax, ay, ok, n_spikes)
+
+
+def _vehicle_from(x, names, base):
+    values = {k: float(val) * _SCALE.get(k, 1.0) for k, val in zip(names, x, strict=True)}
+    return replace(base, **values)
+
+
+def _tyre_plane(v, ax, ay, veh):
+    """Normalised tyre-force shares (sx, sy) and the tyre-force radius |F|/m. [-], [m/s²]."""
+    m = veh.mass_kg
+    fx = m * ax + resistance_n(v, veh)
+    normal = normal_load_n(v, veh)
+    fx_max = np.where(fx >= 0.0, drive_force_max_n(v, veh), veh.mu_brk * normal)
+    return fx / fx_max, m * ay / (veh.mu_lat * normal), np.hypot(fx / m, ay)
+
+
+def _residuals(v, ax, ay, veh):
+    """Radial distance of points from the envelope in the tyre-force plane. [m/s²]
+
+    Combined usage u is homogeneous of degree 1 along a ray from the tyre-force
+    origin (F_x,max depends only on the sign of F_x), so the envelope crosses the ray
+    at |F|/u and the point lies |F|(1 - 1/u)/m outside it (negative inside).
+    """
+    u = combined_usage(v, ax, ay, veh)
+    _, _, r = _tyre_plane(v, ax, ay, veh)
+    return r * (1.0 - 1.0 / np.maximum(u, 1e-9))
+
+
+def _boundary_points(v, ax, ay, veh, band, n_angle_bins, quantile, min_bin_samples):
+    """Index of the sample at the ``quantile`` rank of normalised radius in every bin."""
+    sx, sy, _ = _tyre_plane(v, ax, ay, veh)
+    rho = combined_usage(v, ax, ay, veh)
+    phi = np.arctan2(sy, sx)
+    abin = np.minimum(
+        ((phi + np.pi) / (2 * np.pi) * n_angle_bins).astype(np.int64), n_angle_bins - 1
+    )
+    key = band * n_angle_bins + abin
+    order = np.lexsort((rho, key))
+    keys, start, count = np.unique(key[order], return_index=True, return_counts=True)
+    full = count >= min_bin_samples
+    rank = start[full] + np.rint(quantile * (count[full] - 1)).astype(np.int64)
+    return order[rank], keys[full] // n_angle_bins
+
+
+def _provisional(v, ax, ay, base, quantile):
+    """A first envelope from plain quantiles: no aero, friction ellipse."""
+    g = G0_M_S2
+
+    def q(values, default):
+        return float(np.quantile(values, quantile)) if values.size >= 10 else default
+
+    mu_lat = q(np.abs(ay), 1.0 * g) / g
+    mu_brk = q(-ax[ax < 0], mu_lat * g) / g
+    mu_trac = q(ax[ax > 0], mu_lat * g) / g
+    m = base.mass_kg
+    drive = ax > 0
+    p_demo = q(m * ax[drive] * v[drive], 2.0e5) if drive.any() else 2.0e5
+    veh = replace(
+        base,
+        mu_lat=max(mu_lat, 0.1),
+        mu_brk=max(mu_brk, 0.1),
+        mu_trac=max(mu_trac, 0.1),
+        exponent=2.0 if base.exponent is None else base.exponent,
+        power_w=base.power_w if base.power_w is not None else math.inf,
+        drag_area_m2=base.drag_area_m2 if base.drag_area_m2 is not None else 0.0,
+        downforce_area_m2=base.downforce_area_m2 if base.downforce_area_m2 is not None else 0.0,
+        rolling_coeff=(
+            base.rolling_coeff if base.rolling_coeff is not None else ROLLING_COEFF_DEFAULT
+        ),
+    )
+    start = {"power_w": max(1.5 * p_demo, 2.0e4), "drag_area_m2": 0.5, "downforce_area_m2": 0.5}
+    return veh, start, max(p_demo, 2.0e4)
+
+
+def fit_envelope(
+    speed_m_s,
+    accel_lon_m_s2,
+    accel_lat_m_s2,
+    base: Vehicle,
+    *,
+    mask=None,
+    sample_rate_hz=None,
+    quantile=0.99,
+    band_width_m_s=5.0,
+    n_angle_bins=36,
+    min_bin_samples=20,
+    min_near_limit=30,
+    min_speed_m_s=10.0,
+    loss_scale_m_s2=0.1,
+    max_passes=5,
+) -> EnvelopeFit:
+    """Fit the g-g-V envelope of INTERFACE §3 to the samples a driver demonstrated.
+
+    Parameters
+    ----------
+    speed_m_s, accel_lon_m_s2, accel_lat_m_s2 : array-like
+        Per-sample speed [m/s], longitudinal (+ forward) and lateral (+ left)
+        acceleration [m/s²].
+    base : Vehicle
+        Known values. Mass is required; ``power_w``, ``drag_area_m2`` and
+        ``downforce_area_m2`` are fitted where ``None``; ``rolling_coeff`` falls back to
+        :data:`ROLLING_COEFF_DEFAULT` where ``None``. Friction coefficients and exponent
+        are always fitted (the base's, when given, are the starting point).
+    mask : array-like of bool, optional
+        True for samples on complete laps. [-]
+    sample_rate_hz : float, optional
+        Uniform sample rate, enables spike removal and low-pass filtering
+        (:func:`select_samples`). [Hz]
+    quantile : float, default 0.99
+        Rank of the boundary sample in each bin; 0.95-0.99 is the usual range
+        (REFERENCES §2.2). [-]
+    band_width_m_s : float, default 5.0
+        Width of the speed bands. [m/s]
+    n_angle_bins : int, default 36
+        Direction bins in the normalised g-g plane (10° each). [-]
+    min_bin_samples : int, default 20
+        A bin with fewer samples gives no boundary point (a high quantile of a handful of
+        samples is biased low). Common practice, no published source. [-]
+    min_near_limit : int, default 30
+        A band with fewer samples within 5 % of the limit gets a warning. [-]
+    min_speed_m_s : float, default 10.0
+        Slower samples are dropped. [m/s]
+    loss_scale_m_s2 : float, default 0.1
+        Soft-L1 loss scale: boundary points further than this from the envelope count
+        less than quadratically. [m/s²]
+    max_passes : int, default 5
+        Normalise-bin-fit passes at most; stops when parameters move < 0.1 %. [-]
+
+    Returns
+    -------
+    EnvelopeFit
+
+    Notes
+    -----
+    Least squares (:func:`scipy.optimize.least_squares`, ``loss="soft_l1"``) on the radial
+    distance of the boundary points from the envelope in the tyre-force plane. The lateral
+    limit's growth with speed separates downforce from friction, the braking and traction
+    limits' growth then gives drag, and the driving side at speed gives power. The
+    uncertainty is the Gauss-Newton covariance :math:`s^2 (J^T J)^{-1}` at the solution,
+    treating boundary points as independent (they are order statistics of different bins,
+    so this is an approximation). Gradient and banking are not modelled. Weak priors
+    (centred on typical values, worth 0.01 m/s² per prior standard deviation) keep
+    parameters the data cannot determine finite; a warning then says so.
+    """
+    if base.mass_kg is None or not (base.mass_kg > 0):
+        raise LimitlapError(f"vehicle '{base.name}' needs a positive mass to fit an envelope")
+    if not 0.5 <= quantile < 1.0:
+        raise LimitlapError(f"envelope quantile {quantile} is outside 0.5-1")
+    sel = select_samples(
+        speed_m_s,
+        accel_lon_m_s2,
+        accel_lat_m_s2,
+        mask,
+        sample_rate_hz=sample_rate_hz,
+        min_speed_m_s=min_speed_m_s,
+    )
+    used = sel.used
+    v, ax, ay = sel.speed_m_s[used], sel.accel_lon_m_s2[used], sel.accel_lat_m_s2[used]
+    if v.size < min_bin_samples * 4:
+        raise LimitlapError(
+            f"only {v.size} usable samples above {min_speed_m_s:g} m/s on complete laps; "
+            "too few to fit a grip envelope"
+        )
+    edges = np.arange(min_speed_m_s, v.max() + band_width_m_s, band_width_m_s)
+    band = np.clip(np.searchsorted(edges, v, side="right") - 1, 0, edges.size - 2)
+
+    veh, start, p_demo = _provisional(v, ax, ay, base, quantile)
+    names = list(_PARAMS[:4]) + [k for k in _PARAMS[4:] if getattr(base, k) is None]
+    x0 = np.array([getattr(veh, k) if k not in start else start[k] for k in names])
+    if base.has_grip:
+        x0[:4] = [base.mu_lat, base.mu_brk, base.mu_trac, base.exponent]
+    x0 = x0 / np.array([_SCALE.get(k, 1.0) for k in names])
+    lo = np.array([_BOUNDS[k][0] / _SCALE.get(k, 1.0) for k in names])
+    hi = np.array([_BOUNDS[k][1] / _SCALE.get(k, 1.0) for k in names])
+    x0 = np.clip(x0, lo + 1e-9, hi - 1e-9)
+    # Weak priors: (centre, standard deviation) in internal units.
+    prior = {
+        "power_w": (p_demo / 1e5, p_demo / 1e5),
+        "drag_area_m2": (0.7, 1.0),
+        "downforce_area_m2": (0.0, 2.0),
+    }
+    pri = [(i, *prior[k]) for i, k in enumerate(names) if k in prior]
+    w_prior = 0.01  # m/s² per prior standard deviation
+
+    bp = None
+    passes = 0
+    for passes in range(1, max_passes + 1):
+        idx, bp_band = _boundary_points(
+            v, ax, ay, veh, band, n_angle_bins, quantile, min_bin_samples
+        )
+        if idx.size < len(names) + 3:
+            raise LimitlapError(
+                f"only {idx.size} direction bins hold {min_bin_samples} or more samples; "
+                "too few to fit a grip envelope"
+            )
+        bv, bax, bay = v[idx], ax[idx], ay[idx]
+
+        def fun(x, bv=bv, bax=bax, bay=bay, veh=veh):
+            res = _residuals(bv, bax, bay, _vehicle_from(x, names, veh))
+            extra = [w_prior * (x[i] - c) / s for i, c, s in pri]
+            return np.concatenate((res, extra))
+
+        sol = optimize.least_squares(
+            fun, x0, bounds=(lo, hi), loss="soft_l1", f_scale=loss_scale_m_s2, x_scale="jac"
+        )
+        moved = np.max(np.abs(sol.x - x0) / np.maximum(np.abs(x0), 1e-6))
+        x0 = sol.x
+        veh = _vehicle_from(sol.x, names, veh)
+        bp = (idx, bp_band, bv, bax, bay, sol)
+        if moved < 1e-3 and passes > 1:
+            break
+
+    idx, bp_band, bv, bax, bay, sol = bp
+    res = _residuals(bv, bax, bay, veh)
+    dof = max(res.size - len(names), 1)
+    s2 = float(np.sum(res**2) / dof)
+    jac = sol.jac
+    cov = np.linalg.pinv(jac.T @ jac) * s2
+    sigma = np.sqrt(np.clip(np.diag(cov), 0.0, None))
+    uncertainty = {k: float(sigma[i] * _SCALE.get(k, 1.0)) for i, k in enumerate(names)}
+
+    usage = combined_usage(v, ax, ay, veh)
+    bands = []
+    warnings = []
+    for b in range(edges.size - 1):
+        inb = band == b
+        if not inb.any():
+            continue
+        sel_b = bp_band == b
+        near = int((usage[inb] >= 0.95).sum())
+        lo_b, hi_b = float(edges[b]), float(edges[b + 1])
+        bands.append(
+            EnvelopeBand(lo_b, hi_b, int(inb.sum()), near, bv[sel_b], bax[sel_b], bay[sel_b])
+        )
+        if near < min_near_limit:
+            warnings.append(
+                f"speed band {lo_b:.0f}-{hi_b:.0f} m/s: only {near} samples within 5 % of "
+                "the fitted limit; the envelope there rests on the neighbouring bands"
+            )
+    warnings.extend(_plausibility(veh, v, names, uncertainty))
+    quality = {
+        "rms_residual_m_s2": float(np.sqrt(np.mean(res**2))),
+        "share_outside": float(np.mean(usage > 1.0)),
+        "n_used": int(v.size),
+        "n_boundary_points": int(idx.size),
+        "speed_min_m_s": float(v.min()),
+        "speed_max_m_s": float(v.max()),
+        "quantile": float(quantile),
+        "passes": int(passes),
+    }
+    fitted = tuple(names)
+    if base.rolling_coeff is None:
+        warnings.append(
+            f"rolling resistance not given: {ROLLING_COEFF_DEFAULT} assumed "
+            "(it cannot be told apart from grip in the g-g data)"
+        )
+    return EnvelopeFit(
+        veh.require_complete(), quality, uncertainty, tuple(bands), used, fitted, warnings
+    )
+
+
+def _plausibility(veh, v, names, uncertainty):
+    """One-line warnings for fitted values outside the plausibility windows."""
+    out = []
+    lo, hi = PLAUSIBLE["lateral_g"]
+    for speed in (float(v.min()), float(v.max())):
+        lat_g = veh.mu_lat * float(normal_load_n(speed, veh)) / veh.mass_kg / G0_M_S2
+        if not lo <= lat_g <= hi:
+            out.append(
+                f"fitted lateral limit {lat_g:.2f} g at {speed:.0f} m/s is outside "
+                f"the plausible {lo}-{hi} g"
+            )
+    for k in ("mu_lat", "mu_brk", "mu_trac"):
+        lo, hi = PLAUSIBLE["mu"]
+        if not lo <= getattr(veh, k) <= hi:
+            out.append(f"fitted {k} {getattr(veh, k):.2f} is outside the plausible {lo}-{hi}")
+    for k in ("exponent", "power_w", "drag_area_m2", "downforce_area_m2"):
+        if k not in names:
+            continue
+        lo, hi = PLAUSIBLE[k]
+        val = getattr(veh, k)
+        if not lo <= val <= hi:
+            out.append(f"fitted {k} {val:.4g} is outside the plausible {lo:g}-{hi:g}")
+        if k != "exponent" and uncertainty[k] > 0.5 * max(abs(val), 1e-3 * hi):
+            out.append(
+                f"{k} is not well determined by the data ({val:.4g} ± "
+                f"{uncertainty[k]:.2g}); give it in the vehicle file if known"
+            )
+    return out
+
+
+def envelope_boundary(speed_m_s, vehicle: Vehicle, n_points=181):
+    """Points on the envelope at one speed, for plotting and tests.
+
+    Parameters
+    ----------
+    speed_m_s : float
+        Speed. [m/s]
+    vehicle : Vehicle
+        Complete vehicle.
+    n_points : int, default 181
+        Points round the closed curve (first = last). [-]
+
+    Returns
+    -------
+    accel_lon_m_s2, accel_lat_m_s2 : numpy.ndarray
+        Boundary of the g-g diagram at this speed, + forward, + left. [m/s²]
+
+    Notes
+    -----
+    The unit superellipse :math:`|s_x|^n + |s_y|^n = 1` parametrised as
+    :math:`s = (\\mathrm{sgn}\\cos t |\\cos t|^{2/n}, \\mathrm{sgn}\\sin t |\\sin t|^{2/n})`,
+    then scaled by the force limits of INTERFACE §3 and shifted by the resistance.
+
+    Examples
+    --------
+    >>> car = Vehicle("demo", 1000.0, 1e9, 0.0, 0.0, 0.0, mu_lat=1.0, mu_brk=1.0,
+    ...               mu_trac=1.0, exponent=2.0)
+    >>> ax, ay = envelope_boundary(20.0, car, n_points=5)
+    >>> [round(float(a), 5) for a in ay]
+    [0.0, 9.80665, 0.0, -9.80665, -0.0]
+    """
+    vehicle.require_complete()
+    t = np.linspace(0.0, 2.0 * np.pi, n_points)
+    n = vehicle.exponent
+    sx = np.sign(np.cos(t)) * np.abs(np.cos(t)) ** (2.0 / n)
+    sy = np.sign(np.sin(t)) * np.abs(np.sin(t)) ** (2.0 / n)
+    v = np.full_like(t, float(speed_m_s))
+    m = vehicle.mass_kg
+    normal = normal_load_n(v, vehicle)
+    fx_max = np.where(sx >= 0.0, drive_force_max_n(v, vehicle), vehicle.mu_brk * normal)
+    ax = (sx * fx_max - resistance_n(v, vehicle)) / m
+    ay = sy * vehicle.mu_lat * normal / m
+    return ax, ay
+
+
+def _grip_demand(speed_m_s, accel_lon_m_s2, accel_lat_m_s2, vehicle: Vehicle):
+    """Required grip scale per sample and whether the power limit binds at it. [-]"""
+    vehicle.require_complete()
+    v = np.asarray(speed_m_s, dtype=np.float64)
+    m = vehicle.mass_kg
+    fx = m * np.asarray(accel_lon_m_s2, dtype=np.float64) + resistance_n(v, vehicle)
+    fy = m * np.abs(np.asarray(accel_lat_m_s2, dtype=np.float64))
+    n = vehicle.exponent
+    # Grip-only usage: the limits of combined_usage without the power cap.
+    k_grip = combined_usage(v, accel_lon_m_s2, accel_lat_m_s2, replace(vehicle, power_w=math.inf))
+    normal = normal_load_n(v, vehicle)
+    power_force = drive_force_max_n(v, replace(vehicle, mu_trac=math.inf))  # P/v
+    capped = (fx > 0.0) & (k_grip * vehicle.mu_trac * normal > power_force)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        left = 1.0 - (fx / power_force) ** n
+        k_power = np.where(left > 0.0, fy / (vehicle.mu_lat * normal * left ** (1.0 / n)), np.inf)
+    return np.where(capped, k_power, k_grip), capped
+
+
+def required_grip_scale(speed_m_s, accel_lon_m_s2, accel_lat_m_s2, vehicle: Vehicle):
+    r"""Smallest grip scale k at which each sample lies on or inside the envelope.
+
+    Parameters
+    ----------
+    speed_m_s, accel_lon_m_s2, accel_lat_m_s2 : array-like
+        Per-sample speed [m/s] and accelerations, + forward, + left [m/s²].
+    vehicle : Vehicle
+        Complete vehicle at grip 1.
+
+    Returns
+    -------
+    numpy.ndarray
+        k per sample; ``inf`` where the driving force exceeds the power limit P/v,
+        which no grip scale changes. [-]
+
+    Notes
+    -----
+    k multiplies the three friction coefficients only (INTERFACE §3). While the power
+    limit does not bind, every force limit is proportional to k, so the combined usage at
+    scale k is :math:`u_1/k` and :math:`k = u_1`, the usage at k = 1 with traction
+    :math:`\mu_t N`. Where :math:`k \mu_t N > P/v` the driving limit is :math:`P/v` and
+    :math:`(F_x v/P)^n + (F_y/(k \mu_y N))^n = 1` gives
+    :math:`k = F_y / (\mu_y N (1 - (F_x v / P)^n)^{1/n})` (closed form, no iteration).
+    """
+    return _grip_demand(speed_m_s, accel_lon_m_s2, accel_lat_m_s2, vehicle)[0]
+
+
+def _prepare(speed_m_s, accel_lon_m_s2, accel_lat_m_s2, mask, min_speed_m_s):
+    v = _as_1d("speed", speed_m_s)
+    ax = _as_1d("longitudinal acceleration", accel_lon_m_s2, v.shape[0])
+    ay = _as_1d("lateral acceleration", accel_lat_m_s2, v.shape[0])
+    ok = np.isfinite(v) & np.isfinite(ax) & np.isfinite(ay) & (v >= min_speed_m_s)
+    if mask is not None:
+        mask = np.asarray(mask, dtype=bool)
+        if mask.shape != v.shape:
+            raise LimitlapError(f"sample mask has shape {mask.shape}, expected {v.shape}")
+        ok &= mask
+    return v, ax, ay, ok
+
+
+def grip_estimate(
+    speed_m_s,
+    accel_lon_m_s2,
+    accel_lat_m_s2,
+    vehicle: Vehicle,
+    *,
+    quantile=0.99,
+    mask=None,
+    min_speed_m_s=10.0,
+) -> float:
+    """Grip scale at which the vehicle's envelope just bounds what the samples showed.
+
+    Parameters
+    ----------
+    speed_m_s, accel_lon_m_s2, accel_lat_m_s2 : array-like
+        Per-sample speed [m/s] and accelerations, + forward, + left [m/s²].
+    vehicle : Vehicle
+        Complete vehicle (envelope at grip 1), e.g. fitted on a dry session.
+    quantile : float, default 0.99
+        High quantile of the per-sample required scale, the same statistic as the
+        envelope fit, so spikes do not set it. [-]
+    mask : array-like of bool, optional
+        Samples to consider. [-]
+    min_speed_m_s : float, default 10.0
+        Slower samples are left out. [m/s]
+
+    Returns
+    -------
+    float
+        Grip scale k; near 1 when ``vehicle`` was fitted from the same samples. Not
+        clipped to the 0.2-2.0 range of ``--grip``. [-]
+
+    Notes
+    -----
+    Per sample the required scale comes from :func:`required_grip_scale`. Samples where
+    the power limit binds at their own required scale are left out: they show power,
+    not grip, and there the required scale is ill-conditioned (a small error in
+    :math:`F_x` near :math:`P/v` moves it without bound).
+
+    Examples
+    --------
+    >>> car = Vehicle("demo", 1000.0, 1e9, 0.0, 0.0, 0.0, mu_lat=1.0, mu_brk=1.0,
+    ...               mu_trac=1.0, exponent=2.0)
+    >>> round(grip_estimate([20.0, 20.0], [0.0, 0.0], [7.0, 8.0], car, quantile=1.0), 4)
+    0.8158
+    """
+    v, ax, ay, ok = _prepare(speed_m_s, accel_lon_m_s2, accel_lat_m_s2, mask, min_speed_m_s)
+    k, capped = _grip_demand(v[ok], ax[ok], ay[ok], vehicle)
+    k = k[~capped]
+    if k.size == 0:
+        raise LimitlapError("no grip-limited samples to estimate the grip scale from")
+    return float(np.quantile(k, quantile))
+
+
+def grip_estimate_by_segment(
+    speed_m_s,
+    accel_lon_m_s2,
+    accel_lat_m_s2,
+    vehicle: Vehicle,
+    segment_index,
+    *,
+    quantile=0.99,
+    mask=None,
+    min_speed_m_s=10.0,
+    min_samples=5,
+) -> np.ndarray:
+    """Grip scale per segment (corner), as :func:`grip_estimate` within each.
+
+    Parameters
+    ----------
+    speed_m_s, accel_lon_m_s2, accel_lat_m_s2 : array-like
+        Per-sample speed [m/s] and accelerations [m/s²].
+    vehicle : Vehicle
+        Complete vehicle at grip 1.
+    segment_index : array-like of int
+        Segment number 0..S-1 of each sample; negative = in no segment. [-]
+    quantile, mask, min_speed_m_s
+        As in :func:`grip_estimate`.
+    min_samples : int, default 5
+        Segments with fewer usable samples get NaN. [-]
+
+    Returns
+    -------
+    numpy.ndarray
+        k per segment, length max(segment_index) + 1; NaN where too few samples. [-]
+    """
+    v, ax, ay, ok = _prepare(speed_m_s, accel_lon_m_s2, accel_lat_m_s2, mask, min_speed_m_s)
+    seg = np.asarray(segment_index)
+    if seg.shape != v.shape or not np.issubdtype(seg.dtype, np.integer):
+        raise LimitlapError("segment index must be one integer per sample")
+    n_seg = int(seg.max()) + 1 if seg.size else 0
+    out = np.full(max(n_seg, 0), np.nan)
+    k = np.full(v.shape, np.inf)
+    capped = np.ones(v.shape, bool)
+    k[ok], capped[ok] = _grip_demand(v[ok], ax[ok], ay[ok], vehicle)
+    good = ok & ~capped & (seg >= 0)
+    if not good.any():
+        return out
+    kk, ss = k[good], seg[good]
+    order = np.lexsort((kk, ss))
+    keys, start, count = np.unique(ss[order], return_index=True, return_counts=True)
+    enough = count >= min_samples
+    pos = quantile * (count - 1)  # linear interpolation between ranks, as numpy.quantile
+    lo = start + np.floor(pos).astype(np.int64)
+    hi = start + np.ceil(pos).astype(np.int64)
+    frac = pos - np.floor(pos)
+    val = kk[order][lo] * (1.0 - frac) + kk[order][hi] * frac
+    out[keys[enough]] = val[enough]
+    return out
