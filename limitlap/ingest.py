@@ -219,3 +219,710 @@ class Log:
         """True when the channel exists and has at least one value."""
         ch = self.channels.get(name)
         return ch is not None and bool(np.isfinite(ch).any())
+
+
+# --------------------------------------------------------------------------- channel maps
+
+import csv  # noqa: E402
+import gzip  # noqa: E402
+import re  # noqa: E402
+import zlib  # noqa: E402
+
+from limitlap.units import CHANNEL_UNITS  # noqa: E402
+
+#: Spellings of units seen in logger exports -> the spelling used in ``CHANNEL_UNITS``
+#: (compared after lower-casing and removing spaces).
+_UNIT_ALIASES = {
+    "sec": "s",
+    "secs": "s",
+    "msec": "ms",
+    "°": "deg",
+    "degree": "deg",
+    "degrees": "deg",
+    "metre": "m",
+    "meter": "m",
+    "kph": "km/h",
+    "kmh": "km/h",
+    "km/hr": "km/h",
+    "mps": "m/s",
+    "m/s2": "m/s^2",
+    "m/s²": "m/s^2",
+    "m/s/s": "m/s^2",
+    "ms^-2": "m/s^2",
+    "ms-2": "m/s^2",
+    "°/s": "deg/s",
+    "deg/sec": "deg/s",
+    "dps": "deg/s",
+    "rad/sec": "rad/s",
+    "pct": "%",
+    "percent": "%",
+}
+
+
+@dataclass(frozen=True)
+class ChannelSpec:
+    """Where one channel of INTERFACE §1 is found in a log with other column names.
+
+    Attributes
+    ----------
+    column : str
+        Header cell (or its name part before ``[unit]``) of the column in the log.
+    unit : str or None
+        Unit of the column, overriding the header's bracket; None: from the header.
+    invert : bool
+        True flips the sign (a logger with another sign convention than ISO 8855).
+    """
+
+    column: str
+    unit: str | None = None
+    invert: bool = False
+
+
+@dataclass(frozen=True)
+class ChannelMap:
+    """A channel-map file: INTERFACE §1 channel name -> :class:`ChannelSpec`."""
+
+    path: str
+    channels: dict[str, ChannelSpec]
+
+
+def _unit_key(channel: str, unit: str) -> str | None:
+    """The ``CHANNEL_UNITS[channel]`` key a written unit means, None when not accepted."""
+    accepted = CHANNEL_UNITS[channel]
+    text = unit.strip().lower().replace(" ", "")
+    text = _UNIT_ALIASES.get(text, text)
+    if text == "-":  # dimensionless written as [-]
+        text = "" if "" in accepted else "0-1"
+    if text == "" and "" not in accepted:
+        return next(iter(accepted))
+    for key in accepted:
+        if key.lower() == text:
+            return key
+    return None
+
+
+def _accepted_units(channel: str) -> str:
+    return ", ".join(k or "(none)" for k in CHANNEL_UNITS[channel])
+
+
+def _open_toml(path: Path, what: str) -> dict:
+    try:
+        with path.open("rb") as fh:
+            return tomllib.load(fh)
+    except FileNotFoundError:
+        raise InputError(path, "file not found") from None
+    except IsADirectoryError:
+        raise InputError(path, f"is a folder, not a {what}") from None
+    except OSError as err:
+        raise InputError(path, f"cannot be read: {err.strerror}") from err
+    except tomllib.TOMLDecodeError as err:
+        raise InputError(path, f"not valid TOML: {err}") from err
+    except UnicodeDecodeError as err:
+        raise InputError(path, "not valid TOML: not UTF-8 text") from err
+
+
+def read_channel_map(path) -> ChannelMap:
+    """Read a channel-map file (INTERFACE §1) that names a log's columns.
+
+    The file holds one table per channel::
+
+        [channels.speed]
+        column = "GPS Speed"      # header cell, with or without its "[unit]"
+        unit = "m/s"              # optional: overrides the header's bracket
+        [channels.accel_lat]
+        invert = true             # optional: flip the sign; column defaults to the name
+
+    Parameters
+    ----------
+    path : str or Path
+        TOML file.
+
+    Returns
+    -------
+    ChannelMap
+        Checked entries: known channel names, accepted units, one column per channel.
+    """
+    path = Path(path)
+    data = _open_toml(path, "channel-map file")
+    extra = sorted(set(data) - {"channels"})
+    if extra:
+        raise InputError(path, f"unknown key '{extra[0]}'; a channel map holds [channels.NAME] tables")
+    tables = data.get("channels")
+    if not isinstance(tables, dict) or not tables:
+        raise InputError(path, "no [channels.NAME] tables")
+    specs: dict[str, ChannelSpec] = {}
+    used: dict[str, str] = {}
+    for name, entry in tables.items():
+        key = f"channels.{name}"
+        if name not in CHANNEL_UNITS:
+            known = ", ".join(CHANNEL_UNITS)
+            raise InputError(path, f"unknown channel '{name}' in [{key}]; known: {known}")
+        if not isinstance(entry, dict):
+            raise InputError(path, f"[{key}] must be a table (column, unit, invert)")
+        unknown = sorted(set(entry) - {"column", "unit", "invert"})
+        if unknown:
+            raise InputError(path, f"unknown key '{key}.{unknown[0]}' (expected column, unit, invert)")
+        column = entry.get("column", name)
+        if not isinstance(column, str) or not column.strip():
+            raise InputError(path, f"key '{key}.column' must be a non-empty text, got {column!r}")
+        unit = entry.get("unit")
+        if unit is not None:
+            if not isinstance(unit, str):
+                raise InputError(path, f"key '{key}.unit' must be text, got {unit!r}")
+            resolved = _unit_key(name, unit)
+            if resolved is None:
+                raise InputError(
+                    path, f"key '{key}.unit': unknown unit '{unit}' (accepted: {_accepted_units(name)})"
+                )
+            unit = resolved
+        invert = entry.get("invert", False)
+        if not isinstance(invert, bool):
+            raise InputError(path, f"key '{key}.invert' must be true or false, got {invert!r}")
+        folded = column.strip().lower()
+        if folded in used:
+            raise InputError(path, f"column '{column}' is mapped twice ({used[folded]} and {name})")
+        used[folded] = name
+        specs[name] = ChannelSpec(column=column.strip(), unit=unit, invert=invert)
+    return ChannelMap(path=str(path), channels=specs)
+
+
+# --------------------------------------------------------------------------- session logs
+
+#: Start of the gzip format (RFC 1952 §2.3.1: ID1 = 0x1f, ID2 = 0x8b).
+_GZIP_MAGIC = b"\x1f\x8b"
+_DECIMAL_COMMA = re.compile(r"^\s*[-+]?\d+,\d+(?:[eE][-+]?\d+)?\s*$")
+#: Fixes further apart than this many nominal GPS intervals count as a dropout.
+#: Common practice, no published source.
+_DROPOUT_INTERVALS = 3.0
+#: Shortest gap reported as a dropout whatever the GPS rate. [s] Common practice.
+_DROPOUT_MIN_S = 0.5
+#: A gap over which the car moved less than this is not a dropout (parked car). [m]
+_DROPOUT_MIN_TRAVEL_M = 5.0
+#: Longest dropout bridged from speed and yaw rate (issue: "about 2 s"). [s]
+BRIDGE_MAX_S = 2.0
+#: Speed below which a_y / v is too noisy to use as a yaw rate. [m/s] Common practice.
+_YAW_FROM_AY_MIN_SPEED_M_S = 3.0
+
+
+@dataclass(frozen=True)
+class Dropout:
+    """A stretch of a log without a GPS fix while the car moved.
+
+    Attributes
+    ----------
+    start_index, end_index : int
+        Rows of the fixes either side of the gap (the gap is strictly between them).
+    start_time_s, end_time_s : float
+        Times of those fixes. [s]
+    bridged : bool
+        True when short enough (``BRIDGE_MAX_S``) to be bridged by dead reckoning.
+    """
+
+    start_index: int
+    end_index: int
+    start_time_s: float
+    end_time_s: float
+    bridged: bool
+
+    @property
+    def duration_s(self) -> float:
+        """Length of the gap. [s]"""
+        return self.end_time_s - self.start_time_s
+
+
+def _read_log_bytes(path: Path) -> bytes:
+    try:
+        raw = path.read_bytes()
+    except FileNotFoundError:
+        raise InputError(path, "file not found") from None
+    except IsADirectoryError:
+        raise InputError(path, "is a folder, not a log file") from None
+    except OSError as err:
+        raise InputError(path, f"cannot be read: {err.strerror}") from err
+    if raw[:2] == _GZIP_MAGIC:
+        try:
+            raw = gzip.decompress(raw)
+        except (OSError, EOFError, zlib.error) as err:
+            raise InputError(path, f"damaged gzip file: {err}") from err
+    elif path.suffix.lower() == ".gz" and raw:
+        raise InputError(path, "named .gz but not gzip-compressed")
+    if raw.startswith(b"\xef\xbb\xbf"):  # UTF-8 byte order mark
+        raw = raw[3:]
+    return raw
+
+
+def _split_header(cell: str) -> tuple[str, str | None]:
+    """``'Speed [km/h]'`` -> (``'speed'``, ``'km/h'``); no bracket -> unit None."""
+    name, bracket, unit = cell.partition("[")
+    name = re.sub(r"\s+", "_", name.strip().lower())
+    return name, (unit.rstrip().rstrip("]").strip() if bracket else None)
+
+
+def _detect_format(path: Path, raw: bytes) -> tuple[list[str], str, bool, str]:
+    """Header cells, separator, decimal comma, encoding for polars."""
+    end = raw.find(b"\n")
+    head = raw if end < 0 else raw[:end]
+    encoding = "utf8"
+    try:
+        header_line = head.decode("utf-8")
+    except UnicodeDecodeError:
+        header_line = head.decode("cp1252", errors="replace")
+        encoding = "utf8-lossy"
+    header_line = header_line.rstrip("\r")
+    counts = {sep: header_line.count(sep) for sep in (",", ";", "\t")}
+    sep = max(counts, key=lambda s: (counts[s], s == ","))
+    header = next(csv.reader([header_line], delimiter=sep))
+    header = [h.strip() for h in header]
+    decimal_comma = False
+    if sep != ",":
+        sample = raw[end + 1 : end + 1 + 8192].decode("utf-8", errors="replace").splitlines()[:20]
+        for line in sample:
+            cells = line.split(sep)
+            if any(_DECIMAL_COMMA.match(c) for c in cells):
+                decimal_comma = True
+                break
+    if len(header) != len(set(header)):
+        seen: set[str] = set()
+        for h in header:
+            if h in seen and h:
+                raise InputError(path, "the header names this column twice", column=h)
+            seen.add(h)
+    return header, sep, decimal_comma, encoding
+
+
+def _resolve_columns(path: Path, header: list[str], cmap: ChannelMap | None):
+    """Channel -> (column index, factor to SI, sign) for the channels the log holds."""
+    found: dict[str, tuple[int, float, float]] = {}
+    claimed: set[int] = set()
+    mapped = cmap.channels if cmap is not None else {}
+    for channel, spec in mapped.items():
+        want = spec.column.lower()
+        hits = [
+            i for i, cell in enumerate(header)
+            if cell.lower() == want or cell.partition("[")[0].strip().lower() == want
+        ]
+        if not hits:
+            raise InputError(
+                path, f"no column '{spec.column}' (channel '{channel}' of channel map {cmap.path})"
+            )
+        i = hits[0]
+        unit = spec.unit
+        if unit is None:
+            written = _split_header(header[i])[1] or ""
+            unit = _unit_key(channel, written)
+            if unit is None:
+                raise InputError(
+                    path,
+                    f"unknown unit '{written}' for channel '{channel}' (accepted: {_accepted_units(channel)})",
+                    column=header[i],
+                )
+        found[channel] = (i, CHANNEL_UNITS[channel][unit], -1.0 if spec.invert else 1.0)
+        claimed.add(i)
+    for i, cell in enumerate(header):
+        name, written = _split_header(cell)
+        if name not in CHANNEL_UNITS or name in mapped or i in claimed:
+            continue
+        if name in found:
+            raise InputError(path, f"two columns for channel '{name}'", column=cell)
+        unit = _unit_key(name, written or "")
+        if unit is None:
+            raise InputError(
+                path,
+                f"unknown unit '{written}' for channel '{name}' (accepted: {_accepted_units(name)})",
+                column=cell,
+            )
+        found[name] = (i, CHANNEL_UNITS[name][unit], 1.0)
+    for channel in ("time", "speed"):
+        if channel not in found:
+            raise InputError(
+                path, f"missing required channel '{channel}' (a column '{channel} [unit]' or a channel-map entry)"
+            )
+    has_geo = "latitude" in found and "longitude" in found
+    has_xy = "x" in found and "y" in found
+    if not (has_geo or has_xy):
+        half = [c for c in ("latitude", "longitude", "x", "y") if c in found]
+        detail = f" (found only '{half[0]}')" if half else ""
+        raise InputError(
+            path, f"missing position: needs columns 'latitude' and 'longitude', or 'x' and 'y'{detail}"
+        )
+    return found
+
+
+def _parse_numbers(path, raw, header, sep, decimal_comma, encoding, found):
+    """Selected columns as float64 arrays (NaN for blanks), one polars pass when clean."""
+    import polars as pl  # deferred: polars takes a quarter of a second to import
+
+    names = [f"column_{i}" for i in range(len(header))]
+    wanted = {names[i]: ch for ch, (i, _, _) in found.items()}
+    options = dict(
+        has_header=False, skip_rows=1, separator=sep, columns=list(wanted),
+        encoding=encoding, truncate_ragged_lines=True, missing_columns="insert",
+        extra_columns="ignore", raise_if_empty=False, quote_char='"',
+    )
+    schema = {n: (pl.Float64 if n in wanted else pl.String) for n in names}
+    try:
+        frame = pl.read_csv(raw, schema=schema, decimal_comma=decimal_comma, **options)
+        clean = True
+    except pl.exceptions.PolarsError:
+        clean = False
+    if not clean:  # find the first cell that is not a number, or parse after trimming
+        try:
+            text = pl.read_csv(raw, schema={n: pl.String for n in names}, **options)
+        except pl.exceptions.PolarsError as err:
+            first = str(err).splitlines()[0]
+            raise InputError(path, f"cannot be read as CSV: {first}") from err
+        cols = {}
+        bad_rows = []
+        for name in wanted:
+            cells = text[name].str.strip_chars()
+            cells = cells.replace("", None)
+            numeric = cells.str.replace(",", ".", literal=True) if decimal_comma else cells
+            values = numeric.cast(pl.Float64, strict=False)
+            bad = (values.is_null() & cells.is_not_null()).arg_true()
+            if len(bad):
+                bad_rows.append((int(bad[0]), int(name[7:]), name, cells[int(bad[0])]))
+            cols[name] = values
+        if bad_rows:
+            row, _, name, value = min(bad_rows)
+            raise InputError(
+                path, f"'{value}' is not a number", row=row + 2, column=header[int(name[7:])]
+            )
+        frame = pl.DataFrame(cols)
+    return {wanted[n]: frame[n].to_numpy().astype(np.float64, copy=True) for n in wanted}
+
+
+def _merge_duplicate_stamps(time_s, data, rows):
+    """Drop rows whose time equals the previous row's, keeping the first value of each cell."""
+    group = np.concatenate(([0], np.cumsum(np.diff(time_s) != 0)))
+    first = np.concatenate(([True], np.diff(group) != 0))
+    merged = {}
+    for name, values in data.items():
+        out = values[first].copy()
+        ok = np.isfinite(values)
+        groups, at = np.unique(group[ok], return_index=True)
+        out[groups] = values[ok][at]
+        merged[name] = out
+    return time_s[first], merged, rows[first]
+
+
+def _first_bad(rows, mask):
+    i = int(np.argmax(mask))
+    return i, int(rows[i])
+
+
+def read_log(path, channel_map=None) -> Log:
+    """Read a session log (INTERFACE §1) into SI arrays on the log's own time base.
+
+    Parameters
+    ----------
+    path : str or Path
+        CSV file, optionally gzip-compressed (``.csv.gz``); comma, semicolon (with
+        decimal commas) or tab separated; a UTF-8 byte-order mark and CRLF line ends
+        are accepted.
+    channel_map : ChannelMap, str, Path or None
+        Column names and units for a log that does not use the §1 names (a
+        :class:`ChannelMap` or the path of its TOML file).
+
+    Returns
+    -------
+    Log
+        ``channels`` in SI (see :class:`Log`), ``x``/``y`` east/north in metres (WGS84
+        fixes converted to a local east-north-up frame at the first fix with pymap3d,
+        which implements the ECEF -> ENU rotation of the geodetic-to-local conversion
+        [1]_), NaN where a cell was blank. Exact duplicate time stamps are merged (the
+        first non-blank cell of each channel kept) with a warning; GPS dropouts are listed
+        in ``warnings`` (see :func:`gps_dropouts`).
+
+    Raises
+    ------
+    InputError
+        The file is missing, empty or header-only; a required channel is missing; a
+        cell is not a number (its row as a spreadsheet counts: header = row 1); a unit
+        is unknown; a latitude/longitude is out of range; time goes backwards; no row
+        has a position.
+
+    References
+    ----------
+    .. [1] B. Hofmann-Wellenhof, H. Lichtenegger, E. Wasle, *GNSS — Global Navigation
+       Satellite Systems*, Springer, 2008, §10.2 (local level frame).
+    """
+    path = Path(path)
+    if channel_map is not None and not isinstance(channel_map, ChannelMap):
+        channel_map = read_channel_map(channel_map)
+    raw = _read_log_bytes(path)
+    if not raw.strip():
+        raise InputError(path, "file is empty")
+    header, sep, decimal_comma, encoding = _detect_format(path, raw)
+    found = _resolve_columns(path, header, channel_map)
+    data = _parse_numbers(path, raw, header, sep, decimal_comma, encoding, found)
+    n_rows = len(data["time"])
+    rows = np.arange(n_rows) + 2  # spreadsheet rows: header = 1
+    blank = np.all([np.isnan(v) for v in data.values()], axis=0)
+    if n_rows == 0 or blank.all():
+        raise InputError(path, "no data rows (header only)")
+    for channel, values in data.items():
+        inf = np.isinf(values)
+        if inf.any():
+            i, row = _first_bad(rows, inf)
+            raise InputError(path, f"'{values[i]}' is not a finite number", row=row,
+                             column=header[found[channel][0]])
+    keep = ~blank
+    data = {k: v[keep] for k, v in data.items()}
+    rows = rows[keep]
+    for channel, values in data.items():
+        _, factor, sign = found[channel]
+        if factor * sign != 1.0:
+            values *= factor * sign
+
+    def column(channel):
+        return header[found[channel][0]]
+
+    time_s = data.pop("time")
+    if np.isnan(time_s).any():
+        _, row = _first_bad(rows, np.isnan(time_s))
+        raise InputError(path, "time is blank", row=row, column=column("time"))
+    step = np.diff(time_s)
+    if (step < 0).any():
+        i, _ = _first_bad(rows[1:], step < 0)
+        raise InputError(
+            path, f"time goes backwards: {time_s[i + 1]:g} s after {time_s[i]:g} s",
+            row=int(rows[i + 1]), column=column("time"),
+        )
+    warnings: list[str] = []
+    if (step == 0).any():
+        n_dup = int((step == 0).sum())
+        first_row = int(rows[1:][np.argmax(step == 0)])
+        time_s, data, rows = _merge_duplicate_stamps(time_s, data, rows)
+        warnings.append(
+            f"{path}: {n_dup} row(s) repeat the previous time stamp (first at row {first_row}); "
+            "merged into one row each"
+        )
+    if not np.isfinite(data["speed"]).any():
+        raise InputError(path, "no speed: the column is blank in every row", column=column("speed"))
+    if "lap" in data:
+        _check_lap_column(path, data["lap"], rows, column("lap"))
+
+    origin = None
+    if "latitude" in data and "longitude" in data:
+        if "x" in data or "y" in data:
+            warnings.append(f"{path}: both latitude/longitude and x/y columns; x/y ignored")
+            data.pop("x", None)
+            data.pop("y", None)
+        lat, lon = data["latitude"], data["longitude"]
+        for channel, values, limit in (("latitude", lat, 90.0), ("longitude", lon, 180.0)):
+            out = np.abs(np.nan_to_num(values)) > limit
+            if out.any():
+                i, row = _first_bad(rows, out)
+                raise InputError(
+                    path, f"{channel} {values[i]:g} is out of range -{limit:g}..{limit:g} degrees",
+                    row=row, column=column(channel),
+                )
+        fix = np.isfinite(lat) & np.isfinite(lon)
+        if not fix.any():
+            blank_one = "latitude" if not np.isfinite(lat).any() else "longitude"
+            raise InputError(path, "no position: the column is blank in every row", column=column(blank_one))
+        lat[~fix] = np.nan
+        lon[~fix] = np.nan
+        data["x"], data["y"], origin = _to_enu(lat, lon, data.get("altitude"), fix)
+    else:
+        fix = np.isfinite(data["x"]) & np.isfinite(data["y"])
+        if not fix.any():
+            blank_one = "x" if not np.isfinite(data["x"]).any() else "y"
+            raise InputError(path, "no position: the column is blank in every row", column=column(blank_one))
+        data["x"][~fix] = np.nan
+        data["y"][~fix] = np.nan
+    log = Log(path=str(path), time_s=time_s, channels=data, origin=origin, warnings=warnings)
+    warnings.extend(_dropout_warnings(log, rows))
+    return log
+
+
+def _check_lap_column(path, lap, rows, column):
+    ok = np.isfinite(lap)
+    not_int = ok & (np.abs(lap - np.round(lap)) > 1e-9)
+    if not_int.any():
+        i, row = _first_bad(rows, not_int)
+        raise InputError(path, f"lap number {lap[i]:g} is not a whole number", row=row, column=column)
+    if ok.any():
+        seen = lap[ok]
+        back = np.diff(seen) < 0
+        if back.any():
+            i = int(np.argmax(back)) + 1
+            row = int(rows[ok][i])
+            raise InputError(path, f"lap number goes down from {seen[i - 1]:g} to {seen[i]:g}",
+                             row=row, column=column)
+
+
+def _to_enu(lat, lon, altitude, fix):
+    """WGS84 fixes -> east/north [m] at the first fix (pymap3d, WGS84 ellipsoid)."""
+    import pymap3d  # deferred with polars: only logs need it
+
+    first = int(np.argmax(fix))
+    height = np.zeros_like(lat) if altitude is None else altitude.copy()
+    known = np.isfinite(height)
+    h0 = float(height[first]) if known[first] else (float(height[known][0]) if known.any() else 0.0)
+    height[~known] = h0
+    origin = (float(lat[first]), float(lon[first]), h0)
+    x = np.full_like(lat, np.nan)
+    y = np.full_like(lat, np.nan)
+    east, north, _ = pymap3d.geodetic2enu(lat[fix], lon[fix], height[fix], *origin)
+    x[fix] = east
+    y[fix] = north
+    return x, y, origin
+
+
+# --------------------------------------------------------------------------- positions
+
+
+def _fix_rows(log: Log) -> np.ndarray:
+    """Rows with a new GPS fix (a value held from the previous fix is not new)."""
+    x, y = log.channels["x"], log.channels["y"]
+    rows = np.flatnonzero(np.isfinite(x) & np.isfinite(y))
+    if rows.size > 1:
+        held = np.concatenate(([False], (np.diff(x[rows]) == 0) & (np.diff(y[rows]) == 0)))
+        rows = rows[~held]
+    return rows
+
+
+def travelled_m(log: Log) -> np.ndarray:
+    """Distance travelled since the first row, trapezoidal integral of ``speed``. [m]
+
+    Blank speed cells are filled by linear interpolation in time.
+    """
+    t = log.time_s
+    v = log.channels["speed"]
+    ok = np.isfinite(v)
+    if not ok.all():
+        v = np.interp(t, t[ok], v[ok])
+    steps = 0.5 * (v[1:] + v[:-1]) * np.diff(t)
+    return np.concatenate(([0.0], np.cumsum(steps)))
+
+
+def gps_dropouts(log: Log, bridge_s: float = BRIDGE_MAX_S) -> list[Dropout]:
+    """Gaps between GPS fixes longer than the logger's own rate explains.
+
+    A gap counts when it is longer than ``3`` nominal fix intervals (the median) and
+    at least 0.5 s, and the car moved at least 5 m meanwhile (a parked car with no new
+    fix loses nothing). These thresholds are common practice, no published source.
+
+    Parameters
+    ----------
+    log : Log
+        A log as :func:`read_log` returns it.
+    bridge_s : float
+        Longest gap marked ``bridged``. [s]
+
+    Returns
+    -------
+    list of Dropout
+        In time order.
+    """
+    rows = _fix_rows(log)
+    if rows.size < 2:
+        return []
+    t = log.time_s[rows]
+    gap = np.diff(t)
+    nominal = float(np.median(gap))
+    s = travelled_m(log)[rows]
+    moved = np.diff(s)
+    idx = np.flatnonzero(
+        (gap > max(_DROPOUT_INTERVALS * nominal, _DROPOUT_MIN_S)) & (moved >= _DROPOUT_MIN_TRAVEL_M)
+    )
+    return [
+        Dropout(int(rows[k]), int(rows[k + 1]), float(t[k]), float(t[k + 1]), bool(gap[k] <= bridge_s))
+        for k in idx
+    ]
+
+
+def _dropout_warnings(log: Log, rows: np.ndarray) -> list[str]:
+    out = []
+    for d in gps_dropouts(log):
+        what = (
+            "bridged from speed and yaw rate" if d.bridged
+            else f"longer than {BRIDGE_MAX_S:g} s: the lap holding it is not complete"
+        )
+        out.append(
+            f"{log.path}: GPS dropout of {d.duration_s:.1f} s between rows {rows[d.start_index]} and "
+            f"{rows[d.end_index]} ({d.start_time_s:.2f}-{d.end_time_s:.2f} s); {what}"
+        )
+    return out
+
+
+def _yaw_rate_rad_s(log: Log) -> np.ndarray | None:
+    """Yaw rate from ``yaw_rate``, else a_y / v (ISO 8855 signs); None when neither exists."""
+    t = log.time_s
+    if log.has("yaw_rate"):
+        r = log.channels["yaw_rate"]
+        ok = np.isfinite(r)
+        return r if ok.all() else np.interp(t, t[ok], r[ok])
+    if log.has("accel_lat"):
+        ay = log.channels["accel_lat"]
+        v = log.channels["speed"]
+        ok = np.isfinite(ay) & np.isfinite(v) & (v > _YAW_FROM_AY_MIN_SPEED_M_S)
+        if ok.any():
+            # Steady turning: a_y = v * r (Milliken & Milliken 1995, §5.3); no side slip rate.
+            return np.interp(t, t[ok], ay[ok] / v[ok])
+    return None
+
+
+def fill_position(log: Log, bridge_s: float = BRIDGE_MAX_S) -> tuple[np.ndarray, np.ndarray]:
+    """Position at every row of the log, for timing (gate crossings), not for curvature.
+
+    Between two fixes the position moves along the chord in proportion to the distance
+    travelled (integrated speed), which keeps the timing right when the car brakes or
+    accelerates between fixes. Across a dropout of at most ``bridge_s`` the path is dead
+    reckoned from speed and yaw rate (or a_y / v), heading taken from the chord before the
+    gap, and the end error spread in proportion to distance so both fixes are met (a
+    closure correction as in Casanova et al., Proc. IMechE Part D 215(9), 2001). Longer
+    dropouts, and rows before the first or after the last fix, are NaN.
+
+    Parameters
+    ----------
+    log : Log
+        A log as :func:`read_log` returns it.
+    bridge_s : float
+        Longest dropout to bridge. [s]
+
+    Returns
+    -------
+    x_m, y_m : numpy.ndarray
+        East and north at every row. [m]
+    """
+    x, y = log.channels["x"], log.channels["y"]
+    t = log.time_s
+    rows = _fix_rows(log)
+    s = travelled_m(log)
+    # Strictly increasing parameter: distance, with time to order rows of a parked car.
+    p = s + 1e-6 * (t - t[0])
+    xf = np.interp(p, p[rows], x[rows], left=np.nan, right=np.nan)
+    yf = np.interp(p, p[rows], y[rows], left=np.nan, right=np.nan)
+    yaw = None
+    for d in gps_dropouts(log, bridge_s):
+        inside = slice(d.start_index + 1, d.end_index)
+        if not d.bridged:
+            xf[inside] = np.nan
+            yf[inside] = np.nan
+            continue
+        if yaw is None:
+            yaw = _yaw_rate_rad_s(log)
+            if yaw is None:
+                break  # no inertial channel: the chord by distance stays
+        k = int(np.searchsorted(rows, d.start_index))
+        if k == 0:
+            continue
+        prev = rows[k - 1]
+        span = slice(d.start_index, d.end_index + 1)
+        heading0 = np.arctan2(y[d.start_index] - y[prev], x[d.start_index] - x[prev])
+        tt = t[span]
+        r = yaw[span]
+        heading = heading0 + np.concatenate(([0.0], np.cumsum(0.5 * (r[1:] + r[:-1]) * np.diff(tt))))
+        ds = np.diff(s[span])
+        mid = 0.5 * (heading[1:] + heading[:-1])
+        ex = x[d.start_index] + np.concatenate(([0.0], np.cumsum(ds * np.cos(mid))))
+        ny = y[d.start_index] + np.concatenate(([0.0], np.cumsum(ds * np.sin(mid))))
+        total = s[d.end_index] - s[d.start_index]
+        share = (s[span] - s[d.start_index]) / total if total > 0 else np.linspace(0, 1, tt.size)
+        ex -= share * (ex[-1] - x[d.end_index])
+        ny -= share * (ny[-1] - y[d.end_index])
+        xf[span] = ex
+        yf[span] = ny
+    return xf, yf

@@ -1,0 +1,407 @@
+"""Laps of a session: from the log's ``lap`` column or from crossings of a start/finish gate.
+
+Numbering follows INTERFACE §1: lap 0 runs from the start of the log to the first gate
+crossing (out-lap, not complete), lap 1 is the first complete lap, and the stretch after
+the last crossing is not complete. Times and distances are SI (s, m).
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+
+import numpy as np
+
+from limitlap.errors import InputError, LimitlapError
+from limitlap.ingest import Log, fill_position, gps_dropouts, travelled_m
+
+#: Half-width of the gate either side of its point: a crossing further off is another
+#: road (pit lane, a parallel straight). Common practice, no published source. [m]
+GATE_HALF_WIDTH_M = 30.0
+#: Least distance between two counted crossings, so GPS jitter of a car standing on the
+#: line is not a lap. Common practice, no published source. [m]
+MIN_LAP_DISTANCE_M = 100.0
+#: Span of positions either side of the gate point used for the direction of travel. [m]
+_DIRECTION_SPAN_M = 5.0
+
+
+@dataclass(frozen=True)
+class Lap:
+    """One lap of a log.
+
+    Attributes
+    ----------
+    number : int
+        0 for the out-lap, 1 for the first complete lap (INTERFACE §1).
+    start_time_s, end_time_s : float
+        Gate crossing (or log start/end) times, interpolated between rows. [s]
+    time_s : float
+        ``end_time_s - start_time_s``. [s]
+    distance_m : float
+        Distance travelled, integral of ``speed`` over the lap. [m]
+    complete : bool
+        True for a full lap from gate to gate with usable position throughout.
+    reason : str
+        Why the lap is not complete; ``''`` when it is.
+    start_index, end_index : int
+        Rows of the log in the lap (end exclusive).
+    """
+
+    number: int
+    start_time_s: float
+    end_time_s: float
+    time_s: float
+    distance_m: float
+    complete: bool
+    reason: str
+    start_index: int
+    end_index: int
+
+
+@dataclass(frozen=True)
+class Gate:
+    """A start/finish gate: a point on the track; the gate is the line through it square
+    to the direction of travel there.
+
+    Give either ``latitude_deg`` and ``longitude_deg`` (WGS84) or ``x_m`` and ``y_m``
+    (the log's planar east/north frame); use :meth:`geodetic` or :meth:`planar`.
+
+    Attributes
+    ----------
+    latitude_deg, longitude_deg : float or None
+        WGS84 position. [deg]
+    x_m, y_m : float or None
+        Planar position in the log's frame. [m]
+    half_width_m : float
+        Crossings further than this from the point along the gate line do not count. [m]
+    """
+
+    latitude_deg: float | None = None
+    longitude_deg: float | None = None
+    x_m: float | None = None
+    y_m: float | None = None
+    half_width_m: float = GATE_HALF_WIDTH_M
+
+    def __post_init__(self):
+        geo = self.latitude_deg is not None and self.longitude_deg is not None
+        flat = self.x_m is not None and self.y_m is not None
+        if geo == flat:
+            raise LimitlapError("a gate needs latitude and longitude, or x and y (not both)")
+        if geo and not (abs(self.latitude_deg) <= 90 and abs(self.longitude_deg) <= 180):
+            raise LimitlapError(f"gate {self.latitude_deg},{self.longitude_deg} is out of range")
+        if not self.half_width_m > 0:
+            raise LimitlapError("gate half-width must be positive")
+
+    @classmethod
+    def geodetic(cls, latitude_deg: float, longitude_deg: float, **kw) -> Gate:
+        """A gate at a WGS84 point. [deg]"""
+        return cls(latitude_deg=float(latitude_deg), longitude_deg=float(longitude_deg), **kw)
+
+    @classmethod
+    def planar(cls, x_m: float, y_m: float, **kw) -> Gate:
+        """A gate at a point of the log's planar frame. [m]"""
+        return cls(x_m=float(x_m), y_m=float(y_m), **kw)
+
+    @property
+    def is_geodetic(self) -> bool:
+        """True for a WGS84 gate."""
+        return self.latitude_deg is not None
+
+    def __str__(self) -> str:
+        if self.is_geodetic:
+            return f"{self.latitude_deg:.6f},{self.longitude_deg:.6f}"
+        return f"x={self.x_m:.1f} m, y={self.y_m:.1f} m"
+
+    def position_m(self, log: Log) -> tuple[float, float]:
+        """The gate point in the log's planar frame. [m]"""
+        if not self.is_geodetic:
+            return self.x_m, self.y_m
+        if log.origin is None:
+            raise InputError(
+                log.path, f"gate {self} is given as latitude,longitude but the log has planar x/y positions"
+            )
+        import pymap3d
+
+        east, north, _ = pymap3d.geodetic2enu(
+            self.latitude_deg, self.longitude_deg, log.origin[2], *log.origin
+        )
+        return float(east), float(north)
+
+
+def parse_gate(text: str) -> Gate:
+    """Parse ``--gate LAT,LON`` (decimal degrees, WGS84).
+
+    Examples
+    --------
+    >>> parse_gate("-31.41780,148.61724")
+    Gate(latitude_deg=-31.4178, longitude_deg=148.61724, x_m=None, y_m=None, half_width_m=30.0)
+    """
+    parts = [p.strip() for p in str(text).split(",")]
+    if len(parts) != 2:
+        raise InputError("--gate", f"'{text}' is not LAT,LON (two numbers separated by a comma)")
+    try:
+        lat, lon = (float(p) for p in parts)
+    except ValueError:
+        raise InputError("--gate", f"'{text}' is not LAT,LON (two numbers separated by a comma)") from None
+    if not (math.isfinite(lat) and math.isfinite(lon)):
+        raise InputError("--gate", f"'{text}' is not a finite position")
+    if abs(lat) > 90:
+        raise InputError("--gate", f"latitude {lat:g} is out of range -90..90 degrees")
+    if abs(lon) > 180:
+        raise InputError("--gate", f"longitude {lon:g} is out of range -180..180 degrees")
+    return Gate.geodetic(lat, lon)
+
+
+def auto_gate(log: Log, speed_share: float = 0.6) -> Gate:
+    """Propose a gate: the first position where the car has reached speed on its first pass.
+
+    A convenience for logs without a ``lap`` column or a known start/finish point (for
+    example planar x/y logs from a simulator): the first row whose speed reaches
+    ``speed_share`` of the session's 95th-percentile speed and that has a position.
+    Laps are then timed from that point, which is on a fast stretch (no published
+    source; common practice is to put the timing line on a straight). It is not the
+    circuit's official line.
+
+    Parameters
+    ----------
+    log : Log
+        The session.
+    speed_share : float
+        Share of the 95th-percentile speed that counts as "at speed". [-]
+
+    Returns
+    -------
+    Gate
+        WGS84 when the log has an origin, else planar.
+    """
+    v = log.channels["speed"]
+    x, y = fill_position(log)
+    fast = np.nanpercentile(v, 95.0) if np.isfinite(v).any() else np.nan
+    ok = np.isfinite(x) & np.isfinite(y) & (v >= speed_share * fast) & (v > 0)
+    if not ok.any():
+        raise InputError(log.path, "cannot place a gate: the car never reaches speed with a position fix")
+    i = int(np.argmax(ok))
+    if log.origin is None:
+        return Gate.planar(x[i], y[i])
+    import pymap3d
+
+    lat, lon, _ = pymap3d.enu2geodetic(x[i], y[i], 0.0, *log.origin)
+    return Gate.geodetic(float(lat), float(lon))
+
+
+def _direction_at(x, y, s, i):
+    """Unit direction of travel at row ``i`` from the positions ±5 m of path around it."""
+    ok = np.isfinite(x) & np.isfinite(y)
+    lo = int(np.searchsorted(s, s[i] - _DIRECTION_SPAN_M))
+    hi = int(np.searchsorted(s, s[i] + _DIRECTION_SPAN_M, side="right")) - 1
+    while lo < i and not ok[lo]:
+        lo += 1
+    while hi > i and not ok[hi]:
+        hi -= 1
+    dx, dy = x[hi] - x[lo], y[hi] - y[lo]
+    norm = math.hypot(dx, dy)
+    return (dx / norm, dy / norm) if norm > 0 else None
+
+
+def gate_crossings(log: Log, gate: Gate) -> np.ndarray:
+    """Times the car crosses the gate line in its direction of travel. [s]
+
+    Positions are first filled at every row (:func:`limitlap.ingest.fill_position`), the
+    signed distance to the gate line taken at every row, and the crossing time
+    interpolated linearly between the two rows either side of it.
+    """
+    gx, gy = gate.position_m(log)
+    x, y = fill_position(log)
+    s = travelled_m(log)
+    t = log.time_s
+    dist = np.hypot(x - gx, y - gy)
+    if not np.isfinite(dist).any():
+        raise InputError(log.path, "no position to place the gate on")
+    near = int(np.nanargmin(dist))
+    if dist[near] > gate.half_width_m:
+        raise InputError(
+            log.path, f"the car never crosses the gate at {gate} (closest pass {dist[near]:.0f} m away)"
+        )
+    direction = _direction_at(x, y, s, near)
+    if direction is None:
+        raise InputError(log.path, f"the car does not move at the gate at {gate}")
+    nx, ny = direction
+    along = (x - gx) * nx + (y - gy) * ny  # signed distance past the gate line
+    across = -(x - gx) * ny + (y - gy) * nx  # offset along the gate line
+    a0, a1 = along[:-1], along[1:]
+    i = np.flatnonzero(np.isfinite(a0) & np.isfinite(a1) & (a0 < 0) & (a1 >= 0))
+    frac = -a0[i] / (a1[i] - a0[i])
+    offset = across[i] + frac * (across[i + 1] - across[i])
+    keep = np.abs(offset) <= gate.half_width_m
+    i, frac = i[keep], frac[keep]
+    times = t[i] + frac * (t[i + 1] - t[i])
+    at = s[i] + frac * (s[i + 1] - s[i])
+    counted = []
+    last = -np.inf
+    for k in range(times.size):  # a handful of crossings, not samples
+        if at[k] - last >= MIN_LAP_DISTANCE_M:
+            counted.append(times[k])
+            last = at[k]
+    if not counted:
+        raise InputError(log.path, f"the car never crosses the gate at {gate} in its direction of travel")
+    return np.asarray(counted)
+
+
+def _make_laps(log: Log, bounds, numbers, complete, reasons) -> list[Lap]:
+    t = log.time_s
+    s = travelled_m(log)
+    long_gaps = [d for d in gps_dropouts(log) if not d.bridged]
+    laps = []
+    for k, number in enumerate(numbers):
+        t0, t1 = float(bounds[k]), float(bounds[k + 1])
+        i0 = int(np.searchsorted(t, t0, side="left"))
+        i1 = len(t) if k == len(numbers) - 1 else int(np.searchsorted(t, t1, side="left"))
+        if i1 <= i0:
+            continue
+        why = [reasons[k]] if reasons[k] else []
+        for d in long_gaps:
+            if d.start_time_s < t1 and d.end_time_s > t0:
+                why.append(f"GPS dropout of {d.duration_s:.1f} s at {d.start_time_s:.1f} s")
+        dist = float(np.interp(t1, t, s) - np.interp(t0, t, s))
+        laps.append(
+            Lap(number=int(number), start_time_s=t0, end_time_s=t1, time_s=t1 - t0,
+                distance_m=dist, complete=bool(complete[k]) and not why,
+                reason="; ".join(why), start_index=i0, end_index=i1)
+        )
+    return laps
+
+
+def split_laps(log: Log, gate: Gate | tuple[float, float] | None = None) -> list[Lap]:
+    """Split a log into laps (INTERFACE §1 numbering).
+
+    Parameters
+    ----------
+    log : Log
+        The session.
+    gate : Gate, (latitude, longitude) or None
+        Start/finish gate; None uses the log's ``lap`` column, taken as it is (a lap
+        starts at the first row with its number; the last one is not complete, nor is
+        lap 0). A tuple is WGS84 degrees.
+
+    Returns
+    -------
+    list of Lap
+        In time order. With a gate: lap 0 from the log start to the first crossing,
+        laps 1..N-1 between crossings, the stretch after the last crossing not complete.
+        A lap holding a GPS dropout too long to bridge is not complete either.
+
+    Raises
+    ------
+    InputError
+        No gate and no ``lap`` column; the car never crosses the gate.
+    """
+    t = log.time_s
+    if gate is None:
+        if not log.has("lap"):
+            raise InputError(
+                log.path, "no 'lap' column: give the start/finish gate with --gate LAT,LON"
+            )
+        lap = log.channels["lap"].copy()
+        ok = np.isfinite(lap)
+        lap = lap[ok][np.clip(np.cumsum(ok) - 1, 0, None)]  # fill blanks with the lap before
+        starts = np.flatnonzero(np.concatenate(([True], np.diff(lap) != 0)))
+        numbers = lap[starts].astype(int)
+        bounds = np.append(t[starts], t[-1])
+        complete = [n != 0 for n in numbers]
+        complete[-1] = False
+        reasons = ["out-lap (lap 0)" if n == 0 else "" for n in numbers]
+        reasons[-1] = reasons[-1] or "last lap of the log (may end before the lap does)"
+        return _make_laps(log, bounds, numbers, complete, reasons)
+    if not isinstance(gate, Gate):
+        gate = Gate.geodetic(*gate)
+    crossings = gate_crossings(log, gate)
+    bounds = np.concatenate(([t[0]], crossings, [t[-1]]))
+    count = crossings.size + 1
+    numbers = list(range(count))
+    complete = [0 < k < count - 1 for k in numbers]
+    reasons = ["" for _ in numbers]
+    reasons[0] = "out-lap (start of log to first gate crossing)"
+    reasons[-1] = "after the last gate crossing (in-lap or end of log)"
+    return _make_laps(log, bounds, numbers, complete, reasons)
+
+
+def fastest_lap(laps: list[Lap]) -> Lap:
+    """The complete lap with the shortest time.
+
+    Raises
+    ------
+    LimitlapError
+        No lap is complete.
+    """
+    complete = [lap for lap in laps if lap.complete]
+    if not complete:
+        why = "; ".join(f"lap {lap.number}: {lap.reason}" for lap in laps) or "no laps"
+        raise LimitlapError(f"no complete lap ({why})")
+    return min(complete, key=lambda lap: (lap.time_s, lap.number))
+
+
+def format_lap_time(time_s: float) -> str:
+    """``m:ss.sss``.
+
+    Examples
+    --------
+    >>> format_lap_time(92.4056)
+    '1:32.406'
+    >>> format_lap_time(59.9996)
+    '1:00.000'
+    """
+    ms = round(time_s * 1000.0)
+    minutes, rest = divmod(ms, 60_000)
+    return f"{minutes}:{rest / 1000.0:06.3f}"
+
+
+def laps_table(laps: list[Lap]) -> list[dict]:
+    """One record per lap: number, time_s, distance_m, complete, reason, fastest, start_time_s."""
+    try:
+        best = fastest_lap(laps).number
+    except LimitlapError:
+        best = None
+    return [
+        {
+            "number": lap.number,
+            "time_s": lap.time_s,
+            "distance_m": lap.distance_m,
+            "complete": lap.complete,
+            "reason": lap.reason,
+            "fastest": lap.number == best,
+            "start_time_s": lap.start_time_s,
+        }
+        for lap in laps
+    ]
+
+
+def format_laps_table(laps: list[Lap]) -> str:
+    """The lap table as text: number, time m:ss.sss, distance, complete or why not; the
+    fastest marked."""
+    lines = [f"{'lap':>4}  {'time':>9}  {'distance':>10}  status"]
+    for rec in laps_table(laps):
+        status = "complete" if rec["complete"] else f"not complete: {rec['reason']}"
+        mark = "  <- fastest" if rec["fastest"] else ""
+        lines.append(
+            f"{rec['number']:>4}  {format_lap_time(rec['time_s']):>9}  "
+            f"{rec['distance_m']:>8.1f} m  {status}{mark}"
+        )
+    return "\n".join(lines)
+
+
+def laps_json(laps: list[Lap]) -> dict:
+    """INTERFACE §4 form: ``{"laps": [{"number", "time_s", "distance_m", "complete"}, ...]}``
+    plus ``reason`` and ``fastest``; times to 1 ms, distances to 1 cm."""
+    return {
+        "laps": [
+            {
+                "number": rec["number"],
+                "time_s": round(rec["time_s"], 3),
+                "distance_m": round(rec["distance_m"], 2),
+                "complete": rec["complete"],
+                "reason": rec["reason"],
+                "fastest": rec["fastest"],
+            }
+            for rec in laps_table(laps)
+        ]
+    }
