@@ -853,9 +853,12 @@ def compare_lap(
     grip_scale : float, optional
         Grip scale of the envelope the lap is measured against; default the ideal's. [-]
     grip_estimate : float, optional
-        Grip scale the lap used, from the envelope module, passed through. [-]
+        Grip scale the lap used (e.g. from the raw samples); default
+        :func:`limitlap.envelope.grip_estimate` on the lap's stations against
+        ``vehicle`` at grip 1 (None where no sample is grip-limited). [-]
     corner_grip_estimates : mapping name -> float, or sequence in corner order, optional
-        Grip scale found per corner, passed through. [-]
+        Grip scale found per corner; default
+        :func:`limitlap.envelope.grip_estimate_by_segment` on the stations. [-]
 
     Returns
     -------
@@ -920,6 +923,11 @@ def compare_lap(
         _drive_accel_available(v_id, ideal.accel_lat_m_s2, env, sin_grad),
     )
 
+    if grip_estimate is None or corner_grip_estimates is None:
+        est_all, est_seg = _grip_estimates(v_act, ax_act, ay_act, vehicle, line, corners)
+        grip_estimate = est_all if grip_estimate is None else grip_estimate
+        if corner_grip_estimates is None:
+            corner_grip_estimates = est_seg
     grips = _per_corner_values(corner_grip_estimates, corners, "corner grip estimates")
     bounds = _unwrapped_bounds(corners, length, line.closed)
     rows = []
@@ -1008,10 +1016,55 @@ def _unwrap_after(d, start_u, length, closed):
     return float(start_u + np.mod(d - start_u, length)) if closed else float(d)
 
 
+def _grip_estimates(v, ax, ay, vehicle: Vehicle, line: Line, corners):
+    """Grip scale the lap used, overall and per corner (limitlap.envelope), at grip 1."""
+    from limitlap import envelope
+
+    try:
+        overall = envelope.grip_estimate(v, ax, ay, vehicle)
+    except LimitlapError:
+        overall = None
+    seg = segment_index(line.distance_m, line.length_m, corners, line.closed)
+    per = envelope.grip_estimate_by_segment(v, ax, ay, vehicle, seg)
+    per = np.concatenate([per, np.full(max(0, len(corners) - per.shape[0]), np.nan)])
+    return overall, [None if not math.isfinite(x) else float(x) for x in per[: len(corners)]]
+
+
 def _mod(u, length, closed):
     if not math.isfinite(u):
         return math.nan
     return float(np.mod(u, length)) if closed else float(u)
+
+
+def segment_index(distance_m, length_m: float, corners: Sequence[Corner], closed=True):
+    """Segment number (position in ``corners``) of each distance; -1 in none.
+
+    Parameters
+    ----------
+    distance_m : array-like
+        Distances from the gate. [m]
+    length_m : float
+        Lap length. [m]
+    corners : sequence of Corner
+        Segments that tile the lap.
+    closed : bool
+        A lap: the segment with ``start_m >= end_m`` runs through the gate.
+
+    Returns
+    -------
+    numpy.ndarray of int
+        Index per distance; every station of a tiled lap gets exactly one. [-]
+    """
+    d = np.asarray(distance_m, dtype=np.float64)
+    out = np.full(d.shape, -1, dtype=np.int64)
+    for j, c in enumerate(corners):
+        if closed:
+            span = c.end_m - c.start_m if c.end_m > c.start_m else c.end_m + length_m - c.start_m
+            inside = np.mod(d - c.start_m, length_m) < span
+        else:
+            inside = (d >= c.start_m) & ((d < c.end_m) | ((j == len(corners) - 1) & (d <= c.end_m)))
+        out[inside & (out < 0)] = j
+    return out
 
 
 # ----------------------------------------------------------------------------------

@@ -1,0 +1,388 @@
+r"""Targets before a session: per-corner speeds and brake points for a grip scale.
+
+For each condition (a grip scale k on the envelope's friction coefficients, INTERFACE
+§3) the ideal profile is solved on the line and read corner by corner: the speed where
+braking starts, the brake point (from the gate and before the apex), the minimum speed,
+the speed at the end of the corner's segment and the segment time. The corners are
+found once on the line and reused for every condition, so the tables line up.
+
+Named conditions are defaults, overridable by the user (:data:`CONDITIONS`).
+"""
+
+from __future__ import annotations
+
+import math
+from collections.abc import Mapping, Sequence
+from dataclasses import dataclass
+
+import numpy as np
+
+from limitlap.compare import (
+    Corner,
+    _corner_markers,
+    _drive_accel_available,
+    _mod,
+    _Trace,
+    _unwrapped_bounds,
+    find_corners,
+)
+from limitlap.errors import LimitlapError
+from limitlap.line import Line
+from limitlap.solve import Profile, solve_profile
+from limitlap.units import KMH_TO_M_S
+from limitlap.vehicle import Vehicle, check_grip_scale
+
+#: Default grip scales of the named conditions. Common practice, no published source:
+#: a damp track and intermediate tyres are usually put at 0.8-0.9 of dry grip, rain
+#: tyres on a wet track at 0.6-0.75. For comparison, a road-tyre handbook table (Bosch
+#: Automotive Handbook, new tyre, about 0.2 mm of water) gives wet/dry friction of about
+#: 0.73-0.76; racing wets on a flooded track can be much lower. Override with your own.
+CONDITIONS: dict[str, float] = {"dry": 1.0, "damp": 0.85, "wet": 0.70}
+
+#: One-line caution carried by every target table.
+CAUTION = (
+    "Targets are theoretical estimates: approach them progressively; wet grip changes "
+    "corner to corner and lap to lap; the circuit's regulations, officials and qualified "
+    "instructors come first."
+)
+
+
+@dataclass(frozen=True)
+class CornerTarget:
+    """Targets for one corner at one grip scale (SI; NaN where there is no braking).
+
+    Attributes
+    ----------
+    name : str
+        Corner name.
+    apex_m : float
+        Main apex, from the gate. [m]
+    entry_speed_m_s : float
+        Speed where braking starts (at the segment start for a corner taken without
+        braking). [m/s]
+    brake_start_m : float
+        Where braking starts, from the gate; NaN without braking. [m]
+    brake_before_apex_m : float
+        Distance from the brake point to the apex. [m]
+    min_speed_m_s : float
+        Lowest speed in the segment. [m/s]
+    min_speed_at_m : float
+        Where it is, from the gate. [m]
+    exit_speed_m_s : float
+        Speed at the segment end. [m/s]
+    segment_time_s : float
+        Time through the segment. [s]
+    """
+
+    name: str
+    apex_m: float
+    entry_speed_m_s: float
+    brake_start_m: float
+    brake_before_apex_m: float
+    min_speed_m_s: float
+    min_speed_at_m: float
+    exit_speed_m_s: float
+    segment_time_s: float
+
+
+@dataclass(frozen=True, eq=False)
+class TargetCondition:
+    """The target table for one grip scale.
+
+    Attributes
+    ----------
+    grip_scale : float
+        Grip scale k. [-]
+    lap_time_s : float
+        Ideal lap time. [s]
+    corners : tuple of CornerTarget
+        In driving order.
+    label : str or None
+        Condition name ('dry', 'wet', ...) when it came from one.
+    profile : Profile
+        The ideal profile the table was read from.
+    """
+
+    grip_scale: float
+    lap_time_s: float
+    corners: tuple[CornerTarget, ...]
+    label: str | None
+    profile: Profile
+
+
+def resolve_condition(
+    condition: str | float, conditions: Mapping[str, float] | None = None
+) -> tuple[str | None, float]:
+    """A condition name or a number as (label, grip scale).
+
+    Parameters
+    ----------
+    condition : str or float
+        'dry', 'damp', 'wet' (or a name of ``conditions``), or a grip scale. [-]
+    conditions : mapping, optional
+        Names to grip scales, overriding :data:`CONDITIONS`. [-]
+
+    Returns
+    -------
+    tuple
+        (name or None, grip scale checked to 0.2-2.0).
+
+    Examples
+    --------
+    >>> resolve_condition("wet")
+    ('wet', 0.7)
+    >>> resolve_condition(0.9)
+    (None, 0.9)
+    """
+    table = dict(CONDITIONS if conditions is None else conditions)
+    if isinstance(condition, str):
+        key = condition.strip().lower()
+        if key in table:
+            return key, check_grip_scale(table[key])
+        try:
+            return None, check_grip_scale(float(key))
+        except ValueError:
+            names = ", ".join(sorted(table))
+            raise LimitlapError(
+                f"unknown condition '{condition}' (use a grip scale or one of {names})"
+            ) from None
+    return None, check_grip_scale(condition)
+
+
+def target_table(
+    line: Line,
+    vehicle: Vehicle,
+    grip_scale: float,
+    corners: Sequence[Corner] | None = None,
+    *,
+    label: str | None = None,
+) -> TargetCondition:
+    r"""Per-corner targets on ``line`` at one grip scale.
+
+    Parameters
+    ----------
+    line : Line
+        Closed lap (or open stretch) to drive.
+    vehicle : Vehicle
+        Complete envelope at grip scale 1.
+    grip_scale : float
+        Grip scale k, 0.2-2.0. [-]
+    corners : sequence of Corner, optional
+        Default :func:`limitlap.compare.find_corners` on ``line``; pass the same list
+        to every condition so the tables line up.
+    label : str, optional
+        Condition name to carry.
+
+    Returns
+    -------
+    TargetCondition
+
+    Notes
+    -----
+    The profile is :func:`limitlap.solve.solve_profile` (quasi-steady-state point mass,
+    Lenzo & Rossi 2020). Brake start is where the ideal's deceleration first exceeds
+    2.5 m/s² in the braking zone before the minimum speed, interpolated between
+    stations, as in :func:`limitlap.compare.compare_lap`.
+    """
+    k = check_grip_scale(grip_scale)
+    if corners is None:
+        corners = find_corners(line)
+    prof = solve_profile(line, vehicle, k)
+    env = vehicle.scaled(k)
+    length = float(line.length_m)
+    grad = np.asarray(line.gradient, dtype=np.float64)
+    sin_grad = grad / np.sqrt(1.0 + grad * grad)
+    tr = _Trace(
+        line.distance_m,
+        length,
+        line.closed,
+        prof.time_s,
+        prof.lap_time_s,
+        prof.speed_m_s,
+        prof.accel_lon_m_s2,
+        prof.accel_lat_m_s2,
+        _drive_accel_available(prof.speed_m_s, prof.accel_lat_m_s2, env, sin_grad),
+    )
+    s_ext = np.append(line.distance_m, length)
+    v_ext = np.append(prof.speed_m_s, prof.speed_m_s[0] if line.closed else prof.speed_m_s[-1])
+    out = []
+    for c, (start_u, apex_u, end_u, lo, hi) in zip(
+        corners, _unwrapped_bounds(corners, length, line.closed), strict=True
+    ):
+        seg_time = tr.time_at_mod(c.end_m) - tr.time_at_mod(c.start_m)
+        if line.closed and c.end_m <= c.start_m:
+            seg_time += tr.lap_time
+        mk = _corner_markers(tr, lo, start_u, end_u, hi, None, False)
+        if math.isfinite(mk.brake_start):
+            entry = float(np.interp(mk.brake_start, tr.u, tr.v))
+            before = apex_u - mk.brake_start
+        else:
+            entry = float(np.interp(c.start_m, s_ext, v_ext))
+            before = math.nan
+        out.append(
+            CornerTarget(
+                name=c.name,
+                apex_m=c.apex_m,
+                entry_speed_m_s=entry,
+                brake_start_m=_mod(mk.brake_start, length, line.closed),
+                brake_before_apex_m=float(before),
+                min_speed_m_s=mk.min_speed,
+                min_speed_at_m=_mod(mk.min_at, length, line.closed),
+                exit_speed_m_s=float(np.interp(c.end_m, s_ext, v_ext)),
+                segment_time_s=float(seg_time),
+            )
+        )
+    return TargetCondition(k, float(prof.lap_time_s), tuple(out), label, prof)
+
+
+def target_tables(
+    line: Line,
+    vehicle: Vehicle,
+    conditions: Sequence[str | float],
+    corners: Sequence[Corner] | None = None,
+    *,
+    named: Mapping[str, float] | None = None,
+) -> list[TargetCondition]:
+    """Target tables for several conditions, on corners found once.
+
+    Parameters
+    ----------
+    line : Line
+    vehicle : Vehicle
+        Complete envelope at grip 1.
+    conditions : sequence of str or float
+        Condition names ('dry', 'damp', 'wet') or grip scales. [-]
+    corners : sequence of Corner, optional
+        Default :func:`limitlap.compare.find_corners` on ``line``.
+    named : mapping, optional
+        Names to grip scales, overriding :data:`CONDITIONS`. [-]
+
+    Returns
+    -------
+    list of TargetCondition
+    """
+    if corners is None:
+        corners = find_corners(line)
+    out = []
+    for cond in conditions:
+        label, k = resolve_condition(cond, named)
+        out.append(target_table(line, vehicle, k, corners, label=label))
+    return out
+
+
+def _r(x, nd):
+    return None if x is None or not math.isfinite(x) else round(float(x), nd)
+
+
+def targets_json(conditions: Sequence[TargetCondition]) -> dict:
+    """The ``targets --json`` form of INTERFACE §4 (km/h, m, s).
+
+    Distances and speeds are rounded to 0.1, times to 0.001; a corner taken without
+    braking has ``brake_start_m`` null.
+
+    Parameters
+    ----------
+    conditions : sequence of TargetCondition
+
+    Returns
+    -------
+    dict
+        ``{"conditions": [{"grip_scale", "lap_time_s", "corners": [{"name", "apex_m",
+        "entry_speed_kmh", "brake_start_m", "min_speed_kmh", "exit_speed_kmh",
+        "segment_time_s"}]}]}``.
+    """
+    k = 1.0 / KMH_TO_M_S
+    return {
+        "conditions": [
+            {
+                "grip_scale": float(c.grip_scale),
+                "lap_time_s": _r(c.lap_time_s, 3),
+                "corners": [
+                    {
+                        "name": t.name,
+                        "apex_m": _r(t.apex_m, 1),
+                        "entry_speed_kmh": _r(t.entry_speed_m_s * k, 1),
+                        "brake_start_m": _r(t.brake_start_m, 1),
+                        "min_speed_kmh": _r(t.min_speed_m_s * k, 1),
+                        "exit_speed_kmh": _r(t.exit_speed_m_s * k, 1),
+                        "segment_time_s": _r(t.segment_time_s, 3),
+                    }
+                    for t in c.corners
+                ],
+            }
+            for c in conditions
+        ]
+    }
+
+
+def _fmt_lap_time(t):
+    minutes, seconds = divmod(t, 60.0)
+    return f"{int(minutes)}:{seconds:06.3f}" if minutes >= 1 else f"{seconds:.3f} s"
+
+
+def format_targets_table(condition: TargetCondition) -> str:
+    """The target table of one condition as fixed-width text for the terminal.
+
+    Parameters
+    ----------
+    condition : TargetCondition
+
+    Returns
+    -------
+    str
+        Heading, one row per corner (km/h, m, s), and the caution.
+    """
+    k = 1.0 / KMH_TO_M_S
+    name = f"{condition.label} " if condition.label else ""
+    head = (
+        f"Targets {name}(grip scale {condition.grip_scale:.2f}) — "
+        f"ideal lap {_fmt_lap_time(condition.lap_time_s)}"
+    )
+    cols = (
+        "corner",
+        "apex m",
+        "brake at m",
+        "before apex m",
+        "entry km/h",
+        "min km/h",
+        "exit km/h",
+        "segment s",
+    )
+    rows = []
+    for t in condition.corners:
+
+        def f(x, nd=0):
+            return "—" if not math.isfinite(x) else f"{x:.{nd}f}"
+
+        rows.append(
+            (
+                t.name,
+                f(t.apex_m),
+                f(t.brake_start_m),
+                f(t.brake_before_apex_m),
+                f(t.entry_speed_m_s * k),
+                f(t.min_speed_m_s * k),
+                f(t.exit_speed_m_s * k),
+                f(t.segment_time_s, 2),
+            )
+        )
+    widths = [
+        max(len(cols[i]), *(len(r[i]) for r in rows)) if rows else len(cols[i])
+        for i in range(len(cols))
+    ]
+    lines = [head, ""]
+    lines.append(
+        "  ".join(
+            c.ljust(w) if i == 0 else c.rjust(w)
+            for i, (c, w) in enumerate(zip(cols, widths, strict=True))
+        )
+    )
+    for r in rows:
+        lines.append(
+            "  ".join(
+                c.ljust(w) if i == 0 else c.rjust(w)
+                for i, (c, w) in enumerate(zip(r, widths, strict=True))
+            )
+        )
+    lines += ["", CAUTION]
+    return "\n".join(lines)
