@@ -151,24 +151,43 @@ def solve_speed_squared(curvature_1_m, sin_grad, ds_m, veh, closed, b_entry, b_e
         for i in range(1, n):
             if b_lim[i] < b_lim[i0]:
                 i0 = i
+        # Periodic lap: start both passes at the slowest cornering limit. Where the car
+        # cannot actually reach that speed (power or drag limited, downhill braking), the
+        # lap that arrives back is slower: restart from the arrival until it repeats.
         fwd[i0] = b_lim[i0]
-        i = i0
-        for _ in range(n - 1):
-            j = i + 1 if i + 1 < n else 0
-            fwd[j] = _forward_step(
-                fwd[i], curvature_1_m[i], sin_grad[i], curvature_1_m[j], sin_grad[j],
-                ds_m[i], b_lim[j], veh,
+        for _ in range(200):
+            i = i0
+            for _ in range(n - 1):
+                j = i + 1 if i + 1 < n else 0
+                fwd[j] = _forward_step(
+                    fwd[i], curvature_1_m[i], sin_grad[i], curvature_1_m[j], sin_grad[j],
+                    ds_m[i], b_lim[j], veh,
+                )
+                i = j
+            b_arr = _forward_step(
+                fwd[i], curvature_1_m[i], sin_grad[i], curvature_1_m[i0], sin_grad[i0],
+                ds_m[i], b_lim[i0], veh,
             )
-            i = j
+            if b_arr >= fwd[i0] * (1.0 - 1e-13):
+                break
+            fwd[i0] = b_arr
         bwd[i0] = b_lim[i0]
-        j = i0
-        for _ in range(n - 1):
-            i = j - 1 if j > 0 else n - 1
-            bwd[i] = _backward_step(
-                bwd[j], curvature_1_m[j], sin_grad[j], curvature_1_m[i], sin_grad[i],
-                ds_m[i], b_lim[i], veh,
+        for _ in range(200):
+            j = i0
+            for _ in range(n - 1):
+                i = j - 1 if j > 0 else n - 1
+                bwd[i] = _backward_step(
+                    bwd[j], curvature_1_m[j], sin_grad[j], curvature_1_m[i], sin_grad[i],
+                    ds_m[i], b_lim[i], veh,
+                )
+                j = i
+            b_arr = _backward_step(
+                bwd[j], curvature_1_m[j], sin_grad[j], curvature_1_m[i0], sin_grad[i0],
+                ds_m[i0], b_lim[i0], veh,
             )
-            j = i
+            if b_arr >= bwd[i0] * (1.0 - 1e-13):
+                break
+            bwd[i0] = b_arr
     else:
         fwd[0] = min(b_entry, b_lim[0])
         for i in range(n - 1):

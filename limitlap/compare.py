@@ -894,6 +894,8 @@ def compare_lap(
     brake_thr = None
     if brake is not None:
         p99 = float(np.nanquantile(brake, 0.99))
+        if not p99 > 0:  # braking on under 1 % of the lap: take the highest pressure
+            p99 = float(np.nanmax(brake))
         brake_thr = BRAKE_PRESSURE_SHARE * p99 if p99 > 0 else None
     usage_act = limits.combined_usage(v_act, ax_act, ay_act, env, sin_grad)
     actual = _Trace(

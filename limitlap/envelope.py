@@ -6,8 +6,9 @@ The envelope is the point-mass model of INTERFACE §3 (functions in
 
 .. math:: (|F_x| / F_{x,max})^n + (|F_y| / \mu_y N)^n \le 1,
 
-:math:`F_{x,max} = \min(\mu_t N, P/v)` when driving and :math:`\mu_b N` when braking,
-:math:`F_x = m a_x + q C_D A + C_{rr} m g`, :math:`F_y = m a_y`.
+:math:`F_{x,max} = \mu_t N` when driving and :math:`\mu_b N` when braking,
+:math:`F_x = m a_x + q C_D A + C_{rr} m g`, :math:`F_y = m a_y`; power is a separate
+limit :math:`F_x \le P/v`, as in the solver.
 
 Fitting follows the polar-binning method (REFERENCES §2.2): normalise every sample by
 a provisional envelope at its own speed, so the boundary becomes the unit superellipse;
@@ -592,7 +593,8 @@ def envelope_boundary(speed_m_s, vehicle: Vehicle, n_points=181):
     -----
     The unit superellipse :math:`|s_x|^n + |s_y|^n = 1` parametrised as
     :math:`s = (\\mathrm{sgn}\\cos t |\\cos t|^{2/n}, \\mathrm{sgn}\\sin t |\\sin t|^{2/n})`,
-    then scaled by the force limits of INTERFACE §3 and shifted by the resistance.
+    then scaled by the tyre force limits of INTERFACE §3, cut at the power limit
+    :math:`F_x \le P/v` (the solver's model) and shifted by the resistance.
 
     Examples
     --------
@@ -610,29 +612,22 @@ def envelope_boundary(speed_m_s, vehicle: Vehicle, n_points=181):
     v = np.full_like(t, float(speed_m_s))
     m = vehicle.mass_kg
     normal = normal_load_n(v, vehicle)
-    fx_max = np.where(sx >= 0.0, drive_force_max_n(v, vehicle), vehicle.mu_brk * normal)
-    ax = (sx * fx_max - resistance_n(v, vehicle)) / m
+    fx = sx * np.where(sx >= 0.0, vehicle.mu_trac, vehicle.mu_brk) * normal
+    fx = np.minimum(fx, drive_force_max_n(v, replace(vehicle, mu_trac=math.inf)))  # P/v
+    ax = (fx - resistance_n(v, vehicle)) / m
     ay = sy * vehicle.mu_lat * normal / m
     return ax, ay
 
 
 def _grip_demand(speed_m_s, accel_lon_m_s2, accel_lat_m_s2, vehicle: Vehicle):
-    """Required grip scale per sample and whether the power limit binds at it. [-]"""
+    """Required grip scale per sample; ``inf`` beyond the power limit. [-]"""
     vehicle.require_complete()
     v = np.asarray(speed_m_s, dtype=np.float64)
-    m = vehicle.mass_kg
-    fx = m * np.asarray(accel_lon_m_s2, dtype=np.float64) + resistance_n(v, vehicle)
-    fy = m * np.abs(np.asarray(accel_lat_m_s2, dtype=np.float64))
-    n = vehicle.exponent
-    # Grip-only usage: the limits of combined_usage without the power cap.
+    fx = vehicle.mass_kg * np.asarray(accel_lon_m_s2, dtype=np.float64) + resistance_n(v, vehicle)
+    # Tyre share alone: combined_usage of the same car without its power limit.
     k_grip = combined_usage(v, accel_lon_m_s2, accel_lat_m_s2, replace(vehicle, power_w=math.inf))
-    normal = normal_load_n(v, vehicle)
     power_force = drive_force_max_n(v, replace(vehicle, mu_trac=math.inf))  # P/v
-    capped = (fx > 0.0) & (k_grip * vehicle.mu_trac * normal > power_force)
-    with np.errstate(divide="ignore", invalid="ignore"):
-        left = 1.0 - (fx / power_force) ** n
-        k_power = np.where(left > 0.0, fy / (vehicle.mu_lat * normal * left ** (1.0 / n)), np.inf)
-    return np.where(capped, k_power, k_grip), capped
+    return np.where(fx > power_force, np.inf, k_grip)
 
 
 def required_grip_scale(speed_m_s, accel_lon_m_s2, accel_lat_m_s2, vehicle: Vehicle):
@@ -653,12 +648,11 @@ def required_grip_scale(speed_m_s, accel_lon_m_s2, accel_lat_m_s2, vehicle: Vehi
 
     Notes
     -----
-    k multiplies the three friction coefficients only (INTERFACE §3). While the power
-    limit does not bind, every force limit is proportional to k, so the combined usage at
-    scale k is :math:`u_1/k` and :math:`k = u_1`, the usage at k = 1 with traction
-    :math:`\mu_t N`. Where :math:`k \mu_t N > P/v` the driving limit is :math:`P/v` and
-    :math:`(F_x v/P)^n + (F_y/(k \mu_y N))^n = 1` gives
-    :math:`k = F_y / (\mu_y N (1 - (F_x v / P)^n)^{1/n})` (closed form, no iteration).
+    k multiplies the three friction coefficients only (INTERFACE §3). The tyre law's
+    limits are all proportional to k, so its share at scale k is :math:`u_1/k`, with
+    :math:`u_1` the tyre share at k = 1; power is a separate limit
+    :math:`F_x \le P/v` that k does not change (:func:`limitlap.limits.combined_usage`,
+    the solver's model). Hence :math:`k = u_1`, or ``inf`` when :math:`F_x > P/v`.
     """
     return _grip_demand(speed_m_s, accel_lon_m_s2, accel_lat_m_s2, vehicle)[0]
 
@@ -710,10 +704,9 @@ def grip_estimate(
 
     Notes
     -----
-    Per sample the required scale comes from :func:`required_grip_scale`. Samples where
-    the power limit binds at their own required scale are left out: they show power,
-    not grip, and there the required scale is ill-conditioned (a small error in
-    :math:`F_x` near :math:`P/v` moves it without bound).
+    Per sample the required scale comes from :func:`required_grip_scale`; samples beyond
+    the power limit (no grip scale explains them: an under-estimated power, or noise on
+    a full-throttle straight) are left out.
 
     Examples
     --------
@@ -723,10 +716,10 @@ def grip_estimate(
     0.8158
     """
     v, ax, ay, ok = _prepare(speed_m_s, accel_lon_m_s2, accel_lat_m_s2, mask, min_speed_m_s)
-    k, capped = _grip_demand(v[ok], ax[ok], ay[ok], vehicle)
-    k = k[~capped]
+    k = _grip_demand(v[ok], ax[ok], ay[ok], vehicle)
+    k = k[np.isfinite(k)]
     if k.size == 0:
-        raise LimitlapError("no grip-limited samples to estimate the grip scale from")
+        raise LimitlapError("no samples within the power limit to estimate the grip scale from")
     return float(np.quantile(k, quantile))
 
 
@@ -769,9 +762,8 @@ def grip_estimate_by_segment(
     n_seg = int(seg.max()) + 1 if seg.size else 0
     out = np.full(max(n_seg, 0), np.nan)
     k = np.full(v.shape, np.inf)
-    capped = np.ones(v.shape, bool)
-    k[ok], capped[ok] = _grip_demand(v[ok], ax[ok], ay[ok], vehicle)
-    good = ok & ~capped & (seg >= 0)
+    k[ok] = _grip_demand(v[ok], ax[ok], ay[ok], vehicle)
+    good = ok & np.isfinite(k) & (seg >= 0)
     if not good.any():
         return out
     kk, ss = k[good], seg[good]

@@ -911,7 +911,9 @@ def fill_position(log: Log, bridge_s: float = BRIDGE_MAX_S) -> tuple[np.ndarray,
             continue
         prev = rows[k - 1]
         span = slice(d.start_index, d.end_index + 1)
+        # The chord before the gap points along the path half-way between its fixes.
         heading0 = np.arctan2(y[d.start_index] - y[prev], x[d.start_index] - x[prev])
+        heading0 += 0.5 * (t[d.start_index] - t[prev]) * yaw[d.start_index]
         tt = t[span]
         r = yaw[span]
         heading = heading0 + np.concatenate(([0.0], np.cumsum(0.5 * (r[1:] + r[:-1]) * np.diff(tt))))

@@ -76,8 +76,10 @@ def combined_usage(speed_m_s, accel_lon_m_s2, accel_lat_m_s2, vehicle: Vehicle, 
     r"""Combined share of grip used, :math:`((|F_x|/F_{x,max})^n + (|F_y|/F_{y,max})^n)^{1/n}`.
 
     Tyre forces are what the accelerations need: :math:`F_y = m a_y`,
-    :math:`F_x = m a_x + \text{resistance} + m g \sin\theta`; driving force is measured
-    against :math:`\min(\mu_t N, P/v)`, braking force against :math:`\mu_b N`.
+    :math:`F_x = m a_x + \text{resistance} + m g \sin\theta`; a driving force is measured
+    against :math:`\mu_t N`, a braking force against :math:`\mu_b N`. Power is a separate
+    limit, not part of the tyre law: when driving, the result is the larger of the tyre
+    share and :math:`F_x / (P/v)`.
 
     Returns
     -------
@@ -89,6 +91,9 @@ def combined_usage(speed_m_s, accel_lon_m_s2, accel_lat_m_s2, vehicle: Vehicle, 
     fx = m * np.asarray(accel_lon_m_s2) + resistance_n(v, vehicle) + m * G0_M_S2 * np.asarray(sin_grad)
     fy = m * np.abs(np.asarray(accel_lat_m_s2))
     normal = normal_load_n(v, vehicle)
-    fx_max = np.where(fx >= 0, drive_force_max_n(v, vehicle), vehicle.mu_brk * normal)
+    fx_max = np.where(fx >= 0, vehicle.mu_trac * normal, vehicle.mu_brk * normal)
     n = vehicle.exponent
-    return ((np.abs(fx) / fx_max) ** n + (fy / (vehicle.mu_lat * normal)) ** n) ** (1.0 / n)
+    tyre = ((np.abs(fx) / fx_max) ** n + (fy / (vehicle.mu_lat * normal)) ** n) ** (1.0 / n)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        power = np.where(fx > 0, fx * v / vehicle.power_w, 0.0)
+    return np.maximum(tyre, power)

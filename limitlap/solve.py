@@ -38,7 +38,7 @@ from limitlap.vehicle import Vehicle, check_grip_scale
 
 @dataclass(frozen=True, eq=False)
 class Profile:
-    """A solved speed profile on a line (all SI).
+    r"""A solved speed profile on a line (all SI).
 
     Attributes
     ----------

@@ -1,0 +1,920 @@
+"""Figures of the report: each function draws one figure and returns its PNG bytes.
+
+matplotlib is imported inside the functions (Agg backend, no display needed), so importing
+:mod:`limitlap.figures` or :mod:`limitlap.report` costs nothing until a figure is drawn.
+Every figure has a fixed pixel size (:data:`FIGURE_SIZE_PX`); nothing is cropped to fit,
+so the size is known before drawing.
+
+Inputs are plain SI arrays and records; the conversion to km/h and g for display happens
+here, with the factors of :mod:`limitlap.units`.
+
+Colours: the colour-blind-safe set of Okabe & Ito (2008), the real lap always in
+vermillion, the ideal lap always in blue; the map uses a blue-grey-orange diverging scale
+whose lightness runs monotonically from each end to the middle, so it also reads in grey
+print.
+
+References
+----------
+.. [1] M. Okabe and K. Ito, "Color Universal Design (CUD): how to make figures and
+   presentations that are friendly to colorblind people", J*FLY, 2008.
+"""
+
+from __future__ import annotations
+
+import io
+import itertools
+import math
+
+import numpy as np
+
+from limitlap.units import G0_M_S2, KMH_TO_M_S
+
+# Okabe-Ito colours [1].
+REAL = "#D55E00"  # vermillion: the driven lap
+IDEAL = "#0072B2"  # blue: the ideal lap
+BEST = "#009E73"  # bluish green: best of the driver's own laps
+UNUSED = "#56B4E9"  # sky blue: grip the lap did not use
+ACCENT = "#E69F00"  # orange
+INK = "#222222"
+GRID = "#d9d9d9"
+BAND = "#f2f2f2"
+
+#: Resolution of every figure. [dots per inch]
+DPI = 100
+#: Pixel size (width, height) of each figure kind, fixed whatever the data.
+FIGURE_SIZE_PX = {
+    "speed": (1200, 460),
+    "delta": (1200, 360),
+    "time_left": (1200, 520),
+    "map": (900, 900),
+    "gg": (1200, 480),
+    "detail": (1200, 640),
+    "best": (1200, 520),
+    "target_sheet": (1240, 1754),  # A4 portrait at 150 dpi (the sheet is drawn at 150 dpi)
+}
+#: Resolution of the printable target sheet: A4 = 8.27 x 11.69 in. [dots per inch]
+SHEET_DPI = 150
+
+
+def _pyplot():
+    """matplotlib.pyplot on the Agg backend, imported on first use."""
+    import matplotlib
+
+    matplotlib.use("Agg", force=True)
+    import matplotlib.pyplot as plt
+
+    plt.rcParams.update(
+        {
+            "font.size": 11,
+            "axes.titlesize": 12,
+            "axes.labelsize": 11,
+            "axes.edgecolor": "#888888",
+            "axes.grid": True,
+            "grid.color": GRID,
+            "grid.linewidth": 0.6,
+            "axes.spines.top": False,
+            "axes.spines.right": False,
+            "legend.frameon": False,
+            "svg.hashsalt": "limitlap",
+        }
+    )
+    return plt
+
+
+def _figure(kind: str, **kwargs):
+    plt = _pyplot()
+    w, h = FIGURE_SIZE_PX[kind]
+    dpi = SHEET_DPI if kind == "target_sheet" else DPI
+    return plt.figure(figsize=(w / dpi, h / dpi), dpi=dpi, **kwargs)
+
+
+def _png(fig, kind: str) -> bytes:
+    """Render to PNG bytes at the figure's fixed size; close the figure."""
+    plt = _pyplot()
+    buf = io.BytesIO()
+    dpi = SHEET_DPI if kind == "target_sheet" else DPI
+    try:
+        fig.savefig(buf, format="png", dpi=dpi, metadata={"Software": None})
+    finally:
+        plt.close(fig)
+    return buf.getvalue()
+
+
+def _kmh(v_m_s):
+    return np.asarray(v_m_s, dtype=np.float64) / KMH_TO_M_S
+
+
+def _corner_bands(ax, corners, *, label_y=None, labels=True):
+    """Shade every other corner segment and write each corner's name above its apex."""
+    for i, c in enumerate(corners):
+        start, end = c["start_m"], c["end_m"]
+        if i % 2 == 0:
+            if end >= start:
+                ax.axvspan(start, end, color=BAND, zorder=0, lw=0)
+        if labels:
+            y = ax.get_ylim()[1] if label_y is None else label_y
+            ax.annotate(
+                c["name"],
+                (c["apex_m"], y),
+                xytext=(0, 2),
+                textcoords="offset points",
+                ha="center",
+                va="bottom",
+                fontsize=9,
+                color=INK,
+                annotation_clip=False,
+            )
+
+
+# --------------------------------------------------------------------------- along the lap
+
+
+def speed_figure(distance_m, speed_real_m_s, speed_ideal_m_s, corners) -> bytes:
+    """Speed along the lap, real against ideal, with the corners named at their apexes.
+
+    Parameters
+    ----------
+    distance_m : array-like
+        Stations along the lap from the gate. [m]
+    speed_real_m_s, speed_ideal_m_s : array-like
+        Driven and ideal speed at the stations. [m/s]
+    corners : list of dict
+        ``name``, ``start_m``, ``apex_m``, ``end_m`` [m] of each corner segment.
+
+    Returns
+    -------
+    bytes
+        PNG image, ``FIGURE_SIZE_PX["speed"]`` pixels.
+    """
+    fig = _figure("speed", layout="constrained")
+    ax = fig.add_subplot()
+    s = np.asarray(distance_m, dtype=np.float64)
+    ax.plot(s, _kmh(speed_ideal_m_s), color=IDEAL, lw=1.8, label="ideal (your envelope)")
+    ax.plot(s, _kmh(speed_real_m_s), color=REAL, lw=1.3, label="your lap")
+    top = np.nanmax([np.nanmax(_kmh(speed_ideal_m_s)), np.nanmax(_kmh(speed_real_m_s))])
+    ax.set_ylim(0, top * 1.12)
+    ax.set_xlim(s[0], s[-1])
+    _corner_bands(ax, corners, label_y=top * 1.02)
+    ax.set_xlabel("distance from the start/finish gate [m]")
+    ax.set_ylabel("speed [km/h]")
+    ax.set_title("Speed along the lap", loc="left")
+    ax.legend(loc="lower right", ncols=2)
+    return _png(fig, "speed")
+
+
+def delta_figure(distance_m, time_delta_s, corners) -> bytes:
+    """Time delta along the lap: how far the driven lap is behind the ideal.
+
+    Parameters
+    ----------
+    distance_m : array-like
+        Stations along the lap. [m]
+    time_delta_s : array-like
+        Elapsed time of the driven lap minus that of the ideal at each station;
+        + = behind the ideal. [s]
+    corners : list of dict
+        Corner segments as for :func:`speed_figure`.
+
+    Returns
+    -------
+    bytes
+        PNG image, ``FIGURE_SIZE_PX["delta"]`` pixels.
+    """
+    fig = _figure("delta", layout="constrained")
+    ax = fig.add_subplot()
+    s = np.asarray(distance_m, dtype=np.float64)
+    d = np.asarray(time_delta_s, dtype=np.float64)
+    ax.fill_between(s, 0, d, where=d >= 0, color=REAL, alpha=0.18, lw=0, interpolate=True)
+    ax.fill_between(s, 0, d, where=d < 0, color=IDEAL, alpha=0.18, lw=0, interpolate=True)
+    ax.plot(s, d, color=REAL, lw=1.5, label="your lap behind the ideal")
+    ax.axhline(0.0, color=IDEAL, lw=1.2, label="ideal")
+    lo, hi = float(np.nanmin(d)), float(np.nanmax(d))
+    span = max(hi - min(lo, 0.0), 1e-3)
+    ax.set_ylim(min(lo, 0.0) - 0.05 * span, hi + 0.18 * span)
+    ax.set_xlim(s[0], s[-1])
+    _corner_bands(ax, corners, label_y=hi + 0.06 * span)
+    ax.set_xlabel("distance from the start/finish gate [m]")
+    ax.set_ylabel("time delta [s]")
+    ax.set_title("Time delta: your lap minus the ideal (rising = losing time)", loc="left")
+    ax.legend(loc="upper left")
+    return _png(fig, "delta")
+
+
+def time_left_figure(corners) -> bytes:
+    """Time left per corner, ranked, largest on top.
+
+    Parameters
+    ----------
+    corners : list of dict
+        ``name`` and ``time_left_s`` [s] of each corner segment.
+
+    Returns
+    -------
+    bytes
+        PNG image, ``FIGURE_SIZE_PX["time_left"]`` pixels.
+    """
+    fig = _figure("time_left", layout="constrained")
+    ax = fig.add_subplot()
+    ranked = sorted(corners, key=lambda c: -c["time_left_s"])
+    names = [c["name"] for c in ranked]
+    values = np.array([c["time_left_s"] for c in ranked], dtype=np.float64)
+    y = np.arange(len(ranked))
+    colours = [
+        REAL if i < 3 and v > 0 else "#e8a27a" if v > 0 else IDEAL for i, v in enumerate(values)
+    ]
+    ax.barh(y, values, color=colours, height=0.7)
+    ax.set_yticks(y, names, fontsize=10 if len(names) <= 18 else 8)
+    ax.invert_yaxis()
+    span = max(float(np.max(np.abs(values))) if values.size else 0.0, 1e-3)
+    for yi, v in zip(y, values, strict=True):
+        ax.annotate(
+            f"{v:+.2f} s",
+            (max(v, 0.0), yi),
+            xytext=(4, 0),
+            textcoords="offset points",
+            va="center",
+            fontsize=9,
+        )
+    ax.set_xlim(min(0.0, float(values.min(initial=0.0))) - 0.02 * span, span * 1.18)
+    ax.grid(axis="y", visible=False)
+    ax.axvline(0.0, color="#888888", lw=0.8)
+    ax.set_xlabel("time left to the ideal [s]")
+    ax.set_title(
+        f"Time left per corner, ranked (total {values.sum():.2f} s; top three darker)", loc="left"
+    )
+    return _png(fig, "time_left")
+
+
+def time_loss_rate(distance_m, time_delta_s, *, window_m: float = 20.0, closed: bool = True):
+    """Local rate of time loss d(delta)/ds, smoothed over ``window_m``.
+
+    Parameters
+    ----------
+    distance_m, time_delta_s : array-like
+        Stations [m] and time delta (+ = behind) [s].
+    window_m : float
+        Width of the moving average (wrapping round a closed lap). [m]
+    closed : bool
+        Whether the lap is a loop (the average then wraps).
+
+    Returns
+    -------
+    numpy.ndarray
+        Time lost per metre at each station, + = losing. [s/m]
+
+    Examples
+    --------
+    >>> s = np.arange(0.0, 100.0, 1.0)
+    >>> bool(np.allclose(time_loss_rate(s, 0.002 * s, closed=False)[10:-10], 0.002))
+    True
+    """
+    s = np.asarray(distance_m, dtype=np.float64)
+    d = np.asarray(time_delta_s, dtype=np.float64)
+    rate = np.gradient(d, s)
+    step = float(np.median(np.diff(s))) if s.size > 1 else 1.0
+    n = max(1, round(window_m / step))
+    if n <= 1 or s.size < 3 * n:
+        return rate
+    kernel = np.ones(n) / n
+    if closed:
+        padded = np.concatenate([rate[-n:], rate, rate[:n]])
+        return np.convolve(padded, kernel, mode="same")[n:-n]
+    return np.convolve(rate, kernel, mode="same")
+
+
+def map_figure(x_m, y_m, loss_rate_s_m, corners, distance_m) -> bytes:
+    """Map of the line coloured by where time is left (local time-loss rate).
+
+    Parameters
+    ----------
+    x_m, y_m : array-like
+        Line position, east and north. [m]
+    loss_rate_s_m : array-like
+        Time lost per metre, + = losing on the ideal (see :func:`time_loss_rate`). [s/m]
+    corners : list of dict
+        ``name`` and ``apex_m`` [m] of each corner, labelled on the map.
+    distance_m : array-like
+        Stations' distance, to place the labels. [m]
+
+    Returns
+    -------
+    bytes
+        PNG image, ``FIGURE_SIZE_PX["map"]`` pixels.
+    """
+    fig = _figure("map", layout="constrained")
+    from matplotlib.collections import LineCollection
+    from matplotlib.colors import LinearSegmentedColormap, TwoSlopeNorm
+
+    ax = fig.add_subplot()
+    x = np.asarray(x_m, dtype=np.float64)
+    y = np.asarray(y_m, dtype=np.float64)
+    rate_ms_m = np.asarray(loss_rate_s_m, dtype=np.float64) * 1e3  # [ms/m] for the scale
+    pts = np.column_stack([x, y])
+    segs = np.stack([pts, np.roll(pts, -1, axis=0)], axis=1)
+    finite = rate_ms_m[np.isfinite(rate_ms_m)]
+    lim = float(np.percentile(np.abs(finite), 98)) if finite.size else 1.0
+    lim = max(lim, 1e-3)
+    cmap = LinearSegmentedColormap.from_list(
+        "limitlap_loss", [IDEAL, "#9cc3dc", "#e6e6e6", "#f0b07a", REAL, "#6b2b00"]
+    )
+    norm = TwoSlopeNorm(vmin=-lim, vcenter=0.0, vmax=lim * 1.0)
+    ax.plot(
+        np.append(x, x[0]),
+        np.append(y, y[0]),
+        color="#bbbbbb",
+        lw=9,
+        solid_capstyle="round",
+        zorder=1,
+    )
+    lc = LineCollection(segs, cmap=cmap, norm=norm, linewidths=5.5, zorder=2, capstyle="round")
+    lc.set_array(np.clip(rate_ms_m, -lim, lim))
+    ax.add_collection(lc)
+    s = np.asarray(distance_m, dtype=np.float64)
+    cx, cy = float(np.mean(x)), float(np.mean(y))
+    span = max(np.ptp(x), np.ptp(y))
+    for c in corners:
+        i = int(np.argmin(np.abs(s - c["apex_m"])))
+        dx, dy = x[i] - cx, y[i] - cy
+        r = math.hypot(dx, dy) or 1.0
+        off = 0.045 * span
+        ax.annotate(
+            c["name"],
+            (x[i], y[i]),
+            xytext=(x[i] + off * dx / r, y[i] + off * dy / r),
+            ha="center",
+            va="center",
+            fontsize=10,
+            fontweight="bold",
+            color=INK,
+            zorder=4,
+        )
+    ax.plot([x[0]], [y[0]], marker="s", ms=9, color=INK, zorder=5, ls="none", label="start/finish")
+    if x.size > 1:
+        ax.annotate(
+            "",
+            xy=(x[min(30, x.size - 1)], y[min(30, x.size - 1)]),
+            xytext=(x[0], y[0]),
+            arrowprops={"arrowstyle": "->", "color": INK, "lw": 1.5},
+            zorder=5,
+        )
+    ax.set_aspect("equal", adjustable="datalim")
+    ax.margins(0.08)
+    ax.grid(False)
+    ax.set_xticks([])
+    ax.set_yticks([])
+    for side in ("left", "bottom"):
+        ax.spines[side].set_visible(False)
+    cb = fig.colorbar(lc, ax=ax, orientation="horizontal", shrink=0.7, pad=0.02, aspect=40)
+    cb.set_label("time lost per metre [ms/m]: orange = time left here, blue = gaining, grey = even")
+    ax.set_title("Where the time is left on the lap", loc="left")
+    ax.legend(loc="upper right")
+    return _png(fig, "map")
+
+
+# --------------------------------------------------------------------------- g-g diagram
+
+
+def envelope_boundary(speed_m_s: float, vehicle, grip_scale: float = 1.0, n_points: int = 181):
+    r"""Closed boundary of the g-g envelope at one speed, as (a_y, a_x) points.
+
+    Parameters
+    ----------
+    speed_m_s : float
+        Speed. [m/s]
+    vehicle : Vehicle
+        Complete vehicle (INTERFACE §3).
+    grip_scale : float
+        Grip scale k on the friction coefficients. [-]
+    n_points : int
+        Points per half (driving and braking side). [-]
+
+    Returns
+    -------
+    tuple of numpy.ndarray
+        Lateral acceleration (+ left) and longitudinal acceleration (+ forward) along the
+        boundary, driving half left to right, then braking half back. [m/s²]
+
+    Notes
+    -----
+    INTERFACE §3 on tyre forces: at lateral share :math:`u = F_y/F_{y,max}` the tyres
+    leave :math:`(1-|u|^n)^{1/n}` of the longitudinal limit (superellipse); the driving
+    side is also capped at :math:`P/v`, as in the solver's kernel; drag and rolling
+    resistance shift both sides rearwards.
+
+    Examples
+    --------
+    >>> from limitlap.vehicle import Vehicle
+    >>> car = Vehicle("dot", 1000.0, math.inf, 0.0, 0.0, 0.0, mu_lat=1.0, mu_brk=1.0,
+    ...               mu_trac=1.0, exponent=2.0)
+    >>> ay, ax = envelope_boundary(20.0, car)
+    >>> bool(np.allclose(np.hypot(ay, ax), 9.80665))  # the friction circle of radius g
+    True
+    """
+    from limitlap import limits
+
+    veh = vehicle.scaled(grip_scale) if grip_scale != 1.0 else vehicle
+    v = float(speed_m_s)
+    m = veh.mass_kg
+    normal = float(limits.normal_load_n(v, veh))
+    resist = float(limits.resistance_n(v, veh))
+    fy_max = veh.mu_lat * normal
+    n = veh.exponent
+    theta = np.linspace(-0.5 * np.pi, 0.5 * np.pi, n_points)
+    # Superellipse parametrisation: u = sign(sin)|sin|^(2/n), share = |cos|^(2/n).
+    u = np.sign(np.sin(theta)) * np.abs(np.sin(theta)) ** (2.0 / n)
+    share = np.abs(np.cos(theta)) ** (2.0 / n)
+    drive_power = veh.power_w / v if v > 0 else math.inf
+    fx_drive = np.minimum(veh.mu_trac * normal * share, drive_power)
+    fx_brake = veh.mu_brk * normal * share
+    ay = u * fy_max / m
+    ax_drive = (fx_drive - resist) / m
+    ax_brake = (-fx_brake - resist) / m
+    return np.concatenate([ay, ay[::-1]]), np.concatenate([ax_drive, ax_brake[::-1]])
+
+
+def _ray_reach(poly_x, poly_y, angles):
+    """Farthest crossing of rays from the origin with a closed polygon, per angle."""
+    px = np.asarray(poly_x)
+    py = np.asarray(poly_y)
+    ax_, ay_ = px, py
+    bx, by = np.roll(px, -1), np.roll(py, -1)
+    dx, dy = np.cos(angles)[:, None], np.sin(angles)[:, None]
+    ex, ey = (bx - ax_)[None, :], (by - ay_)[None, :]
+    denom = dx * ey - dy * ex
+    with np.errstate(divide="ignore", invalid="ignore"):
+        t = (ax_[None, :] * ey - ay_[None, :] * ex) / denom  # distance along the ray
+        w = (ax_[None, :] * dy - ay_[None, :] * dx) / denom  # position along the edge
+    ok = (np.abs(denom) > 1e-15) & (t >= 0) & (w >= 0) & (w <= 1)
+    return np.where(ok, t, 0.0).max(axis=1)
+
+
+def _hull(points_x, points_y):
+    """Convex hull polygon of the points, or None for fewer than 3 non-collinear points."""
+    pts = np.column_stack([points_x, points_y])
+    pts = pts[np.all(np.isfinite(pts), axis=1)]
+    if pts.shape[0] < 3:
+        return None
+    from scipy.spatial import ConvexHull, QhullError
+
+    try:
+        hull = ConvexHull(pts)
+    except (QhullError, ValueError):
+        return None
+    v = pts[hull.vertices]
+    return v[:, 0], v[:, 1]
+
+
+def speed_bands_m_s(speed_m_s, n_bands: int = 3):
+    """Speed band edges for the g-g panels: equal sample counts, rounded to 10 km/h.
+
+    Parameters
+    ----------
+    speed_m_s : array-like
+        Sample speeds. [m/s]
+    n_bands : int
+        Number of bands. [-]
+
+    Returns
+    -------
+    list of tuple
+        (low, high) edges of each band. [m/s]
+    """
+    v = np.asarray(speed_m_s, dtype=np.float64)
+    v = v[np.isfinite(v)]
+    step = 10.0 * KMH_TO_M_S
+    if v.size == 0:
+        return []
+    q = np.quantile(v, np.linspace(0.0, 1.0, n_bands + 1))
+    edges = np.unique(
+        np.concatenate(
+            [
+                [np.floor(q[0] / step) * step],
+                np.round(q[1:-1] / step) * step,
+                [np.ceil(q[-1] / step) * step],
+            ]
+        )
+    )
+    if edges.size < 2:
+        edges = np.array([edges[0] - step, edges[0] + step])
+    return [(float(a), float(b)) for a, b in itertools.pairwise(edges)]
+
+
+def gg_figure(
+    speed_m_s, accel_lon_m_s2, accel_lat_m_s2, vehicle, grip_scale=1.0, bands=None, fit_points=None
+) -> bytes:
+    """g-g diagram per speed band: envelope, the lap's samples, the grip left unused.
+
+    Parameters
+    ----------
+    speed_m_s, accel_lon_m_s2, accel_lat_m_s2 : array-like
+        The lap's samples: speed [m/s], longitudinal (+ forward) and lateral (+ left)
+        acceleration [m/s²].
+    vehicle : Vehicle
+        Complete envelope the lap is compared with.
+    grip_scale : float
+        Grip scale of the comparison. [-]
+    bands : list of tuple, optional
+        (low, high) speed bands [m/s]; by default three from :func:`speed_bands_m_s`.
+    fit_points : list of dict, optional
+        Boundary points the envelope fit used, each with ``accel_lat_m_s2``,
+        ``accel_lon_m_s2`` and ``speed_m_s`` arrays; drawn as small crosses.
+
+    Returns
+    -------
+    bytes
+        PNG image, ``FIGURE_SIZE_PX["gg"]`` pixels.
+
+    Notes
+    -----
+    The envelope is drawn at the band's middle speed (solid) and its edges (dotted). The
+    shaded ring lies between the convex hull of the band's samples and the envelope at
+    the middle speed: grip the lap never asked for. Its share of the envelope's area is
+    in each panel's title.
+    """
+    v = np.asarray(speed_m_s, dtype=np.float64)
+    ax_s = np.asarray(accel_lon_m_s2, dtype=np.float64)
+    ay_s = np.asarray(accel_lat_m_s2, dtype=np.float64)
+    if bands is None:
+        bands = speed_bands_m_s(v)
+    bands = list(bands)[:4] or [(0.0, 1.0)]
+    fig = _figure("gg", layout="constrained")
+    axes = fig.subplots(1, len(bands), sharex=True, sharey=True, squeeze=False)[0]
+    angles = np.linspace(-np.pi, np.pi, 721)
+    lim = 0.0
+    for ax, (lo, hi) in zip(axes, bands, strict=True):
+        mid = 0.5 * (lo + hi)
+        ey, ex = envelope_boundary(mid, vehicle, grip_scale)
+        for edge in (lo, hi):
+            if edge > 0:
+                ly, lx = envelope_boundary(edge, vehicle, grip_scale)
+                ax.plot(ly / G0_M_S2, lx / G0_M_S2, color=IDEAL, lw=0.8, ls=":")
+        inband = (v >= lo) & (v < hi) & np.isfinite(ax_s) & np.isfinite(ay_s)
+        sy, sx = ay_s[inband] / G0_M_S2, ax_s[inband] / G0_M_S2
+        r_env = _ray_reach(ey / G0_M_S2, ex / G0_M_S2, angles)
+        hull = _hull(sy, sx)
+        title = f"{lo / KMH_TO_M_S:.0f}-{hi / KMH_TO_M_S:.0f} km/h"
+        if hull is not None:
+            r_hull = _ray_reach(hull[0], hull[1], angles)
+            r_in = np.minimum(r_hull, r_env)
+            # Ring between the samples' reach and the envelope: outer loop forward, inner
+            # loop back; the angles include both -pi and pi so the seam closes exactly.
+            ring_y = np.concatenate([r_env * np.cos(angles), (r_in * np.cos(angles))[::-1]])
+            ring_x = np.concatenate([r_env * np.sin(angles), (r_in * np.sin(angles))[::-1]])
+            ax.fill(ring_y, ring_x, color=UNUSED, alpha=0.45, lw=0, label="grip not used")
+            hy, hx = np.append(hull[0], hull[0][0]), np.append(hull[1], hull[1][0])
+            ax.plot(hy, hx, color=REAL, lw=1.2, label="reach of your samples")
+            # Polar area 1/2 sum r^2 dtheta on equal steps (last angle repeats the first).
+            unused = 1.0 - float(np.sum(r_in[:-1] ** 2) / np.sum(r_env[:-1] ** 2))
+            title += f": {100 * unused:.0f} % of the envelope unused"
+        ax.plot(ey / G0_M_S2, ex / G0_M_S2, color=IDEAL, lw=1.8, label="envelope")
+        ax.scatter(sy, sx, s=4, color="#555555", alpha=0.35, lw=0, label="your samples")
+        if fit_points:
+            for fp in fit_points:
+                fv = np.asarray(fp["speed_m_s"], dtype=np.float64)
+                sel = (fv >= lo) & (fv < hi)
+                ax.scatter(
+                    np.asarray(fp["accel_lat_m_s2"])[sel] / G0_M_S2,
+                    np.asarray(fp["accel_lon_m_s2"])[sel] / G0_M_S2,
+                    s=14,
+                    marker="x",
+                    color=ACCENT,
+                    lw=0.9,
+                    label="fit points",
+                )
+        lim = max(lim, float(np.max(np.abs(ey))) / G0_M_S2, float(np.max(np.abs(ex))) / G0_M_S2)
+        ax.set_title(title, fontsize=10)
+        ax.set_xlabel("lateral [g] (+ left)")
+        ax.axhline(0, color="#999999", lw=0.6)
+        ax.axvline(0, color="#999999", lw=0.6)
+        ax.set_aspect("equal", adjustable="box")
+    axes[0].set_ylabel("longitudinal [g] (+ forward)")
+    lim *= 1.08
+    axes[0].set_xlim(-lim, lim)
+    axes[0].set_ylim(-lim, lim)
+    handles, labels = axes[0].get_legend_handles_labels()
+    uniq = dict(zip(labels, handles, strict=True))
+    fig.legend(uniq.values(), uniq.keys(), loc="outside lower center", ncols=len(uniq))
+    fig.suptitle(
+        "g-g diagram by speed band: envelope, your samples, grip left unused",
+        x=0.01,
+        ha="left",
+        fontsize=12,
+    )
+    return _png(fig, "gg")
+
+
+# --------------------------------------------------------------------------- corner detail
+
+
+def _window(distance_m, start_m, end_m, length_m):
+    """Indices of a corner segment in driving order and its distance unwrapped past the gate."""
+    s = np.asarray(distance_m, dtype=np.float64)
+    if end_m >= start_m:
+        idx = np.flatnonzero((s >= start_m) & (s <= end_m))
+        return idx, s[idx]
+    first = np.flatnonzero(s >= start_m)
+    second = np.flatnonzero(s <= end_m)
+    idx = np.concatenate([first, second])
+    return idx, np.concatenate([s[first], s[second] + length_m])
+
+
+def detail_figure(corner, distance_m, length_m, real, ideal, caption="") -> bytes:
+    """Speed, brake and throttle over one corner, real against ideal.
+
+    Parameters
+    ----------
+    corner : dict
+        ``name``, ``start_m``, ``apex_m``, ``end_m``, and where known
+        ``brake_start_actual_m``, ``brake_start_ideal_m`` [m].
+    distance_m : array-like
+        Stations of the lap. [m]
+    length_m : float
+        Lap length, to unwrap a segment across the gate. [m]
+    real, ideal : dict
+        ``speed_m_s`` [m/s], ``brake`` and ``throttle`` as shares 0-1 [-] (NaN where
+        unknown), and ``brake_label`` / ``throttle_label`` saying what the share is of.
+    caption : str
+        The corner's plain-language line, printed as the title.
+
+    Returns
+    -------
+    bytes
+        PNG image, ``FIGURE_SIZE_PX["detail"]`` pixels.
+    """
+    fig = _figure("detail", layout="constrained")
+    axes = fig.subplots(3, 1, sharex=True, height_ratios=[2.2, 1, 1])
+    idx, s = _window(distance_m, corner["start_m"], corner["end_m"], length_m)
+    if idx.size < 2:
+        idx = np.arange(np.asarray(distance_m).size)
+        s = np.asarray(distance_m, dtype=np.float64)
+
+    def unwrap(x):
+        return x + length_m if x < s[0] - 1e-9 else x
+
+    axes[0].plot(s, _kmh(ideal["speed_m_s"][idx]), color=IDEAL, lw=1.8, label="ideal")
+    axes[0].plot(s, _kmh(real["speed_m_s"][idx]), color=REAL, lw=1.3, label="your lap")
+    axes[0].set_ylabel("speed [km/h]")
+    for key, colour, word in (
+        ("brake_start_ideal_m", IDEAL, "ideal brakes"),
+        ("brake_start_actual_m", REAL, "you brake"),
+    ):
+        b = corner.get(key)
+        if b is not None and np.isfinite(b):
+            for a in axes:
+                a.axvline(unwrap(b), color=colour, lw=1.0, ls="--")
+            axes[0].annotate(
+                word,
+                (unwrap(b), 0.02),
+                xycoords=("data", "axes fraction"),
+                rotation=90,
+                fontsize=8,
+                color=colour,
+                ha="right",
+                va="bottom",
+            )
+    axes[0].axvline(unwrap(corner["apex_m"]), color="#777777", lw=0.8, ls=":")
+    axes[0].annotate(
+        "apex",
+        (unwrap(corner["apex_m"]), 0.98),
+        xycoords=("data", "axes fraction"),
+        fontsize=8,
+        color="#555555",
+        ha="left",
+        va="top",
+    )
+    axes[0].legend(loc="lower left", ncols=2)
+    for ax, key in ((axes[1], "brake"), (axes[2], "throttle")):
+        ax.plot(
+            s,
+            100 * np.asarray(ideal[key])[idx],
+            color=IDEAL,
+            lw=1.6,
+            label=ideal.get(f"{key}_label", "ideal"),
+        )
+        ax.plot(
+            s,
+            100 * np.asarray(real[key])[idx],
+            color=REAL,
+            lw=1.2,
+            label=real.get(f"{key}_label", "your lap"),
+        )
+        ax.set_ylim(-5, 110)
+        ax.set_ylabel(f"{key} [%]")
+        ax.legend(loc="upper right", fontsize=8, ncols=2)
+    axes[2].set_xlabel("distance from the start/finish gate [m]")
+    axes[0].set_xlim(s[0], s[-1])
+    title = caption or corner["name"]
+    axes[0].set_title(title if len(title) < 130 else title[:127] + "...", loc="left", fontsize=11)
+    return _png(fig, "detail")
+
+
+# --------------------------------------------------------------------------- best of own laps
+
+
+def best_figure(corners, lap_time_s, best_time_s, ideal_time_s, lap_label="this lap") -> bytes:
+    """Best of the driver's own laps beside the analysed lap and the limit.
+
+    Parameters
+    ----------
+    corners : list of dict
+        Per segment: ``name``, ``actual_s``, ``ideal_s`` and ``best_s`` (the best time
+        over the session's complete laps, NaN when unknown). [s]
+    lap_time_s, best_time_s, ideal_time_s : float
+        Analysed lap, the composite of own best segments, and the ideal lap. [s]
+    lap_label : str
+        Name of the analysed lap in the legend.
+
+    Returns
+    -------
+    bytes
+        PNG image, ``FIGURE_SIZE_PX["best"]`` pixels.
+    """
+    fig = _figure("best", layout="constrained")
+    left, right = fig.subplots(1, 2, width_ratios=[1, 2.6])
+    labels = [lap_label, "best of your laps", "ideal (limit)"]
+    values = [lap_time_s, best_time_s, ideal_time_s]
+    colours = [REAL, BEST, IDEAL]
+    finite = [v for v in values if v is not None and np.isfinite(v)]
+    y = np.arange(3)
+    left.barh(
+        y,
+        [v if v is not None and np.isfinite(v) else 0.0 for v in values],
+        color=colours,
+        height=0.6,
+    )
+    for yi, v in zip(y, values, strict=True):
+        text = f"{v:.2f} s" if v is not None and np.isfinite(v) else "n/a"
+        left.annotate(
+            text,
+            (0, yi),
+            xytext=(4, 0),
+            textcoords="offset points",
+            va="center",
+            color="white",
+            fontweight="bold",
+        )
+    left.set_yticks(y, labels)
+    left.invert_yaxis()
+    left.grid(axis="y", visible=False)
+    if finite:
+        left.set_xlim(0, max(finite) * 1.02)
+    left.set_xlabel("lap time [s]")
+    left.set_title("Lap times", loc="left")
+
+    names = [c["name"] for c in corners]
+    x = np.arange(len(corners))
+    this = np.array([c["actual_s"] - c["ideal_s"] for c in corners], dtype=np.float64)
+    best = np.array([c.get("best_s", np.nan) - c["ideal_s"] for c in corners], dtype=np.float64)
+    w = 0.38
+    right.bar(x - w / 2, this, w, color=REAL, label=f"{lap_label} above the limit")
+    right.bar(
+        x + w / 2, np.nan_to_num(best), w, color=BEST, label="your best segment above the limit"
+    )
+    right.axhline(0.0, color=IDEAL, lw=1.5, label="ideal (limit)")
+    right.set_xticks(x, names, fontsize=10 if len(names) <= 16 else 8)
+    right.set_ylabel("time above the ideal [s]")
+    right.grid(axis="x", visible=False)
+    right.legend(loc="upper right", fontsize=9)
+    right.set_title(
+        "Per corner: what you have already done against what the grip allows", loc="left"
+    )
+    return _png(fig, "best")
+
+
+# --------------------------------------------------------------------------- target sheet
+
+
+def target_sheet(condition, circuit_name: str, caution: str, fmt: str = "png") -> bytes:
+    """One printable A4 page of targets for one condition, to take to the car.
+
+    Parameters
+    ----------
+    condition : dict
+        ``label`` (e.g. "wet"), ``grip_scale`` [-], ``lap_time_s`` [s] and ``corners``:
+        records with ``name``, ``apex_m``, ``brake_start_m`` [m], ``entry_speed_kmh``,
+        ``min_speed_kmh``, ``exit_speed_kmh`` [km/h] and ``segment_time_s`` [s].
+    circuit_name : str
+        Printed in the heading.
+    caution : str
+        Safety caution printed at the foot of the page.
+    fmt : {"png", "pdf"}
+        Output format.
+
+    Returns
+    -------
+    bytes
+        The page; PNG is ``FIGURE_SIZE_PX["target_sheet"]`` pixels (A4 at 150 dpi).
+    """
+    import textwrap
+
+    fig = _figure("target_sheet")
+    from matplotlib.lines import Line2D
+    from matplotlib.patches import Rectangle
+
+    corners = list(condition["corners"])
+    fig.text(0.06, 0.965, f"{circuit_name}", fontsize=20, fontweight="bold", va="top")
+    label = condition.get("label") or f"grip {condition['grip_scale']:.2f}"
+    fig.text(
+        0.06,
+        0.93,
+        f"Targets: {label}  (grip scale {condition['grip_scale']:.2f})",
+        fontsize=15,
+        va="top",
+    )
+    fig.text(0.94, 0.965, "target lap", fontsize=12, ha="right", va="top", color="#555555")
+    fig.text(
+        0.94,
+        0.945,
+        _laptime(condition["lap_time_s"]),
+        fontsize=30,
+        fontweight="bold",
+        ha="right",
+        va="top",
+        color=IDEAL,
+    )
+    header = [
+        "corner",
+        "brake at\n[m from gate]",
+        "brake\n[m before apex]",
+        "entry\n[km/h]",
+        "minimum\n[km/h]",
+        "exit\n[km/h]",
+        "segment\n[s]",
+    ]
+    rows = []
+    for c in corners:
+        brake = c.get("brake_start_m")
+        has_brake = brake is not None and np.isfinite(brake)
+        before = (c["apex_m"] - brake) if has_brake else None
+        rows.append(
+            [
+                str(c["name"]),
+                f"{brake:.0f}" if has_brake else "no braking",
+                f"{before:.0f}" if before is not None else "-",
+                f"{c['entry_speed_kmh']:.0f}",
+                f"{c['min_speed_kmh']:.0f}",
+                f"{c['exit_speed_kmh']:.0f}",
+                f"{c['segment_time_s']:.2f}",
+            ]
+        )
+    n = max(len(rows), 1)
+    top, bottom = 0.89, 0.17
+    row_h = min(0.045, (top - bottom) / (n + 1.6))
+    font = max(8.0, min(17.0, row_h * 11.69 * 72 * 0.42))
+    cols_x = [0.06, 0.24, 0.40, 0.56, 0.68, 0.81, 0.94]
+    aligns = ["left"] + ["right"] * 6
+    y = top
+    for x, h, al in zip(cols_x, header, aligns, strict=True):
+        fig.text(x, y, h, fontsize=font * 0.62, ha=al, va="top", color="#444444", linespacing=1.1)
+    y -= row_h * 1.6
+    fig.add_artist(Line2D([0.05, 0.95], [y + row_h * 0.25, y + row_h * 0.25], color=INK, lw=1.2))
+    for i, row in enumerate(rows):
+        if i % 2 == 0:
+            fig.add_artist(
+                Rectangle((0.05, y - row_h * 0.8), 0.90, row_h, color="#eef3f8", lw=0, zorder=0)
+            )
+        for j, (x, cell, al) in enumerate(zip(cols_x, row, aligns, strict=True)):
+            weight = "bold" if j in (0, 4) else "normal"
+            size = font * (0.7 if cell == "no braking" else 1.0)
+            fig.text(
+                x,
+                y - row_h * 0.3,
+                cell,
+                fontsize=size,
+                ha=al,
+                va="center",
+                fontweight=weight,
+                color=INK,
+            )
+        y -= row_h
+    note = (
+        "Brake points are where the ideal starts braking, from the start/finish gate and "
+        "before the apex; speeds are the ideal's at the segment's entry, minimum and exit."
+    )
+    fig.text(0.06, 0.145, textwrap.fill(note, 100), fontsize=9, va="top", color="#444444")
+    fig.add_artist(
+        Rectangle((0.05, 0.025), 0.90, 0.09, facecolor="#fff4e0", edgecolor=ACCENT, lw=1.5)
+    )
+    fig.text(0.07, 0.105, "Caution", fontsize=12, fontweight="bold", va="top", color="#7a4a00")
+    fig.text(
+        0.07, 0.085, textwrap.fill(caution, 95), fontsize=10, va="top", color=INK, linespacing=1.3
+    )
+    buf = io.BytesIO()
+    meta = (
+        {"Software": None}
+        if fmt == "png"
+        else {"Creator": None, "Producer": None, "CreationDate": None}
+    )
+    try:
+        fig.savefig(buf, format=fmt, dpi=SHEET_DPI, metadata=meta)
+    finally:
+        _pyplot().close(fig)
+    return buf.getvalue()
+
+
+def _laptime(t_s: float) -> str:
+    """Lap time as m:ss.ss (or s.ss under a minute)."""
+    if t_s is None or not np.isfinite(t_s):
+        return "n/a"
+    minutes, seconds = divmod(float(t_s), 60.0)
+    return f"{int(minutes)}:{seconds:05.2f}" if minutes >= 1 else f"{seconds:.2f} s"

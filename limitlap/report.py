@@ -1,0 +1,1173 @@
+"""Everything limitlap writes: summary.json, profiles, envelope.toml, figures, report.html,
+target sheets. The only module that writes files.
+
+Every file is written whole to a temporary name in its own folder, flushed to disk and
+moved into place with :func:`os.replace` (atomic on POSIX and Windows), so a run that
+fails half way leaves the earlier results intact. The same inputs give byte-identical
+``summary.json``, CSV and TOML: keys in a fixed order, floats rounded to fixed decimals,
+no timestamps.
+
+SI values come in; km/h and g appear only in what is written, with the factors of
+:mod:`limitlap.units`. matplotlib is only imported when a figure is drawn
+(:mod:`limitlap.figures`).
+"""
+
+from __future__ import annotations
+
+import base64
+import contextlib
+import dataclasses
+import html
+import json
+import math
+import os
+import re
+import tempfile
+from collections.abc import Callable, Mapping
+from pathlib import Path
+
+import numpy as np
+
+from limitlap.errors import InputError, LimitlapError
+from limitlap.units import KMH_TO_M_S, KW_TO_W
+
+#: Schema string of summary.json (INTERFACE §5).
+SUMMARY_SCHEMA = "limitlap.summary/1"
+
+#: The safety caution every report and target sheet carries.
+SAFETY_CAUTION = (
+    "These targets are theoretical estimates from a point-mass model of your own laps, "
+    "not instructions. Approach them progressively, a step at a time. Wet grip changes "
+    "from corner to corner and from lap to lap. The circuit's regulations, its officials "
+    "and qualified instructors come first."
+)
+
+#: Progress callback: ``progress(done, total, step)`` after each step of a write.
+Progress = Callable[[int, int, str], None]
+
+# --------------------------------------------------------------------------- atomic files
+
+
+def write_atomic(path, data: bytes | str) -> Path:
+    """Write ``data`` to ``path`` atomically: temp file in the same folder, fsync, replace.
+
+    Parameters
+    ----------
+    path : str or Path
+        Destination file; its folder must exist.
+    data : bytes or str
+        Content; text is written as UTF-8 with ``\\n`` line ends.
+
+    Returns
+    -------
+    Path
+        The destination.
+
+    Raises
+    ------
+    InputError
+        Naming the folder when it is missing or cannot be written; any file already at
+        ``path`` is left as it was.
+    """
+    path = Path(path)
+    folder = path.parent
+    payload = data.encode("utf-8") if isinstance(data, str) else bytes(data)
+    if not folder.is_dir():
+        problem = "is not a folder" if folder.exists() else "output folder does not exist"
+        raise InputError(folder, problem)
+    try:
+        fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".tmp", dir=folder)
+    except OSError as err:
+        raise InputError(folder, f"output folder cannot be written: {err.strerror or err}") from err
+    try:
+        with os.fdopen(fd, "wb") as fh:
+            fh.write(payload)
+            fh.flush()
+            os.fsync(fh.fileno())
+        umask = os.umask(0)
+        os.umask(umask)
+        os.chmod(tmp, 0o666 & ~umask)  # mkstemp makes 0600; give the usual file mode
+        os.replace(tmp, path)
+    except OSError as err:
+        with contextlib.suppress(OSError):
+            os.unlink(tmp)
+        raise InputError(folder, f"cannot write {path.name}: {err.strerror or err}") from err
+    except BaseException:
+        with contextlib.suppress(OSError):
+            os.unlink(tmp)
+        raise
+    with contextlib.suppress(OSError, AttributeError):  # make the rename durable (POSIX)
+        dir_fd = os.open(folder, os.O_RDONLY)
+        try:
+            os.fsync(dir_fd)
+        finally:
+            os.close(dir_fd)
+    return path
+
+
+def _prepare_folder(out_dir) -> Path:
+    """Create the output folder (one level) or raise an InputError naming it."""
+    out = Path(out_dir)
+    try:
+        out.mkdir(exist_ok=True)
+    except FileNotFoundError:
+        raise InputError(
+            out, "output folder cannot be made: its parent folder does not exist"
+        ) from None
+    except FileExistsError:
+        raise InputError(out, "is a file, not an output folder") from None
+    except OSError as err:
+        raise InputError(out, f"output folder cannot be made: {err.strerror or err}") from err
+    if not out.is_dir():
+        raise InputError(out, "is not a folder")
+    return out
+
+
+# --------------------------------------------------------------------------- summary.json
+
+# Decimals per key suffix (longest first): 10 µs, 1 mm, 0.001 m/s, 0.01 km/h.
+_DECIMALS = (
+    ("_m_s2", 4),
+    ("_m_s", 4),
+    ("_kmh", 2),
+    ("_1_m", 7),
+    ("_s", 5),
+    ("_m", 3),
+)
+_DEFAULT_DECIMALS = 5
+
+
+def _decimals(key: str) -> int:
+    for suffix, n in _DECIMALS:
+        if key.endswith(suffix):
+            return n
+    return _DEFAULT_DECIMALS
+
+
+def _plain(value, key: str = ""):
+    """JSON-ready copy: numpy -> Python, floats rounded by key, NaN/inf -> None."""
+    if isinstance(value, Mapping):
+        return {str(k): _plain(v, str(k)) for k, v in value.items()}
+    if dataclasses.is_dataclass(value) and not isinstance(value, type):
+        return {f.name: _plain(getattr(value, f.name), f.name) for f in dataclasses.fields(value)}
+    if isinstance(value, np.ndarray):
+        return [_plain(v, key) for v in value.tolist()]
+    if isinstance(value, list | tuple):
+        return [_plain(v, key) for v in value]
+    if isinstance(value, bool | np.bool_):
+        return bool(value)
+    if isinstance(value, int | np.integer):
+        return int(value)
+    if isinstance(value, float | np.floating):
+        x = float(value)
+        if not math.isfinite(x):
+            return None
+        x = round(x, _decimals(key))
+        return 0.0 if x == 0.0 else x  # no "-0.0"
+    if value is None or isinstance(value, str):
+        return value
+    if isinstance(value, os.PathLike):
+        return os.fspath(value)
+    raise LimitlapError(f"summary value of '{key}' has an unsupported type {type(value).__name__}")
+
+
+def summary_json_text(summary: Mapping) -> str:
+    """summary.json text: keys in the given order, floats rounded by their unit suffix.
+
+    Parameters
+    ----------
+    summary : Mapping
+        INTERFACE §5 content, SI and km/h as the keys say.
+
+    Returns
+    -------
+    str
+        Indented JSON ending in a newline; identical for identical input.
+
+    Examples
+    --------
+    >>> print(summary_json_text({"lap_time_s": 92.4123456, "apex_m": -0.0001}), end="")
+    {
+      "lap_time_s": 92.41235,
+      "apex_m": 0.0
+    }
+    """
+    return json.dumps(_plain(summary), indent=2, ensure_ascii=False, allow_nan=False) + "\n"
+
+
+def write_summary_json(path, summary: Mapping) -> Path:
+    """Write ``summary`` as summary.json (see :func:`summary_json_text`) atomically."""
+    return write_atomic(path, summary_json_text(summary))
+
+
+# --------------------------------------------------------------------------- envelope.toml
+
+
+def _toml_float(x: float) -> str:
+    """Shortest text that reads back as the same float (``repr`` round-trips exactly)."""
+    x = float(x)
+    if math.isnan(x):
+        return "nan"
+    if math.isinf(x):
+        return "inf" if x > 0 else "-inf"
+    return repr(x)
+
+
+def _flat_items(obj, prefix=""):
+    """(name, value) pairs of a mapping, dataclass or namespace, nested names joined by '.'."""
+    if obj is None:
+        return []
+    if dataclasses.is_dataclass(obj) and not isinstance(obj, type):
+        obj = {f.name: getattr(obj, f.name) for f in dataclasses.fields(obj)}
+    elif not isinstance(obj, Mapping) and hasattr(obj, "__dict__"):
+        obj = dict(vars(obj))
+    if not isinstance(obj, Mapping):
+        return [(prefix or "value", obj)]
+    out = []
+    for k, v in obj.items():
+        name = f"{prefix}.{k}" if prefix else str(k)
+        if isinstance(v, Mapping) or (dataclasses.is_dataclass(v) and not isinstance(v, type)):
+            out.extend(_flat_items(v, name))
+        else:
+            out.append((name, v))
+    return out
+
+
+def _comment_value(v) -> str:
+    if isinstance(v, float | np.floating):
+        return f"{float(v):.4g}"
+    if isinstance(v, np.ndarray):
+        return (
+            "["
+            + ", ".join(_comment_value(x) for x in v.ravel()[:8])
+            + (", ..." if v.size > 8 else "")
+            + "]"
+        )
+    if isinstance(v, list | tuple):
+        return (
+            "["
+            + ", ".join(_comment_value(x) for x in list(v)[:8])
+            + (", ..." if len(v) > 8 else "")
+            + "]"
+        )
+    return " ".join(str(v).split())
+
+
+def envelope_toml_text(vehicle, fit_info=None) -> str:
+    """The vehicle in the INTERFACE §3 TOML form, fit quality as comments.
+
+    Parameters
+    ----------
+    vehicle : Vehicle
+        Complete vehicle (the fitted envelope at grip scale 1).
+    fit_info : Mapping or dataclass, optional
+        Fit quality and uncertainty figures, written as ``#`` comments (nested names
+        joined with '.').
+
+    Returns
+    -------
+    str
+        TOML text that :func:`limitlap.ingest.read_vehicle` reads back to the same
+        numbers (floats are written with ``repr``, which round-trips exactly).
+
+    Examples
+    --------
+    >>> from limitlap.vehicle import Vehicle
+    >>> car = Vehicle("demo", 1000.0, 150e3, 0.7, 0.0, 0.013, mu_lat=1.1, mu_brk=1.2,
+    ...               mu_trac=1.0, exponent=2.0)
+    >>> print(envelope_toml_text(car).splitlines()[2])
+    name = "demo"
+    """
+    vehicle.require_complete()
+    if not math.isfinite(vehicle.power_w):
+        raise LimitlapError(
+            f"vehicle '{vehicle.name}' has no finite power; envelope.toml needs power_kw"
+        )
+    lines = [
+        "# Grip envelope in the limitlap vehicle form; reuse it with --vehicle.",
+        "# Units as the keys say; friction coefficients are dimensionless.",
+        f"name = {json.dumps(vehicle.name, ensure_ascii=False)}",
+        f"mass_kg = {_toml_float(vehicle.mass_kg)}",
+        f"power_kw = {_toml_float(vehicle.power_w / KW_TO_W)}",
+        f"drag_area_m2 = {_toml_float(vehicle.drag_area_m2)}",
+        f"downforce_area_m2 = {_toml_float(vehicle.downforce_area_m2)}",
+        f"rolling_coeff = {_toml_float(vehicle.rolling_coeff)}",
+        f"air_density_kg_m3 = {_toml_float(vehicle.air_density_kg_m3)}",
+        "",
+        "[grip]",
+        f"lateral = {_toml_float(vehicle.mu_lat)}",
+        f"braking = {_toml_float(vehicle.mu_brk)}",
+        f"traction = {_toml_float(vehicle.mu_trac)}",
+        f"exponent = {_toml_float(vehicle.exponent)}",
+    ]
+    items = _flat_items(fit_info)
+    if items:
+        lines += ["", "# Fit of this envelope to the session's samples:"]
+        lines += [f"#   {name} = {_comment_value(v)}" for name, v in items]
+    return "\n".join(lines) + "\n"
+
+
+# --------------------------------------------------------------------------- CSV
+
+
+def _csv_cell(text: str) -> str:
+    return f'"{text.replace(chr(34), chr(34) * 2)}"' if any(c in text for c in ',"\n') else text
+
+
+def profile_csv_text(columns: Mapping, units: Mapping) -> str:
+    """CSV of equal-length numeric columns, headers ``name [unit]`` (INTERFACE §1 style).
+
+    Parameters
+    ----------
+    columns : Mapping
+        Column name -> 1-D array, in output order; already in the units given.
+    units : Mapping
+        Column name -> unit text (``""`` or missing for none).
+
+    Returns
+    -------
+    str
+        Header row and one row per sample, 8 significant digits, blank cells for NaN.
+
+    Examples
+    --------
+    >>> print(profile_csv_text({"distance": [0.0, 1.5], "speed": [100.0, float("nan")]},
+    ...                        {"distance": "m", "speed": "km/h"}), end="")
+    distance [m],speed [km/h]
+    0,100
+    1.5,
+    """
+    names = list(columns)
+    if not names:
+        raise LimitlapError("a profile CSV needs at least one column")
+    arrays = [np.asarray(columns[n], dtype=np.float64).ravel() for n in names]
+    n_rows = arrays[0].shape[0]
+    for name, a in zip(names, arrays, strict=True):
+        if a.shape[0] != n_rows:
+            raise LimitlapError(f"profile column '{name}' has {a.shape[0]} rows, expected {n_rows}")
+    header = ",".join(_csv_cell(f"{n} [{units[n]}]" if units.get(n) else str(n)) for n in names)
+    table = np.column_stack(arrays) if n_rows else np.empty((0, len(names)))
+    cells = np.char.mod("%.8g", table)
+    cells = np.where(np.isfinite(table), cells, "")
+    cells = np.where(cells == "-0", "0", cells)
+    body = [",".join(row) for row in cells.tolist()]
+    return "\n".join([header, *body]) + "\n"
+
+
+# --------------------------------------------------------------------------- reading the analysis
+
+
+def _get(obj, *names, default=None):
+    """First present, non-None attribute or key among ``names``."""
+    for name in names:
+        if obj is None:
+            return default
+        value = obj.get(name) if isinstance(obj, Mapping) else getattr(obj, name, None)
+        if value is not None:
+            return value
+    return default
+
+
+def _as_record(obj) -> dict:
+    if isinstance(obj, Mapping):
+        return dict(obj)
+    if dataclasses.is_dataclass(obj) and not isinstance(obj, type):
+        return {f.name: getattr(obj, f.name) for f in dataclasses.fields(obj)}
+    return dict(vars(obj))
+
+
+def _f(value) -> float:
+    return float("nan") if value is None else float(value)
+
+
+def _kmh_field(rec, base):
+    """``base_kmh`` from a record holding either it or ``base_m_s``. [km/h]"""
+    value = _get(rec, f"{base}_kmh")
+    if value is not None:
+        return float(value)
+    value = _get(rec, f"{base}_m_s")
+    return float(value) / KMH_TO_M_S if value is not None else float("nan")
+
+
+_TEXT_KEYS = (
+    "plain",
+    "advice",
+    "sentence",
+    "plain_text",
+    "text",
+    "message",
+    "description",
+    "summary",
+)
+
+
+def _plain_line(rec) -> str:
+    """The corner's plain-language line; composed from its numbers when none is given."""
+    text = _get(rec, *_TEXT_KEYS)
+    if isinstance(text, str) and text.strip():
+        return text.strip()
+    parts = []
+    b_act, b_ide = _f(rec["brake_start_actual_m"]), _f(rec["brake_start_ideal_m"])
+    if math.isfinite(b_act) and math.isfinite(b_ide) and abs(b_ide - b_act) >= 1.0:
+        later = "later" if b_ide > b_act else "earlier"
+        parts.append(f"the ideal brakes {abs(b_ide - b_act):.0f} m {later}")
+    dv = rec["min_speed_ideal_kmh"] - rec["min_speed_actual_kmh"]
+    if math.isfinite(dv) and abs(dv) >= 0.5:
+        parts.append(f"carries {abs(dv):.0f} km/h {'more' if dv > 0 else 'less'} at the minimum")
+    tail = (
+        ", ".join(parts[:-1]) + (" and " if len(parts) > 1 else "") + parts[-1]
+        if parts
+        else "the same line at the limit"
+    )
+    return f"{rec['name']}: {rec['time_left_s']:.2f} s — {tail}"
+
+
+def corner_rows(comparison) -> list[dict]:
+    """Per-corner records of a comparison as plain dicts with the INTERFACE §5 fields.
+
+    Accepts records (dataclass, mapping or namespace) with the §5 names; speeds may come
+    as ``..._kmh`` or ``..._m_s``. Extra fields are kept; ``plain`` holds the
+    plain-language line.
+
+    Parameters
+    ----------
+    comparison : object
+        A lap comparison with a ``corners`` list (or the list itself).
+
+    Returns
+    -------
+    list of dict
+        In driving order.
+    """
+    records = (
+        comparison
+        if isinstance(comparison, list | tuple)
+        else _get(comparison, "corners", default=[])
+    )
+    rows = []
+    for obj in records:
+        rec = _as_record(obj)
+        row = {
+            "name": str(rec["name"]),
+            "start_m": _f(rec.get("start_m")),
+            "apex_m": _f(rec.get("apex_m")),
+            "end_m": _f(rec.get("end_m")),
+            "actual_s": _f(rec.get("actual_s")),
+            "ideal_s": _f(rec.get("ideal_s")),
+            "time_left_s": _f(rec.get("time_left_s")),
+            "min_speed_actual_kmh": _kmh_field(rec, "min_speed_actual"),
+            "min_speed_ideal_kmh": _kmh_field(rec, "min_speed_ideal"),
+            "brake_start_actual_m": _f(rec.get("brake_start_actual_m")),
+            "brake_start_ideal_m": _f(rec.get("brake_start_ideal_m")),
+            "grip_used": _f(rec.get("grip_used")),
+        }
+        row["plain"] = _plain_line({**rec, **row})
+        for k, v in rec.items():
+            if (
+                k not in row
+                and isinstance(v, int | float | str | np.floating | np.integer)
+                and not isinstance(v, bool)
+            ):
+                row[k] = v
+        rows.append(row)
+    return rows
+
+
+@dataclasses.dataclass(frozen=True, eq=False)
+class _View:
+    """What the report needs from a pipeline Analysis, in SI arrays and plain records."""
+
+    source: str
+    lap_number: int
+    lap_time_s: float
+    lap_distance_m: float
+    ideal_time_s: float
+    grip_scale: float
+    grip_estimate: float
+    time_left_s: float
+    distance_m: np.ndarray
+    length_m: float
+    x_m: np.ndarray | None
+    y_m: np.ndarray | None
+    curvature_1_m: np.ndarray
+    time_real_s: np.ndarray
+    time_ideal_s: np.ndarray
+    time_delta_s: np.ndarray
+    speed_real_m_s: np.ndarray
+    speed_ideal_m_s: np.ndarray
+    ax_real_m_s2: np.ndarray
+    ay_real_m_s2: np.ndarray
+    ax_ideal_m_s2: np.ndarray
+    ay_ideal_m_s2: np.ndarray
+    throttle: np.ndarray
+    brake_pa: np.ndarray
+    corners: list
+    vehicle: object
+    fit: object
+    best_time_s: float
+    warnings: list
+    n_laps: int
+
+
+def _array(obj, name, n):
+    value = _get(obj, name)
+    if value is None:
+        return np.full(n, np.nan)
+    a = np.asarray(value, dtype=np.float64)
+    return a if a.shape == (n,) else np.full(n, np.nan)
+
+
+def _best_of_laps(best, corners):
+    """Total of the own-best composite; adds ``best_s`` (and ``best_lap``) to corners."""
+    if best is None:
+        return float("nan")
+    segments = _get(best, "corners", "segments", default=[])
+    by_name = {}
+    for seg in segments:
+        rec = _as_record(seg)
+        by_name[str(rec.get("name"))] = rec
+    for c in corners:
+        rec = by_name.get(c["name"])
+        if rec is not None:
+            c["best_s"] = _f(_get(rec, "best_s", "time_s", "best_time_s"))
+            lap = _get(rec, "lap", "best_lap", "lap_number")
+            if lap is not None:
+                c["best_lap"] = int(lap)
+    total = _get(best, "time_s", "lap_time_s", "total_s", "best_time_s")
+    if total is None and corners and all("best_s" in c for c in corners):
+        total = float(sum(c["best_s"] for c in corners))
+    return _f(total)
+
+
+def _view(analysis) -> _View:
+    """Collect what the report needs from a pipeline Analysis (see module docstring)."""
+    driven = analysis.driven
+    ideal = analysis.ideal
+    line = driven.line
+    s = np.asarray(line.distance_m, dtype=np.float64)
+    n = s.shape[0]
+    t_real = _array(driven, "time_s", n)
+    t_real = t_real - t_real[0]
+    t_ideal = np.asarray(ideal.time_s, dtype=np.float64)
+    t_ideal = t_ideal - t_ideal[0]
+    comparison = analysis.comparison
+    delta = _get(comparison, "time_delta_s")
+    delta = np.asarray(delta, dtype=np.float64) if delta is not None else t_real - t_ideal
+    corners = corner_rows(comparison)
+    lap = analysis.lap
+    lap_time = _f(_get(lap, "time_s"))
+    ideal_time = float(ideal.lap_time_s)
+    time_left = _get(comparison, "time_left_s")
+    if time_left is None:
+        time_left = sum(c["time_left_s"] for c in corners) if corners else lap_time - ideal_time
+    warnings = [str(w) for w in (_get(analysis, "warnings", default=[]) or [])]
+    for extra in (_get(driven, "warnings", default=[]), _get(analysis.fit, "warnings", default=[])):
+        warnings += [str(w) for w in (extra or []) if str(w) not in warnings]
+    laps = _get(analysis, "laps", default=[]) or []
+    return _View(
+        source=str(_get(analysis, "log_path", default="")),
+        lap_number=int(_get(lap, "number", default=0)),
+        lap_time_s=lap_time,
+        lap_distance_m=_f(_get(lap, "distance_m", default=line.length_m)),
+        ideal_time_s=ideal_time,
+        grip_scale=float(_get(analysis, "grip_scale", default=ideal.grip_scale)),
+        grip_estimate=_f(_get(analysis, "grip_estimate")),
+        time_left_s=float(time_left),
+        distance_m=s,
+        length_m=float(line.length_m),
+        x_m=None if line.x_m is None else np.asarray(line.x_m, dtype=np.float64),
+        y_m=None if line.y_m is None else np.asarray(line.y_m, dtype=np.float64),
+        curvature_1_m=np.asarray(line.curvature_1_m, dtype=np.float64),
+        time_real_s=t_real,
+        time_ideal_s=t_ideal,
+        time_delta_s=delta,
+        speed_real_m_s=_array(driven, "speed_m_s", n),
+        speed_ideal_m_s=np.asarray(ideal.speed_m_s, dtype=np.float64),
+        ax_real_m_s2=_array(driven, "accel_lon_m_s2", n),
+        ay_real_m_s2=_array(driven, "accel_lat_m_s2", n),
+        ax_ideal_m_s2=np.asarray(ideal.accel_lon_m_s2, dtype=np.float64),
+        ay_ideal_m_s2=np.asarray(ideal.accel_lat_m_s2, dtype=np.float64),
+        throttle=_array(driven, "throttle", n),
+        brake_pa=_array(driven, "brake_pa", n),
+        corners=corners,
+        vehicle=analysis.vehicle,
+        fit=_get(analysis, "fit"),
+        best_time_s=_best_of_laps(_get(analysis, "best_of_laps"), corners),
+        warnings=warnings,
+        n_laps=sum(1 for lp in laps if _get(lp, "complete", default=False)),
+    )
+
+
+# --------------------------------------------------------------------------- summary, profiles
+
+
+def build_summary(analysis) -> dict:
+    """The INTERFACE §5 summary of an Analysis, plus corner extras and the warnings.
+
+    Parameters
+    ----------
+    analysis : pipeline.Analysis
+
+    Returns
+    -------
+    dict
+        Keys in §5 order; values SI or km/h as the keys say (not yet rounded).
+    """
+    v = _view(analysis)
+    corners = []
+    for c in v.corners:
+        rec = {
+            k: c[k]
+            for k in (
+                "name",
+                "start_m",
+                "apex_m",
+                "end_m",
+                "actual_s",
+                "ideal_s",
+                "time_left_s",
+                "min_speed_actual_kmh",
+                "min_speed_ideal_kmh",
+                "brake_start_actual_m",
+                "brake_start_ideal_m",
+                "grip_used",
+            )
+        }
+        rec["plain"] = c["plain"]
+        if "best_s" in c:
+            rec["best_s"] = c["best_s"]
+        corners.append(rec)
+    return {
+        "schema": SUMMARY_SCHEMA,
+        "lap": {"number": v.lap_number, "time_s": v.lap_time_s, "distance_m": v.lap_distance_m},
+        "ideal": {"time_s": v.ideal_time_s, "grip_scale": v.grip_scale},
+        "time_left_s": v.time_left_s,
+        "grip_estimate": v.grip_estimate,
+        "corners": corners,
+        "best_of_laps": {"time_s": v.best_time_s, "complete_laps": v.n_laps},
+        "warnings": list(v.warnings),
+    }
+
+
+def _profile_columns(v: _View):
+    columns = {
+        "distance": v.distance_m,
+        "time_actual": v.time_real_s,
+        "time_ideal": v.time_ideal_s,
+        "time_delta": v.time_delta_s,
+        "speed_actual": v.speed_real_m_s / KMH_TO_M_S,
+        "speed_ideal": v.speed_ideal_m_s / KMH_TO_M_S,
+        "accel_lon_actual": v.ax_real_m_s2,
+        "accel_lat_actual": v.ay_real_m_s2,
+        "accel_lon_ideal": v.ax_ideal_m_s2,
+        "accel_lat_ideal": v.ay_ideal_m_s2,
+        "curvature": v.curvature_1_m,
+    }
+    units = {
+        "distance": "m",
+        "time_actual": "s",
+        "time_ideal": "s",
+        "time_delta": "s",
+        "speed_actual": "km/h",
+        "speed_ideal": "km/h",
+        "accel_lon_actual": "m/s^2",
+        "accel_lat_actual": "m/s^2",
+        "accel_lon_ideal": "m/s^2",
+        "accel_lat_ideal": "m/s^2",
+        "curvature": "1/m",
+    }
+    if v.x_m is not None and v.y_m is not None:
+        columns["x"], columns["y"] = v.x_m, v.y_m
+        units["x"] = units["y"] = "m"
+    return columns, units
+
+
+# --------------------------------------------------------------------------- figures
+
+
+def _usage_traces(speed, ax, ay, vehicle, grip_scale):
+    """Brake and drive shares 0-1 of the tyre limits that an acceleration trace needs."""
+    from limitlap import limits
+
+    veh = vehicle.scaled(grip_scale) if grip_scale != 1.0 else vehicle
+    m = veh.mass_kg
+    fx = m * ax + limits.resistance_n(speed, veh)
+    normal = limits.normal_load_n(speed, veh)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        brake = np.where(fx < 0, -fx / (veh.mu_brk * normal), 0.0)
+        drive = np.where(fx > 0, fx / limits.drive_force_max_n(speed, veh), 0.0)
+    bad = ~np.isfinite(fx)
+    brake[bad] = np.nan
+    drive[bad] = np.nan
+    return np.clip(brake, 0.0, 1.0), np.clip(drive, 0.0, 1.0)
+
+
+def _detail_traces(v: _View):
+    ideal_brake, ideal_drive = _usage_traces(
+        v.speed_ideal_m_s, v.ax_ideal_m_s2, v.ay_ideal_m_s2, v.vehicle, v.grip_scale
+    )
+    ideal = {
+        "speed_m_s": v.speed_ideal_m_s,
+        "brake": ideal_brake,
+        "throttle": ideal_drive,
+        "brake_label": "ideal: share of braking grip",
+        "throttle_label": "ideal: share of drive limit",
+    }
+    real_brake, real_drive = _usage_traces(
+        v.speed_real_m_s, v.ax_real_m_s2, v.ay_real_m_s2, v.vehicle, v.grip_scale
+    )
+    real = {
+        "speed_m_s": v.speed_real_m_s,
+        "brake": real_brake,
+        "throttle": real_drive,
+        "brake_label": "you: from deceleration",
+        "throttle_label": "you: from acceleration",
+    }
+    if np.isfinite(v.throttle).any():
+        real["throttle"] = np.clip(v.throttle, 0.0, 1.0)
+        real["throttle_label"] = "you: pedal"
+    if np.isfinite(v.brake_pa).any() and np.nanmax(v.brake_pa) > 0:
+        real["brake"] = np.clip(v.brake_pa / np.nanmax(v.brake_pa), 0.0, 1.0)
+        real["brake_label"] = "you: pressure, share of lap peak"
+    return real, ideal
+
+
+def _fit_points(fit):
+    """Boundary points of an envelope fit as dicts for the g-g figure, when it has them."""
+    pts = _get(fit, "boundary_points", "boundary", "band_points")
+    if pts is None:
+        return None
+    out = []
+    for p in pts if isinstance(pts, list | tuple) else [pts]:
+        try:
+            rec = _as_record(p)
+            out.append(
+                {
+                    k: np.atleast_1d(np.asarray(rec[k], dtype=np.float64))
+                    for k in ("speed_m_s", "accel_lon_m_s2", "accel_lat_m_s2")
+                }
+            )
+        except (KeyError, TypeError, ValueError):
+            return None
+    return out or None
+
+
+def _figures(v: _View, step):
+    """(file name, caption, PNG bytes) of every report figure, drawn in order."""
+    from limitlap import figures as fg
+
+    corners = v.corners
+    out = []
+    step("speed figure")
+    out.append(
+        (
+            "speed.png",
+            "Speed along the lap: your lap against the ideal on your own line.",
+            fg.speed_figure(v.distance_m, v.speed_real_m_s, v.speed_ideal_m_s, corners),
+        )
+    )
+    step("time delta figure")
+    out.append(
+        (
+            "time_delta.png",
+            "Time delta along the lap: where the ideal pulls away.",
+            fg.delta_figure(v.distance_m, v.time_delta_s, corners),
+        )
+    )
+    step("time left figure")
+    out.append(
+        ("time_left.png", "Time left per corner, largest first.", fg.time_left_figure(corners))
+    )
+    if v.x_m is not None and v.y_m is not None:
+        step("map figure")
+        rate = fg.time_loss_rate(v.distance_m, v.time_delta_s)
+        out.append(
+            (
+                "map.png",
+                "The line coloured by the local rate of time loss.",
+                fg.map_figure(v.x_m, v.y_m, rate, corners, v.distance_m),
+            )
+        )
+    step("g-g figure")
+    out.append(
+        (
+            "gg.png",
+            "g-g diagram by speed band: the shaded ring is grip this lap did not use.",
+            fg.gg_figure(
+                v.speed_real_m_s,
+                v.ax_real_m_s2,
+                v.ay_real_m_s2,
+                v.vehicle,
+                v.grip_scale,
+                fit_points=_fit_points(v.fit),
+            ),
+        )
+    )
+    real, ideal = _detail_traces(v)
+    ranked = sorted(corners, key=lambda c: -c["time_left_s"])[:3]
+    for i, c in enumerate(ranked, start=1):
+        step(f"detail figure {c['name']}")
+        out.append(
+            (
+                f"corner_{i}.png",
+                c["plain"],
+                fg.detail_figure(c, v.distance_m, v.length_m, real, ideal, caption=c["plain"]),
+            )
+        )
+    if math.isfinite(v.best_time_s) and corners:
+        step("best-of-laps figure")
+        out.append(
+            (
+                "best_of_laps.png",
+                "Your best segments from the session beside the limit.",
+                fg.best_figure(
+                    corners,
+                    v.lap_time_s,
+                    v.best_time_s,
+                    v.ideal_time_s,
+                    lap_label=f"lap {v.lap_number}",
+                ),
+            )
+        )
+    return out
+
+
+# --------------------------------------------------------------------------- report.html
+
+_CSS = """
+:root { --ink:#222; --muted:#5a5a5a; --real:#D55E00; --ideal:#0072B2; --line:#d0d0d0; }
+* { box-sizing: border-box; }
+body { font-family: system-ui, -apple-system, "Segoe UI", Roboto, "DejaVu Sans", sans-serif;
+  color: var(--ink); margin: 0 auto; max-width: 1240px; padding: 24px; line-height: 1.45; }
+h1 { font-size: 1.6rem; margin: 0 0 4px; }
+h2 { font-size: 1.2rem; margin: 28px 0 8px; border-bottom: 2px solid var(--line); padding-bottom: 4px; }
+.sub { color: var(--muted); margin: 0 0 16px; }
+.cards { display: flex; flex-wrap: wrap; gap: 12px; }
+.card { border: 1px solid var(--line); border-radius: 6px; padding: 10px 16px; min-width: 170px; }
+.card .k { color: var(--muted); font-size: .85rem; }
+.card .v { font-size: 1.5rem; font-weight: 700; }
+.card.left .v { color: var(--real); }
+.card.ideal .v { color: var(--ideal); }
+table { border-collapse: collapse; width: 100%; font-size: .92rem; }
+th, td { border-bottom: 1px solid var(--line); padding: 5px 8px; text-align: right; vertical-align: top; }
+th { background: #f4f4f4; }
+td.t, th.t { text-align: left; }
+tr.top td { font-weight: 600; }
+figure { margin: 16px 0; page-break-inside: avoid; break-inside: avoid; }
+figure img { max-width: 100%; height: auto; border: 1px solid #eee; }
+figcaption { color: var(--muted); font-size: .9rem; }
+.warn { border-left: 5px solid #E69F00; background: #fff7e6; padding: 8px 12px; margin: 6px 0; }
+.ok { color: var(--muted); }
+.caution { border: 2px solid #E69F00; background: #fff4e0; padding: 12px 16px; border-radius: 6px; }
+@media print {
+  body { max-width: none; padding: 0; font-size: 10.5pt; }
+  h2 { page-break-after: avoid; break-after: avoid; }
+  tr { page-break-inside: avoid; }
+}
+"""
+
+
+def _fmt(x, spec, unit=""):
+    return "n/a" if x is None or not math.isfinite(x) else f"{x:{spec}}{unit}"
+
+
+def _laptime(t):
+    if t is None or not math.isfinite(t):
+        return "n/a"
+    m, s = divmod(t, 60.0)
+    return f"{int(m)}:{s:06.3f}" if m >= 1 else f"{s:.3f} s"
+
+
+def report_html(v: _View, figure_list) -> str:
+    """report.html text: self-contained, figures inline as data URIs, no scripts."""
+    e = html.escape
+    out = [
+        "<!DOCTYPE html>",
+        '<html lang="en">',
+        "<head>",
+        '<meta charset="utf-8">',
+        '<meta name="viewport" content="width=device-width, initial-scale=1">',
+        f"<title>limitlap report: lap {v.lap_number}</title>",
+        f"<style>{_CSS}</style>",
+        "</head>",
+        "<body>",
+        f"<h1>Lap {v.lap_number}: {e(_laptime(v.lap_time_s))}, ideal {e(_laptime(v.ideal_time_s))}</h1>",
+        f'<p class="sub">{e(Path(v.source).name or "session")} &middot; '
+        f"{v.lap_distance_m:.0f} m lap &middot; {v.n_laps} complete laps in the session</p>",
+        '<div class="cards">',
+    ]
+    cards = [
+        ("", "lap time", _laptime(v.lap_time_s)),
+        ("ideal", f"ideal at grip {v.grip_scale:.2f}", _laptime(v.ideal_time_s)),
+        ("left", "time left", _fmt(v.time_left_s, ".2f", " s")),
+        ("", "grip estimate", _fmt(v.grip_estimate, ".2f")),
+        ("", "best of your laps", _laptime(v.best_time_s)),
+    ]
+    for cls, k, val in cards:
+        out.append(
+            f'<div class="card {cls}"><div class="k">{e(k)}</div><div class="v">{e(val)}</div></div>'
+        )
+    out.append("</div>")
+    # Warnings near the top: a result the data cannot support must not be missed.
+    out.append("<h2>Warnings</h2>")
+    if v.warnings:
+        out += [f'<p class="warn">{e(w)}</p>' for w in v.warnings]
+    else:
+        out.append('<p class="ok">None: the data passed every check this report makes.</p>')
+    out.append("<h2>Where the time is, corner by corner</h2>")
+    out.append("<table><thead><tr>")
+    heads = [
+        "rank",
+        "corner",
+        "time left [s]",
+        "yours [s]",
+        "ideal [s]",
+        "min speed yours / ideal [km/h]",
+        "brake yours / ideal [m]",
+        "grip used",
+        "what to try",
+    ]
+    out += [
+        f'<th class="{"t" if h in ("corner", "what to try") else ""}">{e(h)}</th>' for h in heads
+    ]
+    out.append("</tr></thead><tbody>")
+    ranked = sorted(v.corners, key=lambda c: -c["time_left_s"])
+    for i, c in enumerate(ranked, start=1):
+        cls = ' class="top"' if i <= 3 else ""
+        cells = [
+            str(i),
+            c["name"],
+            _fmt(c["time_left_s"], ".2f"),
+            _fmt(c["actual_s"], ".2f"),
+            _fmt(c["ideal_s"], ".2f"),
+            f"{_fmt(c['min_speed_actual_kmh'], '.0f')} / {_fmt(c['min_speed_ideal_kmh'], '.0f')}",
+            f"{_fmt(c['brake_start_actual_m'], '.0f')} / {_fmt(c['brake_start_ideal_m'], '.0f')}",
+            _fmt(100 * c["grip_used"], ".0f", " %"),
+            c["plain"],
+        ]
+        tds = [f'<td class="{"t" if j in (1, 8) else ""}">{e(x)}</td>' for j, x in enumerate(cells)]
+        out.append(f"<tr{cls}>{''.join(tds)}</tr>")
+    out.append("</tbody></table>")
+    out.append("<h2>Figures</h2>")
+    for name, caption, png in figure_list:
+        data = base64.b64encode(png).decode("ascii")
+        out.append(
+            f'<figure><img src="data:image/png;base64,{data}" alt="{e(caption)}" data-file="{e(name)}">'
+            f"<figcaption>{e(caption)}</figcaption></figure>"
+        )
+    out.append("<h2>How this was worked out</h2>")
+    out.append(
+        "<p>The ideal lap is a quasi-steady-state point-mass lap on the line you drove: at "
+        "every metre the car may use as much grip as its envelope allows, braking and "
+        "accelerating as hard as the grip left after cornering permits (forward and "
+        "backward passes of the classic quasi-steady-state method; Lenzo &amp; Rossi 2020). "
+        "The envelope is fitted to your own best samples of the session (a g-g-V envelope: "
+        "lateral, braking and driving friction, a combined-slip exponent, power, drag and "
+        "downforce), so the time left is time that grip you have already shown allows. "
+        "Corners are cut from the line's curvature with boundaries in the middle of the "
+        "straights, so their time left adds up to the lap's.</p>"
+    )
+    out.append(
+        "<p>Assumptions: the car is a point mass (no load transfer, yaw or tyre "
+        "temperature); quasi-steady state (each point in steady cornering, only speed "
+        "changes); your own line (the ideal keeps your line and changes only the speed "
+        f"along it); grip scale {v.grip_scale:.2f} on the friction coefficients.</p>"
+    )
+    out.append("<h2>Caution</h2>")
+    out.append(f'<p class="caution">{e(SAFETY_CAUTION)}</p>')
+    out += ["</body>", "</html>"]
+    return "\n".join(out) + "\n"
+
+
+# --------------------------------------------------------------------------- write_outputs
+
+
+def _stepper(progress, total):
+    state = {"done": 0}
+
+    def step(name):
+        state["done"] += 1
+        if progress is not None:
+            progress(min(state["done"], total), total, name)
+
+    return step
+
+
+def write_outputs(
+    analysis, out_dir, *, figures: bool = True, progress: Progress | None = None
+) -> dict:
+    """Write everything ``analyse`` leaves in its output folder.
+
+    Parameters
+    ----------
+    analysis : pipeline.Analysis
+        The finished analysis.
+    out_dir : str or Path
+        Output folder; made when missing (its parent must exist).
+    figures : bool
+        Draw the PNG figures and put them in report.html.
+    progress : callable, optional
+        ``progress(done, total, step)`` after each step; None = silent.
+
+    Returns
+    -------
+    dict
+        File kind -> path written: ``summary``, ``profile``, ``envelope``, ``report`` and
+        one entry per PNG (its file name).
+    """
+    out = _prepare_folder(out_dir)
+    v = _view(analysis)
+    n_fig = (
+        (
+            3
+            + (v.x_m is not None)
+            + 1
+            + min(3, len(v.corners))
+            + (math.isfinite(v.best_time_s) and bool(v.corners))
+        )
+        if figures
+        else 0
+    )
+    total = 4 + n_fig + 1
+    step = _stepper(progress, total)
+    written = {}
+    written["summary"] = write_summary_json(out / "summary.json", build_summary(analysis))
+    step("summary.json")
+    columns, units = _profile_columns(v)
+    written["profile"] = write_atomic(out / "profile.csv", profile_csv_text(columns, units))
+    step("profile.csv")
+    fit_info = None
+    if v.fit is not None:
+        fit_info = {"quality": _get(v.fit, "quality"), "uncertainty": _get(v.fit, "uncertainty")}
+        fit_info = {k: val for k, val in fit_info.items() if val is not None} or None
+    written["envelope"] = write_atomic(
+        out / "envelope.toml", envelope_toml_text(v.vehicle, fit_info)
+    )
+    step("envelope.toml")
+    figure_list = _figures(v, step) if figures else []
+    for name, _caption, png in figure_list:
+        written[name] = write_atomic(out / name, png)
+    step("figures written")
+    written["report"] = write_atomic(out / "report.html", report_html(v, figure_list))
+    step("report.html")
+    return written
+
+
+# --------------------------------------------------------------------------- target sheets
+
+
+def _condition(rec) -> dict:
+    c = _as_record(rec)
+    k = float(c["grip_scale"])
+    label = _get(c, "condition", "label", "name")
+    corners = []
+    for corner in c.get("corners", []):
+        r = _as_record(corner)
+        corners.append(
+            {
+                "name": str(r["name"]),
+                "apex_m": _f(r.get("apex_m")),
+                "brake_start_m": _f(r.get("brake_start_m")),
+                "entry_speed_kmh": _kmh_field(r, "entry_speed"),
+                "min_speed_kmh": _kmh_field(r, "min_speed"),
+                "exit_speed_kmh": _kmh_field(r, "exit_speed"),
+                "segment_time_s": _f(r.get("segment_time_s")),
+            }
+        )
+    return {
+        "label": str(label) if label else f"grip {k:.2f}",
+        "grip_scale": k,
+        "lap_time_s": float(c["lap_time_s"]),
+        "corners": corners,
+    }
+
+
+def _slug(text: str) -> str:
+    return re.sub(r"[^a-z0-9]+", "_", text.lower()).strip("_") or "condition"
+
+
+def targets_csv_text(conditions) -> str:
+    """CSV of the target tables: one row per condition and corner.
+
+    Parameters
+    ----------
+    conditions : list
+        Records of :func:`limitlap.targets.target_table` (INTERFACE §4 fields).
+
+    Returns
+    -------
+    str
+    """
+    conds = [_condition(c) for c in conditions]
+    header = (
+        "condition,grip_scale [-],lap_time [s],corner,apex [m],brake_start [m],"
+        "brake_before_apex [m],entry_speed [km/h],min_speed [km/h],exit_speed [km/h],"
+        "segment_time [s]"
+    )
+    rows = [header]
+
+    def num(x, nd):
+        return "" if not math.isfinite(x) else f"{round(x, nd) + 0.0:.{nd}f}"
+
+    for c in conds:
+        for r in c["corners"]:
+            rows.append(
+                ",".join(
+                    [
+                        _csv_cell(c["label"]),
+                        num(c["grip_scale"], 3),
+                        num(c["lap_time_s"], 3),
+                        _csv_cell(r["name"]),
+                        num(r["apex_m"], 1),
+                        num(r["brake_start_m"], 1),
+                        num(r["apex_m"] - r["brake_start_m"], 1),
+                        num(r["entry_speed_kmh"], 1),
+                        num(r["min_speed_kmh"], 1),
+                        num(r["exit_speed_kmh"], 1),
+                        num(r["segment_time_s"], 3),
+                    ]
+                )
+            )
+    return "\n".join(rows) + "\n"
+
+
+def write_target_sheets(
+    conditions, out_dir, circuit_name: str, *, progress: Progress | None = None
+) -> list[Path]:
+    """Write a printable one-page sheet per condition (PDF and PNG) and targets.csv.
+
+    Parameters
+    ----------
+    conditions : list
+        Records of :func:`limitlap.targets.target_table` (INTERFACE §4 fields; an optional
+        ``condition``/``label`` names it, e.g. "wet").
+    out_dir : str or Path
+        Output folder; made when missing (its parent must exist).
+    circuit_name : str
+        Heading of each sheet.
+    progress : callable, optional
+        ``progress(done, total, step)``; None = silent.
+
+    Returns
+    -------
+    list of Path
+        Files written: per condition ``targets_<label>.pdf`` and ``.png``, then targets.csv.
+    """
+    from limitlap import figures as fg
+
+    out = _prepare_folder(out_dir)
+    conds = [_condition(c) for c in conditions]
+    step = _stepper(progress, 2 * len(conds) + 1)
+    written, seen = [], set()
+    for c in conds:
+        slug = _slug(c["label"])
+        if slug in seen:
+            slug = f"{slug}_{c['grip_scale']:.2f}".replace(".", "_")
+        seen.add(slug)
+        for fmt in ("pdf", "png"):
+            data = fg.target_sheet(c, circuit_name, SAFETY_CAUTION, fmt=fmt)
+            written.append(write_atomic(out / f"targets_{slug}.{fmt}", data))
+            step(f"target sheet {c['label']} ({fmt})")
+    written.append(write_atomic(out / "targets.csv", targets_csv_text(conditions)))
+    step("targets.csv")
+    return written

@@ -1,0 +1,806 @@
+r"""Synthetic sessions with a known truth: an invented circuit, a simulated driver and logger.
+
+The demo and the tests need logs whose answer is known. This module builds them from the
+project's own physics:
+
+1. **Circuit.** :func:`demo_circuit` is an invented track, *Tarrowby Heath* (not any real
+   circuit), built from straights, circular arcs and clothoid transitions (curvature
+   linear in distance), so curvature is continuous. Its heading and position close
+   exactly: one arc length is chosen so the bends add up to one full turn, two straight
+   lengths so the end meets the start. It sits at an invented WGS84 origin.
+   :func:`circle_circuit` is a plain counter-clockwise circle for quick tests.
+2. **Driver.** The driver follows the reference line exactly (the true driven line *is*
+   the circuit's line; no lateral wander), at the speed that
+   :func:`limitlap.solve.solve_profile` gives with a per-station speed cap: the cap
+   plants the mistakes (a lower minimum speed in a window around a chosen apex, so the
+   solver brakes earlier and reaches full drive later) and a small lap-to-lap variation.
+   The whole session (out-lap from the pit, flying laps, in-lap back to the pit) is one
+   open line solved in one go, so speed is continuous from lap to lap.
+3. **Logger.** The trajectory is sampled at 100 Hz: speed, IMU accelerations (specific
+   force, so gradient leaks :math:`g\sin\theta` into the longitudinal channel), yaw rate,
+   pedals, steering, gear; GNSS position at a lower rate with blank cells between fixes and
+   a time-correlated error (first-order Gauss-Markov process plus white noise), converted
+   east-north-up -> geodetic with :func:`pymap3d.enu2geodetic`.
+
+The truth (:class:`SessionTruth`) keeps the true line and vehicle, the gate, the lap
+times, each planted mistake with the time it costs on its own (lap time with the mistake
+minus without it, both by the solver) and the ideal lap time on the true line.
+
+Lap times from the session's time stamps equal the solver's closed-lap times because the
+last corner before the gate is driven identically on every lap (no variation, no mistake
+there) and the first braking zone after the gate starts well past it.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass, field
+
+import numpy as np
+import pymap3d
+from scipy import signal
+
+from limitlap import limits
+from limitlap.errors import LimitlapError
+from limitlap.line import Line, self_intersects
+from limitlap.solve import Profile, solve_profile
+from limitlap.units import BAR_TO_PA, DEG_TO_RAD, G0_M_S2, KMH_TO_M_S
+from limitlap.vehicle import Vehicle
+
+# --------------------------------------------------------------------------- circuit
+
+
+@dataclass(frozen=True)
+class CornerMark:
+    """A named corner of a synthetic circuit.
+
+    Attributes
+    ----------
+    name : str
+        Short name, e.g. ``"T4"``.
+    apex_m : float
+        Distance of the apex (middle of the tightest arc) from the gate. [m]
+    radius_m : float
+        Radius of the tightest arc, + left, - right. [m]
+    label : str
+        Longer invented name, for track files and reports.
+    """
+
+    name: str
+    apex_m: float
+    radius_m: float
+    label: str = ""
+
+
+@dataclass(frozen=True, eq=False)
+class Circuit:
+    """A synthetic circuit: its line (stations from the gate) and where it is on Earth.
+
+    Attributes
+    ----------
+    name : str
+        Invented name.
+    line : Line
+        Closed reference line; station 0 is the start/finish gate; x east, y north,
+        z up in the ENU frame at ``origin``. [m]
+    origin : tuple of float
+        ENU origin (latitude deg, longitude deg, ellipsoidal height m).
+    corners : tuple of CornerMark
+        Corners in driving order from the gate.
+    pit_exit_m, pit_entry_m : float
+        Where the out-lap starts and the in-lap stops, as distance from the gate. [m]
+    """
+
+    name: str
+    line: Line
+    origin: tuple[float, float, float]
+    corners: tuple[CornerMark, ...]
+    pit_exit_m: float
+    pit_entry_m: float
+
+    @property
+    def gate_latlon(self) -> tuple[float, float]:
+        """(latitude, longitude) of the gate point, degrees."""
+        lat, lon, _ = pymap3d.enu2geodetic(
+            self.line.x_m[0], self.line.y_m[0], self.line.z_m[0], *self.origin
+        )
+        return float(lat), float(lon)
+
+    def corner(self, name: str) -> CornerMark:
+        """The corner called ``name``."""
+        for c in self.corners:
+            if c.name == name:
+                return c
+        raise LimitlapError(f"circuit '{self.name}' has no corner '{name}'")
+
+
+def _corner(angle_deg, radius_m, ramp_in_m, ramp_out_m, name):
+    """Clothoid in, arc, clothoid out: the arc length makes the turn ``angle_deg``."""
+    kappa = math.copysign(1.0 / radius_m, angle_deg)
+    hold = math.radians(abs(angle_deg)) * radius_m - 0.5 * (ramp_in_m + ramp_out_m)
+    if hold <= 0.0:  # design error, not user input
+        raise ValueError(f"corner {name}: transitions longer than the turn")
+    return [("ramp", ramp_in_m, kappa), ("arc", hold, name), ("ramp", ramp_out_m, 0.0)]
+
+
+# Tarrowby Heath, an invented circuit, driven clockwise. Elements: ("straight", L, name),
+# ("ramp", L, curvature at its end) = clothoid, ("arc", L, name) holds the curvature.
+# The lengths of "main", "s6", "s9" and of arc "T8b" are nominal: the closure solves them.
+_TARROWBY_LABELS = {
+    "T1": "Sentry",
+    "T2": "Lantern",
+    "T3": "Long Mile",
+    "T4": "Kettle Hairpin",
+    "T5": "Brambles",
+    "T6": "Brambles exit",
+    "T7": "Weir",
+    "T8": "Two Oaks",
+    "T9": "Flick",
+    "T10": "Ferrier",
+    "T11": "Ferrier exit",
+    "T12": "Homecoming",
+}
+
+
+def _tarrowby_elements(lengths):
+    e = [("straight", lengths["main"], "main")]
+    e += _corner(-90, 42, 32, 28, "T1")  # right, medium-slow after the main straight
+    e += [("straight", 150, "s1")]
+    e += _corner(40, 110, 30, 30, "T2")  # left
+    e += [("straight", 120, "s2")]
+    e += _corner(-40, 250, 60, 60, "T3")  # fast right sweeper
+    e += [("straight", 330, "s3")]
+    e += _corner(-170, 16, 20, 20, "T4")  # hairpin
+    e += [("straight", 140, "s4")]
+    e += _corner(40, 30, 14, 14, "T5") + _corner(-45, 30, 14, 14, "T6")  # chicane
+    e += [("straight", 110, "s5")]
+    e += _corner(85, 75, 30, 30, "T7")  # left
+    e += [("straight", lengths["s6"], "s6")]
+    e += _corner(10, 500, 40, 40, "T9")  # flat-out kink
+    e += [("straight", 150, "s7")]
+    e += _corner(-35, 140, 30, 30, "T10") + [("straight", 60, "s7b")]
+    e += _corner(35, 170, 30, 30, "T11")
+    e += [("straight", 100, "s8")]
+    # same-direction double apex: tighten, open up, tighten again
+    e += [("ramp", 22, -1 / 50), ("arc", 20, "T8"), ("ramp", 20, -1 / 140)]
+    e += [("arc", 25, "T8 middle"), ("ramp", 20, -1 / 45), ("arc", lengths["T8b"], "T8b")]
+    e += [("ramp", 28, 0.0), ("straight", lengths["s9"], "s9")]
+    e += _corner(-90, 80, 35, 40, "T12")  # onto the main straight
+    return e
+
+
+def _knots(elements):
+    """Piecewise-linear curvature as knots (s, kappa) and each element's span."""
+    s_knots, k_knots, spans = [0.0], [0.0], []
+    s, k = 0.0, 0.0
+    for kind, length, arg in elements:
+        if kind == "straight":
+            k_end = k_start = 0.0
+        elif kind == "ramp":
+            k_start, k_end = k, arg
+        else:
+            k_start = k_end = k
+        spans.append((kind, arg, s, s + length, k_start, k_end))
+        s += length
+        k = k_end
+        s_knots.append(s)
+        k_knots.append(k_end)
+    return np.array(s_knots), np.array(k_knots), spans
+
+
+def _integrate(s_knots, k_knots, step_m):
+    """Heading and position by the trapezoidal rule on a fine grid from the knots."""
+    length = s_knots[-1]
+    s = np.linspace(0.0, length, round(length / step_m) + 1)
+    s = np.union1d(s, s_knots)  # knots on the grid: the trapezoid is exact on the heading
+    k = np.interp(s, s_knots, k_knots)
+    ds = np.diff(s)
+    psi = np.concatenate([[0.0], np.cumsum(0.5 * (k[1:] + k[:-1]) * ds)])
+    x = np.concatenate([[0.0], np.cumsum(0.5 * (np.cos(psi[1:]) + np.cos(psi[:-1])) * ds)])
+    y = np.concatenate([[0.0], np.cumsum(0.5 * (np.sin(psi[1:]) + np.sin(psi[:-1])) * ds)])
+    return s, k, psi, x, y
+
+
+def _close(elements_of, lengths, hold_name, hold_kappa, straights, turn_rad, step_m):
+    """Solve one arc length (heading) and two straight lengths (position) for closure."""
+    lengths = dict(lengths)
+    for _ in range(2):
+        s_kn, k_kn, _sp = _knots(elements_of(lengths))
+        total_turn = np.sum(0.5 * (k_kn[1:] + k_kn[:-1]) * np.diff(s_kn))
+        lengths[hold_name] += (turn_rad - total_turn) / hold_kappa  # exact: turn is linear in it
+        s, _k, psi, x, y = _integrate(*_knots(elements_of(lengths))[:2], step_m)
+        spans = _knots(elements_of(lengths))[2]
+        cols = []
+        for name in straights:
+            start = next(sp[2] for sp in spans if sp[0] == "straight" and sp[1] == name)
+            heading = np.interp(start, s, psi)
+            cols.append([math.cos(heading), math.sin(heading)])  # d(end)/d(length)
+        delta = np.linalg.solve(np.array(cols).T, -np.array([x[-1], y[-1]]))
+        for name, d in zip(straights, delta, strict=True):
+            lengths[name] += float(d)
+    if min(lengths.values()) <= 0.0:  # design error
+        raise ValueError(f"circuit closure gave a non-positive length: {lengths}")
+    return lengths
+
+
+def demo_circuit(spacing_m: float = 1.0, *, elevation: bool = True) -> Circuit:
+    """The invented demo circuit *Tarrowby Heath* (about 3.6 km, 12 corners, clockwise).
+
+    Corners: a medium right after the main straight (T1), a left (T2), a fast right
+    sweeper (T3), a hairpin (T4), a left-right chicane (T5/T6), a left (T7), a flat-out
+    kink (T9), a right-left pair (T10/T11), a same-direction double-apex right (T8, named
+    in driving order after T11 for its two apexes ``T8``/``T8b``... see :attr:`corners`),
+    and the last right onto the main straight (T12). Curvature is piecewise linear in
+    distance (clothoid transitions), so it is continuous everywhere.
+
+    Parameters
+    ----------
+    spacing_m : float
+        Station spacing of the line (rounded to a whole number of stations). [m]
+    elevation : bool
+        Add a gentle height profile (two harmonics, grades below about 2 %).
+
+    Returns
+    -------
+    Circuit
+        The line starts at the gate on the main straight.
+
+    Examples
+    --------
+    >>> c = demo_circuit()
+    >>> 3000 < c.line.length_m < 4000, len(c.corners)
+    (True, 13)
+    """
+    step = 0.05  # fine integration step [m]; position error O(step²) ~ 1e-5 m per lap
+    nominal = {"main": 720.0, "s6": 100.0, "s9": 300.0, "T8b": 15.0}
+    lengths = _close(_tarrowby_elements, nominal, "T8b", -1 / 45, ("s6", "s9"), -2 * math.pi, step)
+    s_kn, k_kn, spans = _knots(_tarrowby_elements(lengths))
+    s_f, _k_f, psi_f, x_f, y_f = _integrate(s_kn, k_kn, step)
+    length = float(s_f[-1])
+    # Gate 250 m down the main straight; rotate the layout 25° and place it in ENU.
+    gate_s = 250.0
+    n_st = max(8, round(length / spacing_m))
+    st = np.arange(n_st) * (length / n_st)
+    s_design = (st + gate_s) % length
+    # closure residual of the numerical integration (~1e-5 m) spread linearly
+    xf = x_f - s_f / length * x_f[-1]
+    yf = y_f - s_f / length * y_f[-1]
+    x0, y0 = np.interp(s_design, s_f, xf), np.interp(s_design, s_f, yf)
+    kappa = np.interp(s_design, s_kn, k_kn)
+    rot = math.radians(25.0)
+    cx, cy = -380.0, 320.0  # ENU offset of the design frame [m], invented
+    x = cx + math.cos(rot) * x0 - math.sin(rot) * y0
+    y = cy + math.sin(rot) * x0 + math.cos(rot) * y0
+    if elevation:
+        w = 2 * math.pi / length
+        z = 6.0 * np.sin(w * st + 0.8) + 2.5 * np.sin(2 * w * st + 2.1)
+        grad = 6.0 * w * np.cos(w * st + 0.8) + 2.5 * 2 * w * np.cos(2 * w * st + 2.1)
+    else:
+        z, grad = np.zeros(n_st), np.zeros(n_st)
+    line = Line(st, kappa, grad, length, True, x, y, z, {"name": "Tarrowby Heath"})
+    corners = []
+    for kind, name, s0, s1, k0, _k1 in spans:
+        if kind == "arc" and name in _TARROWBY_LABELS or name == "T8b":
+            apex = ((s0 + s1) / 2 - gate_s) % length
+            label = _TARROWBY_LABELS.get(name, "Two Oaks, second apex")
+            corners.append(CornerMark(name, float(apex), float(1.0 / k0), label))
+    corners.sort(key=lambda c: c.apex_m)
+    return Circuit(
+        name="Tarrowby Heath",
+        line=line,
+        origin=(-33.8612, 147.2391, 286.0),  # invented location
+        corners=tuple(corners),
+        pit_exit_m=90.0,
+        pit_entry_m=length - 120.0,
+    )
+
+
+def circle_circuit(radius_m: float = 100.0, spacing_m: float = 1.0) -> Circuit:
+    """A counter-clockwise circle (left-hand, + curvature), for quick tests.
+
+    Parameters
+    ----------
+    radius_m : float
+        Radius. [m]
+    spacing_m : float
+        Station spacing. [m]
+
+    Returns
+    -------
+    Circuit
+        Centre at the ENU origin, gate at (radius, 0) heading north.
+    """
+    length = 2 * math.pi * radius_m
+    n_st = max(16, round(length / spacing_m))
+    st = np.arange(n_st) * (length / n_st)
+    ang = st / radius_m
+    line = Line(
+        st,
+        np.full(n_st, 1.0 / radius_m),
+        np.zeros(n_st),
+        length,
+        True,
+        radius_m * np.cos(ang),
+        radius_m * np.sin(ang),
+        np.zeros(n_st),
+        {"name": f"circle R={radius_m:g} m"},
+    )
+    corner = CornerMark("C1", length / 2, radius_m, "circle")
+    return Circuit(
+        f"circle R={radius_m:g} m", line, (-33.8612, 147.2391, 286.0), (corner,),
+        pit_exit_m=0.1 * length, pit_entry_m=0.9 * length,
+    )
+
+
+# --------------------------------------------------------------------------- session
+
+
+@dataclass(frozen=True)
+class Mistake:
+    """A planted driver mistake: a lower minimum speed held over a window round an apex.
+
+    Attributes
+    ----------
+    corner : str
+        Corner name in the circuit (``apex_m`` is taken from it when not given).
+    speed_drop : float
+        Share by which the minimum speed falls, e.g. 0.08 = 8 % slower. [-]
+    before_m, after_m : float
+        Window before and after the apex where the speed is held down: a long
+        ``before_m`` is an early brake, a long ``after_m`` a late throttle, a short
+        symmetric window a mid-corner lift. [m]
+    apex_m : float, optional
+        Apex distance from the gate, overriding the corner's. [m]
+    """
+
+    corner: str
+    speed_drop: float
+    before_m: float = 15.0
+    after_m: float = 15.0
+    apex_m: float | None = None
+
+
+#: The planted mistakes of the demo sessions (on Tarrowby Heath).
+DEMO_MISTAKES = (
+    Mistake("T1", 0.09, before_m=35.0, after_m=5.0),  # brakes early, too slow in
+    Mistake("T7", 0.08, before_m=10.0, after_m=10.0),  # mid-corner lift
+    Mistake("T10", 0.08, before_m=5.0, after_m=35.0),  # late on the throttle
+)
+
+
+@dataclass(frozen=True)
+class PlantedMistake:
+    """A mistake as planted, with its cost (SI).
+
+    Attributes
+    ----------
+    corner : str
+    apex_m : float
+        Apex distance from the gate. [m]
+    window_m : tuple of float
+        (start, end) of the capped window, distance from the gate. [m]
+    speed_cap_m_s : float
+        The speed held in the window (the lowered minimum speed). [m/s]
+    ideal_min_speed_m_s : float
+        Minimum speed of the ideal lap in the window. [m/s]
+    time_cost_s : float
+        Lap time with only this mistake minus the ideal lap time (solver). [s]
+    """
+
+    corner: str
+    apex_m: float
+    window_m: tuple[float, float]
+    speed_cap_m_s: float
+    ideal_min_speed_m_s: float
+    time_cost_s: float
+
+
+@dataclass(frozen=True, eq=False)
+class SessionTruth:
+    """What the synthetic session really was.
+
+    Attributes
+    ----------
+    circuit : Circuit
+    line : Line
+        The true driven line (the circuit's line: the driver follows it exactly).
+    vehicle : Vehicle
+        The true vehicle at grip scale 1.
+    grip_scale : float
+        Grip scale of the session's track. [-]
+    gate_latlon : tuple of float
+        Start/finish gate point (latitude, longitude), degrees.
+    gate_times_s : numpy.ndarray
+        Log time of each gate crossing. [s]
+    lap_times_s : numpy.ndarray
+        Time of each complete lap, from the crossings (laps 1, 2, ...). [s]
+    solver_lap_times_s : numpy.ndarray
+        The same laps solved as closed laps with their own speed caps. [s]
+    ideal_lap_time_s : float
+        Solver lap time on the true line with the true vehicle at ``grip_scale``. [s]
+    ideal_profile : Profile
+        That ideal lap.
+    mistake_profile : Profile
+        A flying lap with all planted mistakes and no lap-to-lap variation.
+    mistakes : tuple of PlantedMistake
+    mistake_laps : tuple of int
+        Lap numbers (1 = first complete lap) that carry the mistakes.
+    limit_laps : tuple of int
+        Lap numbers driven exactly at the limit (no mistakes, no variation).
+    distance_m : numpy.ndarray
+        Per row: distance driven since the pit exit. [m]
+    lap_distance_m : numpy.ndarray
+        Per row: distance from the gate along the lap. [m]
+    lap_number : numpy.ndarray
+        Per row: lap number (0 = out-lap, last = in-lap), int.
+    x_m, y_m, z_m : numpy.ndarray
+        Per row: true ENU position. [m]
+    gps_error_m : numpy.ndarray
+        Per row (NaN between fixes): GNSS error east, north, up, shape (n, 3). [m]
+    """
+
+    circuit: Circuit
+    line: Line
+    vehicle: Vehicle
+    grip_scale: float
+    gate_latlon: tuple[float, float]
+    gate_times_s: np.ndarray
+    lap_times_s: np.ndarray
+    solver_lap_times_s: np.ndarray
+    ideal_lap_time_s: float
+    ideal_profile: Profile
+    mistake_profile: Profile
+    mistakes: tuple[PlantedMistake, ...]
+    mistake_laps: tuple[int, ...]
+    limit_laps: tuple[int, ...]
+    distance_m: np.ndarray
+    lap_distance_m: np.ndarray
+    lap_number: np.ndarray
+    x_m: np.ndarray
+    y_m: np.ndarray
+    z_m: np.ndarray
+    gps_error_m: np.ndarray
+
+
+@dataclass(frozen=True, eq=False)
+class Session:
+    """A synthetic log in SI on its own rows, with its truth.
+
+    Attributes
+    ----------
+    time_s : numpy.ndarray
+        Row times from 0 at the sample rate. [s]
+    channels : dict of str to numpy.ndarray
+        INTERFACE §1 channel -> SI values per row, NaN in blank cells: ``latitude``,
+        ``longitude`` [deg], ``altitude`` [m], ``speed`` [m/s], ``accel_lon``,
+        ``accel_lat`` [m/s²], ``yaw_rate`` [rad/s], ``throttle`` [0-1], ``brake`` [Pa],
+        ``steer`` [rad], ``gear`` [-].
+    truth : SessionTruth
+    """
+
+    time_s: np.ndarray
+    channels: dict[str, np.ndarray]
+    truth: SessionTruth
+    notes: list[str] = field(default_factory=list)
+
+
+def _tile(line: Line, start_m: float, n_laps: int, end_m: float):
+    """Open line over the session: from ``start_m`` round ``n_laps`` laps to ``end_m``."""
+    n, ds = line.n, line.length_m / line.n
+    i0 = round(start_m / ds) % n
+    i1 = round(end_m / ds) % n
+    idx = np.concatenate([np.arange(i0, n), np.tile(np.arange(n), n_laps), np.arange(i1 + 1)])
+    lap = np.concatenate(
+        [np.zeros(n - i0, int), np.repeat(np.arange(1, n_laps + 1), n), np.full(i1 + 1, n_laps + 1)]
+    )
+    dist = np.arange(idx.shape[0]) * ds
+    return idx, lap, dist, ds, i0
+
+
+def _window_cap(line: Line, v_ideal, apex_m, before_m, after_m, drop):
+    """Station mask of the window round an apex, and the capped speed in it."""
+    s = line.distance_m
+    rel = (s - apex_m + line.length_m / 2) % line.length_m - line.length_m / 2
+    mask = (rel >= -before_m) & (rel <= after_m)
+    v_min = float(v_ideal[mask].min())
+    return mask, v_min * (1.0 - drop), v_min
+
+
+def _gauss_markov(rng, n, sigma, tau_samples):
+    """First-order Gauss-Markov sequence, stationary from the first sample.
+
+    :math:`e_k = \\phi e_{k-1} + \\sigma\\sqrt{1-\\phi^2}\\, w_k`, :math:`\\phi = e^{-1/\\tau}`
+    (A. Gelb, ed., *Applied Optimal Estimation*, MIT Press 1974, Table 3.8-1 [M]).
+    """
+    phi = math.exp(-1.0 / tau_samples)
+    w = rng.standard_normal(n)
+    e0 = sigma * rng.standard_normal()
+    out, _ = signal.lfilter([sigma * math.sqrt(1 - phi * phi)], [1.0, -phi], w, zi=[phi * e0])
+    return out
+
+
+def default_vehicle() -> Vehicle:
+    """The bundled invented GT coupe (vehicles/gt_coupe.toml), the demo's true car."""
+    from limitlap.ingest import read_vehicle
+    from limitlap.resources import bundled_path
+
+    return read_vehicle(bundled_path("vehicles", "gt_coupe.toml"))
+
+
+def generate_session(
+    circuit: Circuit | None = None,
+    vehicle: Vehicle | None = None,
+    *,
+    n_laps: int = 6,
+    duration_s: float | None = None,
+    grip_scale: float = 1.0,
+    mistakes=DEMO_MISTAKES,
+    mistake_laps=None,
+    limit_laps=(),
+    lap_variation: float = 0.004,
+    out_lap_pace: float = 0.7,
+    in_lap_pace: float = 0.6,
+    idle_s: float = 5.0,
+    sample_rate_hz: float = 100.0,
+    gps_rate_hz: float = 10.0,
+    gps_sigma_m: float = 0.7,
+    gps_tau_s: float = 60.0,
+    gps_white_m: float = 0.1,
+    gps_vertical_factor: float = 2.0,
+    speed_noise_m_s: float = 0.05,
+    accel_noise_g: float = 0.03,
+    accel_bias_g: tuple[float, float] = (0.0, 0.0),
+    yaw_noise_deg_s: float = 0.5,
+    yaw_bias_deg_s: float = 0.2,
+    gps_dropouts=(),
+    seed: int = 1,
+) -> Session:
+    r"""Simulate a session on ``circuit``: out-lap, ``n_laps`` flying laps, in-lap.
+
+    Parameters
+    ----------
+    circuit : Circuit, optional
+        Default :func:`demo_circuit`.
+    vehicle : Vehicle, optional
+        Complete true vehicle; default :func:`default_vehicle`.
+    n_laps : int
+        Flying (complete) laps.
+    duration_s : float, optional
+        Instead of ``n_laps``: as many flying laps as fill about this long a session
+        (e.g. 3600 for the one-hour benchmark). [s]
+    grip_scale : float
+        Grip scale of the track (wet session < 1). [-]
+    mistakes : sequence of Mistake
+        Planted on every lap of ``mistake_laps``.
+    mistake_laps : sequence of int, optional
+        Laps (1 = first complete) that carry the mistakes; default all but ``limit_laps``.
+    limit_laps : sequence of int
+        Laps driven exactly at the limit: no mistakes, no variation.
+    lap_variation : float
+        Lap-to-lap variation: every corner but the last gets its minimum speed lowered by
+        ``|N(0, lap_variation)|`` of the ideal. [-]
+    out_lap_pace, in_lap_pace : float
+        Speed of the out-lap and in-lap as a share of the ideal. [-]
+    idle_s : float
+        Standing still at the pit exit before and at the pit entry after. [s]
+    sample_rate_hz : float
+        Row rate (speed, IMU, pedals). [Hz]
+    gps_rate_hz : float
+        GNSS fix rate; must divide ``sample_rate_hz``. [Hz]
+    gps_sigma_m, gps_tau_s : float
+        Standard deviation [m] and correlation time [s] of the Gauss-Markov part of the
+        GNSS error per horizontal axis.
+    gps_white_m : float
+        White part of the GNSS error per horizontal axis. [m]
+    gps_vertical_factor : float
+        Vertical error = this times the horizontal one. [-]
+    speed_noise_m_s : float
+        White noise on speed. [m/s]
+    accel_noise_g, accel_bias_g : float, tuple
+        White noise on both accelerations [g]; constant bias (longitudinal, lateral) [g].
+    yaw_noise_deg_s, yaw_bias_deg_s : float
+        White noise and constant bias of the yaw-rate gyro. [deg/s]
+    gps_dropouts : sequence of (start_s, length_s)
+        GNSS gaps: no fixes in ``[start, start + length)``. [s]
+    seed : int
+        Seed of :func:`numpy.random.default_rng`; the session is a function of it.
+
+    Returns
+    -------
+    Session
+
+    Notes
+    -----
+    Kinematics on a level road (ISO 8855, left = +): :math:`a_y = \kappa v^2`,
+    :math:`r = \kappa v`; the accelerometer measures specific force, so
+    :math:`a_{x,meas} = \dot v + g\sin\theta` on a grade θ. Pedals from the tyre force the
+    motion needs, :math:`F_x = m\dot v + m g \sin\theta + q C_D A + C_{rr} m g`: throttle
+    :math:`F_x / \min(\mu_t N, P/v)` when positive, brake pressure proportional to
+    :math:`-F_x` otherwise (120 bar at :math:`F_x = -\mu_b m g`, an invented brake gain).
+    Steering: kinematic (Ackermann) wheel angle :math:`\ell\kappa` times a steering ratio
+    (Milliken & Milliken 1995, ch. 6), wheelbase 2.6 m and ratio 14 invented.
+    """
+    circuit = demo_circuit() if circuit is None else circuit
+    vehicle = (default_vehicle() if vehicle is None else vehicle).require_complete()
+    if sample_rate_hz <= 0 or gps_rate_hz <= 0:
+        raise LimitlapError("sample and GPS rates must be positive")
+    step = sample_rate_hz / gps_rate_hz
+    if abs(step - round(step)) > 1e-9:
+        raise LimitlapError("gps_rate_hz must divide sample_rate_hz")
+    step = round(step)
+    rng = np.random.default_rng(seed)
+    line = circuit.line
+    car = vehicle.scaled(grip_scale) if grip_scale != 1.0 else vehicle
+    ideal = solve_profile(line, car)
+    if duration_s is not None:
+        n_laps = max(1, int((duration_s - 2 * idle_s) / ideal.lap_time_s / 1.01) - 1)
+    if n_laps < 1:
+        raise LimitlapError("a session needs at least one complete lap")
+    limit_laps = tuple(int(k) for k in limit_laps)
+    if mistake_laps is None:
+        mistake_laps = tuple(k for k in range(1, n_laps + 1) if k not in limit_laps)
+    mistake_laps = tuple(int(k) for k in mistake_laps)
+
+    # --- per-lap speed caps on the closed line -----------------------------------
+    inf = np.full(line.n, np.inf)
+    planted_masks = []
+    mistake_cap = inf.copy()
+    for m in mistakes:
+        apex = circuit.corner(m.corner).apex_m if m.apex_m is None else m.apex_m
+        mask, cap, v_min = _window_cap(line, ideal.speed_m_s, apex, m.before_m, m.after_m, m.speed_drop)
+        planted_masks.append((m, apex, mask, cap, v_min))
+        mistake_cap[mask] = np.minimum(mistake_cap[mask], cap)
+    varied = [c for c in circuit.corners if c.apex_m < line.length_m - 1.0][:-1]  # not the last
+    varied = [c for c in varied if abs(c.radius_m) < 400.0]  # flat-out kinks need no lift
+    lap_caps = []
+    for k in range(1, n_laps + 1):
+        cap = mistake_cap.copy() if k in mistake_laps else inf.copy()
+        if k not in limit_laps and lap_variation > 0:
+            for c in varied:
+                mask, vcap, _ = _window_cap(
+                    line, ideal.speed_m_s, c.apex_m, 10.0, 10.0,
+                    abs(rng.normal(0.0, lap_variation)),
+                )
+                cap[mask] = np.minimum(cap[mask], vcap)
+        lap_caps.append(cap)
+
+    # --- the whole session as one open line ---------------------------------------
+    idx, lap_of, dist, ds, i0 = _tile(line, circuit.pit_exit_m, n_laps, circuit.pit_entry_m)
+    last_apex = circuit.corners[-1].apex_m
+    first_apex = circuit.corners[0].apex_m
+    s_lap = line.distance_m[idx]
+    cap = np.full(idx.shape[0], np.inf)
+    out = lap_of == 0
+    slow_out = out & (s_lap < last_apex - 100.0)
+    cap[slow_out] = out_lap_pace * ideal.speed_m_s[idx[slow_out]]
+    for k in range(1, n_laps + 1):
+        sel = lap_of == k
+        cap[sel] = lap_caps[k - 1][idx[sel]]
+    inl = lap_of == n_laps + 1
+    slow_in = inl & (s_lap > first_apex - 60.0)
+    cap[inl] = lap_caps[-1][idx[inl]]
+    cap[slow_in] = np.minimum(cap[slow_in], in_lap_pace * ideal.speed_m_s[idx[slow_in]])
+    cap = np.where(np.isfinite(cap), cap, 1e9)
+    session_line = Line(
+        dist, line.curvature_1_m[idx], line.gradient[idx], float(dist[-1]), False
+    )
+    prof = solve_profile(session_line, car, entry_speed_m_s=0.0, exit_speed_m_s=0.0,
+                         speed_cap_m_s=cap)
+    t_st = prof.time_s + idle_s
+    gate_rows = np.flatnonzero(idx == 0)
+    gate_times = t_st[gate_rows]
+    lap_times = np.diff(gate_times)
+    solver_times = np.array([solve_profile(line, car, speed_cap_m_s=c).lap_time_s for c in lap_caps])
+
+    # --- mistakes: cost of each on its own ------------------------------------------
+    planted = []
+    for m, apex, mask, vcap, v_min in planted_masks:
+        one = inf.copy()
+        one[mask] = vcap
+        cost = solve_profile(line, car, speed_cap_m_s=one).lap_time_s - ideal.lap_time_s
+        s_in = line.distance_m[mask]
+        rel = (s_in - apex + line.length_m / 2) % line.length_m - line.length_m / 2
+        window = ((apex - m.before_m) % line.length_m, (apex + m.after_m) % line.length_m)
+        del rel
+        planted.append(PlantedMistake(m.corner, float(apex), window, float(vcap), v_min, float(cost)))
+    mistake_profile = solve_profile(line, car, speed_cap_m_s=np.where(np.isfinite(mistake_cap), mistake_cap, 1e9))
+
+    # --- sample in time --------------------------------------------------------------
+    t_end = t_st[-1] + idle_s
+    n_rows = int(math.floor(t_end * sample_rate_hz)) + 1
+    t = np.arange(n_rows) / sample_rate_hz
+    d = np.interp(t, t_st, dist)  # standing still before and after: clamped
+    v = np.interp(t, t_st, prof.speed_m_s)
+    ax = np.interp(t, t_st, prof.accel_lon_m_s2)
+    moving = (t > t_st[0]) & (t < t_st[-1])
+    ax = np.where(moving, ax, 0.0)
+    j = np.clip(np.searchsorted(dist, d, side="right") - 1, 0, dist.shape[0] - 2)
+    frac = (d - dist[j]) / ds
+    s_of_row = (circuit.pit_exit_m // 1 * 0 + line.distance_m[idx[j]] + frac * ds) % line.length_m
+    # true position: interpolate on the closed line by distance (periodic)
+    s_ring = np.append(line.distance_m, line.length_m)
+
+    def ring(a):
+        return np.interp(s_of_row, s_ring, np.append(a, a[0]))
+
+    x, y, z = ring(line.x_m), ring(line.y_m), ring(line.z_m)
+    kappa, grad = ring(line.curvature_1_m), ring(line.gradient)
+    sin_th = grad / np.sqrt(1 + grad * grad)
+    lap_row = lap_of[j]
+    lap_row = np.where(d >= dist[-1] - 1e-9, n_laps + 1, lap_row)
+
+    g = G0_M_S2
+    speed = v + speed_noise_m_s * rng.standard_normal(n_rows)
+    speed = np.where(v > 0, np.abs(speed), 0.0)  # a stationary car reads zero
+    a_lon = ax + g * sin_th + accel_bias_g[0] * g + accel_noise_g * g * rng.standard_normal(n_rows)
+    a_lat = kappa * v * v + accel_bias_g[1] * g + accel_noise_g * g * rng.standard_normal(n_rows)
+    yaw = kappa * v + (yaw_bias_deg_s + yaw_noise_deg_s * rng.standard_normal(n_rows)) * DEG_TO_RAD
+    f_x = car.mass_kg * (ax + g * sin_th) + np.where(v > 0, limits.resistance_n(v, car), 0.0)
+    f_drive = limits.drive_force_max_n(np.maximum(v, 0.1), car)
+    throttle = np.clip(np.where(f_x > 0, f_x / f_drive, 0.0), 0.0, 1.0)
+    brake_gain = 120.0 * BAR_TO_PA / (vehicle.mu_brk * vehicle.mass_kg * g)  # [Pa/N], invented
+    brake = np.where(f_x < 0, -f_x * brake_gain, 0.0)
+    shifts = np.array([72.0, 108.0, 145.0, 182.0, 220.0]) * KMH_TO_M_S  # invented gearbox
+    gear = 1.0 + np.searchsorted(shifts, v).astype(np.float64)
+    steer = 14.0 * 2.6 * kappa * (v > 0)
+
+    # GNSS: fixes every `step` rows, correlated + white error, blanks between.
+    fix = np.arange(0, n_rows, step)
+    keep = np.ones(fix.shape[0], bool)
+    for start, length in gps_dropouts:
+        keep &= ~((t[fix] >= start) & (t[fix] < start + length))
+    fix = fix[keep]
+    tau = gps_tau_s * gps_rate_hz
+    n_fix = fix.shape[0]
+    err = np.empty((n_fix, 3))
+    for axis, f in enumerate((1.0, 1.0, gps_vertical_factor)):
+        err[:, axis] = f * (
+            _gauss_markov(rng, n_fix, gps_sigma_m, tau) + gps_white_m * rng.standard_normal(n_fix)
+        )
+    lat = np.full(n_rows, np.nan)
+    lon = np.full(n_rows, np.nan)
+    alt = np.full(n_rows, np.nan)
+    la, lo, al = pymap3d.enu2geodetic(
+        x[fix] + err[:, 0], y[fix] + err[:, 1], z[fix] + err[:, 2], *circuit.origin
+    )
+    lat[fix], lon[fix], alt[fix] = la, lo, al
+    gps_err = np.full((n_rows, 3), np.nan)
+    gps_err[fix] = err
+
+    channels = {
+        "latitude": lat,
+        "longitude": lon,
+        "altitude": alt,
+        "speed": speed,
+        "accel_lon": a_lon,
+        "accel_lat": a_lat,
+        "yaw_rate": yaw,
+        "throttle": throttle,
+        "brake": brake,
+        "steer": steer,
+        "gear": gear,
+    }
+    truth = SessionTruth(
+        circuit=circuit,
+        line=line,
+        vehicle=vehicle,
+        grip_scale=float(grip_scale),
+        gate_latlon=circuit.gate_latlon,
+        gate_times_s=gate_times,
+        lap_times_s=lap_times,
+        solver_lap_times_s=solver_times,
+        ideal_lap_time_s=ideal.lap_time_s,
+        ideal_profile=ideal,
+        mistake_profile=mistake_profile,
+        mistakes=tuple(planted),
+        mistake_laps=mistake_laps,
+        limit_laps=limit_laps,
+        distance_m=d,
+        lap_distance_m=s_of_row,
+        lap_number=lap_row,
+        x_m=x,
+        y_m=y,
+        z_m=z,
+        gps_error_m=gps_err,
+    )
+    return Session(t, channels, truth)

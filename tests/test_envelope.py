@@ -1,0 +1,383 @@
+"""Tests of the g-g-V envelope fit and the grip estimate (limitlap.envelope).
+
+Sources are named beside each check; "REFERENCES Tx.y" is the project's research note of
+published methods and check values.
+"""
+
+import math
+from dataclasses import replace
+
+import numpy as np
+import pytest
+from scipy import signal
+from scipy.spatial import ConvexHull
+
+from limitlap import envelope
+from limitlap.errors import LimitlapError
+from limitlap.limits import combined_usage, drive_force_max_n, normal_load_n, resistance_n
+from limitlap.units import G0_M_S2
+from limitlap.vehicle import Vehicle
+from tests.cases import EXAMPLE_CAR, friction_car
+
+G = G0_M_S2
+
+
+def superellipse_samples(rng, n, a_x, b_y, exponent, noise=0.0):
+    """Uniform in the area of |x/a|^n + |y/b|^n <= 1 (rejection from the box), + noise."""
+    pts = np.empty((0, 2))
+    while pts.shape[0] < n:
+        x = rng.uniform(-a_x, a_x, 2 * n)
+        y = rng.uniform(-b_y, b_y, 2 * n)
+        inside = np.abs(x / a_x) ** exponent + np.abs(y / b_y) ** exponent <= 1.0
+        pts = np.vstack((pts, np.column_stack((x[inside], y[inside]))))
+    pts = pts[:n] + rng.normal(0.0, noise, (n, 2)) if noise else pts[:n]
+    return pts[:, 0], pts[:, 1]
+
+
+def ggv_samples(rng, vehicle, n, v_lo=12.0, v_hi=80.0, on_limit=0.3, noise=0.05):
+    """Samples on and inside the speed-dependent envelope of INTERFACE §3 (limits.py).
+
+    Each sample: a speed, a direction in the normalised tyre-force plane (unit
+    superellipse of the vehicle's exponent), a radius 1 (share ``on_limit``) or
+    sqrt(U) (uniform in area), mapped to accelerations with the force limits at that
+    speed, plus Gaussian noise (m/s²).
+    """
+    v = rng.uniform(v_lo, v_hi, n)
+    t = rng.uniform(0.0, 2.0 * np.pi, n)
+    e = vehicle.exponent
+    sx = np.sign(np.cos(t)) * np.abs(np.cos(t)) ** (2.0 / e)
+    sy = np.sign(np.sin(t)) * np.abs(np.sin(t)) ** (2.0 / e)
+    rho = np.where(rng.random(n) < on_limit, 1.0, np.sqrt(rng.random(n)))
+    m = vehicle.mass_kg
+    normal = normal_load_n(v, vehicle)
+    fx_max = np.where(sx >= 0, drive_force_max_n(v, vehicle), vehicle.mu_brk * normal)
+    ax = (rho * sx * fx_max - resistance_n(v, vehicle)) / m + rng.normal(0.0, noise, n)
+    ay = rho * sy * vehicle.mu_lat * normal / m + rng.normal(0.0, noise, n)
+    return v, ax, ay
+
+
+def friction_base(mass_kg=1000.0):
+    """Base vehicle with power, drag, downforce and rolling fixed at 'none'."""
+    return Vehicle("pure g-g", mass_kg, math.inf, 0.0, 0.0, 0.0)
+
+
+# --- REFERENCES T2.1-T2.5: the pure g-g diagram -------------------------------------
+
+
+@pytest.fixture(scope="module")
+def t21_data():
+    # REFERENCES T2.1: A = 1.30 g, B = 1.45 g, n = 2.5, noise sigma = 0.02 g.
+    rng = np.random.default_rng(21)
+    ax, ay = superellipse_samples(rng, 40_000, 1.30 * G, 1.45 * G, 2.5, noise=0.02 * G)
+    return np.full(ax.size, 30.0), ax, ay
+
+
+def test_superellipse_recovery_t21(t21_data):
+    # REFERENCES T2.1 (polar binning + high quantile, §2.2): A, B within 2 %, n within
+    # 10 % -- the tolerances of the research note.
+    v, ax, ay = t21_data
+    fit = envelope.fit_envelope(v, ax, ay, friction_base())
+    car = fit.vehicle
+    assert car.mu_brk == pytest.approx(1.30, rel=0.02)
+    assert car.mu_trac == pytest.approx(1.30, rel=0.02)
+    assert car.mu_lat == pytest.approx(1.45, rel=0.02)
+    assert car.exponent == pytest.approx(2.5, rel=0.10)
+    assert fit.fitted == ("mu_lat", "mu_brk", "mu_trac", "exponent")  # the rest was given
+    assert set(fit.uncertainty) == set(fit.fitted)
+    assert all(0.0 < s < 0.05 for s in fit.uncertainty.values())
+    assert fit.warnings == []
+    assert fit.used.all()
+
+
+def test_quantile_statistic_t22():
+    # REFERENCES T2.2 [D]: for samples uniform over an ellipse's area the normalised
+    # radius has CDF rho^2 in every direction, so a bin's q-quantile is sqrt(q).
+    # 40 000 points in 36 bins = about 1100 per bin (the note asks >= 500); tolerance
+    # 0.01 from the note (a 0.99 order statistic of ~1100 samples scatters by ~0.003).
+    rng = np.random.default_rng(22)
+    a_g, b_g = 1.2, 1.5
+    ax, ay = superellipse_samples(rng, 40_000, a_g * G, b_g * G, 2.0)
+    v = np.full(ax.size, 25.0)
+    truth = friction_car(mu=b_g, mu_brk=a_g, mu_trac=a_g, exponent=2.0)
+    for q in (0.99, 0.95):
+        fit = envelope.fit_envelope(v, ax, ay, friction_base(), quantile=q)
+        (band,) = fit.bands
+        assert band.speed_m_s.size == 36
+        rho = combined_usage(band.speed_m_s, band.accel_lon_m_s2, band.accel_lat_m_s2, truth)
+        assert rho == pytest.approx(np.full(rho.size, math.sqrt(q)), abs=0.01)
+
+
+def test_spikes_move_fit_little_but_hull_a_lot_t23(t21_data):
+    # REFERENCES T2.3: 0.5 % spikes at 3 g change the fitted limits by < 2 %; the convex
+    # hull of the same data is the negative control and must move by more than that.
+    v, ax, ay = t21_data
+    rng = np.random.default_rng(23)
+    n_spike = int(0.005 * ax.size)
+    idx = rng.choice(ax.size, n_spike, replace=False)
+    ang = rng.uniform(0.0, 2.0 * np.pi, n_spike)
+    ax_s, ay_s = ax.copy(), ay.copy()
+    ax_s[idx], ay_s[idx] = 3.0 * G * np.cos(ang), 3.0 * G * np.sin(ang)
+    clean = envelope.fit_envelope(v, ax, ay, friction_base()).vehicle
+    spiky = envelope.fit_envelope(v, ax_s, ay_s, friction_base()).vehicle
+    for k in ("mu_lat", "mu_brk", "mu_trac"):
+        assert getattr(spiky, k) == pytest.approx(getattr(clean, k), rel=0.02)
+    hull_clean = ConvexHull(np.column_stack((ax, ay)))
+    hull_spiky = ConvexHull(np.column_stack((ax_s, ay_s)))
+    lat_clean = np.abs(ay[hull_clean.vertices]).max()
+    lat_spiky = np.abs(ay_s[hull_spiky.vertices]).max()
+    assert lat_spiky > 1.02 * lat_clean
+    assert hull_spiky.volume > 1.02 * hull_clean.volume  # 2-D: volume is the area
+
+
+def test_convex_hull_sanity_t25():
+    # REFERENCES T2.5 [R]: the hull of 40 000 uniform points in an ellipse covers
+    # 0.99-1.00 of its area (the note saw 0.9968) and every sample is inside or on it
+    # (hull.equations . [x, y, 1] <= 1e-12, rounding).
+    rng = np.random.default_rng(25)
+    a, b = 1.3 * G, 1.45 * G
+    x, y = superellipse_samples(rng, 40_000, a, b, 2.0)
+    pts = np.column_stack((x, y))
+    hull = ConvexHull(pts)
+    assert 0.99 <= hull.volume / (math.pi * a * b) <= 1.0
+    assert (pts @ hull.equations[:, :2].T + hull.equations[:, 2]).max() <= 1e-12
+
+
+# --- g-g-V: speed-dependent envelope with downforce, drag and power ------------------
+
+
+@pytest.fixture(scope="module")
+def ggv_data():
+    return ggv_samples(np.random.default_rng(7), EXAMPLE_CAR, 60_000)
+
+
+@pytest.fixture(scope="module")
+def ggv_fit(ggv_data):
+    v, ax, ay = ggv_data
+    return envelope.fit_envelope(v, ax, ay, Vehicle("mass only", EXAMPLE_CAR.mass_kg))
+
+
+def test_ggv_recovers_friction_aero_and_power(ggv_fit):
+    # Samples from the INTERFACE §3 model of the example vehicle (Crr = 0.012, the
+    # default the fit assumes). Friction 3 % and exponent 10 % are issue 4's acceptance
+    # tolerances. Power 3 %, drag area 10 %, downforce area 5 % are ours: downforce comes
+    # from the v² growth of the lateral limit (well determined), power from the driving
+    # side above ~22 m/s, drag only from the small v² terms of braking and traction, so
+    # it is the loosest. (Development run: 1.0 %, 2.2 %, 0.1 %.)
+    car, true = ggv_fit.vehicle, EXAMPLE_CAR
+    for k in ("mu_lat", "mu_brk", "mu_trac"):
+        assert getattr(car, k) == pytest.approx(getattr(true, k), rel=0.03), k
+    assert car.exponent == pytest.approx(true.exponent, rel=0.10)
+    assert car.power_w == pytest.approx(true.power_w, rel=0.03)
+    assert car.drag_area_m2 == pytest.approx(true.drag_area_m2, rel=0.10)
+    assert car.downforce_area_m2 == pytest.approx(true.downforce_area_m2, rel=0.05)
+    assert car.rolling_coeff == envelope.ROLLING_COEFF_DEFAULT
+    assert car.is_complete
+    assert set(ggv_fit.fitted) == {"mu_lat", "mu_brk", "mu_trac", "exponent", "power_w",
+                                   "drag_area_m2", "downforce_area_m2"}
+    assert any("rolling resistance" in w for w in ggv_fit.warnings)
+
+
+def test_ggv_fit_quality_and_bands(ggv_fit, ggv_data):
+    v = ggv_data[0]
+    q = ggv_fit.quality
+    # Boundary points scatter by the 0.05 m/s² noise plus the quantile's spread: an RMS
+    # above 0.2 m/s² (4x the noise) would mean the model shape is wrong.
+    assert 0.0 < q["rms_residual_m_s2"] < 0.2
+    # 30 % of the samples lie on the limit with noise: about half of those fall outside a
+    # well-fitted envelope; more than 30 % outside would mean it is fitted too tight.
+    assert 0.0 < q["share_outside"] < 0.3
+    assert q["n_used"] == v.size
+    assert sum(b.n_samples for b in ggv_fit.bands) == v.size
+    for band in ggv_fit.bands:  # boundary points belong to their band
+        assert np.all((band.speed_m_s >= band.speed_lo_m_s) & (band.speed_m_s < band.speed_hi_m_s))
+        assert band.speed_m_s.shape == band.accel_lon_m_s2.shape == band.accel_lat_m_s2.shape
+    # The 1-sigma uncertainty is small but positive for every fitted parameter.
+    for k, s in ggv_fit.uncertainty.items():
+        assert 0.0 < s < 0.05 * abs(getattr(ggv_fit.vehicle, k)), k
+
+
+def test_envelope_boundary_lies_on_combined_limit():
+    # REFERENCES T1.11: boundary points satisfy the superellipse (combined usage 1) to
+    # 1e-12 (rounding), for n = 1.5, 2, 3, with and without aero and power.
+    for n in (1.5, 2.0, 3.0):
+        car = replace(EXAMPLE_CAR, exponent=n)
+        for speed in (15.0, 45.0, 80.0):
+            ax, ay = envelope.envelope_boundary(speed, car, n_points=73)
+            u = combined_usage(np.full(ax.size, speed), ax, ay, car)
+            assert u == pytest.approx(np.ones(ax.size), abs=1e-12)
+
+
+# --- grip estimate -------------------------------------------------------------------
+
+
+def test_required_grip_scale_puts_sample_on_scaled_envelope():
+    # Independent of the closed form: at the returned k, Vehicle.scaled(k) and
+    # limits.combined_usage (the solver's model) must give usage 1 (1e-9: rounding of
+    # the powers). Samples span braking, cornering, traction and power-limited drive.
+    rng = np.random.default_rng(3)
+    v = rng.uniform(12.0, 80.0, 400)
+    ang = rng.uniform(0.0, 2.0 * np.pi, 400)
+    r = rng.uniform(3.0, 14.0, 400)
+    ax, ay = r * np.cos(ang), r * np.sin(ang)
+    k = envelope.required_grip_scale(v, ax, ay, EXAMPLE_CAR)
+    checked = 0
+    for i in np.flatnonzero((k > 0.21) & (k < 1.99)):
+        u = combined_usage(v[i], ax[i], ay[i], EXAMPLE_CAR.scaled(float(k[i])))
+        assert float(u) == pytest.approx(1.0, abs=1e-9)
+        checked += 1
+    assert checked > 200
+    # A driving force beyond P/v is outside at every grip scale.
+    v_top = 60.0
+    ax_over = (1.01 * EXAMPLE_CAR.power_w / v_top - resistance_n(v_top, EXAMPLE_CAR)) / 1300.0
+    assert envelope.required_grip_scale([v_top], [ax_over], [0.0], EXAMPLE_CAR)[0] == math.inf
+
+
+def test_grip_estimate_wet_session_and_own_data(ggv_data):
+    # Issue 4: a dry envelope applied to samples that reached an envelope scaled by 0.75
+    # must give 0.75 (± 0.02, the brief's tolerance); on its own data 1.0 ± 0.02.
+    wet = ggv_samples(np.random.default_rng(75), EXAMPLE_CAR.scaled(0.75), 60_000)
+    assert envelope.grip_estimate(*wet, EXAMPLE_CAR) == pytest.approx(0.75, abs=0.02)
+    assert envelope.grip_estimate(*ggv_data, EXAMPLE_CAR) == pytest.approx(1.0, abs=0.02)
+
+
+def test_grip_estimate_on_fitted_envelope_is_near_one(ggv_fit, ggv_data):
+    # INTERFACE §5: near 1 when the envelope was fitted from the same session (± 0.02).
+    k = envelope.grip_estimate(*ggv_data, ggv_fit.vehicle)
+    assert k == pytest.approx(1.0, abs=0.02)
+
+
+def test_grip_estimate_by_segment_finds_wet_patch():
+    # Two corners at different grip (0.9 and 0.6 of the envelope), one empty segment:
+    # per-segment values within 0.02 (as above), NaN where there are no samples.
+    rng = np.random.default_rng(11)
+    a = ggv_samples(rng, EXAMPLE_CAR.scaled(0.9), 8000, v_hi=40.0)
+    b = ggv_samples(rng, EXAMPLE_CAR.scaled(0.6), 8000, v_hi=40.0)
+    v, ax, ay = (np.concatenate((x, y)) for x, y in zip(a, b, strict=True))
+    seg = np.concatenate((np.zeros(8000, int), np.full(8000, 2)))
+    seg[:100] = -1  # samples in no segment are ignored
+    k = envelope.grip_estimate_by_segment(v, ax, ay, EXAMPLE_CAR, seg)
+    assert k.shape == (3,)
+    assert k[0] == pytest.approx(0.9, abs=0.02)
+    assert math.isnan(k[1])
+    assert k[2] == pytest.approx(0.6, abs=0.02)
+    # The same statistic as grip_estimate on each segment alone.
+    one = envelope.grip_estimate(v[seg == 2], ax[seg == 2], ay[seg == 2], EXAMPLE_CAR)
+    assert k[2] == pytest.approx(one, rel=1e-12)
+
+
+def test_grip_estimate_ignores_masked_and_slow_samples():
+    car = friction_car(mu=1.0)
+    v = np.array([5.0, 20.0, 20.0, 20.0])
+    ay = np.array([20.0, 19.0, 8.0, 8.0])
+    ax = np.zeros(4)
+    # Sample 0 is slower than 10 m/s, sample 1 is masked: k = 8/9.80665 exactly.
+    k = envelope.grip_estimate(v, ax, ay, car, quantile=1.0, mask=[True, False, True, True])
+    assert k == pytest.approx(8.0 / G, rel=1e-12)
+    with pytest.raises(LimitlapError):
+        envelope.grip_estimate(v[:1], ax[:1], ay[:1], car)
+
+
+# --- sample selection ----------------------------------------------------------------
+
+
+def test_lowpass_gain_matches_butterworth_response():
+    # Digital Butterworth (bilinear transform): |H(f)|^2 = 1/(1 + (tan(pi f/fs) /
+    # tan(pi fc/fs))^(2N)) (S. Butterworth 1930; Oppenheim & Schafer, Discrete-Time Signal
+    # Processing, §7.1 -- from memory); forward-backward filtering squares the gain.
+    # Measured in the middle of a 20 s record, away from edge transients: 1e-3.
+    fs, fc, f = 100.0, 3.0, 1.5
+    t = np.arange(0.0, 20.0, 1.0 / fs)
+    ay = 10.0 * np.sin(2 * np.pi * f * t)
+    sel = envelope.select_samples(np.full(t.size, 30.0), np.zeros(t.size), ay,
+                                  sample_rate_hz=fs, cutoff_hz=fc, spike_threshold_m_s2=50.0)
+    gain = 1.0 / (1.0 + (math.tan(math.pi * f / fs) / math.tan(math.pi * fc / fs)) ** 4)
+    mid = slice(500, 1500)
+    assert np.abs(sel.accel_lat_m_s2[mid]).max() == pytest.approx(10.0 * gain, rel=1e-3)
+    # And scipy's own frequency response of the same design agrees with the formula.
+    _, h = signal.sosfreqz(signal.butter(2, fc / (fs / 2), output="sos"), [f], fs=fs)
+    assert abs(h[0]) ** 2 == pytest.approx(gain, rel=1e-9)
+
+
+def test_select_rejects_spikes_slow_and_masked_samples():
+    # Kerb strikes: single-sample 3 g spikes on a smooth 1 g corner. The running median
+    # over 0.3 s (persistence, common practice) takes them out; samples below 10 m/s
+    # (pit lane) and outside the lap mask are dropped; GPS blanks in speed are filled.
+    fs = 100.0
+    n = 2000
+    t = np.arange(n) / fs
+    ay = G * np.sin(2 * np.pi * 0.2 * t)
+    ax = np.zeros(n)
+    spikes = np.array([300, 900, 1500])
+    ay[spikes] += 3.0 * G
+    v = np.where(t < 2.0, 5.0, 40.0)
+    v[1::5] = np.nan  # blanks between slower GPS samples
+    mask = t < 18.0
+    sel = envelope.select_samples(v, ax, ay, mask, sample_rate_hz=fs)
+    assert sel.n_spikes == 3
+    assert not sel.used[spikes].any()
+    assert not sel.used[t < 2.0].any()
+    assert not sel.used[~mask].any()
+    expected = (t >= 2.0) & mask
+    expected[spikes] = False
+    assert np.array_equal(sel.used, expected)
+    assert np.isfinite(sel.speed_m_s[1:-1]).all()
+    # The spikes left no trace in the filtered signal: within 2 % of 1 g of the original.
+    assert np.abs(sel.accel_lat_m_s2 - G * np.sin(2 * np.pi * 0.2 * t))[200:1800].max() < 0.02 * G
+
+
+def test_fit_on_a_time_series_with_kerb_strikes():
+    # A 100 Hz record: speed sweeps 12-80 m/s and back every 120 s, the acceleration
+    # vector circles the envelope at 0.3 rev/s with its radius between 0.7 and 1 of the
+    # limit, white noise 0.1 m/s² and 0.5 % single-sample kerb strikes of 3 g. With the
+    # sample rate the fit despikes and low-passes (select_samples) and must still meet
+    # issue 4's 3 % on the friction coefficients; the spikes are not used.
+    fs = 100.0
+    t = np.arange(0.0, 600.0, 1.0 / fs)
+    rng = np.random.default_rng(8)
+    v = 12.0 + 68.0 * np.abs(((t / 120.0) % 1.0) * 2.0 - 1.0)
+    th = 2.0 * np.pi * 0.3 * t
+    e = EXAMPLE_CAR.exponent
+    sx = np.sign(np.cos(th)) * np.abs(np.cos(th)) ** (2.0 / e)
+    sy = np.sign(np.sin(th)) * np.abs(np.sin(th)) ** (2.0 / e)
+    rho = 0.85 + 0.15 * np.sin(2.0 * np.pi * 0.037 * t)
+    m = EXAMPLE_CAR.mass_kg
+    normal = normal_load_n(v, EXAMPLE_CAR)
+    fx_max = np.where(sx >= 0, drive_force_max_n(v, EXAMPLE_CAR), EXAMPLE_CAR.mu_brk * normal)
+    ax = (rho * sx * fx_max - resistance_n(v, EXAMPLE_CAR)) / m + rng.normal(0, 0.1, t.size)
+    ay = rho * sy * EXAMPLE_CAR.mu_lat * normal / m + rng.normal(0, 0.1, t.size)
+    spikes = rng.choice(t.size, t.size // 200, replace=False)
+    ay[spikes] += 3.0 * G * np.sign(rng.normal(size=spikes.size))
+    fit = envelope.fit_envelope(v, ax, ay, Vehicle("mass only", m), sample_rate_hz=fs)
+    assert not fit.used[spikes].any()
+    assert fit.used.mean() > 0.95
+    for k in ("mu_lat", "mu_brk", "mu_trac"):
+        assert getattr(fit.vehicle, k) == pytest.approx(getattr(EXAMPLE_CAR, k), rel=0.03), k
+    assert fit.vehicle.exponent == pytest.approx(EXAMPLE_CAR.exponent, rel=0.10)
+
+
+# --- warnings and errors -------------------------------------------------------------
+
+
+def test_implausible_lateral_limit_is_a_warning_not_an_error(t21_data):
+    # REFERENCES T4.6: a fitted lateral limit outside 0.5-6 g must warn, not crash.
+    v, ax, ay = t21_data
+    fit = envelope.fit_envelope(v, 5.0 * ax, 5.0 * ay, friction_base())
+    assert any("lateral limit" in w and "6.0 g" in w for w in fit.warnings)
+    assert all("\n" not in w for w in fit.warnings)
+
+
+def test_sparse_band_is_warned(ggv_data):
+    # A band with only a handful of samples near the limit gets a one-line warning.
+    v, ax, ay = ggv_data
+    keep = (v < 60.0) | (np.arange(v.size) % 40 == 0)
+    fit = envelope.fit_envelope(v[keep], ax[keep], ay[keep], Vehicle("m", 1300.0))
+    sparse = [w for w in fit.warnings if w.startswith("speed band")]
+    assert sparse and all("60-65" in w or "65-70" in w or "70-75" in w or "75-80" in w
+                          for w in sparse)
+
+
+def test_too_few_samples_is_a_limitlap_error():
+    with pytest.raises(LimitlapError, match="too few"):
+        envelope.fit_envelope([30.0] * 10, [0.0] * 10, [1.0] * 10, friction_base())
+    with pytest.raises(LimitlapError, match="positive mass"):
+        envelope.fit_envelope([30.0] * 10, [0.0] * 10, [1.0] * 10, Vehicle("x", 0.0))

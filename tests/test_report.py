@@ -1,0 +1,561 @@
+"""Tests of report.py and figures.py: files written whole, report self-contained, PNGs real.
+
+The analysis fixture is built from the project's own solver on an invented closed line: the
+"driven" lap is the solver at a lower grip with speed caps planted in three corners, the
+ideal is the solver at grip 1. Namespaces mimic the pipeline contract (TEAM.md).
+"""
+
+from __future__ import annotations
+
+import dataclasses
+import html.parser
+import json
+import math
+import os
+import re
+import shutil
+import struct
+import subprocess
+import sys
+import tomllib
+import types
+import zlib
+from pathlib import Path
+
+import numpy as np
+import pytest
+
+from limitlap import figures, report
+from limitlap.errors import InputError
+from limitlap.ingest import read_vehicle
+from limitlap.line import line_from_xy
+from limitlap.solve import solve_profile
+from limitlap.units import BAR_TO_PA, KMH_TO_M_S
+from limitlap.vehicle import Vehicle
+
+# --------------------------------------------------------------------------- fixture
+
+CAR = Vehicle(
+    "Invented test saloon",
+    mass_kg=1050.0,
+    power_w=125e3,
+    drag_area_m2=0.68,
+    downforce_area_m2=0.35,
+    rolling_coeff=0.013,
+    mu_lat=1.15,
+    mu_brk=1.2,
+    mu_trac=1.05,
+    exponent=2.0,
+)
+
+
+@dataclasses.dataclass(frozen=True)
+class _Corner:
+    name: str
+    start_m: float
+    apex_m: float
+    end_m: float
+    actual_s: float
+    ideal_s: float
+    time_left_s: float
+    min_speed_actual_m_s: float
+    min_speed_ideal_m_s: float
+    brake_start_actual_m: float
+    brake_start_ideal_m: float
+    grip_used: float
+
+
+def _loop_xy():
+    """An invented closed loop (about 2.1 km) with several corners of different radius."""
+    th = np.linspace(0.0, 2 * np.pi, 400, endpoint=False)
+    r = 330.0 + 70.0 * np.cos(2 * th) + 45.0 * np.sin(3 * th) + 20.0 * np.cos(5 * th)
+    return r * np.cos(th), 0.7 * r * np.sin(th)
+
+
+def _segments(line):
+    """Corner segments by curvature peaks; boundaries at the straightest point between."""
+    k = np.abs(line.curvature_1_m)
+    n = k.size
+    smooth = np.convolve(np.concatenate([k[-15:], k, k[:15]]), np.ones(31) / 31, "same")[15:-15]
+    peak = (smooth > np.roll(smooth, 1)) & (smooth >= np.roll(smooth, -1)) & (smooth > 0.004)
+    apexes = np.flatnonzero(peak)
+    bounds = []
+    for a, b in zip(apexes, np.roll(apexes, -1), strict=True):
+        idx = (np.arange(a, a + ((b - a) % n or n)) % n)
+        bounds.append(idx[np.argmin(smooth[idx])])
+    starts = np.roll(bounds, 1)
+    return list(zip(starts, apexes, bounds, strict=True))
+
+
+def _brake_start(ax, start, apex, n):
+    idx = np.arange(start, start + ((apex - start) % n) + 1) % n
+    braking = ax[idx] < -1.0
+    if not braking.any():
+        return math.nan
+    last = len(idx) - 1 - int(np.argmax(~braking[::-1] & (np.arange(len(idx))[::-1] < len(idx))))
+    first = last
+    while first > 0 and braking[first - 1]:
+        first -= 1
+    return float(idx[first])
+
+
+def make_analysis(tmp_path=None):
+    """A fake pipeline.Analysis from the project's solver (see module docstring)."""
+    x, y = _loop_xy()
+    line = line_from_xy(x, y, spacing_m=2.0)
+    ideal = solve_profile(line, CAR)
+    segs = _segments(line)
+    cap = np.full(line.n, np.inf)
+    for j in (0, 2, 3):  # planted mistakes: a lower minimum speed in three corners
+        _, apex, _ = segs[j % len(segs)]
+        near = np.abs(np.arange(line.n) - apex) < 25
+        cap[near] = ideal.speed_m_s[apex] * (0.86 + 0.02 * j)
+    real = solve_profile(line, CAR, 0.95, speed_cap_m_s=cap)
+    n = line.n
+    s = line.distance_m
+    t_real = np.append(real.time_s, real.lap_time_s)
+    t_ideal = np.append(ideal.time_s, ideal.lap_time_s)
+    delta = real.time_s - ideal.time_s
+    from limitlap.limits import combined_usage
+
+    usage = combined_usage(real.speed_m_s, real.accel_lon_m_s2, real.accel_lat_m_s2, CAR)
+    corners = []
+    for i, (a, apex, b) in enumerate(segs):
+        end = b if b > a else b + n
+        act = t_real[end] - t_real[a] if b > a else (real.lap_time_s - real.time_s[a] + real.time_s[b])
+        ide = t_ideal[end] - t_ideal[a] if b > a else (ideal.lap_time_s - ideal.time_s[a] + ideal.time_s[b])
+        idx = np.arange(a, a + ((b - a) % n)) % n
+        corners.append(
+            _Corner(
+                name=f"T{i + 1}",
+                start_m=float(s[a]),
+                apex_m=float(s[apex]),
+                end_m=float(s[b]),
+                actual_s=float(act),
+                ideal_s=float(ide),
+                time_left_s=float(act - ide),
+                min_speed_actual_m_s=float(real.speed_m_s[idx].min()),
+                min_speed_ideal_m_s=float(ideal.speed_m_s[idx].min()),
+                brake_start_actual_m=float(s[int(bs)]) if np.isfinite(bs := _brake_start(real.accel_lon_m_s2, a, apex, n)) else math.nan,
+                brake_start_ideal_m=float(s[int(bi)]) if np.isfinite(bi := _brake_start(ideal.accel_lon_m_s2, a, apex, n)) else math.nan,
+                grip_used=float(np.clip(np.percentile(usage[idx], 95), 0, 1)),
+            )
+        )
+    ns = types.SimpleNamespace
+    throttle = np.clip(real.accel_lon_m_s2 / 3.0, 0.0, 1.0)
+    brake_pa = np.clip(-real.accel_lon_m_s2, 0.0, None) * 8.0 * BAR_TO_PA
+    driven = ns(
+        line=line,
+        time_s=real.time_s + 431.7,  # log time of the lap's stations
+        speed_m_s=real.speed_m_s,
+        accel_lon_m_s2=real.accel_lon_m_s2,
+        accel_lat_m_s2=real.accel_lat_m_s2,
+        yaw_rate_rad_s=real.accel_lat_m_s2 / real.speed_m_s,
+        throttle=throttle,
+        brake_pa=brake_pa,
+        gear=np.full(n, np.nan),
+        agreement={"rms_1_m": 0.0004},
+        warnings=["GPS dropout of 2.1 s bridged on lap 3 at 812 m"],
+    )
+    comparison = ns(corners=corners, time_delta_s=delta, time_left_s=real.lap_time_s - ideal.lap_time_s)
+    best = ns(
+        time_s=real.lap_time_s - 0.4 * (real.lap_time_s - ideal.lap_time_s),
+        corners=[{"name": c.name, "best_s": c.ideal_s + 0.6 * c.time_left_s, "lap": 2} for c in corners],
+    )
+    fit = ns(
+        vehicle=CAR,
+        quality={"samples": 812, "rms_residual_m_s2": 0.21},
+        uncertainty={"mu_lat": 0.012, "mu_brk": 0.02},
+        warnings=["few samples near the limit above 150 km/h"],
+    )
+    lap = ns(number=3, time_s=real.lap_time_s, distance_m=line.length_m, complete=True)
+    return ns(
+        log_path="sessions/invented_dry.csv",
+        laps=[ns(number=k, complete=k > 0) for k in range(5)],
+        lap=lap,
+        driven=driven,
+        ideal=ideal,
+        vehicle=CAR,
+        fit=fit,
+        grip_scale=1.0,
+        grip_estimate=0.95,
+        comparison=comparison,
+        best_of_laps=best,
+        warnings=[],
+    )
+
+
+@pytest.fixture(scope="module")
+def analysis():
+    return make_analysis()
+
+
+@pytest.fixture(scope="module")
+def written(analysis, tmp_path_factory):
+    out = tmp_path_factory.mktemp("report") / "out"
+    steps = []
+    files = report.write_outputs(analysis, out, progress=lambda d, t, s: steps.append((d, t, s)))
+    return out, files, steps
+
+
+def _conditions():
+    x, y = _loop_xy()
+    line = line_from_xy(x, y, spacing_m=2.0)
+    out = []
+    for label, k in (("dry", 1.0), ("wet", 0.74)):
+        prof = solve_profile(line, CAR, k)
+        corners = []
+        for i, (a, apex, b) in enumerate(_segments(line)):
+            bs = _brake_start(prof.accel_lon_m_s2, a, apex, line.n)
+            corners.append(
+                {
+                    "name": f"T{i + 1}",
+                    "apex_m": float(line.distance_m[apex]),
+                    "entry_speed_kmh": prof.speed_m_s[a] / KMH_TO_M_S,
+                    "brake_start_m": float(line.distance_m[int(bs)]) if np.isfinite(bs) else None,
+                    "min_speed_kmh": prof.speed_m_s[apex] / KMH_TO_M_S,
+                    "exit_speed_kmh": prof.speed_m_s[b] / KMH_TO_M_S,
+                    "segment_time_s": float((prof.time_s[b] - prof.time_s[a]) % prof.lap_time_s),
+                }
+            )
+        out.append({"condition": label, "grip_scale": k, "lap_time_s": prof.lap_time_s, "corners": corners})
+    return out
+
+
+# --------------------------------------------------------------------------- helpers
+
+
+def png_size(data: bytes):
+    """Width and height from a PNG's IHDR chunk (PNG spec, ISO/IEC 15948:2004, §11.2.2)."""
+    assert data[:8] == b"\x89PNG\r\n\x1a\n", "not a PNG signature"
+    length, kind = struct.unpack(">I4s", data[8:16])
+    assert kind == b"IHDR" and length == 13
+    w, h = struct.unpack(">II", data[16:24])
+    crc = struct.unpack(">I", data[29:33])[0]
+    assert crc == zlib.crc32(data[12:29]), "IHDR checksum wrong"
+    return w, h
+
+
+class _TagChecker(html.parser.HTMLParser):
+    """Balanced-tag check with the HTML void elements (WHATWG HTML, 13.1.2) left open."""
+
+    VOID = {"area", "base", "br", "col", "embed", "hr", "img", "input", "link", "meta", "source", "track", "wbr"}
+
+    def __init__(self):
+        super().__init__(convert_charrefs=True)
+        self.stack, self.errors, self.imgs, self.attrs = [], [], [], []
+
+    def handle_starttag(self, tag, attrs):
+        self.attrs.extend(attrs)
+        if tag == "img":
+            self.imgs.append(dict(attrs))
+        if tag not in self.VOID:
+            self.stack.append(tag)
+
+    def handle_endtag(self, tag):
+        if not self.stack or self.stack[-1] != tag:
+            self.errors.append(f"</{tag}> closes <{self.stack[-1] if self.stack else None}>")
+        else:
+            self.stack.pop()
+
+
+# --------------------------------------------------------------------------- atomic writes
+
+
+def test_write_atomic_writes_and_replaces(tmp_path):
+    p = tmp_path / "a.txt"
+    report.write_atomic(p, "one\n")
+    report.write_atomic(p, b"two\n")
+    assert p.read_bytes() == b"two\n"
+    assert [q.name for q in tmp_path.iterdir()] == ["a.txt"]  # no temp file left
+
+
+def test_failed_replace_leaves_previous_file_intact(tmp_path, monkeypatch):
+    p = tmp_path / "summary.json"
+    p.write_text("previous\n")
+
+    def boom(src, dst):
+        raise OSError(28, "No space left on device")
+
+    monkeypatch.setattr(report.os, "replace", boom)
+    with pytest.raises(InputError, match="No space left"):
+        report.write_atomic(p, "new\n")
+    assert p.read_text() == "previous\n"
+    assert [q.name for q in tmp_path.iterdir()] == ["summary.json"]  # temp file removed
+
+
+def test_interrupted_write_leaves_previous_file_intact(tmp_path, monkeypatch):
+    # An interrupt (Ctrl-C) during the write: the earlier file stays, the temp file goes.
+    p = tmp_path / "report.html"
+    p.write_text("previous\n")
+
+    def interrupt(fd):
+        raise KeyboardInterrupt
+
+    monkeypatch.setattr(report.os, "fsync", interrupt)
+    with pytest.raises(KeyboardInterrupt):
+        report.write_atomic(p, "new\n")
+    assert p.read_text() == "previous\n"
+    assert [q.name for q in tmp_path.iterdir()] == ["report.html"]
+
+
+def test_unwritable_folder_is_one_clear_input_error(tmp_path, analysis):
+    blocker = tmp_path / "not_a_folder"
+    blocker.write_text("x")
+    with pytest.raises(InputError) as err:
+        report.write_atomic(blocker / "summary.json", "{}")
+    assert str(blocker) in str(err.value) and "\n" not in str(err.value)
+    with pytest.raises(InputError, match="parent folder does not exist"):
+        report.write_outputs(analysis, tmp_path / "missing" / "out", figures=False)
+    with pytest.raises(InputError, match="is a file"):
+        report.write_outputs(analysis, blocker, figures=False)
+
+
+@pytest.mark.skipif(os.name != "posix" or os.geteuid() == 0, reason="root ignores folder permissions")
+def test_read_only_folder_is_input_error(tmp_path):
+    ro = tmp_path / "ro"
+    ro.mkdir()
+    ro.chmod(0o555)
+    try:
+        with pytest.raises(InputError, match="cannot be written"):
+            report.write_atomic(ro / "x.json", "{}")
+    finally:
+        ro.chmod(0o755)
+
+
+# --------------------------------------------------------------------------- summary.json
+
+
+def test_summary_json_has_interface_fields_and_tiles(written, analysis):
+    out, _, _ = written
+    data = json.loads((out / "summary.json").read_text(encoding="utf-8"))
+    assert data["schema"] == "limitlap.summary/1"
+    assert list(data)[:6] == ["schema", "lap", "ideal", "time_left_s", "grip_estimate", "corners"]
+    assert set(data["lap"]) == {"number", "time_s", "distance_m"}
+    assert set(data["ideal"]) == {"time_s", "grip_scale"}
+    fields = {
+        "name", "start_m", "apex_m", "end_m", "actual_s", "ideal_s", "time_left_s",
+        "min_speed_actual_kmh", "min_speed_ideal_kmh", "brake_start_actual_m",
+        "brake_start_ideal_m", "grip_used",
+    }
+    for c in data["corners"]:
+        assert fields <= set(c)
+    # Tiling (INTERFACE §5): corners' time left add up to the lap's. Rounding is 1e-5 s
+    # per value (summary rounding), so the sum can differ by at most n * 5e-6 s.
+    total = sum(c["time_left_s"] for c in data["corners"])
+    assert total == pytest.approx(data["time_left_s"], abs=len(data["corners"]) * 5e-6 + 1e-9)
+    # km/h conversion exact by definition (SI brochure): 1 km/h = 1/3.6 m/s.
+    c0 = analysis.comparison.corners[0]
+    assert data["corners"][0]["min_speed_ideal_kmh"] == pytest.approx(c0.min_speed_ideal_m_s * 3.6, abs=0.005)
+    assert data["warnings"]  # the fixture's dropout and fit warnings are carried through
+
+
+def test_summary_json_byte_identical_on_two_runs(tmp_path):
+    a = report.write_outputs(make_analysis(), tmp_path / "one", figures=False)
+    b = report.write_outputs(make_analysis(), tmp_path / "two", figures=False)
+    for key in ("summary", "profile", "envelope", "report"):
+        assert a[key].read_bytes() == b[key].read_bytes(), key
+
+
+def test_summary_json_text_rounds_and_rejects_nothing_silently():
+    text = report.summary_json_text({"x_s": np.float64(1 / 3), "n": np.int64(4), "bad_m": float("nan"), "v": [np.float32(0.5)]})
+    assert json.loads(text) == {"x_s": 0.33333, "n": 4, "bad_m": None, "v": [0.5]}
+    with pytest.raises(Exception, match="unsupported type"):
+        report.summary_json_text({"thing": object()})
+
+
+# --------------------------------------------------------------------------- envelope.toml, CSV
+
+
+def test_envelope_toml_round_trips_through_read_vehicle(tmp_path):
+    car = dataclasses.replace(CAR, name='Fitted "envelope" — ü', power_w=123456.789012345, mu_lat=1.2345678901234567, exponent=1.87654321)
+    text = report.envelope_toml_text(car, {"quality": {"rms_m_s2": 0.2, "bands": [1, 2]}, "n": 5})
+    p = report.write_atomic(tmp_path / "envelope.toml", text)
+    back = read_vehicle(p)
+    for f in dataclasses.fields(Vehicle):
+        a, b = getattr(car, f.name), getattr(back, f.name)
+        if isinstance(a, float):
+            # repr() round-trips exactly; power goes through /1000 and *1000 (1 ulp each).
+            assert b == pytest.approx(a, rel=1e-9), f.name
+        else:
+            assert a == b, f.name
+    assert "# Fit of this envelope" in text and "quality.rms_m_s2 = 0.2" in text
+    keys = set(tomllib.loads(text)) - {"grip"}
+    assert keys == {"name", "mass_kg", "power_kw", "drag_area_m2", "downforce_area_m2", "rolling_coeff", "air_density_kg_m3"}
+
+
+def test_written_envelope_reads_back(written):
+    out, _, _ = written
+    back = read_vehicle(out / "envelope.toml")
+    assert back.mu_lat == pytest.approx(CAR.mu_lat, rel=1e-12)  # repr round-trip
+    assert back.power_w == pytest.approx(CAR.power_w, rel=1e-12)
+
+
+def test_profile_csv_headers_units_and_values(written, analysis):
+    out, _, _ = written
+    lines = (out / "profile.csv").read_text().splitlines()
+    header = lines[0].split(",")
+    assert header[:6] == ["distance [m]", "time_actual [s]", "time_ideal [s]", "time_delta [s]", "speed_actual [km/h]", "speed_ideal [km/h]"]
+    assert len(lines) == analysis.driven.line.n + 1
+    row = np.array([float(c) for c in lines[10].split(",")])
+    # 8 significant digits in the file: relative error below 5e-8.
+    assert row[5] == pytest.approx(analysis.ideal.speed_m_s[9] * 3.6, rel=1e-7)
+
+
+# --------------------------------------------------------------------------- report.html and PNGs
+
+
+def test_report_html_is_well_formed_and_self_contained(written):
+    out, files, _ = written
+    text = (out / "report.html").read_text(encoding="utf-8")
+    checker = _TagChecker()
+    checker.feed(text)
+    checker.close()
+    assert checker.errors == [] and checker.stack == [], (checker.errors, checker.stack)
+    pngs = sorted(k for k in files if k.endswith(".png"))
+    assert len(pngs) == len(checker.imgs) >= 8
+    for img in checker.imgs:
+        assert img["src"].startswith("data:image/png;base64,")
+        assert img.get("alt")
+    # Nothing off the machine: no URL schemes, protocol-relative sources, or url(...).
+    assert "http" not in text.lower()
+    assert not re.search(r"""(src|href)\s*=\s*["']?//""", text)
+    assert "url(" not in text and "@import" not in text and "<script" not in text.lower()
+    assert report.SAFETY_CAUTION in text.replace("&#x27;", "'")
+    for word in ("point mass", "quasi-steady state", "your own line", "Warnings", "GPS dropout"):
+        assert word in text
+
+
+def test_every_png_is_a_real_png_of_the_expected_size(written):
+    out, files, _ = written
+    kinds = {"speed.png": "speed", "time_delta.png": "delta", "time_left.png": "time_left", "map.png": "map", "gg.png": "gg", "best_of_laps.png": "best"}
+    import base64
+
+    text = (out / "report.html").read_text(encoding="utf-8")
+    inline = [base64.b64decode(m) for m in re.findall(r'src="data:image/png;base64,([^"]+)"', text)]
+    for name in (k for k in files if k.endswith(".png")):
+        data = (out / name).read_bytes()
+        kind = kinds.get(name, "detail")
+        assert png_size(data) == figures.FIGURE_SIZE_PX[kind], name
+        assert data in inline, f"{name} not inline in the report"
+    import matplotlib.image
+
+    img = matplotlib.image.imread(out / "speed.png")
+    assert img.shape[:2] == figures.FIGURE_SIZE_PX["speed"][::-1]
+    assert img[..., :3].std() > 0.05  # not a blank canvas
+
+
+def test_progress_reports_every_step(written):
+    _, _, steps = written
+    total = steps[0][1]
+    assert [d for d, _, _ in steps] == list(range(1, total + 1))
+    assert any("figure" in s for _, _, s in steps) and steps[-1][2] == "report.html"
+
+
+def test_importing_report_does_not_import_matplotlib():
+    code = "import sys, limitlap.report, limitlap.figures; print('matplotlib' in sys.modules)"
+    res = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, check=True, cwd=Path(__file__).parents[1])
+    assert res.stdout.strip() == "False"
+
+
+def test_envelope_boundary_matches_interface_limits_and_solver():
+    from limitlap import _kernels, limits
+    from limitlap.solve import vehicle_array
+
+    v = 40.0
+    ay, ax = figures.envelope_boundary(v, CAR, n_points=101)
+    # Pure cornering, braking and driving points are the §3 limits (closed forms on
+    # both sides; rel=1e-12 is rounding).
+    assert np.max(ay) == pytest.approx(float(limits.lateral_limit_m_s2(v, CAR)), rel=1e-12)
+    assert -np.min(ax) == pytest.approx(float(limits.braking_limit_m_s2(v, CAR)), rel=1e-12)
+    assert np.max(ax) == pytest.approx(float(limits.driving_limit_m_s2(v, CAR)), rel=1e-12)
+    # Every point is where the solver's own kernels put the limit at that lateral demand
+    # (kappa = a_y / v^2); the same superellipse evaluated two ways, so 1e-9 m/s² is rounding.
+    veh = vehicle_array(CAR)
+    half = ay.size // 2
+    for a_y, a_x_drive, a_x_brake in zip(ay[:half], ax[:half], ax[half:][::-1], strict=True):
+        kappa = a_y / v**2
+        assert a_x_drive == pytest.approx(_kernels.drive_accel(kappa, v * v, 0.0, veh), abs=1e-9)
+        assert -a_x_brake == pytest.approx(_kernels.brake_decel(kappa, v * v, 0.0, veh), abs=1e-9)
+
+
+def test_time_loss_rate_of_linear_delta_is_its_slope():
+    s = np.arange(0.0, 500.0, 2.0)
+    rate = figures.time_loss_rate(s, 0.001 * s + 0.2, closed=False)
+    # Linear delta: gradient exact; the moving average keeps it except within a window of the ends.
+    assert np.allclose(rate[10:-10], 0.001, rtol=1e-12)
+
+
+# --------------------------------------------------------------------------- target sheets
+
+
+def test_target_sheets_pdf_png_and_csv(tmp_path):
+    conds = _conditions()
+    files = report.write_target_sheets(conds, tmp_path / "targets", "Invented Ring")
+    names = sorted(p.name for p in files)
+    assert names == ["targets.csv", "targets_dry.pdf", "targets_dry.png", "targets_wet.pdf", "targets_wet.png"]
+    for p in files:
+        data = p.read_bytes()
+        if p.suffix == ".png":
+            assert png_size(data) == figures.FIGURE_SIZE_PX["target_sheet"]
+        elif p.suffix == ".pdf":
+            assert data.startswith(b"%PDF-") and b"%%EOF" in data[-64:]
+            assert data.count(b"/Type /Page\n") + data.count(b"/Type /Page ") + data.count(b"/Type /Page>") == 1
+    rows = (tmp_path / "targets" / "targets.csv").read_text().splitlines()
+    assert rows[0].startswith("condition,grip_scale [-],lap_time [s],corner")
+    assert len(rows) == 1 + sum(len(c["corners"]) for c in conds)
+    wet = [r.split(",") for r in rows[1:] if r.startswith("wet,")]
+    assert float(wet[0][2]) == pytest.approx(conds[1]["lap_time_s"], abs=5e-4)  # 3 decimals
+
+
+def test_target_sheet_pdf_is_deterministic():
+    cond = report._condition(_conditions()[1])
+    a = figures.target_sheet(cond, "Invented Ring", report.SAFETY_CAUTION, fmt="pdf")
+    b = figures.target_sheet(cond, "Invented Ring", report.SAFETY_CAUTION, fmt="pdf")
+    assert a == b
+
+
+# --------------------------------------------------------------------------- browser
+
+
+def _browser():
+    for name in ("chromium", "chromium-browser", "google-chrome", "chrome"):
+        path = shutil.which(name)
+        if path:
+            return path
+    return "/usr/bin/chromium" if Path("/usr/bin/chromium").exists() else None
+
+
+@pytest.mark.browser
+def test_report_renders_in_headless_chromium(written, tmp_path):
+    browser = _browser()
+    if browser is None:
+        pytest.skip("no Chromium binary found (install Debian's 'chromium' package)")
+    out, files, _ = written
+    text = (out / "report.html").read_text(encoding="utf-8")
+    # A copy with a small inline probe (loads nothing) that marks the body once every
+    # image has decoded; the shipped report itself has no script.
+    probe = (
+        "<script>window.addEventListener('load',function(){var im=document.images,ok=0;"
+        "for(var i=0;i<im.length;i++){if(im[i].complete&&im[i].naturalWidth>0)ok++;}"
+        "document.body.setAttribute('data-images-ok',ok+'/'+im.length);});</script>"
+    )
+    page = tmp_path / "report_probe.html"
+    page.write_text(text.replace("</body>", probe + "</body>"), encoding="utf-8")
+    flags = [
+        "--headless", "--no-sandbox", "--disable-gpu", "--disable-quic", "--no-first-run",
+        "--disable-background-networking", "--disable-component-update", "--disable-sync",
+        f"--user-data-dir={tmp_path / 'profile'}", "--virtual-time-budget=5000",
+    ]
+    dom = subprocess.run([browser, *flags, "--dump-dom", page.as_uri()], capture_output=True, text=True, timeout=120)
+    assert dom.returncode == 0, dom.stderr[-2000:]
+    n_img = sum(1 for k in files if k.endswith(".png"))
+    assert f'data-images-ok="{n_img}/{n_img}"' in dom.stdout
+    shot = tmp_path / "report.png"
+    res = subprocess.run([browser, *flags, f"--screenshot={shot}", "--window-size=1280,2400", (out / "report.html").as_uri()], capture_output=True, text=True, timeout=120)
+    assert res.returncode == 0 and shot.exists(), res.stderr[-2000:]
+    assert png_size(shot.read_bytes()) == (1280, 2400)
+    import matplotlib.image
+
+    pixels = matplotlib.image.imread(shot)
+    assert pixels[..., :3].std() > 0.05  # something was drawn, not a blank page
