@@ -573,7 +573,7 @@ def _plausibility(veh, v, names, uncertainty):
 
 
 def envelope_boundary(speed_m_s, vehicle: Vehicle, n_points=181):
-    """Points on the envelope at one speed, for plotting and tests.
+    r"""Points on the envelope at one speed, for plotting and tests.
 
     Parameters
     ----------
@@ -592,7 +592,7 @@ def envelope_boundary(speed_m_s, vehicle: Vehicle, n_points=181):
     Notes
     -----
     The unit superellipse :math:`|s_x|^n + |s_y|^n = 1` parametrised as
-    :math:`s = (\\mathrm{sgn}\\cos t |\\cos t|^{2/n}, \\mathrm{sgn}\\sin t |\\sin t|^{2/n})`,
+    :math:`s = (\mathrm{sgn}\cos t |\cos t|^{2/n}, \mathrm{sgn}\sin t |\sin t|^{2/n})`,
     then scaled by the tyre force limits of INTERFACE §3, cut at the power limit
     :math:`F_x \le P/v` (the solver's model) and shifted by the resistance.
 
@@ -654,7 +654,7 @@ def required_grip_scale(speed_m_s, accel_lon_m_s2, accel_lat_m_s2, vehicle: Vehi
     :math:`F_x \le P/v` that k does not change (:func:`limitlap.limits.combined_usage`,
     the solver's model). Hence :math:`k = u_1`, or ``inf`` when :math:`F_x > P/v`.
     """
-    return _grip_demand(speed_m_s, accel_lon_m_s2, accel_lat_m_s2, vehicle)[0]
+    return _grip_demand(speed_m_s, accel_lon_m_s2, accel_lat_m_s2, vehicle)
 
 
 def _prepare(speed_m_s, accel_lon_m_s2, accel_lat_m_s2, mask, min_speed_m_s):

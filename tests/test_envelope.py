@@ -14,7 +14,7 @@ from scipy.spatial import ConvexHull
 
 from limitlap import envelope
 from limitlap.errors import LimitlapError
-from limitlap.limits import combined_usage, drive_force_max_n, normal_load_n, resistance_n
+from limitlap.limits import combined_usage, normal_load_n, resistance_n
 from limitlap.units import G0_M_S2
 from limitlap.vehicle import Vehicle
 from tests.cases import EXAMPLE_CAR, friction_car
@@ -35,12 +35,13 @@ def superellipse_samples(rng, n, a_x, b_y, exponent, noise=0.0):
 
 
 def ggv_samples(rng, vehicle, n, v_lo=12.0, v_hi=80.0, on_limit=0.3, noise=0.05):
-    """Samples on and inside the speed-dependent envelope of INTERFACE §3 (limits.py).
+    """Samples on and inside the speed-dependent envelope of INTERFACE §3.
 
-    Each sample: a speed, a direction in the normalised tyre-force plane (unit
-    superellipse of the vehicle's exponent), a radius 1 (share ``on_limit``) or
-    sqrt(U) (uniform in area), mapped to accelerations with the force limits at that
-    speed, plus Gaussian noise (m/s²).
+    Each sample: a speed, a point of the unit superellipse of the vehicle's exponent
+    scaled by the tyre force limits at that speed (mu N), the driving force cut at the
+    power limit P/v (the solver's model, _kernels.drive_accel), then a radius 1 (share
+    ``on_limit``) or sqrt(U) towards the tyre-force origin, mapped to accelerations
+    (minus drag and rolling resistance), plus Gaussian noise (m/s²).
     """
     v = rng.uniform(v_lo, v_hi, n)
     t = rng.uniform(0.0, 2.0 * np.pi, n)
@@ -48,12 +49,17 @@ def ggv_samples(rng, vehicle, n, v_lo=12.0, v_hi=80.0, on_limit=0.3, noise=0.05)
     sx = np.sign(np.cos(t)) * np.abs(np.cos(t)) ** (2.0 / e)
     sy = np.sign(np.sin(t)) * np.abs(np.sin(t)) ** (2.0 / e)
     rho = np.where(rng.random(n) < on_limit, 1.0, np.sqrt(rng.random(n)))
-    m = vehicle.mass_kg
+    ax, ay = model_point(v, sx, sy, rho, vehicle)
+    return v, ax + rng.normal(0.0, noise, n), ay + rng.normal(0.0, noise, n)
+
+
+def model_point(v, sx, sy, rho, vehicle):
+    """Accelerations of tyre shares (sx, sy) on the unit superellipse, scaled by rho."""
     normal = normal_load_n(v, vehicle)
-    fx_max = np.where(sx >= 0, drive_force_max_n(v, vehicle), vehicle.mu_brk * normal)
-    ax = (rho * sx * fx_max - resistance_n(v, vehicle)) / m + rng.normal(0.0, noise, n)
-    ay = rho * sy * vehicle.mu_lat * normal / m + rng.normal(0.0, noise, n)
-    return v, ax, ay
+    fx = sx * np.where(sx >= 0, vehicle.mu_trac, vehicle.mu_brk) * normal
+    fx = np.minimum(fx, vehicle.power_w / v)
+    m = vehicle.mass_kg
+    return (rho * fx - resistance_n(v, vehicle)) / m, rho * sy * vehicle.mu_lat * normal / m
 
 
 def friction_base(mass_kg=1000.0):
@@ -172,8 +178,15 @@ def test_ggv_recovers_friction_aero_and_power(ggv_fit):
     assert car.downforce_area_m2 == pytest.approx(true.downforce_area_m2, rel=0.05)
     assert car.rolling_coeff == envelope.ROLLING_COEFF_DEFAULT
     assert car.is_complete
-    assert set(ggv_fit.fitted) == {"mu_lat", "mu_brk", "mu_trac", "exponent", "power_w",
-                                   "drag_area_m2", "downforce_area_m2"}
+    assert set(ggv_fit.fitted) == {
+        "mu_lat",
+        "mu_brk",
+        "mu_trac",
+        "exponent",
+        "power_w",
+        "drag_area_m2",
+        "downforce_area_m2",
+    }
     assert any("rolling resistance" in w for w in ggv_fit.warnings)
 
 
@@ -288,8 +301,14 @@ def test_lowpass_gain_matches_butterworth_response():
     fs, fc, f = 100.0, 3.0, 1.5
     t = np.arange(0.0, 20.0, 1.0 / fs)
     ay = 10.0 * np.sin(2 * np.pi * f * t)
-    sel = envelope.select_samples(np.full(t.size, 30.0), np.zeros(t.size), ay,
-                                  sample_rate_hz=fs, cutoff_hz=fc, spike_threshold_m_s2=50.0)
+    sel = envelope.select_samples(
+        np.full(t.size, 30.0),
+        np.zeros(t.size),
+        ay,
+        sample_rate_hz=fs,
+        cutoff_hz=fc,
+        spike_threshold_m_s2=50.0,
+    )
     gain = 1.0 / (1.0 + (math.tan(math.pi * f / fs) / math.tan(math.pi * fc / fs)) ** 4)
     mid = slice(500, 1500)
     assert np.abs(sel.accel_lat_m_s2[mid]).max() == pytest.approx(10.0 * gain, rel=1e-3)
@@ -341,10 +360,9 @@ def test_fit_on_a_time_series_with_kerb_strikes():
     sy = np.sign(np.sin(th)) * np.abs(np.sin(th)) ** (2.0 / e)
     rho = 0.85 + 0.15 * np.sin(2.0 * np.pi * 0.037 * t)
     m = EXAMPLE_CAR.mass_kg
-    normal = normal_load_n(v, EXAMPLE_CAR)
-    fx_max = np.where(sx >= 0, drive_force_max_n(v, EXAMPLE_CAR), EXAMPLE_CAR.mu_brk * normal)
-    ax = (rho * sx * fx_max - resistance_n(v, EXAMPLE_CAR)) / m + rng.normal(0, 0.1, t.size)
-    ay = rho * sy * EXAMPLE_CAR.mu_lat * normal / m + rng.normal(0, 0.1, t.size)
+    ax, ay = model_point(v, sx, sy, rho, EXAMPLE_CAR)
+    ax += rng.normal(0, 0.1, t.size)
+    ay += rng.normal(0, 0.1, t.size)
     spikes = rng.choice(t.size, t.size // 200, replace=False)
     ay[spikes] += 3.0 * G * np.sign(rng.normal(size=spikes.size))
     fit = envelope.fit_envelope(v, ax, ay, Vehicle("mass only", m), sample_rate_hz=fs)
@@ -369,11 +387,12 @@ def test_implausible_lateral_limit_is_a_warning_not_an_error(t21_data):
 def test_sparse_band_is_warned(ggv_data):
     # A band with only a handful of samples near the limit gets a one-line warning.
     v, ax, ay = ggv_data
-    keep = (v < 60.0) | (np.arange(v.size) % 40 == 0)
+    keep = (v < 60.0) | (np.arange(v.size) % 200 == 0)
     fit = envelope.fit_envelope(v[keep], ax[keep], ay[keep], Vehicle("m", 1300.0))
     sparse = [w for w in fit.warnings if w.startswith("speed band")]
-    assert sparse and all("60-65" in w or "65-70" in w or "70-75" in w or "75-80" in w
-                          for w in sparse)
+    assert sparse and all(
+        "60-65" in w or "65-70" in w or "70-75" in w or "75-80" in w for w in sparse
+    )
 
 
 def test_too_few_samples_is_a_limitlap_error():
