@@ -42,7 +42,7 @@ from scipy import signal
 
 from limitlap import limits
 from limitlap.errors import LimitlapError
-from limitlap.line import Line, self_intersects
+from limitlap.line import Line
 from limitlap.solve import Profile, solve_profile
 from limitlap.units import BAR_TO_PA, DEG_TO_RAD, G0_M_S2, KMH_TO_M_S
 from limitlap.vehicle import Vehicle
@@ -125,7 +125,7 @@ def _corner(angle_deg, radius_m, ramp_in_m, ramp_out_m, name):
 
 # Tarrowby Heath, an invented circuit, driven clockwise. Elements: ("straight", L, name),
 # ("ramp", L, curvature at its end) = clothoid, ("arc", L, name) holds the curvature.
-# The lengths of "main", "s6", "s9" and of arc "T8b" are nominal: the closure solves them.
+# The lengths of "main", "s6", "s9" and of arc "T11b" are nominal: the closure solves them.
 _TARROWBY_LABELS = {
     "T1": "Sentry",
     "T2": "Lantern",
@@ -134,10 +134,10 @@ _TARROWBY_LABELS = {
     "T5": "Brambles",
     "T6": "Brambles exit",
     "T7": "Weir",
-    "T8": "Two Oaks",
-    "T9": "Flick",
-    "T10": "Ferrier",
-    "T11": "Ferrier exit",
+    "T8": "Flick",
+    "T9": "Ferrier",
+    "T10": "Ferrier exit",
+    "T11": "Two Oaks",
     "T12": "Homecoming",
 }
 
@@ -156,14 +156,14 @@ def _tarrowby_elements(lengths):
     e += [("straight", 110, "s5")]
     e += _corner(85, 75, 30, 30, "T7")  # left
     e += [("straight", lengths["s6"], "s6")]
-    e += _corner(10, 500, 40, 40, "T9")  # flat-out kink
+    e += _corner(10, 500, 40, 40, "T8")  # flat-out kink
     e += [("straight", 150, "s7")]
-    e += _corner(-35, 140, 30, 30, "T10") + [("straight", 60, "s7b")]
-    e += _corner(35, 170, 30, 30, "T11")
+    e += [*_corner(-35, 140, 30, 30, "T9"), ("straight", 60, "s7b")]
+    e += _corner(35, 170, 30, 30, "T10")
     e += [("straight", 100, "s8")]
     # same-direction double apex: tighten, open up, tighten again
-    e += [("ramp", 22, -1 / 50), ("arc", 20, "T8"), ("ramp", 20, -1 / 140)]
-    e += [("arc", 25, "T8 middle"), ("ramp", 20, -1 / 45), ("arc", lengths["T8b"], "T8b")]
+    e += [("ramp", 22, -1 / 50), ("arc", 20, "T11"), ("ramp", 20, -1 / 140)]
+    e += [("arc", 25, "T11 middle"), ("ramp", 20, -1 / 45), ("arc", lengths["T11b"], "T11b")]
     e += [("ramp", 28, 0.0), ("straight", lengths["s9"], "s9")]
     e += _corner(-90, 80, 35, 40, "T12")  # onto the main straight
     return e
@@ -226,11 +226,10 @@ def _close(elements_of, lengths, hold_name, hold_kappa, straights, turn_rad, ste
 def demo_circuit(spacing_m: float = 1.0, *, elevation: bool = True) -> Circuit:
     """The invented demo circuit *Tarrowby Heath* (about 3.6 km, 12 corners, clockwise).
 
-    Corners: a medium right after the main straight (T1), a left (T2), a fast right
-    sweeper (T3), a hairpin (T4), a left-right chicane (T5/T6), a left (T7), a flat-out
-    kink (T9), a right-left pair (T10/T11), a same-direction double-apex right (T8, named
-    in driving order after T11 for its two apexes ``T8``/``T8b``... see :attr:`corners`),
-    and the last right onto the main straight (T12). Curvature is piecewise linear in
+    Corners in driving order: a medium right after the main straight (T1), a left (T2),
+    a fast right sweeper (T3), a hairpin (T4), a left-right chicane (T5/T6), a left (T7),
+    a flat-out kink (T8), a right-left pair (T9/T10), a same-direction double-apex right
+    (T11, apexes ``T11`` and ``T11b``) and the last right onto the main straight (T12). Curvature is piecewise linear in
     distance (clothoid transitions), so it is continuous everywhere.
 
     Parameters
@@ -252,10 +251,10 @@ def demo_circuit(spacing_m: float = 1.0, *, elevation: bool = True) -> Circuit:
     (True, 13)
     """
     step = 0.05  # fine integration step [m]; position error O(step²) ~ 1e-5 m per lap
-    nominal = {"main": 720.0, "s6": 100.0, "s9": 300.0, "T8b": 15.0}
-    lengths = _close(_tarrowby_elements, nominal, "T8b", -1 / 45, ("s6", "s9"), -2 * math.pi, step)
+    nominal = {"main": 720.0, "s6": 100.0, "s9": 300.0, "T11b": 15.0}
+    lengths = _close(_tarrowby_elements, nominal, "T11b", -1 / 45, ("s6", "s9"), -2 * math.pi, step)
     s_kn, k_kn, spans = _knots(_tarrowby_elements(lengths))
-    s_f, _k_f, psi_f, x_f, y_f = _integrate(s_kn, k_kn, step)
+    s_f, _k_f, _psi_f, x_f, y_f = _integrate(s_kn, k_kn, step)
     length = float(s_f[-1])
     # Gate 250 m down the main straight; rotate the layout 25° and place it in ENU.
     gate_s = 250.0
@@ -280,7 +279,7 @@ def demo_circuit(spacing_m: float = 1.0, *, elevation: bool = True) -> Circuit:
     line = Line(st, kappa, grad, length, True, x, y, z, {"name": "Tarrowby Heath"})
     corners = []
     for kind, name, s0, s1, k0, _k1 in spans:
-        if kind == "arc" and name in _TARROWBY_LABELS or name == "T8b":
+        if kind == "arc" and (name in _TARROWBY_LABELS or name == "T11b"):
             apex = ((s0 + s1) / 2 - gate_s) % length
             label = _TARROWBY_LABELS.get(name, "Two Oaks, second apex")
             corners.append(CornerMark(name, float(apex), float(1.0 / k0), label))
@@ -327,8 +326,12 @@ def circle_circuit(radius_m: float = 100.0, spacing_m: float = 1.0) -> Circuit:
     )
     corner = CornerMark("C1", length / 2, radius_m, "circle")
     return Circuit(
-        f"circle R={radius_m:g} m", line, (-33.8612, 147.2391, 286.0), (corner,),
-        pit_exit_m=0.1 * length, pit_entry_m=0.9 * length,
+        f"circle R={radius_m:g} m",
+        line,
+        (-33.8612, 147.2391, 286.0),
+        (corner,),
+        pit_exit_m=0.1 * length,
+        pit_entry_m=0.9 * length,
     )
 
 
@@ -363,8 +366,8 @@ class Mistake:
 #: The planted mistakes of the demo sessions (on Tarrowby Heath).
 DEMO_MISTAKES = (
     Mistake("T1", 0.09, before_m=35.0, after_m=5.0),  # brakes early, too slow in
-    Mistake("T7", 0.08, before_m=10.0, after_m=10.0),  # mid-corner lift
-    Mistake("T10", 0.08, before_m=5.0, after_m=35.0),  # late on the throttle
+    Mistake("T7", 0.11, before_m=12.0, after_m=12.0),  # mid-corner lift
+    Mistake("T9", 0.08, before_m=5.0, after_m=35.0),  # late on the throttle
 )
 
 
@@ -537,7 +540,7 @@ def generate_session(
     mistakes=DEMO_MISTAKES,
     mistake_laps=None,
     limit_laps=(),
-    lap_variation: float = 0.004,
+    lap_variation: float = 0.002,
     out_lap_pace: float = 0.7,
     in_lap_pace: float = 0.6,
     idle_s: float = 5.0,
@@ -647,7 +650,9 @@ def generate_session(
     mistake_cap = inf.copy()
     for m in mistakes:
         apex = circuit.corner(m.corner).apex_m if m.apex_m is None else m.apex_m
-        mask, cap, v_min = _window_cap(line, ideal.speed_m_s, apex, m.before_m, m.after_m, m.speed_drop)
+        mask, cap, v_min = _window_cap(
+            line, ideal.speed_m_s, apex, m.before_m, m.after_m, m.speed_drop
+        )
         planted_masks.append((m, apex, mask, cap, v_min))
         mistake_cap[mask] = np.minimum(mistake_cap[mask], cap)
     varied = [c for c in circuit.corners if c.apex_m < line.length_m - 1.0][:-1]  # not the last
@@ -658,14 +663,18 @@ def generate_session(
         if k not in limit_laps and lap_variation > 0:
             for c in varied:
                 mask, vcap, _ = _window_cap(
-                    line, ideal.speed_m_s, c.apex_m, 10.0, 10.0,
+                    line,
+                    ideal.speed_m_s,
+                    c.apex_m,
+                    10.0,
+                    10.0,
                     abs(rng.normal(0.0, lap_variation)),
                 )
                 cap[mask] = np.minimum(cap[mask], vcap)
         lap_caps.append(cap)
 
     # --- the whole session as one open line ---------------------------------------
-    idx, lap_of, dist, ds, i0 = _tile(line, circuit.pit_exit_m, n_laps, circuit.pit_entry_m)
+    idx, lap_of, dist, ds, _i0 = _tile(line, circuit.pit_exit_m, n_laps, circuit.pit_entry_m)
     last_apex = circuit.corners[-1].apex_m
     first_apex = circuit.corners[0].apex_m
     s_lap = line.distance_m[idx]
@@ -681,16 +690,17 @@ def generate_session(
     cap[inl] = lap_caps[-1][idx[inl]]
     cap[slow_in] = np.minimum(cap[slow_in], in_lap_pace * ideal.speed_m_s[idx[slow_in]])
     cap = np.where(np.isfinite(cap), cap, 1e9)
-    session_line = Line(
-        dist, line.curvature_1_m[idx], line.gradient[idx], float(dist[-1]), False
+    session_line = Line(dist, line.curvature_1_m[idx], line.gradient[idx], float(dist[-1]), False)
+    prof = solve_profile(
+        session_line, car, entry_speed_m_s=0.0, exit_speed_m_s=0.0, speed_cap_m_s=cap
     )
-    prof = solve_profile(session_line, car, entry_speed_m_s=0.0, exit_speed_m_s=0.0,
-                         speed_cap_m_s=cap)
     t_st = prof.time_s + idle_s
     gate_rows = np.flatnonzero(idx == 0)
     gate_times = t_st[gate_rows]
     lap_times = np.diff(gate_times)
-    solver_times = np.array([solve_profile(line, car, speed_cap_m_s=c).lap_time_s for c in lap_caps])
+    solver_times = np.array(
+        [solve_profile(line, car, speed_cap_m_s=c).lap_time_s for c in lap_caps]
+    )
 
     # --- mistakes: cost of each on its own ------------------------------------------
     planted = []
@@ -698,16 +708,17 @@ def generate_session(
         one = inf.copy()
         one[mask] = vcap
         cost = solve_profile(line, car, speed_cap_m_s=one).lap_time_s - ideal.lap_time_s
-        s_in = line.distance_m[mask]
-        rel = (s_in - apex + line.length_m / 2) % line.length_m - line.length_m / 2
         window = ((apex - m.before_m) % line.length_m, (apex + m.after_m) % line.length_m)
-        del rel
-        planted.append(PlantedMistake(m.corner, float(apex), window, float(vcap), v_min, float(cost)))
-    mistake_profile = solve_profile(line, car, speed_cap_m_s=np.where(np.isfinite(mistake_cap), mistake_cap, 1e9))
+        planted.append(
+            PlantedMistake(m.corner, float(apex), window, float(vcap), v_min, float(cost))
+        )
+    mistake_profile = solve_profile(
+        line, car, speed_cap_m_s=np.where(np.isfinite(mistake_cap), mistake_cap, 1e9)
+    )
 
     # --- sample in time --------------------------------------------------------------
     t_end = t_st[-1] + idle_s
-    n_rows = int(math.floor(t_end * sample_rate_hz)) + 1
+    n_rows = math.floor(t_end * sample_rate_hz) + 1
     t = np.arange(n_rows) / sample_rate_hz
     d = np.interp(t, t_st, dist)  # standing still before and after: clamped
     v = np.interp(t, t_st, prof.speed_m_s)
@@ -716,7 +727,7 @@ def generate_session(
     ax = np.where(moving, ax, 0.0)
     j = np.clip(np.searchsorted(dist, d, side="right") - 1, 0, dist.shape[0] - 2)
     frac = (d - dist[j]) / ds
-    s_of_row = (circuit.pit_exit_m // 1 * 0 + line.distance_m[idx[j]] + frac * ds) % line.length_m
+    s_of_row = (line.distance_m[idx[j]] + frac * ds) % line.length_m
     # true position: interpolate on the closed line by distance (periodic)
     s_ring = np.append(line.distance_m, line.length_m)
 
@@ -804,3 +815,57 @@ def generate_session(
         gps_error_m=gps_err,
     )
     return Session(t, channels, truth)
+
+
+# --------------------------------------------------------------------------- CSV text
+
+#: Columns of :func:`session_csv_text`: channel, header unit, factor SI -> that unit,
+#: decimals. Units are INTERFACE §1 spellings; factors come from :mod:`limitlap.units`.
+_CSV_COLUMNS = (
+    ("latitude", "deg", 1.0, 8),
+    ("longitude", "deg", 1.0, 8),
+    ("altitude", "m", 1.0, 2),
+    ("speed", "km/h", 1.0 / KMH_TO_M_S, 2),
+    ("accel_lon", "g", 1.0 / G0_M_S2, 3),
+    ("accel_lat", "g", 1.0 / G0_M_S2, 3),
+    ("yaw_rate", "deg/s", 1.0 / DEG_TO_RAD, 2),
+    ("throttle", "%", 100.0, 1),
+    ("brake", "bar", 1.0 / BAR_TO_PA, 1),
+    ("steer", "deg", 1.0 / DEG_TO_RAD, 1),
+    ("gear", "", 1.0, 0),
+)
+
+
+def session_csv_text(session: Session, *, lap_column: bool = False, columns=None) -> str:
+    """The session as INTERFACE §1 CSV text, e.g. ``time [s],latitude [deg],...``.
+
+    Blank cells where a channel has no sample (GNSS between fixes).
+
+    Parameters
+    ----------
+    session : Session
+    lap_column : bool
+        Add the true lap number as a ``lap`` column (0 = out-lap).
+    columns : sequence of str, optional
+        Channels to write (``time`` always comes first); default all.
+
+    Returns
+    -------
+    str
+        The CSV text, header row first, ``\\n`` line ends.
+    """
+    import polars as pl
+
+    data = {"time [s]": np.round(session.time_s, 3)}
+    for name, unit, factor, decimals in _CSV_COLUMNS:
+        if columns is not None and name not in columns:
+            continue
+        values = np.round(session.channels[name] * factor, decimals)
+        header = f"{name} [{unit}]" if unit else name
+        if decimals == 0:
+            data[header] = pl.Series(header, values).cast(pl.Int64, strict=False)
+        else:
+            data[header] = pl.Series(header, values, nan_to_null=True)
+    if lap_column:
+        data["lap"] = session.truth.lap_number.astype(np.int64)
+    return pl.DataFrame(data).write_csv(null_value="")

@@ -1,0 +1,98 @@
+"""Regenerate the bundled demo data of Tarrowby Heath, an invented circuit.
+
+Run from the repository root: ``python demo_tracks/make_demo.py``. Deterministic
+(fixed seeds): running it again writes the same bytes.
+
+Writes, next to this script:
+
+- ``tarrowby_heath.toml``      track file: name, ENU origin, gate, corner names and apexes
+- ``tarrowby_heath_line.csv``  the reference line (INTERFACE §2, x/y/z in the origin's ENU frame)
+- ``tarrowby_dry.csv.gz``      dry session: out-lap, 7 flying laps, in-lap; 100 Hz, 10 Hz GNSS
+- ``tarrowby_wet.csv.gz``      wet session (grip scale 0.75): out-lap, 4 laps, in-lap
+- ``tarrowby_truth.json``      what the generator planted (lap times, mistakes, ideal laps)
+"""
+
+from __future__ import annotations
+
+import gzip
+import json
+from pathlib import Path
+
+from limitlap import synth
+from limitlap.driven import line_csv_text
+
+HERE = Path(__file__).resolve().parent
+DRY = {"n_laps": 7, "grip_scale": 1.0, "seed": 20240611}
+WET = {"n_laps": 4, "grip_scale": 0.75, "seed": 20240612}
+
+
+def track_toml(circuit: synth.Circuit) -> str:
+    """The track file text (our own small format)."""
+    lat0, lon0, h0 = circuit.origin
+    lat, lon = circuit.gate_latlon
+    out = [
+        "# Tarrowby Heath: an invented circuit for the limitlap demo (not a real place's data).",
+        "# Written by demo_tracks/make_demo.py.",
+        f'name = "{circuit.name}"',
+        f"length_m = {circuit.line.length_m:.3f}",
+        'line = "tarrowby_heath_line.csv"   # x/y/z in the ENU frame at [origin]',
+        "",
+        "[origin]                            # WGS84, ellipsoidal height",
+        f"latitude = {lat0:.8f}",
+        f"longitude = {lon0:.8f}",
+        f"height_m = {h0:.3f}",
+        "",
+        "[gate]                              # a point on the start/finish straight",
+        f"latitude = {lat:.8f}",
+        f"longitude = {lon:.8f}",
+    ]
+    for c in circuit.corners:
+        out += [
+            "",
+            "[[corners]]",
+            f'name = "{c.name}"',
+            f'label = "{c.label}"',
+            f"apex_m = {c.apex_m:.1f}             # from the gate",
+        ]
+    return "\n".join(out) + "\n"
+
+
+def truth_record(session: synth.Session, settings: dict) -> dict:
+    """Plain-JSON summary of a session's truth."""
+    tr = session.truth
+    return {
+        "settings": settings,
+        "ideal_lap_time_s": tr.ideal_lap_time_s,
+        "lap_times_s": tr.lap_times_s.tolist(),
+        "gate_times_s": tr.gate_times_s.tolist(),
+        "gate_latlon": list(tr.gate_latlon),
+        "mistakes": [
+            {
+                "corner": m.corner,
+                "apex_m": m.apex_m,
+                "window_m": list(m.window_m),
+                "speed_cap_kmh": m.speed_cap_m_s * 3.6,
+                "ideal_min_speed_kmh": m.ideal_min_speed_m_s * 3.6,
+                "time_cost_s": m.time_cost_s,
+            }
+            for m in tr.mistakes
+        ],
+    }
+
+
+def main() -> None:
+    """Write the demo files."""
+    circuit = synth.demo_circuit()
+    (HERE / "tarrowby_heath.toml").write_text(track_toml(circuit), encoding="utf-8")
+    (HERE / "tarrowby_heath_line.csv").write_text(line_csv_text(circuit.line), encoding="utf-8")
+    truth = {}
+    for name, settings in (("dry", DRY), ("wet", WET)):
+        session = synth.generate_session(circuit, **settings)
+        text = synth.session_csv_text(session).encode("utf-8")
+        (HERE / f"tarrowby_{name}.csv.gz").write_bytes(gzip.compress(text, 9, mtime=0))
+        truth[name] = truth_record(session, settings)
+    (HERE / "tarrowby_truth.json").write_text(json.dumps(truth, indent=1) + "\n", encoding="utf-8")
+
+
+if __name__ == "__main__":
+    main()
