@@ -32,6 +32,7 @@ from dataclasses import dataclass
 
 import numpy as np
 from scipy.ndimage import gaussian_filter1d
+from scipy.signal import find_peaks
 
 from limitlap import limits
 from limitlap.errors import LimitlapError
@@ -49,6 +50,9 @@ ENTER_CURVATURE_1_M = 1.0 / 250.0
 LEAVE_CURVATURE_1_M = 1.0 / 500.0
 #: A bend must change the heading by at least this much to count (15°). [rad]
 MIN_TURN_RAD = math.radians(15.0)
+#: A second apex inside one bend needs a dip of |curvature| before it of at least this
+#: share of its own peak (peak prominence, as ``scipy.signal.find_peaks``). [-]
+APEX_PROMINENCE = 0.3
 #: Same-direction bends closer than this form one corner with two apexes. [m]
 MERGE_GAP_M = 50.0
 
@@ -197,8 +201,9 @@ def find_corners(
 
     Notes
     -----
-    The apex of a bend is the station of largest smoothed |curvature| (the middle of
-    the run when the largest value is a plateau, as on a constant-radius arc). For
+    The apexes of a bend are the stations of locally largest smoothed |curvature|
+    whose peak stands out by at least 30 % of its height (the middle of the run when
+    the value is a plateau, as on a constant-radius arc); the main apex is the largest. For
     every vehicle of INTERFACE §3 the cornering speed limit
     :math:`v^2 = \mu g / (|\kappa| - \mu k_z/m)` is strictly decreasing in
     :math:`|\kappa|` where grip limits at all, so these are the local minima of the
@@ -240,9 +245,14 @@ def find_corners(
             continue
         if float(np.sum(mag[seg] * ds[seg])) < min_turn_rad:
             continue
-        j = i0 + int(np.argmax(mag[seg]))
-        j = i0 + _plateau_middle(mag[seg], j - i0, 1e-12 * mag[seg].max())
-        zones.append([u[i0], u[i1], int(st[i0]), [(u[j], mag[idx[j]], ks[idx[j]])]])
+        zm = mag[seg]
+        tol = 1e-9 * zm.max()
+        peaks, props = find_peaks(np.concatenate([[0.0], zm, [0.0]]), prominence=0.0)
+        keep = props["prominences"] >= APEX_PROMINENCE * zm[peaks - 1]
+        apex_js = {_plateau_middle(zm, int(p) - 1, tol) for p in peaks[keep]}
+        apex_js.add(_plateau_middle(zm, int(np.argmax(zm)), tol))
+        apexes = [(u[i0 + j], zm[j], ks[seg[j]]) for j in sorted(apex_js)]
+        zones.append([u[i0], u[i1], int(st[i0]), apexes])
     if not zones:
         return []
 
@@ -399,6 +409,19 @@ def _drive_accel_available(speed_m_s, accel_lat_m_s2, vehicle: Vehicle, sin_grad
         power = np.where(v > 0, vehicle.power_w / np.where(v > 0, v, 1.0), np.inf)
     fx = np.minimum(fx, power)
     return (fx - limits.resistance_n(v, vehicle)) / m - G0_M_S2 * np.asarray(sin_grad)
+
+
+def station_accel(profile: Profile, closed: bool) -> np.ndarray:
+    """A profile's longitudinal acceleration at its stations. [m/s²]
+
+    :attr:`Profile.accel_lon_m_s2` belongs to the step leaving each station (its value
+    holds at the step's middle); the mean of the steps either side puts it on the
+    station, as a logged sample is, so thresholds crossed between stations are not
+    biased by half a step.
+    """
+    a = np.asarray(profile.accel_lon_m_s2, dtype=np.float64)
+    before = np.roll(a, 1) if closed else np.concatenate([a[:1], a[:-1]])
+    return 0.5 * (a + before)
 
 
 def _crossing(u, f, i):
@@ -920,7 +943,7 @@ def compare_lap(
         ideal.time_s,
         ideal.lap_time_s,
         v_id,
-        ideal.accel_lon_m_s2,
+        station_accel(ideal, line.closed),
         ideal.accel_lat_m_s2,
         _drive_accel_available(v_id, ideal.accel_lat_m_s2, env, sin_grad),
     )

@@ -25,6 +25,7 @@ from limitlap.compare import (
     _Trace,
     _unwrapped_bounds,
     find_corners,
+    station_accel,
 )
 from limitlap.errors import LimitlapError
 from limitlap.line import Line
@@ -199,7 +200,7 @@ def target_table(
         prof.time_s,
         prof.lap_time_s,
         prof.speed_m_s,
-        prof.accel_lon_m_s2,
+        station_accel(prof, line.closed),
         prof.accel_lat_m_s2,
         _drive_accel_available(prof.speed_m_s, prof.accel_lat_m_s2, env, sin_grad),
     )

@@ -1,0 +1,372 @@
+"""Corners, the lap comparison and the best-of-laps composite against closed forms.
+
+Lines are built from straights and constant-radius arcs (exact curvature), so the ideal
+speed profile of a friction-only car has closed forms: v = sqrt(mu g R) on an arc
+(Milliken & Milliken 1995, steady-state cornering), constant acceleration mu_t g and
+deceleration mu_b g on the straights (kinematics v^2 = v0^2 + 2 a d).
+"""
+
+import itertools
+import math
+from dataclasses import dataclass
+
+import numpy as np
+import pytest
+
+from limitlap import compare, solve
+from limitlap.errors import LimitlapError
+from limitlap.line import Line, line_from_curvature
+from limitlap.units import G0_M_S2, KMH_TO_M_S
+from tests.cases import EXAMPLE_CAR, friction_car
+
+DS = 1.0  # station spacing of every test line [m]
+
+# Straights ("s", length m) and arcs (radius m, turn deg, +1 left / -1 right). The turns
+# add up to +360 deg so the layout closes as a lap. The 20 m straight between the R=90
+# and R=70 left-handers makes one corner with two apexes (under the 50 m merge gap).
+LAYOUT = [
+    ("s", 250.0),
+    (40.0, 90.0, +1),
+    ("s", 150.0),
+    (90.0, 60.0, +1),
+    ("s", 20.0),
+    (70.0, 60.0, +1),
+    ("s", 200.0),
+    (30.0, 90.0, -1),
+    ("s", 120.0),
+    (50.0, 150.0, +1),
+    ("s", 100.0),
+    (120.0, 90.0, +1),
+]
+
+CAR = friction_car(mu=1.2, mu_brk=1.3, mu_trac=1.1)  # no power limit, drag or downforce
+
+
+def build(layout, ds=DS, rotate_m=0.0):
+    """Closed line of the layout and its arcs as (start_m, end_m, curvature_1_m)."""
+    k, arcs, pos = [], [], 0.0
+    for piece in layout:
+        if piece[0] == "s":
+            n = round(piece[1] / ds)
+            k += [0.0] * n
+        else:
+            radius, turn, sign = piece
+            n = round(radius * math.radians(turn) / ds)
+            k += [sign / radius] * n
+            arcs.append((pos, pos + n * ds, sign / radius))
+        pos += n * ds
+    k = np.array(k)
+    shift = round(rotate_m / ds)
+    k = np.roll(k, -shift)
+    length = k.size * ds
+    arcs = [((a - shift * ds) % length, (b - shift * ds) % length, c) for a, b, c in arcs]
+    return line_from_curvature(np.arange(k.size) * ds, k, length_m=length), arcs
+
+
+@dataclass
+class FakeDrivenLap:
+    """The fields of a DrivenLap that compare_lap reads (all on the line's stations)."""
+
+    line: Line
+    time_s: np.ndarray
+    speed_m_s: np.ndarray
+    accel_lon_m_s2: np.ndarray
+    accel_lat_m_s2: np.ndarray
+    throttle: np.ndarray | None = None
+    brake_pa: np.ndarray | None = None
+    lap_time_s: float | None = None
+
+
+def driven_from(profile, line, **channels):
+    return FakeDrivenLap(
+        line,
+        profile.time_s.copy(),
+        profile.speed_m_s.copy(),
+        compare.station_accel(profile, line.closed),  # sampled at the stations, as logged
+        profile.accel_lat_m_s2.copy(),
+        lap_time_s=profile.lap_time_s,
+        **channels,
+    )
+
+
+def in_arc(d, arc, length, slack=DS):
+    """True when distance d lies in the arc (start, end), within slack, round the lap."""
+    a, b, _ = arc
+    span = (b - a) % length
+    return (d - a + slack) % length <= span + 2 * slack
+
+
+def capped(line, arc, v_cap):
+    cap = np.full(line.n, np.inf)
+    a, b, _ = arc
+    inside = ((line.distance_m - a) % line.length_m) < ((b - a) % line.length_m)
+    cap[inside] = v_cap
+    return cap
+
+
+@pytest.fixture(scope="module")
+def lap():
+    line, arcs = build(LAYOUT)
+    return line, arcs, compare.find_corners(line), solve.solve_profile(line, CAR)
+
+
+def test_corners_found_in_driving_order_with_double_apex(lap):
+    line, arcs, corners, _ = lap
+    # Six arcs, two of them merged (20 m apart, same direction) -> five corners.
+    assert [c.name for c in corners] == ["T1", "T2", "T3", "T4", "T5"]
+    assert [c.direction for c in corners] == ["left", "left", "right", "left", "left"]
+    assert len(corners[1].apexes_m) == 2
+    assert in_arc(corners[1].apexes_m[0], arcs[1], line.length_m)
+    assert in_arc(corners[1].apexes_m[1], arcs[2], line.length_m)
+    # Driving order from the gate: apexes increase.
+    assert all(a.apex_m < b.apex_m for a, b in itertools.pairwise(corners))
+
+
+def test_apexes_at_arcs_of_smallest_speed_limit():
+    # REFERENCES T1.7: on straights and arcs the apexes coincide with the arcs of locally
+    # smallest cornering speed limit, within one station. The compound corner here
+    # (R=60, then R=25, then R=60 with no straight between) must put its apex in the
+    # R=25 arc; v_lim comes from the solver's own cornering_speed_limit on the raw
+    # curvature, for the example vehicle (with downforce) as well as a friction-only car.
+    layout = [
+        ("s", 300.0),
+        (60.0, 40.0, +1),
+        (25.0, 60.0, +1),
+        (60.0, 40.0, +1),
+        ("s", 250.0),
+        (45.0, 110.0, -1),
+        ("s", 200.0),
+        (80.0, 290.0, +1),
+    ]
+    line, arcs = build(layout)
+    corners = compare.find_corners(line)
+    assert len(corners) == 3
+    for car in (CAR, EXAMPLE_CAR):
+        v_lim = solve.cornering_speed_limit(line.curvature_1_m, car)
+        for c in corners:
+            zone = compare.segment_index(line.distance_m, line.length_m, [c]) == 0
+            slowest = line.distance_m[zone & (v_lim <= v_lim[zone].min() * (1 + 1e-12))]
+            gap = np.abs(
+                (slowest - c.apex_m + line.length_m / 2) % line.length_m - line.length_m / 2
+            ).min()
+            assert gap <= DS
+    assert in_arc(corners[0].apex_m, arcs[1], line.length_m)  # the R=25 arc
+
+
+def test_segments_tile_the_lap_and_time_left_adds_up(lap):
+    line, arcs, corners, ideal = lap
+    # A slower driver: 85 % of the speed limit in the T1 arc, 90 % in the T4 arc.
+    cap = np.minimum(
+        capped(line, arcs[0], 0.85 * math.sqrt(1.2 * G0_M_S2 * 40.0)),
+        capped(line, arcs[4], 0.90 * math.sqrt(1.2 * G0_M_S2 * 50.0)),
+    )
+    real = solve.solve_profile(line, CAR, speed_cap_m_s=cap)
+    cmp = compare.compare_lap(driven_from(real, line), ideal, CAR, corners)
+    # Every station in exactly one segment.
+    member = np.array(
+        [
+            ((line.distance_m - c.start_m) % line.length_m)
+            < ((c.end_m - c.start_m) % line.length_m or line.length_m)
+            for c in corners
+        ]
+    )
+    assert (member.sum(axis=0) == 1).all()
+    assert (compare.segment_index(line.distance_m, line.length_m, corners) >= 0).all()
+    # One segment runs through the gate (boundary halfway along the first straight).
+    assert sum(c.start_m > c.end_m for c in corners) == 1
+    # REFERENCES T1.10 / INTERFACE §5: the corners' time left adds up to the lap's,
+    # 1e-9 s (the segment times telescope; what is left is float rounding).
+    assert sum(c.time_left_s for c in cmp.corners) == pytest.approx(cmp.time_left_s, abs=1e-9)
+    assert sum(c.actual_s for c in cmp.corners) == pytest.approx(real.lap_time_s, abs=1e-9)
+    assert sum(c.ideal_s for c in cmp.corners) == pytest.approx(ideal.lap_time_s, abs=1e-9)
+    assert cmp.time_left_s == pytest.approx(real.lap_time_s - ideal.lap_time_s, abs=1e-12)
+    # Phases add up to each corner's time left (same telescoping, 1e-9 s).
+    for c in cmp.corners:
+        phases = c.time_left_braking_s + c.time_left_mid_s + c.time_left_exit_s
+        assert phases == pytest.approx(c.time_left_s, abs=1e-9)
+    # Time delta along the lap: actual minus ideal elapsed time, ending at the total.
+    assert cmp.time_delta_s == pytest.approx(real.time_s - ideal.time_s, abs=1e-12)
+    # The two slowed corners carry the time and rank first.
+    assert {c.name for c in cmp.ranked()[:2]} == {"T1", "T4"}
+
+
+def test_rotated_gate_keeps_corners_and_times():
+    # REFERENCES T1.8 (rotating the start of a closed line leaves the lap unchanged): with
+    # the gate moved into the T1 braking zone, the same corners come out shifted, one of
+    # them now straddling the gate, and the segments still tile the lap.
+    line0, _ = build(LAYOUT)
+    line1, _ = build(LAYOUT, rotate_m=230.0)
+    c0 = compare.find_corners(line0)
+    c1 = compare.find_corners(line1)
+    assert len(c0) == len(c1)
+    apex0 = sorted((c.apex_m - 230.0) % line0.length_m for c in c0)
+    assert sorted(c.apex_m for c in c1) == pytest.approx(apex0, abs=DS)  # one station
+    ideal = solve.solve_profile(line1, CAR)
+    cmp = compare.compare_lap(driven_from(ideal, line1), ideal, CAR, c1)
+    assert sum(c.ideal_s for c in cmp.corners) == pytest.approx(ideal.lap_time_s, abs=1e-9)
+
+
+def test_lap_at_the_ideal_leaves_no_time(lap):
+    line, _, corners, ideal = lap
+    cmp = compare.compare_lap(driven_from(ideal, line), ideal, CAR, corners)
+    # Same profile on both sides: differences are exactly zero up to float rounding.
+    assert abs(cmp.time_left_s) < 1e-12
+    for c in cmp.corners:
+        assert abs(c.time_left_s) < 1e-12
+        assert c.brake_later_m == pytest.approx(0.0, abs=1e-9)
+        assert c.full_drive_sooner_m == pytest.approx(0.0, abs=1e-9)
+        assert c.min_speed_actual_m_s == c.min_speed_ideal_m_s
+        # On the envelope in every corner: the friction-only ideal reaches the limit
+        # (combined usage 1 to rounding of the solver's Heun steps, 1e-6).
+        assert c.grip_used == pytest.approx(1.0, abs=1e-6)
+        assert "same brake point" in c.advice
+
+
+def test_planted_slow_corner_costs_time_there_and_brakes_earlier(lap):
+    line, arcs, corners, ideal = lap
+    v_lim = math.sqrt(1.2 * G0_M_S2 * 40.0)  # T1 arc, sqrt(mu g R)
+    v_cap = 0.85 * v_lim
+    real = solve.solve_profile(line, CAR, speed_cap_m_s=capped(line, arcs[0], v_cap))
+    cmp = compare.compare_lap(driven_from(real, line), ideal, CAR, corners)
+    t1 = cmp.corners[0]
+    assert t1.rank == 1
+    # Most of the loss is in T1; the rest is the slower run down the next straight
+    # carried over the boundary into T2 (common sense bound, not a published value).
+    assert t1.time_left_s > 0.8 * cmp.time_left_s
+    assert all(c.time_left_s > -1e-9 for c in cmp.corners)
+    # Both laps leave the previous corner alike and accelerate at mu_t g; braking at mu_b g
+    # to v^2 lower by dv2 moves the crossing of the two parabolas v^2 = v1^2 + 2 mu_t g x
+    # and v^2 = v2^2 + 2 mu_b g (L - x) earlier by dv2 / (2 g (mu_t + mu_b)) [kinematics].
+    shift = (v_lim**2 - v_cap**2) / (2 * G0_M_S2 * (1.1 + 1.3))
+    # 1 m: the brake start is interpolated between 1 m stations on both laps.
+    assert t1.brake_later_m == pytest.approx(shift, abs=1.0)
+    # The minimum speeds are the cap and the arc's limit (speed at a station: 1e-9).
+    assert t1.min_speed_actual_m_s == pytest.approx(v_cap, rel=1e-9)
+    assert t1.min_speed_ideal_m_s == pytest.approx(v_lim, rel=1e-9)
+    assert "T1:" in t1.advice and "brakes" in t1.advice and "km/h more" in t1.advice
+
+
+def test_brake_and_min_speed_fields_reproduce_known_values(lap):
+    # REFERENCES T7.2: brake start within 1 m and minimum speed within 0.5 km/h of the
+    # known values when the channels are dense (here one sample per 1 m station, finer
+    # than 100 Hz below 100 m/s).
+    line, arcs, corners, ideal = lap
+    mu, mu_b, mu_t = 1.2, 1.3, 1.1
+    # Ideal T1 brake point in closed form: the car leaves the R=120 arc (ending at the
+    # gate) at sqrt(mu g 120) and meets the braking parabola to sqrt(mu g 40) at the T1
+    # arc, 250 m on: x = (v2^2 - v1^2 + 2 mu_b g L) / (2 g (mu_t + mu_b)).
+    b1, b2, straight = mu * G0_M_S2 * 120.0, mu * G0_M_S2 * 40.0, arcs[0][0]
+    x_ideal = (b2 - b1 + 2 * mu_b * G0_M_S2 * straight) / (2 * G0_M_S2 * (mu_t + mu_b))
+    # A real lap with a brake-pressure channel: ramp from 0 at x_b to 60 bar over 3 m,
+    # held to the apex; throttle 0 from x_b, then a 5 m ramp to 100 % from x_t.
+    x_b, x_t = 197.37, 318.6
+    s = line.distance_m
+    brake = np.clip((s - x_b) / 3.0, 0.0, 1.0) * 60e5 * (s < corners[0].apex_m)
+    throttle = np.where((s > x_b) & (s < x_t), 0.0, 1.0)
+    throttle = np.where(s >= x_t, np.clip((s - x_t) / 5.0, 0.0, 1.0), throttle)
+    v_cap = 60.0 * KMH_TO_M_S
+    real = solve.solve_profile(line, CAR, speed_cap_m_s=capped(line, arcs[0], v_cap))
+    cmp = compare.compare_lap(
+        driven_from(real, line, brake_pa=brake, throttle=throttle), ideal, CAR, corners
+    )
+    t1 = cmp.corners[0]
+    # 5 % of the 60 bar peak is crossed 0.15 m after x_b; +-1 m (T7.2).
+    assert t1.brake_start_actual_m == pytest.approx(x_b + 0.15, abs=1.0)
+    assert t1.brake_start_ideal_m == pytest.approx(x_ideal, abs=1.0)
+    # 98 % throttle is reached 4.9 m into the ramp; +-1 m.
+    assert t1.full_drive_actual_m == pytest.approx(x_t + 4.9, abs=1.0)
+    # The ideal is at full drive where the T1 arc ends (one station: 1 m).
+    assert t1.full_drive_ideal_m == pytest.approx(arcs[0][1], abs=1.0)
+    assert t1.min_speed_actual_m_s / KMH_TO_M_S == pytest.approx(60.0, abs=0.5)
+    assert in_arc(t1.min_speed_actual_at_m, arcs[0], line.length_m)
+    # Peak lateral acceleration of the ideal on the arc: mu g (closed form, rounding).
+    assert t1.peak_accel_lat_ideal_m_s2 == pytest.approx(mu * G0_M_S2, rel=1e-9)
+
+
+def test_brake_start_from_accel_without_pressure(lap):
+    # Without pressure the brake start is where a_x falls below -2.5 m/s²: for the ideal
+    # itself as "real" lap with a planted cap it must fall on the closed-form crossing.
+    line, arcs, corners, ideal = lap
+    mu, mu_b, mu_t = 1.2, 1.3, 1.1
+    v_cap = 0.8 * math.sqrt(mu * G0_M_S2 * 40.0)
+    b1, b2, straight = mu * G0_M_S2 * 120.0, v_cap**2, arcs[0][0]
+    x = (b2 - b1 + 2 * mu_b * G0_M_S2 * straight) / (2 * G0_M_S2 * (mu_t + mu_b))
+    real = solve.solve_profile(line, CAR, speed_cap_m_s=capped(line, arcs[0], v_cap))
+    cmp = compare.compare_lap(driven_from(real, line), ideal, CAR, corners)
+    assert cmp.corners[0].brake_start_actual_m == pytest.approx(x, abs=1.0)  # 1 station
+
+
+def test_summary_dict_has_the_interface_keys(lap):
+    line, arcs, corners, ideal = lap
+    real = solve.solve_profile(line, CAR, speed_cap_m_s=capped(line, arcs[0], 15.0))
+    cmp = compare.compare_lap(driven_from(real, line), ideal, CAR, corners, grip_estimate=0.9)
+    keys = [
+        "name",
+        "start_m",
+        "apex_m",
+        "end_m",
+        "actual_s",
+        "ideal_s",
+        "time_left_s",
+        "min_speed_actual_kmh",
+        "min_speed_ideal_kmh",
+        "brake_start_actual_m",
+        "brake_start_ideal_m",
+        "grip_used",
+    ]  # INTERFACE §5, in its order
+    d = cmp.corners[0].summary_dict()
+    assert list(d)[: len(keys)] == keys
+    # km/h by the exact factor 3.6 (SI brochure).
+    assert d["min_speed_actual_kmh"] == pytest.approx(15.0 * 3.6, rel=1e-12)
+    assert 0.0 <= d["grip_used"] <= 1.0
+    assert cmp.grip_estimate == 0.9
+    ranked = cmp.corner_summaries(ranked=True)
+    assert [r["rank"] for r in ranked] == list(range(1, len(corners) + 1))
+
+
+def test_names_given_and_wrong_count():
+    line, _ = build(LAYOUT)
+    names = ["Gate bend", "Double", "Kink right", "Long left", "Last"]
+    assert [c.name for c in compare.find_corners(line, names)] == names
+    with pytest.raises(LimitlapError, match="5 corners"):
+        compare.find_corners(line, names[:3])
+
+
+def test_advice_line_wording():
+    assert compare.advice_line("T6", 0.21, 12.0, 6 * KMH_TO_M_S, 15.0) == (
+        "T6: 0.21 s — the ideal brakes 12 m later, carries 6 km/h more at the minimum, "
+        "and is at full drive 15 m sooner"
+    )
+    assert compare.advice_line("T2", 0.05, math.nan, 3 * KMH_TO_M_S, 0.5) == (
+        "T2: 0.05 s — the ideal carries 3 km/h more at the minimum"
+    )
+
+
+def test_best_of_laps_composite(lap):
+    line, arcs, corners, ideal = lap
+    # Lap A slow in T1, lap B slow in T4 and 0.3 % longer (a wider line, as measured):
+    # the composite takes T1 from B and T4 from A, and each lap's segments add up to it.
+    a = solve.solve_profile(line, CAR, speed_cap_m_s=capped(line, arcs[0], 15.0))
+    long_line = line_from_curvature(
+        line.distance_m * 1.003, line.curvature_1_m / 1.003, length_m=line.length_m * 1.003
+    )
+    b = solve.solve_profile(long_line, CAR, speed_cap_m_s=capped(line, arcs[4], 18.0))
+    best = compare.best_of_laps(
+        [driven_from(a, line), driven_from(b, long_line)],
+        corners,
+        reference_length_m=line.length_m,
+        lap_numbers=[4, 7],
+        ideal=ideal,
+    )
+    assert best.segment_times_s.sum(axis=1) == pytest.approx(
+        [a.lap_time_s, b.lap_time_s], abs=1e-9
+    )  # telescoping sums, rounding
+    assert best.best_lap[0] == 7 and best.best_lap[3] == 4
+    assert best.composite_lap_time_s == pytest.approx(
+        best.segment_times_s.min(axis=0).sum(), abs=1e-12
+    )
+    assert best.composite_lap_time_s < min(a.lap_time_s, b.lap_time_s)
+    # The physics limit on the same segments, below the composite.
+    assert best.ideal_s.sum() == pytest.approx(ideal.lap_time_s, abs=1e-9)
+    assert best.ideal_lap_time_s <= best.composite_lap_time_s
+    assert best.summary_dict()["segments"][0]["lap"] == 7
