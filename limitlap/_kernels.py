@@ -30,13 +30,19 @@ N_VEH = 12
 
 
 @njit(cache=True)
-def _remaining_share(usage, exponent):
-    """(1 - usage^n)^(1/n) for 0 <= usage; 0 when the lateral demand takes it all."""
-    if usage >= 1.0:
+def _tyre_share_force(mu_x, normal, fy, veh):
+    """Longitudinal tyre force left by the combined law at lateral tyre force fy (>= 0).
+
+    (Fx / mu_x N)^n + (Fy / mu_y N)^n = 1; for n = 2 written without a division,
+    Fx = (mu_x / mu_y) sqrt((mu_y N)² - Fy²), which keeps the pass's dependency chain short.
+    """
+    fy_max = veh[I_MU_LAT] * normal
+    if fy >= fy_max:
         return 0.0
-    if exponent == 2.0:
-        return np.sqrt(1.0 - usage * usage)
-    return (1.0 - usage**exponent) ** (1.0 / exponent)
+    if veh[I_EXPONENT] == 2.0:
+        return (mu_x / veh[I_MU_LAT]) * np.sqrt(fy_max * fy_max - fy * fy)
+    n = veh[I_EXPONENT]
+    return mu_x * normal * (1.0 - (fy / fy_max) ** n) ** (1.0 / n)
 
 
 @njit(cache=True)
@@ -48,15 +54,10 @@ def drive_accel(kappa, b, sin_grad, veh):
     normal = m * g + q * veh[I_LIFT_AREA]
     if normal < 0.0:
         normal = 0.0
-    fy_max = veh[I_MU_LAT] * normal
-    fy = m * abs(kappa) * b
-    usage = fy / fy_max if fy_max > 0.0 else (0.0 if fy == 0.0 else 1.0)
-    fx_tyre = veh[I_MU_TRAC] * normal * _remaining_share(usage, veh[I_EXPONENT])
-    v = np.sqrt(b)
-    if v > 0.0:
-        fx_power = veh[I_POWER] / v
-        if fx_power < fx_tyre:
-            fx_tyre = fx_power
+    fx_tyre = _tyre_share_force(veh[I_MU_TRAC], normal, m * abs(kappa) * b, veh)
+    fx_power = veh[I_POWER] / np.sqrt(b) if b > 0.0 else np.inf
+    if fx_power < fx_tyre:
+        fx_tyre = fx_power
     resist = q * veh[I_DRAG_AREA] + veh[I_CRR] * m * g
     return (fx_tyre - resist) / m - g * sin_grad
 
@@ -70,10 +71,7 @@ def brake_decel(kappa, b, sin_grad, veh):
     normal = m * g + q * veh[I_LIFT_AREA]
     if normal < 0.0:
         normal = 0.0
-    fy_max = veh[I_MU_LAT] * normal
-    fy = m * abs(kappa) * b
-    usage = fy / fy_max if fy_max > 0.0 else (0.0 if fy == 0.0 else 1.0)
-    fx_tyre = veh[I_MU_BRK] * normal * _remaining_share(usage, veh[I_EXPONENT])
+    fx_tyre = _tyre_share_force(veh[I_MU_BRK], normal, m * abs(kappa) * b, veh)
     resist = q * veh[I_DRAG_AREA] + veh[I_CRR] * m * g
     return (fx_tyre + resist) / m + g * sin_grad
 
@@ -155,15 +153,19 @@ def solve_speed_squared(curvature_1_m, sin_grad, ds_m, veh, closed, b_entry, b_e
         # cannot actually reach that speed (power or drag limited, downhill braking), the
         # lap that arrives back is slower: restart from the arrival until it repeats.
         fwd[i0] = b_lim[i0]
-        for _ in range(200):
+        for lap in range(200):
             i = i0
             for _ in range(n - 1):
                 j = i + 1 if i + 1 < n else 0
-                fwd[j] = _forward_step(
+                b_new = _forward_step(
                     fwd[i], curvature_1_m[i], sin_grad[i], curvature_1_m[j], sin_grad[j],
                     ds_m[i], b_lim[j], veh,
                 )
+                if lap > 0 and b_new == fwd[j]:
+                    break  # joined last lap's trace: the rest of the lap is unchanged
+                fwd[j] = b_new
                 i = j
+            i = i0 - 1 if i0 > 0 else n - 1
             b_arr = _forward_step(
                 fwd[i], curvature_1_m[i], sin_grad[i], curvature_1_m[i0], sin_grad[i0],
                 ds_m[i], b_lim[i0], veh,
@@ -172,15 +174,19 @@ def solve_speed_squared(curvature_1_m, sin_grad, ds_m, veh, closed, b_entry, b_e
                 break
             fwd[i0] = b_arr
         bwd[i0] = b_lim[i0]
-        for _ in range(200):
+        for lap in range(200):
             j = i0
             for _ in range(n - 1):
                 i = j - 1 if j > 0 else n - 1
-                bwd[i] = _backward_step(
+                b_new = _backward_step(
                     bwd[j], curvature_1_m[j], sin_grad[j], curvature_1_m[i], sin_grad[i],
                     ds_m[i], b_lim[i], veh,
                 )
+                if lap > 0 and b_new == bwd[i]:
+                    break
+                bwd[i] = b_new
                 j = i
+            j = i0 + 1 if i0 + 1 < n else 0
             b_arr = _backward_step(
                 bwd[j], curvature_1_m[j], sin_grad[j], curvature_1_m[i0], sin_grad[i0],
                 ds_m[i0], b_lim[i0], veh,

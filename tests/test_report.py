@@ -81,20 +81,20 @@ def _segments(line):
     apexes = np.flatnonzero(peak)
     bounds = []
     for a, b in zip(apexes, np.roll(apexes, -1), strict=True):
-        idx = (np.arange(a, a + ((b - a) % n or n)) % n)
+        idx = np.arange(a, a + ((b - a) % n or n)) % n
         bounds.append(idx[np.argmin(smooth[idx])])
     starts = np.roll(bounds, 1)
     return list(zip(starts, apexes, bounds, strict=True))
 
 
 def _brake_start(ax, start, apex, n):
+    """Station where the last braking run (a_x < -1 m/s²) before the apex begins."""
     idx = np.arange(start, start + ((apex - start) % n) + 1) % n
-    braking = ax[idx] < -1.0
-    if not braking.any():
+    braking = np.flatnonzero(ax[idx] < -1.0)
+    if braking.size == 0:
         return math.nan
-    last = len(idx) - 1 - int(np.argmax(~braking[::-1] & (np.arange(len(idx))[::-1] < len(idx))))
-    first = last
-    while first > 0 and braking[first - 1]:
+    first = braking[-1]
+    while first > 0 and ax[idx[first - 1]] < -1.0:
         first -= 1
     return float(idx[first])
 
@@ -122,8 +122,16 @@ def make_analysis(tmp_path=None):
     corners = []
     for i, (a, apex, b) in enumerate(segs):
         end = b if b > a else b + n
-        act = t_real[end] - t_real[a] if b > a else (real.lap_time_s - real.time_s[a] + real.time_s[b])
-        ide = t_ideal[end] - t_ideal[a] if b > a else (ideal.lap_time_s - ideal.time_s[a] + ideal.time_s[b])
+        act = (
+            t_real[end] - t_real[a]
+            if b > a
+            else (real.lap_time_s - real.time_s[a] + real.time_s[b])
+        )
+        ide = (
+            t_ideal[end] - t_ideal[a]
+            if b > a
+            else (ideal.lap_time_s - ideal.time_s[a] + ideal.time_s[b])
+        )
         idx = np.arange(a, a + ((b - a) % n)) % n
         corners.append(
             _Corner(
@@ -136,8 +144,12 @@ def make_analysis(tmp_path=None):
                 time_left_s=float(act - ide),
                 min_speed_actual_m_s=float(real.speed_m_s[idx].min()),
                 min_speed_ideal_m_s=float(ideal.speed_m_s[idx].min()),
-                brake_start_actual_m=float(s[int(bs)]) if np.isfinite(bs := _brake_start(real.accel_lon_m_s2, a, apex, n)) else math.nan,
-                brake_start_ideal_m=float(s[int(bi)]) if np.isfinite(bi := _brake_start(ideal.accel_lon_m_s2, a, apex, n)) else math.nan,
+                brake_start_actual_m=float(s[int(bs)])
+                if np.isfinite(bs := _brake_start(real.accel_lon_m_s2, a, apex, n))
+                else math.nan,
+                brake_start_ideal_m=float(s[int(bi)])
+                if np.isfinite(bi := _brake_start(ideal.accel_lon_m_s2, a, apex, n))
+                else math.nan,
                 grip_used=float(np.clip(np.percentile(usage[idx], 95), 0, 1)),
             )
         )
@@ -157,10 +169,14 @@ def make_analysis(tmp_path=None):
         agreement={"rms_1_m": 0.0004},
         warnings=["GPS dropout of 2.1 s bridged on lap 3 at 812 m"],
     )
-    comparison = ns(corners=corners, time_delta_s=delta, time_left_s=real.lap_time_s - ideal.lap_time_s)
+    comparison = ns(
+        corners=corners, time_delta_s=delta, time_left_s=real.lap_time_s - ideal.lap_time_s
+    )
     best = ns(
         time_s=real.lap_time_s - 0.4 * (real.lap_time_s - ideal.lap_time_s),
-        corners=[{"name": c.name, "best_s": c.ideal_s + 0.6 * c.time_left_s, "lap": 2} for c in corners],
+        corners=[
+            {"name": c.name, "best_s": c.ideal_s + 0.6 * c.time_left_s, "lap": 2} for c in corners
+        ],
     )
     fit = ns(
         vehicle=CAR,
@@ -218,7 +234,9 @@ def _conditions():
                     "segment_time_s": float((prof.time_s[b] - prof.time_s[a]) % prof.lap_time_s),
                 }
             )
-        out.append({"condition": label, "grip_scale": k, "lap_time_s": prof.lap_time_s, "corners": corners})
+        out.append(
+            {"condition": label, "grip_scale": k, "lap_time_s": prof.lap_time_s, "corners": corners}
+        )
     return out
 
 
@@ -239,7 +257,23 @@ def png_size(data: bytes):
 class _TagChecker(html.parser.HTMLParser):
     """Balanced-tag check with the HTML void elements (WHATWG HTML, 13.1.2) left open."""
 
-    VOID = {"area", "base", "br", "col", "embed", "hr", "img", "input", "link", "meta", "source", "track", "wbr"}
+    VOID = frozenset(
+        {
+            "area",
+            "base",
+            "br",
+            "col",
+            "embed",
+            "hr",
+            "img",
+            "input",
+            "link",
+            "meta",
+            "source",
+            "track",
+            "wbr",
+        }
+    )
 
     def __init__(self):
         super().__init__(convert_charrefs=True)
@@ -311,7 +345,9 @@ def test_unwritable_folder_is_one_clear_input_error(tmp_path, analysis):
         report.write_outputs(analysis, blocker, figures=False)
 
 
-@pytest.mark.skipif(os.name != "posix" or os.geteuid() == 0, reason="root ignores folder permissions")
+@pytest.mark.skipif(
+    os.name != "posix" or os.geteuid() == 0, reason="root ignores folder permissions"
+)
 def test_read_only_folder_is_input_error(tmp_path):
     ro = tmp_path / "ro"
     ro.mkdir()
@@ -334,9 +370,18 @@ def test_summary_json_has_interface_fields_and_tiles(written, analysis):
     assert set(data["lap"]) == {"number", "time_s", "distance_m"}
     assert set(data["ideal"]) == {"time_s", "grip_scale"}
     fields = {
-        "name", "start_m", "apex_m", "end_m", "actual_s", "ideal_s", "time_left_s",
-        "min_speed_actual_kmh", "min_speed_ideal_kmh", "brake_start_actual_m",
-        "brake_start_ideal_m", "grip_used",
+        "name",
+        "start_m",
+        "apex_m",
+        "end_m",
+        "actual_s",
+        "ideal_s",
+        "time_left_s",
+        "min_speed_actual_kmh",
+        "min_speed_ideal_kmh",
+        "brake_start_actual_m",
+        "brake_start_ideal_m",
+        "grip_used",
     }
     for c in data["corners"]:
         assert fields <= set(c)
@@ -346,7 +391,9 @@ def test_summary_json_has_interface_fields_and_tiles(written, analysis):
     assert total == pytest.approx(data["time_left_s"], abs=len(data["corners"]) * 5e-6 + 1e-9)
     # km/h conversion exact by definition (SI brochure): 1 km/h = 1/3.6 m/s.
     c0 = analysis.comparison.corners[0]
-    assert data["corners"][0]["min_speed_ideal_kmh"] == pytest.approx(c0.min_speed_ideal_m_s * 3.6, abs=0.005)
+    assert data["corners"][0]["min_speed_ideal_kmh"] == pytest.approx(
+        c0.min_speed_ideal_m_s * 3.6, abs=0.005
+    )
     assert data["warnings"]  # the fixture's dropout and fit warnings are carried through
 
 
@@ -358,7 +405,9 @@ def test_summary_json_byte_identical_on_two_runs(tmp_path):
 
 
 def test_summary_json_text_rounds_and_rejects_nothing_silently():
-    text = report.summary_json_text({"x_s": np.float64(1 / 3), "n": np.int64(4), "bad_m": float("nan"), "v": [np.float32(0.5)]})
+    text = report.summary_json_text(
+        {"x_s": np.float64(1 / 3), "n": np.int64(4), "bad_m": float("nan"), "v": [np.float32(0.5)]}
+    )
     assert json.loads(text) == {"x_s": 0.33333, "n": 4, "bad_m": None, "v": [0.5]}
     with pytest.raises(Exception, match="unsupported type"):
         report.summary_json_text({"thing": object()})
@@ -368,7 +417,13 @@ def test_summary_json_text_rounds_and_rejects_nothing_silently():
 
 
 def test_envelope_toml_round_trips_through_read_vehicle(tmp_path):
-    car = dataclasses.replace(CAR, name='Fitted "envelope" — ü', power_w=123456.789012345, mu_lat=1.2345678901234567, exponent=1.87654321)
+    car = dataclasses.replace(
+        CAR,
+        name='Fitted "envelope" — ü',
+        power_w=123456.789012345,
+        mu_lat=1.2345678901234567,
+        exponent=1.87654321,
+    )
     text = report.envelope_toml_text(car, {"quality": {"rms_m_s2": 0.2, "bands": [1, 2]}, "n": 5})
     p = report.write_atomic(tmp_path / "envelope.toml", text)
     back = read_vehicle(p)
@@ -381,7 +436,15 @@ def test_envelope_toml_round_trips_through_read_vehicle(tmp_path):
             assert a == b, f.name
     assert "# Fit of this envelope" in text and "quality.rms_m_s2 = 0.2" in text
     keys = set(tomllib.loads(text)) - {"grip"}
-    assert keys == {"name", "mass_kg", "power_kw", "drag_area_m2", "downforce_area_m2", "rolling_coeff", "air_density_kg_m3"}
+    assert keys == {
+        "name",
+        "mass_kg",
+        "power_kw",
+        "drag_area_m2",
+        "downforce_area_m2",
+        "rolling_coeff",
+        "air_density_kg_m3",
+    }
 
 
 def test_written_envelope_reads_back(written):
@@ -395,7 +458,14 @@ def test_profile_csv_headers_units_and_values(written, analysis):
     out, _, _ = written
     lines = (out / "profile.csv").read_text().splitlines()
     header = lines[0].split(",")
-    assert header[:6] == ["distance [m]", "time_actual [s]", "time_ideal [s]", "time_delta [s]", "speed_actual [km/h]", "speed_ideal [km/h]"]
+    assert header[:6] == [
+        "distance [m]",
+        "time_actual [s]",
+        "time_ideal [s]",
+        "time_delta [s]",
+        "speed_actual [km/h]",
+        "speed_ideal [km/h]",
+    ]
     assert len(lines) == analysis.driven.line.n + 1
     row = np.array([float(c) for c in lines[10].split(",")])
     # 8 significant digits in the file: relative error below 5e-8.
@@ -428,7 +498,14 @@ def test_report_html_is_well_formed_and_self_contained(written):
 
 def test_every_png_is_a_real_png_of_the_expected_size(written):
     out, files, _ = written
-    kinds = {"speed.png": "speed", "time_delta.png": "delta", "time_left.png": "time_left", "map.png": "map", "gg.png": "gg", "best_of_laps.png": "best"}
+    kinds = {
+        "speed.png": "speed",
+        "time_delta.png": "delta",
+        "time_left.png": "time_left",
+        "map.png": "map",
+        "gg.png": "gg",
+        "best_of_laps.png": "best",
+    }
     import base64
 
     text = (out / "report.html").read_text(encoding="utf-8")
@@ -454,7 +531,13 @@ def test_progress_reports_every_step(written):
 
 def test_importing_report_does_not_import_matplotlib():
     code = "import sys, limitlap.report, limitlap.figures; print('matplotlib' in sys.modules)"
-    res = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, check=True, cwd=Path(__file__).parents[1])
+    res = subprocess.run(
+        [sys.executable, "-c", code],
+        capture_output=True,
+        text=True,
+        check=True,
+        cwd=Path(__file__).parents[1],
+    )
     assert res.stdout.strip() == "False"
 
 
@@ -493,14 +576,25 @@ def test_target_sheets_pdf_png_and_csv(tmp_path):
     conds = _conditions()
     files = report.write_target_sheets(conds, tmp_path / "targets", "Invented Ring")
     names = sorted(p.name for p in files)
-    assert names == ["targets.csv", "targets_dry.pdf", "targets_dry.png", "targets_wet.pdf", "targets_wet.png"]
+    assert names == [
+        "targets.csv",
+        "targets_dry.pdf",
+        "targets_dry.png",
+        "targets_wet.pdf",
+        "targets_wet.png",
+    ]
     for p in files:
         data = p.read_bytes()
         if p.suffix == ".png":
             assert png_size(data) == figures.FIGURE_SIZE_PX["target_sheet"]
         elif p.suffix == ".pdf":
             assert data.startswith(b"%PDF-") and b"%%EOF" in data[-64:]
-            assert data.count(b"/Type /Page\n") + data.count(b"/Type /Page ") + data.count(b"/Type /Page>") == 1
+            assert (
+                data.count(b"/Type /Page\n")
+                + data.count(b"/Type /Page ")
+                + data.count(b"/Type /Page>")
+                == 1
+            )
     rows = (tmp_path / "targets" / "targets.csv").read_text().splitlines()
     assert rows[0].startswith("condition,grip_scale [-],lap_time [s],corner")
     assert len(rows) == 1 + sum(len(c["corners"]) for c in conds)
@@ -543,16 +637,36 @@ def test_report_renders_in_headless_chromium(written, tmp_path):
     page = tmp_path / "report_probe.html"
     page.write_text(text.replace("</body>", probe + "</body>"), encoding="utf-8")
     flags = [
-        "--headless", "--no-sandbox", "--disable-gpu", "--disable-quic", "--no-first-run",
-        "--disable-background-networking", "--disable-component-update", "--disable-sync",
-        f"--user-data-dir={tmp_path / 'profile'}", "--virtual-time-budget=5000",
+        "--headless",
+        "--no-sandbox",
+        "--disable-gpu",
+        "--disable-quic",
+        "--no-first-run",
+        "--disable-background-networking",
+        "--disable-component-update",
+        "--disable-sync",
+        f"--user-data-dir={tmp_path / 'profile'}",
+        "--virtual-time-budget=5000",
     ]
-    dom = subprocess.run([browser, *flags, "--dump-dom", page.as_uri()], capture_output=True, text=True, timeout=120)
+    dom = subprocess.run(
+        [browser, *flags, "--dump-dom", page.as_uri()], capture_output=True, text=True, timeout=120
+    )
     assert dom.returncode == 0, dom.stderr[-2000:]
     n_img = sum(1 for k in files if k.endswith(".png"))
     assert f'data-images-ok="{n_img}/{n_img}"' in dom.stdout
     shot = tmp_path / "report.png"
-    res = subprocess.run([browser, *flags, f"--screenshot={shot}", "--window-size=1280,2400", (out / "report.html").as_uri()], capture_output=True, text=True, timeout=120)
+    res = subprocess.run(
+        [
+            browser,
+            *flags,
+            f"--screenshot={shot}",
+            "--window-size=1280,2400",
+            (out / "report.html").as_uri(),
+        ],
+        capture_output=True,
+        text=True,
+        timeout=120,
+    )
     assert res.returncode == 0 and shot.exists(), res.stderr[-2000:]
     assert png_size(shot.read_bytes()) == (1280, 2400)
     import matplotlib.image
