@@ -650,7 +650,7 @@ def read_log(path, channel_map=None) -> Log:
     if channel_map is not None and not isinstance(channel_map, ChannelMap):
         channel_map = read_channel_map(channel_map)
     raw = _read_log_bytes(path)
-    if not raw.strip():
+    if not raw or raw.isspace():
         raise InputError(path, "file is empty")
     header, sep, decimal_comma, encoding = _detect_format(path, raw)
     found = _resolve_columns(path, header, channel_map)
