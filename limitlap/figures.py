@@ -46,7 +46,7 @@ FIGURE_SIZE_PX = {
     "speed": (1200, 460),
     "delta": (1200, 360),
     "time_left": (1200, 520),
-    "map": (900, 900),
+    "map": (1000, 800),
     "gg": (1200, 480),
     "detail": (1200, 640),
     "best": (1200, 520),
@@ -111,6 +111,10 @@ def _corner_bands(ax, corners, *, label_y=None, labels=True):
         if i % 2 == 0:
             if end >= start:
                 ax.axvspan(start, end, color=BAND, zorder=0, lw=0)
+            else:  # the segment runs across the gate: shade both ends of the lap
+                lo, hi = ax.get_xlim()
+                ax.axvspan(start, max(hi, start), color=BAND, zorder=0, lw=0)
+                ax.axvspan(min(lo, end), end, color=BAND, zorder=0, lw=0)
         if labels:
             y = ax.get_ylim()[1] if label_y is None else label_y
             ax.annotate(
@@ -196,7 +200,7 @@ def delta_figure(distance_m, time_delta_s, corners) -> bytes:
     ax.set_xlabel("distance from the start/finish gate [m]")
     ax.set_ylabel("time delta [s]")
     ax.set_title("Time delta: your lap minus the ideal (rising = losing time)", loc="left")
-    ax.legend(loc="upper left")
+    ax.legend(loc="lower right")
     return _png(fig, "delta")
 
 
@@ -312,12 +316,14 @@ def map_figure(x_m, y_m, loss_rate_s_m, corners, distance_m) -> bytes:
     pts = np.column_stack([x, y])
     segs = np.stack([pts, np.roll(pts, -1, axis=0)], axis=1)
     finite = rate_ms_m[np.isfinite(rate_ms_m)]
-    lim = float(np.percentile(np.abs(finite), 98)) if finite.size else 1.0
-    lim = max(lim, 1e-3)
+    lim = max(float(np.percentile(finite, 98)) if finite.size else 1.0, 1e-3)
+    gain = -finite[finite < 0]
+    # The gaining side of the scale only as long as the data needs (at least a quarter).
+    lim_gain = max(float(np.percentile(gain, 98)) if gain.size else 0.0, 0.25 * lim)
     cmap = LinearSegmentedColormap.from_list(
         "limitlap_loss", [IDEAL, "#9cc3dc", "#e6e6e6", "#f0b07a", REAL, "#6b2b00"]
     )
-    norm = TwoSlopeNorm(vmin=-lim, vcenter=0.0, vmax=lim * 1.0)
+    norm = TwoSlopeNorm(vmin=-lim_gain, vcenter=0.0, vmax=lim)
     ax.plot(
         np.append(x, x[0]),
         np.append(y, y[0]),
@@ -327,7 +333,7 @@ def map_figure(x_m, y_m, loss_rate_s_m, corners, distance_m) -> bytes:
         zorder=1,
     )
     lc = LineCollection(segs, cmap=cmap, norm=norm, linewidths=5.5, zorder=2, capstyle="round")
-    lc.set_array(np.clip(rate_ms_m, -lim, lim))
+    lc.set_array(np.clip(rate_ms_m, -lim_gain, lim))
     ax.add_collection(lc)
     s = np.asarray(distance_m, dtype=np.float64)
     cx, cy = float(np.mean(x)), float(np.mean(y))
@@ -547,7 +553,7 @@ def gg_figure(
         for edge in (lo, hi):
             if edge > 0:
                 ly, lx = envelope_boundary(edge, vehicle, grip_scale)
-                ax.plot(ly / G0_M_S2, lx / G0_M_S2, color=IDEAL, lw=0.8, ls=":")
+                ax.plot(ly / G0_M_S2, lx / G0_M_S2, color=IDEAL, lw=0.7, ls="--", alpha=0.45)
         inband = (v >= lo) & (v < hi) & np.isfinite(ax_s) & np.isfinite(ay_s)
         sy, sx = ay_s[inband] / G0_M_S2, ax_s[inband] / G0_M_S2
         r_env = _ray_reach(ey / G0_M_S2, ex / G0_M_S2, angles)
@@ -567,7 +573,7 @@ def gg_figure(
             unused = 1.0 - float(np.sum(r_in[:-1] ** 2) / np.sum(r_env[:-1] ** 2))
             title += f": {100 * unused:.0f} % of the envelope unused"
         ax.plot(ey / G0_M_S2, ex / G0_M_S2, color=IDEAL, lw=1.8, label="envelope")
-        ax.scatter(sy, sx, s=4, color="#555555", alpha=0.35, lw=0, label="your samples")
+        ax.scatter(sy, sx, s=5, color="#444444", alpha=0.4, lw=0, label="your samples")
         if fit_points:
             for fp in fit_points:
                 fv = np.asarray(fp["speed_m_s"], dtype=np.float64)
@@ -593,7 +599,9 @@ def gg_figure(
     axes[0].set_ylim(-lim, lim)
     handles, labels = axes[0].get_legend_handles_labels()
     uniq = dict(zip(labels, handles, strict=True))
-    fig.legend(uniq.values(), uniq.keys(), loc="outside lower center", ncols=len(uniq))
+    fig.legend(
+        uniq.values(), uniq.keys(), loc="outside lower center", ncols=len(uniq), markerscale=3
+    )
     fig.suptitle(
         "g-g diagram by speed band: envelope, your samples, grip left unused",
         x=0.01,
@@ -654,9 +662,9 @@ def detail_figure(corner, distance_m, length_m, real, ideal, caption="") -> byte
     axes[0].plot(s, _kmh(ideal["speed_m_s"][idx]), color=IDEAL, lw=1.8, label="ideal")
     axes[0].plot(s, _kmh(real["speed_m_s"][idx]), color=REAL, lw=1.3, label="your lap")
     axes[0].set_ylabel("speed [km/h]")
-    for key, colour, word in (
-        ("brake_start_ideal_m", IDEAL, "ideal brakes"),
-        ("brake_start_actual_m", REAL, "you brake"),
+    for key, colour, word, y_frac, va in (
+        ("brake_start_ideal_m", IDEAL, "ideal brakes", 0.98, "top"),
+        ("brake_start_actual_m", REAL, "you brake", 0.02, "bottom"),
     ):
         b = corner.get(key)
         if b is not None and np.isfinite(b):
@@ -664,13 +672,13 @@ def detail_figure(corner, distance_m, length_m, real, ideal, caption="") -> byte
                 a.axvline(unwrap(b), color=colour, lw=1.0, ls="--")
             axes[0].annotate(
                 word,
-                (unwrap(b), 0.02),
+                (unwrap(b), y_frac),
                 xycoords=("data", "axes fraction"),
                 rotation=90,
                 fontsize=8,
                 color=colour,
                 ha="right",
-                va="bottom",
+                va=va,
             )
     axes[0].axvline(unwrap(corner["apex_m"]), color="#777777", lw=0.8, ls=":")
     axes[0].annotate(
@@ -682,7 +690,7 @@ def detail_figure(corner, distance_m, length_m, real, ideal, caption="") -> byte
         ha="left",
         va="top",
     )
-    axes[0].legend(loc="lower left", ncols=2)
+    axes[0].legend(loc="best", ncols=2, frameon=True, framealpha=0.85, edgecolor="none")
     for ax, key in ((axes[1], "brake"), (axes[2], "throttle")):
         ax.plot(
             s,
@@ -700,9 +708,15 @@ def detail_figure(corner, distance_m, length_m, real, ideal, caption="") -> byte
         )
         ax.set_ylim(-5, 110)
         ax.set_ylabel(f"{key} [%]")
-        ax.legend(loc="upper right", fontsize=8, ncols=2)
+        ax.legend(
+            loc="center right", fontsize=8, ncols=2, frameon=True, framealpha=0.85, edgecolor="none"
+        )
     axes[2].set_xlabel("distance from the start/finish gate [m]")
     axes[0].set_xlim(s[0], s[-1])
+    from matplotlib.ticker import FuncFormatter
+
+    # Past the gate the axis runs on; the labels stay distances from the gate.
+    axes[2].xaxis.set_major_formatter(FuncFormatter(lambda x, _pos: f"{x % length_m:.0f}"))
     title = caption or corner["name"]
     axes[0].set_title(title if len(title) < 130 else title[:127] + "...", loc="left", fontsize=11)
     return _png(fig, "detail")
@@ -734,32 +748,32 @@ def best_figure(corners, lap_time_s, best_time_s, ideal_time_s, lap_label="this 
     labels = [lap_label, "best of your laps", "ideal (limit)"]
     values = [lap_time_s, best_time_s, ideal_time_s]
     colours = [REAL, BEST, IDEAL]
-    finite = [v for v in values if v is not None and np.isfinite(v)]
+    above = [v - ideal_time_s if v is not None and np.isfinite(v) else np.nan for v in values]
     y = np.arange(3)
-    left.barh(
-        y,
-        [v if v is not None and np.isfinite(v) else 0.0 for v in values],
-        color=colours,
-        height=0.6,
-    )
-    for yi, v in zip(y, values, strict=True):
-        text = f"{v:.2f} s" if v is not None and np.isfinite(v) else "n/a"
+    left.barh(y, np.nan_to_num(above), color=colours, height=0.6)
+    top = max([a for a in above if np.isfinite(a)] + [1e-3])
+    for yi, v, a in zip(y, values, above, strict=True):
+        text = (
+            "n/a"
+            if not np.isfinite(a)
+            else f"{_laptime(v)}  (+{a:.2f} s)"
+            if a > 0
+            else _laptime(v)
+        )
         left.annotate(
             text,
-            (0, yi),
+            (max(a, 0.0) if np.isfinite(a) else 0.0, yi),
             xytext=(4, 0),
             textcoords="offset points",
             va="center",
-            color="white",
-            fontweight="bold",
+            fontsize=10,
         )
     left.set_yticks(y, labels)
     left.invert_yaxis()
     left.grid(axis="y", visible=False)
-    if finite:
-        left.set_xlim(0, max(finite) * 1.02)
-    left.set_xlabel("lap time [s]")
-    left.set_title("Lap times", loc="left")
+    left.set_xlim(0, top * 1.9)
+    left.set_xlabel("time above the ideal lap [s]")
+    left.set_title("Whole lap", loc="left")
 
     names = [c["name"] for c in corners]
     x = np.arange(len(corners))
@@ -790,8 +804,9 @@ def target_sheet(condition, circuit_name: str, caution: str, fmt: str = "png") -
     Parameters
     ----------
     condition : dict
-        ``label`` (e.g. "wet"), ``grip_scale`` [-], ``lap_time_s`` [s] and ``corners``:
-        records with ``name``, ``apex_m``, ``brake_start_m`` [m], ``entry_speed_kmh``,
+        ``label`` (e.g. "wet"), ``grip_scale`` [-], ``lap_time_s`` [s], optionally
+        ``length_m`` [m], and ``corners``: records with ``name``, ``apex_m``,
+        ``brake_start_m`` and optionally ``before_apex_m`` [m], ``entry_speed_kmh``,
         ``min_speed_kmh``, ``exit_speed_kmh`` [km/h] and ``segment_time_s`` [s].
     circuit_name : str
         Printed in the heading.
@@ -845,7 +860,12 @@ def target_sheet(condition, circuit_name: str, caution: str, fmt: str = "png") -
     for c in corners:
         brake = c.get("brake_start_m")
         has_brake = brake is not None and np.isfinite(brake)
-        before = (c["apex_m"] - brake) if has_brake else None
+        before = c.get("before_apex_m", c["apex_m"] - brake) if has_brake else None
+        length = condition.get("length_m")
+        if before is not None and before < 0 and length and np.isfinite(length):
+            before += length  # braking starts before the gate, the apex is after it
+        if before is not None and not (np.isfinite(before) and before >= 0):
+            before = None
         rows.append(
             [
                 str(c["name"]),
@@ -858,27 +878,29 @@ def target_sheet(condition, circuit_name: str, caution: str, fmt: str = "png") -
             ]
         )
     n = max(len(rows), 1)
-    top, bottom = 0.89, 0.17
-    row_h = min(0.045, (top - bottom) / (n + 1.6))
-    font = max(8.0, min(17.0, row_h * 11.69 * 72 * 0.42))
+    top, bottom = 0.89, 0.19
+    header_h = 0.04
+    row_h = min(0.055, (top - header_h - bottom) / n)
+    font = max(7.0, min(18.0, row_h * 11.69 * 72 * 0.42))
     cols_x = [0.06, 0.24, 0.40, 0.56, 0.68, 0.81, 0.94]
     aligns = ["left"] + ["right"] * 6
     y = top
     for x, h, al in zip(cols_x, header, aligns, strict=True):
-        fig.text(x, y, h, fontsize=font * 0.62, ha=al, va="top", color="#444444", linespacing=1.1)
-    y -= row_h * 1.6
-    fig.add_artist(Line2D([0.05, 0.95], [y + row_h * 0.25, y + row_h * 0.25], color=INK, lw=1.2))
+        fig.text(x, y, h, fontsize=11, ha=al, va="top", color="#444444", linespacing=1.1)
+    y -= header_h
+    fig.add_artist(Line2D([0.05, 0.95], [y, y], color=INK, lw=1.2))
+    y -= 0.2 * row_h
     for i, row in enumerate(rows):
         if i % 2 == 0:
             fig.add_artist(
-                Rectangle((0.05, y - row_h * 0.8), 0.90, row_h, color="#eef3f8", lw=0, zorder=0)
+                Rectangle((0.05, y - row_h), 0.90, row_h, color="#eef3f8", lw=0, zorder=0)
             )
         for j, (x, cell, al) in enumerate(zip(cols_x, row, aligns, strict=True)):
             weight = "bold" if j in (0, 4) else "normal"
             size = font * (0.7 if cell == "no braking" else 1.0)
             fig.text(
                 x,
-                y - row_h * 0.3,
+                y - row_h * 0.5,
                 cell,
                 fontsize=size,
                 ha=al,
@@ -891,13 +913,19 @@ def target_sheet(condition, circuit_name: str, caution: str, fmt: str = "png") -
         "Brake points are where the ideal starts braking, from the start/finish gate and "
         "before the apex; speeds are the ideal's at the segment's entry, minimum and exit."
     )
-    fig.text(0.06, 0.145, textwrap.fill(note, 100), fontsize=9, va="top", color="#444444")
+    fig.text(0.06, 0.17, textwrap.fill(note, 100), fontsize=9, va="top", color="#444444")
     fig.add_artist(
-        Rectangle((0.05, 0.025), 0.90, 0.09, facecolor="#fff4e0", edgecolor=ACCENT, lw=1.5)
+        Rectangle((0.05, 0.025), 0.90, 0.115, facecolor="#fff4e0", edgecolor=ACCENT, lw=1.5)
     )
-    fig.text(0.07, 0.105, "Caution", fontsize=12, fontweight="bold", va="top", color="#7a4a00")
+    fig.text(0.07, 0.128, "Caution", fontsize=12, fontweight="bold", va="top", color="#7a4a00")
     fig.text(
-        0.07, 0.085, textwrap.fill(caution, 95), fontsize=10, va="top", color=INK, linespacing=1.3
+        0.07,
+        0.105,
+        textwrap.fill(caution, 88),
+        fontsize=10.5,
+        va="top",
+        color=INK,
+        linespacing=1.35,
     )
     buf = io.BytesIO()
     meta = (

@@ -1056,18 +1056,25 @@ def write_outputs(
 # --------------------------------------------------------------------------- target sheets
 
 
-def _condition(rec) -> dict:
+def _condition(rec, length_m=None) -> dict:
+    """A target-table record as a plain dict; ``before_apex_m`` wraps across the gate."""
     c = _as_record(rec)
     k = float(c["grip_scale"])
     label = _get(c, "condition", "label", "name")
+    length = _f(_get(c, "length_m", "lap_length_m", default=length_m))
     corners = []
     for corner in c.get("corners", []):
         r = _as_record(corner)
+        apex, brake = _f(r.get("apex_m")), _f(r.get("brake_start_m"))
+        before = _f(_get(r, "brake_before_apex_m", default=apex - brake))
+        if before < 0 and math.isfinite(length):  # braking starts before the gate
+            before += length
         corners.append(
             {
                 "name": str(r["name"]),
                 "apex_m": _f(r.get("apex_m")),
-                "brake_start_m": _f(r.get("brake_start_m")),
+                "brake_start_m": brake,
+                "before_apex_m": before if before >= 0 else float("nan"),
                 "entry_speed_kmh": _kmh_field(r, "entry_speed"),
                 "min_speed_kmh": _kmh_field(r, "min_speed"),
                 "exit_speed_kmh": _kmh_field(r, "exit_speed"),
@@ -1078,6 +1085,7 @@ def _condition(rec) -> dict:
         "label": str(label) if label else f"grip {k:.2f}",
         "grip_scale": k,
         "lap_time_s": float(c["lap_time_s"]),
+        "length_m": length,
         "corners": corners,
     }
 
@@ -1086,7 +1094,7 @@ def _slug(text: str) -> str:
     return re.sub(r"[^a-z0-9]+", "_", text.lower()).strip("_") or "condition"
 
 
-def targets_csv_text(conditions) -> str:
+def targets_csv_text(conditions, *, length_m: float | None = None) -> str:
     """CSV of the target tables: one row per condition and corner.
 
     Parameters
@@ -1098,7 +1106,7 @@ def targets_csv_text(conditions) -> str:
     -------
     str
     """
-    conds = [_condition(c) for c in conditions]
+    conds = [_condition(c, length_m) for c in conditions]
     header = (
         "condition,grip_scale [-],lap_time [s],corner,apex [m],brake_start [m],"
         "brake_before_apex [m],entry_speed [km/h],min_speed [km/h],exit_speed [km/h],"
@@ -1120,7 +1128,7 @@ def targets_csv_text(conditions) -> str:
                         _csv_cell(r["name"]),
                         num(r["apex_m"], 1),
                         num(r["brake_start_m"], 1),
-                        num(r["apex_m"] - r["brake_start_m"], 1),
+                        num(r["before_apex_m"], 1),
                         num(r["entry_speed_kmh"], 1),
                         num(r["min_speed_kmh"], 1),
                         num(r["exit_speed_kmh"], 1),
@@ -1132,7 +1140,12 @@ def targets_csv_text(conditions) -> str:
 
 
 def write_target_sheets(
-    conditions, out_dir, circuit_name: str, *, progress: Progress | None = None
+    conditions,
+    out_dir,
+    circuit_name: str,
+    *,
+    length_m: float | None = None,
+    progress: Progress | None = None,
 ) -> list[Path]:
     """Write a printable one-page sheet per condition (PDF and PNG) and targets.csv.
 
@@ -1145,6 +1158,9 @@ def write_target_sheets(
         Output folder; made when missing (its parent must exist).
     circuit_name : str
         Heading of each sheet.
+    length_m : float, optional
+        Lap length, so a brake point before the gate gives its distance before an apex
+        after it (records may carry ``length_m`` themselves). [m]
     progress : callable, optional
         ``progress(done, total, step)``; None = silent.
 
@@ -1156,7 +1172,7 @@ def write_target_sheets(
     from limitlap import figures as fg
 
     out = _prepare_folder(out_dir)
-    conds = [_condition(c) for c in conditions]
+    conds = [_condition(c, length_m) for c in conditions]
     step = _stepper(progress, 2 * len(conds) + 1)
     written, seen = [], set()
     for c in conds:
@@ -1168,6 +1184,8 @@ def write_target_sheets(
             data = fg.target_sheet(c, circuit_name, SAFETY_CAUTION, fmt=fmt)
             written.append(write_atomic(out / f"targets_{slug}.{fmt}", data))
             step(f"target sheet {c['label']} ({fmt})")
-    written.append(write_atomic(out / "targets.csv", targets_csv_text(conditions)))
+    written.append(
+        write_atomic(out / "targets.csv", targets_csv_text(conditions, length_m=length_m))
+    )
     step("targets.csv")
     return written
