@@ -510,8 +510,21 @@ class _Markers:
     i_min: int | None
 
 
-def _corner_markers(tr, lo_brake, start_u, end_u, hi_drive, brake_threshold_pa, use_throttle):
-    v_min, at, i_min = _min_speed(tr, start_u, end_u)
+def _zone_u(corner: Corner, start_u: float, length: float, closed: bool):
+    """Turn-in and exit of the corner's curvature zone on the unwrapped axis. [m]"""
+    z0 = _unwrap_after(corner.turn_in_m, start_u, length, closed)
+    z1 = z0 + (
+        float(np.mod(corner.exit_m - corner.turn_in_m, length))
+        if closed
+        else corner.exit_m - corner.turn_in_m
+    )
+    return z0, z1
+
+
+def _corner_markers(tr, lo_brake, start_u, end_u, hi_drive, brake_threshold_pa, use_throttle, zone):
+    # Minimum speed within the curvature zone (turn-in to exit, both included): a corner
+    # taken flat or still accelerating has its "minimum" there, not at the segment start.
+    v_min, at, i_min = _min_speed(tr, zone[0], zone[1] + 1e-9)
     f = _braking_signal(tr, brake_threshold_pa)
     b0, b1 = _brake_zone(tr, f, lo_brake, i_min)
     fd = _full_drive(tr, i_min, hi_drive, use_throttle)
@@ -573,7 +586,7 @@ class CornerComparison:
         where the ideal is at full drive, and from there to the segment end; they add up
         to ``time_left_s``. [s]
     min_speed_actual_m_s, min_speed_ideal_m_s : float
-        Lowest speed in the segment. [m/s]
+        Lowest speed from turn-in to exit (the curvature zone). [m/s]
     min_speed_actual_at_m, min_speed_ideal_at_m : float
         Where it is. [m]
     brake_start_actual_m, brake_start_ideal_m : float
@@ -963,8 +976,9 @@ def compare_lap(
         if line.closed and c.end_m <= c.start_m:
             a_s += actual.lap_time
             i_s += best.lap_time
-        ma = _corner_markers(actual, lo, start_u, end_u, hi, brake_thr, throttle is not None)
-        mi = _corner_markers(best, lo, start_u, end_u, hi, None, False)
+        zone = _zone_u(c, start_u, length, line.closed)
+        ma = _corner_markers(actual, lo, start_u, end_u, hi, brake_thr, throttle is not None, zone)
+        mi = _corner_markers(best, lo, start_u, end_u, hi, None, False, zone)
         # Phases cut where the ideal stops braking and where it reaches full drive.
         cut_a = mi.brake_end
         if not math.isfinite(cut_a):

@@ -24,6 +24,7 @@ from limitlap.compare import (
     _mod,
     _Trace,
     _unwrapped_bounds,
+    _zone_u,
     find_corners,
     station_accel,
 )
@@ -66,7 +67,7 @@ class CornerTarget:
     brake_before_apex_m : float
         Distance from the brake point to the apex. [m]
     min_speed_m_s : float
-        Lowest speed in the segment. [m/s]
+        Lowest speed from turn-in to exit (the curvature zone). [m/s]
     min_speed_at_m : float
         Where it is, from the gate. [m]
     exit_speed_m_s : float
@@ -213,7 +214,8 @@ def target_table(
         seg_time = tr.time_at_mod(c.end_m) - tr.time_at_mod(c.start_m)
         if line.closed and c.end_m <= c.start_m:
             seg_time += tr.lap_time
-        mk = _corner_markers(tr, lo, start_u, end_u, hi, None, False)
+        zone = _zone_u(c, start_u, length, line.closed)
+        mk = _corner_markers(tr, lo, start_u, end_u, hi, None, False, zone)
         if math.isfinite(mk.brake_start):
             entry = float(np.interp(mk.brake_start, tr.u, tr.v))
             before = apex_u - mk.brake_start
