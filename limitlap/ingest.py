@@ -928,3 +928,70 @@ def fill_position(log: Log, bridge_s: float = BRIDGE_MAX_S) -> tuple[np.ndarray,
         xf[span] = ex
         yf[span] = ny
     return xf, yf
+
+
+# --------------------------------------------------------------------------- track files
+
+
+@dataclass(frozen=True)
+class Track:
+    """A circuit description (TOML): name, start/finish gate, corner names, line file.
+
+    ``corner_names`` are in driving order from the gate; ``line_path`` is resolved
+    relative to the track file (None when it names none).
+    """
+
+    path: str
+    name: str
+    gate_latlon: tuple[float, float] | None
+    corner_names: tuple[str, ...]
+    corner_labels: tuple[str, ...]
+    corner_apexes_m: tuple[float, ...]
+    line_path: str | None
+
+
+def read_track(path) -> Track:
+    """Read a track file: ``name``, ``[gate] latitude/longitude``, ``[[corners]] name,
+    label, apex_m``, ``line`` (a line file beside it)."""
+    path = Path(path)
+    try:
+        with path.open("rb") as fh:
+            data = tomllib.load(fh)
+    except FileNotFoundError:
+        raise InputError(path, "file not found") from None
+    except OSError as err:
+        raise InputError(path, f"cannot be read: {err.strerror}") from err
+    except tomllib.TOMLDecodeError as err:
+        raise InputError(path, f"not valid TOML: {err}") from err
+    gate = data.get("gate")
+    gate_latlon = None
+    if gate is not None:
+        try:
+            lat, lon = float(gate["latitude"]), float(gate["longitude"])
+        except (KeyError, TypeError, ValueError):
+            raise InputError(path, "[gate] needs numeric 'latitude' and 'longitude'") from None
+        if not (-90 <= lat <= 90 and -180 <= lon <= 180):
+            raise InputError(path, f"[gate] latitude/longitude out of range: {lat}, {lon}")
+        gate_latlon = (lat, lon)
+    corners = data.get("corners", [])
+    if not isinstance(corners, list) or not all(isinstance(c, dict) for c in corners):
+        raise InputError(path, "'corners' must be an array of tables [[corners]]")
+    names, labels, apexes = [], [], []
+    for i, c in enumerate(corners, start=1):
+        names.append(str(c.get("name", f"T{i}")))
+        labels.append(str(c.get("label", "")))
+        apex = c.get("apex_m", float("nan"))
+        if isinstance(apex, bool) or not isinstance(apex, int | float):
+            raise InputError(path, f"corner {names[-1]}: 'apex_m' must be a number")
+        apexes.append(float(apex))
+    line = data.get("line")
+    line_path = str(path.parent / line) if isinstance(line, str) else None
+    return Track(
+        str(path),
+        str(data.get("name", path.stem)),
+        gate_latlon,
+        tuple(names),
+        tuple(labels),
+        tuple(apexes),
+        line_path,
+    )

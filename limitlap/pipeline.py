@@ -1,0 +1,320 @@
+"""The whole job on one log: ingest -> laps -> line -> envelope -> solve -> compare.
+
+``analyse()`` is the one documented call for notebook users; it returns a frozen
+:class:`Analysis` holding the laps, the driven line, the envelope, the real and ideal
+profiles and the corner table as arrays and plain records. Writing files is
+:mod:`limitlap.report`'s job.
+
+Examples
+--------
+>>> from limitlap.resources import bundled_path
+>>> from limitlap import pipeline
+>>> a = pipeline.analyse(bundled_path("demo_tracks", "tarrowby_dry.csv.gz"),
+...                      track=bundled_path("demo_tracks", "tarrowby_heath.toml"))
+>>> a.comparison.time_left_s > 0
+True
+"""
+
+from __future__ import annotations
+
+from collections.abc import Callable
+from dataclasses import dataclass, field
+from pathlib import Path
+
+import numpy as np
+
+from limitlap import compare, driven as driven_mod, envelope, ingest, laps as laps_mod, solve
+from limitlap.errors import InputError, LimitlapError
+from limitlap.vehicle import Vehicle, check_grip_scale
+
+#: Mass assumed when no vehicle file is given. The point-mass lap depends on power, drag
+#: and downforce only through P/m, CdA/m and ClA/m, so the ideal lap does not depend on
+#: this value; the fitted power and aero areas are scaled to it.
+NOMINAL_MASS_KG = 1000.0
+
+Progress = Callable[[int, int, str], None]
+
+
+@dataclass(frozen=True, eq=False)
+class Analysis:
+    """Everything ``analyse`` found, as arrays and plain records (all SI).
+
+    Attributes
+    ----------
+    log_path : str
+    laps : list of laps.Lap
+        Every lap of the log, complete or not.
+    lap : laps.Lap
+        The analysed lap.
+    driven : driven.DrivenLap
+        Its line and measured traces on the line's stations.
+    ideal : solve.Profile
+        The ideal on the same stations.
+    vehicle : Vehicle
+        The complete envelope at grip scale 1 (given or fitted).
+    fit : envelope.EnvelopeFit or None
+        The fit, when the envelope was fitted from this log.
+    grip_scale : float
+        Scale the ideal was solved at. [-]
+    grip_estimate : float or None
+        Grip scale the lap actually used, relative to ``vehicle``. [-]
+    comparison : compare.LapComparison
+    corners : list of compare.Corner
+    best_of_laps : compare.BestOfLaps or None
+    complete_laps : list of driven.DrivenLap
+        All complete laps' reconstructions (for the composite and the figures).
+    track_name : str
+    warnings : list of str
+    """
+
+    log_path: str
+    laps: list
+    lap: object
+    driven: object
+    ideal: solve.Profile
+    vehicle: Vehicle
+    fit: object | None
+    grip_scale: float
+    grip_estimate: float | None
+    comparison: object
+    corners: list
+    best_of_laps: object | None
+    complete_laps: list = field(default_factory=list)
+    track_name: str = ""
+    warnings: list = field(default_factory=list)
+
+
+def _step(progress: Progress | None, done: int, total: int, what: str) -> None:
+    if progress is not None:
+        progress(done, total, what)
+
+
+def load_session(log_path, *, gate=None, channels=None, track=None):
+    """Read a log and split it into laps.
+
+    Parameters
+    ----------
+    log_path : path
+    gate : str or laps.Gate, optional
+        ``"LAT,LON"`` or a Gate; default from the track file, else the log's ``lap``
+        column, else a gate placed automatically (with a warning).
+    channels : path, optional
+        Channel-map TOML.
+    track : path or ingest.Track, optional
+
+    Returns
+    -------
+    (ingest.Log, list of laps.Lap, ingest.Track or None, list of str)
+    """
+    warnings: list[str] = []
+    channel_map = ingest.read_channel_map(channels) if channels is not None else None
+    log = ingest.read_log(log_path, channel_map)
+    warnings += list(log.warnings)
+    trk = ingest.read_track(track) if isinstance(track, str | Path) else track
+    if isinstance(gate, str):
+        gate = laps_mod.parse_gate(gate)
+    if gate is None and trk is not None and trk.gate_latlon is not None:
+        gate = laps_mod.Gate.geodetic(*trk.gate_latlon)
+    if gate is not None and gate.is_geodetic and log.origin is None:
+        raise InputError(log_path, "a latitude/longitude gate needs a log with latitude and longitude")
+    if gate is None and not log.has("lap"):
+        gate = laps_mod.auto_gate(log)
+        where = (
+            f"{gate.latitude_deg:.6f},{gate.longitude_deg:.6f}"
+            if gate.is_geodetic
+            else f"x={gate.x_m:.1f} m, y={gate.y_m:.1f} m"
+        )
+        warnings.append(
+            f"{log_path}: no start/finish gate given and no lap column; gate placed at {where} "
+            "(give --gate LAT,LON for lap times from the real line)"
+        )
+    laps = laps_mod.split_laps(log, gate)
+    return log, laps, trk, warnings
+
+
+def _imu_samples(log, laps, rows_of):
+    """IMU speed/a_x/a_y of the given laps' rows, or None when the log has no IMU."""
+    if not (log.has("accel_lon") and log.has("accel_lat")):
+        return None
+    mask = np.zeros(log.time_s.shape[0], dtype=bool)
+    for lp in rows_of:
+        mask[lp.start_index : lp.end_index] = True
+    v = log.channels["speed"]
+    ax = log.channels["accel_lon"]
+    ay = log.channels["accel_lat"]
+    mask &= np.isfinite(v) & np.isfinite(ax) & np.isfinite(ay)
+    dt = np.diff(log.time_s)
+    rate = float(1.0 / np.median(dt)) if dt.size else None
+    return v, ax, ay, mask, rate
+
+
+def _trace_samples(drivens):
+    """Speed/a_x/a_y from the reconstructed laps (speed and line curvature)."""
+    v = np.concatenate([d.speed_m_s for d in drivens])
+    ax = np.concatenate([d.accel_lon_m_s2 for d in drivens])
+    ay = np.concatenate([d.accel_lat_m_s2 for d in drivens])
+    mask = np.isfinite(v) & np.isfinite(ax) & np.isfinite(ay)
+    return v, ax, ay, mask, None
+
+
+def analyse(
+    log_path,
+    *,
+    vehicle=None,
+    grip_scale: float = 1.0,
+    lap: int | None = None,
+    gate=None,
+    channels=None,
+    track=None,
+    progress: Progress | None = None,
+) -> Analysis:
+    """The whole job on one log: laps, line, envelope, ideal lap, comparison.
+
+    Parameters
+    ----------
+    log_path : path
+        Session log (INTERFACE §1).
+    vehicle : path or Vehicle, optional
+        Vehicle file; a complete one with ``[grip]`` is used as the envelope, otherwise
+        (mass only, or no file) the envelope is fitted to this log's complete laps.
+    grip_scale : float
+        Grip scale k for the ideal lap (damp or wet running), 0.2-2.0. [-]
+    lap : int, optional
+        Lap number to analyse; default the fastest complete lap.
+    gate, channels, track
+        See :func:`load_session`.
+    progress : callable, optional
+        ``progress(done, total, step)``.
+
+    Returns
+    -------
+    Analysis
+    """
+    total = 6
+    k = check_grip_scale(grip_scale)
+    _step(progress, 0, total, "reading the log")
+    log, laps, trk, warnings = load_session(log_path, gate=gate, channels=channels, track=track)
+    complete = [lp for lp in laps if lp.complete]
+    if not complete:
+        raise InputError(log_path, "no complete lap in the log (a lap needs two gate crossings)")
+    if lap is None:
+        chosen = laps_mod.fastest_lap(laps)
+    else:
+        matches = [lp for lp in laps if lp.number == lap]
+        if not matches:
+            numbers = ", ".join(str(lp.number) for lp in laps)
+            raise InputError(log_path, f"no lap {lap}; the log has laps {numbers}")
+        chosen = matches[0]
+        if not chosen.complete:
+            raise InputError(log_path, f"lap {lap} is not complete ({chosen.reason})")
+
+    _step(progress, 1, total, "rebuilding the driven line")
+    drivens = {lp.number: driven_mod.reconstruct_lap(log, lp) for lp in complete}
+    the_lap = drivens[chosen.number]
+    warnings += [w for w in the_lap.warnings if w not in warnings]
+
+    _step(progress, 2, total, "fitting the grip envelope")
+    if isinstance(vehicle, Vehicle):
+        base = vehicle
+    elif vehicle is not None:
+        base = ingest.read_vehicle(vehicle, require_complete=False)
+    else:
+        base = Vehicle("fitted from the log", NOMINAL_MASS_KG)
+    samples = _imu_samples(log, laps, complete)
+    if samples is None:
+        samples = _trace_samples(list(drivens.values()))
+    v_s, ax_s, ay_s, mask_s, rate = samples
+    fit = None
+    if base.is_complete:
+        car = base
+    else:
+        fit = envelope.fit_envelope(v_s, ax_s, ay_s, base, mask=mask_s, sample_rate_hz=rate)
+        car = fit.vehicle
+        warnings += [w for w in fit.warnings if w not in warnings]
+        if vehicle is None:
+            warnings.append(
+                f"no vehicle file: mass taken as {NOMINAL_MASS_KG:.0f} kg; the fitted power and "
+                "aero areas are per that mass (the ideal lap does not depend on it)"
+            )
+
+    _step(progress, 3, total, "solving the ideal lap")
+    ideal = solve.solve_profile(the_lap.line, car, k)
+
+    _step(progress, 4, total, "comparing corner by corner")
+    lap_samples = _imu_samples(log, laps, [chosen])
+    if lap_samples is None:
+        lap_samples = _trace_samples([the_lap])
+    v_l, ax_l, ay_l, mask_l, _ = lap_samples
+    grip_est = envelope.grip_estimate(v_l, ax_l, ay_l, car, mask=mask_l)
+    names = list(trk.corner_names) if trk is not None and trk.corner_names else None
+    corners = compare.find_corners(the_lap.line, names)
+    comparison = compare.compare_lap(the_lap, ideal, car, corners, grip_scale=k, grip_estimate=grip_est)
+
+    _step(progress, 5, total, "best of the session's own laps")
+    best = None
+    if len(complete) >= 1:
+        best = compare.best_of_laps(
+            [drivens[lp.number] for lp in complete],
+            corners,
+            reference_length_m=the_lap.line.length_m,
+            lap_numbers=[lp.number for lp in complete],
+            ideal=ideal,
+        )
+    _step(progress, 6, total, "done")
+    return Analysis(
+        log_path=str(log_path),
+        laps=laps,
+        lap=chosen,
+        driven=the_lap,
+        ideal=ideal,
+        vehicle=car,
+        fit=fit,
+        grip_scale=k,
+        grip_estimate=grip_est,
+        comparison=comparison,
+        corners=corners,
+        best_of_laps=best,
+        complete_laps=[drivens[lp.number] for lp in complete],
+        track_name=trk.name if trk is not None else "",
+        warnings=warnings,
+    )
+
+
+def line_from_source(source, *, lap: int | None = None, gate=None, channels=None, track=None):
+    """The line of a line file, or of a log's fastest complete lap (or lap ``lap``).
+
+    Returns
+    -------
+    (line.Line, str)
+        The line and a description of where it came from.
+    """
+    path = Path(source)
+    name = path.name.lower()
+    if name.endswith((".csv", ".csv.gz")) and not name.endswith(".gz"):
+        # A small CSV may be a line file or a log: decide from its header.
+        try:
+            with path.open("r", encoding="utf-8-sig") as fh:
+                header = fh.readline().lower()
+        except OSError as err:
+            raise InputError(path, f"cannot be read: {err.strerror or err}") from err
+        cols = [c.split("[")[0].strip() for c in header.replace(";", ",").split(",")]
+        if ("curvature" in cols and "distance" in cols) or ("time" not in cols and "x" in cols):
+            return ingest.read_line(path), f"line file {path.name}"
+    log, laps, trk, _ = load_session(path, gate=gate, channels=channels, track=track)
+    if lap is None:
+        chosen = laps_mod.fastest_lap(laps)
+    else:
+        matches = [lp for lp in laps if lp.number == lap and lp.complete]
+        if not matches:
+            raise InputError(path, f"no complete lap {lap} in the log")
+        chosen = matches[0]
+    d = driven_mod.reconstruct_lap(log, chosen)
+    return d.line, f"lap {chosen.number} of {path.name}"
+
+
+def require_vehicle_with_grip(path) -> Vehicle:
+    """A complete vehicle (or envelope.toml) for the targets command."""
+    car = ingest.read_vehicle(path, require_complete=True)
+    if not car.is_complete:
+        raise LimitlapError(f"{path}: the vehicle needs every key and a [grip] table")
+    return car
