@@ -462,6 +462,8 @@ def corner_rows(comparison) -> list[dict]:
             "grip_used": _f(rec.get("grip_used")),
         }
         row["plain"] = _plain_line({**rec, **row})
+        if callable(getattr(obj, "summary_dict", None)):
+            row["_summary"] = obj.summary_dict()  # the comparison's own §5 record
         for k, v in rec.items():
             if (
                 k not in row
@@ -518,22 +520,33 @@ def _array(obj, name, n):
 
 
 def _best_of_laps(best, corners):
-    """Total of the own-best composite; adds ``best_s`` (and ``best_lap``) to corners."""
+    """Total of the own-best composite; adds ``best_s`` and ``best_lap`` to the corners.
+
+    Takes :class:`limitlap.compare.BestOfLaps` (``names``, ``best_s``, ``best_lap``,
+    ``composite_lap_time_s``) or a record with a ``segments`` list of
+    ``{name, best_s, lap}``.
+    """
     if best is None:
         return float("nan")
-    segments = _get(best, "corners", "segments", default=[])
     by_name = {}
-    for seg in segments:
-        rec = _as_record(seg)
-        by_name[str(rec.get("name"))] = rec
+    names = _get(best, "names")
+    if names is not None:
+        best_s = np.asarray(_get(best, "best_s", default=[]), dtype=np.float64)
+        laps = list(_get(best, "best_lap", default=[None] * len(names)))
+        for j, name in enumerate(names):
+            by_name[str(name)] = {"best_s": best_s[j], "lap": laps[j]}
+    else:
+        for seg in _get(best, "segments", "corners", default=[]):
+            rec = _as_record(seg)
+            by_name[str(rec.get("name"))] = rec
     for c in corners:
         rec = by_name.get(c["name"])
         if rec is not None:
-            c["best_s"] = _f(_get(rec, "best_s", "time_s", "best_time_s"))
-            lap = _get(rec, "lap", "best_lap", "lap_number")
+            c["best_s"] = _f(_get(rec, "best_s", "time_s"))
+            lap = _get(rec, "lap", "best_lap")
             if lap is not None:
                 c["best_lap"] = int(lap)
-    total = _get(best, "time_s", "lap_time_s", "total_s", "best_time_s")
+    total = _get(best, "composite_lap_time_s", "composite_time_s", "time_s")
     if total is None and corners and all("best_s" in c for c in corners):
         total = float(sum(c["best_s"] for c in corners))
     return _f(total)
@@ -616,6 +629,14 @@ def build_summary(analysis) -> dict:
     v = _view(analysis)
     corners = []
     for c in v.corners:
+        if "_summary" in c:
+            rec = dict(c["_summary"])
+            rec.setdefault("plain", c["plain"])
+            for key in ("best_s", "best_lap"):
+                if key in c:
+                    rec[key] = c[key]
+            corners.append(rec)
+            continue
         rec = {
             k: c[k]
             for k in (
@@ -634,9 +655,14 @@ def build_summary(analysis) -> dict:
             )
         }
         rec["plain"] = c["plain"]
-        if "best_s" in c:
-            rec["best_s"] = c["best_s"]
+        for key in ("best_s", "best_lap"):
+            if key in c:
+                rec[key] = c[key]
         corners.append(rec)
+    best = _get(analysis, "best_of_laps")
+    best_rec = {"time_s": v.best_time_s, "complete_laps": v.n_laps}
+    if callable(getattr(best, "summary_dict", None)):
+        best_rec.update(best.summary_dict())
     return {
         "schema": SUMMARY_SCHEMA,
         "lap": {"number": v.lap_number, "time_s": v.lap_time_s, "distance_m": v.lap_distance_m},
@@ -644,7 +670,7 @@ def build_summary(analysis) -> dict:
         "time_left_s": v.time_left_s,
         "grip_estimate": v.grip_estimate,
         "corners": corners,
-        "best_of_laps": {"time_s": v.best_time_s, "complete_laps": v.n_laps},
+        "best_of_laps": best_rec,
         "warnings": list(v.warnings),
     }
 
@@ -734,7 +760,7 @@ def _detail_traces(v: _View):
 
 def _fit_points(fit):
     """Boundary points of an envelope fit as dicts for the g-g figure, when it has them."""
-    pts = _get(fit, "boundary_points", "boundary", "band_points")
+    pts = _get(fit, "bands", "boundary_points")
     if pts is None:
         return None
     out = []

@@ -10,7 +10,6 @@ from __future__ import annotations
 import dataclasses
 import html.parser
 import json
-import math
 import os
 import re
 import shutil
@@ -25,12 +24,12 @@ from pathlib import Path
 import numpy as np
 import pytest
 
-from limitlap import figures, report
+from limitlap import compare, figures, report, targets
 from limitlap.errors import InputError
 from limitlap.ingest import read_vehicle
 from limitlap.line import line_from_xy
 from limitlap.solve import solve_profile
-from limitlap.units import BAR_TO_PA, KMH_TO_M_S
+from limitlap.units import BAR_TO_PA
 from limitlap.vehicle import Vehicle
 
 # --------------------------------------------------------------------------- fixture
@@ -49,22 +48,6 @@ CAR = Vehicle(
 )
 
 
-@dataclasses.dataclass(frozen=True)
-class _Corner:
-    name: str
-    start_m: float
-    apex_m: float
-    end_m: float
-    actual_s: float
-    ideal_s: float
-    time_left_s: float
-    min_speed_actual_m_s: float
-    min_speed_ideal_m_s: float
-    brake_start_actual_m: float
-    brake_start_ideal_m: float
-    grip_used: float
-
-
 def _loop_xy():
     """An invented closed loop (about 2.1 km) with several corners of different radius."""
     th = np.linspace(0.0, 2 * np.pi, 400, endpoint=False)
@@ -72,119 +55,51 @@ def _loop_xy():
     return r * np.cos(th), 0.7 * r * np.sin(th)
 
 
-def _segments(line):
-    """Corner segments by curvature peaks; boundaries at the straightest point between."""
-    k = np.abs(line.curvature_1_m)
-    n = k.size
-    smooth = np.convolve(np.concatenate([k[-15:], k, k[:15]]), np.ones(31) / 31, "same")[15:-15]
-    peak = (smooth > np.roll(smooth, 1)) & (smooth >= np.roll(smooth, -1)) & (smooth > 0.004)
-    apexes = np.flatnonzero(peak)
-    bounds = []
-    for a, b in zip(apexes, np.roll(apexes, -1), strict=True):
-        idx = np.arange(a, a + ((b - a) % n or n)) % n
-        bounds.append(idx[np.argmin(smooth[idx])])
-    starts = np.roll(bounds, 1)
-    return list(zip(starts, apexes, bounds, strict=True))
-
-
-def _brake_start(ax, start, apex, n):
-    """Station where the last braking run (a_x < -1 m/s²) before the apex begins."""
-    idx = np.arange(start, start + ((apex - start) % n) + 1) % n
-    braking = np.flatnonzero(ax[idx] < -1.0)
-    if braking.size == 0:
-        return math.nan
-    first = braking[-1]
-    while first > 0 and ax[idx[first - 1]] < -1.0:
-        first -= 1
-    return float(idx[first])
-
-
-def make_analysis(tmp_path=None):
-    """A fake pipeline.Analysis from the project's solver (see module docstring)."""
-    x, y = _loop_xy()
-    line = line_from_xy(x, y, spacing_m=2.0)
-    ideal = solve_profile(line, CAR)
-    segs = _segments(line)
+def _lap(line, grip_scale, slow_corners, corners, ideal, time_offset_s):
+    """A "driven" lap: the solver at a lower grip, capped near the apex of some corners."""
     cap = np.full(line.n, np.inf)
-    for j in (0, 2, 3):  # planted mistakes: a lower minimum speed in three corners
-        _, apex, _ = segs[j % len(segs)]
-        near = np.abs(np.arange(line.n) - apex) < 25
-        cap[near] = ideal.speed_m_s[apex] * (0.86 + 0.02 * j)
-    real = solve_profile(line, CAR, 0.95, speed_cap_m_s=cap)
-    n = line.n
-    s = line.distance_m
-    t_real = np.append(real.time_s, real.lap_time_s)
-    t_ideal = np.append(ideal.time_s, ideal.lap_time_s)
-    delta = real.time_s - ideal.time_s
-    from limitlap.limits import combined_usage
-
-    usage = combined_usage(real.speed_m_s, real.accel_lon_m_s2, real.accel_lat_m_s2, CAR)
-    corners = []
-    for i, (a, apex, b) in enumerate(segs):
-        end = b if b > a else b + n
-        act = (
-            t_real[end] - t_real[a]
-            if b > a
-            else (real.lap_time_s - real.time_s[a] + real.time_s[b])
-        )
-        ide = (
-            t_ideal[end] - t_ideal[a]
-            if b > a
-            else (ideal.lap_time_s - ideal.time_s[a] + ideal.time_s[b])
-        )
-        idx = np.arange(a, a + ((b - a) % n)) % n
-        corners.append(
-            _Corner(
-                name=f"T{i + 1}",
-                start_m=float(s[a]),
-                apex_m=float(s[apex]),
-                end_m=float(s[b]),
-                actual_s=float(act),
-                ideal_s=float(ide),
-                time_left_s=float(act - ide),
-                min_speed_actual_m_s=float(real.speed_m_s[idx].min()),
-                min_speed_ideal_m_s=float(ideal.speed_m_s[idx].min()),
-                brake_start_actual_m=float(s[int(bs)])
-                if np.isfinite(bs := _brake_start(real.accel_lon_m_s2, a, apex, n))
-                else math.nan,
-                brake_start_ideal_m=float(s[int(bi)])
-                if np.isfinite(bi := _brake_start(ideal.accel_lon_m_s2, a, apex, n))
-                else math.nan,
-                grip_used=float(np.clip(np.percentile(usage[idx], 95), 0, 1)),
-            )
-        )
-    ns = types.SimpleNamespace
-    throttle = np.clip(real.accel_lon_m_s2 / 3.0, 0.0, 1.0)
-    brake_pa = np.clip(-real.accel_lon_m_s2, 0.0, None) * 8.0 * BAR_TO_PA
-    driven = ns(
+    for j, share in slow_corners.items():
+        near = np.abs(line.distance_m - corners[j].apex_m) < 50.0
+        cap[near] = np.min(ideal.speed_m_s[near]) * share
+    real = solve_profile(line, CAR, grip_scale, speed_cap_m_s=cap)
+    return types.SimpleNamespace(
         line=line,
-        time_s=real.time_s + 431.7,  # log time of the lap's stations
+        time_s=real.time_s + time_offset_s,  # log time of the lap's stations
+        lap_time_s=real.lap_time_s,
         speed_m_s=real.speed_m_s,
         accel_lon_m_s2=real.accel_lon_m_s2,
         accel_lat_m_s2=real.accel_lat_m_s2,
         yaw_rate_rad_s=real.accel_lat_m_s2 / real.speed_m_s,
-        throttle=throttle,
-        brake_pa=brake_pa,
-        gear=np.full(n, np.nan),
+        throttle=np.clip(real.accel_lon_m_s2 / 3.0, 0.0, 1.0),
+        brake_pa=np.clip(-real.accel_lon_m_s2, 0.0, None) * 8.0 * BAR_TO_PA,
+        gear=np.full(line.n, np.nan),
         agreement={"rms_1_m": 0.0004},
         warnings=["GPS dropout of 2.1 s bridged on lap 3 at 812 m"],
     )
-    comparison = ns(
-        corners=corners, time_delta_s=delta, time_left_s=real.lap_time_s - ideal.lap_time_s
+
+
+def make_analysis():
+    """A pipeline.Analysis look-alike from the project's solver and comparison."""
+    x, y = _loop_xy()
+    line = line_from_xy(x, y, spacing_m=2.0)
+    ideal = solve_profile(line, CAR)
+    corners = compare.find_corners(line)
+    planted = {0: 0.86, 2: 0.9, 3: 0.92}  # lower minimum speeds in three corners
+    driven = _lap(line, 0.95, planted, corners, ideal, 431.7)
+    other = _lap(line, 0.97, {0: 0.95, 2: 0.8}, corners, ideal, 500.0)
+    comparison = compare.compare_lap(driven, ideal, CAR, corners, grip_estimate=0.95)
+    best = compare.best_of_laps(
+        [driven, other], corners, reference_length_m=line.length_m, lap_numbers=[3, 4], ideal=ideal
     )
-    best = ns(
-        time_s=real.lap_time_s - 0.4 * (real.lap_time_s - ideal.lap_time_s),
-        corners=[
-            {"name": c.name, "best_s": c.ideal_s + 0.6 * c.time_left_s, "lap": 2} for c in corners
-        ],
-    )
+    ns = types.SimpleNamespace
     fit = ns(
         vehicle=CAR,
-        quality={"samples": 812, "rms_residual_m_s2": 0.21},
+        quality={"n_used": 812, "rms_residual_m_s2": 0.21},
         uncertainty={"mu_lat": 0.012, "mu_brk": 0.02},
+        bands=(),
         warnings=["few samples near the limit above 150 km/h"],
     )
-    lap = ns(number=3, time_s=real.lap_time_s, distance_m=line.length_m, complete=True)
+    lap = ns(number=3, time_s=driven.lap_time_s, distance_m=line.length_m, complete=True)
     return ns(
         log_path="sessions/invented_dry.csv",
         laps=[ns(number=k, complete=k > 0) for k in range(5)],
@@ -217,27 +132,11 @@ def written(analysis, tmp_path_factory):
 def _conditions():
     x, y = _loop_xy()
     line = line_from_xy(x, y, spacing_m=2.0)
-    out = []
-    for label, k in (("dry", 1.0), ("wet", 0.74)):
-        prof = solve_profile(line, CAR, k)
-        corners = []
-        for i, (a, apex, b) in enumerate(_segments(line)):
-            bs = _brake_start(prof.accel_lon_m_s2, a, apex, line.n)
-            corners.append(
-                {
-                    "name": f"T{i + 1}",
-                    "apex_m": float(line.distance_m[apex]),
-                    "entry_speed_kmh": prof.speed_m_s[a] / KMH_TO_M_S,
-                    "brake_start_m": float(line.distance_m[int(bs)]) if np.isfinite(bs) else None,
-                    "min_speed_kmh": prof.speed_m_s[apex] / KMH_TO_M_S,
-                    "exit_speed_kmh": prof.speed_m_s[b] / KMH_TO_M_S,
-                    "segment_time_s": float((prof.time_s[b] - prof.time_s[a]) % prof.lap_time_s),
-                }
-            )
-        out.append(
-            {"condition": label, "grip_scale": k, "lap_time_s": prof.lap_time_s, "corners": corners}
-        )
-    return out
+    corners = compare.find_corners(line)
+    return [
+        targets.target_table(line, CAR, k, corners, label=lab)
+        for lab, k in (("dry", 1.0), ("wet", 0.74))
+    ]
 
 
 # --------------------------------------------------------------------------- helpers
@@ -600,9 +499,9 @@ def test_target_sheets_pdf_png_and_csv(tmp_path):
             )
     rows = (tmp_path / "targets" / "targets.csv").read_text().splitlines()
     assert rows[0].startswith("condition,grip_scale [-],lap_time [s],corner")
-    assert len(rows) == 1 + sum(len(c["corners"]) for c in conds)
+    assert len(rows) == 1 + sum(len(c.corners) for c in conds)
     wet = [r.split(",") for r in rows[1:] if r.startswith("wet,")]
-    assert float(wet[0][2]) == pytest.approx(conds[1]["lap_time_s"], abs=5e-4)  # 3 decimals
+    assert float(wet[0][2]) == pytest.approx(conds[1].lap_time_s, abs=5e-4)  # 3 decimals
 
 
 def test_target_sheet_pdf_is_deterministic():
