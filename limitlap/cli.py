@@ -86,6 +86,218 @@ def solve(
         typer.echo(f"  profile    {out}")
 
 
+@app.command()
+def laps(
+    log: Path = typer.Argument(..., help="Session log (CSV, optionally .csv.gz)."),
+    gate: str = typer.Option(None, "--gate", help="Start/finish gate as LAT,LON (WGS84 degrees)."),
+    channels: Path = typer.Option(None, "--channels", help="Channel-map TOML for other column names."),
+    as_json: bool = typer.Option(False, "--json", help="Print JSON on stdout."),
+) -> None:
+    """The laps of a log: time, distance, complete or why not; the fastest marked."""
+    from limitlap import ingest
+    from limitlap import laps as lapping
+
+    the_gate = lapping.parse_gate(gate) if gate is not None else None
+    session = ingest.read_log(log, channels)
+    found = lapping.split_laps(session, the_gate)
+    for warning in session.warnings:
+        typer.echo(f"limitlap: warning: {warning}", err=True)
+    if as_json:
+        typer.echo(json.dumps(lapping.laps_json(found)))
+        return
+    typer.echo(lapping.format_laps_table(found))
+
+
+class _Progress:
+    """Terminal progress for long steps (tqdm on stderr); silent with --quiet."""
+
+    def __init__(self, quiet: bool, desc: str):
+        self.quiet = quiet
+        self.desc = desc
+        self.bar = None
+
+    def __call__(self, done: int, total: int, step: str) -> None:
+        if self.quiet:
+            return
+        if self.bar is None:
+            from tqdm import tqdm
+
+            self.bar = tqdm(total=total, desc=self.desc, unit="step", leave=False, file=sys.stderr)
+        self.bar.set_postfix_str(step, refresh=False)
+        self.bar.n = done
+        self.bar.refresh()
+
+    def close(self) -> None:
+        if self.bar is not None:
+            self.bar.close()
+            self.bar = None
+
+
+def _corner_table(analysis) -> str:
+    """The ranked corner table and headline, for the terminal."""
+    from limitlap.laps import format_lap_time
+    from limitlap.units import KMH_TO_M_S
+
+    cmp_ = analysis.comparison
+    lines = [
+        f"lap {analysis.lap.number}: {format_lap_time(cmp_.lap_time_s)}   ideal "
+        f"{format_lap_time(cmp_.ideal_lap_time_s)} at grip scale {analysis.grip_scale:g}   "
+        f"time left {cmp_.time_left_s:.2f} s   grip estimate "
+        + ("-" if analysis.grip_estimate is None else f"{analysis.grip_estimate:.2f}"),
+        "",
+        f"{'rank':>4}  {'corner':<7}{'time left':>10}{'min real':>10}{'min ideal':>10}"
+        f"{'brake real':>11}{'brake ideal':>12}{'grip used':>10}",
+        f"{'':>4}  {'':<7}{'[s]':>10}{'[km/h]':>10}{'[km/h]':>10}{'[m]':>11}{'[m]':>12}{'[%]':>10}",
+    ]
+
+    def num(x, spec, scale=1.0):
+        return "-" if x is None or x != x else format(x * scale, spec)
+
+    for c in cmp_.ranked():
+        lines.append(
+            f"{c.rank:>4}  {c.name:<7}{num(c.time_left_s, '10.2f')}"
+            f"{num(c.min_speed_actual_m_s, '10.1f', 1 / KMH_TO_M_S)}{num(c.min_speed_ideal_m_s, '10.1f', 1 / KMH_TO_M_S)}"
+            f"{num(c.brake_start_actual_m, '11.0f')}{num(c.brake_start_ideal_m, '12.0f')}"
+            f"{num(c.grip_used, '10.0f', 100.0)}"
+        )
+    lines.append("")
+    lines += [c.advice for c in cmp_.ranked()[:3] if c.advice]
+    return "\n".join(lines)
+
+
+def _gate_option():
+    return typer.Option(None, "--gate", help="Start/finish gate point 'LAT,LON' (one argument).")
+
+
+@app.command()
+def laps(
+    log: Path = typer.Argument(..., help="Session log (CSV, optionally .csv.gz)."),
+    gate: str = _gate_option(),
+    channels: Path = typer.Option(None, "--channels", help="Channel-map TOML for other column names."),
+    track: Path = typer.Option(None, "--track", help="Track TOML (gate, corner names)."),
+    as_json: bool = typer.Option(False, "--json", help="Print JSON on stdout."),
+) -> None:
+    """The laps of a log: number, time, distance, complete or why not."""
+    from limitlap import laps as laps_mod
+    from limitlap import pipeline
+
+    _, found, _, warnings = pipeline.load_session(log, gate=gate, channels=channels, track=track)
+    for w in warnings:
+        typer.echo(f"limitlap: warning: {w}", err=True)
+    if as_json:
+        typer.echo(json.dumps(laps_mod.laps_json(found)))
+    else:
+        typer.echo(laps_mod.format_laps_table(found))
+
+
+def _analyse_one(log, vehicle, k, lap, gate, channels, track, out, quiet, figures=True):
+    from limitlap import pipeline, report
+
+    bar = _Progress(quiet, log.name if hasattr(log, "name") else str(log))
+    try:
+        analysis = pipeline.analyse(
+            log, vehicle=vehicle, grip_scale=k, lap=lap, gate=gate, channels=channels,
+            track=track, progress=bar,
+        )
+        written = report.write_outputs(analysis, out, figures=figures, progress=bar)
+    finally:
+        bar.close()
+    return analysis, written
+
+
+@app.command()
+def analyse(
+    log: Path = typer.Argument(..., help="Session log (CSV, optionally .csv.gz)."),
+    vehicle: Path = typer.Option(None, "--vehicle", help="Vehicle TOML; without [grip] the envelope is fitted."),
+    grip: str = typer.Option(None, "--grip", help="Grip scale k for the ideal, 0.2-2.0."),
+    lap: int = typer.Option(None, "--lap", help="Lap number; default the fastest complete lap."),
+    gate: str = _gate_option(),
+    channels: Path = typer.Option(None, "--channels", help="Channel-map TOML for other column names."),
+    track: Path = typer.Option(None, "--track", help="Track TOML (gate, corner names)."),
+    out: Path = typer.Option(Path("limitlap-out"), "--out", help="Output folder."),
+    no_figures: bool = typer.Option(False, "--no-figures", help="Skip the PNG figures and their report panels."),
+    quiet: bool = typer.Option(False, "--quiet", help="No progress display."),
+) -> None:
+    """The whole job on one log: laps, line, envelope, ideal lap, corner comparison, report."""
+    from limitlap import report
+
+    k = _grip(grip)
+    analysis, written = _analyse_one(log, vehicle, k, lap, gate, channels, track, out, quiet, not no_figures)
+    for w in analysis.warnings:
+        typer.echo(f"limitlap: warning: {w}", err=True)
+    typer.echo(_corner_table(analysis))
+    typer.echo(f"\nwritten to {out}/: " + ", ".join(sorted(Path(p).name for p in written.values())))
+    typer.echo(report.SAFETY_CAUTION)
+
+
+@app.command()
+def targets(
+    source: Path = typer.Argument(..., help="Line file, or a log (its fastest complete lap's line)."),
+    vehicle: Path = typer.Option(..., "--vehicle", help="Vehicle TOML with [grip], or a fitted envelope.toml."),
+    grip: list[str] = typer.Option(..., "--grip", help="Grip scale 0.2-2.0 or dry/damp/wet; repeat for more."),
+    lap: int = typer.Option(None, "--lap", help="Lap of a log to take the line from."),
+    gate: str = _gate_option(),
+    channels: Path = typer.Option(None, "--channels", help="Channel-map TOML for a log."),
+    track: Path = typer.Option(None, "--track", help="Track TOML (gate, corner names)."),
+    out: Path = typer.Option(None, "--out", help="Also write CSV and printable sheets (PDF, PNG) here."),
+    as_json: bool = typer.Option(False, "--json", help="Print JSON on stdout."),
+) -> None:
+    """Target sheet per corner for one or more grip scales (dry, damp, wet)."""
+    from limitlap import compare, ingest, pipeline
+    from limitlap import targets as targets_mod
+
+    car = pipeline.require_vehicle_with_grip(vehicle)
+    for g in grip:  # check every scale before any work
+        targets_mod.resolve_condition(g)
+    line, where = pipeline.line_from_source(source, lap=lap, gate=gate, channels=channels, track=track)
+    trk = ingest.read_track(track) if track is not None else None
+    names = list(trk.corner_names) if trk is not None and trk.corner_names else None
+    corners = compare.find_corners(line, names)
+    conditions = targets_mod.target_tables(line, car, grip, corners)
+    if out is not None:
+        from limitlap import report
+
+        report.write_target_sheets(conditions, out, trk.name if trk else where)
+    if as_json:
+        typer.echo(json.dumps(targets_mod.targets_json(conditions)))
+        return
+    from limitlap import report
+
+    typer.echo(f"{car.name} on {where}")
+    for cond in conditions:
+        typer.echo("")
+        typer.echo(targets_mod.format_targets_table(cond))
+    if out is not None:
+        typer.echo(f"\nsheets written to {out}/")
+    typer.echo(report.SAFETY_CAUTION)
+
+
+@app.command()
+def demo(
+    out: Path = typer.Option(Path("limitlap-demo"), "--out", help="Output folder."),
+    quiet: bool = typer.Option(False, "--quiet", help="No progress display."),
+) -> None:
+    """The whole job on the bundled demo session: report, figures and target sheets."""
+    from limitlap import report
+    from limitlap import targets as targets_mod
+    from limitlap.resources import bundled_path
+
+    log = bundled_path("demo_tracks", "tarrowby_dry.csv.gz")
+    track = bundled_path("demo_tracks", "tarrowby_heath.toml")
+    analysis, written = _analyse_one(log, None, 1.0, None, None, None, track, out, quiet)
+    for w in analysis.warnings:
+        typer.echo(f"limitlap: warning: {w}", err=True)
+    typer.echo(_corner_table(analysis))
+    corners = analysis.corners
+    conditions = targets_mod.target_tables(analysis.driven.line, analysis.vehicle, ["dry", "damp", "wet"], corners)
+    report.write_target_sheets(conditions, out, analysis.track_name or "demo circuit")
+    for cond in conditions:
+        typer.echo("")
+        typer.echo(targets_mod.format_targets_table(cond))
+    typer.echo(f"\nreport: {Path(out) / 'report.html'}  (open it in a browser)")
+    typer.echo(report.SAFETY_CAUTION)
+
+
 def main() -> None:
     """Console entry point: a user error becomes one line on stderr."""
     try:
