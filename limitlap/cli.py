@@ -86,28 +86,6 @@ def solve(
         typer.echo(f"  profile    {out}")
 
 
-@app.command()
-def laps(
-    log: Path = typer.Argument(..., help="Session log (CSV, optionally .csv.gz)."),
-    gate: str = typer.Option(None, "--gate", help="Start/finish gate as LAT,LON (WGS84 degrees)."),
-    channels: Path = typer.Option(None, "--channels", help="Channel-map TOML for other column names."),
-    as_json: bool = typer.Option(False, "--json", help="Print JSON on stdout."),
-) -> None:
-    """The laps of a log: time, distance, complete or why not; the fastest marked."""
-    from limitlap import ingest
-    from limitlap import laps as lapping
-
-    the_gate = lapping.parse_gate(gate) if gate is not None else None
-    session = ingest.read_log(log, channels)
-    found = lapping.split_laps(session, the_gate)
-    for warning in session.warnings:
-        typer.echo(f"limitlap: warning: {warning}", err=True)
-    if as_json:
-        typer.echo(json.dumps(lapping.laps_json(found)))
-        return
-    typer.echo(lapping.format_laps_table(found))
-
-
 class _Progress:
     """Terminal progress for long steps (tqdm on stderr); silent with --quiet."""
 

@@ -255,3 +255,31 @@ def test_tables(tmp_path):
     assert "not complete: out-lap" in lines[1]
     minutes, seconds = divmod(round(best.time_s * 1000), 60000)
     assert f"{minutes}:{seconds / 1000:06.3f}" in lines[best.number + 1]
+
+
+# ----------------------------------------------------------------------------- command line
+
+
+def test_laps_command_json_and_error(tmp_path, capsys, monkeypatch):
+    import json
+    import sys
+
+    from limitlap.cli import main
+
+    circle = Circle(radius_m=RADIUS_M, duration_s=60.0)
+    path = circle.write(tmp_path / "c.csv")
+    gate = gate_at(0.0)
+    monkeypatch.setattr(sys, "argv", ["limitlap", "laps", str(path), "--gate", str(gate), "--json"])
+    main()
+    doc = json.loads(capsys.readouterr().out)
+    assert [rec["complete"] for rec in doc["laps"]] == [False, True, True, False]
+    lap_time = 2 * math.pi * RADIUS_M / 25.0
+    # str(gate) prints 6 decimals of a degree (0.1 m): the gate line moves < 0.1 m along
+    # the travel, which shifts all crossings alike; lap times stay within 0.01 s.
+    assert doc["laps"][1]["time_s"] == pytest.approx(lap_time, abs=0.01)
+    monkeypatch.setattr(sys, "argv", ["limitlap", "laps", str(path), "--gate", "-35.2;139.8"])
+    with pytest.raises(SystemExit) as stop:
+        main()
+    assert stop.value.code == 2
+    err = capsys.readouterr().err.strip()
+    assert err == "limitlap: error: --gate: '-35.2;139.8' is not LAT,LON (two numbers separated by a comma)"
