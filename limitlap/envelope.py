@@ -27,9 +27,9 @@ References
    (friction circle and ellipse).
 .. [3] R. Koenker and G. Bassett, "Regression quantiles", Econometrica 46(1):33-50,
    1978 (high quantile as the boundary statistic; details from memory).
-.. [4] S. Butterworth, "On the theory of filter amplifiers", Wireless Engineer 7,
-   536-541, 1930 (the low-pass filter; run forwards and backwards for zero phase,
-   as :func:`scipy.signal.filtfilt` does).
+.. [4] A. V. Oppenheim and R. W. Schafer, *Discrete-Time Signal Processing*,
+   Prentice Hall (window/kernel smoothing as a zero-phase low-pass; the Gaussian's
+   Fourier transform is again a Gaussian -- textbook result, chapter from memory).
 """
 
 from __future__ import annotations
@@ -38,8 +38,8 @@ import math
 from dataclasses import dataclass, field, replace
 
 import numpy as np
-from scipy import optimize, signal
-from scipy.ndimage import median_filter
+from scipy import optimize
+from scipy.ndimage import gaussian_filter1d, median_filter
 
 from limitlap.errors import LimitlapError
 from limitlap.limits import (
@@ -202,6 +202,40 @@ def _runs(ok):
     return edges[0::2], edges[1::2]
 
 
+def gaussian_sigma_samples(cutoff_hz, sample_rate_hz):
+    r"""Standard deviation of the Gaussian kernel with a given half-power frequency.
+
+    Parameters
+    ----------
+    cutoff_hz : float
+        Frequency where the power gain is 1/2. [Hz]
+    sample_rate_hz : float
+        Sample rate. [Hz]
+
+    Returns
+    -------
+    float
+        Kernel standard deviation in samples. [-]
+
+    Notes
+    -----
+    The kernel's amplitude response is :math:`H(f) = e^{-2\pi^2\sigma_t^2 f^2}` (Fourier
+    transform of a Gaussian [4]_); :math:`H^2 = 1/2` at
+    :math:`f_c = \sqrt{\ln 2 / 4}/(\pi\sigma_t)`. A Gaussian is used rather than a
+    Butterworth because its kernel is never negative: a smoothed sample is a weighted
+    mean of its neighbours and so stays inside the (convex) envelope they lie in, where a
+    Butterworth's ringing overshoots a step of acceleration (braking to throttle) and
+    puts spurious samples outside it.
+
+    Examples
+    --------
+    >>> round(gaussian_sigma_samples(3.0, 100.0), 3)
+    4.417
+    """
+    sigma_t = math.sqrt(math.log(2.0) / 4.0) / (math.pi * cutoff_hz)
+    return sigma_t * sample_rate_hz
+
+
 def select_samples(
     speed_m_s,
     accel_lon_m_s2,
@@ -230,8 +264,8 @@ def select_samples(
         Uniform sample rate. When given, spikes are removed and the accelerations
         low-pass filtered; without it (e.g. samples on distance stations) neither. [Hz]
     cutoff_hz : float, default 3.0
-        Cut-off of the zero-phase 2nd-order Butterworth low-pass [4]_; "a few Hz" is
-        common practice, no published source (REFERENCES §2.2). [Hz]
+        Half-power (-3 dB) frequency of the zero-phase Gaussian low-pass [4]_; "a few Hz"
+        is common practice, no published source (REFERENCES §2.2). [Hz]
     persistence_s : float, default 0.3
         Width of the running median: a value must last about half of it to count as
         sustained grip (0.2-0.5 s is common practice, no published source). [s]
@@ -261,8 +295,7 @@ def select_samples(
         v = _fill_gaps(v)
         finite = np.isfinite(ax) & np.isfinite(ay)
         width = max(3, round(persistence_s * fs) | 1)  # odd window
-        wn = cutoff_hz / (0.5 * fs)
-        sos = signal.butter(2, wn, output="sos") if wn < 1.0 else None
+        sigma = gaussian_sigma_samples(cutoff_hz, fs)
         spike = np.zeros(n, bool)
         starts, ends = _runs(finite)
         for a, b in zip(starts, ends, strict=True):  # one pass per unbroken stretch
@@ -272,10 +305,10 @@ def select_samples(
                 bad = np.abs(arr[seg] - med) > spike_threshold_m_s2
                 spike[seg] |= bad
                 arr[seg] = np.where(bad, med, arr[seg])  # replace before filtering
-            if sos is not None and b - a > 15:  # sosfiltfilt's default pad length
-                ax[seg] = signal.sosfiltfilt(sos, ax[seg])
-                ay[seg] = signal.sosfiltfilt(sos, ay[seg])
-            elif sos is not None:
+            if b - a > 8.0 * sigma:
+                ax[seg] = gaussian_filter1d(ax[seg], sigma, mode="nearest")
+                ay[seg] = gaussian_filter1d(ay[seg], sigma, mode="nearest")
+            else:
                 finite[seg] = False  # too short to filter: leave out
         n_spikes = int((spike & keep).sum())
         keep = keep & ~spike & finite
@@ -657,17 +690,16 @@ def required_grip_scale(speed_m_s, accel_lon_m_s2, accel_lat_m_s2, vehicle: Vehi
     return _grip_demand(speed_m_s, accel_lon_m_s2, accel_lat_m_s2, vehicle)
 
 
-def _prepare(speed_m_s, accel_lon_m_s2, accel_lat_m_s2, mask, min_speed_m_s):
-    v = _as_1d("speed", speed_m_s)
-    ax = _as_1d("longitudinal acceleration", accel_lon_m_s2, v.shape[0])
-    ay = _as_1d("lateral acceleration", accel_lat_m_s2, v.shape[0])
-    ok = np.isfinite(v) & np.isfinite(ax) & np.isfinite(ay) & (v >= min_speed_m_s)
-    if mask is not None:
-        mask = np.asarray(mask, dtype=bool)
-        if mask.shape != v.shape:
-            raise LimitlapError(f"sample mask has shape {mask.shape}, expected {v.shape}")
-        ok &= mask
-    return v, ax, ay, ok
+def _prepare(speed_m_s, accel_lon_m_s2, accel_lat_m_s2, mask, min_speed_m_s, sample_rate_hz):
+    sel = select_samples(
+        speed_m_s,
+        accel_lon_m_s2,
+        accel_lat_m_s2,
+        mask,
+        sample_rate_hz=sample_rate_hz,
+        min_speed_m_s=min_speed_m_s,
+    )
+    return sel.speed_m_s, sel.accel_lon_m_s2, sel.accel_lat_m_s2, sel.used
 
 
 def grip_estimate(
@@ -678,6 +710,7 @@ def grip_estimate(
     *,
     quantile=0.99,
     mask=None,
+    sample_rate_hz=None,
     min_speed_m_s=10.0,
 ) -> float:
     """Grip scale at which the vehicle's envelope just bounds what the samples showed.
@@ -693,6 +726,11 @@ def grip_estimate(
         envelope fit, so spikes do not set it. [-]
     mask : array-like of bool, optional
         Samples to consider. [-]
+    sample_rate_hz : float, optional
+        Uniform sample rate of a raw log: the samples are then despiked and low-pass
+        filtered by :func:`select_samples` first, as :func:`fit_envelope` does, so that
+        noise does not raise the estimate. Leave out for already smooth samples (e.g. a
+        reconstructed lap on distance stations). [Hz]
     min_speed_m_s : float, default 10.0
         Slower samples are left out. [m/s]
 
@@ -715,7 +753,9 @@ def grip_estimate(
     >>> round(grip_estimate([20.0, 20.0], [0.0, 0.0], [7.0, 8.0], car, quantile=1.0), 4)
     0.8158
     """
-    v, ax, ay, ok = _prepare(speed_m_s, accel_lon_m_s2, accel_lat_m_s2, mask, min_speed_m_s)
+    v, ax, ay, ok = _prepare(
+        speed_m_s, accel_lon_m_s2, accel_lat_m_s2, mask, min_speed_m_s, sample_rate_hz
+    )
     k = _grip_demand(v[ok], ax[ok], ay[ok], vehicle)
     k = k[np.isfinite(k)]
     if k.size == 0:
@@ -732,6 +772,7 @@ def grip_estimate_by_segment(
     *,
     quantile=0.99,
     mask=None,
+    sample_rate_hz=None,
     min_speed_m_s=10.0,
     min_samples=5,
 ) -> np.ndarray:
@@ -745,7 +786,7 @@ def grip_estimate_by_segment(
         Complete vehicle at grip 1.
     segment_index : array-like of int
         Segment number 0..S-1 of each sample; negative = in no segment. [-]
-    quantile, mask, min_speed_m_s
+    quantile, mask, sample_rate_hz, min_speed_m_s
         As in :func:`grip_estimate`.
     min_samples : int, default 5
         Segments with fewer usable samples get NaN. [-]
@@ -755,7 +796,9 @@ def grip_estimate_by_segment(
     numpy.ndarray
         k per segment, length max(segment_index) + 1; NaN where too few samples. [-]
     """
-    v, ax, ay, ok = _prepare(speed_m_s, accel_lon_m_s2, accel_lat_m_s2, mask, min_speed_m_s)
+    v, ax, ay, ok = _prepare(
+        speed_m_s, accel_lon_m_s2, accel_lat_m_s2, mask, min_speed_m_s, sample_rate_hz
+    )
     seg = np.asarray(segment_index)
     if seg.shape != v.shape or not np.issubdtype(seg.dtype, np.integer):
         raise LimitlapError("segment index must be one integer per sample")

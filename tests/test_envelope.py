@@ -293,28 +293,42 @@ def test_grip_estimate_ignores_masked_and_slow_samples():
 # --- sample selection ----------------------------------------------------------------
 
 
-def test_lowpass_gain_matches_butterworth_response():
-    # Digital Butterworth (bilinear transform): |H(f)|^2 = 1/(1 + (tan(pi f/fs) /
-    # tan(pi fc/fs))^(2N)) (S. Butterworth 1930; Oppenheim & Schafer, Discrete-Time Signal
-    # Processing, §7.1 -- from memory); forward-backward filtering squares the gain.
-    # Measured in the middle of a 20 s record, away from edge transients: 1e-3.
-    fs, fc, f = 100.0, 3.0, 1.5
+def test_lowpass_gain_matches_gaussian_response():
+    # Fourier transform of a Gaussian kernel of standard deviation sigma_t:
+    # H(f) = exp(-2 pi^2 sigma_t^2 f^2) (textbook; Oppenheim & Schafer, from memory), so
+    # the power gain is 1/2 at the cut-off. Sampling at 100 Hz with sigma = 4.4 samples
+    # changes H by far less than the 1e-3 allowed, which covers the amplitude read-off
+    # (the maximum of a sampled sine) in the middle of a 20 s record, away from its ends.
+    fs, fc = 100.0, 3.0
+    sigma_t = envelope.gaussian_sigma_samples(fc, fs) / fs
+    assert math.exp(-4.0 * math.pi**2 * sigma_t**2 * fc**2) == pytest.approx(0.5, rel=1e-12)
     t = np.arange(0.0, 20.0, 1.0 / fs)
-    ay = 10.0 * np.sin(2 * np.pi * f * t)
-    sel = envelope.select_samples(
-        np.full(t.size, 30.0),
-        np.zeros(t.size),
-        ay,
-        sample_rate_hz=fs,
-        cutoff_hz=fc,
-        spike_threshold_m_s2=50.0,
-    )
-    gain = 1.0 / (1.0 + (math.tan(math.pi * f / fs) / math.tan(math.pi * fc / fs)) ** 4)
-    mid = slice(500, 1500)
-    assert np.abs(sel.accel_lat_m_s2[mid]).max() == pytest.approx(10.0 * gain, rel=1e-3)
-    # And scipy's own frequency response of the same design agrees with the formula.
-    _, h = signal.sosfreqz(signal.butter(2, fc / (fs / 2), output="sos"), [f], fs=fs)
-    assert abs(h[0]) ** 2 == pytest.approx(gain, rel=1e-9)
+    for f in (0.5, 1.5, 3.0):
+        ay = 10.0 * np.sin(2 * np.pi * f * t)
+        sel = envelope.select_samples(
+            np.full(t.size, 30.0),
+            np.zeros(t.size),
+            ay,
+            sample_rate_hz=fs,
+            cutoff_hz=fc,
+            spike_threshold_m_s2=50.0,
+        )
+        gain = math.exp(-2.0 * math.pi**2 * sigma_t**2 * f**2)
+        assert np.abs(sel.accel_lat_m_s2[500:1500]).max() == pytest.approx(10.0 * gain, rel=1e-3)
+
+
+def test_lowpass_does_not_overshoot_a_step():
+    # A kernel that is never negative averages: a smoothed value stays within the range
+    # of the raw values around it, so a step from full drive to full braking produces no
+    # samples beyond either limit. Negative control: a 2nd-order Butterworth run forwards
+    # and backwards (scipy.signal.sosfiltfilt) rings past the step by more than 1 %.
+    fs = 100.0
+    ax = np.where(np.arange(1000) < 500, 3.0, -15.0)
+    sel = envelope.select_samples(np.full(1000, 40.0), ax, np.zeros(1000), sample_rate_hz=fs)
+    assert sel.accel_lon_m_s2.max() <= 3.0 + 1e-12
+    assert sel.accel_lon_m_s2.min() >= -15.0 - 1e-12
+    bw = signal.sosfiltfilt(signal.butter(2, 3.0 / (fs / 2), output="sos"), ax)
+    assert bw.min() < -15.0 - 0.01 * 18.0 or bw.max() > 3.0 + 0.01 * 18.0
 
 
 def test_select_rejects_spikes_slow_and_masked_samples():
