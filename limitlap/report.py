@@ -951,10 +951,10 @@ def report_html(v: _View, figure_list) -> str:
         "min speed yours / ideal [km/h]",
         "brake yours / ideal [m]",
         "grip used",
-        "what to try",
+        "where the time is",
     ]
     out += [
-        f'<th class="{"t" if h in ("corner", "what to try") else ""}">{e(h)}</th>' for h in heads
+        f'<th class="{"t" if h in ("corner", "where the time is") else ""}">{e(h)}</th>' for h in heads
     ]
     out.append("</tr></thead><tbody>")
     ranked = sorted(v.corners, key=lambda c: -c["time_left_s"])

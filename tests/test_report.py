@@ -424,6 +424,28 @@ def test_every_png_is_a_real_png_of_the_expected_size(written):
     assert img[..., :3].std() > 0.05  # not a blank canvas
 
 
+def test_minimal_analysis_without_fit_best_map_or_pedals(tmp_path):
+    # A line given as curvature (no x/y: no map), no envelope fit, no best-of-laps, no
+    # throttle or brake channel: the report is still complete for what there is.
+    from limitlap.line import line_from_curvature
+
+    full = make_analysis()
+    src = full.driven.line
+    line = line_from_curvature(src.distance_m, src.curvature_1_m, length_m=src.length_m)
+    driven = types.SimpleNamespace(**{**vars(full.driven), "line": line})
+    del driven.throttle, driven.brake_pa
+    bare = types.SimpleNamespace(
+        **{**vars(full), "driven": driven, "fit": None, "best_of_laps": None, "laps": []}
+    )
+    files = report.write_outputs(bare, tmp_path / "out")
+    assert "map.png" not in files and "best_of_laps.png" not in files
+    assert {"corner_1.png", "gg.png", "speed.png"} <= set(files)
+    text = files["report"].read_text(encoding="utf-8")
+    assert text.count("<img ") == sum(1 for k in files if k.endswith(".png"))
+    summary = json.loads(files["summary"].read_text(encoding="utf-8"))
+    assert summary["best_of_laps"]["time_s"] is None
+
+
 def test_progress_reports_every_step(written):
     _, _, steps = written
     total = steps[0][1]
