@@ -954,7 +954,8 @@ def report_html(v: _View, figure_list) -> str:
         "where the time is",
     ]
     out += [
-        f'<th class="{"t" if h in ("corner", "where the time is") else ""}">{e(h)}</th>' for h in heads
+        f'<th class="{"t" if h in ("corner", "where the time is") else ""}">{e(h)}</th>'
+        for h in heads
     ]
     out.append("</tr></thead><tbody>")
     ranked = sorted(v.corners, key=lambda c: -c["time_left_s"])
