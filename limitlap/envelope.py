@@ -538,6 +538,7 @@ def fit_envelope(
     usage = combined_usage(v, ax, ay, veh)
     bands = []
     warnings = []
+    sparse = []
     for b in range(edges.size - 1):
         inb = band == b
         if not inb.any():
@@ -549,10 +550,13 @@ def fit_envelope(
             EnvelopeBand(lo_b, hi_b, int(inb.sum()), near, bv[sel_b], bax[sel_b], bay[sel_b])
         )
         if near < min_near_limit:
-            warnings.append(
-                f"speed band {lo_b:.0f}-{hi_b:.0f} m/s: only {near} samples within 5 % of "
-                "the fitted limit; the envelope there rests on the neighbouring bands"
-            )
+            sparse.append(f"{lo_b:.0f}-{hi_b:.0f}")
+    if sparse:
+        warnings.append(
+            f"speed band{'s' if len(sparse) > 1 else ''} {', '.join(sparse)} m/s: fewer than "
+            f"{min_near_limit} samples within 5 % of the fitted limit; the envelope there "
+            "rests on the neighbouring bands"
+        )
     warnings.extend(_plausibility(veh, v, names, uncertainty))
     quality = {
         "rms_residual_m_s2": float(np.sqrt(np.mean(res**2))),
