@@ -370,3 +370,42 @@ def test_parked_car_without_new_fixes_is_not_a_dropout(tmp_path):
     x[(t > 1) & (t < 9)] = np.nan  # no fixes while parked
     path = write(tmp_path, csv_text({"time": t, "speed [m/s]": speed, "x": x, "y": 0 * t}))
     assert gps_dropouts(read_log(path)) == []
+
+
+# ----------------------------------------------------------------------------- fuzzing (issue 7)
+
+from hypothesis import HealthCheck, given, settings  # noqa: E402
+from hypothesis import strategies as st  # noqa: E402
+
+_CELLS = st.one_of(
+    st.just(""), st.just(" "), st.just("nan"), st.just("inf"), st.just("1,5"), st.just("abc"),
+    st.floats(allow_nan=False, allow_infinity=False, width=32).map(lambda v: f"{v:g}"),
+    st.integers(-400, 400).map(str), st.text(alphabet=';,."\t x[]0123456789-eE', max_size=6),
+)
+_HEADERS = st.lists(
+    st.sampled_from([
+        "time", "time [ms]", "speed [km/h]", "speed [knots]", "latitude", "longitude", "x", "y",
+        "lap", "accel_lat [g]", "yaw_rate", "junk", "speed", "x [m]",
+    ]),
+    min_size=1, max_size=6,
+)
+
+
+@settings(max_examples=150, deadline=None, suppress_health_check=[HealthCheck.function_scoped_fixture])
+@given(header=_HEADERS, rows=st.lists(st.lists(_CELLS, max_size=7), max_size=6),
+       sep=st.sampled_from([",", ";"]), crlf=st.booleans())
+def test_reader_fuzz_only_input_errors(tmp_path, header, rows, sep, crlf):
+    # Whatever the text, the reader returns a Log or raises InputError with the file's name.
+    nl = "\r\n" if crlf else "\n"
+    text = nl.join([sep.join(header)] + [sep.join(r) for r in rows]) + nl
+    path = tmp_path / "fuzz.csv"
+    path.write_text(text)
+    try:
+        log = read_log(path)
+    except InputError as err:
+        assert str(err).startswith(str(path)) and "\n" not in str(err)
+        return
+    assert np.all(np.diff(log.time_s) > 0)
+    assert np.isfinite(log.channels["x"]).any()
+    fill_position(log)
+    gps_dropouts(log)
