@@ -951,6 +951,7 @@ def report_html(v: _View, figure_list) -> str:
         "min speed yours / ideal [km/h]",
         "brake yours / ideal [m]",
         "grip used",
+        "grip found",
         "where the time is",
     ]
     out += [
@@ -970,11 +971,19 @@ def report_html(v: _View, figure_list) -> str:
             f"{_fmt(c['min_speed_actual_kmh'], '.0f')} / {_fmt(c['min_speed_ideal_kmh'], '.0f')}",
             f"{_fmt(c['brake_start_actual_m'], '.0f')} / {_fmt(c['brake_start_ideal_m'], '.0f')}",
             _fmt(100 * c["grip_used"], ".0f", " %"),
+            _fmt(_f(c.get("grip_estimate")), ".2f"),
             c["plain"],
         ]
-        tds = [f'<td class="{"t" if j in (1, 8) else ""}">{e(x)}</td>' for j, x in enumerate(cells)]
+        tds = [f'<td class="{"t" if j in (1, 9) else ""}">{e(x)}</td>' for j, x in enumerate(cells)]
         out.append(f"<tr{cls}>{''.join(tds)}</tr>")
     out.append("</tbody></table>")
+    out.append(
+        '<p class="sub">Time left: your segment time minus the ideal\'s on the same line. '
+        "Grip used: the share of the available combined grip this lap used in the corner. "
+        "Grip found: the grip scale the corner showed against the envelope (below 1 = "
+        "less grip there than at its best, e.g. a damp patch). Brake points in metres "
+        "from the start/finish gate.</p>"
+    )
     out.append("<h2>Figures</h2>")
     for name, caption, png in figure_list:
         data = base64.b64encode(png).decode("ascii")
