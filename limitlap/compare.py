@@ -26,6 +26,7 @@ covers the whole lap has ``start_m == end_m``).
 
 from __future__ import annotations
 
+import itertools
 import math
 from collections.abc import Mapping, Sequence
 from dataclasses import dataclass
@@ -65,6 +66,15 @@ BRAKE_DECEL_M_S2 = 2.5
 BRAKE_PRESSURE_SHARE = 0.05
 #: Braking interrupted for less than this still counts as one braking zone. [m]
 BRAKE_GAP_M = 5.0
+#: A corner's minimum speed must also be the lowest this far either side of its
+#: curvature zone; otherwise the speed there belongs to a neighbour's braking. [m]
+EDGE_M = 25.0
+#: A release of the brakes up to this long, coasting (speed rising by at most
+#: ``COAST_RISE_M_S``), is still one braking zone (a second, deeper application). [m]
+COAST_GAP_M = 40.0
+COAST_RISE_M_S = 0.5
+#: A braking zone must take at least this off the speed to count as a brake point. [m/s]
+MIN_BRAKE_DROP_M_S = 1.0
 #: Throttle at or above this counts as full drive. [-]
 FULL_THROTTLE = 0.98
 #: Without a throttle channel, full drive is a_x at or above this share of the driving
@@ -174,6 +184,7 @@ def find_corners(
     leave_curvature_1_m: float = LEAVE_CURVATURE_1_M,
     min_turn_rad: float = MIN_TURN_RAD,
     merge_gap_m: float = MERGE_GAP_M,
+    apexes_m: Sequence[float] | None = None,
 ) -> list[Corner]:
     r"""Corners of a line from its curvature, with segments that tile the lap.
 
@@ -183,6 +194,14 @@ def find_corners(
         Closed lap (segments wrap round the gate) or open stretch.
     names : sequence of str, optional
         Names in driving order from the gate (e.g. from a track file); default T1, T2, ...
+        Without ``apexes_m`` their number must match the corners found.
+    apexes_m : sequence of float, optional
+        Apex of each named corner, from the gate (a track file's ``apex_m``) [m]. Each
+        name goes to the corner whose curvature zone holds its apex; a named apex
+        outside every zone found (a fast bend under the thresholds) makes a corner of
+        its own, from where |curvature| falls to half its peak nearby; several names in
+        one zone give one corner with the first name; a corner found with no name is
+        called after the corner before it with a "+" ("T8+").
     smoothing_m : float
         Gaussian smoothing of curvature (standard deviation). [m]
     enter_curvature_1_m, leave_curvature_1_m : float
@@ -252,12 +271,19 @@ def find_corners(
         apex_js = {_plateau_middle(zm, int(p) - 1, tol) for p in peaks[keep]}
         apex_js.add(_plateau_middle(zm, int(np.argmax(zm)), tol))
         apexes = [(u[i0 + j], zm[j], ks[seg[j]]) for j in sorted(apex_js)]
-        zones.append([u[i0], u[i1], int(st[i0]), apexes])
-    if not zones:
+        zones.append([u[i0], u[i1], int(st[i0]), apexes, []])
+    named = None
+    if names is not None and apexes_m is not None:
+        ap = np.asarray(apexes_m, dtype=np.float64)
+        if ap.shape != (len(names),):
+            raise LimitlapError(f"{ap.size} corner apexes given for {len(names)} names")
+        if np.isfinite(ap).all():
+            named = list(zip(ap.tolist(), [str(x) for x in names], strict=True))
+    if not zones and named is None:
         return []
 
     # Join same-direction bends close together (also across the gate on a lap).
-    merged = [zones[0]]
+    merged = zones[:1]
     for z in zones[1:]:
         last = merged[-1]
         if z[2] == last[2] and z[0] - last[1] < merge_gap_m:
@@ -271,6 +297,8 @@ def find_corners(
             last[1] = first[1] + length
             last[3].extend((a + length, m, k) for a, m, k in first[3])
             merged.pop(0)
+    if named is not None:
+        merged = _place_named_apexes(merged, named, u, idx, mag, ks, length, line.closed)
 
     # Boundaries halfway along the straights.
     m = len(merged)
@@ -307,6 +335,20 @@ def find_corners(
                 peak_curvature_1_m=float(main[2]),
             )
         )
+    if named is not None:
+        order = sorted(range(len(out)), key=lambda j: out[j].apex_m)
+        final, prev = [], None
+        for j in order:
+            nm = merged[j][4][0][1] if merged[j][4] else None
+            if nm is None:  # a bend found that the track file does not name
+                nm = f"{prev}+" if prev is not None else "start+"
+            else:
+                prev = nm
+            final.append((out[j], nm))
+        if final and final[0][1] == "start+":  # name it after the last named corner
+            last_named = next((nm for _, nm in reversed(final) if not nm.endswith("+")), "T")
+            final[0] = (final[0][0], f"{last_named}+")
+        return [_renamed(c, nm) for c, nm in final]
     out.sort(key=lambda c: c.apex_m)
     if names is None:
         names = [f"T{i + 1}" for i in range(len(out))]
@@ -327,6 +369,66 @@ def find_corners(
         )
         for nm, c in zip(names, out, strict=True)
     ]
+
+
+def _renamed(c: Corner, name: str) -> Corner:
+    return Corner(
+        name,
+        c.start_m,
+        c.apex_m,
+        c.apexes_m,
+        c.end_m,
+        c.turn_in_m,
+        c.exit_m,
+        c.direction,
+        c.peak_curvature_1_m,
+    )
+
+
+def _place_named_apexes(zones, named, u, idx, mag, ks, length, closed, slack_m=10.0, snap_m=15.0):
+    """Attach (apex_m, name) pairs to curvature zones; make zones for unmatched apexes.
+
+    ``u`` is the unwrapped station distance of the work arrays (``idx`` maps to
+    stations), zones are [turn_in, exit, direction, apexes, names] on that axis.
+    """
+    u0 = float(u[0])
+    n = u.shape[0]
+    for a, name in named:
+        ua = u0 + float(np.mod(a - u0, length)) if closed else float(a)
+        host = None
+        for z in zones:
+            for cand in (ua, ua + length) if closed else (ua,):
+                if z[0] - slack_m <= cand <= z[1] + slack_m:
+                    host, ua = z, cand
+                    break
+            if host is not None:
+                break
+        i = int(np.argmin(np.abs(u - ua)))
+        near = np.flatnonzero(np.abs(u - ua) <= snap_m)
+        j = int(near[np.argmax(mag[idx[near]])]) if near.size else i
+        if host is not None:
+            host[4].append((ua, name))
+            # A second name in one zone marks a second apex, unless one was found there.
+            if len(host[4]) > 1 and min(abs(a[0] - u[j]) for a in host[3]) > snap_m:
+                host[3].append((float(u[j]), float(mag[idx[j]]), float(ks[idx[j]])))
+            continue
+        # A corner the thresholds missed: its apex where the track file puts it.
+        apex = (float(u[i]), float(mag[idx[i]]), float(ks[idx[i]]))
+        peak, sign = mag[idx[j]], np.sign(ks[idx[j]])
+        lo = hi = j
+        while lo > 0 and mag[idx[lo - 1]] >= 0.5 * peak and np.sign(ks[idx[lo - 1]]) == sign:
+            lo -= 1
+        while hi < n - 1 and mag[idx[hi + 1]] >= 0.5 * peak and np.sign(ks[idx[hi + 1]]) == sign:
+            hi += 1
+        zones.append([float(u[lo]), float(u[hi]), int(sign) if sign else 1, [apex], [(ua, name)]])
+    zones.sort(key=lambda z: z[0])
+    for z in zones:
+        z[4].sort()
+    for p, q in itertools.pairwise(zones):  # keep zones apart
+        if q[0] < p[1]:
+            mid = 0.5 * (q[0] + p[1])
+            p[1], q[0] = mid, mid
+    return zones
 
 
 # ----------------------------------------------------------------------------------
@@ -450,11 +552,13 @@ def _braking_signal(tr: _Trace, brake_threshold_pa):
     return -tr.ax - BRAKE_DECEL_M_S2
 
 
-def _brake_zone(tr: _Trace, f, lo, i_min, gap_m=BRAKE_GAP_M):
+def _brake_zone(tr: _Trace, f, lo, i_min, gap_m=BRAKE_GAP_M, coast_gap_m=COAST_GAP_M):
     """Start and end of the braking zone that leads to station i_min.
 
     Walks back from ``i_min`` to the last braking station after ``lo``, then back over
-    the zone (gaps under ``gap_m`` bridged). Returns unwrapped (start, end) or NaNs.
+    the zone (gaps under ``gap_m`` bridged, and gaps under ``coast_gap_m`` in which the
+    speed does not rise). Returns unwrapped (start, end) or NaNs, also when the zone
+    takes off less than ``MIN_BRAKE_DROP_M_S``.
     """
     i_lo = int(np.searchsorted(tr.u, lo, "left"))
     if i_min is None or i_min <= i_lo:
@@ -470,10 +574,19 @@ def _brake_zone(tr: _Trace, f, lo, i_min, gap_m=BRAKE_GAP_M):
             first -= 1
             continue
         prev_on = np.flatnonzero(np.nan_to_num(f[i_lo:first], nan=-1.0) > 0.0)
-        if prev_on.size and u[first] - u[i_lo + prev_on[-1]] <= gap_m:
-            first = i_lo + int(prev_on[-1])
-            continue
+        if prev_on.size:
+            j = i_lo + int(prev_on[-1])
+            gap = u[first] - u[j]
+            # A short release, or a longer one without getting back on the power (the
+            # speed does not rise), is still the same braking into the corner.
+            rise = np.nanmax(tr.v[j : first + 1]) - tr.v[j]
+            if gap <= gap_m or (gap <= coast_gap_m and rise <= COAST_RISE_M_S):
+                first = j
+                continue
         break
+    # Braking that takes off less than this is a brush of the brakes, not a brake point.
+    if np.nanmax(tr.v[first : i_min + 1]) - tr.v[i_min] < MIN_BRAKE_DROP_M_S:
+        return math.nan, math.nan
     start = _crossing(u, f, first) if first > i_lo else float(u[first])
     end_i = last + 1
     end = _crossing(u, -f, end_i) if end_i < u.shape[0] else float(u[last])
@@ -521,10 +634,18 @@ def _zone_u(corner: Corner, start_u: float, length: float, closed: bool):
     return z0, z1
 
 
-def _corner_markers(tr, lo_brake, start_u, end_u, hi_drive, brake_threshold_pa, use_throttle, zone):
+def _corner_markers(
+    tr, lo_brake, start_u, end_u, hi_drive, brake_threshold_pa, use_throttle, zone, apex_u=None
+):
     # Minimum speed within the curvature zone (turn-in to exit, both included): a corner
     # taken flat or still accelerating has its "minimum" there, not at the segment start.
     v_min, at, i_min = _min_speed(tr, zone[0], zone[1] + 1e-9)
+    # Still slowing at the zone's edge (braking for the next corner, or still
+    # accelerating from the last): no minimum of its own; take the speed at the apex.
+    v_ext, _, _ = _min_speed(tr, max(lo_brake, zone[0] - EDGE_M), min(hi_drive, zone[1] + EDGE_M))
+    if i_min is not None and v_ext < v_min - 1e-9 and apex_u is not None:
+        i_min = int(np.argmin(np.abs(tr.u - apex_u)))
+        v_min, at = float(tr.v[i_min]), float(tr.u[i_min])
     f = _braking_signal(tr, brake_threshold_pa)
     b0, b1 = _brake_zone(tr, f, lo_brake, i_min)
     fd = _full_drive(tr, i_min, hi_drive, use_throttle)
@@ -969,7 +1090,7 @@ def compare_lap(
     grips = _per_corner_values(corner_grip_estimates, corners, "corner grip estimates")
     bounds = _unwrapped_bounds(corners, length, line.closed)
     rows = []
-    for c, (start_u, _apex_u, end_u, lo, hi), g in zip(corners, bounds, grips, strict=True):
+    for c, (start_u, apex_u, end_u, lo, hi), g in zip(corners, bounds, grips, strict=True):
         end_mod = c.end_m
         a_s = actual.time_at_mod(end_mod) - actual.time_at_mod(c.start_m)
         i_s = best.time_at_mod(end_mod) - best.time_at_mod(c.start_m)
@@ -977,8 +1098,10 @@ def compare_lap(
             a_s += actual.lap_time
             i_s += best.lap_time
         zone = _zone_u(c, start_u, length, line.closed)
-        ma = _corner_markers(actual, lo, start_u, end_u, hi, brake_thr, throttle is not None, zone)
-        mi = _corner_markers(best, lo, start_u, end_u, hi, None, False, zone)
+        ma = _corner_markers(
+            actual, lo, start_u, end_u, hi, brake_thr, throttle is not None, zone, apex_u
+        )
+        mi = _corner_markers(best, lo, start_u, end_u, hi, None, False, zone, apex_u)
         # Phases cut where the ideal stops braking and where it reaches full drive.
         cut_a = mi.brake_end
         if not math.isfinite(cut_a):

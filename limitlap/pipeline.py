@@ -247,7 +247,8 @@ def analyse(
     v_l, ax_l, ay_l, mask_l, _ = lap_samples
     grip_est = envelope.grip_estimate(v_l, ax_l, ay_l, car, mask=mask_l)
     names = list(trk.corner_names) if trk is not None and trk.corner_names else None
-    corners = compare.find_corners(the_lap.line, names)
+    apexes = list(trk.corner_apexes_m) if names is not None else None
+    corners = compare.find_corners(the_lap.line, names, apexes_m=apexes)
     comparison = compare.compare_lap(the_lap, ideal, car, corners, grip_scale=k, grip_estimate=grip_est)
 
     _step(progress, 5, total, "best of the session's own laps")

@@ -23,6 +23,7 @@ from limitlap.compare import (
     _drive_accel_available,
     _mod,
     _Trace,
+    _unwrap_after,
     _unwrapped_bounds,
     _zone_u,
     find_corners,
@@ -65,7 +66,7 @@ class CornerTarget:
     brake_start_m : float
         Where braking starts, from the gate; NaN without braking. [m]
     brake_before_apex_m : float
-        Distance from the brake point to the apex. [m]
+        Distance from the brake point to the apex nearest the minimum speed. [m]
     min_speed_m_s : float
         Lowest speed from turn-in to exit (the curvature zone). [m/s]
     min_speed_at_m : float
@@ -215,10 +216,14 @@ def target_table(
         if line.closed and c.end_m <= c.start_m:
             seg_time += tr.lap_time
         zone = _zone_u(c, start_u, length, line.closed)
-        mk = _corner_markers(tr, lo, start_u, end_u, hi, None, False, zone)
+        mk = _corner_markers(tr, lo, start_u, end_u, hi, None, False, zone, apex_u)
         if math.isfinite(mk.brake_start):
             entry = float(np.interp(mk.brake_start, tr.u, tr.v))
-            before = apex_u - mk.brake_start
+            # To the apex nearest the minimum speed (the second one of a double apex
+            # when the braking is for that).
+            apexes_u = [_unwrap_after(a, start_u, length, line.closed) for a in c.apexes_m]
+            near = min(apexes_u, key=lambda a: abs(a - mk.min_at)) if apexes_u else apex_u
+            before = near - mk.brake_start
         else:
             entry = float(np.interp(c.start_m, s_ext, v_ext))
             before = math.nan

@@ -370,3 +370,29 @@ def test_best_of_laps_composite(lap):
     assert best.ideal_s.sum() == pytest.approx(ideal.lap_time_s, abs=1e-9)
     assert best.ideal_lap_time_s <= best.composite_lap_time_s
     assert best.summary_dict()["segments"][0]["lap"] == 7
+
+
+def test_names_matched_by_apex_with_a_missed_fast_bend():
+    # A track file names corners by apex position. The R=300 m left-hander is under the
+    # detection threshold (R < 250 m) but named, so it becomes a corner of its own; the
+    # double apex takes its first name; a found bend with no name is called after the
+    # corner before it ("Fast+").
+    layout = [*LAYOUT[:-2], ("s", 60.0), (300.0, 30.0, +1), ("s", 40.0), (120.0, 60.0, +1)]
+    line, arcs = build(layout)
+    mid = [0.5 * (a + b) for a, b, _ in arcs]
+    names = ["Gate bend", "Double", "Double b", "Kink right", "Long left", "Fast"]
+    corners = compare.find_corners(line, names, apexes_m=mid[:6])
+    assert [c.name for c in corners] == [
+        "Gate bend",
+        "Double",
+        "Kink right",
+        "Long left",
+        "Fast",
+        "Fast+",
+    ]
+    fast = corners[4]
+    assert abs(fast.apex_m - mid[5]) <= DS  # where the track file puts it (one station)
+    assert len(corners[1].apexes_m) == 2
+    # Still a tiling: every station in one segment.
+    seg = compare.segment_index(line.distance_m, line.length_m, corners)
+    assert (seg >= 0).all()
