@@ -30,7 +30,8 @@ GNSS-only curvature of a smoothing spline (SciPy's ``make_smoothing_spline``) is
 compared with both channels; the figures go into :attr:`DrivenLap.agreement`.
 
 Without yaw rate and lateral acceleration the course rate of the GNSS smoothing spline
-takes the gyro's place. Planar ``x``/``y`` logs (simulators) go through the same steps.
+takes the gyro's place, its smoothing then chosen by generalised cross-validation
+(Craven & Wahba 1979; slower, about 0.5 s a lap). Planar ``x``/``y`` logs (simulators) go through the same steps.
 
 References
 ----------
@@ -266,10 +267,10 @@ def _gnss_course(t, x, y, fix):
     return b[ok], course[ok], var[ok]
 
 
-def _spline_path(t, x, y, fix):
+def _spline_path(t, x, y, fix, gcv=False):
     """GNSS-only smoothing splines x(t), y(t); course rate and curvature per row."""
     f = np.flatnonzero(fix)
-    lam = float(np.median(np.diff(t[f]))) * (GNSS_CUTOFF_S / (2 * math.pi)) ** 4
+    lam = None if gcv else float(np.median(np.diff(t[f]))) * (GNSS_CUTOFF_S / (2 * math.pi)) ** 4
     sx = interpolate.make_smoothing_spline(t[f], x[f], lam=lam)
     sy = interpolate.make_smoothing_spline(t[f], y[f], lam=lam)
     xd, yd = sx.derivative(1)(t), sy.derivative(1)(t)
@@ -377,29 +378,38 @@ def reconstruct_lap(log, lap, spacing_m: float = 1.0) -> DrivenLap:
     num = np.zeros(t.shape)
     den = np.zeros(t.shape)
     for name, rate, var in sources:
+        # gain of the channel against the GNSS course rate (uncentred, so a steady
+        # circle counts): about 1 when sign and scale are right
         ok = moving
-        c = np.corrcoef(rate[ok], gnss_rate[ok])[0, 1] if ok.sum() > 10 else 1.0
-        if not c > 0.5:
+        g_ref = gnss_rate[ok]
+        gain = float(np.dot(rate[ok], g_ref) / np.dot(g_ref, g_ref)) if ok.sum() > 10 else 1.0
+        if not 0.5 < gain < 2.0:
             warnings.append(
                 f"{log.path}: lap {lap.number}: '{name}' does not follow the GNSS course "
-                f"(correlation {c:.2f}); left out of the line (sign convention? ISO 8855: + left)"
+                f"(gain {gain:.2f}); left out of the line (sign convention? ISO 8855: + left)"
             )
             continue
         used.append(name)
         num += rate / var
         den += 1.0 / var
+    if not used:  # GNSS alone: let generalised cross-validation pick the smoothing
+        gnss_rate, gnss_kappa = _spline_path(t, x_raw, y_raw, fix, gcv=True)
     if used:
         rate = num / den
         rate_var = 1.0 / den
     else:
+        # The spline's course rate is smooth and already holds all the GNSS information:
+        # trust it like a gyro, and let the course measurements only stop the drift.
         rate = gnss_rate
-        rate_var = np.full(t.shape, (5.0 * SIGMA_YAW_RAD_S) ** 2)
+        rate_var = np.full(t.shape, SIGMA_YAW_RAD_S**2)
         used = ["gnss"]
 
     # ---- heading smoother ----------------------------------------------------------
     c_idx, course, c_var = _gnss_course(t, x_raw, y_raw, fix)
     c_ok = moving[c_idx]
     c_idx, course, c_var = c_idx[c_ok], course[c_ok], c_var[c_ok]
+    if used == ["gnss"]:
+        c_var = c_var * 100.0
     psi_dr = np.concatenate([[0.0], np.cumsum(0.5 * (rate[1:] + rate[:-1]) * dt)])
     if c_idx.shape[0]:
         diff = np.unwrap(np.angle(np.exp(1j * (course - psi_dr[c_idx]))))
