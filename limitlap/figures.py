@@ -47,7 +47,7 @@ FIGURE_SIZE_PX = {
     "delta": (1200, 360),
     "time_left": (1200, 520),
     "map": (1000, 800),
-    "gg": (1200, 480),
+    "gg": (1400, 520),
     "detail": (1200, 640),
     "best": (1200, 520),
     "target_sheet": (1240, 1754),  # A4 portrait at 150 dpi (the sheet is drawn at 150 dpi)
@@ -106,6 +106,9 @@ def _kmh(v_m_s):
 
 def _corner_bands(ax, corners, *, label_y=None, labels=True):
     """Shade every other corner segment and write each corner's name above its apex."""
+    lo_x, hi_x = ax.get_xlim()
+    close = 0.025 * (hi_x - lo_x)  # labels nearer than this go up a line
+    last_x, raised = -math.inf, False
     for i, c in enumerate(corners):
         start, end = c["start_m"], c["end_m"]
         if i % 2 == 0:
@@ -116,11 +119,13 @@ def _corner_bands(ax, corners, *, label_y=None, labels=True):
                 ax.axvspan(start, max(hi, start), color=BAND, zorder=0, lw=0)
                 ax.axvspan(min(lo, end), end, color=BAND, zorder=0, lw=0)
         if labels:
+            raised = (c["apex_m"] - last_x < close) and not raised
+            last_x = c["apex_m"]
             y = ax.get_ylim()[1] if label_y is None else label_y
             ax.annotate(
                 c["name"],
                 (c["apex_m"], y),
-                xytext=(0, 2),
+                xytext=(0, 12 if raised else 2),
                 textcoords="offset points",
                 ha="center",
                 va="bottom",
@@ -336,17 +341,20 @@ def map_figure(x_m, y_m, loss_rate_s_m, corners, distance_m) -> bytes:
     lc.set_array(np.clip(rate_ms_m, -lim_gain, lim))
     ax.add_collection(lc)
     s = np.asarray(distance_m, dtype=np.float64)
-    cx, cy = float(np.mean(x)), float(np.mean(y))
     span = max(np.ptp(x), np.ptp(y))
+    tx, ty = np.gradient(x), np.gradient(y)
+    kappa = np.gradient(np.unwrap(np.arctan2(ty, tx))) / np.maximum(np.hypot(tx, ty), 1e-9)
     for c in corners:
         i = int(np.argmin(np.abs(s - c["apex_m"])))
-        dx, dy = x[i] - cx, y[i] - cy
-        r = math.hypot(dx, dy) or 1.0
-        off = 0.045 * span
+        # Label on the outside of the bend: the right-hand normal of a left bend (+kappa).
+        norm = math.hypot(tx[i], ty[i]) or 1.0
+        side = -1.0 if kappa[i] >= 0 else 1.0
+        dx, dy = -ty[i] / norm * side, tx[i] / norm * side
+        off = 0.04 * span
         ax.annotate(
             c["name"],
             (x[i], y[i]),
-            xytext=(x[i] + off * dx / r, y[i] + off * dy / r),
+            xytext=(x[i] + off * dx, y[i] + off * dy),
             ha="center",
             va="center",
             fontsize=10,
@@ -356,9 +364,11 @@ def map_figure(x_m, y_m, loss_rate_s_m, corners, distance_m) -> bytes:
         )
     ax.plot([x[0]], [y[0]], marker="s", ms=9, color=INK, zorder=5, ls="none", label="start/finish")
     if x.size > 1:
+        j = int(np.searchsorted(s, s[0] + 0.04 * (s[-1] - s[0])))  # 4 % of the lap on
+        j = min(max(j, 1), x.size - 1)
         ax.annotate(
             "",
-            xy=(x[min(30, x.size - 1)], y[min(30, x.size - 1)]),
+            xy=(x[j], y[j]),
             xytext=(x[0], y[0]),
             arrowprops={"arrowstyle": "->", "color": INK, "lw": 1.5},
             zorder=5,
@@ -373,7 +383,7 @@ def map_figure(x_m, y_m, loss_rate_s_m, corners, distance_m) -> bytes:
     cb = fig.colorbar(lc, ax=ax, orientation="horizontal", shrink=0.7, pad=0.02, aspect=40)
     cb.set_label("time lost per metre [ms/m]: orange = time left here, blue = gaining, grey = even")
     ax.set_title("Where the time is left on the lap", loc="left")
-    ax.legend(loc="upper right")
+    ax.legend(loc="upper right", title="arrow: direction of travel", title_fontsize=9)
     return _png(fig, "map")
 
 
@@ -541,7 +551,7 @@ def gg_figure(
     ax_s = np.asarray(accel_lon_m_s2, dtype=np.float64)
     ay_s = np.asarray(accel_lat_m_s2, dtype=np.float64)
     if bands is None:
-        bands = speed_bands_m_s(v)
+        bands = speed_bands_m_s(v, n_bands=4)
     bands = list(bands)[:4] or [(0.0, 1.0)]
     fig = _figure("gg", layout="constrained")
     axes = fig.subplots(1, len(bands), sharex=True, sharey=True, squeeze=False)[0]
@@ -601,12 +611,6 @@ def gg_figure(
     uniq = dict(zip(labels, handles, strict=True))
     fig.legend(
         uniq.values(), uniq.keys(), loc="outside lower center", ncols=len(uniq), markerscale=3
-    )
-    fig.suptitle(
-        "g-g diagram by speed band: envelope, your samples, grip left unused",
-        x=0.01,
-        ha="left",
-        fontsize=12,
     )
     return _png(fig, "gg")
 
