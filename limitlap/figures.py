@@ -687,12 +687,12 @@ def detail_figure(corner, distance_m, length_m, real, ideal, caption="") -> byte
     axes[0].axvline(unwrap(corner["apex_m"]), color="#777777", lw=0.8, ls=":")
     axes[0].annotate(
         "apex",
-        (unwrap(corner["apex_m"]), 0.98),
+        (unwrap(corner["apex_m"]), 0.02),
         xycoords=("data", "axes fraction"),
         fontsize=8,
         color="#555555",
         ha="left",
-        va="top",
+        va="bottom",
     )
     axes[0].legend(loc="best", ncols=2, frameon=True, framealpha=0.85, edgecolor="none")
     for ax, key in ((axes[1], "brake"), (axes[2], "throttle")):
