@@ -635,8 +635,9 @@ def generate_session(
     line = circuit.line
     car = vehicle.scaled(grip_scale) if grip_scale != 1.0 else vehicle
     ideal = solve_profile(line, car)
-    if duration_s is not None:
-        n_laps = max(1, int((duration_s - 2 * idle_s) / ideal.lap_time_s / 1.01) - 1)
+    if duration_s is not None:  # out-lap and in-lap take about a lap each at their pace
+        overhead_s = 2 * idle_s + ideal.lap_time_s * (1 / out_lap_pace + 1 / in_lap_pace)
+        n_laps = max(1, int((duration_s - overhead_s) / (1.02 * ideal.lap_time_s)))
     if n_laps < 1:
         raise LimitlapError("a session needs at least one complete lap")
     limit_laps = tuple(int(k) for k in limit_laps)

@@ -192,7 +192,7 @@ def test_one_hour_session_is_fast_enough():
     start = time.perf_counter()
     s = synth.generate_session(duration_s=3600.0, seed=1)
     elapsed = time.perf_counter() - start
-    assert 3300.0 < s.time_s[-1] < 3700.0
+    assert s.time_s[-1] == pytest.approx(3600.0, rel=0.05)  # whole laps: within a lap
     assert s.time_s.shape[0] > 330_000
     # "a few seconds" (benchmark issue); 2-core CI machine, measured about 1.7 s here
     assert elapsed < 8.0
