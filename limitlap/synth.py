@@ -34,7 +34,7 @@ there) and the first braking zone after the gate starts well past it.
 from __future__ import annotations
 
 import math
-from dataclasses import dataclass, field
+from dataclasses import dataclass
 
 import numpy as np
 import pymap3d
@@ -484,7 +484,6 @@ class Session:
     time_s: np.ndarray
     channels: dict[str, np.ndarray]
     truth: SessionTruth
-    notes: list[str] = field(default_factory=list)
 
 
 def _tile(line: Line, start_m: float, n_laps: int, end_m: float):
