@@ -29,7 +29,7 @@ I_V_CAP = 11  # [m/s]
 N_VEH = 12
 
 
-@njit(cache=True)
+@njit(cache=True, inline="always")
 def _tyre_share_force(mu_x, normal, fy, veh):
     """Longitudinal tyre force left by the combined law at lateral tyre force fy (>= 0).
 
@@ -45,7 +45,7 @@ def _tyre_share_force(mu_x, normal, fy, veh):
     return mu_x * normal * (1.0 - (fy / fy_max) ** n) ** (1.0 / n)
 
 
-@njit(cache=True)
+@njit(cache=True, inline="always")
 def drive_accel(kappa, b, sin_grad, veh):
     """Largest forward acceleration at curvature kappa and v² = b (all SI)."""
     m = veh[I_MASS]
@@ -59,10 +59,10 @@ def drive_accel(kappa, b, sin_grad, veh):
     if fx_power < fx_tyre:
         fx_tyre = fx_power
     resist = q * veh[I_DRAG_AREA] + veh[I_CRR] * m * g
-    return (fx_tyre - resist) / m - g * sin_grad
+    return (fx_tyre - resist) * (1.0 / m) - g * sin_grad
 
 
-@njit(cache=True)
+@njit(cache=True, inline="always")
 def brake_decel(kappa, b, sin_grad, veh):
     """Largest deceleration (positive number) at curvature kappa and v² = b (all SI)."""
     m = veh[I_MASS]
@@ -73,7 +73,7 @@ def brake_decel(kappa, b, sin_grad, veh):
         normal = 0.0
     fx_tyre = _tyre_share_force(veh[I_MU_BRK], normal, m * abs(kappa) * b, veh)
     resist = q * veh[I_DRAG_AREA] + veh[I_CRR] * m * g
-    return (fx_tyre + resist) / m + g * sin_grad
+    return (fx_tyre + resist) * (1.0 / m) + g * sin_grad
 
 
 @njit(cache=True)
@@ -94,40 +94,109 @@ def cornering_speed_limit(curvature_1_m, veh):
     return out
 
 
-@njit(cache=True)
-def _forward_step(b_i, k_i, s_i, k_j, s_j, ds, b_lim_j, veh):
-    """Explicit trapezoidal (Heun) step of db/ds = 2 a_x, clipped to the corner limit."""
-    a1 = drive_accel(k_i, b_i, s_i, veh)
-    bp = b_i + 2.0 * ds * a1
+@njit(cache=True, inline="always")
+def _forward_step(b_i, a_i, k_j, s_j, h, b_lim_j, veh):
+    """Trapezoidal predictor-corrector step of db/ds = 2 a_x to the next station j.
+
+    ``a_i`` is the acceleration the previous step evaluated at station i (at its
+    predicted speed); the step evaluates the limits once, at j, and hands that value on
+    (PEC mode). Second order in the spacing like Heun's method, one evaluation per
+    step. Clipped to j's limit. Returns (b_j, a_j).
+    """
+    bp = b_i + 2.0 * h * a_i
     if bp > b_lim_j:
         bp = b_lim_j
-    if bp < 0.0:
+    elif bp < 0.0:
         bp = 0.0
-    a2 = drive_accel(k_j, bp, s_j, veh)
-    b_j = b_i + ds * (a1 + a2)
+    a_j = drive_accel(k_j, bp, s_j, veh)
+    b_j = b_i + h * (a_i + a_j)
     if b_j > b_lim_j:
         b_j = b_lim_j
-    if b_j < 0.0:
+    elif b_j < 0.0:
         b_j = 0.0
-    return b_j
+    return b_j, a_j
+
+
+@njit(cache=True, inline="always")
+def _backward_step(b_j, d_j, k_i, s_i, h, b_lim_i, veh):
+    """Braking twin of :func:`_forward_step`, from station j back to i. Returns (b_i, d_i)."""
+    bp = b_j + 2.0 * h * d_j
+    if bp > b_lim_i:
+        bp = b_lim_i
+    elif bp < 0.0:
+        bp = 0.0
+    d_i = brake_decel(k_i, bp, s_i, veh)
+    b_i = b_j + h * (d_j + d_i)
+    if b_i > b_lim_i:
+        b_i = b_lim_i
+    elif b_i < 0.0:
+        b_i = 0.0
+    return b_i, d_i
 
 
 @njit(cache=True)
-def _backward_step(b_j, k_j, s_j, k_i, s_i, ds, b_lim_i, veh):
-    """Heun step of the braking pass from station j back to station i."""
-    d1 = brake_decel(k_j, b_j, s_j, veh)
-    bp = b_j + 2.0 * ds * d1
-    if bp > b_lim_i:
-        bp = b_lim_i
-    if bp < 0.0:
-        bp = 0.0
-    d2 = brake_decel(k_i, bp, s_i, veh)
-    b_i = b_j + ds * (d1 + d2)
-    if b_i > b_lim_i:
-        b_i = b_lim_i
-    if b_i < 0.0:
-        b_i = 0.0
-    return b_i
+def _both_passes(k, sg, ds, veh, b_lim, fwd, bwd, fa, bd, f0, b0, steps):
+    """Forward pass from station f0 and backward pass from b0, ``steps`` each, in one
+    loop: the two dependency chains are independent, so the processor overlaps them.
+    Indices wrap round the arrays (closed laps). ``fa``/``bd`` receive the acceleration
+    and deceleration carried at each station."""
+    n = k.shape[0]
+    i = f0
+    j = b0
+    a = drive_accel(k[i], fwd[i], sg[i], veh)
+    d = brake_decel(k[j], bwd[j], sg[j], veh)
+    fa[i] = a
+    bd[j] = d
+    for _ in range(steps):
+        i1 = i + 1 if i + 1 < n else 0
+        fwd[i1], a = _forward_step(fwd[i], a, k[i1], sg[i1], ds[i], b_lim[i1], veh)
+        fa[i1] = a
+        i = i1
+        j1 = j - 1 if j > 0 else n - 1
+        bwd[j1], d = _backward_step(bwd[j], d, k[j1], sg[j1], ds[j1], b_lim[j1], veh)
+        bd[j1] = d
+        j = j1
+
+
+@njit(cache=True)
+def _repeat_forward(k, sg, ds, veh, b_lim, fwd, fa, i0):
+    """Forward lap from i0 (start speed already lowered) until the trace rejoins the
+    previous lap's; returns the speed² it arrives back at i0 with."""
+    n = k.shape[0]
+    i = i0
+    a = drive_accel(k[i0], fwd[i0], sg[i0], veh)
+    fa[i0] = a
+    for _ in range(n):
+        i1 = i + 1 if i + 1 < n else 0
+        b_new, a = _forward_step(fwd[i], a, k[i1], sg[i1], ds[i], b_lim[i1], veh)
+        if i1 == i0:
+            return b_new
+        if b_new == fwd[i1] and a == fa[i1]:
+            return fwd[i0]  # same state as last lap: the rest repeats
+        fwd[i1] = b_new
+        fa[i1] = a
+        i = i1
+    return fwd[i0]
+
+
+@njit(cache=True)
+def _repeat_backward(k, sg, ds, veh, b_lim, bwd, bd, i0):
+    """Backward twin of :func:`_repeat_forward`."""
+    n = k.shape[0]
+    j = i0
+    d = brake_decel(k[i0], bwd[i0], sg[i0], veh)
+    bd[i0] = d
+    for _ in range(n):
+        j1 = j - 1 if j > 0 else n - 1
+        b_new, d = _backward_step(bwd[j], d, k[j1], sg[j1], ds[j1], b_lim[j1], veh)
+        if j1 == i0:
+            return b_new
+        if b_new == bwd[j1] and d == bd[j1]:
+            return bwd[i0]
+        bwd[j1] = b_new
+        bd[j1] = d
+        j = j1
+    return bwd[i0]
 
 
 @njit(cache=True)
@@ -137,76 +206,47 @@ def solve_speed_squared(curvature_1_m, sin_grad, ds_m, veh, closed, b_entry, b_e
     ``ds_m[i]`` is the length of the step from station i to i+1; for a closed lap the
     last one runs back to station 0. Open lines start at ``b_entry`` and end no faster
     than ``b_exit``. ``b_max`` caps v² per station on top of the grip limit (a slower
-    driver, a pit-lane limit). Returns (b, b_lim) with b_lim the grip-only limit.
+    driver, a pit-lane limit). Returns (b, b_grip) with b_grip the grip-only limit.
     """
     n = curvature_1_m.shape[0]
-    b_grip = cornering_speed_limit(curvature_1_m, veh)
+    k = curvature_1_m
+    sg = sin_grad
+    b_grip = cornering_speed_limit(k, veh)
     b_lim = np.minimum(b_grip, b_max)
     fwd = np.empty(n)
     bwd = np.empty(n)
+    fa = np.empty(n)
+    bd = np.empty(n)
     if closed:
         i0 = 0
         for i in range(1, n):
             if b_lim[i] < b_lim[i0]:
                 i0 = i
-        # Periodic lap: start both passes at the slowest cornering limit. Where the car
-        # cannot actually reach that speed (power or drag limited, downhill braking), the
-        # lap that arrives back is slower: restart from the arrival until it repeats.
+        # Periodic lap: both passes start at the slowest cornering limit. Where the car
+        # cannot actually hold that speed there (drag at full lateral grip, power, a
+        # downhill brake zone), the lap arrives back slower: restart from the arrival
+        # until it repeats.
         fwd[i0] = b_lim[i0]
-        for lap in range(200):
-            i = i0
-            for _ in range(n - 1):
-                j = i + 1 if i + 1 < n else 0
-                b_new = _forward_step(
-                    fwd[i], curvature_1_m[i], sin_grad[i], curvature_1_m[j], sin_grad[j],
-                    ds_m[i], b_lim[j], veh,
-                )
-                if lap > 0 and b_new == fwd[j]:
-                    break  # joined last lap's trace: the rest of the lap is unchanged
-                fwd[j] = b_new
-                i = j
-            i = i0 - 1 if i0 > 0 else n - 1
-            b_arr = _forward_step(
-                fwd[i], curvature_1_m[i], sin_grad[i], curvature_1_m[i0], sin_grad[i0],
-                ds_m[i], b_lim[i0], veh,
-            )
-            if b_arr >= fwd[i0] * (1.0 - 1e-13):
-                break
-            fwd[i0] = b_arr
         bwd[i0] = b_lim[i0]
-        for lap in range(200):
-            j = i0
-            for _ in range(n - 1):
-                i = j - 1 if j > 0 else n - 1
-                b_new = _backward_step(
-                    bwd[j], curvature_1_m[j], sin_grad[j], curvature_1_m[i], sin_grad[i],
-                    ds_m[i], b_lim[i], veh,
-                )
-                if lap > 0 and b_new == bwd[i]:
-                    break
-                bwd[i] = b_new
-                j = i
-            j = i0 + 1 if i0 + 1 < n else 0
-            b_arr = _backward_step(
-                bwd[j], curvature_1_m[j], sin_grad[j], curvature_1_m[i0], sin_grad[i0],
-                ds_m[i0], b_lim[i0], veh,
-            )
-            if b_arr >= bwd[i0] * (1.0 - 1e-13):
+        _both_passes(k, sg, ds_m, veh, b_lim, fwd, bwd, fa, bd, i0, i0, n - 1)
+        i_last = i0 - 1 if i0 > 0 else n - 1
+        arrival, _ = _forward_step(fwd[i_last], fa[i_last], k[i0], sg[i0], ds_m[i_last], b_lim[i0], veh)
+        for _ in range(200):
+            if arrival >= fwd[i0] * (1.0 - 1e-13):
                 break
-            bwd[i0] = b_arr
+            fwd[i0] = arrival
+            arrival = _repeat_forward(k, sg, ds_m, veh, b_lim, fwd, fa, i0)
+        j_last = i0 + 1 if i0 + 1 < n else 0
+        arrival, _ = _backward_step(bwd[j_last], bd[j_last], k[i0], sg[i0], ds_m[i0], b_lim[i0], veh)
+        for _ in range(200):
+            if arrival >= bwd[i0] * (1.0 - 1e-13):
+                break
+            bwd[i0] = arrival
+            arrival = _repeat_backward(k, sg, ds_m, veh, b_lim, bwd, bd, i0)
     else:
         fwd[0] = min(b_entry, b_lim[0])
-        for i in range(n - 1):
-            fwd[i + 1] = _forward_step(
-                fwd[i], curvature_1_m[i], sin_grad[i], curvature_1_m[i + 1], sin_grad[i + 1],
-                ds_m[i], b_lim[i + 1], veh,
-            )
         bwd[n - 1] = min(b_exit, b_lim[n - 1])
-        for i in range(n - 2, -1, -1):
-            bwd[i] = _backward_step(
-                bwd[i + 1], curvature_1_m[i + 1], sin_grad[i + 1], curvature_1_m[i], sin_grad[i],
-                ds_m[i], b_lim[i], veh,
-            )
+        _both_passes(k, sg, ds_m, veh, b_lim, fwd, bwd, fa, bd, 0, n - 1, n - 1)
     b = np.empty(n)
     for i in range(n):
         b[i] = min(fwd[i], bwd[i])
@@ -225,6 +265,61 @@ def elapsed_time(speed_m_s, ds_m, closed):
     if closed:
         total += 2.0 * ds_m[n - 1] / (speed_m_s[n - 1] + speed_m_s[0])
     return t, total
+
+
+@njit(cache=True)
+def line_steps(distance_m, gradient, curvature_1_m, length_m, closed):
+    """Steps between stations, sin(theta) from dz/ds = tan(theta), and a check flag:
+    0 fine, 1 a non-finite curvature or gradient, 2 a step that is not positive."""
+    n = distance_m.shape[0]
+    ds = np.empty(n)
+    sin_grad = np.empty(n)
+    ok = 0
+    for i in range(n):
+        g = gradient[i]
+        if not (np.isfinite(g) and np.isfinite(curvature_1_m[i])):
+            ok = 1
+        sin_grad[i] = g / np.sqrt(1.0 + g * g) if g != 0.0 else 0.0
+    for i in range(n - 1):
+        ds[i] = distance_m[i + 1] - distance_m[i]
+    ds[n - 1] = length_m - distance_m[n - 1] if closed else 1.0
+    if ok == 0:
+        for i in range(n):
+            if not ds[i] > 0.0:
+                ok = 2
+    return ds, sin_grad, ok
+
+
+@njit(cache=True)
+def profile_outputs(b, curvature_1_m, ds_m, closed):
+    """Speed, step acceleration, lateral acceleration, elapsed time and lap time from v².
+
+    a_x[i] = (b[i+1] - b[i]) / (2 ds[i]) on the step leaving station i; the last station
+    of an open line repeats the one before. Step times 2 ds / (v_i + v_{i+1}).
+    """
+    n = b.shape[0]
+    v = np.empty(n)
+    ax = np.empty(n)
+    ay = np.empty(n)
+    dt = np.empty(n)
+    for i in range(n):
+        v[i] = np.sqrt(b[i])
+        ay[i] = curvature_1_m[i] * b[i]
+    for i in range(n - 1):
+        ax[i] = (b[i + 1] - b[i]) / (2.0 * ds_m[i])
+        dt[i] = 2.0 * ds_m[i] / (v[i] + v[i + 1])
+    if closed:
+        ax[n - 1] = (b[0] - b[n - 1]) / (2.0 * ds_m[n - 1])
+        dt[n - 1] = 2.0 * ds_m[n - 1] / (v[n - 1] + v[0])
+    else:
+        ax[n - 1] = ax[n - 2]
+        dt[n - 1] = 0.0
+    t = np.empty(n)
+    acc = 0.0
+    for i in range(n):
+        t[i] = acc
+        acc += dt[i]
+    return v, ax, ay, t, acc
 
 
 @njit(cache=True)

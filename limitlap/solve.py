@@ -134,15 +134,15 @@ def cornering_speed_limit(curvature_1_m, vehicle: Vehicle, grip_scale: float = 1
 
 def _line_arrays(line: Line):
     curvature = np.ascontiguousarray(line.curvature_1_m, dtype=np.float64)
-    ds = np.ascontiguousarray(line.ds_m, dtype=np.float64)
+    s = np.ascontiguousarray(line.distance_m, dtype=np.float64)
     grad = np.ascontiguousarray(line.gradient, dtype=np.float64)
-    if curvature.ndim != 1 or curvature.shape[0] < 3:
-        raise LimitlapError("a line needs at least 3 stations")
-    if not (np.isfinite(curvature).all() and np.isfinite(grad).all()):
+    if curvature.ndim != 1 or curvature.shape[0] < 3 or s.shape != curvature.shape:
+        raise LimitlapError("a line needs at least 3 stations of distance and curvature")
+    ds, sin_grad, ok = _kernels.line_steps(s, grad, curvature, float(line.length_m), bool(line.closed))
+    if ok == 1:
         raise LimitlapError("line curvature and gradient must be finite")
-    if np.any(ds[: curvature.shape[0] - (0 if line.closed else 1)] <= 0.0):
+    if ok == 2:
         raise LimitlapError("line stations must be at increasing distance")
-    sin_grad = grad / np.sqrt(1.0 + grad * grad)  # dz/ds = tan(theta) -> sin(theta)
     return curvature, sin_grad, ds
 
 
@@ -201,22 +201,14 @@ def solve_profile(
     b, b_lim = _kernels.solve_speed_squared(
         curvature, sin_grad, ds, veh, bool(line.closed), b_entry, b_exit, b_max
     )
-    v = np.sqrt(b)
-    t, total = _kernels.elapsed_time(v, ds, bool(line.closed))
-    if line.closed:
-        b_next = np.roll(b, -1)
-        a_x = (b_next - b) / (2.0 * ds)
-    else:
-        a_x = np.empty_like(b)
-        a_x[:-1] = np.diff(b) / (2.0 * ds[:-1])
-        a_x[-1] = a_x[-2]
+    v, a_x, a_y, t, total = _kernels.profile_outputs(b, curvature, ds, bool(line.closed))
     if not math.isfinite(total):
         raise LimitlapError("the car cannot complete this line (speed falls to zero)")
     return Profile(
         distance_m=line.distance_m.copy(),
         speed_m_s=v,
         accel_lon_m_s2=a_x,
-        accel_lat_m_s2=curvature * b,
+        accel_lat_m_s2=a_y,
         time_s=t,
         lap_time_s=float(total),
         speed_limit_m_s=np.sqrt(b_lim),

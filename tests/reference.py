@@ -6,7 +6,7 @@ from __future__ import annotations
 import math
 
 
-def _share(u, n):
+def _share(u, n):  # noqa: D103
     return 0.0 if u >= 1.0 else (1.0 - u**n) ** (1.0 / n)
 
 
@@ -26,7 +26,9 @@ def _limits(kappa, b, p):
 
 
 def solve_closed(curvature, ds, p, v_cap):
-    """Speed profile on a closed lap (level), the same Heun scheme in b = v²."""
+    """Speed profile on a closed lap (level): trapezoidal predictor-corrector in b = v²
+    carrying each station's evaluated acceleration (PEC), periodic start at the slowest
+    cornering limit, repeated until the lap arrives back at its own start speed."""
     m, P, cda, cla, crr, rho, mu_y, mu_b, mu_t, n, g = p
     N = len(curvature)
     kz = 0.5 * rho * cla / m
@@ -35,38 +37,33 @@ def solve_closed(curvature, ds, p, v_cap):
         d = abs(k) - mu_y * kz
         blim.append(v_cap * v_cap if d <= 0 else min(v_cap * v_cap, mu_y * g / d))
     i0 = min(range(N), key=lambda i: blim[i])
-    fwd = [0.0] * N
-    bwd = [0.0] * N
-    def fstep(i, j, b):
-        a1 = _limits(curvature[i], b, p)[0]
-        bp = min(blim[j], max(0.0, b + 2 * ds[i] * a1))
-        a2 = _limits(curvature[j], bp, p)[0]
-        return min(blim[j], max(0.0, b + ds[i] * (a1 + a2)))
 
-    def bstep(j, i, b):
-        d1 = _limits(curvature[j], b, p)[1]
-        bp = min(blim[i], max(0.0, b + 2 * ds[i] * d1))
-        d2 = _limits(curvature[i], bp, p)[1]
-        return min(blim[i], max(0.0, b + ds[i] * (d1 + d2)))
+    def lap(trace, direction, which):
+        """One lap from i0 in ``direction``; returns the arrival back at i0."""
+        i = i0
+        a = _limits(curvature[i], trace[i], p)[which]
+        for step in range(N):
+            j = (i + direction) % N
+            h = ds[i] if direction > 0 else ds[j]
+            bp = min(blim[j], max(0.0, trace[i] + 2 * h * a))
+            a_j = _limits(curvature[j], bp, p)[which]
+            nxt = min(blim[j], max(0.0, trace[i] + h * (a + a_j)))
+            if step == N - 1:
+                return nxt
+            trace[j] = nxt
+            a, i = a_j, j
+        return trace[i0]
 
-    fwd[i0] = blim[i0]
-    while True:  # periodic: repeat until the lap arrives back at its own start speed
-        for step in range(N - 1):
-            i, j = (i0 + step) % N, (i0 + step + 1) % N
-            fwd[j] = fstep(i, j, fwd[i])
-        arrival = fstep((i0 - 1) % N, i0, fwd[(i0 - 1) % N])
-        if arrival >= fwd[i0] * (1 - 1e-13):
-            break
-        fwd[i0] = arrival
-    bwd[i0] = blim[i0]
-    while True:
-        for step in range(N - 1):
-            j, i = (i0 - step) % N, (i0 - step - 1) % N
-            bwd[i] = bstep(j, i, bwd[j])
-        arrival = bstep((i0 + 1) % N, i0, bwd[(i0 + 1) % N])
-        if arrival >= bwd[i0] * (1 - 1e-13):
-            break
-        bwd[i0] = arrival
+    out = []
+    for which, direction in ((0, 1), (1, -1)):
+        trace = [0.0] * N
+        trace[i0] = blim[i0]
+        arrival = lap(trace, direction, which)
+        while arrival < trace[i0] * (1 - 1e-13):
+            trace[i0] = arrival
+            arrival = lap(trace, direction, which)
+        out.append(trace)
+    fwd, bwd = out
     v = [math.sqrt(min(a, b)) for a, b in zip(fwd, bwd)]
     t = 0.0
     for i in range(N):

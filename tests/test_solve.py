@@ -284,6 +284,6 @@ def test_property_profile_stays_inside_envelope(seed, mass, power_kw, cda, cla, 
     v_next = np.roll(v, -1)
     ay_next = np.roll(p.accel_lat_m_s2, -1)
     use_next = limits.combined_usage(v_next, p.accel_lon_m_s2, ay_next, scaled)
-    # 1e-2: an accelerating step may use a little more than the limit at its start and a
-    # little less at its end (second-order scheme); grid 0.5-1 m.
+    # 1e-2: a Heun step averages the limits at its two ends, so it may use a little more
+    # than the limit at one end and less at the other; grid 0.5-1 m.
     assert np.minimum(use_here, use_next).max() <= 1 + 1e-2
