@@ -722,7 +722,9 @@ def generate_session(
     t = np.arange(n_rows) / sample_rate_hz
     d = np.interp(t, t_st, dist)  # standing still before and after: clamped
     v = np.interp(t, t_st, prof.speed_m_s)
-    ax = np.interp(t, t_st, prof.accel_lon_m_s2)
+    # a_x of the profile belongs to the step leaving each station: place it at the
+    # step's middle in time, not at its start (half a station early otherwise).
+    ax = np.interp(t, 0.5 * (t_st[:-1] + t_st[1:]), prof.accel_lon_m_s2[:-1])
     moving = (t > t_st[0]) & (t < t_st[-1])
     ax = np.where(moving, ax, 0.0)
     j = np.clip(np.searchsorted(dist, d, side="right") - 1, 0, dist.shape[0] - 2)

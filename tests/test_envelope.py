@@ -451,12 +451,6 @@ def test_generated_session_recovers_friction_and_exponent(dry_session_fit):
     assert fit.vehicle.drag_area_m2 == pytest.approx(true.drag_area_m2, rel=0.15)
 
 
-@pytest.mark.xfail(
-    strict=True,
-    reason="generator assigns each step's acceleration to the step's first station "
-    "(half a station early), so combined corner-exit samples sit 1-2 % outside the "
-    "true envelope and the extrapolated traction limit comes out ~8 % high",
-)
 def test_generated_session_recovers_traction(dry_session_fit):
     # Issue 4: 3 %. The pure traction limit is never demonstrated on this circuit (power
     # takes over at ~22 m/s, the slowest corner is ~15 m/s), so mu_trac is extrapolated
