@@ -16,9 +16,10 @@ try:  # typer >= 0.29 carries its own copy of click
     from typer._click.exceptions import ClickException
 except ImportError:  # older typer uses click itself
     from click.exceptions import ClickException
-Abort = typer.Abort
 
 from limitlap.errors import LimitlapError
+
+Abort = typer.Abort
 
 app = typer.Typer(
     add_completion=False,
@@ -129,7 +130,8 @@ def _corner_table(analysis) -> str:
     ]
 
     def num(x, spec, scale=1.0):
-        return "-" if x is None or x != x else format(x * scale, spec)
+        width = int(spec.split(".")[0])
+        return "-".rjust(width) if x is None or x != x else format(x * scale, spec)
 
     for c in cmp_.ranked():
         lines.append(
@@ -239,15 +241,12 @@ def targets(
     if as_json:
         typer.echo(json.dumps(targets_mod.targets_json(conditions)))
         return
-    from limitlap import report
-
     typer.echo(f"{car.name} on {where}")
     for cond in conditions:
         typer.echo("")
         typer.echo(targets_mod.format_targets_table(cond))
     if out is not None:
         typer.echo(f"\nsheets written to {out}/")
-    typer.echo(report.SAFETY_CAUTION)
 
 
 @app.command()
@@ -262,7 +261,7 @@ def demo(
 
     log = bundled_path("demo_tracks", "tarrowby_dry.csv.gz")
     track = bundled_path("demo_tracks", "tarrowby_heath.toml")
-    analysis, written = _analyse_one(log, None, 1.0, None, None, None, track, out, quiet)
+    analysis, _ = _analyse_one(log, None, 1.0, None, None, None, track, out, quiet)
     for w in analysis.warnings:
         typer.echo(f"limitlap: warning: {w}", err=True)
     typer.echo(_corner_table(analysis))
@@ -273,7 +272,6 @@ def demo(
         typer.echo("")
         typer.echo(targets_mod.format_targets_table(cond))
     typer.echo(f"\nreport: {Path(out) / 'report.html'}  (open it in a browser)")
-    typer.echo(report.SAFETY_CAUTION)
 
 
 def main() -> None:

@@ -117,6 +117,9 @@ class DrivenLap:
         One line each.
     steer_rad : numpy.ndarray
         Steering-wheel angle, + left. [rad]
+    lap_time_s : float or None
+        The lap's time gate to gate (from the lap split), so comparisons close the lap
+        exactly as the lap table does. [s]
     """
 
     line: Line
@@ -131,6 +134,7 @@ class DrivenLap:
     agreement: dict = field(default_factory=dict)
     warnings: list[str] = field(default_factory=list)
     steer_rad: np.ndarray | None = None
+    lap_time_s: float | None = None
 
 
 # --------------------------------------------------------------------------- smoothers
@@ -545,6 +549,7 @@ def reconstruct_lap(log, lap, spacing_m: float = 1.0) -> DrivenLap:
         agreement=agreement,
         warnings=warnings,
         steer_rad=station("steer"),
+        lap_time_s=float(lap.time_s) if getattr(lap, "time_s", None) is not None else None,
     )
 
 

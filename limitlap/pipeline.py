@@ -23,7 +23,9 @@ from pathlib import Path
 
 import numpy as np
 
-from limitlap import compare, driven as driven_mod, envelope, ingest, laps as laps_mod, solve
+from limitlap import compare, envelope, ingest, solve
+from limitlap import driven as driven_mod
+from limitlap import laps as laps_mod
 from limitlap.errors import InputError, LimitlapError
 from limitlap.vehicle import Vehicle, check_grip_scale
 
@@ -244,8 +246,8 @@ def analyse(
     lap_samples = _imu_samples(log, laps, [chosen])
     if lap_samples is None:
         lap_samples = _trace_samples([the_lap])
-    v_l, ax_l, ay_l, mask_l, _ = lap_samples
-    grip_est = envelope.grip_estimate(v_l, ax_l, ay_l, car, mask=mask_l)
+    v_l, ax_l, ay_l, mask_l, rate_l = lap_samples
+    grip_est = envelope.grip_estimate(v_l, ax_l, ay_l, car, mask=mask_l, sample_rate_hz=rate_l)
     names = list(trk.corner_names) if trk is not None and trk.corner_names else None
     apexes = list(trk.corner_apexes_m) if names is not None else None
     corners = compare.find_corners(the_lap.line, names, apexes_m=apexes)
@@ -301,7 +303,7 @@ def line_from_source(source, *, lap: int | None = None, gate=None, channels=None
         cols = [c.split("[")[0].strip() for c in header.replace(";", ",").split(",")]
         if ("curvature" in cols and "distance" in cols) or ("time" not in cols and "x" in cols):
             return ingest.read_line(path), f"line file {path.name}"
-    log, laps, trk, _ = load_session(path, gate=gate, channels=channels, track=track)
+    log, laps, _, _ = load_session(path, gate=gate, channels=channels, track=track)
     if lap is None:
         chosen = laps_mod.fastest_lap(laps)
     else:
