@@ -404,6 +404,7 @@ def fit_envelope(
     min_speed_m_s=10.0,
     loss_scale_m_s2=0.1,
     max_passes=5,
+    throttle=None,
 ) -> EnvelopeFit:
     """Fit the g-g-V envelope of INTERFACE §3 to the samples a driver demonstrated.
 
@@ -441,6 +442,10 @@ def fit_envelope(
         less than quadratically. [m/s²]
     max_passes : int, default 5
         Normalise-bin-fit passes at most; stops when parameters move < 0.1 %. [-]
+    throttle : array-like, optional
+        Pedal position per sample (0-1). Where given, power and drag are calibrated on
+        the full-throttle, power-limited samples by a central (least-squares) fit, see
+        Notes. [-]
 
     Returns
     -------
@@ -457,6 +462,15 @@ def fit_envelope(
     so this is an approximation). Gradient and banking are not modelled. Weak priors
     (centred on typical values, worth 0.01 m/s² per prior standard deviation) keep
     parameters the data cannot determine finite; a warning then says so.
+
+    At full throttle on a straight the car *is* on its power limit, so those samples are
+    not a cloud inside the envelope but noisy points on it; a high quantile of them sits
+    above the limit by the noise (about two standard deviations), which would make the
+    ideal faster on every straight. With a throttle channel, power and drag are therefore
+    refitted by ordinary least squares on :math:`m a_x + C_{rr} m g = P/v -
+    \tfrac12\rho v^2 C_D A` over the full-throttle (≥ 98 %), nearly straight (|a_y| < 2
+    m/s²), power-limited samples, and the friction values refitted with those held
+    (common practice, no published source).
     """
     if base.mass_kg is None or not (base.mass_kg > 0):
         raise LimitlapError(f"vehicle '{base.name}' needs a positive mass to fit an envelope")
@@ -526,6 +540,27 @@ def fit_envelope(
         if moved < 1e-3 and passes > 1:
             break
 
+    calibrated = _full_throttle_power_drag(sel, used, throttle, veh, names)
+    if calibrated is not None:
+        veh = calibrated
+        keep = [i for i, k in enumerate(names) if k not in ("power_w", "drag_area_m2")]
+        names_f = [names[i] for i in keep]
+        idx, bp_band = _boundary_points(v, ax, ay, veh, band, n_angle_bins, quantile, min_bin_samples)
+        bv, bax, bay = v[idx], ax[idx], ay[idx]
+        x0f = np.array([getattr(veh, k) / _SCALE.get(k, 1.0) for k in names_f])
+        pri_f = [(keep.index(i), c, sd) for i, c, sd in pri if i in keep]
+
+        def fun_f(x, bv=bv, bax=bax, bay=bay, veh=veh):
+            res = _residuals(bv, bax, bay, _vehicle_from(x, names_f, veh))
+            extra = [w_prior * (x[i] - c) / sd for i, c, sd in pri_f]
+            return np.concatenate((res, extra))
+
+        sol_f = optimize.least_squares(
+            fun_f, np.clip(x0f, lo[keep] + 1e-9, hi[keep] - 1e-9), bounds=(lo[keep], hi[keep]),
+            loss="soft_l1", f_scale=loss_scale_m_s2, x_scale="jac",
+        )
+        veh = _vehicle_from(sol_f.x, names_f, veh)
+        bp = (idx, bp_band, bv, bax, bay, sol)
     idx, bp_band, bv, bax, bay, sol = bp
     res = _residuals(bv, bax, bay, veh)
     dof = max(res.size - len(names), 1)
@@ -577,6 +612,35 @@ def fit_envelope(
     return EnvelopeFit(
         veh.require_complete(), quality, uncertainty, tuple(bands), used, fitted, warnings
     )
+
+
+def _full_throttle_power_drag(sel, used, throttle, veh, names):
+    """Power and drag from full-throttle straight-line samples (see fit_envelope Notes).
+
+    Returns the vehicle with both replaced, or None when there is no throttle channel,
+    too few such samples (< 200) or too narrow a speed range (< 10 m/s) to separate them.
+    """
+    if throttle is None or "power_w" not in names or "drag_area_m2" not in names:
+        return None
+    thr = np.asarray(throttle, dtype=np.float64)
+    if thr.shape != used.shape:
+        return None
+    v = sel.speed_m_s
+    ax = sel.accel_lon_m_s2
+    ay = sel.accel_lat_m_s2
+    m = veh.mass_kg
+    with np.errstate(invalid="ignore", divide="ignore"):
+        power_limited = veh.power_w / np.maximum(v, 1e-3) < 0.9 * veh.mu_trac * normal_load_n(v, veh)
+        pick = used & (thr >= 0.98) & (np.abs(ay) < 2.0) & power_limited & np.isfinite(ax)
+    if pick.sum() < 200 or np.ptp(v[pick]) < 10.0:
+        return None
+    vp = v[pick]
+    y = m * ax[pick] + veh.rolling_coeff * m * G0_M_S2
+    design = np.column_stack([1.0 / vp, -0.5 * veh.air_density_kg_m3 * vp * vp])
+    (power_w, drag_area_m2), *_ = np.linalg.lstsq(design, y, rcond=None)
+    if not (power_w > 0 and drag_area_m2 >= 0):
+        return None
+    return replace(veh, power_w=float(power_w), drag_area_m2=float(drag_area_m2))
 
 
 def _plausibility(veh, v, names, uncertainty):

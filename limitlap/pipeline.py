@@ -147,7 +147,7 @@ def _imu_samples(log, laps, rows_of):
     mask &= np.isfinite(v) & np.isfinite(ax) & np.isfinite(ay)
     dt = np.diff(log.time_s)
     rate = float(1.0 / np.median(dt)) if dt.size else None
-    return v, ax, ay, mask, rate
+    return v, ax, ay, mask, rate, log.channels.get("throttle")
 
 
 def _trace_samples(drivens):
@@ -156,7 +156,8 @@ def _trace_samples(drivens):
     ax = np.concatenate([d.accel_lon_m_s2 for d in drivens])
     ay = np.concatenate([d.accel_lat_m_s2 for d in drivens])
     mask = np.isfinite(v) & np.isfinite(ax) & np.isfinite(ay)
-    return v, ax, ay, mask, None
+    throttle = np.concatenate([d.throttle for d in drivens])
+    return v, ax, ay, mask, None, throttle if np.isfinite(throttle).any() else None
 
 
 def analyse(
@@ -225,12 +226,14 @@ def analyse(
     samples = _imu_samples(log, laps, complete)
     if samples is None:
         samples = _trace_samples(list(drivens.values()))
-    v_s, ax_s, ay_s, mask_s, rate = samples
+    v_s, ax_s, ay_s, mask_s, rate, thr_s = samples
     fit = None
     if base.is_complete:
         car = base
     else:
-        fit = envelope.fit_envelope(v_s, ax_s, ay_s, base, mask=mask_s, sample_rate_hz=rate)
+        fit = envelope.fit_envelope(
+            v_s, ax_s, ay_s, base, mask=mask_s, sample_rate_hz=rate, throttle=thr_s
+        )
         car = fit.vehicle
         warnings += [w for w in fit.warnings if w not in warnings]
         if vehicle is None:
@@ -246,7 +249,7 @@ def analyse(
     lap_samples = _imu_samples(log, laps, [chosen])
     if lap_samples is None:
         lap_samples = _trace_samples([the_lap])
-    v_l, ax_l, ay_l, mask_l, rate_l = lap_samples
+    v_l, ax_l, ay_l, mask_l, rate_l, _ = lap_samples
     grip_est = envelope.grip_estimate(v_l, ax_l, ay_l, car, mask=mask_l, sample_rate_hz=rate_l)
     names = list(trk.corner_names) if trk is not None and trk.corner_names else None
     apexes = list(trk.corner_apexes_m) if names is not None else None
