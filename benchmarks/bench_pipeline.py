@@ -1,0 +1,225 @@
+"""Session-scale speed: a one-hour 100 Hz log through the whole analyse path.
+
+Generates (seeded, with :func:`limitlap.synth.generate_session`) a one-hour session at
+100 Hz on the demo circuit (about 40 laps, about 350,000 rows) into a temporary folder and
+times, each in a fresh subprocess, as the median of several repeats after a warm-up on
+the small bundled demo log (numba cache loaded, lazy imports done):
+
+- ``parse``: polars ``read_csv`` of the same file alone -- the yardstick;
+- ``read_log``: limitlap's reader (parse, units, ENU), for information;
+- ``analyse``: ``pipeline.analyse`` + ``report.write_outputs(figures=False)``;
+- ``analyse+report``: the same with the figures (``figures=True``);
+- ``targets``: corners and target tables for dry, damp and wet on the analysed line;
+- ``sweep``: 1,000 grip scales on that line (``solve.lap_times_for_scales``).
+
+Memory, per measurement: the peak resident set (``resource.getrusage`` ``ru_maxrss``)
+above the level the same process had after imports and the warm-up, for one run; and
+the ``tracemalloc`` peak of a separate run (numpy and Python allocations; polars' own
+buffers are not traced). Both as a ratio to the file's size.
+
+Then the cold start of the command line (fresh processes, numba cache warm) and an
+``-X importtime`` check that matplotlib is imported only by commands that draw figures.
+
+Run: ``python benchmarks/bench_pipeline.py [--repeats N]``. Targets (issue 6): analyse
+without figures <= 3x the parse time, with the report <= 6x, sweep < 1 s, peak memory
+< 10x the file size, cold start < 1.5 s.
+"""
+
+from __future__ import annotations
+
+import argparse
+import json
+import os
+import statistics
+import subprocess
+import sys
+import tempfile
+import time
+from pathlib import Path
+
+ROOT = Path(__file__).resolve().parent.parent
+sys.path.insert(0, str(ROOT))
+
+MEASURES = ("parse", "read_log", "analyse", "analyse+report", "targets", "sweep")
+CONDITIONS = ("dry", "damp", "wet")
+
+
+def _maxrss_bytes() -> int:
+    import resource
+
+    return resource.getrusage(resource.RUSAGE_SELF).ru_maxrss * 1024  # Linux: kB
+
+
+def _child(name: str, path: str, repeats: int) -> None:
+    """One measurement in this (fresh) process; prints a JSON line."""
+    import tracemalloc
+
+    import numpy as np
+    import polars as pl
+
+    from limitlap import compare, ingest, pipeline, report, solve
+    from limitlap import targets as targets_mod
+    from limitlap.resources import bundled_path
+
+    out_dir = tempfile.mkdtemp(prefix="bench-out-")
+    figures = name == "analyse+report"
+    demo = bundled_path("demo_tracks", "tarrowby_dry.csv.gz")
+    warm = pipeline.analyse(demo)  # numba cache, lazy imports
+    report.write_outputs(warm, out_dir, figures=figures)
+    scales = np.linspace(0.2, 2.0, 1000)
+
+    setup = None
+    if name in ("targets", "sweep"):
+        a = pipeline.analyse(path)
+        setup = (a.driven.line, a.vehicle)
+        targets_mod.target_tables(setup[0], setup[1], list(CONDITIONS))
+        solve.lap_times_for_scales(setup[0], setup[1], scales[:3])
+
+    def run():
+        if name == "parse":
+            pl.read_csv(path)
+        elif name == "read_log":
+            ingest.read_log(path)
+        elif name in ("analyse", "analyse+report"):
+            a = pipeline.analyse(path)
+            report.write_outputs(a, out_dir, figures=figures)
+        elif name == "targets":
+            corners = compare.find_corners(setup[0])
+            targets_mod.target_tables(setup[0], setup[1], list(CONDITIONS), corners)
+        elif name == "sweep":
+            solve.lap_times_for_scales(setup[0], setup[1], scales)
+
+    base_rss = _maxrss_bytes()
+    times = []
+    for _ in range(repeats):
+        t0 = time.perf_counter()
+        run()
+        times.append(time.perf_counter() - t0)
+    rss = max(0, _maxrss_bytes() - base_rss)
+    tracemalloc.start()
+    run()
+    traced = tracemalloc.get_traced_memory()[1]
+    tracemalloc.stop()
+    print(json.dumps({"name": name, "times": times, "rss": rss, "traced": traced}))
+
+
+def _measure(name: str, path: Path, repeats: int) -> dict:
+    cmd = [sys.executable, __file__, "--child", name, str(path), "--repeats", str(repeats)]
+    done = subprocess.run(cmd, check=True, capture_output=True, text=True, cwd=ROOT)
+    return json.loads(done.stdout.strip().splitlines()[-1])
+
+
+def _cold(cmd: list[str], n: int = 5) -> float:
+    subprocess.run(cmd, check=True, capture_output=True, cwd=ROOT)  # prime the numba cache
+    times = []
+    for _ in range(n):
+        t0 = time.perf_counter()
+        subprocess.run(cmd, check=True, capture_output=True, cwd=ROOT)
+        times.append(time.perf_counter() - t0)
+    return statistics.median(times)
+
+
+def _imports(cmd: list[str]) -> set[str]:
+    """Top-level packages a command imports (from ``-X importtime``)."""
+    full = [sys.executable, "-X", "importtime", *cmd[1:]]
+    done = subprocess.run(full, capture_output=True, text=True, cwd=ROOT)
+    if done.returncode != 0:
+        raise RuntimeError(f"{' '.join(cmd)} failed: {done.stderr[-500:]}")
+    names = set()
+    for row in done.stderr.splitlines():
+        if row.startswith("import time:") and "|" in row:
+            names.add(row.rsplit("|", 1)[1].strip().split(".")[0])
+    return names
+
+
+def main() -> None:
+    parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    parser.add_argument("--child", nargs=2, metavar=("NAME", "FILE"), help=argparse.SUPPRESS)
+    parser.add_argument("--repeats", type=int, default=5, help="repeats per measurement")
+    parser.add_argument("--keep", type=Path, help="write the generated log here and keep it")
+    args = parser.parse_args()
+    if args.child:
+        _child(args.child[0], args.child[1], args.repeats)
+        return
+
+    from limitlap import synth
+    from limitlap.resources import bundled_path
+
+    with tempfile.TemporaryDirectory(prefix="bench-pipeline-") as tmp:
+        t0 = time.perf_counter()
+        session = synth.generate_session(duration_s=3600.0, seed=6)
+        path = args.keep or Path(tmp) / "hour.csv"
+        path.write_text(synth.session_csv_text(session), encoding="utf-8")
+        size = os.path.getsize(path)
+        print(
+            f"one-hour session: {session.time_s.shape[0]:,} rows, "
+            f"{len(session.truth.lap_times_s)} complete laps, {size / 1e6:.1f} MB "
+            f"(generated in {time.perf_counter() - t0:.1f} s)\n"
+        )
+        results = {}
+        for name in MEASURES:
+            # the report with figures is the slowest: fewer repeats
+            n = max(3, args.repeats // 2) if name == "analyse+report" else args.repeats
+            results[name] = _measure(name, path, n)
+
+        yard = statistics.median(results["parse"]["times"])
+        print(
+            f"{'measurement':<16}{'median [s]':>11}{'runs':>6}{'x parse':>9}"
+            f"{'peak RSS [MB]':>15}{'x file':>8}{'traced [MB]':>13}{'x file':>8}"
+        )
+        for name in MEASURES:
+            r = results[name]
+            t = statistics.median(r["times"])
+            print(
+                f"{name:<16}{t:>11.3f}{len(r['times']):>6}{t / yard:>9.2f}"
+                f"{r['rss'] / 1e6:>15.1f}{r['rss'] / size:>8.2f}"
+                f"{r['traced'] / 1e6:>13.1f}{r['traced'] / size:>8.2f}"
+            )
+        print(
+            "peak RSS: growth of ru_maxrss over the process after imports and warm-up; "
+            "traced: tracemalloc peak (numpy/Python, not polars' buffers)"
+        )
+
+        line = str(bundled_path("demo_tracks", "example_loop_line.csv"))
+        car = str(bundled_path("vehicles", "gt_coupe.toml"))
+        solve_cmd = [sys.executable, "-m", "limitlap", "solve", line, "--vehicle", car, "--json"]
+        help_cmd = [sys.executable, "-m", "limitlap", "--help"]
+        print("\ncold start (median of 5 fresh processes, numba cache warm):")
+        print(f"  limitlap --help         {_cold(help_cmd):.2f} s")
+        print(f"  limitlap solve --json   {_cold(solve_cmd):.2f} s")
+
+        demo = str(bundled_path("demo_tracks", "tarrowby_dry.csv.gz"))
+        out = str(Path(tmp) / "imports-out")
+        checks = [
+            ("--help", help_cmd, False),
+            ("solve --json", solve_cmd, False),
+            (
+                "analyse --no-figures",
+                [
+                    sys.executable,
+                    "-m",
+                    "limitlap",
+                    "analyse",
+                    demo,
+                    "--out",
+                    out,
+                    "--no-figures",
+                    "--quiet",
+                ],
+                False,
+            ),
+            (
+                "analyse (figures)",
+                [sys.executable, "-m", "limitlap", "analyse", demo, "--out", out, "--quiet"],
+                True,
+            ),
+        ]
+        print("\nmatplotlib imported (-X importtime):")
+        for label, cmd, expected in checks:
+            got = "matplotlib" in _imports(cmd)
+            verdict = "ok" if got == expected else "UNEXPECTED"
+            print(f"  {label:<22}{'yes' if got else 'no':>4}  ({verdict})")
+
+
+if __name__ == "__main__":
+    main()
