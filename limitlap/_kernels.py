@@ -26,21 +26,25 @@ I_MU_TRAC = 8  # [-]
 I_EXPONENT = 9  # [-]
 I_G = 10  # [m/s²]
 I_V_CAP = 11  # [m/s]
-N_VEH = 12
+I_INV_MASS = 12  # 1/m [1/kg], so the passes multiply instead of divide
+I_TRAC_RATIO = 13  # mu_trac / mu_lat [-]
+I_BRK_RATIO = 14  # mu_brk / mu_lat [-]
+N_VEH = 15
 
 
 @njit(cache=True, inline="always")
-def _tyre_share_force(mu_x, normal, fy, veh):
+def _tyre_share_force(mu_x, ratio, normal, fy, veh):
     """Longitudinal tyre force left by the combined law at lateral tyre force fy (>= 0).
 
     (Fx / mu_x N)^n + (Fy / mu_y N)^n = 1; for n = 2 written without a division,
-    Fx = (mu_x / mu_y) sqrt((mu_y N)² - Fy²), which keeps the pass's dependency chain short.
+    Fx = (mu_x / mu_y) sqrt((mu_y N)² - Fy²) with ``ratio`` = mu_x / mu_y, which keeps
+    the pass's dependency chain short.
     """
     fy_max = veh[I_MU_LAT] * normal
     if fy >= fy_max:
         return 0.0
     if veh[I_EXPONENT] == 2.0:
-        return (mu_x / veh[I_MU_LAT]) * np.sqrt(fy_max * fy_max - fy * fy)
+        return ratio * np.sqrt(fy_max * fy_max - fy * fy)
     n = veh[I_EXPONENT]
     return mu_x * normal * (1.0 - (fy / fy_max) ** n) ** (1.0 / n)
 
@@ -54,12 +58,12 @@ def drive_accel(kappa, b, sin_grad, veh):
     normal = m * g + q * veh[I_LIFT_AREA]
     if normal < 0.0:
         normal = 0.0
-    fx_tyre = _tyre_share_force(veh[I_MU_TRAC], normal, m * abs(kappa) * b, veh)
+    fx_tyre = _tyre_share_force(veh[I_MU_TRAC], veh[I_TRAC_RATIO], normal, m * abs(kappa) * b, veh)
     fx_power = veh[I_POWER] / np.sqrt(b) if b > 0.0 else np.inf
     if fx_power < fx_tyre:
         fx_tyre = fx_power
     resist = q * veh[I_DRAG_AREA] + veh[I_CRR] * m * g
-    return (fx_tyre - resist) * (1.0 / m) - g * sin_grad
+    return (fx_tyre - resist) * veh[I_INV_MASS] - g * sin_grad
 
 
 @njit(cache=True, inline="always")
@@ -71,9 +75,9 @@ def brake_decel(kappa, b, sin_grad, veh):
     normal = m * g + q * veh[I_LIFT_AREA]
     if normal < 0.0:
         normal = 0.0
-    fx_tyre = _tyre_share_force(veh[I_MU_BRK], normal, m * abs(kappa) * b, veh)
+    fx_tyre = _tyre_share_force(veh[I_MU_BRK], veh[I_BRK_RATIO], normal, m * abs(kappa) * b, veh)
     resist = q * veh[I_DRAG_AREA] + veh[I_CRR] * m * g
-    return (fx_tyre + resist) * (1.0 / m) + g * sin_grad
+    return (fx_tyre + resist) * veh[I_INV_MASS] + g * sin_grad
 
 
 @njit(cache=True)

@@ -89,6 +89,9 @@ def vehicle_array(vehicle: Vehicle, grip_scale: float = 1.0) -> np.ndarray:
     veh[_kernels.I_EXPONENT] = vehicle.exponent
     veh[_kernels.I_G] = G0_M_S2
     veh[_kernels.I_V_CAP] = V_CAP_M_S
+    veh[_kernels.I_INV_MASS] = 1.0 / vehicle.mass_kg
+    veh[_kernels.I_TRAC_RATIO] = vehicle.mu_trac / vehicle.mu_lat
+    veh[_kernels.I_BRK_RATIO] = vehicle.mu_brk / vehicle.mu_lat
     return veh
 
 
