@@ -17,7 +17,7 @@ try:  # typer >= 0.29 carries its own copy of click
 except ImportError:  # older typer uses click itself
     from click.exceptions import ClickException
 
-from limitlap.errors import LimitlapError
+from limitlap.errors import InputError, LimitlapError
 
 Abort = typer.Abort
 
@@ -40,7 +40,10 @@ def _grip(value: str | None, default: float = 1.0) -> float:
 
     if value is None:
         return default
-    return check_grip_scale(value)
+    try:
+        return check_grip_scale(value)
+    except LimitlapError as err:  # name the option, as a file's message names the file
+        raise InputError("--grip", str(err)) from None
 
 
 def _kmh(v_m_s: float) -> float:
@@ -228,7 +231,10 @@ def targets(
 
     car = pipeline.require_vehicle_with_grip(vehicle)
     for g in grip:  # check every scale before any work
-        targets_mod.resolve_condition(g)
+        try:
+            targets_mod.resolve_condition(g)
+        except LimitlapError as err:
+            raise InputError("--grip", str(err)) from None
     line, where = pipeline.line_from_source(source, lap=lap, gate=gate, channels=channels, track=track)
     trk = ingest.read_track(track) if track is not None else None
     names = list(trk.corner_names) if trk is not None and trk.corner_names else None

@@ -174,10 +174,14 @@ def self_intersects(x_m, y_m) -> bool:
     """True when the closed polygon through the points crosses itself.
 
     Segment-pair test by orientation signs (vectorised in blocks); adjacent segments,
-    which share an end, do not count.
+    which share an end, do not count. A loop through one of its own points again (a
+    figure eight crossing at a listed point) counts; repeated points do not.
     """
     x = np.asarray(x_m, dtype=np.float64)
     y = np.asarray(y_m, dtype=np.float64)
+    if x.shape[0] >= 4:  # drop repeated points as line_from_xy does
+        keep = np.hypot(np.diff(x, append=x[0]), np.diff(y, append=y[0])) > 1e-9
+        x, y = x[keep], y[keep]
     n = x.shape[0]
     if n < 4:
         return False
@@ -196,6 +200,12 @@ def self_intersects(x_m, y_m) -> bool:
         o3 = orient(ax[j], ay[j], bx[j], by[j], ax[i], ay[i])
         o4 = orient(ax[j], ay[j], bx[j], by[j], bx[i], by[i])
         hit = (o1 * o2 < 0) & (o3 * o4 < 0)
+        # point j on segment i (collinear and inside its box): the loop touches itself
+        hit |= (
+            (o1 == 0)
+            & (np.minimum(ax[i], bx[i]) <= ax[j]) & (ax[j] <= np.maximum(ax[i], bx[i]))
+            & (np.minimum(ay[i], by[i]) <= ay[j]) & (ay[j] <= np.maximum(ay[i], by[i]))
+        )
         near = (np.abs(i - j) <= 1) | (np.abs(i - j) == n - 1)
         if np.any(hit & ~near):
             return True
