@@ -82,8 +82,9 @@ FULL_THROTTLE = 0.98
 FULL_DRIVE_SHARE = 0.9
 #: ... counted only where the envelope leaves at least this forward acceleration. [m/s²]
 FULL_DRIVE_MIN_M_S2 = 0.5
-#: Quantile of the per-sample combined usage taken as a corner's grip used. [-]
-GRIP_USED_QUANTILE = 0.95
+#: Stations where the ideal's combined usage is at least this count as grip-limited;
+#: a corner's grip used is measured there only. [-]
+GRIP_LIMITED_USAGE = 0.95
 
 
 @dataclass(frozen=True)
@@ -453,6 +454,7 @@ class _Trace:
         brake=None,
         throttle=None,
         usage=None,
+        dwell=None,
     ):
         self.length = float(length_m)
         self.closed = bool(closed)
@@ -480,6 +482,7 @@ class _Trace:
         self.brake = tile(brake)
         self.throttle = tile(throttle)
         self.usage = tile(usage)
+        self.dwell = tile(dwell)
 
     def time_at_mod(self, d):
         """Elapsed time at a distance in [0, length]. [s]"""
@@ -593,6 +596,39 @@ def _brake_zone(tr: _Trace, f, lo, i_min, gap_m=BRAKE_GAP_M, coast_gap_m=COAST_G
     return start, end
 
 
+def _profile_brake_start(tr: _Trace, f, lo, i_min):
+    """Brake point of a clean speed profile (the ideal): where its speed starts falling.
+
+    Walks back from the minimum at ``i_min`` while the speed does not fall going
+    forward (ripples under ``COAST_RISE_M_S``, from curvature noise of a measured line,
+    do not stop it), to the last local maximum of speed after ``lo``; the brake point is the
+    first crossing of the braking signal ``f`` (deceleration over its threshold) at or
+    after that maximum, interpolated as in :func:`_brake_zone`. Deceleration that dips
+    under the threshold while the speed keeps falling (trail braking) therefore does not
+    split the zone. NaN when the fall has no braking in it (a lift, drag in a flat-out
+    kink) or takes off less than ``MIN_BRAKE_DROP_M_S``. [m] (unwrapped)
+    """
+    i_lo = int(np.searchsorted(tr.u, lo, "left"))
+    if i_min is None or i_min <= i_lo:
+        return math.nan
+    v = tr.v
+    j = top = i_min
+    while j > i_lo and v[j - 1] >= v[top] - COAST_RISE_M_S:
+        j -= 1
+        if v[j] > v[top]:
+            top = j
+    # The highest speed walked over, the last station of a flat top.
+    seg = v[top : i_min + 1]
+    j = top + int(np.flatnonzero(seg >= v[top] - 1e-9 * max(v[top], 1.0))[-1])
+    if v[j] - v[i_min] < MIN_BRAKE_DROP_M_S:
+        return math.nan
+    on = np.flatnonzero(np.nan_to_num(f[j : i_min + 1], nan=-1.0) > 0.0)
+    if on.size == 0:
+        return math.nan
+    first = j + int(on[0])
+    return _crossing(tr.u, f, first) if first > i_lo else float(tr.u[first])
+
+
 def _full_drive(tr: _Trace, i_min, hi, use_throttle):
     """First point after the minimum where full drive is reached (unwrapped) or NaN."""
     if i_min is None:
@@ -635,7 +671,16 @@ def _zone_u(corner: Corner, start_u: float, length: float, closed: bool):
 
 
 def _corner_markers(
-    tr, lo_brake, start_u, end_u, hi_drive, brake_threshold_pa, use_throttle, zone, apex_u=None
+    tr,
+    lo_brake,
+    start_u,
+    end_u,
+    hi_drive,
+    brake_threshold_pa,
+    use_throttle,
+    zone,
+    apex_u=None,
+    profile_brake=False,
 ):
     # Minimum speed within the curvature zone (turn-in to exit, both included): a corner
     # taken flat or still accelerating has its "minimum" there, not at the segment start.
@@ -648,6 +693,12 @@ def _corner_markers(
         v_min, at = float(tr.v[i_min]), float(tr.u[i_min])
     f = _braking_signal(tr, brake_threshold_pa)
     b0, b1 = _brake_zone(tr, f, lo_brake, i_min)
+    if profile_brake:  # the ideal: its brake point from the speed profile itself
+        b0 = _profile_brake_start(tr, f, lo_brake, i_min)
+        if math.isfinite(b0) and not math.isfinite(b1):
+            b1 = float(tr.u[i_min])
+        elif not math.isfinite(b0):
+            b1 = math.nan
     fd = _full_drive(tr, i_min, hi_drive, use_throttle)
     i0, i1 = tr.window(start_u, end_u)
     ay = np.abs(tr.ay[i0:i1])
@@ -721,7 +772,13 @@ class CornerComparison:
     peak_accel_lat_actual_m_s2, peak_accel_lat_ideal_m_s2 : float
         Largest |lateral acceleration| in the segment. [m/s²]
     grip_used : float
-        High quantile of the combined usage over the segment, clipped to 0-1. [-]
+        Share of the available combined grip the real lap used where the ideal is at
+        the limit: over the segment's stations where the ideal's combined usage
+        (:func:`limitlap.limits.combined_usage`) is at least 0.95, the mean of real
+        usage over ideal usage, weighted by the real lap's time there; clipped to 0-1.
+        About 1 in a corner driven at the limit, lower where grip was left unused
+        (early braking, a lift, late throttle). NaN where the ideal is nowhere
+        grip-limited in the segment (a flat-out kink). [-]
     grip_used_raw : float
         The same before clipping (above 1 where the lap went outside the envelope). [-]
     grip_estimate : float or None
@@ -1030,8 +1087,11 @@ def compare_lap(
     below -2.5 m/s², in the braking zone before the minimum speed, interpolated between
     stations. Full drive is throttle ≥ 98 %, or without throttle (and always for the
     ideal) a_x reaching 90 % of the forward acceleration the envelope leaves after the
-    lateral demand. Grip used is the 95th percentile of the combined usage
-    (:func:`limitlap.limits.combined_usage`). The time-left phases are cut where the
+    lateral demand. The ideal's brake start is taken from its speed profile: the first
+    crossing of -2.5 m/s² after the last local maximum of speed before the minimum, so a
+    trail-braking dip of the deceleration does not split the zone. Grip used is the
+    real lap's time-weighted mean of combined usage (:func:`limitlap.limits.combined_usage`)
+    over the ideal's, where the ideal is grip-limited (usage ≥ 0.95). The time-left phases are cut where the
     ideal stops braking and where it reaches full drive. Thresholds and quantiles are
     common practice, not published values.
     """
@@ -1068,8 +1128,11 @@ def compare_lap(
         brake=brake if brake_thr is not None else None,
         throttle=throttle,
         usage=usage_act,
+        dwell=np.asarray(line.ds_m, dtype=np.float64) / np.maximum(v_act, 0.1),
     )
     v_id = ideal.speed_m_s
+    ax_id = station_accel(ideal, line.closed)
+    usage_id = limits.combined_usage(v_id, ax_id, ideal.accel_lat_m_s2, env, sin_grad)
     best = _Trace(
         line.distance_m,
         length,
@@ -1077,9 +1140,10 @@ def compare_lap(
         ideal.time_s,
         ideal.lap_time_s,
         v_id,
-        station_accel(ideal, line.closed),
+        ax_id,
         ideal.accel_lat_m_s2,
         _drive_accel_available(v_id, ideal.accel_lat_m_s2, env, sin_grad),
+        usage=usage_id,
     )
 
     if grip_estimate is None or corner_grip_estimates is None:
@@ -1101,7 +1165,9 @@ def compare_lap(
         ma = _corner_markers(
             actual, lo, start_u, end_u, hi, brake_thr, throttle is not None, zone, apex_u
         )
-        mi = _corner_markers(best, lo, start_u, end_u, hi, None, False, zone, apex_u)
+        mi = _corner_markers(
+            best, lo, start_u, end_u, hi, None, False, zone, apex_u, profile_brake=True
+        )
         # Phases cut where the ideal stops braking and where it reaches full drive.
         cut_a = mi.brake_end
         if not math.isfinite(cut_a):
@@ -1115,9 +1181,7 @@ def compare_lap(
         def left(u0, u1):
             return (actual.time_at(u1) - actual.time_at(u0)) - (best.time_at(u1) - best.time_at(u0))
 
-        i0, i1 = actual.window(start_u, end_u)
-        us = actual.usage[i0:i1]
-        raw = float(np.nanquantile(us, GRIP_USED_QUANTILE)) if np.isfinite(us).any() else math.nan
+        raw = _grip_used(actual, best, start_u, end_u)
         later = mi.brake_start - ma.brake_start
         sooner = ma.full_drive - mi.full_drive
         rows.append(
@@ -1171,6 +1235,23 @@ def compare_lap(
         grip_estimate=None if grip_estimate is None else float(grip_estimate),
         corners=tuple(CornerComparison(**r) for r in rows),
     )
+
+
+def _grip_used(actual: _Trace, ideal: _Trace, start_u: float, end_u: float) -> float:
+    r"""Share of the available grip the real lap used where the ideal is at the limit.
+
+    Over the segment's stations where the ideal's combined usage is at least
+    ``GRIP_LIMITED_USAGE`` (grip-limited, not power-limited or cruising), the mean of
+    real usage over ideal usage weighted by the real lap's time at each station
+    (:math:`\Delta s / v`). NaN where the ideal is nowhere grip-limited (a flat-out
+    kink). Not clipped (noise or an envelope set too low can take it above 1). [-]
+    """
+    i0, i1 = actual.window(start_u, end_u)
+    ua, ui, w = actual.usage[i0:i1], ideal.usage[i0:i1], actual.dwell[i0:i1]
+    sel = np.isfinite(ua) & np.isfinite(ui) & np.isfinite(w) & (ui >= GRIP_LIMITED_USAGE)
+    if not sel.any():
+        return math.nan
+    return float(np.sum(w[sel] * ua[sel] / ui[sel]) / np.sum(w[sel]))
 
 
 def _unwrap_after(d, start_u, length, closed):

@@ -21,6 +21,7 @@ from limitlap.compare import (
     Corner,
     _corner_markers,
     _drive_accel_available,
+    _min_speed,
     _mod,
     _Trace,
     _unwrap_after,
@@ -59,16 +60,22 @@ class CornerTarget:
     name : str
         Corner name.
     apex_m : float
-        Main apex, from the gate. [m]
+        The corner's minimum-speed apex, from the gate: of the corner's apexes, the one
+        nearest the minimum speed that is not before the brake point (the main apex
+        unless a compound corner's slowest part is another one). [m]
     entry_speed_m_s : float
-        Speed where braking starts (at the segment start for a corner taken without
-        braking). [m/s]
+        Speed at the entry point: the brake point, or turn-in for a corner taken
+        without braking. [m/s]
     brake_start_m : float
-        Where braking starts, from the gate; NaN without braking. [m]
+        Where braking into the minimum starts, from the gate; NaN without braking. For
+        a compound corner braked twice, the braking into the minimum-speed apex. [m]
     brake_before_apex_m : float
-        Distance from the brake point to the apex nearest the minimum speed. [m]
+        Distance from the brake point to ``apex_m`` (≥ 0); NaN without braking. [m]
     min_speed_m_s : float
-        Lowest speed from turn-in to exit (the curvature zone). [m/s]
+        Lowest speed from the entry point to the corner's exit (end of the curvature
+        zone), so never above the entry speed. A corner taken still accelerating
+        (a flat-out kink after a slower corner) has no minimum of its own: its minimum
+        is then the speed at turn-in, equal to its entry speed. [m/s]
     min_speed_at_m : float
         Where it is, from the gate. [m]
     exit_speed_m_s : float
@@ -183,9 +190,11 @@ def target_table(
     Notes
     -----
     The profile is :func:`limitlap.solve.solve_profile` (quasi-steady-state point mass,
-    Lenzo & Rossi 2020). Brake start is where the ideal's deceleration first exceeds
-    2.5 m/s² in the braking zone before the minimum speed, interpolated between
-    stations, as in :func:`limitlap.compare.compare_lap`.
+    Lenzo & Rossi 2020). Brake start is where the ideal's speed starts falling into
+    the corner's minimum (its last local maximum before it), at the first crossing of
+    2.5 m/s² deceleration after it, interpolated between stations, as for the ideal in
+    :func:`limitlap.compare.compare_lap`. Apex, brake point and minimum are those of
+    the corner's minimum speed (see :class:`CornerTarget`).
     """
     k = check_grip_scale(grip_scale)
     if corners is None:
@@ -216,26 +225,31 @@ def target_table(
         if line.closed and c.end_m <= c.start_m:
             seg_time += tr.lap_time
         zone = _zone_u(c, start_u, length, line.closed)
-        mk = _corner_markers(tr, lo, start_u, end_u, hi, None, False, zone, apex_u)
-        if math.isfinite(mk.brake_start):
-            entry = float(np.interp(mk.brake_start, tr.u, tr.v))
-            # To the apex nearest the minimum speed (the second one of a double apex
-            # when the braking is for that).
-            apexes_u = [_unwrap_after(a, start_u, length, line.closed) for a in c.apexes_m]
-            near = min(apexes_u, key=lambda a: abs(a - mk.min_at)) if apexes_u else apex_u
-            before = near - mk.brake_start
-        else:
-            entry = float(np.interp(c.start_m, s_ext, v_ext))
-            before = math.nan
+        mk = _corner_markers(
+            tr, lo, start_u, end_u, hi, None, False, zone, apex_u, profile_brake=True
+        )
+        braked = math.isfinite(mk.brake_start)
+        entry_u = mk.brake_start if braked else zone[0]
+        entry = float(np.interp(entry_u, tr.u, tr.v))
+        # The minimum from the entry point to the exit (turn-in included: a corner
+        # still accelerating has its minimum, equal to the entry speed, there).
+        v_min, min_u, _ = _min_speed(tr, entry_u, max(zone[1], entry_u) + 1e-9)
+        if not v_min <= entry:  # the entry point lies between stations
+            v_min, min_u = entry, entry_u
+        # The apex of that minimum: the nearest apex not before the brake point.
+        apexes_u = [_unwrap_after(a, start_u, length, line.closed) for a in c.apexes_m]
+        after = [a for a in apexes_u if a >= entry_u] or [min_u]
+        apex_at = min(after, key=lambda a: abs(a - min_u))
+        before = apex_at - mk.brake_start if braked else math.nan
         out.append(
             CornerTarget(
                 name=c.name,
-                apex_m=c.apex_m,
+                apex_m=_mod(apex_at, length, line.closed),
                 entry_speed_m_s=entry,
                 brake_start_m=_mod(mk.brake_start, length, line.closed),
                 brake_before_apex_m=float(before),
-                min_speed_m_s=mk.min_speed,
-                min_speed_at_m=_mod(mk.min_at, length, line.closed),
+                min_speed_m_s=float(v_min),
+                min_speed_at_m=_mod(min_u, length, line.closed),
                 exit_speed_m_s=float(np.interp(c.end_m, s_ext, v_ext)),
                 segment_time_s=float(seg_time),
             )
