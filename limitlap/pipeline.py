@@ -251,6 +251,12 @@ def analyse(
         lap_samples = _trace_samples([the_lap])
     v_l, ax_l, ay_l, mask_l, rate_l, _ = lap_samples
     grip_est = envelope.grip_estimate(v_l, ax_l, ay_l, car, mask=mask_l, sample_rate_hz=rate_l)
+    if grip_est is not None and fit is None and grip_est < 0.9 * k:
+        warnings.append(
+            f"this lap showed about {grip_est:.2f} of the envelope's grip (damp or wet track?), "
+            f"so most of the time left against the ideal at grip scale {k:g} is grip that was "
+            f"not there; analyse with --grip {grip_est:.2f} for the ideal at the grip found"
+        )
     names = list(trk.corner_names) if trk is not None and trk.corner_names else None
     apexes = list(trk.corner_apexes_m) if names is not None else None
     corners = compare.find_corners(the_lap.line, names, apexes_m=apexes)
