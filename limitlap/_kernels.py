@@ -340,3 +340,34 @@ def lap_times_for_scales(curvature_1_m, sin_grad, ds_m, veh, closed, b_entry, b_
         _, total = elapsed_time(v, ds_m, closed)
         out[k] = total
     return out
+
+
+@njit(cache=True)
+def boundary_points(key, rho, rank):
+    """Kernel of ``limitlap.envelope._boundary_points``: one sample per group of ``key``.
+
+    For each group g (0 <= key < rank.shape[0]) with ``rank[g] >= 0``: the index of the
+    sample of rank ``rank[g]`` when the group's samples are ordered by ``rho``, ties by
+    index (a stable order, as ``numpy.lexsort((rho, key))``); -1 for the other groups.
+    """
+    n_keys = rank.shape[0]
+    n = key.shape[0]
+    start = np.zeros(n_keys + 1, np.int64)
+    for i in range(n):
+        start[key[i] + 1] += 1
+    for g in range(n_keys):
+        start[g + 1] += start[g]
+    fill = start[:-1].copy()
+    members = np.empty(n, np.int64)
+    for i in range(n):  # counting sort by group, index order kept
+        g = key[i]
+        members[fill[g]] = i
+        fill[g] += 1
+    out = np.full(n_keys, -1, np.int64)
+    for g in range(n_keys):
+        if rank[g] < 0:
+            continue
+        m = members[start[g] : start[g + 1]]
+        order = np.argsort(rho[m], kind="mergesort")
+        out[g] = m[order[rank[g]]]
+    return out

@@ -41,6 +41,7 @@ import numpy as np
 from scipy import optimize
 from scipy.ndimage import gaussian_filter1d, median_filter
 
+from limitlap import _kernels
 from limitlap.errors import LimitlapError
 from limitlap.limits import (
     combined_usage,
@@ -351,6 +352,13 @@ def _boundary_points(v, ax, ay, veh, band, n_angle_bins, quantile, min_bin_sampl
         ((phi + np.pi) / (2 * np.pi) * n_angle_bins).astype(np.int64), n_angle_bins - 1
     )
     key = band * n_angle_bins + abin
+    if np.isfinite(phi).all() and np.isfinite(rho).all():
+        # same samples as the sort below, by a counting sort per bin (numba kernel)
+        count = np.bincount(key)
+        full = count >= min_bin_samples
+        rank = np.where(full, np.rint(quantile * (count - 1)).astype(np.int64), -1)
+        idx = _kernels.boundary_points(key.astype(np.int64), rho.astype(np.float64), rank)
+        return idx[full], np.flatnonzero(full) // n_angle_bins
     order = np.lexsort((rho, key))
     keys, start, count = np.unique(key[order], return_index=True, return_counts=True)
     full = count >= min_bin_samples
