@@ -1147,7 +1147,9 @@ def compare_lap(
     )
 
     if grip_estimate is None or corner_grip_estimates is None:
-        est_all, est_seg = _grip_estimates(v_act, ax_act, ay_act, vehicle, line, corners)
+        est_all, est_seg = _grip_estimates(
+            t_act, lap_act, v_act, ax_act, ay_act, vehicle, line, corners
+        )
         grip_estimate = est_all if grip_estimate is None else grip_estimate
         if corner_grip_estimates is None:
             corner_grip_estimates = est_seg
@@ -1259,16 +1261,39 @@ def _unwrap_after(d, start_u, length, closed):
     return float(start_u + np.mod(d - start_u, length)) if closed else float(d)
 
 
-def _grip_estimates(v, ax, ay, vehicle: Vehicle, line: Line, corners):
-    """Grip scale the lap used, overall and per corner (limitlap.envelope), at grip 1."""
+#: Uniform rate the real lap's stations are resampled to in time for the grip
+#: estimates, so they are filtered as a raw log is (limitlap.envelope.select_samples). [Hz]
+GRIP_RESAMPLE_HZ = 50.0
+
+
+def _grip_estimates(t, lap_time, v, ax, ay, vehicle: Vehicle, line: Line, corners):
+    """Grip scale the lap used, overall and per corner (limitlap.envelope), at grip 1.
+
+    The stations' channels carry the logger's noise unfiltered; resampled to a uniform
+    time grid they get the despiking and low-pass of a raw log, the same filtering as
+    the overall estimate of :func:`limitlap.pipeline.analyse`, so that noise does not
+    raise the 99 % quantile of a corner's few hundred samples.
+    """
     from limitlap import envelope
 
+    s = np.asarray(line.distance_m, dtype=np.float64)
+    if line.closed:
+        s = np.append(s, line.length_m)
+        t = np.append(t, lap_time)
+        v, ax, ay = (np.append(a, a[0]) for a in (v, ax, ay))
+    tg = np.arange(0.0, float(t[-1]), 1.0 / GRIP_RESAMPLE_HZ)
+    vg, axg, ayg = (np.interp(tg, t, a) for a in (v, ax, ay))
+    dg = np.interp(tg, t, s)
+    if line.closed:
+        dg = np.mod(dg, line.length_m)
     try:
-        overall = envelope.grip_estimate(v, ax, ay, vehicle)
+        overall = envelope.grip_estimate(vg, axg, ayg, vehicle, sample_rate_hz=GRIP_RESAMPLE_HZ)
     except LimitlapError:
         overall = None
-    seg = segment_index(line.distance_m, line.length_m, corners, line.closed)
-    per = envelope.grip_estimate_by_segment(v, ax, ay, vehicle, seg)
+    seg = segment_index(dg, line.length_m, corners, line.closed)
+    per = envelope.grip_estimate_by_segment(
+        vg, axg, ayg, vehicle, seg, sample_rate_hz=GRIP_RESAMPLE_HZ
+    )
     per = np.concatenate([per, np.full(max(0, len(corners) - per.shape[0]), np.nan)])
     return overall, [None if not math.isfinite(x) else float(x) for x in per[: len(corners)]]
 
