@@ -238,7 +238,8 @@ def targets(
     line, where = pipeline.line_from_source(source, lap=lap, gate=gate, channels=channels, track=track)
     trk = ingest.read_track(track) if track is not None else None
     names = list(trk.corner_names) if trk is not None and trk.corner_names else None
-    corners = compare.find_corners(line, names)
+    apexes = list(trk.corner_apexes_m) if names else None
+    corners = compare.find_corners(line, names, apexes_m=apexes)
     conditions = targets_mod.target_tables(line, car, grip, corners)
     if out is not None:
         from limitlap import report

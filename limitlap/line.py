@@ -97,7 +97,7 @@ def line_from_curvature(distance_m, curvature_1_m, gradient=None, *, closed=True
     return Line(s, k, grad, float(length_m), closed)
 
 
-def line_from_xy(x_m, y_m, z_m=None, *, spacing_m=1.0, smoothing_m=0.05):
+def line_from_xy(x_m, y_m, z_m=None, *, spacing_m=1.0, smoothing_m=0.005):
     """Closed line through x/y points, resampled to a uniform spacing.
 
     A periodic cubic smoothing spline (FITPACK ``splprep`` with ``per=1``; P. Dierckx,
@@ -114,7 +114,12 @@ def line_from_xy(x_m, y_m, z_m=None, *, spacing_m=1.0, smoothing_m=0.05):
     spacing_m : float
         Station spacing of the result (rounded so the loop holds a whole number). [m]
     smoothing_m : float
-        RMS distance the spline may pass from the points (FITPACK ``s = n σ²``). [m]
+        RMS distance the spline may pass from the points (FITPACK ``s = n σ²``). The
+        default, 5 mm, suits a line file written to the millimetre: larger values let
+        FITPACK drop knots, and the curvature between sparse knots then errs by more than
+        the noise it removes (measured on the bundled circuit: 0.05 m made the ideal lap
+        0.6 % slower than on the exact line, 0.005 m 0.06 %). Noisy surveyed points should
+        be smoothed before they become a line file. [m]
 
     Returns
     -------
