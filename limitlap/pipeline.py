@@ -231,9 +231,14 @@ def analyse(
     if base.is_complete:
         car = base
     else:
-        fit = envelope.fit_envelope(
-            v_s, ax_s, ay_s, base, mask=mask_s, sample_rate_hz=rate, throttle=thr_s
-        )
+        try:
+            fit = envelope.fit_envelope(
+                v_s, ax_s, ay_s, base, mask=mask_s, sample_rate_hz=rate, throttle=thr_s
+            )
+        except InputError:
+            raise
+        except LimitlapError as err:  # the log's data cannot support a fit: name the log
+            raise InputError(log_path, f"{err} (give a vehicle file with [grip])") from err
         car = fit.vehicle
         warnings += [w for w in fit.warnings if w not in warnings]
         if vehicle is None:
@@ -314,7 +319,10 @@ def line_from_source(source, *, lap: int | None = None, gate=None, channels=None
             return ingest.read_line(path), f"line file {path.name}"
     log, laps, _, _ = load_session(path, gate=gate, channels=channels, track=track)
     if lap is None:
-        chosen = laps_mod.fastest_lap(laps)
+        try:
+            chosen = laps_mod.fastest_lap(laps)
+        except LimitlapError as err:
+            raise InputError(path, str(err)) from err
     else:
         matches = [lp for lp in laps if lp.number == lap and lp.complete]
         if not matches:

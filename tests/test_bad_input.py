@@ -214,6 +214,29 @@ def test_log_shorter_than_one_lap(tmp_path, cli):
     assert not (tmp_path / "out").exists()
 
 
+def test_log_too_plain_to_fit_an_envelope(tmp_path, cli):
+    # Laps on one circle at one speed show one point of the g-g diagram: no envelope can
+    # be fitted from it, and the message says which log and what to give instead.
+    log = write(tmp_path, "c.csv", circle_csv(2))
+    code, _, err = cli(
+        "analyse", log, "--gate", circle_gate(), "--out", tmp_path / "out", "--quiet"
+    )
+    message = one_error_line(code, err, log)
+    assert message.startswith(f"{log}: ") and "too few to fit a grip envelope" in message
+    assert message.endswith("(give a vehicle file with [grip])")
+    assert not (tmp_path / "out").exists()
+
+
+def test_targets_from_a_log_without_a_complete_lap(tmp_path, cli, vehicle_file):
+    lines = circle_csv(2).splitlines(keepends=True)
+    log = write(tmp_path, "short.csv", "".join(lines[: 1 + 3000]))
+    code, out, err = cli(
+        "targets", log, "--vehicle", vehicle_file, "--grip", "1", "--gate", circle_gate()
+    )
+    assert one_error_line(code, err, log).startswith(f"{log}: no complete lap (lap 0: out-lap")
+    assert out == ""
+
+
 def test_gate_never_crossed(tmp_path, cli):
     log = write(tmp_path, "c.csv", circle_csv(2))
     lat, lon = (float(v) for v in circle_gate().split(","))
