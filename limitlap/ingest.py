@@ -218,7 +218,14 @@ class Log:
     def has(self, name: str) -> bool:
         """True when the channel exists and has at least one value."""
         ch = self.channels.get(name)
-        return ch is not None and bool(np.isfinite(ch).any())
+        if ch is None:
+            return False
+        # remembered per array (the line rebuild asks about ten times a lap)
+        seen = self.__dict__.setdefault("_has_seen", {})
+        hit = seen.get(name)
+        if hit is None or hit[0] is not ch:
+            hit = seen[name] = (ch, bool(np.isfinite(ch).any()))
+        return hit[1]
 
 
 # --------------------------------------------------------------------------- channel maps
