@@ -188,9 +188,33 @@ def _analyse_one(log, vehicle, k, lap, gate, channels, track, out, quiet, figure
     return analysis, written
 
 
+def _analyse_batch(logs, out, quiet, scheduler, **options) -> None:
+    """Several logs (or folders): one output folder each, a combined table, batch.csv."""
+    from limitlap import batch, report
+
+    found = batch.find_logs(logs)
+    bar = _Progress(quiet, "logs")
+    try:
+        rows = batch.run_batch(
+            found, out, scheduler=scheduler, on_done=lambda row, done, total: bar(done, total, Path(row.log).name),
+            **options,
+        )
+    finally:
+        bar.close()
+    for row in rows:
+        for w in row.warnings:  # each line names its log
+            typer.echo(f"limitlap: warning: {w if w.startswith(row.log) else f'{row.log}: {w}'}", err=True)
+    typer.echo(batch.format_batch_table(rows))
+    table = report.write_atomic(Path(out) / "batch.csv", batch.batch_csv_text(rows))
+    typer.echo(f"\nwritten to {out}/: one folder per log, {table.name}")
+    typer.echo(report.SAFETY_CAUTION)
+    if not all(row.ok for row in rows):
+        raise SystemExit(1)
+
+
 @app.command()
 def analyse(
-    log: Path = typer.Argument(..., help="Session log (CSV, optionally .csv.gz)."),
+    log: list[Path] = typer.Argument(..., help="Session log(s) (CSV, optionally .csv.gz), or folders of logs."),
     vehicle: Path = typer.Option(None, "--vehicle", help="Vehicle TOML; without [grip] the envelope is fitted."),
     grip: str = typer.Option(None, "--grip", help="Grip scale k for the ideal, 0.2-2.0."),
     lap: int = typer.Option(None, "--lap", help="Lap number; default the fastest complete lap."),
@@ -200,11 +224,24 @@ def analyse(
     out: Path = typer.Option(Path("limitlap-out"), "--out", help="Output folder."),
     no_figures: bool = typer.Option(False, "--no-figures", help="Skip the PNG figures and their report panels."),
     quiet: bool = typer.Option(False, "--quiet", help="No progress display."),
+    workers: int = typer.Option(None, "--workers", min=1, help="Several logs: worker processes (default one per core)."),
+    scheduler: str = typer.Option(None, "--scheduler", help="Several logs: Dask scheduler address (limitlap[dask])."),
 ) -> None:
-    """The whole job on one log: laps, line, envelope, ideal lap, corner comparison, report."""
+    """The whole job on one log: laps, line, envelope, ideal lap, corner comparison, report.
+
+    Several logs (or a folder) run in parallel, each into OUT/<log name>/, with a combined
+    table in OUT/batch.csv; the exit status is 1 when any log failed.
+    """
     from limitlap import report
 
     k = _grip(grip)
+    if len(log) > 1 or log[0].is_dir() or scheduler is not None:
+        _analyse_batch(
+            log, out, quiet, scheduler, vehicle=vehicle, grip_scale=k, lap=lap, gate=gate,
+            channels=channels, track=track, figures=not no_figures, workers=workers,
+        )
+        return
+    log = log[0]
     analysis, written = _analyse_one(log, vehicle, k, lap, gate, channels, track, out, quiet, not no_figures)
     for w in analysis.warnings:
         typer.echo(f"limitlap: warning: {w}", err=True)
