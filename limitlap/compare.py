@@ -69,9 +69,9 @@ BRAKE_GAP_M = 5.0
 #: A corner's minimum speed must also be the lowest this far either side of its
 #: curvature zone; otherwise the speed there belongs to a neighbour's braking. [m]
 EDGE_M = 25.0
-#: A release of the brakes up to this long, coasting (speed rising by at most
-#: ``COAST_RISE_M_S``), is still one braking zone (a second, deeper application). [m]
-COAST_GAP_M = 40.0
+#: A release of the brakes in which the speed rises by at most this (coasting, or
+#: holding speed on the lateral limit between two applications) is still one braking
+#: zone, however long: the speed has not stopped falling into the corner. [m/s]
 COAST_RISE_M_S = 0.5
 #: A braking zone must take at least this off the speed to count as a brake point. [m/s]
 MIN_BRAKE_DROP_M_S = 1.0
@@ -555,12 +555,14 @@ def _braking_signal(tr: _Trace, brake_threshold_pa):
     return -tr.ax - BRAKE_DECEL_M_S2
 
 
-def _brake_zone(tr: _Trace, f, lo, i_min, gap_m=BRAKE_GAP_M, coast_gap_m=COAST_GAP_M):
+def _brake_zone(tr: _Trace, f, lo, i_min, gap_m=BRAKE_GAP_M):
     """Start and end of the braking zone that leads to station i_min.
 
     Walks back from ``i_min`` to the last braking station after ``lo``, then back over
-    the zone (gaps under ``gap_m`` bridged, and gaps under ``coast_gap_m`` in which the
-    speed does not rise). Returns unwrapped (start, end) or NaNs, also when the zone
+    the zone (gaps under ``gap_m`` bridged, and gaps of any length in which the speed
+    rises by at most ``COAST_RISE_M_S``, so the braking starts where the speed starts
+    falling into the corner, as for the ideal in :func:`_profile_brake_start`).
+    Returns unwrapped (start, end) or NaNs, also when the zone
     takes off less than ``MIN_BRAKE_DROP_M_S``.
     """
     i_lo = int(np.searchsorted(tr.u, lo, "left"))
@@ -583,7 +585,7 @@ def _brake_zone(tr: _Trace, f, lo, i_min, gap_m=BRAKE_GAP_M, coast_gap_m=COAST_G
             # A short release, or a longer one without getting back on the power (the
             # speed does not rise), is still the same braking into the corner.
             rise = np.nanmax(tr.v[j : first + 1]) - tr.v[j]
-            if gap <= gap_m or (gap <= coast_gap_m and rise <= COAST_RISE_M_S):
+            if gap <= gap_m or rise <= COAST_RISE_M_S:
                 first = j
                 continue
         break

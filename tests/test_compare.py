@@ -396,3 +396,51 @@ def test_names_matched_by_apex_with_a_missed_fast_bend():
     # Still a tiling: every station in one segment.
     seg = compare.segment_index(line.distance_m, line.length_m, corners)
     assert (seg >= 0).all()
+
+
+def test_grip_used_is_low_only_where_grip_was_left(lap):
+    # The real lap holds T1's arc at 0.85 of sqrt(mu g R): there its lateral usage is
+    # 0.85^2 = 0.7225 of the limit (friction-only car, a_y = v^2 / R). Elsewhere it
+    # drives at the limit too, so real over ideal usage is 1, except at the station
+    # where the slower real lap switches from drive to braking for T2 while the ideal
+    # already brakes (station accelerations are the mean of the steps either side):
+    # one station of a few hundred, so 1 within 0.01.
+    line, arcs, corners, ideal = lap
+    v_cap = 0.85 * math.sqrt(1.2 * G0_M_S2 * 40.0)
+    real = solve.solve_profile(line, CAR, speed_cap_m_s=capped(line, arcs[0], v_cap))
+    cmp = compare.compare_lap(driven_from(real, line), ideal, CAR, corners)
+    t1 = cmp.corners[0]
+    # Between the arc's 0.7225 and 1 (the braking before it is at the limit on both).
+    assert 0.7225 - 1e-6 < t1.grip_used < 0.9
+    for c in cmp.corners[1:]:
+        assert c.grip_used == pytest.approx(1.0, abs=0.01)
+
+
+# A left-hander entered on a long R=150 m arc (60 deg, 157 m) that tightens to R=40 m:
+# a friction-only ideal brakes from the straight to sqrt(mu g 150), holds that on the
+# lateral limit (zero deceleration) for about 65 m, then trail-brakes into the R=40 m
+# part. The speed never rises from the straight to the minimum: one brake point.
+TIGHTENING = [
+    ("s", 250.0),
+    (150.0, 60.0, +1),
+    (40.0, 30.0, +1),
+    *LAYOUT[2:],
+]
+
+
+def test_brake_point_of_a_tightening_corner_is_where_the_speed_starts_falling():
+    line, arcs = build(TIGHTENING)
+    corners = compare.find_corners(line)
+    ideal = solve.solve_profile(line, CAR)
+    mu, mu_b, mu_t = 1.2, 1.3, 1.1
+    # Closed form: leaving the R=120 m arc at the gate at sqrt(mu g 120), accelerating
+    # at mu_t g, braking at mu_b g to sqrt(mu g 150) at the arc 250 m on (kinematics).
+    b1, b2, straight = mu * G0_M_S2 * 120.0, mu * G0_M_S2 * 150.0, arcs[0][0]
+    x = (b2 - b1 + 2 * mu_b * G0_M_S2 * straight) / (2 * G0_M_S2 * (mu_t + mu_b))
+    t1 = compare.compare_lap(driven_from(ideal, line), ideal, CAR, corners).corners[0]
+    assert in_arc(t1.apex_m, arcs[1], line.length_m)  # the R=40 m part is the apex
+    # 1 m: the crossing is interpolated between 1 m stations.
+    assert t1.brake_start_ideal_m == pytest.approx(x, abs=1.0)
+    # The same lap as "real" (deceleration threshold, no pressure): same brake point.
+    assert t1.brake_start_actual_m == pytest.approx(t1.brake_start_ideal_m, abs=1e-9)
+    assert "same brake point" in t1.advice

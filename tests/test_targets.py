@@ -180,3 +180,26 @@ def test_terminal_table_and_conditions(line, corners):
         targets.resolve_condition("icy")
     with pytest.raises(LimitlapError):
         targets.resolve_condition(3.0)  # outside 0.2-2.0
+
+
+@pytest.mark.parametrize("car", [EXAMPLE_CAR, friction_car(mu=1.2, mu_brk=1.3, mu_trac=1.1)])
+def test_apex_brake_point_and_minimum_are_consistent(line, corners, car):
+    # Definitions of CornerTarget (no published source): the apex shown is one of the
+    # corner's apexes, the brake point lies before it by brake_before_apex_m (exactly:
+    # same numbers), the minimum lies between the entry point and the corner's exit
+    # and is never above the entry speed (1e-9: interpolation rounding).
+    length = line.length_m
+    for k in SCALES:
+        table = targets.target_table(line, car, k, corners)
+        for t, c in zip(table.corners, corners, strict=True):
+            assert t.apex_m in c.apexes_m
+            assert t.min_speed_m_s <= t.entry_speed_m_s + 1e-9
+            if math.isfinite(t.brake_start_m):
+                assert t.brake_before_apex_m >= 0.0
+                ahead = (t.apex_m - t.brake_start_m) % length
+                assert ahead == pytest.approx(t.brake_before_apex_m, abs=1e-9)
+                assert (t.min_speed_at_m - t.brake_start_m) % length < length / 2
+            else:
+                assert math.isnan(t.brake_before_apex_m)
+                # No braking: the entry is turn-in, the minimum at or after it.
+                assert (t.min_speed_at_m - c.turn_in_m) % length < length / 2
