@@ -1439,8 +1439,10 @@ def best_of_laps(
 
     Parameters
     ----------
-    laps : sequence of DrivenLap
-        Complete laps (``line``, ``time_s``, ``speed_m_s``; optional ``lap_time_s``).
+    laps : sequence of DrivenLap or pipeline.LapTimeline
+        Complete laps (``line``, ``time_s``, ``speed_m_s``; optional ``lap_time_s``), or
+        records with ``distance_m``, ``length_m``, ``time_s`` and ``lap_time_s`` in place
+        of a line.
     corners : sequence of Corner
         Segments found on the reference lap's line.
     reference_length_m : float
@@ -1476,7 +1478,7 @@ def best_of_laps(
     totals = []
     for lap in laps:
         t, total = _elapsed(lap)
-        line = lap.line
+        line = getattr(lap, "line", lap)  # a timeline carries distance_m and length_m itself
         rows.append(
             segment_times(
                 line.distance_m,

@@ -63,8 +63,9 @@ class Analysis:
     comparison : compare.LapComparison
     corners : list of compare.Corner
     best_of_laps : compare.BestOfLaps or None
-    complete_laps : list of driven.DrivenLap
-        All complete laps' reconstructions (for the composite and the figures).
+    complete_laps : list of LapTimeline
+        Elapsed time against distance for every complete lap (what the composite is
+        built from); only the analysed lap's line is rebuilt, in ``driven``.
     track_name : str
     warnings : list of str
     """
@@ -84,6 +85,75 @@ class Analysis:
     complete_laps: list = field(default_factory=list)
     track_name: str = ""
     warnings: list = field(default_factory=list)
+
+
+@dataclass(frozen=True, eq=False)
+class LapTimeline:
+    """Elapsed time against distance along one complete lap, gate to gate (all SI).
+
+    What the best-of-laps composite needs from a lap (``compare.best_of_laps`` maps the
+    reference corners to it by distance fraction), without rebuilding its line.
+
+    Attributes
+    ----------
+    number : int
+        Lap number. [-]
+    distance_m : numpy.ndarray
+        Distance from the gate, strictly increasing from 0. [m]
+    time_s : numpy.ndarray
+        Elapsed time from the gate at each distance. [s]
+    length_m : float
+        Distance gate to gate. [m]
+    lap_time_s : float
+        Time gate to gate, as in the lap table. [s]
+    """
+
+    number: int
+    distance_m: np.ndarray
+    time_s: np.ndarray
+    length_m: float
+    lap_time_s: float
+
+
+def lap_timelines(log, laps) -> dict:
+    """Elapsed time against travelled distance for each lap, from the logged speed.
+
+    Distance is the trapezoidal integral of ``speed`` (as the lap table's distance,
+    :func:`limitlap.ingest.travelled_m`), both measured from the gate crossing
+    (interpolated between rows); the log's rows inside the lap are the stations, one per
+    distance where the car stood still. Vectorised over each lap's rows.
+
+    Parameters
+    ----------
+    log : ingest.Log
+    laps : sequence of laps.Lap
+
+    Returns
+    -------
+    dict
+        Lap number -> :class:`LapTimeline`.
+    """
+    t = log.time_s
+    s = ingest.travelled_m(log)
+    out = {}
+    for lp in laps:  # a few dozen laps; each lap's rows in one go
+        s0 = float(np.interp(lp.start_time_s, t, s))
+        s1 = float(np.interp(lp.end_time_s, t, s))
+        rows = slice(lp.start_index, lp.end_index)
+        tr, sr = t[rows] - lp.start_time_s, s[rows] - s0
+        inside = (tr > 0.0) & (tr < lp.time_s)
+        d = np.concatenate(([0.0], sr[inside]))
+        e = np.concatenate(([0.0], tr[inside]))
+        keep = np.concatenate(([True], d[1:] > np.maximum.accumulate(d)[:-1]))
+        out[lp.number] = LapTimeline(lp.number, d[keep], e[keep], s1 - s0, float(lp.time_s))
+    return out
+
+
+def _timeline_of(driven, lap) -> LapTimeline:
+    """The analysed lap's timeline on its rebuilt line (the stations its corners are on)."""
+    t = np.asarray(driven.time_s, dtype=np.float64)
+    line = driven.line
+    return LapTimeline(lap.number, line.distance_m, t - t[0], line.length_m, float(lap.time_s))
 
 
 def _step(progress: Progress | None, done: int, total: int, what: str) -> None:
@@ -212,8 +282,9 @@ def analyse(
             raise InputError(log_path, f"lap {lap} is not complete ({chosen.reason})")
 
     _step(progress, 1, total, "rebuilding the driven line")
-    drivens = {lp.number: driven_mod.reconstruct_lap(log, lp) for lp in complete}
-    the_lap = drivens[chosen.number]
+    # Only the analysed lap's line is rebuilt (GNSS/inertial fusion); the other laps give
+    # the composite their time against distance straight from the logged speed.
+    the_lap = driven_mod.reconstruct_lap(log, chosen)
     warnings += [w for w in the_lap.warnings if w not in warnings]
 
     _step(progress, 2, total, "fitting the grip envelope")
@@ -223,14 +294,16 @@ def analyse(
         base = ingest.read_vehicle(vehicle, require_complete=False)
     else:
         base = Vehicle("fitted from the log", NOMINAL_MASS_KG)
-    samples = _imu_samples(log, laps, complete)
-    if samples is None:
-        samples = _trace_samples(list(drivens.values()))
-    v_s, ax_s, ay_s, mask_s, rate, thr_s = samples
     fit = None
     if base.is_complete:
         car = base
     else:
+        samples = _imu_samples(log, laps, complete)
+        if samples is None:  # no IMU: samples from every complete lap's rebuilt line
+            samples = _trace_samples(
+                [the_lap if lp is chosen else driven_mod.reconstruct_lap(log, lp) for lp in complete]
+            )
+        v_s, ax_s, ay_s, mask_s, rate, thr_s = samples
         try:
             fit = envelope.fit_envelope(
                 v_s, ax_s, ay_s, base, mask=mask_s, sample_rate_hz=rate, throttle=thr_s
@@ -268,10 +341,13 @@ def analyse(
     comparison = compare.compare_lap(the_lap, ideal, car, corners, grip_scale=k, grip_estimate=grip_est)
 
     _step(progress, 5, total, "best of the session's own laps")
+    timelines = lap_timelines(log, [lp for lp in complete if lp is not chosen])
+    timelines[chosen.number] = _timeline_of(the_lap, chosen)
+    complete_laps = [timelines[lp.number] for lp in complete]
     best = None
     if len(complete) >= 1:
         best = compare.best_of_laps(
-            [drivens[lp.number] for lp in complete],
+            complete_laps,
             corners,
             reference_length_m=the_lap.line.length_m,
             lap_numbers=[lp.number for lp in complete],
@@ -291,7 +367,7 @@ def analyse(
         comparison=comparison,
         corners=corners,
         best_of_laps=best,
-        complete_laps=[drivens[lp.number] for lp in complete],
+        complete_laps=complete_laps,
         track_name=trk.name if trk is not None else "",
         warnings=warnings,
     )
