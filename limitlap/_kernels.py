@@ -258,16 +258,22 @@ def solve_speed_squared(curvature_1_m, sin_grad, ds_m, veh, closed, b_entry, b_e
 
 
 @njit(cache=True)
+def _step_time(ds, v_sum):
+    """2 ds / (v_i + v_j); inf when the car stands at both ends (no division by zero)."""
+    return 2.0 * ds / v_sum if v_sum > 0.0 else np.inf
+
+
+@njit(cache=True)
 def elapsed_time(speed_m_s, ds_m, closed):
     """Kernel of :func:`limitlap.solve.elapsed_time`: time at each station and lap time."""
     n = speed_m_s.shape[0]
     t = np.empty(n)
     t[0] = 0.0
     for i in range(n - 1):
-        t[i + 1] = t[i] + 2.0 * ds_m[i] / (speed_m_s[i] + speed_m_s[i + 1])
+        t[i + 1] = t[i] + _step_time(ds_m[i], speed_m_s[i] + speed_m_s[i + 1])
     total = t[n - 1]
     if closed:
-        total += 2.0 * ds_m[n - 1] / (speed_m_s[n - 1] + speed_m_s[0])
+        total += _step_time(ds_m[n - 1], speed_m_s[n - 1] + speed_m_s[0])
     return t, total
 
 
@@ -311,10 +317,10 @@ def profile_outputs(b, curvature_1_m, ds_m, closed):
         ay[i] = curvature_1_m[i] * b[i]
     for i in range(n - 1):
         ax[i] = (b[i + 1] - b[i]) / (2.0 * ds_m[i])
-        dt[i] = 2.0 * ds_m[i] / (v[i] + v[i + 1])
+        dt[i] = _step_time(ds_m[i], v[i] + v[i + 1])
     if closed:
         ax[n - 1] = (b[0] - b[n - 1]) / (2.0 * ds_m[n - 1])
-        dt[n - 1] = 2.0 * ds_m[n - 1] / (v[n - 1] + v[0])
+        dt[n - 1] = _step_time(ds_m[n - 1], v[n - 1] + v[0])
     else:
         ax[n - 1] = ax[n - 2]
         dt[n - 1] = 0.0
@@ -365,9 +371,21 @@ def boundary_points(key, rho, rank):
         fill[g] += 1
     out = np.full(n_keys, -1, np.int64)
     for g in range(n_keys):
-        if rank[g] < 0:
+        r = rank[g]
+        if r < 0:
             continue
         m = members[start[g] : start[g + 1]]
-        order = np.argsort(rho[m], kind="mergesort")
-        out[g] = m[order[rank[g]]]
+        vals = rho[m]
+        x = np.partition(vals, r)[r]  # the rank-r value, by selection (no full sort)
+        n_less = 0
+        for j in range(m.shape[0]):
+            if vals[j] < x:
+                n_less += 1
+        want = r - n_less  # ties: the want-th equal value in index order (stable order)
+        for j in range(m.shape[0]):
+            if vals[j] == x:
+                if want == 0:
+                    out[g] = m[j]
+                    break
+                want -= 1
     return out

@@ -7,6 +7,7 @@ as given from a distance/curvature table.
 
 from __future__ import annotations
 
+import warnings
 from dataclasses import dataclass, field
 
 import numpy as np
@@ -145,9 +146,11 @@ def line_from_xy(x_m, y_m, z_m=None, *, spacing_m=1.0, smoothing_m=0.005):
     closed_pts = np.hstack([pts, pts[:, :1]])
     n_pts = closed_pts.shape[1]
     try:
-        tck, _ = interpolate.splprep(
-            list(closed_pts), u=u, s=n_pts * smoothing_m**2, per=1, k=3, quiet=1
-        )
+        with warnings.catch_warnings():  # FITPACK's "s too small" note: the spline stands
+            warnings.simplefilter("ignore", RuntimeWarning)
+            tck, _ = interpolate.splprep(
+                list(closed_pts), u=u, s=n_pts * smoothing_m**2, per=1, k=3, quiet=1
+            )
     except (ValueError, TypeError) as err:  # FITPACK refuses degenerate input
         raise LimitlapError(f"cannot fit a smooth closed line through the points: {err}") from err
     # Arc length of the spline by dense Gauss-free sampling (10 per metre of chord).
