@@ -131,13 +131,15 @@ _DECIMALS = (
     ("_m_s", 4),
     ("_kmh", 2),
     ("_1_m", 7),
-    ("_s", 5),
+    # Times stay at full precision: the corners' time left must add up to the lap's
+    # (INTERFACE §5), which rounding each value separately would break.
+    ("_s", None),
     ("_m", 3),
 )
 _DEFAULT_DECIMALS = 5
 
 
-def _decimals(key: str) -> int:
+def _decimals(key: str) -> int | None:
     for suffix, n in _DECIMALS:
         if key.endswith(suffix):
             return n
@@ -162,7 +164,9 @@ def _plain(value, key: str = ""):
         x = float(value)
         if not math.isfinite(x):
             return None
-        x = round(x, _decimals(key))
+        n = _decimals(key)
+        if n is not None:
+            x = round(x, n)
         return 0.0 if x == 0.0 else x  # no "-0.0"
     if value is None or isinstance(value, str):
         return value

@@ -305,9 +305,11 @@ def test_summary_json_byte_identical_on_two_runs(tmp_path):
 
 def test_summary_json_text_rounds_and_rejects_nothing_silently():
     text = report.summary_json_text(
-        {"x_s": np.float64(1 / 3), "n": np.int64(4), "bad_m": float("nan"), "v": [np.float32(0.5)]}
+        {"x_s": np.float64(1 / 3), "y_m": 1 / 3, "n": np.int64(4), "bad_m": float("nan"), "v": [np.float32(0.5)]}
     )
-    assert json.loads(text) == {"x_s": 0.33333, "n": 4, "bad_m": None, "v": [0.5]}
+    # Times keep full precision (corner times must add up to the lap's, INTERFACE §5);
+    # distances are rounded to the millimetre.
+    assert json.loads(text) == {"x_s": 1 / 3, "y_m": 0.333, "n": 4, "bad_m": None, "v": [0.5]}
     with pytest.raises(Exception, match="unsupported type"):
         report.summary_json_text({"thing": object()})
 
