@@ -11,7 +11,6 @@ import warnings
 from dataclasses import dataclass, field
 
 import numpy as np
-from scipy import interpolate
 
 from limitlap.errors import LimitlapError
 
@@ -126,6 +125,9 @@ def line_from_xy(x_m, y_m, z_m=None, *, spacing_m=1.0, smoothing_m=0.005):
     -------
     Line
     """
+    # imported here, not with the module: about 0.3 s that a distance/curvature line never needs
+    from scipy import interpolate
+
     x = np.asarray(x_m, dtype=np.float64)
     y = np.asarray(y_m, dtype=np.float64)
     if x.ndim != 1 or x.shape != y.shape:
