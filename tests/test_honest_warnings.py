@@ -1,0 +1,81 @@
+"""Honest warnings (issue 7): when the data cannot support a confident result, both
+summary.json ("warnings") and report.html say so in plain words."""
+
+from __future__ import annotations
+
+import html
+import json
+
+import pytest
+
+from .robust_data import demo_csv, demo_gate, demo_session, run_cli
+
+
+def analyse(tmp_path, capsys, monkeypatch, text, *extra):
+    log = tmp_path / "session.csv"
+    log.write_text(text)
+    out = tmp_path / "out"
+    code, _, err = run_cli(
+        ["analyse", log, "--gate", demo_gate(), "--out", out, "--no-figures", "--quiet", *extra],
+        capsys,
+        monkeypatch,
+    )
+    assert code == 0, err
+    summary = json.loads((out / "summary.json").read_text())
+    page = (out / "report.html").read_text()
+    return log, summary["warnings"], page, err
+
+
+def shown_everywhere(warning, page, err):
+    """The warning is in report.html's warnings and on stderr as well."""
+    assert f'<p class="warn">{html.escape(warning)}</p>' in page
+    assert f"limitlap: warning: {warning}" in err
+
+
+@pytest.fixture
+def bridged(tmp_path, capsys, monkeypatch):
+    # A 1.5 s GNSS gap 30 s into lap 1 of a generated session: bridged by dead reckoning.
+    t_gate = float(demo_session(2).truth.gate_times_s[0])
+    return analyse(tmp_path, capsys, monkeypatch, demo_csv(2, ((t_gate + 30.0, 1.5),)))
+
+
+def test_bridged_dropout_is_reported(bridged):
+    log, warnings, page, err = bridged
+    (gap,) = [w for w in warnings if "GPS dropout" in w]
+    assert gap.startswith(f"{log}: GPS dropout of 1.6 s") and gap.endswith(
+        "bridged from speed and yaw rate"
+    )
+    shown_everywhere(gap, page, err)
+
+
+def test_sparse_speed_band_is_reported(bridged):
+    # Two laps of the demo circuit hold few samples near the limit below 15 m/s (only
+    # the slowest hairpin): the fit says the envelope there is borrowed.
+    _, warnings, page, err = bridged
+    (sparse,) = [w for w in warnings if "samples within 5 % of the fitted limit" in w]
+    assert sparse.startswith("speed band")
+    shown_everywhere(sparse, page, err)
+
+
+def test_poor_curvature_agreement_is_reported(tmp_path, capsys, monkeypatch):
+    # accel_lat logged with the opposite sign convention (inverted through a channel
+    # map): a_y / v² disagrees with the GNSS path's curvature.
+    cmap = tmp_path / "map.toml"
+    cmap.write_text("[channels.accel_lat]\ninvert = true\n")
+    log, warnings, page, err = analyse(
+        tmp_path, capsys, monkeypatch, demo_csv(2), "--channels", cmap
+    )
+    poor = [w for w in warnings if "agrees poorly with the GNSS path" in w]
+    assert poor and all(w.startswith(f"{log}: lap ") and "'accel_lat'" in w for w in poor)
+    sign = [w for w in warnings if "does not follow the GNSS course" in w]
+    assert sign and "sign convention?" in sign[0]
+    for w in poor + sign:
+        shown_everywhere(w, page, err)
+
+
+def test_clean_data_has_no_such_warnings(tmp_path, capsys, monkeypatch):
+    # The same session without a gap or a flipped sign: neither warning (the checks can fail).
+    _, warnings, _, _ = analyse(tmp_path, capsys, monkeypatch, demo_csv(2))
+    assert not [
+        w for w in warnings if "GPS dropout" in w or "agrees poorly" in w or "does not follow" in w
+    ]
