@@ -192,7 +192,7 @@ def summary_json_text(summary: Mapping) -> str:
     --------
     >>> print(summary_json_text({"lap_time_s": 92.4123456, "apex_m": -0.0001}), end="")
     {
-      "lap_time_s": 92.41235,
+      "lap_time_s": 92.4123456,
       "apex_m": 0.0
     }
     """
