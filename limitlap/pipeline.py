@@ -313,7 +313,8 @@ def analyse(
         except LimitlapError as err:  # the log's data cannot support a fit: name the log
             raise InputError(log_path, f"{err} (give a vehicle file with [grip])") from err
         car = fit.vehicle
-        warnings += [w for w in fit.warnings if w not in warnings]
+        # The fit's own lines do not know the file; say which log they are about.
+        warnings += [f"{log_path}: {w}" for w in fit.warnings if f"{log_path}: {w}" not in warnings]
         if vehicle is None:
             warnings.append(
                 f"no vehicle file: mass taken as {NOMINAL_MASS_KG:.0f} kg; the fitted power and "

@@ -579,7 +579,10 @@ def _view(analysis) -> _View:
         time_left = sum(c["time_left_s"] for c in corners) if corners else lap_time - ideal_time
     warnings = [str(w) for w in (_get(analysis, "warnings", default=[]) or [])]
     for extra in (_get(driven, "warnings", default=[]), _get(analysis.fit, "warnings", default=[])):
-        warnings += [str(w) for w in (extra or []) if str(w) not in warnings]
+        # the pipeline may already carry them with the log's name in front
+        warnings += [
+            str(w) for w in (extra or []) if not any(x.endswith(str(w)) for x in warnings)
+        ]
     laps = _get(analysis, "laps", default=[]) or []
     return _View(
         source=str(_get(analysis, "log_path", default="")),

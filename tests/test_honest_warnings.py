@@ -51,9 +51,9 @@ def test_bridged_dropout_is_reported(bridged):
 def test_sparse_speed_band_is_reported(bridged):
     # Two laps of the demo circuit hold few samples near the limit below 15 m/s (only
     # the slowest hairpin): the fit says the envelope there is borrowed.
-    _, warnings, page, err = bridged
+    log, warnings, page, err = bridged
     (sparse,) = [w for w in warnings if "samples within 5 % of the fitted limit" in w]
-    assert sparse.startswith("speed band")
+    assert sparse.startswith(f"{log}: speed band")
     shown_everywhere(sparse, page, err)
 
 
