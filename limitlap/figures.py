@@ -21,6 +21,7 @@ References
 
 from __future__ import annotations
 
+import functools
 import io
 import itertools
 import math
@@ -56,47 +57,53 @@ FIGURE_SIZE_PX = {
 SHEET_DPI = 150
 
 
-def _pyplot():
-    """matplotlib.pyplot on the Agg backend, imported on first use."""
-    import matplotlib
+#: Style of every figure, applied only while a figure is built and drawn (the caller's
+#: matplotlib settings are left as they were).
+_STYLE = {
+    "font.size": 11,
+    "axes.titlesize": 12,
+    "axes.labelsize": 11,
+    "axes.edgecolor": "#888888",
+    "axes.grid": True,
+    "grid.color": GRID,
+    "grid.linewidth": 0.6,
+    "axes.spines.top": False,
+    "axes.spines.right": False,
+    "legend.frameon": False,
+    "svg.hashsalt": "limitlap",
+}
 
-    matplotlib.use("Agg", force=True)
-    import matplotlib.pyplot as plt
 
-    plt.rcParams.update(
-        {
-            "font.size": 11,
-            "axes.titlesize": 12,
-            "axes.labelsize": 11,
-            "axes.edgecolor": "#888888",
-            "axes.grid": True,
-            "grid.color": GRID,
-            "grid.linewidth": 0.6,
-            "axes.spines.top": False,
-            "axes.spines.right": False,
-            "legend.frameon": False,
-            "svg.hashsalt": "limitlap",
-        }
-    )
-    return plt
+def _styled(draw):
+    """Run a figure function inside the report's matplotlib style (imported on first use)."""
+
+    @functools.wraps(draw)
+    def wrapper(*args, **kwargs):
+        import matplotlib
+
+        with matplotlib.rc_context(_STYLE):
+            return draw(*args, **kwargs)
+
+    return wrapper
 
 
 def _figure(kind: str, **kwargs):
-    plt = _pyplot()
+    """A figure of the kind's fixed size on its own Agg canvas (no pyplot, no GUI state)."""
+    from matplotlib.backends.backend_agg import FigureCanvasAgg
+    from matplotlib.figure import Figure
+
     w, h = FIGURE_SIZE_PX[kind]
     dpi = SHEET_DPI if kind == "target_sheet" else DPI
-    return plt.figure(figsize=(w / dpi, h / dpi), dpi=dpi, **kwargs)
+    fig = Figure(figsize=(w / dpi, h / dpi), dpi=dpi, **kwargs)
+    FigureCanvasAgg(fig)
+    return fig
 
 
 def _png(fig, kind: str) -> bytes:
-    """Render to PNG bytes at the figure's fixed size; close the figure."""
-    plt = _pyplot()
+    """Render to PNG bytes at the figure's fixed size."""
     buf = io.BytesIO()
     dpi = SHEET_DPI if kind == "target_sheet" else DPI
-    try:
-        fig.savefig(buf, format="png", dpi=dpi, metadata={"Software": None})
-    finally:
-        plt.close(fig)
+    fig.savefig(buf, format="png", dpi=dpi, metadata={"Software": None})
     return buf.getvalue()
 
 
@@ -138,6 +145,7 @@ def _corner_bands(ax, corners, *, label_y=None, labels=True):
 # --------------------------------------------------------------------------- along the lap
 
 
+@_styled
 def speed_figure(distance_m, speed_real_m_s, speed_ideal_m_s, corners) -> bytes:
     """Speed along the lap, real against ideal, with the corners named at their apexes.
 
@@ -171,6 +179,7 @@ def speed_figure(distance_m, speed_real_m_s, speed_ideal_m_s, corners) -> bytes:
     return _png(fig, "speed")
 
 
+@_styled
 def delta_figure(distance_m, time_delta_s, corners) -> bytes:
     """Time delta along the lap: how far the driven lap is behind the ideal.
 
@@ -209,6 +218,7 @@ def delta_figure(distance_m, time_delta_s, corners) -> bytes:
     return _png(fig, "delta")
 
 
+@_styled
 def time_left_figure(corners) -> bytes:
     """Time left per corner, ranked, largest on top.
 
@@ -291,6 +301,7 @@ def time_loss_rate(distance_m, time_delta_s, *, window_m: float = 20.0, closed: 
     return np.convolve(rate, kernel, mode="same")
 
 
+@_styled
 def map_figure(x_m, y_m, loss_rate_s_m, corners, distance_m) -> bytes:
     """Map of the line coloured by where time is left (local time-loss rate).
 
@@ -515,6 +526,7 @@ def speed_bands_m_s(speed_m_s, n_bands: int = 3):
     return [(float(a), float(b)) for a, b in itertools.pairwise(edges)]
 
 
+@_styled
 def gg_figure(
     speed_m_s, accel_lon_m_s2, accel_lat_m_s2, vehicle, grip_scale=1.0, bands=None, fit_points=None
 ) -> bytes:
@@ -634,6 +646,7 @@ def _window(distance_m, start_m, end_m, length_m):
     return idx, np.concatenate([s[first], s[second] + length_m])
 
 
+@_styled
 def detail_figure(corner, distance_m, length_m, real, ideal, caption="") -> bytes:
     """Speed, brake and throttle over one corner, real against ideal.
 
@@ -733,6 +746,7 @@ def detail_figure(corner, distance_m, length_m, real, ideal, caption="") -> byte
 # --------------------------------------------------------------------------- best of own laps
 
 
+@_styled
 def best_figure(corners, lap_time_s, best_time_s, ideal_time_s, lap_label="this lap") -> bytes:
     """Best of the driver's own laps beside the analysed lap and the limit.
 
@@ -806,6 +820,7 @@ def best_figure(corners, lap_time_s, best_time_s, ideal_time_s, lap_label="this 
 # --------------------------------------------------------------------------- target sheet
 
 
+@_styled
 def target_sheet(condition, circuit_name: str, caution: str, fmt: str = "png") -> bytes:
     """One printable A4 page of targets for one condition, to take to the car.
 
@@ -941,10 +956,7 @@ def target_sheet(condition, circuit_name: str, caution: str, fmt: str = "png") -
         if fmt == "png"
         else {"Creator": None, "Producer": None, "CreationDate": None}
     )
-    try:
-        fig.savefig(buf, format=fmt, dpi=SHEET_DPI, metadata=meta)
-    finally:
-        _pyplot().close(fig)
+    fig.savefig(buf, format=fmt, dpi=SHEET_DPI, metadata=meta)
     return buf.getvalue()
 
 
