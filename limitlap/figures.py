@@ -107,6 +107,79 @@ def _png(fig, kind: str) -> bytes:
     return buf.getvalue()
 
 
+# Fixed layout. Every figure has a fixed pixel size and fixed fonts, so its axes sit at
+# fixed places (pixel margins below) instead of being fitted by a layout engine, which
+# draws the whole figure once more to measure it. The margins hold the tick labels and
+# axis labels at the style's font sizes (11 pt = 15 px at 100 dpi); labels whose width
+# depends on the data (corner and lap names) are measured first (:func:`_text_width_px`).
+_TICK_PX = 10  # tick 3.5 pt + pad 3.5 pt at 100 dpi
+_LABEL_PX = 22  # an 11 pt axis label and its 4 pt pad
+
+
+def _axes_px(fig, left, bottom, width, height, **kwargs):
+    """Axes at a fixed place, in pixels from the figure's lower-left corner."""
+    w, h = fig.bbox.width, fig.bbox.height
+    return fig.add_axes((left / w, bottom / h, width / w, height / h), **kwargs)
+
+
+def _inset_px(fig, left, right, top, bottom, **kwargs):
+    """Axes filling the figure less the given pixel margins."""
+    w, h = fig.bbox.width, fig.bbox.height
+    return _axes_px(fig, left, bottom, w - left - right, h - top - bottom, **kwargs)
+
+
+def _text_width_px(fig, texts, fontsize) -> float:
+    """Width of the widest text at ``fontsize`` points, measured by the figure's renderer."""
+    from matplotlib.font_manager import FontProperties
+
+    renderer = fig.canvas.get_renderer()
+    prop = FontProperties(size=fontsize)
+    return max(
+        (renderer.get_text_width_height_descent(str(t), prop, ismath=False)[0] for t in texts),
+        default=0.0,
+    )
+
+
+def _fit_left(fig, axes, pad_px: float = 6.0) -> None:
+    """Move the axes' common left edge so the widest y tick label and the y label fit.
+
+    The tick labels are the ones the axis will draw (its locator and formatter on its
+    limits), measured as text: no tick artists are made.
+    """
+    import matplotlib
+
+    width = 0.0
+    for ax in axes:
+        axis = ax.yaxis
+        lo, hi = sorted(axis.get_view_interval())
+        tol = 1e-9 * (hi - lo)
+        locs = [x for x in axis.get_major_locator()() if lo - tol <= x <= hi + tol]
+        labels = axis.get_major_formatter().format_ticks(locs)
+        width = max(width, _text_width_px(fig, labels, matplotlib.rcParams["ytick.labelsize"]))
+    left = (width + _TICK_PX + _LABEL_PX + pad_px) / fig.bbox.width
+    for ax in axes:
+        pos = ax.get_position()
+        ax.set_position((left, pos.y0, pos.x1 - left, pos.height))
+
+
+def _fit_names(fig, ax, texts, margin: float) -> None:
+    """Widen an equal-aspect map's margins until every name lies inside the axes."""
+    renderer = fig.canvas.get_renderer()
+    ax.margins(margin)
+    for _ in range(3):
+        ax.apply_aspect()
+        box = ax.get_window_extent(renderer)
+        over = 0.0
+        for t in texts:
+            bb = t.get_window_extent(renderer)
+            over = max(over, box.x0 - bb.x0, bb.x1 - box.x1, box.y0 - bb.y0, bb.y1 - box.y1)
+        if over <= 0.5:
+            return
+        # the data span maps to the axes' size less both margins: widen by the overhang
+        margin += (over + 4.0) / min(box.width, box.height) * (1.0 + 2.0 * margin)
+        ax.margins(margin)
+
+
 def _kmh(v_m_s):
     return np.asarray(v_m_s, dtype=np.float64) / KMH_TO_M_S
 
@@ -163,8 +236,8 @@ def speed_figure(distance_m, speed_real_m_s, speed_ideal_m_s, corners) -> bytes:
     bytes
         PNG image, ``FIGURE_SIZE_PX["speed"]`` pixels.
     """
-    fig = _figure("speed", layout="constrained")
-    ax = fig.add_subplot()
+    fig = _figure("speed")
+    ax = _inset_px(fig, left=66, right=22, top=30, bottom=52)
     s = np.asarray(distance_m, dtype=np.float64)
     ax.plot(s, _kmh(speed_ideal_m_s), color=IDEAL, lw=1.8, label="ideal (your envelope)")
     ax.plot(s, _kmh(speed_real_m_s), color=REAL, lw=1.3, label="your lap")
@@ -176,6 +249,7 @@ def speed_figure(distance_m, speed_real_m_s, speed_ideal_m_s, corners) -> bytes:
     ax.set_ylabel("speed [km/h]")
     ax.set_title("Speed along the lap", loc="left")
     ax.legend(loc="lower right", ncols=2)
+    _fit_left(fig, [ax])
     return _png(fig, "speed")
 
 
@@ -198,8 +272,8 @@ def delta_figure(distance_m, time_delta_s, corners) -> bytes:
     bytes
         PNG image, ``FIGURE_SIZE_PX["delta"]`` pixels.
     """
-    fig = _figure("delta", layout="constrained")
-    ax = fig.add_subplot()
+    fig = _figure("delta")
+    ax = _inset_px(fig, left=78, right=22, top=30, bottom=52)
     s = np.asarray(distance_m, dtype=np.float64)
     d = np.asarray(time_delta_s, dtype=np.float64)
     ax.fill_between(s, 0, d, where=d >= 0, color=REAL, alpha=0.18, lw=0, interpolate=True)
@@ -215,6 +289,7 @@ def delta_figure(distance_m, time_delta_s, corners) -> bytes:
     ax.set_ylabel("time delta [s]")
     ax.set_title("Time delta: your lap minus the ideal (rising = losing time)", loc="left")
     ax.legend(loc="lower right")
+    _fit_left(fig, [ax])
     return _png(fig, "delta")
 
 
@@ -232,10 +307,11 @@ def time_left_figure(corners) -> bytes:
     bytes
         PNG image, ``FIGURE_SIZE_PX["time_left"]`` pixels.
     """
-    fig = _figure("time_left", layout="constrained")
-    ax = fig.add_subplot()
+    fig = _figure("time_left")
     ranked = sorted(corners, key=lambda c: -c["time_left_s"])
     names = [c["name"] for c in ranked]
+    name_px = _text_width_px(fig, names, 10 if len(names) <= 18 else 8)
+    ax = _inset_px(fig, left=name_px + _TICK_PX + 8, right=12, top=30, bottom=52)
     values = np.array([c["time_left_s"] for c in ranked], dtype=np.float64)
     y = np.arange(len(ranked))
     colours = [
@@ -321,11 +397,11 @@ def map_figure(x_m, y_m, loss_rate_s_m, corners, distance_m) -> bytes:
     bytes
         PNG image, ``FIGURE_SIZE_PX["map"]`` pixels.
     """
-    fig = _figure("map", layout="constrained")
+    fig = _figure("map")
     from matplotlib.collections import LineCollection
     from matplotlib.colors import LinearSegmentedColormap, TwoSlopeNorm
 
-    ax = fig.add_subplot()
+    ax = _inset_px(fig, left=30, right=30, top=30, bottom=100)
     x = np.asarray(x_m, dtype=np.float64)
     y = np.asarray(y_m, dtype=np.float64)
     rate_ms_m = np.asarray(loss_rate_s_m, dtype=np.float64) * 1e3  # [ms/m] for the scale
@@ -355,6 +431,7 @@ def map_figure(x_m, y_m, loss_rate_s_m, corners, distance_m) -> bytes:
     span = max(np.ptp(x), np.ptp(y))
     tx, ty = np.gradient(x), np.gradient(y)
     kappa = np.gradient(np.unwrap(np.arctan2(ty, tx))) / np.maximum(np.hypot(tx, ty), 1e-9)
+    names = []
     for c in corners:
         i = int(np.argmin(np.abs(s - c["apex_m"])))
         # Label on the outside of the bend: the right-hand normal of a left bend (+kappa).
@@ -362,16 +439,18 @@ def map_figure(x_m, y_m, loss_rate_s_m, corners, distance_m) -> bytes:
         side = -1.0 if kappa[i] >= 0 else 1.0
         dx, dy = -ty[i] / norm * side, tx[i] / norm * side
         off = 0.04 * span
-        ax.annotate(
-            c["name"],
-            (x[i], y[i]),
-            xytext=(x[i] + off * dx, y[i] + off * dy),
-            ha="center",
-            va="center",
-            fontsize=10,
-            fontweight="bold",
-            color=INK,
-            zorder=4,
+        names.append(
+            ax.annotate(
+                c["name"],
+                (x[i], y[i]),
+                xytext=(x[i] + off * dx, y[i] + off * dy),
+                ha="center",
+                va="center",
+                fontsize=10,
+                fontweight="bold",
+                color=INK,
+                zorder=4,
+            )
         )
     ax.plot([x[0]], [y[0]], marker="s", ms=9, color=INK, zorder=5, ls="none", label="start/finish")
     if x.size > 1:
@@ -385,13 +464,15 @@ def map_figure(x_m, y_m, loss_rate_s_m, corners, distance_m) -> bytes:
             zorder=5,
         )
     ax.set_aspect("equal", adjustable="datalim")
-    ax.margins(0.08)
+    _fit_names(fig, ax, names, margin=0.08)
     ax.grid(False)
     ax.set_xticks([])
     ax.set_yticks([])
     for side in ("left", "bottom"):
         ax.spines[side].set_visible(False)
-    cb = fig.colorbar(lc, ax=ax, orientation="horizontal", shrink=0.7, pad=0.02, aspect=40)
+    w_px = fig.bbox.width
+    cax = _axes_px(fig, 0.15 * w_px, 66, 0.70 * w_px, 17)  # 70 % of the width, 40:1
+    cb = fig.colorbar(lc, cax=cax, orientation="horizontal")
     cb.set_label("time lost per metre [ms/m]: orange = time left here, blue = gaining, grey = even")
     ax.set_title("Where the time is left on the lap", loc="left")
     ax.legend(loc="upper right", title="arrow: direction of travel", title_fontsize=9)
@@ -565,8 +646,19 @@ def gg_figure(
     if bands is None:
         bands = speed_bands_m_s(v, n_bands=4)
     bands = list(bands)[:4] or [(0.0, 1.0)]
-    fig = _figure("gg", layout="constrained")
-    axes = fig.subplots(1, len(bands), sharex=True, sharey=True, squeeze=False)[0]
+    fig = _figure("gg")
+    # Square panels side by side, centred; below them the axis labels, then the legend.
+    n = len(bands)
+    left, right, top, bottom, gap = 62, 12, 48, 100, 24
+    avail_w, avail_h = fig.bbox.width - left - right, fig.bbox.height - top - bottom
+    side = min((avail_w - (n - 1) * gap) / n, avail_h)
+    x0 = left + 0.5 * (avail_w - n * side - (n - 1) * gap)
+    y0 = bottom + 0.5 * (avail_h - side)
+    axes = [_axes_px(fig, x0, y0, side, side)]
+    for i in range(1, n):
+        ax = _axes_px(fig, x0 + i * (side + gap), y0, side, side, sharex=axes[0], sharey=axes[0])
+        ax.tick_params(labelleft=False)
+        axes.append(ax)
     angles = np.linspace(-np.pi, np.pi, 721)
     lim = 0.0
     for ax, (lo, hi) in zip(axes, bands, strict=True):
@@ -625,9 +717,7 @@ def gg_figure(
     axes[0].set_ylim(-lim, lim)
     handles, labels = axes[0].get_legend_handles_labels()
     uniq = dict(zip(labels, handles, strict=True))
-    fig.legend(
-        uniq.values(), uniq.keys(), loc="outside lower center", ncols=len(uniq), markerscale=3
-    )
+    fig.legend(uniq.values(), uniq.keys(), loc="lower center", ncols=len(uniq), markerscale=3)
     return _png(fig, "gg")
 
 
@@ -670,8 +760,21 @@ def detail_figure(corner, distance_m, length_m, real, ideal, caption="") -> byte
     bytes
         PNG image, ``FIGURE_SIZE_PX["detail"]`` pixels.
     """
-    fig = _figure("detail", layout="constrained")
-    axes = fig.subplots(3, 1, sharex=True, height_ratios=[2.2, 1, 1])
+    fig = _figure("detail")
+    # Three rows sharing the distance axis, heights 2.2 : 1 : 1, 12 px apart.
+    left, right, top, bottom, gap = 66, 22, 28, 52, 12
+    width = fig.bbox.width - left - right
+    unit = (fig.bbox.height - top - bottom - 2 * gap) / 4.2
+    heights = (2.2 * unit, unit, unit)
+    y_top = fig.bbox.height - top
+    axes = []
+    for h in heights:
+        y_top -= h
+        share = {"sharex": axes[0]} if axes else {}
+        axes.append(_axes_px(fig, left, y_top, width, h, **share))
+        y_top -= gap
+    for a in axes[:-1]:
+        a.tick_params(labelbottom=False)
     idx, s = _window(distance_m, corner["start_m"], corner["end_m"], length_m)
     if idx.size < 2:
         idx = np.arange(np.asarray(distance_m).size)
@@ -738,6 +841,7 @@ def detail_figure(corner, distance_m, length_m, real, ideal, caption="") -> byte
 
     # Past the gate the axis runs on; the labels stay distances from the gate.
     axes[2].xaxis.set_major_formatter(FuncFormatter(lambda x, _pos: f"{x % length_m:.0f}"))
+    _fit_left(fig, axes)
     title = caption or corner["name"]
     axes[0].set_title(title if len(title) < 130 else title[:127] + "...", loc="left", fontsize=11)
     return _png(fig, "detail")
@@ -765,9 +869,23 @@ def best_figure(corners, lap_time_s, best_time_s, ideal_time_s, lap_label="this 
     bytes
         PNG image, ``FIGURE_SIZE_PX["best"]`` pixels.
     """
-    fig = _figure("best", layout="constrained")
-    left, right = fig.subplots(1, 2, width_ratios=[1, 2.6])
+    fig = _figure("best")
     labels = [lap_label, "best of your laps", "ideal (limit)"]
+    # Whole lap on the left (width 1), per corner on the right (2.6); the gap holds the
+    # right panel's tick labels and axis label.
+    margin_l = _text_width_px(fig, labels, 11) + _TICK_PX + 8
+    gap, margin_r, top, bottom = 84, 12, 30, 52
+    unit = (fig.bbox.width - margin_l - margin_r - gap) / 3.6
+    # Corner names wider than their place under the bars are set at 30 degrees.
+    names = [c["name"] for c in corners]
+    name_size = 10 if len(names) <= 16 else 8
+    name_px = _text_width_px(fig, names, name_size)
+    tilt = name_px > 0.9 * 2.6 * unit / max(len(names), 1)
+    if tilt:  # the slanted names' height (w sin 30 + h cos 30) below the ticks
+        bottom = max(bottom, _TICK_PX + 0.5 * name_px + 0.87 * 1.4 * name_size + 8)
+    height = fig.bbox.height - top - bottom
+    left = _axes_px(fig, margin_l, bottom, unit, height)
+    right = _axes_px(fig, margin_l + unit + gap, bottom, 2.6 * unit, height)
     values = [lap_time_s, best_time_s, ideal_time_s]
     colours = [REAL, BEST, IDEAL]
     above = [v - ideal_time_s if v is not None and np.isfinite(v) else np.nan for v in values]
@@ -797,7 +915,6 @@ def best_figure(corners, lap_time_s, best_time_s, ideal_time_s, lap_label="this 
     left.set_xlabel("time above the ideal lap [s]")
     left.set_title("Whole lap", loc="left")
 
-    names = [c["name"] for c in corners]
     x = np.arange(len(corners))
     this = np.array([c["actual_s"] - c["ideal_s"] for c in corners], dtype=np.float64)
     best = np.array([c.get("best_s", np.nan) - c["ideal_s"] for c in corners], dtype=np.float64)
@@ -807,7 +924,12 @@ def best_figure(corners, lap_time_s, best_time_s, ideal_time_s, lap_label="this 
         x + w / 2, np.nan_to_num(best), w, color=BEST, label="your best segment above the limit"
     )
     right.axhline(0.0, color=IDEAL, lw=1.5, label="ideal (limit)")
-    right.set_xticks(x, names, fontsize=10 if len(names) <= 16 else 8)
+    if tilt:
+        right.set_xticks(
+            x, names, fontsize=name_size, rotation=30, ha="right", rotation_mode="anchor"
+        )
+    else:
+        right.set_xticks(x, names, fontsize=name_size)
     right.set_ylabel("time above the ideal [s]")
     right.grid(axis="x", visible=False)
     right.legend(loc="upper right", fontsize=9)
