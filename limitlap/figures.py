@@ -100,14 +100,24 @@ def _figure(kind: str, **kwargs):
 
 
 def _png(fig, kind: str) -> bytes:
-    """Render to PNG bytes at the figure's fixed size."""
-    buf = io.BytesIO()
+    """Render to PNG bytes at the figure's fixed size.
+
+    The figure is opaque, so the PNG holds RGB without the alpha channel, at zlib level 3:
+    the same pixels as matplotlib's own RGBA at level 6 in files of about the same size,
+    encoded in about half the time.
+    """
+    from PIL import Image
+
     dpi = SHEET_DPI if kind == "target_sheet" else DPI
-    fig.savefig(buf, format="png", dpi=dpi, metadata={"Software": None})
+    fig.canvas.draw()
+    rgb = np.asarray(fig.canvas.buffer_rgba())[..., :3]
+    buf = io.BytesIO()
+    Image.fromarray(rgb).save(buf, format="png", compress_level=3, dpi=(dpi, dpi))
     return buf.getvalue()
 
 
-# Fixed layout. Every figure has a fixed pixel size and fixed fonts, so its axes sit at
+# Fixed layout (titles too: ``y=1.0`` puts a title where matplotlib's own placement would,
+# above an axes without top tick labels, without measuring the axes for it). Every figure has a fixed pixel size and fixed fonts, so its axes sit at
 # fixed places (pixel margins below) instead of being fitted by a layout engine, which
 # draws the whole figure once more to measure it. The margins hold the tick labels and
 # axis labels at the style's font sizes (11 pt = 15 px at 100 dpi); labels whose width
@@ -335,7 +345,9 @@ def time_left_figure(corners) -> bytes:
     ax.axvline(0.0, color="#888888", lw=0.8)
     ax.set_xlabel("time left to the ideal [s]")
     ax.set_title(
-        f"Time left per corner, ranked (total {values.sum():.2f} s; top three darker)", loc="left"
+        f"Time left per corner, ranked (total {values.sum():.2f} s; top three darker)",
+        loc="left",
+        y=1.0,
     )
     return _png(fig, "time_left")
 
