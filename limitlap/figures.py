@@ -257,7 +257,7 @@ def speed_figure(distance_m, speed_real_m_s, speed_ideal_m_s, corners) -> bytes:
     _corner_bands(ax, corners, label_y=top * 1.02)
     ax.set_xlabel("distance from the start/finish gate [m]")
     ax.set_ylabel("speed [km/h]")
-    ax.set_title("Speed along the lap", loc="left")
+    ax.set_title("Speed along the lap", loc="left", y=1.0)
     ax.legend(loc="lower right", ncols=2)
     _fit_left(fig, [ax])
     return _png(fig, "speed")
@@ -297,7 +297,7 @@ def delta_figure(distance_m, time_delta_s, corners) -> bytes:
     _corner_bands(ax, corners, label_y=hi + 0.06 * span)
     ax.set_xlabel("distance from the start/finish gate [m]")
     ax.set_ylabel("time delta [s]")
-    ax.set_title("Time delta: your lap minus the ideal (rising = losing time)", loc="left")
+    ax.set_title("Time delta: your lap minus the ideal (rising = losing time)", loc="left", y=1.0)
     ax.legend(loc="lower right")
     _fit_left(fig, [ax])
     return _png(fig, "delta")
@@ -486,7 +486,7 @@ def map_figure(x_m, y_m, loss_rate_s_m, corners, distance_m) -> bytes:
     cax = _axes_px(fig, 0.15 * w_px, 66, 0.70 * w_px, 17)  # 70 % of the width, 40:1
     cb = fig.colorbar(lc, cax=cax, orientation="horizontal")
     cb.set_label("time lost per metre [ms/m]: orange = time left here, blue = gaining, grey = even")
-    ax.set_title("Where the time is left on the lap", loc="left")
+    ax.set_title("Where the time is left on the lap", loc="left", y=1.0)
     ax.legend(loc="upper right", title="arrow: direction of travel", title_fontsize=9)
     return _png(fig, "map")
 
@@ -718,7 +718,7 @@ def gg_figure(
                 label="fit points",
             )
         lim = max(lim, float(np.max(np.abs(ey))) / G0_M_S2, float(np.max(np.abs(ex))) / G0_M_S2)
-        ax.set_title(title, fontsize=10)
+        ax.set_title(title, fontsize=10, y=1.0)
         ax.set_xlabel("lateral [g] (+ left)")
         ax.axhline(0, color="#999999", lw=0.6)
         ax.axvline(0, color="#999999", lw=0.6)
@@ -855,7 +855,9 @@ def detail_figure(corner, distance_m, length_m, real, ideal, caption="") -> byte
     axes[2].xaxis.set_major_formatter(FuncFormatter(lambda x, _pos: f"{x % length_m:.0f}"))
     _fit_left(fig, axes)
     title = caption or corner["name"]
-    axes[0].set_title(title if len(title) < 130 else title[:127] + "...", loc="left", fontsize=11)
+    axes[0].set_title(
+        title if len(title) < 130 else title[:127] + "...", loc="left", fontsize=11, y=1.0
+    )
     return _png(fig, "detail")
 
 
@@ -925,7 +927,7 @@ def best_figure(corners, lap_time_s, best_time_s, ideal_time_s, lap_label="this 
     left.grid(axis="y", visible=False)
     left.set_xlim(0, top * 1.9)
     left.set_xlabel("time above the ideal lap [s]")
-    left.set_title("Whole lap", loc="left")
+    left.set_title("Whole lap", loc="left", y=1.0)
 
     x = np.arange(len(corners))
     this = np.array([c["actual_s"] - c["ideal_s"] for c in corners], dtype=np.float64)
@@ -946,7 +948,7 @@ def best_figure(corners, lap_time_s, best_time_s, ideal_time_s, lap_label="this 
     right.grid(axis="x", visible=False)
     right.legend(loc="upper right", fontsize=9)
     right.set_title(
-        "Per corner: what you have already done against what the grip allows", loc="left"
+        "Per corner: what you have already done against what the grip allows", loc="left", y=1.0
     )
     return _png(fig, "best")
 
