@@ -25,6 +25,7 @@ import functools
 import io
 import itertools
 import math
+import threading
 
 import numpy as np
 
@@ -74,6 +75,11 @@ _STYLE = {
 }
 
 
+# rcParams are one dict per process: threads (e.g. a Dask worker's) draw one at a time, so
+# one figure's style context cannot end while another figure is being drawn.
+_STYLE_LOCK = threading.RLock()
+
+
 def _styled(draw):
     """Run a figure function inside the report's matplotlib style (imported on first use)."""
 
@@ -81,7 +87,7 @@ def _styled(draw):
     def wrapper(*args, **kwargs):
         import matplotlib
 
-        with matplotlib.rc_context(_STYLE):
+        with _STYLE_LOCK, matplotlib.rc_context(_STYLE):
             return draw(*args, **kwargs)
 
     return wrapper
