@@ -587,7 +587,8 @@ def reconstruct_lap(log, lap, spacing_m: float = 1.0) -> DrivenLap:
             warnings.append(
                 f"{log.path}: lap {lap.number}: curvature from '{name}' agrees poorly with "
                 f"the GNSS path (correlation {fig['correlation']:.2f}, "
-                f"RMS {fig['relative_rms']:.0%} of the curvature)"
+                f"RMS {fig['relative_rms']:.0%} of the curvature; the report's data-check "
+                "figure shows where)"
             )
     if math.hypot(gap_x, gap_y) > 5.0:
         warnings.append(

@@ -598,7 +598,7 @@ def fit_envelope(
         warnings.append(
             f"speed band{'s' if len(sparse) > 1 else ''} {', '.join(sparse)} m/s: fewer than "
             f"{min_near_limit} samples within 5 % of the fitted limit; the envelope there "
-            "rests on the neighbouring bands"
+            "rests on the neighbouring bands (the g-g diagram shows the samples)"
         )
     warnings.extend(_plausibility(veh, v, names, uncertainty))
     quality = {

@@ -52,6 +52,7 @@ FIGURE_SIZE_PX = {
     "gg": (1400, 520),
     "detail": (1200, 640),
     "best": (1200, 520),
+    "check": (1200, 420),
     "target_sheet": (1240, 1754),  # A4 portrait at 150 dpi (the sheet is drawn at 150 dpi)
 }
 #: Resolution of the printable target sheet: A4 = 8.27 x 11.69 in. [dots per inch]
@@ -307,6 +308,59 @@ def delta_figure(distance_m, time_delta_s, corners) -> bytes:
     ax.legend(loc="lower right")
     _fit_left(fig, [ax])
     return _png(fig, "delta")
+
+
+@_styled
+def curvature_check_figure(
+    distance_m, curvature_line_1_m, curvature_ay_1_m, curvature_yaw_1_m, corners, title
+) -> bytes:
+    """Data check: the rebuilt line's curvature against a_y/v² and yaw rate/v.
+
+    The three are the same quantity measured three ways (κ = a_n/v² = χ̇/v; REFERENCES §3.1
+    identities), so they should lie on top of one another; where they part, the line, and
+    every result built on it, is less certain there.
+
+    Parameters
+    ----------
+    distance_m : array-like
+        Stations along the lap. [m]
+    curvature_line_1_m, curvature_ay_1_m, curvature_yaw_1_m : array-like
+        Curvature of the rebuilt line, from lateral acceleration and from yaw rate
+        (NaN where a channel is missing or the car is slow). [1/m]
+    corners : list of dict
+        Corner segments as for :func:`speed_figure`.
+    title : str
+        Figure title (the agreement figures).
+
+    Returns
+    -------
+    bytes
+        PNG image, ``FIGURE_SIZE_PX["check"]`` pixels.
+    """
+    fig = _figure("check")
+    ax = _inset_px(fig, left=78, right=22, top=30, bottom=52)
+    s = np.asarray(distance_m, dtype=np.float64)
+    k_line = 1000.0 * np.asarray(curvature_line_1_m, dtype=np.float64)
+    ax.plot(s, k_line, color=INK, lw=1.6, label="rebuilt line (GNSS + inertial)")
+    for values, colour, label in (
+        (curvature_ay_1_m, ACCENT, "a_y / v²"),
+        (curvature_yaw_1_m, BEST, "yaw rate / v"),
+    ):
+        k = 1000.0 * np.asarray(values, dtype=np.float64)
+        if np.isfinite(k).any():
+            ax.plot(s, k, color=colour, lw=1.0, alpha=0.9, label=label)
+    finite = np.concatenate([k_line[np.isfinite(k_line)], [0.0]])
+    lo, hi = float(finite.min()), float(finite.max())
+    span = max(hi - lo, 1e-3)
+    ax.set_ylim(lo - 0.08 * span, hi + 0.2 * span)
+    ax.set_xlim(s[0], s[-1])
+    _corner_bands(ax, corners, label_y=hi + 0.08 * span)
+    ax.set_xlabel("distance from the start/finish gate [m]")
+    ax.set_ylabel("curvature [1/km] (+ left)")
+    ax.set_title(title, loc="left", y=1.0)
+    ax.legend(loc="lower right", ncol=3)
+    _fit_left(fig, [ax])
+    return _png(fig, "check")
 
 
 @_styled

@@ -513,6 +513,8 @@ class _View:
     best_time_s: float
     warnings: list
     n_laps: int
+    yaw_rate_rad_s: np.ndarray | None = None
+    agreement: dict | None = None
 
 
 def _array(obj, name, n):
@@ -615,6 +617,8 @@ def _view(analysis) -> _View:
         best_time_s=_best_of_laps(_get(analysis, "best_of_laps"), corners),
         warnings=warnings,
         n_laps=sum(1 for lp in laps if _get(lp, "complete", default=False)),
+        yaw_rate_rad_s=_array(driven, "yaw_rate_rad_s", n),
+        agreement=_get(driven, "agreement"),
     )
 
 
@@ -847,6 +851,19 @@ def _figures(v: _View, step):
                 fg.detail_figure(c, v.distance_m, v.length_m, real, ideal, caption=c["plain"]),
             )
         )
+    check = _curvature_check(v)
+    if check is not None:
+        step("data check figure")
+        title, k_ay, k_yaw = check
+        out.append(
+            (
+                "data_check.png",
+                "Data check: the rebuilt line's curvature against lateral acceleration / v² "
+                "and yaw rate / v. They measure the same thing and should lie on one "
+                "another; where they part, the line and every result on it are less certain.",
+                fg.curvature_check_figure(v.distance_m, v.curvature_1_m, k_ay, k_yaw, corners, title),
+            )
+        )
     if math.isfinite(v.best_time_s) and corners:
         step("best-of-laps figure")
         out.append(
@@ -863,6 +880,43 @@ def _figures(v: _View, step):
             )
         )
     return out
+
+
+def _curvature_check(v: _View):
+    """(title, κ from a_y/v², κ from r/v) for the data-check figure, or None without
+    inertial channels. Smoothed as the line's own cross-check (driven.py); NaN below
+    10 m/s, where dividing by v² magnifies noise."""
+    from scipy.ndimage import gaussian_filter1d
+
+    from limitlap.driven import CURVATURE_SMOOTHING_M
+
+    speed = v.speed_real_m_s
+    fast = np.isfinite(speed) & (speed > 10.0)
+    series = []
+    for values, denom in ((v.ay_real_m_s2, speed**2), (v.yaw_rate_rad_s, speed)):
+        if values is None or not np.isfinite(values).any():
+            series.append(np.full(speed.shape, np.nan))
+            continue
+        with np.errstate(divide="ignore", invalid="ignore"):
+            k = np.where(fast, values / denom, 0.0)
+        step = float(np.median(np.diff(v.distance_m))) if v.distance_m.size > 1 else 1.0
+        k = gaussian_filter1d(
+            np.nan_to_num(k), CURVATURE_SMOOTHING_M / max(step, 1e-6), mode="wrap"
+        )
+        series.append(np.where(fast, k, np.nan))
+    if not any(np.isfinite(k).any() for k in series):
+        return None
+    parts = []
+    agreement = v.agreement or {}
+    for name, label in (("accel_lat", "a_y/v²"), ("yaw_rate", "yaw rate/v")):
+        fig = agreement.get(f"line_vs_{name}")
+        if isinstance(fig, dict) and "correlation" in fig:
+            parts.append(
+                f"{label}: correlation {fig['correlation']:.3f}, RMS "
+                f"{fig.get('relative_rms', float('nan')):.0%}"
+            )
+    title = "Data check: curvature three ways" + (" — " + "; ".join(parts) if parts else "")
+    return title, series[0], series[1]
 
 
 # --------------------------------------------------------------------------- report.html
@@ -1067,6 +1121,7 @@ def write_outputs(
             + 1
             + min(3, len(v.corners))
             + (math.isfinite(v.best_time_s) and bool(v.corners))
+            + (_curvature_check(v) is not None)
         )
         if figures
         else 0

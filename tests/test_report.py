@@ -409,6 +409,7 @@ def test_every_png_is_a_real_png_of_the_expected_size(written):
         "map.png": "map",
         "gg.png": "gg",
         "best_of_laps.png": "best",
+        "data_check.png": "check",
     }
     import base64
 
