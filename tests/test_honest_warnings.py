@@ -68,7 +68,16 @@ def test_poor_curvature_agreement_is_reported(tmp_path, capsys, monkeypatch):
     poor = [w for w in warnings if "agrees poorly with the GNSS path" in w]
     assert poor and all(w.startswith(f"{log}: lap ") and "'accel_lat'" in w for w in poor)
     # ... with the figure that shows it (issue 7): the data-check panel is in the report
-    assert "data-check figure" in poor[0] and "Data check: the rebuilt line" in page
+    assert "data-check figure" in poor[0]
+    out = tmp_path / "with_figures"
+    code, _, err_fig = run_cli(
+        ["analyse", log, "--gate", demo_gate(), "--out", out, "--quiet", "--channels", cmap],
+        capsys,
+        monkeypatch,
+    )
+    assert code == 0, err_fig
+    assert (out / "data_check.png").is_file()
+    assert "Data check: the rebuilt line" in (out / "report.html").read_text()
     sign = [w for w in warnings if "does not follow the GNSS course" in w]
     assert sign and "sign convention?" in sign[0]
     for w in poor + sign:
