@@ -65,19 +65,7 @@ def read_vehicle(path, *, require_complete: bool = True) -> Vehicle:
         In SI (power in W).
     """
     path = Path(path)
-    try:
-        with path.open("rb") as fh:
-            data = tomllib.load(fh)
-    except FileNotFoundError:
-        raise InputError(path, "file not found") from None
-    except IsADirectoryError:
-        raise InputError(path, "is a folder, not a vehicle file") from None
-    except OSError as err:
-        raise InputError(path, f"cannot be read: {err.strerror}") from err
-    except tomllib.TOMLDecodeError as err:
-        raise InputError(path, f"not valid TOML: {err}") from err
-    except UnicodeDecodeError as err:
-        raise InputError(path, "not valid TOML: not UTF-8 text") from err
+    data = _open_toml(path, "vehicle file")
     fields: dict = {}
     name = data.get("name", path.stem)
     if not isinstance(name, str):
@@ -961,15 +949,7 @@ def read_track(path) -> Track:
     """Read a track file: ``name``, ``[gate] latitude/longitude``, ``[[corners]] name,
     label, apex_m``, ``line`` (a line file beside it)."""
     path = Path(path)
-    try:
-        with path.open("rb") as fh:
-            data = tomllib.load(fh)
-    except FileNotFoundError:
-        raise InputError(path, "file not found") from None
-    except OSError as err:
-        raise InputError(path, f"cannot be read: {err.strerror}") from err
-    except tomllib.TOMLDecodeError as err:
-        raise InputError(path, f"not valid TOML: {err}") from err
+    data = _open_toml(path, "track file")
     gate = data.get("gate")
     gate_latlon = None
     if gate is not None:
