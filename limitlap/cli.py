@@ -71,7 +71,7 @@ def solve(
     if out is not None:
         from limitlap import report
 
-        report.write_atomic(out, solver.profile_csv_text(profile, the_line))
+        report.write_atomic(out, report.solve_profile_csv_text(profile, the_line))
     result = {
         "lap_time_s": round(profile.lap_time_s, 3),
         "min_speed_kmh": round(_kmh(float(profile.speed_m_s.min())), 2),

@@ -29,7 +29,7 @@ from __future__ import annotations
 import itertools
 import math
 from collections.abc import Mapping, Sequence
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 
 import numpy as np
 from scipy.ndimage import gaussian_filter1d
@@ -356,34 +356,11 @@ def find_corners(
     names = [str(x) for x in names]
     if len(names) != len(out):
         raise LimitlapError(f"{len(names)} corner names given but the line has {len(out)} corners")
-    return [
-        Corner(
-            nm,
-            c.start_m,
-            c.apex_m,
-            c.apexes_m,
-            c.end_m,
-            c.turn_in_m,
-            c.exit_m,
-            c.direction,
-            c.peak_curvature_1_m,
-        )
-        for nm, c in zip(names, out, strict=True)
-    ]
+    return [_renamed(c, nm) for nm, c in zip(names, out, strict=True)]
 
 
 def _renamed(c: Corner, name: str) -> Corner:
-    return Corner(
-        name,
-        c.start_m,
-        c.apex_m,
-        c.apexes_m,
-        c.end_m,
-        c.turn_in_m,
-        c.exit_m,
-        c.direction,
-        c.peak_curvature_1_m,
-    )
+    return replace(c, name=name)
 
 
 def _place_named_apexes(zones, named, u, idx, mag, ks, length, closed, slack_m=10.0, snap_m=15.0):

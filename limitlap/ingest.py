@@ -7,15 +7,20 @@ reading.
 
 from __future__ import annotations
 
+import csv
+import gzip
 import math
+import re
 import tomllib
+import zlib
+from dataclasses import dataclass, field
 from pathlib import Path
 
 import numpy as np
 
 from limitlap.errors import InputError, LimitlapError
 from limitlap.line import Line, line_from_curvature, line_from_xy, self_intersects
-from limitlap.units import KW_TO_W, RHO_ISA_KG_M3
+from limitlap.units import CHANNEL_UNITS, KW_TO_W, RHO_ISA_KG_M3
 from limitlap.vehicle import Vehicle
 
 # --------------------------------------------------------------------------- vehicles
@@ -172,8 +177,6 @@ def read_line(path, *, spacing_m: float = 1.0) -> Line:
 
 # --------------------------------------------------------------------------- session logs
 
-from dataclasses import dataclass, field  # noqa: E402
-
 
 @dataclass(frozen=True, eq=False)
 class Log:
@@ -217,13 +220,6 @@ class Log:
 
 
 # --------------------------------------------------------------------------- channel maps
-
-import csv  # noqa: E402
-import gzip  # noqa: E402
-import re  # noqa: E402
-import zlib  # noqa: E402
-
-from limitlap.units import CHANNEL_UNITS  # noqa: E402
 
 #: Spellings of units seen in logger exports -> the spelling used in ``CHANNEL_UNITS``
 #: (compared after lower-casing and removing spaces).

@@ -383,9 +383,8 @@ def line_from_source(source, *, lap: int | None = None, gate=None, channels=None
         The line and a description of where it came from.
     """
     path = Path(source)
-    name = path.name.lower()
-    if name.endswith((".csv", ".csv.gz")) and not name.endswith(".gz"):
-        # A small CSV may be a line file or a log: decide from its header.
+    if path.name.lower().endswith(".csv"):
+        # A plain CSV may be a line file or a log: decide from its header.
         try:
             with path.open("r", encoding="utf-8-sig") as fh:
                 header = fh.readline().lower()
@@ -410,8 +409,6 @@ def line_from_source(source, *, lap: int | None = None, gate=None, channels=None
 
 
 def require_vehicle_with_grip(path) -> Vehicle:
-    """A complete vehicle (or envelope.toml) for the targets command."""
-    car = ingest.read_vehicle(path, require_complete=True)
-    if not car.is_complete:
-        raise LimitlapError(f"{path}: the vehicle needs every key and a [grip] table")
-    return car
+    """A complete vehicle (or envelope.toml) for the targets command; the reader names
+    any missing key or [grip] table."""
+    return ingest.read_vehicle(path, require_complete=True)

@@ -358,6 +358,28 @@ def profile_csv_text(columns: Mapping, units: Mapping) -> str:
     return "\n".join([header, *body]) + "\n"
 
 
+def solve_profile_csv_text(profile, line=None) -> str:
+    """``limitlap solve --out``: a solved profile as CSV with unit brackets.
+
+    Columns distance [m], speed [km/h], accel_lon [m/s^2], accel_lat [m/s^2], time [s],
+    speed_limit [km/h], and curvature [1/m] when the line is given.
+    """
+    columns = {
+        "distance": profile.distance_m,
+        "speed": np.asarray(profile.speed_m_s) / KMH_TO_M_S,
+        "accel_lon": profile.accel_lon_m_s2,
+        "accel_lat": profile.accel_lat_m_s2,
+        "time": profile.time_s,
+        "speed_limit": np.asarray(profile.speed_limit_m_s) / KMH_TO_M_S,
+    }
+    units = {"distance": "m", "speed": "km/h", "accel_lon": "m/s^2", "accel_lat": "m/s^2",
+             "time": "s", "speed_limit": "km/h"}
+    if line is not None:
+        columns["curvature"] = line.curvature_1_m
+        units["curvature"] = "1/m"
+    return profile_csv_text(columns, units)
+
+
 # --------------------------------------------------------------------------- reading the analysis
 
 

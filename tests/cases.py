@@ -1,11 +1,12 @@
-"""Shared test cases: analytic lines and reference cars."""
+"""Shared test cases: analytic lines, reference cars and the envelope check."""
 
 import math
 
 import numpy as np
 
-
+from limitlap import limits
 from limitlap.line import line_from_curvature
+from limitlap.units import V_CAP_M_S
 from limitlap.vehicle import Vehicle
 
 
@@ -57,3 +58,78 @@ def random_smooth_loop(seed, n=1200, base_radius_m=180.0):
     for h in range(2, 6):
         r += base_radius_m * rng.uniform(-0.12, 0.12) / h * np.cos(h * t + rng.uniform(0, 2 * math.pi))
     return line_from_xy(r * np.cos(t), r * np.sin(t), spacing_m=1.0)
+
+
+# Straights ("s", length m) and arcs (radius m, turn deg, +1 left / -1 right). The turns
+# add up to +360 deg so the layout closes as a lap. The 20 m straight between the R=90
+# and R=70 left-handers makes one corner with two apexes (under the 50 m merge gap).
+ARCS_LAYOUT = [
+    ("s", 250.0),
+    (40.0, 90.0, +1),
+    ("s", 150.0),
+    (90.0, 60.0, +1),
+    ("s", 20.0),
+    (70.0, 60.0, +1),
+    ("s", 200.0),
+    (30.0, 90.0, -1),
+    ("s", 120.0),
+    (50.0, 150.0, +1),
+    ("s", 100.0),
+    (120.0, 90.0, +1),
+]
+
+
+def layout_line(layout, ds=1.0, rotate_m=0.0):
+    """Closed line of a straights-and-arcs layout and its arcs as (start_m, end_m,
+    curvature_1_m); ``rotate_m`` moves the first station (the gate) along the lap."""
+    k, arcs, pos = [], [], 0.0
+    for piece in layout:
+        if piece[0] == "s":
+            n = round(piece[1] / ds)
+            k += [0.0] * n
+        else:
+            radius, turn, sign = piece
+            n = round(radius * math.radians(turn) / ds)
+            k += [sign / radius] * n
+            arcs.append((pos, pos + n * ds, sign / radius))
+        pos += n * ds
+    k = np.array(k)
+    shift = round(rotate_m / ds)
+    k = np.roll(k, -shift)
+    length = k.size * ds
+    arcs = [((a - shift * ds) % length, (b - shift * ds) % length, c) for a, b, c in arcs]
+    return line_from_curvature(np.arange(k.size) * ds, k, length_m=length), arcs
+
+
+def assert_inside_envelope(line, car, k, profile, combined_tol=1e-2):
+    """Speeds finite, positive, at most the cap; lateral demand within the lateral limit
+    at every station; combined usage of each step within the limit at one of its ends
+    (default tolerance 1e-2: a second-order step averages the limits at its two ends, so
+    it may use a little more than the limit at one end and less at the other)."""
+    v = profile.speed_m_s
+    assert v.shape == (line.n,)
+    assert np.isfinite(v).all() and (v >= 0).all() and (v <= V_CAP_M_S * (1 + 1e-12)).all()
+    # an open line may reach a standstill (a crest climbed at walking pace, a car that
+    # coasts to a stop at its end); a lap never stands still
+    if line.closed:
+        assert (v > 0).all()
+    assert np.isfinite(profile.time_s).all() and math.isfinite(profile.lap_time_s)
+    scaled = car.scaled(k)
+    lateral = np.abs(profile.accel_lat_m_s2) / limits.lateral_limit_m_s2(v, scaled)
+    assert lateral.max() <= 1 + 1e-9  # rounding only: the corner limit is solved exactly
+    grad = np.asarray(line.gradient, dtype=np.float64)
+    sin_grad = grad / np.sqrt(1.0 + grad * grad)
+    use_here = limits.combined_usage(
+        v, profile.accel_lon_m_s2, profile.accel_lat_m_s2, scaled, sin_grad
+    )
+    use_next = limits.combined_usage(
+        np.roll(v, -1),
+        profile.accel_lon_m_s2,
+        np.roll(profile.accel_lat_m_s2, -1),
+        scaled,
+        np.roll(sin_grad, -1),
+    )
+    both = np.minimum(use_here, use_next)
+    if not line.closed:
+        both = both[:-1]  # the last station of an open line has no step after it
+    assert both.max() <= 1 + combined_tol

@@ -6,7 +6,7 @@ from __future__ import annotations
 import math
 
 
-def _share(u, n):  # noqa: D103
+def _share(u, n):
     return 0.0 if u >= 1.0 else (1.0 - u**n) ** (1.0 / n)
 
 
@@ -29,7 +29,7 @@ def solve_closed(curvature, ds, p, v_cap):
     """Speed profile on a closed lap (level): trapezoidal predictor-corrector in b = v²
     carrying each station's evaluated acceleration (PEC), periodic start at the slowest
     cornering limit, repeated until the lap arrives back at its own start speed."""
-    m, P, cda, cla, crr, rho, mu_y, mu_b, mu_t, n, g = p
+    m, _, _, cla, _, rho, mu_y, _, _, _, g = p  # the rest is read by _limits
     N = len(curvature)
     kz = 0.5 * rho * cla / m
     blim = []
@@ -64,7 +64,7 @@ def solve_closed(curvature, ds, p, v_cap):
             arrival = lap(trace, direction, which)
         out.append(trace)
     fwd, bwd = out
-    v = [math.sqrt(min(a, b)) for a, b in zip(fwd, bwd)]
+    v = [math.sqrt(min(a, b)) for a, b in zip(fwd, bwd, strict=True)]
     t = 0.0
     for i in range(N):
         t += 2 * ds[i] / (v[i] + v[(i + 1) % N])

@@ -17,50 +17,18 @@ from limitlap import compare, solve
 from limitlap.errors import LimitlapError
 from limitlap.line import Line, line_from_curvature
 from limitlap.units import G0_M_S2, KMH_TO_M_S
-from tests.cases import EXAMPLE_CAR, friction_car
+from tests.cases import ARCS_LAYOUT, EXAMPLE_CAR, friction_car, layout_line
 
 DS = 1.0  # station spacing of every test line [m]
 
-# Straights ("s", length m) and arcs (radius m, turn deg, +1 left / -1 right). The turns
-# add up to +360 deg so the layout closes as a lap. The 20 m straight between the R=90
-# and R=70 left-handers makes one corner with two apexes (under the 50 m merge gap).
-LAYOUT = [
-    ("s", 250.0),
-    (40.0, 90.0, +1),
-    ("s", 150.0),
-    (90.0, 60.0, +1),
-    ("s", 20.0),
-    (70.0, 60.0, +1),
-    ("s", 200.0),
-    (30.0, 90.0, -1),
-    ("s", 120.0),
-    (50.0, 150.0, +1),
-    ("s", 100.0),
-    (120.0, 90.0, +1),
-]
+LAYOUT = ARCS_LAYOUT
 
 CAR = friction_car(mu=1.2, mu_brk=1.3, mu_trac=1.1)  # no power limit, drag or downforce
 
 
 def build(layout, ds=DS, rotate_m=0.0):
-    """Closed line of the layout and its arcs as (start_m, end_m, curvature_1_m)."""
-    k, arcs, pos = [], [], 0.0
-    for piece in layout:
-        if piece[0] == "s":
-            n = round(piece[1] / ds)
-            k += [0.0] * n
-        else:
-            radius, turn, sign = piece
-            n = round(radius * math.radians(turn) / ds)
-            k += [sign / radius] * n
-            arcs.append((pos, pos + n * ds, sign / radius))
-        pos += n * ds
-    k = np.array(k)
-    shift = round(rotate_m / ds)
-    k = np.roll(k, -shift)
-    length = k.size * ds
-    arcs = [((a - shift * ds) % length, (b - shift * ds) % length, c) for a, b, c in arcs]
-    return line_from_curvature(np.arange(k.size) * ds, k, length_m=length), arcs
+    """Closed line of the layout and its arcs (tests/cases.py)."""
+    return layout_line(layout, ds, rotate_m)
 
 
 @dataclass

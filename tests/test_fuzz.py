@@ -16,13 +16,13 @@ import numpy as np
 from hypothesis import HealthCheck, assume, given, settings
 from hypothesis import strategies as st
 
-from limitlap import limits, solve
+from limitlap import solve
 from limitlap.errors import InputError, LimitlapError
 from limitlap.ingest import fill_position, gps_dropouts, read_line, read_log, read_vehicle
 from limitlap.laps import split_laps
 from limitlap.line import line_from_curvature, line_from_xy
-from limitlap.units import V_CAP_M_S
 from limitlap.vehicle import Vehicle
+from tests.cases import assert_inside_envelope
 
 FAST = settings(
     max_examples=50,
@@ -256,39 +256,6 @@ envelopes = st.builds(
     n=st.floats(1.0, 4.0),
 )
 
-
-def assert_inside_envelope(line, car, k, profile, combined_tol=1e-2):
-    """Speeds finite, positive, at most the cap; lateral demand within the lateral limit
-    at every station; combined usage of each step within the limit at one of its ends
-    (tolerance as tests/test_solve.py::test_property_profile_stays_inside_envelope: a
-    Heun step averages the limits at its two ends, 1e-2)."""
-    v = profile.speed_m_s
-    assert v.shape == (line.n,)
-    assert np.isfinite(v).all() and (v >= 0).all() and (v <= V_CAP_M_S * (1 + 1e-12)).all()
-    # an open line may reach a standstill (a crest climbed at walking pace, a car that
-    # coasts to a stop at its end); a lap never stands still
-    if line.closed:
-        assert (v > 0).all()
-    assert np.isfinite(profile.time_s).all() and math.isfinite(profile.lap_time_s)
-    scaled = car.scaled(k)
-    lateral = np.abs(profile.accel_lat_m_s2) / limits.lateral_limit_m_s2(v, scaled)
-    assert lateral.max() <= 1 + 1e-9  # rounding only: the corner limit is solved exactly
-    grad = np.asarray(line.gradient, dtype=np.float64)
-    sin_grad = grad / np.sqrt(1.0 + grad * grad)
-    use_here = limits.combined_usage(
-        v, profile.accel_lon_m_s2, profile.accel_lat_m_s2, scaled, sin_grad
-    )
-    use_next = limits.combined_usage(
-        np.roll(v, -1),
-        profile.accel_lon_m_s2,
-        np.roll(profile.accel_lat_m_s2, -1),
-        scaled,
-        np.roll(sin_grad, -1),
-    )
-    both = np.minimum(use_here, use_next)
-    if not line.closed:
-        both = both[:-1]  # the last station of an open line has no step after it
-    assert both.max() <= 1 + combined_tol
 
 
 #: Combined-usage tolerance on random lines. The 1e-2 of tests/test_solve.py (a Heun

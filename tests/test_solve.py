@@ -13,7 +13,15 @@ from limitlap.line import line_from_curvature
 from limitlap.units import G0_M_S2, RHO_ISA_KG_M3, V_CAP_M_S, isa_density_kg_m3
 from limitlap.vehicle import Vehicle
 from tests import reference
-from tests.cases import EXAMPLE_CAR, circle, friction_car, random_smooth_loop, stadium, straight
+from tests.cases import (
+    EXAMPLE_CAR,
+    assert_inside_envelope,
+    circle,
+    friction_car,
+    random_smooth_loop,
+    stadium,
+    straight,
+)
 
 
 def test_standard_constants():
@@ -274,19 +282,10 @@ def test_property_profile_stays_inside_envelope(seed, mass, power_kw, cda, cla, 
     line = random_smooth_loop(seed, n=300, base_radius_m=120.0)
     car = Vehicle("h", mass, power_kw * 1e3, cda, cla, 0.012, mu_lat=mu, mu_brk=mu * brk, mu_trac=mu * trac, exponent=n)
     p = solve.solve_profile(line, car, k)
-    v = p.speed_m_s
-    assert np.isfinite(v).all() and (v > 0).all()
     assert np.all(np.diff(p.time_s) > 0)
-    scaled = car.scaled(k)
-    lat = np.abs(p.accel_lat_m_s2) / limits.lateral_limit_m_s2(v, scaled)
-    assert lat.max() <= 1 + 1e-9
-    use_here = solve.combined_usage(p, line.curvature_1_m, car)
-    v_next = np.roll(v, -1)
-    ay_next = np.roll(p.accel_lat_m_s2, -1)
-    use_next = limits.combined_usage(v_next, p.accel_lon_m_s2, ay_next, scaled)
-    # 1e-2: a Heun step averages the limits at its two ends, so it may use a little more
-    # than the limit at one end and less at the other; grid 0.5-1 m.
-    assert np.minimum(use_here, use_next).max() <= 1 + 1e-2
+    # finite, positive speeds within the cap; lateral within the limit to 1e-9; each
+    # step's combined usage within 1 + 1e-2 at one of its ends (tests/cases.py)
+    assert_inside_envelope(line, car, k, p, combined_tol=1e-2)
 
 
 def test_line_file_points_reproduce_the_analytic_line():

@@ -4,45 +4,21 @@ import itertools
 import json
 import math
 
-import numpy as np
 import pytest
 
 from limitlap import compare, solve, targets
 from limitlap.errors import LimitlapError
-from limitlap.line import line_from_curvature
 from limitlap.units import KMH_TO_M_S, RHO_ISA_KG_M3
 from limitlap.vehicle import Vehicle
-from tests.cases import EXAMPLE_CAR, friction_car
+from tests.cases import ARCS_LAYOUT, EXAMPLE_CAR, friction_car, layout_line
 
 SCALES = (1.0, 0.85, 0.70)
 
-# Straights ("s", m) and arcs (radius m, turn deg, +1 left / -1 right), turning +360 deg.
-LAYOUT = [
-    ("s", 250.0),
-    (40.0, 90.0, +1),
-    ("s", 150.0),
-    (90.0, 60.0, +1),
-    ("s", 20.0),
-    (70.0, 60.0, +1),
-    ("s", 200.0),
-    (30.0, 90.0, -1),
-    ("s", 120.0),
-    (50.0, 150.0, +1),
-    ("s", 100.0),
-    (120.0, 90.0, +1),
-]
+LAYOUT = ARCS_LAYOUT
 
 
 def build(layout, ds=1.0):
-    k = []
-    for piece in layout:
-        if piece[0] == "s":
-            k += [0.0] * round(piece[1] / ds)
-        else:
-            radius, turn, sign = piece
-            k += [sign / radius] * round(radius * math.radians(turn) / ds)
-    k = np.array(k)
-    return line_from_curvature(np.arange(k.size) * ds, k, length_m=k.size * ds)
+    return layout_line(layout, ds)[0]
 
 
 @pytest.fixture(scope="module")
