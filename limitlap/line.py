@@ -57,10 +57,6 @@ class Line:
         """Number of stations."""
         return int(self.distance_m.shape[0])
 
-    def heading_rad(self) -> np.ndarray:
-        """Path heading from +x, counter-clockwise, integrated from curvature. [rad]"""
-        d_psi = self.curvature_1_m * self.ds_m
-        return np.concatenate([[0.0], np.cumsum(d_psi[:-1])])
 
 
 def line_from_curvature(distance_m, curvature_1_m, gradient=None, *, closed=True, length_m=None):
