@@ -58,7 +58,6 @@ class Line:
         return int(self.distance_m.shape[0])
 
 
-
 def line_from_curvature(distance_m, curvature_1_m, gradient=None, *, closed=True, length_m=None):
     """Line from a distance/curvature table (INTERFACE §2, second form).
 
