@@ -389,3 +389,45 @@ def boundary_points(key, rho, rank):
                     break
                 want -= 1
     return out
+
+
+@njit(cache=True)
+def envelope_plane(v, ax, ay, veh):
+    """Kernel of ``limitlap.envelope``'s tyre-plane quantities, one pass per sample.
+
+    For each sample, with the forces of ``limitlap.limits`` (F_x = m a_x + drag + rolling,
+    N = m g + q ClA): the combined usage ``rho`` of ``limits.combined_usage`` (tyre share
+    against μ_t N or μ_b N, or the power share F_x v / P when larger), the direction
+    ``phi = atan2(s_y, s_x)`` of the normalised point with s_x = F_x / min(μ_t N, P/v)
+    when driving and F_x / (μ_b N) when braking, s_y = m a_y / (μ_y N), and the tyre-force
+    radius ``r = hypot(F_x / m, a_y)``. [-], [rad], [m/s²]
+    """
+    n = v.shape[0]
+    rho = np.empty(n)
+    phi = np.empty(n)
+    r = np.empty(n)
+    m = veh[I_MASS]
+    g = veh[I_G]
+    e = veh[I_EXPONENT]
+    inv_e = 1.0 / e
+    weight = m * g
+    rolling = veh[I_CRR] * weight
+    for i in range(n):
+        q = 0.5 * veh[I_RHO] * v[i] * v[i]
+        normal = weight + q * veh[I_LIFT_AREA]
+        fx = m * ax[i] + (q * veh[I_DRAG_AREA] + rolling)
+        sy = m * ay[i] / (veh[I_MU_LAT] * normal)
+        if fx >= 0.0:
+            traction = veh[I_MU_TRAC] * normal
+            tyre_x = fx / traction
+            power_force = veh[I_POWER] / v[i] if v[i] > 0.0 else np.inf
+            sx = fx / min(traction, power_force)
+        else:
+            tyre_x = -fx / (veh[I_MU_BRK] * normal)
+            sx = -tyre_x
+        tyre = (tyre_x**e + abs(sy) ** e) ** inv_e
+        power = fx * v[i] / veh[I_POWER] if fx > 0.0 else 0.0
+        rho[i] = max(tyre, power)
+        phi[i] = np.arctan2(sy, sx)
+        r[i] = np.hypot(fx / m, ay[i])
+    return rho, phi, r

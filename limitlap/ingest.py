@@ -218,6 +218,29 @@ class Log:
             hit = seen[name] = (ch, bool(np.isfinite(ch).any()))
         return hit[1]
 
+    def remembered(self, key, compute):
+        """``compute(self)``, computed once per log and key while its arrays stay the same.
+
+        Derived arrays (distance travelled, fix rows, dropouts, filled positions) are asked
+        for by the reader, the lap splitter and the pipeline in turn; the result is kept
+        with references to ``time_s`` and the channel arrays it came from and recomputed
+        when any of them is replaced. Arrays in the result are made read-only, so a caller
+        cannot change what the next one gets.
+        """
+        memo = self.__dict__.setdefault("_remembered", {})
+        basis = (self.time_s, *self.channels.values())
+        hit = memo.get(key)
+        if hit is not None and len(hit[0]) == len(basis) and all(
+            a is b for a, b in zip(hit[0], basis, strict=True)
+        ):
+            return hit[1]
+        value = compute(self)
+        for arr in value if isinstance(value, tuple) else (value,):
+            if isinstance(arr, np.ndarray):
+                arr.flags.writeable = False
+        memo[key] = (basis, value)
+        return value
+
 
 # --------------------------------------------------------------------------- channel maps
 
@@ -579,7 +602,13 @@ def _parse_numbers(path, raw, header, sep, decimal_comma, encoding, found):
                 path, f"'{value}' is not a number", row=row + 2, column=header[int(name[7:])]
             )
         frame = pl.DataFrame(cols)
-    return {wanted[n]: frame[n].to_numpy().astype(np.float64, copy=True) for n in wanted}
+    out = {}
+    for n in wanted:
+        values = frame[n].to_numpy()  # a copy already when the column has blanks
+        if values.dtype != np.float64 or not values.flags.writeable:
+            values = values.astype(np.float64, copy=True)
+        out[wanted[n]] = values
+    return out
 
 
 def _merge_duplicate_stamps(time_s, data, rows):
@@ -658,8 +687,9 @@ def read_log(path, channel_map=None) -> Log:
             raise InputError(path, f"'{values[i]}' is not a finite number", row=row,
                              column=header[found[channel][0]])
     keep = ~blank
-    data = {k: v[keep] for k, v in data.items()}
-    rows = rows[keep]
+    if not keep.all():  # rows with every cell blank are dropped (most logs have none)
+        data = {k: v[keep] for k, v in data.items()}
+        rows = rows[keep]
     for channel, values in data.items():
         _, factor, sign = found[channel]
         if factor * sign != 1.0:
@@ -766,6 +796,10 @@ def _to_enu(lat, lon, altitude, fix):
 
 def _fix_rows(log: Log) -> np.ndarray:
     """Rows with a new GPS fix (a value held from the previous fix is not new)."""
+    return log.remembered("fix_rows", _compute_fix_rows)
+
+
+def _compute_fix_rows(log: Log) -> np.ndarray:
     x, y = log.channels["x"], log.channels["y"]
     rows = np.flatnonzero(np.isfinite(x) & np.isfinite(y))
     if rows.size > 1:
@@ -779,6 +813,10 @@ def travelled_m(log: Log) -> np.ndarray:
 
     Blank speed cells are filled by linear interpolation in time.
     """
+    return log.remembered("travelled_m", _compute_travelled_m)
+
+
+def _compute_travelled_m(log: Log) -> np.ndarray:
     t = log.time_s
     v = log.channels["speed"]
     ok = np.isfinite(v)
@@ -807,9 +845,13 @@ def gps_dropouts(log: Log, bridge_s: float = BRIDGE_MAX_S) -> list[Dropout]:
     list of Dropout
         In time order.
     """
+    return list(log.remembered(("gps_dropouts", float(bridge_s)), lambda lg: _compute_dropouts(lg, bridge_s)))
+
+
+def _compute_dropouts(log: Log, bridge_s: float) -> tuple[Dropout, ...]:
     rows = _fix_rows(log)
     if rows.size < 2:
-        return []
+        return ()
     t = log.time_s[rows]
     gap = np.diff(t)
     nominal = float(np.median(gap))
@@ -818,10 +860,10 @@ def gps_dropouts(log: Log, bridge_s: float = BRIDGE_MAX_S) -> list[Dropout]:
     idx = np.flatnonzero(
         (gap > max(_DROPOUT_INTERVALS * nominal, _DROPOUT_MIN_S)) & (moved >= _DROPOUT_MIN_TRAVEL_M)
     )
-    return [
+    return tuple(
         Dropout(int(rows[k]), int(rows[k + 1]), float(t[k]), float(t[k + 1]), bool(gap[k] <= bridge_s))
         for k in idx
-    ]
+    )
 
 
 def _dropout_warnings(log: Log, rows: np.ndarray) -> list[str]:
@@ -876,8 +918,12 @@ def fill_position(log: Log, bridge_s: float = BRIDGE_MAX_S) -> tuple[np.ndarray,
     Returns
     -------
     x_m, y_m : numpy.ndarray
-        East and north at every row. [m]
+        East and north at every row (read-only: kept for the next caller). [m]
     """
+    return log.remembered(("fill_position", float(bridge_s)), lambda lg: _compute_fill(lg, bridge_s))
+
+
+def _compute_fill(log: Log, bridge_s: float) -> tuple[np.ndarray, np.ndarray]:
     x, y = log.channels["x"], log.channels["y"]
     t = log.time_s
     rows = _fix_rows(log)

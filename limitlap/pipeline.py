@@ -17,6 +17,7 @@ True
 
 from __future__ import annotations
 
+import math
 from collections.abc import Callable
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -204,20 +205,35 @@ def load_session(log_path, *, gate=None, channels=None, track=None):
     return log, laps, trk, warnings
 
 
-def _imu_samples(log, laps, rows_of):
-    """IMU speed/a_x/a_y of the given laps' rows, or None when the log has no IMU."""
+def _imu_samples(log, laps, rows_of, pad_s=None):
+    """IMU speed/a_x/a_y of the given laps' rows, or None when the log has no IMU.
+
+    With ``pad_s``, only the rows from ``pad_s`` before the first lap to ``pad_s`` after
+    the last are returned (the mask still marks the laps' own rows): enough for the
+    sample filters (:func:`limitlap.envelope.select_samples` reaches well under a second)
+    to give the same values inside the laps as on the whole log, at a lap's cost. [s]
+    """
     if not (log.has("accel_lon") and log.has("accel_lat")):
         return None
-    mask = np.zeros(log.time_s.shape[0], dtype=bool)
-    for lp in rows_of:
-        mask[lp.start_index : lp.end_index] = True
-    v = log.channels["speed"]
-    ax = log.channels["accel_lon"]
-    ay = log.channels["accel_lat"]
-    mask &= np.isfinite(v) & np.isfinite(ax) & np.isfinite(ay)
+    n = log.time_s.shape[0]
     dt = np.diff(log.time_s)
     rate = float(1.0 / np.median(dt)) if dt.size else None
-    return v, ax, ay, mask, rate, log.channels.get("throttle")
+    rows = slice(0, n)
+    if pad_s is not None and rows_of and rate:
+        pad = math.ceil(pad_s * rate)
+        first = min(lp.start_index for lp in rows_of)
+        last = max(lp.end_index for lp in rows_of)
+        rows = slice(max(first - pad, 0), min(last + pad, n))
+    mask = np.zeros(n, dtype=bool)
+    for lp in rows_of:
+        mask[lp.start_index : lp.end_index] = True
+    mask = mask[rows]
+    v = log.channels["speed"][rows]
+    ax = log.channels["accel_lon"][rows]
+    ay = log.channels["accel_lat"][rows]
+    mask &= np.isfinite(v) & np.isfinite(ax) & np.isfinite(ay)
+    throttle = log.channels.get("throttle")
+    return v, ax, ay, mask, rate, None if throttle is None else throttle[rows]
 
 
 def _trace_samples(drivens):
@@ -325,7 +341,7 @@ def analyse(
     ideal = solve.solve_profile(the_lap.line, car, k)
 
     _step(progress, 4, total, "comparing corner by corner")
-    lap_samples = _imu_samples(log, laps, [chosen])
+    lap_samples = _imu_samples(log, laps, [chosen], pad_s=2.0)
     if lap_samples is None:
         lap_samples = _trace_samples([the_lap])
     v_l, ax_l, ay_l, mask_l, rate_l, _ = lap_samples

@@ -351,11 +351,12 @@ def profile_csv_text(columns: Mapping, units: Mapping) -> str:
             raise LimitlapError(f"profile column '{name}' has {a.shape[0]} rows, expected {n_rows}")
     header = ",".join(_csv_cell(f"{n} [{units[n]}]" if units.get(n) else str(n)) for n in names)
     table = np.column_stack(arrays) if n_rows else np.empty((0, len(names)))
-    cells = np.char.mod("%.8g", table)
-    cells = np.where(np.isfinite(table), cells, "")
-    cells = np.where(cells == "-0", "0", cells)
-    body = [",".join(row) for row in cells.tolist()]
-    return "\n".join([header, *body]) + "\n"
+    # Non-finite cells become NaN, whose "nan" is then blanked; adding +0.0 turns -0.0 into
+    # +0.0 (IEEE 754 round-to-nearest), so no cell reads "-0". One format per row.
+    table = np.where(np.isfinite(table), table, np.nan) + 0.0
+    row = ",".join(["%.8g"] * len(names))
+    body = "\n".join([row % values for values in map(tuple, table.tolist())])
+    return f"{header}\n{body.replace('nan', '')}\n" if n_rows else f"{header}\n"
 
 
 def solve_profile_csv_text(profile, line=None) -> str:

@@ -4,16 +4,27 @@
   sample ``numpy.lexsort`` ranks, ties included;
 - the lap timelines (time against distance integrated from the logged speed) that
   best-of-laps uses for the laps whose line is not rebuilt reproduce the generator's
-  true time at each distance fraction.
+  true time at each distance fraction;
+- the compiled tyre-plane pass of the envelope fit gives the numpy functions' values;
+- thinning a long record before the envelope fit keeps the fitted envelope;
+- the grip estimate of one lap, filtered on the lap's rows only, equals the one filtered
+  on the whole log;
+- quantities remembered on a log are recomputed when its arrays are replaced.
 """
 
 from __future__ import annotations
 
+import math
+from dataclasses import replace
+
 import numpy as np
 import pytest
 
-from limitlap import _kernels, compare, ingest, pipeline, synth
+from limitlap import _kernels, compare, envelope, ingest, pipeline, synth
 from limitlap.laps import Gate, split_laps
+from limitlap.limits import combined_usage
+from limitlap.solve import vehicle_array
+from tests.cases import EXAMPLE_CAR
 
 
 def _lexsort_reference(key, rho, rank):
@@ -98,3 +109,97 @@ class _Segment:
 
     def __init__(self, start_m, end_m, name):
         self.start_m, self.end_m, self.name = start_m, end_m, name
+
+
+@pytest.mark.parametrize("power_w", [EXAMPLE_CAR.power_w, math.inf])
+def test_envelope_plane_kernel_matches_the_numpy_functions(power_w):
+    # Braking, driving below and beyond the power limit, both turning directions, and
+    # zero speed; the numpy functions (limits.combined_usage, envelope._tyre_plane) are
+    # the reference. 1e-12 relative: rounding of the same formulas in another order.
+    car = replace(EXAMPLE_CAR, power_w=power_w)
+    rng = np.random.default_rng(11)
+    n = 5000
+    v = np.concatenate(([0.0, 1e-3], rng.uniform(0.0, 90.0, n)))
+    ax = np.concatenate(([0.5, -0.5], rng.uniform(-40.0, 25.0, n)))
+    ay = np.concatenate(([0.0, 1.0], rng.uniform(-40.0, 40.0, n)))
+    rho, phi, r = _kernels.envelope_plane(v, ax, ay, vehicle_array(car))
+    sx, sy, r_ref = envelope._tyre_plane(v, ax, ay, car)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        rho_ref = combined_usage(v, ax, ay, car)
+    np.testing.assert_allclose(rho, rho_ref, rtol=1e-12, atol=0.0)
+    np.testing.assert_allclose(phi, np.arctan2(sy, sx), rtol=1e-12, atol=1e-15)
+    np.testing.assert_allclose(r, r_ref, rtol=1e-12, atol=0.0)
+
+
+def test_thinned_fit_keeps_the_envelope():
+    # A 30-minute 100 Hz record (the kerb-strike series of test_envelope, longer): more
+    # than FIT_MIN_SAMPLES samples, so the fit thins to FIT_RATE_HZ. After the 3 Hz
+    # low-pass the thinned samples trace the same curve (sampling theorem), so the fitted
+    # friction values must agree with the unthinned fit's to 0.2 %, a fifteenth of issue
+    # 4's 3 % accuracy requirement (project requirement, no published source; measured
+    # 0.03-0.05 %), and the thinned fit must recover the true car within that 3 %.
+    fs = 100.0
+    t = np.arange(0.0, 1800.0, 1.0 / fs)
+    rng = np.random.default_rng(8)
+    v = 12.0 + 68.0 * np.abs(((t / 120.0) % 1.0) * 2.0 - 1.0)
+    th = 2.0 * np.pi * 0.3 * t
+    e = EXAMPLE_CAR.exponent
+    sx = np.sign(np.cos(th)) * np.abs(np.cos(th)) ** (2.0 / e)
+    sy = np.sign(np.sin(th)) * np.abs(np.sin(th)) ** (2.0 / e)
+    share = 0.85 + 0.15 * np.sin(2.0 * np.pi * 0.037 * t)
+    normal = EXAMPLE_CAR.mass_kg * 9.80665 + 0.5 * EXAMPLE_CAR.air_density_kg_m3 * v**2 * (
+        EXAMPLE_CAR.downforce_area_m2
+    )
+    fx = sx * np.where(sx >= 0, EXAMPLE_CAR.mu_trac, EXAMPLE_CAR.mu_brk) * normal
+    fx = np.minimum(fx, EXAMPLE_CAR.power_w / v)
+    m = EXAMPLE_CAR.mass_kg
+    drag = 0.5 * EXAMPLE_CAR.air_density_kg_m3 * v**2 * EXAMPLE_CAR.drag_area_m2
+    rolling = EXAMPLE_CAR.rolling_coeff * m * 9.80665
+    ax = (share * fx - drag - rolling) / m + rng.normal(0, 0.1, t.size)
+    ay = share * sy * EXAMPLE_CAR.mu_lat * normal / m + rng.normal(0, 0.1, t.size)
+    base = envelope.Vehicle("mass only", m, rolling_coeff=EXAMPLE_CAR.rolling_coeff)
+    thin = envelope.fit_envelope(v, ax, ay, base, sample_rate_hz=fs)
+    full = envelope.fit_envelope(v, ax, ay, base, sample_rate_hz=fs, fit_rate_hz=None)
+    assert thin.quality["n_used"] < 0.4 * full.quality["n_used"]  # it did thin (3x here)
+    for k in ("mu_lat", "mu_brk", "mu_trac"):
+        assert getattr(thin.vehicle, k) == pytest.approx(getattr(full.vehicle, k), rel=2e-3), k
+        assert getattr(thin.vehicle, k) == pytest.approx(getattr(EXAMPLE_CAR, k), rel=0.03), k
+
+
+def test_short_records_are_not_thinned(session_and_log):
+    # A three-lap session has fewer than FIT_MIN_SAMPLES samples: the same fit either way.
+    _, log = session_and_log
+    ch = log.channels
+    args = (ch["speed"], ch["accel_lon"], ch["accel_lat"], envelope.Vehicle("m", 1200.0))
+    a = envelope.fit_envelope(*args, sample_rate_hz=100.0)
+    b = envelope.fit_envelope(*args, sample_rate_hz=100.0, fit_rate_hz=None)
+    assert a.quality["n_used"] == b.quality["n_used"]
+    assert a.vehicle == b.vehicle
+
+
+def test_one_lap_grip_estimate_on_its_own_rows(session_and_log):
+    # The pipeline filters only a lap's rows (with 2 s either side) for its grip
+    # estimate; the filters reach well under a second, so the estimate must equal the
+    # one from the whole log's rows to rounding.
+    session, log = session_and_log
+    laps = [lp for lp in split_laps(log, Gate.geodetic(*session.truth.gate_latlon)) if lp.complete]
+    lap = laps[1]
+    car = session.truth.vehicle
+    whole = pipeline._imu_samples(log, laps, [lap])
+    own = pipeline._imu_samples(log, laps, [lap], pad_s=2.0)
+    assert own[0].size < 0.5 * whole[0].size
+    k_whole = envelope.grip_estimate(*whole[:3], car, mask=whole[3], sample_rate_hz=whole[4])
+    k_own = envelope.grip_estimate(*own[:3], car, mask=own[3], sample_rate_hz=own[4])
+    assert k_own == pytest.approx(k_whole, rel=1e-12)
+
+
+def test_remembered_values_follow_the_arrays(session_and_log):
+    _, log = session_and_log
+    log = ingest.Log(log.path, log.time_s, dict(log.channels), log.origin, [])
+    first = ingest.travelled_m(log)
+    assert ingest.travelled_m(log) is first  # kept
+    with pytest.raises(ValueError):
+        first[0] = 1.0  # read-only: a caller cannot change what the next one gets
+    log.channels["speed"] = 2.0 * log.channels["speed"]
+    again = ingest.travelled_m(log)
+    np.testing.assert_allclose(again, 2.0 * first, rtol=1e-12)
