@@ -602,13 +602,11 @@ def _parse_numbers(path, raw, header, sep, decimal_comma, encoding, found):
                 path, f"'{value}' is not a number", row=row + 2, column=header[int(name[7:])]
             )
         frame = pl.DataFrame(cols)
-    out = {}
-    for n in wanted:
-        values = frame[n].to_numpy()  # a copy already when the column has blanks
-        if values.dtype != np.float64 or not values.flags.writeable:
-            values = values.astype(np.float64, copy=True)
-        out[wanted[n]] = values
-    return out
+    # One conversion of the whole frame (blanks -> NaN), each channel a contiguous column.
+    table = frame.select(list(wanted)).to_numpy(order="fortran").astype(np.float64, copy=False)
+    if not table.flags.writeable:
+        table = table.copy(order="F")
+    return {wanted[n]: table[:, j] for j, n in enumerate(wanted)}
 
 
 def _merge_duplicate_stamps(time_s, data, rows):
@@ -677,7 +675,11 @@ def read_log(path, channel_map=None) -> Log:
     data = _parse_numbers(path, raw, header, sep, decimal_comma, encoding, found)
     n_rows = len(data["time"])
     rows = np.arange(n_rows) + 2  # spreadsheet rows: header = 1
-    blank = np.all([np.isnan(v) for v in data.values()], axis=0)
+    # A row is blank when every cell is; only rows without a time can be (cheap to test).
+    blank = np.isnan(data["time"])
+    if blank.any():
+        maybe = np.flatnonzero(blank)
+        blank[maybe] = np.all([np.isnan(v[maybe]) for v in data.values()], axis=0)
     if n_rows == 0 or blank.all():
         raise InputError(path, "no data rows (header only)")
     for channel, values in data.items():

@@ -288,6 +288,7 @@ def _make_laps(log: Log, bounds, numbers, complete, reasons) -> list[Lap]:
     t = log.time_s
     s = travelled_m(log)
     long_gaps = [d for d in gps_dropouts(log) if not d.bridged]
+    s_at = np.interp(np.asarray(bounds, dtype=np.float64), t, s)  # one call for all bounds
     laps = []
     for k, number in enumerate(numbers):
         t0, t1 = float(bounds[k]), float(bounds[k + 1])
@@ -299,7 +300,7 @@ def _make_laps(log: Log, bounds, numbers, complete, reasons) -> list[Lap]:
         for d in long_gaps:
             if d.start_time_s < t1 and d.end_time_s > t0:
                 why.append(f"GPS dropout of {d.duration_s:.1f} s at {d.start_time_s:.1f} s")
-        dist = float(np.interp(t1, t, s) - np.interp(t0, t, s))
+        dist = float(s_at[k + 1] - s_at[k])
         laps.append(
             Lap(number=int(number), start_time_s=t0, end_time_s=t1, time_s=t1 - t0,
                 distance_m=dist, complete=bool(complete[k]) and not why,

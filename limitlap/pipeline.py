@@ -137,9 +137,8 @@ def lap_timelines(log, laps) -> dict:
     t = log.time_s
     s = ingest.travelled_m(log)
     out = {}
-    for lp in laps:  # a few dozen laps; each lap's rows in one go
-        s0 = float(np.interp(lp.start_time_s, t, s))
-        s1 = float(np.interp(lp.end_time_s, t, s))
+    ends = np.interp([[lp.start_time_s, lp.end_time_s] for lp in laps], t, s).reshape(-1, 2)
+    for lp, (s0, s1) in zip(laps, ends.tolist(), strict=True):  # each lap's rows in one go
         rows = slice(lp.start_index, lp.end_index)
         tr, sr = t[rows] - lp.start_time_s, s[rows] - s0
         inside = (tr > 0.0) & (tr < lp.time_s)
