@@ -431,3 +431,48 @@ def envelope_plane(v, ax, ay, veh):
         phi[i] = np.arctan2(sy, sx)
         r[i] = np.hypot(fx / m, ay[i])
     return rho, phi, r
+
+
+@njit(cache=True, nogil=True)
+def running_median(x, width):
+    """Kernel of ``limitlap.envelope.select_samples``: centred running median.
+
+    The same values as ``scipy.ndimage.median_filter(x, size=width, mode="nearest")`` for
+    an odd ``width`` (edges repeat the end values), from a sorted window updated by one
+    removal and one insertion per sample. Runs without the GIL, so the two acceleration
+    channels can be filtered side by side.
+    """
+    n = x.shape[0]
+    h = width // 2
+    out = np.empty(n)
+    if n == 0:
+        return out
+    buf = np.empty(width)
+    for j in range(width):
+        buf[j] = x[min(max(j - h, 0), n - 1)]
+    buf.sort()
+    out[0] = buf[h]
+    for i in range(1, n):
+        old = x[max(i - h - 1, 0)]
+        new = x[min(i + h, n - 1)]
+        if old != new:
+            lo = 0
+            hi = width
+            while lo < hi:  # leftmost slot holding ``old``
+                mid = (lo + hi) >> 1
+                if buf[mid] < old:
+                    lo = mid + 1
+                else:
+                    hi = mid
+            p = lo
+            if new > old:
+                while p + 1 < width and buf[p + 1] < new:
+                    buf[p] = buf[p + 1]
+                    p += 1
+            else:
+                while p > 0 and buf[p - 1] > new:
+                    buf[p] = buf[p - 1]
+                    p -= 1
+            buf[p] = new
+        out[i] = buf[h]
+    return out

@@ -5,6 +5,7 @@
 - the lap timelines (time against distance integrated from the logged speed) that
   best-of-laps uses for the laps whose line is not rebuilt reproduce the generator's
   true time at each distance fraction;
+- the running-median kernel gives ``scipy.ndimage.median_filter``'s values;
 - the compiled tyre-plane pass of the envelope fit gives the numpy functions' values;
 - thinning a long record before the envelope fit keeps the fitted envelope;
 - the grip estimate of one lap, filtered on the lap's rows only, equals the one filtered
@@ -111,6 +112,21 @@ class _Segment:
         self.start_m, self.end_m, self.name = start_m, end_m, name
 
 
+@pytest.mark.parametrize("width", [3, 5, 31, 51])
+def test_running_median_kernel_matches_scipy(width):
+    # Exact equality: the median of the same multiset of window values (edges repeat the
+    # end values, scipy's mode="nearest"); quantised values make many ties, as a logger's.
+    from scipy.ndimage import median_filter
+
+    rng = np.random.default_rng(width)
+    for n in (1, 2, width - 1, width, 1000):
+        x = np.cumsum(rng.normal(size=n)) * 0.05 + rng.normal(size=n)
+        x[:: 17] += 4.0  # spikes
+        for values in (x, np.round(x, 1)):
+            got = _kernels.running_median(np.ascontiguousarray(values), width)
+            assert np.array_equal(got, median_filter(values, size=width, mode="nearest"))
+
+
 @pytest.mark.parametrize("power_w", [EXAMPLE_CAR.power_w, math.inf])
 def test_envelope_plane_kernel_matches_the_numpy_functions(power_w):
     # Braking, driving below and beyond the power limit, both turning directions, and
@@ -203,3 +219,18 @@ def test_remembered_values_follow_the_arrays(session_and_log):
     log.channels["speed"] = 2.0 * log.channels["speed"]
     again = ingest.travelled_m(log)
     np.testing.assert_allclose(again, 2.0 * first, rtol=1e-12)
+
+
+def test_select_samples_in_two_threads_equals_one(session_and_log, monkeypatch):
+    # The two channels are despiked and filtered side by side on long records; the
+    # result must be the single-thread one exactly (the same operations per channel).
+    _, log = session_and_log
+    ch = log.channels
+    args = (ch["speed"], ch["accel_lon"], ch["accel_lat"])
+    monkeypatch.setattr(envelope, "_THREADED_SAMPLES", 10**12)
+    one = envelope.select_samples(*args, sample_rate_hz=100.0)
+    monkeypatch.setattr(envelope, "_THREADED_SAMPLES", 0)
+    two = envelope.select_samples(*args, sample_rate_hz=100.0)
+    for name in ("speed_m_s", "accel_lon_m_s2", "accel_lat_m_s2", "used"):
+        assert np.array_equal(getattr(one, name), getattr(two, name), equal_nan=name != "used")
+    assert one.n_spikes == two.n_spikes
