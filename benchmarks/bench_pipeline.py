@@ -61,7 +61,8 @@ def _child(name: str, path: str, repeats: int) -> None:
     from limitlap import targets as targets_mod
     from limitlap.resources import bundled_path
 
-    out_dir = tempfile.mkdtemp(prefix="bench-out-")
+    scratch = tempfile.TemporaryDirectory(prefix="bench-out-")  # removed on exit
+    out_dir = scratch.name
     figures = name == "analyse+report"
     demo = bundled_path("demo_tracks", "tarrowby_dry.csv.gz")
     warm = pipeline.analyse(demo)  # numba cache, lazy imports
@@ -101,6 +102,7 @@ def _child(name: str, path: str, repeats: int) -> None:
     traced = tracemalloc.get_traced_memory()[1]
     tracemalloc.stop()
     print(json.dumps({"name": name, "times": times, "rss": rss, "traced": traced}))
+    scratch.cleanup()
 
 
 def _measure(name: str, path: Path, repeats: int) -> dict:
