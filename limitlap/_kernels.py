@@ -476,3 +476,66 @@ def running_median(x, width):
             buf[p] = new
         out[i] = buf[h]
     return out
+
+
+@njit(cache=True, inline="always")
+def _orient(px, py, qx, qy, rx, ry):
+    d = (qx - px) * (ry - py) - (qy - py) * (rx - px)
+    return 1 if d > 0.0 else (-1 if d < 0.0 else 0)
+
+
+@njit(cache=True, inline="always")
+def _touches(px, py, ax, ay, bx, by):
+    """Point p collinear with segment a-b and inside its bounding box."""
+    return (
+        _orient(ax, ay, bx, by, px, py) == 0
+        and min(ax, bx) <= px <= max(ax, bx)
+        and min(ay, by) <= py <= max(ay, by)
+    )
+
+
+@njit(cache=True)
+def polygon_self_crosses(x, y):
+    """Kernel of ``limitlap.line.self_intersects`` (closed polygon through x, y).
+
+    Segment i runs from point i to point i+1 (the last back to the first). Two segments
+    that are not neighbours count when they cross properly (orientation signs differ on
+    both) or when the start point of one lies on the other. Candidate pairs come from a
+    sort-and-sweep on x: segments ordered by their smallest x, each tested only against
+    those whose x-range starts inside its own (others cannot meet it).
+    """
+    n = x.shape[0]
+    bx = np.empty(n)
+    by = np.empty(n)
+    lo = np.empty(n)
+    for i in range(n):
+        k = i + 1 if i + 1 < n else 0
+        bx[i] = x[k]
+        by[i] = y[k]
+        lo[i] = min(x[i], bx[i])
+    order = np.argsort(lo, kind="mergesort")
+    for oi in range(n):
+        i = order[oi]
+        hi_i = max(x[i], bx[i])
+        ylo_i = min(y[i], by[i])
+        yhi_i = max(y[i], by[i])
+        for oj in range(oi + 1, n):
+            j = order[oj]
+            if lo[j] > hi_i:
+                break
+            d = abs(i - j)
+            if d <= 1 or d == n - 1:
+                continue
+            if max(y[j], by[j]) < ylo_i or min(y[j], by[j]) > yhi_i:
+                continue
+            o1 = _orient(x[i], y[i], bx[i], by[i], x[j], y[j])
+            o2 = _orient(x[i], y[i], bx[i], by[i], bx[j], by[j])
+            o3 = _orient(x[j], y[j], bx[j], by[j], x[i], y[i])
+            o4 = _orient(x[j], y[j], bx[j], by[j], bx[i], by[i])
+            if o1 * o2 < 0 and o3 * o4 < 0:
+                return True
+            if _touches(x[j], y[j], x[i], y[i], bx[i], by[i]):
+                return True
+            if _touches(x[i], y[i], x[j], y[j], bx[j], by[j]):
+                return True
+    return False

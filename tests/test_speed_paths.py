@@ -234,3 +234,56 @@ def test_select_samples_in_two_threads_equals_one(session_and_log, monkeypatch):
     for name in ("speed_m_s", "accel_lon_m_s2", "accel_lat_m_s2", "used"):
         assert np.array_equal(getattr(one, name), getattr(two, name), equal_nan=name != "used")
     assert one.n_spikes == two.n_spikes
+
+
+def _crosses_reference(x, y):
+    """Every pair of segments of the closed polygon by orientation signs (numpy, O(n^2))."""
+    n = x.shape[0]
+    bx, by = np.roll(x, -1), np.roll(y, -1)
+    i, j = np.meshgrid(np.arange(n), np.arange(n), indexing="ij")
+
+    def orient(px, py, qx, qy, rx, ry):
+        return np.sign((qx - px) * (ry - py) - (qy - py) * (rx - px))
+
+    o1 = orient(x[i], y[i], bx[i], by[i], x[j], y[j])
+    o2 = orient(x[i], y[i], bx[i], by[i], bx[j], by[j])
+    o3 = orient(x[j], y[j], bx[j], by[j], x[i], y[i])
+    o4 = orient(x[j], y[j], bx[j], by[j], bx[i], by[i])
+    hit = (o1 * o2 < 0) & (o3 * o4 < 0)
+    hit |= (
+        (o1 == 0)
+        & (np.minimum(x[i], bx[i]) <= x[j]) & (x[j] <= np.maximum(x[i], bx[i]))
+        & (np.minimum(y[i], by[i]) <= y[j]) & (y[j] <= np.maximum(y[i], by[i]))
+    )
+    near = (np.abs(i - j) <= 1) | (np.abs(i - j) == n - 1)
+    return bool(np.any(hit & ~near))
+
+
+def test_self_crossing_sweep_matches_all_pairs():
+    # Random star-shaped loops (never cross), the same with a few points swapped (often
+    # cross), points on a coarse grid (collinear touches) and a figure eight through one
+    # of its own points: the sweep must agree with testing every pair.
+    rng = np.random.default_rng(5)
+    cases = []
+    for _ in range(150):
+        n = int(rng.integers(4, 60))
+        t = np.sort(rng.uniform(0, 2 * np.pi, n))
+        r = rng.uniform(50, 100, n)
+        x, y = r * np.cos(t), r * np.sin(t)
+        cases.append((x, y))
+        k = rng.integers(0, n, 2)
+        x2, y2 = x.copy(), y.copy()
+        x2[k], y2[k] = x[k[::-1]], y[k[::-1]]
+        cases.append((x2, y2))
+        cases.append((np.round(x / 25.0) * 25.0, np.round(y / 25.0) * 25.0))
+    cases.append((np.array([0.0, 1, 2, 1, 0, -1, -2, -1]), np.array([0.0, 1, 0, -1, 0, 1, 0, -1])))
+    seen = set()
+    for x, y in cases:
+        keep = np.hypot(np.diff(x, append=x[0]), np.diff(y, append=y[0])) > 1e-9
+        x, y = np.ascontiguousarray(x[keep]), np.ascontiguousarray(y[keep])
+        if x.size < 4:
+            continue
+        want = _crosses_reference(x, y)
+        seen.add(want)
+        assert _kernels.polygon_self_crosses(x, y) == want
+    assert seen == {True, False}
