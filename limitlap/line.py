@@ -194,28 +194,3 @@ def self_intersects(x_m, y_m) -> bool:
     if x.shape[0] < 4:
         return False
     return bool(_kernels.polygon_self_crosses(np.ascontiguousarray(x), np.ascontiguousarray(y)))
-    ax, ay = x, y
-    bx, by = np.roll(x, -1), np.roll(y, -1)
-    idx = np.arange(n)
-    for start in range(0, n, 512):
-        i = idx[start : start + 512, None]
-        j = idx[None, :]
-
-        def orient(px, py, qx, qy, rx, ry):
-            return np.sign((qx - px) * (ry - py) - (qy - py) * (rx - px))
-
-        o1 = orient(ax[i], ay[i], bx[i], by[i], ax[j], ay[j])
-        o2 = orient(ax[i], ay[i], bx[i], by[i], bx[j], by[j])
-        o3 = orient(ax[j], ay[j], bx[j], by[j], ax[i], ay[i])
-        o4 = orient(ax[j], ay[j], bx[j], by[j], bx[i], by[i])
-        hit = (o1 * o2 < 0) & (o3 * o4 < 0)
-        # point j on segment i (collinear and inside its box): the loop touches itself
-        hit |= (
-            (o1 == 0)
-            & (np.minimum(ax[i], bx[i]) <= ax[j]) & (ax[j] <= np.maximum(ax[i], bx[i]))
-            & (np.minimum(ay[i], by[i]) <= ay[j]) & (ay[j] <= np.maximum(ay[i], by[i]))
-        )
-        near = (np.abs(i - j) <= 1) | (np.abs(i - j) == n - 1)
-        if np.any(hit & ~near):
-            return True
-    return False
