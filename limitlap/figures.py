@@ -1,9 +1,17 @@
 """Figures of the report: each function draws one figure and returns its PNG bytes.
 
-matplotlib is imported inside the functions (Agg backend, no display needed), so importing
-:mod:`limitlap.figures` or :mod:`limitlap.report` costs nothing until a figure is drawn.
-Every figure has a fixed pixel size (:data:`FIGURE_SIZE_PX`); nothing is cropped to fit,
-so the size is known before drawing.
+The report's figures are drawn by :mod:`limitlap._canvas` -- fixed pixel panels, ticks,
+text and legends straight onto matplotlib's Agg rasteriser, with no figure, axes or text
+objects in between -- because matplotlib's artist layer alone took 60-100 ms a figure;
+the printable target sheet (not drawn on every analysis) is laid out by matplotlib's
+figure layer. matplotlib is imported inside the functions (Agg, no display needed), so
+importing :mod:`limitlap.figures` or :mod:`limitlap.report` costs nothing until a figure
+is drawn. Every figure has a fixed pixel size (:data:`FIGURE_SIZE_PX`); nothing is
+cropped to fit, so the size is known before drawing.
+
+PNG: RGB, "Up" row filter, zlib level 1, the two halves of the image deflated at once
+(:meth:`limitlap._canvas.Canvas.png`): 3-6 ms a figure and files within a few per cent of
+Pillow's level 3 (which took 10-17 ms); measured on the report's figures.
 
 Inputs are plain SI arrays and records; the conversion to km/h and g for display happens
 here, with the factors of :mod:`limitlap.units`.
@@ -40,6 +48,7 @@ ACCENT = "#E69F00"  # orange
 INK = "#222222"
 GRID = "#d9d9d9"
 BAND = "#f2f2f2"
+EDGE = "#888888"  # axis lines
 
 #: Resolution of every figure. [dots per inch]
 DPI = 100
@@ -58,8 +67,12 @@ FIGURE_SIZE_PX = {
 #: Resolution of the printable target sheet: A4 = 8.27 x 11.69 in. [dots per inch]
 SHEET_DPI = 150
 
+# Type sizes of the figures (as the target sheet's matplotlib style): tick and axis
+# labels 11 pt, titles 12 pt. [pt]
+_FONT_PT = 11.0
+_TITLE_PT = 12.0
 
-#: Style of every figure, applied only while a figure is built and drawn (the caller's
+#: Style of the target sheet, applied only while it is built and drawn (the caller's
 #: matplotlib settings are left as they were).
 _STYLE = {
     "font.size": 11,
@@ -76,13 +89,13 @@ _STYLE = {
 }
 
 
-# rcParams are one dict per process: threads (e.g. a Dask worker's) draw one at a time, so
-# one figure's style context cannot end while another figure is being drawn.
+# rcParams are one dict per process: threads (e.g. a Dask worker's) draw one sheet at a
+# time, so one sheet's style context cannot end while another is being drawn.
 _STYLE_LOCK = threading.RLock()
 
 
 def _styled(draw):
-    """Run a figure function inside the report's matplotlib style (imported on first use)."""
+    """Run a matplotlib figure function inside the sheet's style (imported on first use)."""
 
     @functools.wraps(draw)
     def wrapper(*args, **kwargs):
@@ -95,7 +108,7 @@ def _styled(draw):
 
 
 def _figure(kind: str, **kwargs):
-    """A figure of the kind's fixed size on its own Agg canvas (no pyplot, no GUI state)."""
+    """A matplotlib figure of the kind's fixed size on its own Agg canvas (no pyplot)."""
     from matplotlib.backends.backend_agg import FigureCanvasAgg
     from matplotlib.figure import Figure
 
@@ -106,136 +119,120 @@ def _figure(kind: str, **kwargs):
     return fig
 
 
-def _png(fig, kind: str) -> bytes:
-    """Render to PNG bytes at the figure's fixed size.
+def _canvas(kind: str):
+    """A blank canvas of the kind's fixed size."""
+    from limitlap._canvas import Canvas
 
-    The figure is opaque, so the PNG holds RGB without the alpha channel, at zlib level 3:
-    the same pixels as matplotlib's own RGBA at level 6 in files of about the same size,
-    encoded in about half the time.
-    """
-    from PIL import Image
-
-    dpi = SHEET_DPI if kind == "target_sheet" else DPI
-    fig.canvas.draw()
-    rgb = np.asarray(fig.canvas.buffer_rgba())[..., :3]
-    buf = io.BytesIO()
-    Image.fromarray(rgb).save(buf, format="png", compress_level=3, dpi=(dpi, dpi))
-    return buf.getvalue()
+    w, h = FIGURE_SIZE_PX[kind]
+    return Canvas(w, h, DPI)
 
 
-# Fixed layout (titles too: ``y=1.0`` puts a title where matplotlib's own placement would,
-# above an axes without top tick labels, without measuring the axes for it). Every figure has a fixed pixel size and fixed fonts, so its axes sit at
-# fixed places (pixel margins below) instead of being fitted by a layout engine, which
-# draws the whole figure once more to measure it. The margins hold the tick labels and
-# axis labels at the style's font sizes (11 pt = 15 px at 100 dpi); labels whose width
-# depends on the data (corner and lap names) are measured first (:func:`_text_width_px`).
+def _png(canvas, kind: str) -> bytes:
+    """The finished canvas as PNG bytes (see the module's notes on the encoding)."""
+    return canvas.png(DPI)
+
+
+# Fixed layout: every figure has a fixed pixel size and fixed fonts, so its panels sit at
+# fixed places (pixel margins below). The margins hold the tick labels and axis labels
+# (11 pt = 15 px at 100 dpi); labels whose width depends on the data (y tick labels,
+# corner and lap names) are measured first.
 _TICK_PX = 10  # tick 3.5 pt + pad 3.5 pt at 100 dpi
 _LABEL_PX = 22  # an 11 pt axis label and its 4 pt pad
 
 
-def _axes_px(fig, left, bottom, width, height, **kwargs):
-    """Axes at a fixed place, in pixels from the figure's lower-left corner."""
-    w, h = fig.bbox.width, fig.bbox.height
-    return fig.add_axes((left / w, bottom / h, width / w, height / h), **kwargs)
+def _pt(points: float) -> float:
+    """Points as pixels at the figures' resolution. [px]"""
+    return points * DPI / 72.0
 
 
-def _inset_px(fig, left, right, top, bottom, **kwargs):
-    """Axes filling the figure less the given pixel margins."""
-    w, h = fig.bbox.width, fig.bbox.height
-    return _axes_px(fig, left, bottom, w - left - right, h - top - bottom, **kwargs)
+def _y_ticks(lo, hi, height_px):
+    """y tick values and labels for a panel of this height (matplotlib's default rule)."""
+    from limitlap._canvas import auto_bins, nice_ticks, tick_labels
+
+    values = nice_ticks(lo, hi, auto_bins(height_px, _FONT_PT, 2.0, DPI))
+    return values, tick_labels(values)
 
 
-def _text_width_px(fig, texts, fontsize) -> float:
-    """Width of the widest text at ``fontsize`` points, measured by the figure's renderer."""
-    from matplotlib.font_manager import FontProperties
-
-    renderer = fig.canvas.get_renderer()
-    prop = FontProperties(size=fontsize)
-    return max(
-        (renderer.get_text_width_height_descent(str(t), prop, ismath=False)[0] for t in texts),
-        default=0.0,
-    )
-
-
-def _fit_left(fig, axes, pad_px: float = 6.0) -> None:
-    """Move the axes' common left edge so the widest y tick label and the y label fit.
-
-    The tick labels are the ones the axis will draw (its locator and formatter on its
-    limits), measured as text: no tick artists are made.
-    """
-    import matplotlib
-
-    width = 0.0
-    for ax in axes:
-        axis = ax.yaxis
-        lo, hi = sorted(axis.get_view_interval())
-        tol = 1e-9 * (hi - lo)
-        locs = [x for x in axis.get_major_locator()() if lo - tol <= x <= hi + tol]
-        labels = axis.get_major_formatter().format_ticks(locs)
-        width = max(width, _text_width_px(fig, labels, matplotlib.rcParams["ytick.labelsize"]))
-    left = (width + _TICK_PX + _LABEL_PX + pad_px) / fig.bbox.width
-    for ax in axes:
-        pos = ax.get_position()
-        ax.set_position((left, pos.y0, pos.x1 - left, pos.height))
-
-
-def _fit_names(fig, ax, texts, margin: float) -> None:
-    """Widen an equal-aspect map's margins until every name lies inside the axes."""
-    renderer = fig.canvas.get_renderer()
-    ax.margins(margin)
-    for _ in range(3):
-        ax.apply_aspect()
-        box = ax.get_window_extent(renderer)
-        over = 0.0
-        for t in texts:
-            bb = t.get_window_extent(renderer)
-            over = max(over, box.x0 - bb.x0, bb.x1 - box.x1, box.y0 - bb.y0, bb.y1 - box.y1)
-        if over <= 0.5:
-            return
-        # the data span maps to the axes' size less both margins: widen by the overhang
-        margin += (over + 4.0) / min(box.width, box.height) * (1.0 + 2.0 * margin)
-        ax.margins(margin)
+def _left_margin(c, labels, pad_px: float = 6.0) -> float:
+    """Left margin that holds the widest y tick label and the y axis label. [px]"""
+    return c.text_width(labels, _FONT_PT) + _TICK_PX + _LABEL_PX + pad_px
 
 
 def _kmh(v_m_s):
     return np.asarray(v_m_s, dtype=np.float64) / KMH_TO_M_S
 
 
-def _corner_bands(ax, corners, *, label_y=None, labels=True):
-    """Shade every other corner segment and write each corner's name above its apex."""
-    lo_x, hi_x = ax.get_xlim()
-    close = 0.025 * (hi_x - lo_x)  # labels nearer than this go up a line
-    last_x, raised = -math.inf, False
+def _finite_max(*arrays) -> float:
+    vals = [np.asarray(a, dtype=np.float64) for a in arrays]
+    vals = [v[np.isfinite(v)] for v in vals]
+    vals = [v for v in vals if v.size]
+    return max((float(v.max()) for v in vals), default=1.0)
+
+
+def _axes(p, xt, yt, xlabel, ylabel, title, *, xlabels=None, ylabels=None, title_pt=_TITLE_PT):
+    """Axis lines, ticks and their labels, axis labels and the title of a panel."""
+    p.frame(colour=EDGE)
+    bottom = p.xticks(xt, xlabels, size_pt=_FONT_PT, colour=INK)
+    left = p.yticks(yt, ylabels, size_pt=_FONT_PT, colour=INK)
+    if xlabel:
+        p.xlabel(xlabel, bottom, size_pt=_FONT_PT)
+    if ylabel:
+        p.ylabel(ylabel, left, size_pt=_FONT_PT)
+    if title:
+        p.title(title, size_pt=title_pt)
+
+
+def _corner_bands(p, corners) -> None:
+    """Shade every other corner segment (both ends of the lap for one across the gate)."""
+    lo, hi = p.xlim
     for i, c in enumerate(corners):
+        if i % 2:
+            continue
         start, end = c["start_m"], c["end_m"]
-        if i % 2 == 0:
-            if end >= start:
-                ax.axvspan(start, end, color=BAND, zorder=0, lw=0)
-            else:  # the segment runs across the gate: shade both ends of the lap
-                lo, hi = ax.get_xlim()
-                ax.axvspan(start, max(hi, start), color=BAND, zorder=0, lw=0)
-                ax.axvspan(min(lo, end), end, color=BAND, zorder=0, lw=0)
-        if labels:
-            raised = (c["apex_m"] - last_x < close) and not raised
-            last_x = c["apex_m"]
-            y = ax.get_ylim()[1] if label_y is None else label_y
-            ax.annotate(
-                c["name"],
-                (c["apex_m"], y),
-                xytext=(0, 12 if raised else 2),
-                textcoords="offset points",
-                ha="center",
-                va="bottom",
-                fontsize=9,
-                color=INK,
-                annotation_clip=False,
-            )
+        if end >= start:
+            p.vband(start, end, BAND)
+        else:  # the segment runs across the gate: shade both ends of the lap
+            p.vband(start, max(hi, start), BAND)
+            p.vband(min(lo, end), end, BAND)
+
+
+def _corner_names(p, corners, label_y) -> None:
+    """Each corner's name above its apex; a name that would touch the one before it on
+    its line goes up a line (measured in pixels, 4 px apart)."""
+    ends = [-math.inf, -math.inf]  # right end of the last name on each line [px]
+    for c in corners:
+        x = float(p.px(c["apex_m"]))
+        half = 0.5 * p.canvas.text_extent(c["name"], 9)[0]
+        clear = [x - half - ends[k] >= 4.0 for k in (0, 1)]
+        level = 0 if clear[0] else 1 if clear[1] else int(ends[1] < ends[0])
+        ends[level] = x + half
+        p.text(
+            c["apex_m"],
+            label_y,
+            c["name"],
+            dy=_pt(12 if level else 2),
+            size_pt=9,
+            colour=INK,
+            ha="center",
+            va="bottom",
+        )
+
+
+def _lap_panel(c, s, ylim, *, right=22, top=30, bottom=52):
+    """A panel over the lap's distance, its left margin fitted to its y tick labels;
+    returns (panel, x ticks, y ticks)."""
+    from limitlap._canvas import Panel
+
+    height = c.height - top - bottom
+    yt, ylabels = _y_ticks(ylim[0], ylim[1], height)
+    left = _left_margin(c, ylabels)
+    p = Panel(c, left, top, c.width - left - right, height, (s[0], s[-1]), ylim)
+    return p, p.auto_xticks(_FONT_PT), yt
 
 
 # --------------------------------------------------------------------------- along the lap
 
 
-@_styled
 def speed_figure(distance_m, speed_real_m_s, speed_ideal_m_s, corners) -> bytes:
     """Speed along the lap, real against ideal, with the corners named at their apexes.
 
@@ -253,24 +250,30 @@ def speed_figure(distance_m, speed_real_m_s, speed_ideal_m_s, corners) -> bytes:
     bytes
         PNG image, ``FIGURE_SIZE_PX["speed"]`` pixels.
     """
-    fig = _figure("speed")
-    ax = _inset_px(fig, left=66, right=22, top=30, bottom=52)
+    from limitlap._canvas import Entry
+
+    c = _canvas("speed")
     s = np.asarray(distance_m, dtype=np.float64)
-    ax.plot(s, _kmh(speed_ideal_m_s), color=IDEAL, lw=1.8, label="ideal (your envelope)")
-    ax.plot(s, _kmh(speed_real_m_s), color=REAL, lw=1.3, label="your lap")
-    top = np.nanmax([np.nanmax(_kmh(speed_ideal_m_s)), np.nanmax(_kmh(speed_real_m_s))])
-    ax.set_ylim(0, top * 1.12)
-    ax.set_xlim(s[0], s[-1])
-    _corner_bands(ax, corners, label_y=top * 1.02)
-    ax.set_xlabel("distance from the start/finish gate [m]")
-    ax.set_ylabel("speed [km/h]")
-    ax.set_title("Speed along the lap", loc="left", y=1.0)
-    ax.legend(loc="lower right", ncols=2)
-    _fit_left(fig, [ax])
-    return _png(fig, "speed")
+    v_ideal, v_real = _kmh(speed_ideal_m_s), _kmh(speed_real_m_s)
+    top = _finite_max(v_ideal, v_real)
+    p, xt, yt = _lap_panel(c, s, (0.0, top * 1.12))
+    _corner_bands(p, corners)
+    p.grid(xt, yt, GRID, 0.6)
+    p.line(s, v_ideal, IDEAL, 1.8)
+    p.line(s, v_real, REAL, 1.3)
+    _axes(
+        p, xt, yt, "distance from the start/finish gate [m]", "speed [km/h]", "Speed along the lap"
+    )
+    _corner_names(p, corners, top * 1.02)
+    c.legend(
+        [Entry("ideal (your envelope)", "line", IDEAL, 1.8), Entry("your lap", "line", REAL, 1.3)],
+        loc="lower right",
+        within=p.box,
+        ncols=2,
+    )
+    return _png(c, "speed")
 
 
-@_styled
 def delta_figure(distance_m, time_delta_s, corners) -> bytes:
     """Time delta along the lap: how far the driven lap is behind the ideal.
 
@@ -289,28 +292,38 @@ def delta_figure(distance_m, time_delta_s, corners) -> bytes:
     bytes
         PNG image, ``FIGURE_SIZE_PX["delta"]`` pixels.
     """
-    fig = _figure("delta")
-    ax = _inset_px(fig, left=78, right=22, top=30, bottom=52)
+    from limitlap._canvas import Entry
+
+    c = _canvas("delta")
     s = np.asarray(distance_m, dtype=np.float64)
     d = np.asarray(time_delta_s, dtype=np.float64)
-    ax.fill_between(s, 0, d, where=d >= 0, color=REAL, alpha=0.18, lw=0, interpolate=True)
-    ax.fill_between(s, 0, d, where=d < 0, color=IDEAL, alpha=0.18, lw=0, interpolate=True)
-    ax.plot(s, d, color=REAL, lw=1.5, label="your lap behind the ideal")
-    ax.axhline(0.0, color=IDEAL, lw=1.2, label="ideal")
     lo, hi = float(np.nanmin(d)), float(np.nanmax(d))
     span = max(hi - min(lo, 0.0), 1e-3)
-    ax.set_ylim(min(lo, 0.0) - 0.05 * span, hi + 0.18 * span)
-    ax.set_xlim(s[0], s[-1])
-    _corner_bands(ax, corners, label_y=hi + 0.06 * span)
-    ax.set_xlabel("distance from the start/finish gate [m]")
-    ax.set_ylabel("time delta [s]")
-    ax.set_title("Time delta: your lap minus the ideal (rising = losing time)", loc="left", y=1.0)
-    ax.legend(loc="lower right")
-    _fit_left(fig, [ax])
-    return _png(fig, "delta")
+    p, xt, yt = _lap_panel(c, s, (min(lo, 0.0) - 0.05 * span, hi + 0.18 * span))
+    _corner_bands(p, corners)
+    with np.errstate(invalid="ignore"):
+        p.fill_between(s, 0.0, d, REAL, alpha=0.18, where=d >= 0)
+        p.fill_between(s, 0.0, d, IDEAL, alpha=0.18, where=d < 0)
+    p.grid(xt, yt, GRID, 0.6)
+    p.line(s, d, REAL, 1.5)
+    p.hline(0.0, IDEAL, 1.2)
+    _axes(
+        p,
+        xt,
+        yt,
+        "distance from the start/finish gate [m]",
+        "time delta [s]",
+        "Time delta: your lap minus the ideal (rising = losing time)",
+    )
+    _corner_names(p, corners, hi + 0.06 * span)
+    c.legend(
+        [Entry("your lap behind the ideal", "line", REAL, 1.5), Entry("ideal", "line", IDEAL, 1.2)],
+        loc="lower right",
+        within=p.box,
+    )
+    return _png(c, "delta")
 
 
-@_styled
 def curvature_check_figure(
     distance_m, curvature_line_1_m, curvature_ay_1_m, curvature_yaw_1_m, corners, title
 ) -> bytes:
@@ -337,33 +350,33 @@ def curvature_check_figure(
     bytes
         PNG image, ``FIGURE_SIZE_PX["check"]`` pixels.
     """
-    fig = _figure("check")
-    ax = _inset_px(fig, left=78, right=22, top=30, bottom=52)
+    from limitlap._canvas import Entry
+
+    c = _canvas("check")
     s = np.asarray(distance_m, dtype=np.float64)
     k_line = 1000.0 * np.asarray(curvature_line_1_m, dtype=np.float64)
-    ax.plot(s, k_line, color=INK, lw=1.6, label="rebuilt line (GNSS + inertial)")
+    finite = np.concatenate([k_line[np.isfinite(k_line)], [0.0]])
+    lo, hi = float(finite.min()), float(finite.max())
+    span = max(hi - lo, 1e-3)
+    p, xt, yt = _lap_panel(c, s, (lo - 0.08 * span, hi + 0.2 * span))
+    _corner_bands(p, corners)
+    p.grid(xt, yt, GRID, 0.6)
+    p.line(s, k_line, INK, 1.6)
+    entries = [Entry("rebuilt line (GNSS + inertial)", "line", INK, 1.6)]
     for values, colour, label in (
         (curvature_ay_1_m, ACCENT, "a_y / v²"),
         (curvature_yaw_1_m, BEST, "yaw rate / v"),
     ):
         k = 1000.0 * np.asarray(values, dtype=np.float64)
         if np.isfinite(k).any():
-            ax.plot(s, k, color=colour, lw=1.0, alpha=0.9, label=label)
-    finite = np.concatenate([k_line[np.isfinite(k_line)], [0.0]])
-    lo, hi = float(finite.min()), float(finite.max())
-    span = max(hi - lo, 1e-3)
-    ax.set_ylim(lo - 0.08 * span, hi + 0.2 * span)
-    ax.set_xlim(s[0], s[-1])
-    _corner_bands(ax, corners, label_y=hi + 0.08 * span)
-    ax.set_xlabel("distance from the start/finish gate [m]")
-    ax.set_ylabel("curvature [1/km] (+ left)")
-    ax.set_title(title, loc="left", y=1.0)
-    ax.legend(loc="lower right", ncol=3)
-    _fit_left(fig, [ax])
-    return _png(fig, "check")
+            p.line(s, k, colour, 1.0, alpha=0.9)
+            entries.append(Entry(label, "line", colour, 1.0, alpha=0.9))
+    _axes(p, xt, yt, "distance from the start/finish gate [m]", "curvature [1/km] (+ left)", title)
+    _corner_names(p, corners, hi + 0.08 * span)
+    c.legend(entries, loc="lower right", within=p.box, ncols=3)
+    return _png(c, "check")
 
 
-@_styled
 def time_left_figure(corners) -> bytes:
     """Time left per corner, ranked, largest on top.
 
@@ -377,39 +390,43 @@ def time_left_figure(corners) -> bytes:
     bytes
         PNG image, ``FIGURE_SIZE_PX["time_left"]`` pixels.
     """
-    fig = _figure("time_left")
-    ranked = sorted(corners, key=lambda c: -c["time_left_s"])
-    names = [c["name"] for c in ranked]
-    name_px = _text_width_px(fig, names, 10 if len(names) <= 18 else 8)
-    ax = _inset_px(fig, left=name_px + _TICK_PX + 8, right=12, top=30, bottom=52)
-    values = np.array([c["time_left_s"] for c in ranked], dtype=np.float64)
-    y = np.arange(len(ranked))
+    from limitlap._canvas import Panel
+
+    c = _canvas("time_left")
+    ranked = sorted(corners, key=lambda r: -r["time_left_s"])
+    names = [r["name"] for r in ranked]
+    name_pt = 10 if len(names) <= 18 else 8
+    left = c.text_width(names, name_pt) + _TICK_PX + 8
+    values = np.array([r["time_left_s"] for r in ranked], dtype=np.float64)
+    n = len(ranked)
+    span = max(float(np.max(np.abs(values))) if values.size else 0.0, 1e-3)
+    xlim = (min(0.0, float(values.min(initial=0.0))) - 0.02 * span, span * 1.18)
+    # bars 0.7 high on rows 0..n-1, 5 % margins (matplotlib's default), largest on top
+    lo_y, hi_y = -0.35, max(n - 1, 0) + 0.35
+    m = 0.05 * (hi_y - lo_y)
+    top, bottom = 30, 52
+    p = Panel(
+        c, left, top, c.width - left - 12, c.height - top - bottom, xlim, (hi_y + m, lo_y - m)
+    )
+    xt = p.auto_xticks(_FONT_PT)
+    p.grid(xticks=xt, colour=GRID, lw_pt=0.6)
+    y = np.arange(n)
     colours = [
         REAL if i < 3 and v > 0 else "#e8a27a" if v > 0 else IDEAL for i, v in enumerate(values)
     ]
-    ax.barh(y, values, color=colours, height=0.7)
-    ax.set_yticks(y, names, fontsize=10 if len(names) <= 18 else 8)
-    ax.invert_yaxis()
-    span = max(float(np.max(np.abs(values))) if values.size else 0.0, 1e-3)
+    p.barh(y, values, colours, height=0.7)
+    p.vline(0.0, EDGE, 0.8)
     for yi, v in zip(y, values, strict=True):
-        ax.annotate(
-            f"{v:+.2f} s",
-            (max(v, 0.0), yi),
-            xytext=(4, 0),
-            textcoords="offset points",
-            va="center",
-            fontsize=9,
-        )
-    ax.set_xlim(min(0.0, float(values.min(initial=0.0))) - 0.02 * span, span * 1.18)
-    ax.grid(axis="y", visible=False)
-    ax.axvline(0.0, color="#888888", lw=0.8)
-    ax.set_xlabel("time left to the ideal [s]")
-    ax.set_title(
+        p.text(max(v, 0.0), yi, f"{v:+.2f} s", dx=_pt(4), size_pt=9, colour=INK, va="center")
+    p.frame(colour=EDGE)
+    below = p.xticks(xt, size_pt=_FONT_PT, colour=INK)
+    p.yticks(y, names, size_pt=name_pt, colour=INK)
+    p.xlabel("time left to the ideal [s]", below, size_pt=_FONT_PT)
+    p.title(
         f"Time left per corner, ranked (total {values.sum():.2f} s; top three darker)",
-        loc="left",
-        y=1.0,
+        size_pt=_TITLE_PT,
     )
-    return _png(fig, "time_left")
+    return _png(c, "time_left")
 
 
 def time_loss_rate(distance_m, time_delta_s, *, window_m: float = 20.0, closed: bool = True):
@@ -449,7 +466,64 @@ def time_loss_rate(distance_m, time_delta_s, *, window_m: float = 20.0, closed: 
     return np.convolve(rate, kernel, mode="same")
 
 
-@_styled
+def _loss_colours():
+    """256 colours of the map's diverging scale (blue, grey, orange, linear between)."""
+    from limitlap._canvas import rgb
+
+    nodes = np.array([rgb(h) for h in (IDEAL, "#9cc3dc", "#e6e6e6", "#f0b07a", REAL, "#6b2b00")])
+    t = (np.arange(256) + 0.0) / 255.0
+    pos = np.linspace(0.0, 1.0, nodes.shape[0])
+    return np.column_stack([np.interp(t, pos, nodes[:, k]) for k in range(3)])
+
+
+def _extent(k, lo, hi, anchors, half):
+    """(low edge, spread) [px] of the padded line extent [lo, hi] [m] and of the name
+    boxes (anchors [m] +- half [px]) at a scale of ``k`` px/m."""
+    a = np.concatenate([[lo, hi], np.asarray(anchors, dtype=np.float64)])
+    w = np.concatenate([[0.0, 0.0], np.asarray(half, dtype=np.float64)])
+    low = float(np.min(k * a - w))
+    return low, float(np.max(k * a + w)) - low
+
+
+def _fit_scale(lo, hi, anchors, half, length_px):
+    """Largest scale [px/m] at which the padded line extent and the name boxes fit in
+    ``length_px`` (see :func:`_extent`); their spread grows with the scale, so bisect."""
+    k_lo, k_hi = 0.0, length_px / max(hi - lo, 1e-9)
+    if _extent(k_hi, lo, hi, anchors, half)[1] <= length_px:
+        return k_hi
+    for _ in range(60):
+        mid = 0.5 * (k_lo + k_hi)
+        if _extent(mid, lo, hi, anchors, half)[1] <= length_px:
+            k_lo = mid
+        else:
+            k_hi = mid
+        if (k_hi - k_lo) * (hi - lo) < 1e-2:  # a hundredth of a pixel over the map
+            break
+    return k_lo
+
+
+def _arrow(c, x0, y0, x1, y1, colour, lw_pt):
+    """An open arrow from (x0, y0) to (x1, y1) [px], ends 2 pt short, head 4.4 pt long
+    and 2.2 pt each side (matplotlib's "->" at 11 pt)."""
+    length = math.hypot(x1 - x0, y1 - y0)
+    if length < 1e-9:
+        return
+    ux, uy = (x1 - x0) / length, (y1 - y0) / length
+    shrink = _pt(2.0)
+    ax_, ay_ = x0 + shrink * ux, y0 + shrink * uy
+    bx, by = x1 - shrink * ux, y1 - shrink * uy
+    c.polyline([ax_, bx], [ay_, by], colour, lw_pt, cap="butt")
+    hl, hw = _pt(4.4), _pt(2.2)
+    c.polyline(
+        [bx - hl * ux - hw * uy, bx, bx - hl * ux + hw * uy],
+        [by - hl * uy + hw * ux, by, by - hl * uy - hw * ux],
+        colour,
+        lw_pt,
+        cap="butt",
+        join="miter",
+    )
+
+
 def map_figure(x_m, y_m, loss_rate_s_m, corners, distance_m) -> bytes:
     """Map of the line coloured by where time is left (local time-loss rate).
 
@@ -469,86 +543,102 @@ def map_figure(x_m, y_m, loss_rate_s_m, corners, distance_m) -> bytes:
     bytes
         PNG image, ``FIGURE_SIZE_PX["map"]`` pixels.
     """
-    fig = _figure("map")
-    from matplotlib.collections import LineCollection
-    from matplotlib.colors import LinearSegmentedColormap, TwoSlopeNorm
+    from limitlap._canvas import Box, Entry, Panel, auto_bins, nice_ticks, tick_labels
 
-    ax = _inset_px(fig, left=30, right=30, top=30, bottom=100)
+    c = _canvas("map")
     x = np.asarray(x_m, dtype=np.float64)
     y = np.asarray(y_m, dtype=np.float64)
     rate_ms_m = np.asarray(loss_rate_s_m, dtype=np.float64) * 1e3  # [ms/m] for the scale
-    pts = np.column_stack([x, y])
-    segs = np.stack([pts, np.roll(pts, -1, axis=0)], axis=1)
     finite = rate_ms_m[np.isfinite(rate_ms_m)]
     lim = max(float(np.percentile(finite, 98)) if finite.size else 1.0, 1e-3)
     gain = -finite[finite < 0]
     # The gaining side of the scale only as long as the data needs (at least a quarter).
     lim_gain = max(float(np.percentile(gain, 98)) if gain.size else 0.0, 0.25 * lim)
-    cmap = LinearSegmentedColormap.from_list(
-        "limitlap_loss", [IDEAL, "#9cc3dc", "#e6e6e6", "#f0b07a", REAL, "#6b2b00"]
-    )
-    norm = TwoSlopeNorm(vmin=-lim_gain, vcenter=0.0, vmax=lim)
-    ax.plot(
-        np.append(x, x[0]),
-        np.append(y, y[0]),
-        color="#bbbbbb",
-        lw=9,
-        solid_capstyle="round",
-        zorder=1,
-    )
-    lc = LineCollection(segs, cmap=cmap, norm=norm, linewidths=5.5, zorder=2, capstyle="round")
-    lc.set_array(np.clip(rate_ms_m, -lim_gain, lim))
-    ax.add_collection(lc)
+
+    # Names on the outside of each bend (the right-hand normal of a left bend, +kappa),
+    # 4 % of the map's span from the apex.
     s = np.asarray(distance_m, dtype=np.float64)
     span = max(np.ptp(x), np.ptp(y))
     tx, ty = np.gradient(x), np.gradient(y)
     kappa = np.gradient(np.unwrap(np.arctan2(ty, tx))) / np.maximum(np.hypot(tx, ty), 1e-9)
-    names = []
-    for c in corners:
-        i = int(np.argmin(np.abs(s - c["apex_m"])))
-        # Label on the outside of the bend: the right-hand normal of a left bend (+kappa).
+    names, nx, ny = [], [], []
+    for corner in corners:
+        i = int(np.argmin(np.abs(s - corner["apex_m"])))
         norm = math.hypot(tx[i], ty[i]) or 1.0
         side = -1.0 if kappa[i] >= 0 else 1.0
-        dx, dy = -ty[i] / norm * side, tx[i] / norm * side
         off = 0.04 * span
-        names.append(
-            ax.annotate(
-                c["name"],
-                (x[i], y[i]),
-                xytext=(x[i] + off * dx, y[i] + off * dy),
-                ha="center",
-                va="center",
-                fontsize=10,
-                fontweight="bold",
-                color=INK,
-                zorder=4,
-            )
-        )
-    ax.plot([x[0]], [y[0]], marker="s", ms=9, color=INK, zorder=5, ls="none", label="start/finish")
+        names.append(str(corner["name"]))
+        nx.append(x[i] + off * (-ty[i] / norm * side))
+        ny.append(y[i] + off * (tx[i] / norm * side))
+    extents = [c.text_extent(n, 10, "bold") for n in names]
+    half_w = np.array([0.5 * e[0] + 1.0 for e in extents])
+    half_h = np.array([0.5 * (e[1] + e[2]) + 1.0 for e in extents])
+
+    # Equal scales on both axes, as large as the map area allows with 8 % of the line's
+    # span as margin each side and every name inside.
+    box = Box(30.0, 30.0, c.width - 30.0, c.height - 100.0)
+    mx, my = 0.08 * np.ptp(x), 0.08 * np.ptp(y)
+    lo_x, hi_x = x.min() - mx, x.max() + mx
+    lo_y, hi_y = y.min() - my, y.max() + my
+    k = min(
+        _fit_scale(lo_x, hi_x, nx, half_w, box.width),
+        _fit_scale(lo_y, hi_y, ny, half_h, box.height),
+    )
+    low_x, spread_x = _extent(k, lo_x, hi_x, nx, half_w)
+    low_y, spread_y = _extent(k, lo_y, hi_y, ny, half_h)
+    x0 = (low_x - 0.5 * (box.width - spread_x)) / k  # the content centred in the box
+    y0 = (low_y - 0.5 * (box.height - spread_y)) / k
+    p = Panel(
+        c,
+        box.x0,
+        box.y0,
+        box.width,
+        box.height,
+        (x0, x0 + box.width / k),
+        (y0, y0 + box.height / k),
+    )
+    X, Y = p.px(x), p.py(y)
+    c.polyline(np.r_[X, X[0]], np.r_[Y, Y[0]], "#bbbbbb", 9.0, cap="round")
+    colours = _loss_colours()
+    clipped = np.clip(np.nan_to_num(rate_ms_m, nan=0.0), -lim_gain, lim)
+    frac = np.interp(clipped, [-lim_gain, 0.0, lim], [0.0, 0.5, 1.0])
+    group = np.minimum((frac * 64).astype(np.int64), 63)  # 64 shades: 4 of the 256 each
+    # segment i runs from point i to point i+1 (the last one back to the first)
+    Xc, Yc = np.r_[X, X[0]], np.r_[Y, Y[0]]
+    change = np.flatnonzero(group[1:] != group[:-1]) + 1
+    run_start = np.r_[0, change]
+    run_stop = np.r_[change, group.size]
+    run_group = group[run_start]
+    for g in np.unique(run_group):
+        sel = run_group == g
+        shade = colours[4 * g : 4 * g + 4].mean(axis=0)
+        c.runs(Xc, Yc, run_start[sel], run_stop[sel] + 1, shade, 5.5, cap="round")
+    for name, ax_, ay_ in zip(names, nx, ny, strict=True):
+        p.text(ax_, ay_, name, size_pt=10, weight="bold", colour=INK, ha="center", va="center")
+    c.markers([X[0]], [Y[0]], "s", _pt(9), INK)
     if x.size > 1:
         j = int(np.searchsorted(s, s[0] + 0.04 * (s[-1] - s[0])))  # 4 % of the lap on
         j = min(max(j, 1), x.size - 1)
-        ax.annotate(
-            "",
-            xy=(x[j], y[j]),
-            xytext=(x[0], y[0]),
-            arrowprops={"arrowstyle": "->", "color": INK, "lw": 1.5},
-            zorder=5,
-        )
-    ax.set_aspect("equal", adjustable="datalim")
-    _fit_names(fig, ax, names, margin=0.08)
-    ax.grid(False)
-    ax.set_xticks([])
-    ax.set_yticks([])
-    for side in ("left", "bottom"):
-        ax.spines[side].set_visible(False)
-    w_px = fig.bbox.width
-    cax = _axes_px(fig, 0.15 * w_px, 66, 0.70 * w_px, 17)  # 70 % of the width, 40:1
-    cb = fig.colorbar(lc, cax=cax, orientation="horizontal")
-    cb.set_label("time lost per metre [ms/m]: orange = time left here, blue = gaining, grey = even")
-    ax.set_title("Where the time is left on the lap", loc="left", y=1.0)
-    ax.legend(loc="upper right", title="arrow: direction of travel", title_fontsize=9)
-    return _png(fig, "map")
+        _arrow(c, X[0], Y[0], X[j], Y[j], INK, 1.5)
+    p.title("Where the time is left on the lap", size_pt=_TITLE_PT)
+    c.legend(
+        [Entry("start/finish", "marker", INK, marker="s", size_px=_pt(9))],
+        loc="upper right",
+        within=p.box,
+        title="arrow: direction of travel",
+        title_size_pt=9,
+    )
+    bar = Box(0.15 * c.width, c.height - 66 - 17, 0.85 * c.width, c.height - 66)
+    ticks = nice_ticks(-lim_gain, lim, auto_bins(bar.width, _FONT_PT, 3.0, DPI))
+    c.colour_bar(
+        bar,
+        colours,
+        np.interp(ticks, [-lim_gain, 0.0, lim], [0.0, 0.5, 1.0]),
+        tick_labels(ticks),
+        "time lost per metre [ms/m]: orange = time left here, blue = gaining, grey = even",
+        size_pt=_FONT_PT,
+    )
+    return _png(c, "map")
 
 
 # --------------------------------------------------------------------------- g-g diagram
@@ -613,19 +703,57 @@ def envelope_boundary(speed_m_s: float, vehicle, grip_scale: float = 1.0, n_poin
 
 
 def _ray_reach(poly_x, poly_y, angles):
-    """Farthest crossing of rays from the origin with a closed polygon, per angle."""
-    px = np.asarray(poly_x)
-    py = np.asarray(poly_y)
-    ax_, ay_ = px, py
-    bx, by = np.roll(px, -1), np.roll(py, -1)
-    dx, dy = np.cos(angles)[:, None], np.sin(angles)[:, None]
-    ex, ey = (bx - ax_)[None, :], (by - ay_)[None, :]
+    """Farthest crossing of rays from the origin with a closed polygon, per angle.
+
+    Parameters
+    ----------
+    poly_x, poly_y : array-like
+        The polygon's vertices (closed implicitly: the last joins the first). [any unit]
+    angles : array-like
+        Ray directions, ascending within [-pi, pi]. [rad]
+
+    Returns
+    -------
+    numpy.ndarray
+        Distance from the origin to the farthest crossing of each ray with an edge; 0 where
+        a ray crosses none. [unit of the vertices]
+
+    Notes
+    -----
+    An edge that does not pass through the origin subtends less than half a turn as seen
+    from it, and only rays within that arc can cross it, so only those (edge, ray) pairs
+    are tested -- each with the full crossing test (ray distance t >= 0, edge parameter
+    0 <= w <= 1, not parallel), as if every pair were.
+    """
+    ax_ = np.asarray(poly_x, dtype=np.float64)
+    ay_ = np.asarray(poly_y, dtype=np.float64)
+    th = np.asarray(angles, dtype=np.float64)
+    bx, by = np.roll(ax_, -1), np.roll(ay_, -1)
+    start = np.arctan2(ay_, ax_)
+    turn = np.arctan2(ax_ * by - ay_ * bx, ax_ * bx + ay_ * by)  # signed angle a -> b
+    lo = np.where(turn >= 0, start, start + turn)  # the arc [lo, lo + |turn|]
+    hi = lo + np.abs(turn)
+    edges, rays = [], []
+    margin = 1e-9  # [rad] rays through a vertex belong to both its edges
+    for shift in (-2.0 * np.pi, 0.0, 2.0 * np.pi):  # arcs across the -pi/pi seam
+        i0 = np.searchsorted(th, lo + shift - margin, side="left")
+        i1 = np.searchsorted(th, hi + shift + margin, side="right")
+        n = np.maximum(i1 - i0, 0)
+        first = np.cumsum(n) - n
+        edges.append(np.repeat(np.arange(lo.size), n))
+        rays.append(np.repeat(i0, n) + np.arange(int(n.sum())) - np.repeat(first, n))
+    e = np.concatenate(edges)
+    i = np.concatenate(rays)
+    dx, dy = np.cos(th[i]), np.sin(th[i])
+    ex, ey = bx[e] - ax_[e], by[e] - ay_[e]
     denom = dx * ey - dy * ex
     with np.errstate(divide="ignore", invalid="ignore"):
-        t = (ax_[None, :] * ey - ay_[None, :] * ex) / denom  # distance along the ray
-        w = (ax_[None, :] * dy - ay_[None, :] * dx) / denom  # position along the edge
+        t = (ax_[e] * ey - ay_[e] * ex) / denom  # distance along the ray
+        w = (ax_[e] * dy - ay_[e] * dx) / denom  # position along the edge
     ok = (np.abs(denom) > 1e-15) & (t >= 0) & (w >= 0) & (w <= 1)
-    return np.where(ok, t, 0.0).max(axis=1)
+    out = np.zeros(th.size)
+    np.maximum.at(out, i[ok], t[ok])
+    return out
 
 
 def _hull(points_x, points_y):
@@ -679,7 +807,6 @@ def speed_bands_m_s(speed_m_s, n_bands: int = 3):
     return [(float(a), float(b)) for a, b in itertools.pairwise(edges)]
 
 
-@_styled
 def gg_figure(
     speed_m_s, accel_lon_m_s2, accel_lat_m_s2, vehicle, grip_scale=1.0, bands=None, fit_points=None
 ) -> bytes:
@@ -695,7 +822,7 @@ def gg_figure(
     grip_scale : float
         Grip scale of the comparison. [-]
     bands : list of tuple, optional
-        (low, high) speed bands [m/s]; by default three from :func:`speed_bands_m_s`.
+        (low, high) speed bands [m/s]; by default four from :func:`speed_bands_m_s`.
     fit_points : list of dict, optional
         Boundary points the envelope fit used, each with ``accel_lat_m_s2``,
         ``accel_lon_m_s2`` and ``speed_m_s`` arrays; drawn as small crosses.
@@ -707,102 +834,123 @@ def gg_figure(
 
     Notes
     -----
-    The envelope is drawn at the band's middle speed (solid) and its edges (dotted). The
+    The envelope is drawn at the band's middle speed (solid) and its edges (dashed). The
     shaded ring lies between the convex hull of the band's samples and the envelope at
     the middle speed: grip the lap never asked for. Its share of the envelope's area is
     in each panel's title.
     """
+    from limitlap._canvas import Entry, Panel, auto_bins, nice_ticks
+
     v = np.asarray(speed_m_s, dtype=np.float64)
     ax_s = np.asarray(accel_lon_m_s2, dtype=np.float64)
     ay_s = np.asarray(accel_lat_m_s2, dtype=np.float64)
     if bands is None:
         bands = speed_bands_m_s(v, n_bands=4)
     bands = list(bands)[:4] or [(0.0, 1.0)]
-    fig = _figure("gg")
-    from matplotlib.patches import Polygon
+    c = _canvas("gg")
+
+    # What each panel shows, in g, before the common limits are known.
+    angles = np.linspace(-np.pi, np.pi, 721)
+    if fit_points:
+        fv, fy, fx = (
+            np.concatenate([np.asarray(fp[k], dtype=np.float64) for fp in fit_points])
+            for k in ("speed_m_s", "accel_lat_m_s2", "accel_lon_m_s2")
+        )
+    panels = []
+    lim = 0.0
+    for lo, hi in bands:
+        mid = 0.5 * (lo + hi)
+        ey, ex = (a / G0_M_S2 for a in envelope_boundary(mid, vehicle, grip_scale))
+        edges = [
+            tuple(a / G0_M_S2 for a in envelope_boundary(edge, vehicle, grip_scale))
+            for edge in (lo, hi)
+            if edge > 0
+        ]
+        inband = (v >= lo) & (v < hi) & np.isfinite(ax_s) & np.isfinite(ay_s)
+        sy, sx = ay_s[inband] / G0_M_S2, ax_s[inband] / G0_M_S2
+        title = f"{lo / KMH_TO_M_S:.0f}-{hi / KMH_TO_M_S:.0f} km/h"
+        ring = hull = None
+        hull_pts = _hull(sy, sx)
+        if hull_pts is not None:
+            r_env = _ray_reach(ey, ex, angles)
+            r_in = np.minimum(_ray_reach(hull_pts[0], hull_pts[1], angles), r_env)
+            # Ring between the samples' reach and the envelope: outer loop forward, inner
+            # loop back; the angles include both -pi and pi so the seam closes exactly.
+            ring = (
+                np.concatenate([r_env * np.cos(angles), (r_in * np.cos(angles))[::-1]]),
+                np.concatenate([r_env * np.sin(angles), (r_in * np.sin(angles))[::-1]]),
+            )
+            hull = (np.append(hull_pts[0], hull_pts[0][0]), np.append(hull_pts[1], hull_pts[1][0]))
+            # Polar area 1/2 sum r^2 dtheta on equal steps (last angle repeats the first).
+            unused = 1.0 - float(np.sum(r_in[:-1] ** 2) / np.sum(r_env[:-1] ** 2))
+            title += f": {100 * unused:.0f} % of the envelope unused"
+        fit = None
+        if fit_points:
+            sel = (fv >= lo) & (fv < hi)
+            fit = (fy[sel] / G0_M_S2, fx[sel] / G0_M_S2)
+        panels.append((ey, ex, edges, sy, sx, ring, hull, fit, title))
+        lim = max(lim, float(np.max(np.abs(ey))), float(np.max(np.abs(ex))))
+    lim *= 1.08
 
     # Square panels side by side, centred; below them the axis labels, then the legend.
     n = len(bands)
     left, right, top, bottom, gap = 62, 12, 48, 100, 24
-    avail_w, avail_h = fig.bbox.width - left - right, fig.bbox.height - top - bottom
+    avail_w, avail_h = c.width - left - right, c.height - top - bottom
     side = min((avail_w - (n - 1) * gap) / n, avail_h)
     x0 = left + 0.5 * (avail_w - n * side - (n - 1) * gap)
-    y0 = bottom + 0.5 * (avail_h - side)
-    axes = [_axes_px(fig, x0, y0, side, side)]
-    for i in range(1, n):
-        ax = _axes_px(fig, x0 + i * (side + gap), y0, side, side, sharex=axes[0], sharey=axes[0])
-        ax.tick_params(labelleft=False)
-        axes.append(ax)
-    angles = np.linspace(-np.pi, np.pi, 721)
-    lim = 0.0
-    for ax, (lo, hi) in zip(axes, bands, strict=True):
-        mid = 0.5 * (lo + hi)
-        ey, ex = envelope_boundary(mid, vehicle, grip_scale)
-        for edge in (lo, hi):
-            if edge > 0:
-                ly, lx = envelope_boundary(edge, vehicle, grip_scale)
-                ax.plot(ly / G0_M_S2, lx / G0_M_S2, color=IDEAL, lw=0.7, ls="--", alpha=0.45)
-        inband = (v >= lo) & (v < hi) & np.isfinite(ax_s) & np.isfinite(ay_s)
-        sy, sx = ay_s[inband] / G0_M_S2, ax_s[inband] / G0_M_S2
-        r_env = _ray_reach(ey / G0_M_S2, ex / G0_M_S2, angles)
-        hull = _hull(sy, sx)
-        title = f"{lo / KMH_TO_M_S:.0f}-{hi / KMH_TO_M_S:.0f} km/h"
+    y_top = top + 0.5 * (avail_h - side)
+    xt = nice_ticks(-lim, lim, auto_bins(side, _FONT_PT, 3.0, DPI))
+    yt = nice_ticks(-lim, lim, auto_bins(side, _FONT_PT, 2.0, DPI))
+    used = set()
+    for i, (ey, ex, edges, sy, sx, ring, hull, fit, title) in enumerate(panels):
+        p = Panel(c, x0 + i * (side + gap), y_top, side, side, (-lim, lim), (-lim, lim))
+        # matplotlib's order: patches and markers, then the grid, then lines
+        if ring is not None:
+            p.canvas.polygon(p.px(ring[0]), p.py(ring[1]), UNUSED, alpha=0.45, clip=p.box)
+            used.update(("ring", "hull"))
+        p.scatter(sy, sx, "o", _pt(math.sqrt(5.0)), "#444444", alpha=0.4)
+        if fit is not None and fit[0].size:
+            p.scatter(fit[0], fit[1], "x", _pt(math.sqrt(14.0)), ACCENT, lw_pt=0.9)
+            used.add("fit")
+        p.grid(xt, yt, GRID, 0.6)
+        for ly, lx in edges:
+            p.line(ly, lx, IDEAL, 0.7, dash="--", alpha=0.45)
         if hull is not None:
-            r_hull = _ray_reach(hull[0], hull[1], angles)
-            r_in = np.minimum(r_hull, r_env)
-            # Ring between the samples' reach and the envelope: outer loop forward, inner
-            # loop back; the angles include both -pi and pi so the seam closes exactly.
-            ring_y = np.concatenate([r_env * np.cos(angles), (r_in * np.cos(angles))[::-1]])
-            ring_x = np.concatenate([r_env * np.sin(angles), (r_in * np.sin(angles))[::-1]])
-            # added as an artist, not a patch: the limits are set below, and a patch's
-            # limits update walks its 1,442 vertices in Python (35 ms a panel)
-            ring = Polygon(
-                np.column_stack([ring_y, ring_x]),
-                closed=True,
-                color=UNUSED,
-                alpha=0.45,
-                lw=0,
-                label="grip not used",
-            )
-            ax.add_artist(ring)
-            hy, hx = np.append(hull[0], hull[0][0]), np.append(hull[1], hull[1][0])
-            ax.plot(hy, hx, color=REAL, lw=1.2, label="reach of your samples")
-            # Polar area 1/2 sum r^2 dtheta on equal steps (last angle repeats the first).
-            unused = 1.0 - float(np.sum(r_in[:-1] ** 2) / np.sum(r_env[:-1] ** 2))
-            title += f": {100 * unused:.0f} % of the envelope unused"
-        ax.plot(ey / G0_M_S2, ex / G0_M_S2, color=IDEAL, lw=1.8, label="envelope")
-        ax.scatter(sy, sx, s=5, color="#444444", alpha=0.4, lw=0, label="your samples")
-        if fit_points:
-            # all the fit's points in the band as one collection (one artist, not one per
-            # fitted speed band: the same crosses, drawn at a fraction of the cost)
-            fv, fy, fx = (
-                np.concatenate([np.asarray(fp[k], dtype=np.float64) for fp in fit_points])
-                for k in ("speed_m_s", "accel_lat_m_s2", "accel_lon_m_s2")
-            )
-            sel = (fv >= lo) & (fv < hi)
-            ax.scatter(
-                fy[sel] / G0_M_S2,
-                fx[sel] / G0_M_S2,
-                s=14,
+            p.line(hull[0], hull[1], REAL, 1.2)
+        p.line(ey, ex, IDEAL, 1.8)
+        p.hline(0.0, "#999999", 0.6)
+        p.vline(0.0, "#999999", 0.6)
+        p.frame(colour=EDGE)
+        below = p.xticks(xt, size_pt=_FONT_PT, colour=INK)
+        p.xlabel("lateral [g] (+ left)", below, size_pt=_FONT_PT)
+        p_left = p.yticks(yt, size_pt=_FONT_PT, colour=INK, show_labels=(i == 0))
+        if i == 0:
+            p.ylabel("longitudinal [g] (+ forward)", p_left, size_pt=_FONT_PT)
+        p.title(title, size_pt=10, loc="center")
+    entries = []
+    if "ring" in used:
+        entries += [
+            Entry("grip not used", "patch", UNUSED, alpha=0.45),
+            Entry("reach of your samples", "line", REAL, 1.2),
+        ]
+    entries += [
+        Entry("envelope", "line", IDEAL, 1.8),
+        # markers three times their size in the panels, as the legend's markerscale
+        Entry("your samples", "marker", "#444444", alpha=0.4, size_px=3 * _pt(math.sqrt(5.0))),
+    ]
+    if "fit" in used:
+        entries.append(
+            Entry(
+                "fit points",
+                "marker",
+                ACCENT,
+                lw_pt=0.9,
                 marker="x",
-                color=ACCENT,
-                lw=0.9,
-                label="fit points",
+                size_px=3 * _pt(math.sqrt(14.0)),
             )
-        lim = max(lim, float(np.max(np.abs(ey))) / G0_M_S2, float(np.max(np.abs(ex))) / G0_M_S2)
-        ax.set_title(title, fontsize=10, y=1.0)
-        ax.set_xlabel("lateral [g] (+ left)")
-        ax.axhline(0, color="#999999", lw=0.6)
-        ax.axvline(0, color="#999999", lw=0.6)
-        ax.set_aspect("equal", adjustable="box")
-    axes[0].set_ylabel("longitudinal [g] (+ forward)")
-    lim *= 1.08
-    axes[0].set_xlim(-lim, lim)
-    axes[0].set_ylim(-lim, lim)
-    handles, labels = axes[0].get_legend_handles_labels()
-    uniq = dict(zip(labels, handles, strict=True))
-    fig.legend(uniq.values(), uniq.keys(), loc="lower center", ncols=len(uniq), markerscale=3)
-    return _png(fig, "gg")
+        )
+    c.legend(entries, loc="lower center", ncols=len(entries))
+    return _png(c, "gg")
 
 
 # --------------------------------------------------------------------------- corner detail
@@ -820,7 +968,6 @@ def _window(distance_m, start_m, end_m, length_m):
     return idx, np.concatenate([s[first], s[second] + length_m])
 
 
-@_styled
 def detail_figure(corner, distance_m, length_m, real, ideal, caption="") -> bytes:
     """Speed, brake and throttle over one corner, real against ideal.
 
@@ -844,21 +991,9 @@ def detail_figure(corner, distance_m, length_m, real, ideal, caption="") -> byte
     bytes
         PNG image, ``FIGURE_SIZE_PX["detail"]`` pixels.
     """
-    fig = _figure("detail")
-    # Three rows sharing the distance axis, heights 2.2 : 1 : 1, 12 px apart.
-    left, right, top, bottom, gap = 66, 22, 28, 52, 12
-    width = fig.bbox.width - left - right
-    unit = (fig.bbox.height - top - bottom - 2 * gap) / 4.2
-    heights = (2.2 * unit, unit, unit)
-    y_top = fig.bbox.height - top
-    axes = []
-    for h in heights:
-        y_top -= h
-        share = {"sharex": axes[0]} if axes else {}
-        axes.append(_axes_px(fig, left, y_top, width, h, **share))
-        y_top -= gap
-    for a in axes[:-1]:
-        a.tick_params(labelbottom=False)
+    from limitlap._canvas import Entry, Panel
+
+    c = _canvas("detail")
     idx, s = _window(distance_m, corner["start_m"], corner["end_m"], length_m)
     if idx.size < 2:
         idx = np.arange(np.asarray(distance_m).size)
@@ -867,76 +1002,132 @@ def detail_figure(corner, distance_m, length_m, real, ideal, caption="") -> byte
     def unwrap(x):
         return x + length_m if x < s[0] - 1e-9 else x
 
-    axes[0].plot(s, _kmh(ideal["speed_m_s"][idx]), color=IDEAL, lw=1.8, label="ideal")
-    axes[0].plot(s, _kmh(real["speed_m_s"][idx]), color=REAL, lw=1.3, label="your lap")
-    axes[0].set_ylabel("speed [km/h]")
+    v_ideal = _kmh(ideal["speed_m_s"][idx])
+    v_real = _kmh(real["speed_m_s"][idx])
+    shares = {
+        key: (100 * np.asarray(ideal[key])[idx], 100 * np.asarray(real[key])[idx])
+        for key in ("brake", "throttle")
+    }
+    # Three rows sharing the distance axis, heights 2.2 : 1 : 1, 12 px apart; the speed
+    # row's limits as matplotlib's automatic ones (5 % margins), the shares -5 to 110 %.
+    right, top, bottom, gap = 22, 28, 52, 12
+    unit = (c.height - top - bottom - 2 * gap) / 4.2
+    heights = (2.2 * unit, unit, unit)
+    lo = min(float(np.nanmin(v_ideal)), float(np.nanmin(v_real)))
+    hi = max(float(np.nanmax(v_ideal)), float(np.nanmax(v_real)))
+    pad = 0.05 * max(hi - lo, 1e-6)
+    ylims = [(lo - pad, hi + pad), (-5.0, 110.0), (-5.0, 110.0)]
+    ticks = [_y_ticks(a, b, h) for (a, b), h in zip(ylims, heights, strict=True)]
+    left = _left_margin(c, [t for _, labels in ticks for t in labels])
+    xlim = (s[0], s[-1])
+    panels, y = [], top
+    for h, yl in zip(heights, ylims, strict=True):
+        panels.append(Panel(c, left, y, c.width - left - right, h, xlim, yl))
+        y += h + gap
+    xt = panels[0].auto_xticks(_FONT_PT)
+    brakes = []
     for key, colour, word, y_frac, va in (
         ("brake_start_ideal_m", IDEAL, "ideal brakes", 0.98, "top"),
         ("brake_start_actual_m", REAL, "you brake", 0.02, "bottom"),
     ):
         b = corner.get(key)
         if b is not None and np.isfinite(b):
-            for a in axes:
-                a.axvline(unwrap(b), color=colour, lw=1.0, ls="--")
-            axes[0].annotate(
+            brakes.append((unwrap(b), colour, word, y_frac, va))
+    apex = unwrap(corner["apex_m"])
+    rows = [
+        ("speed [km/h]", v_ideal, v_real, (1.8, 1.3), None),
+        ("brake [%]", *shares["brake"], (1.6, 1.2), "brake"),
+        ("throttle [%]", *shares["throttle"], (1.6, 1.2), "throttle"),
+    ]
+    for i, (p, (yt, ylabels), (ylabel, y_ideal, y_real, lws, key)) in enumerate(
+        zip(panels, ticks, rows, strict=True)
+    ):
+        p.grid(xt, yt, GRID, 0.6)
+        p.line(s, y_ideal, IDEAL, lws[0])
+        p.line(s, y_real, REAL, lws[1])
+        for b, colour, *_ in brakes:
+            p.vline(b, colour, 1.0, dash="--")
+        if i == 0:
+            p.vline(apex, "#777777", 0.8, dash=":")
+        p.frame(colour=EDGE)
+        last = i == len(panels) - 1
+        below = p.xticks(
+            xt,
+            [f"{x % length_m:.0f}" for x in xt],  # past the gate, distances from the gate
+            size_pt=_FONT_PT,
+            colour=INK,
+            show_labels=last,
+        )
+        p.ylabel(ylabel, p.yticks(yt, ylabels, size_pt=_FONT_PT, colour=INK), size_pt=_FONT_PT)
+        if last:
+            p.xlabel("distance from the start/finish gate [m]", below, size_pt=_FONT_PT)
+        if key is not None:
+            c.legend(
+                [
+                    Entry(ideal.get(f"{key}_label", "ideal"), "line", IDEAL, lws[0]),
+                    Entry(real.get(f"{key}_label", "your lap"), "line", REAL, lws[1]),
+                ],
+                loc="center right",
+                within=p.box,
+                ncols=2,
+                size_pt=8,
+                frame=True,
+            )
+    top_panel = panels[0]
+    words = []
+    for b, colour, word, y_frac, va in brakes:
+        words.append(
+            c.text(
+                float(top_panel.px(b)) - 2.0,  # clear of the 1 px line
+                top_panel.fy(y_frac),
                 word,
-                (unwrap(b), y_frac),
-                xycoords=("data", "axes fraction"),
-                rotation=90,
-                fontsize=8,
-                color=colour,
+                size_pt=8,
+                colour=colour,
+                rotation=90.0,
                 ha="right",
                 va=va,
             )
-    axes[0].axvline(unwrap(corner["apex_m"]), color="#777777", lw=0.8, ls=":")
-    axes[0].annotate(
-        "apex",
-        (unwrap(corner["apex_m"]), 0.02),
-        xycoords=("data", "axes fraction"),
-        fontsize=8,
-        color="#555555",
-        ha="left",
-        va="bottom",
+        )
+    words.append(
+        c.text(
+            float(top_panel.px(apex)),
+            top_panel.fy(0.02),
+            "apex",
+            size_pt=8,
+            colour="#555555",
+            ha="left",
+            va="bottom",
+        )
     )
-    axes[0].legend(loc="best", ncols=2, frameon=True, framealpha=0.85, edgecolor="none")
-    for ax, key in ((axes[1], "brake"), (axes[2], "throttle")):
-        ax.plot(
-            s,
-            100 * np.asarray(ideal[key])[idx],
-            color=IDEAL,
-            lw=1.6,
-            label=ideal.get(f"{key}_label", "ideal"),
-        )
-        ax.plot(
-            s,
-            100 * np.asarray(real[key])[idx],
-            color=REAL,
-            lw=1.2,
-            label=real.get(f"{key}_label", "your lap"),
-        )
-        ax.set_ylim(-5, 110)
-        ax.set_ylabel(f"{key} [%]")
-        ax.legend(
-            loc="center right", fontsize=8, ncols=2, frameon=True, framealpha=0.85, edgecolor="none"
-        )
-    axes[2].set_xlabel("distance from the start/finish gate [m]")
-    axes[0].set_xlim(s[0], s[-1])
-    from matplotlib.ticker import FuncFormatter
-
-    # Past the gate the axis runs on; the labels stay distances from the gate.
-    axes[2].xaxis.set_major_formatter(FuncFormatter(lambda x, _pos: f"{x % length_m:.0f}"))
-    _fit_left(fig, axes)
+    # the legend keeps off the curves, the brake and apex lines and their words
+    keep = np.isfinite(v_ideal) | np.isfinite(v_real)
+    box = top_panel.box
+    down = np.arange(box.y0, box.y1, 4.0)
+    marks = [top_panel.px(x) for x in [b for b, *_ in brakes] + [apex]]
+    avoid_x = np.concatenate(
+        [top_panel.px(s[keep]), top_panel.px(s[keep])] + [np.full(down.size, m) for m in marks]
+    )
+    avoid_y = np.concatenate(
+        [top_panel.py(np.nan_to_num(v_ideal[keep])), top_panel.py(np.nan_to_num(v_real[keep]))]
+        + [down] * len(marks)
+    )
+    c.legend(
+        [Entry("ideal", "line", IDEAL, 1.8), Entry("your lap", "line", REAL, 1.3)],
+        loc="best",
+        within=top_panel.box,
+        ncols=2,
+        frame=True,
+        avoid=(avoid_x, avoid_y),
+        avoid_boxes=words,
+    )
     title = caption or corner["name"]
-    axes[0].set_title(
-        title if len(title) < 130 else title[:127] + "...", loc="left", fontsize=11, y=1.0
-    )
-    return _png(fig, "detail")
+    top_panel.title(title if len(title) < 130 else title[:127] + "...", size_pt=11)
+    return _png(c, "detail")
 
 
 # --------------------------------------------------------------------------- best of own laps
 
 
-@_styled
 def best_figure(corners, lap_time_s, best_time_s, ideal_time_s, lap_label="this lap") -> bytes:
     """Best of the driver's own laps beside the analysed lap and the limit.
 
@@ -955,29 +1146,34 @@ def best_figure(corners, lap_time_s, best_time_s, ideal_time_s, lap_label="this 
     bytes
         PNG image, ``FIGURE_SIZE_PX["best"]`` pixels.
     """
-    fig = _figure("best")
+    from limitlap._canvas import Entry, Panel
+
+    c = _canvas("best")
     labels = [lap_label, "best of your laps", "ideal (limit)"]
     # Whole lap on the left (width 1), per corner on the right (2.6); the gap holds the
     # right panel's tick labels and axis label.
-    margin_l = _text_width_px(fig, labels, 11) + _TICK_PX + 8
+    margin_l = c.text_width(labels, _FONT_PT) + _TICK_PX + 8
     gap, margin_r, top, bottom = 84, 12, 30, 52
-    unit = (fig.bbox.width - margin_l - margin_r - gap) / 3.6
+    unit = (c.width - margin_l - margin_r - gap) / 3.6
     # Corner names wider than their place under the bars are set at 30 degrees.
-    names = [c["name"] for c in corners]
-    name_size = 10 if len(names) <= 16 else 8
-    name_px = _text_width_px(fig, names, name_size)
+    names = [r["name"] for r in corners]
+    name_pt = 10 if len(names) <= 16 else 8
+    name_px = c.text_width(names, name_pt)
     tilt = name_px > 0.9 * 2.6 * unit / max(len(names), 1)
     if tilt:  # the slanted names' height (w sin 30 + h cos 30) below the ticks
-        bottom = max(bottom, _TICK_PX + 0.5 * name_px + 0.87 * 1.4 * name_size + 8)
-    height = fig.bbox.height - top - bottom
-    left = _axes_px(fig, margin_l, bottom, unit, height)
-    right = _axes_px(fig, margin_l + unit + gap, bottom, 2.6 * unit, height)
+        bottom = max(bottom, _TICK_PX + 0.5 * name_px + 0.87 * 1.4 * name_pt + 8)
+    height = c.height - top - bottom
+
+    # Whole lap: time above the ideal, bars 0.6 high on rows 0-2 with 5 % margins.
     values = [lap_time_s, best_time_s, ideal_time_s]
-    colours = [REAL, BEST, IDEAL]
     above = [v - ideal_time_s if v is not None and np.isfinite(v) else np.nan for v in values]
+    x_top = max([a for a in above if np.isfinite(a)] + [1e-3])
+    m = 0.05 * 2.6
+    left = Panel(c, margin_l, top, unit, height, (0.0, x_top * 1.9), (2.3 + m, -0.3 - m))
+    xt = left.auto_xticks(_FONT_PT)
+    left.grid(xticks=xt, colour=GRID, lw_pt=0.6)
     y = np.arange(3)
-    left.barh(y, np.nan_to_num(above), color=colours, height=0.6)
-    top = max([a for a in above if np.isfinite(a)] + [1e-3])
+    left.barh(y, np.nan_to_num(above), [REAL, BEST, IDEAL], height=0.6)
     for yi, v, a in zip(y, values, above, strict=True):
         text = (
             "n/a"
@@ -986,43 +1182,63 @@ def best_figure(corners, lap_time_s, best_time_s, ideal_time_s, lap_label="this 
             if a > 0
             else _laptime(v)
         )
-        left.annotate(
+        left.text(
+            max(a, 0.0) if np.isfinite(a) else 0.0,
+            yi,
             text,
-            (max(a, 0.0) if np.isfinite(a) else 0.0, yi),
-            xytext=(4, 0),
-            textcoords="offset points",
+            dx=_pt(4),
+            size_pt=10,
+            colour=INK,
             va="center",
-            fontsize=10,
         )
-    left.set_yticks(y, labels)
-    left.invert_yaxis()
-    left.grid(axis="y", visible=False)
-    left.set_xlim(0, top * 1.9)
-    left.set_xlabel("time above the ideal lap [s]")
-    left.set_title("Whole lap", loc="left", y=1.0)
+    left.frame(colour=EDGE)
+    below = left.xticks(xt, size_pt=_FONT_PT, colour=INK)
+    left.yticks(y, labels, size_pt=_FONT_PT, colour=INK)
+    left.xlabel("time above the ideal lap [s]", below, size_pt=_FONT_PT)
+    left.title("Whole lap", size_pt=_TITLE_PT)
 
+    # Per corner: pairs of bars 0.38 wide, limits as matplotlib's automatic ones (5 %
+    # margins; the bars' zero base is not padded when all are above it).
     x = np.arange(len(corners))
-    this = np.array([c["actual_s"] - c["ideal_s"] for c in corners], dtype=np.float64)
-    best = np.array([c.get("best_s", np.nan) - c["ideal_s"] for c in corners], dtype=np.float64)
+    this = np.array([r["actual_s"] - r["ideal_s"] for r in corners], dtype=np.float64)
+    best = np.array([r.get("best_s", np.nan) - r["ideal_s"] for r in corners], dtype=np.float64)
     w = 0.38
-    right.bar(x - w / 2, this, w, color=REAL, label=f"{lap_label} above the limit")
-    right.bar(
-        x + w / 2, np.nan_to_num(best), w, color=BEST, label="your best segment above the limit"
-    )
-    right.axhline(0.0, color=IDEAL, lw=1.5, label="ideal (limit)")
+    both = np.concatenate([this[np.isfinite(this)], np.nan_to_num(best), [0.0]])
+    lo, hi = float(both.min()), float(both.max())
+    span = max(hi - lo, 1e-3)
+    ylim = (lo - 0.05 * span if lo < 0 else 0.0, hi + 0.05 * span if hi > 0 else 0.05 * span)
+    xs = max(len(corners) - 1, 0) + 2 * w
+    xlim = (-w - 0.05 * xs, max(len(corners) - 1, 0) + w + 0.05 * xs)
+    r_yt, r_ylabels = _y_ticks(ylim[0], ylim[1], height)
+    right = Panel(c, margin_l + unit + gap, top, 2.6 * unit, height, xlim, ylim)
+    right.grid(yticks=r_yt, colour=GRID, lw_pt=0.6)
+    right.bar(x - w / 2, this, REAL, width=w)
+    right.bar(x + w / 2, np.nan_to_num(best), BEST, width=w)
+    right.hline(0.0, IDEAL, 1.5)
+    right.frame(colour=EDGE)
     if tilt:
-        right.set_xticks(
-            x, names, fontsize=name_size, rotation=30, ha="right", rotation_mode="anchor"
-        )
+        right.xticks(x, names, size_pt=name_pt, rotation=30, ha="right", anchor=True, colour=INK)
     else:
-        right.set_xticks(x, names, fontsize=name_size)
-    right.set_ylabel("time above the ideal [s]")
-    right.grid(axis="x", visible=False)
-    right.legend(loc="upper right", fontsize=9)
-    right.set_title(
-        "Per corner: what you have already done against what the grip allows", loc="left", y=1.0
+        right.xticks(x, names, size_pt=name_pt, colour=INK)
+    right.ylabel(
+        "time above the ideal [s]",
+        right.yticks(r_yt, r_ylabels, size_pt=_FONT_PT, colour=INK),
+        size_pt=_FONT_PT,
     )
-    return _png(fig, "best")
+    right.title(
+        "Per corner: what you have already done against what the grip allows", size_pt=_TITLE_PT
+    )
+    c.legend(
+        [
+            Entry("ideal (limit)", "line", IDEAL, 1.5),
+            Entry(f"{lap_label} above the limit", "patch", REAL),
+            Entry("your best segment above the limit", "patch", BEST),
+        ],
+        loc="upper right",
+        within=right.box,
+        size_pt=9,
+    )
+    return _png(c, "best")
 
 
 # --------------------------------------------------------------------------- target sheet

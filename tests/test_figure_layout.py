@@ -25,25 +25,13 @@ for i, c in enumerate(LONG):
 
 
 def drawn_texts(fig):
-    """(text, pixel box) of every text the renderer draws (tick labels only within limits)."""
-    renderer = fig.canvas.get_renderer()
-    skip = set()
-    for ax in fig.axes:
-        for axis in (ax.xaxis, ax.yaxis):
-            drawn = {id(lb) for t in axis._update_ticks() for lb in (t.label1, t.label2)}
-            for t in axis.get_major_ticks():
-                skip.update(id(lb) for lb in (t.label1, t.label2) if id(lb) not in drawn)
-    out = []
-    for t in fig.findobj(matplotlib.text.Text):
-        if id(t) in skip or not t.get_visible() or not t.get_text().strip():
-            continue
-        out.append((t.get_text(), t.get_window_extent(renderer)))
-    return out
+    """(text, pixel box) of every text the figure's canvas drew (boxes from the top left)."""
+    return [(t, bb) for t, bb in fig.texts if t.strip()]
 
 
 @pytest.fixture
 def captured(monkeypatch):
-    """Figures handed to _png, so the test can measure their texts."""
+    """Canvases handed to _png, so the test can measure their texts."""
     figs = []
     real_png = figures._png
 
@@ -78,7 +66,7 @@ def test_every_text_lies_inside_the_figure(captured, draw):
     # Half a pixel: the renderer's text boxes are snapped to whole pixels.
     draw()
     (fig,) = captured
-    w, h = fig.bbox.width, fig.bbox.height
+    w, h = fig.width, fig.height
     for text, bb in drawn_texts(fig):
         assert bb.x0 >= -0.5 and bb.y0 >= -0.5, text
         assert bb.x1 <= w + 0.5 and bb.y1 <= h + 0.5, text
@@ -93,7 +81,7 @@ def test_map_names_stay_inside_the_map(captured):
         S,
     )
     (fig,) = captured
-    box = fig.axes[0].get_window_extent(fig.canvas.get_renderer())
+    box = fig.panels[0].box
     names = dict(drawn_texts(fig))
     for c in LONG:
         bb = names[c["name"]]
