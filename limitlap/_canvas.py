@@ -735,6 +735,7 @@ class Canvas:
         title: str | None = None,
         title_size_pt: float | None = None,
         avoid=None,
+        avoid_boxes=(),
     ) -> Box:
         """A legend of ``entries`` (see :class:`Entry`) placed at ``loc`` inside ``within``
         (default: the whole image), laid out as matplotlib's: handles 2 font sizes long,
@@ -743,8 +744,8 @@ class Canvas:
 
         ``loc`` is "upper right", "upper left", "lower left", "lower right", "center
         right", "center left", "upper center", "lower center", "center", or "best": the
-        first of those with the fewest of the ``avoid`` points (x_px, y_px) under it.
-        Returns the legend's box.
+        first of those with the fewest of the ``avoid`` points (x_px, y_px) and
+        ``avoid_boxes`` (:class:`Box`) under it. Returns the legend's box.
         """
         entries = list(entries)
         within = within or Box(0, 0, self.width, self.height)
@@ -811,6 +812,8 @@ class Canvas:
                 b = place(where)
                 n = int(
                     np.count_nonzero((ax_ >= b.x0) & (ax_ <= b.x1) & (ay_ >= b.y0) & (ay_ <= b.y1))
+                ) + sum(
+                    o.x0 < b.x1 and b.x0 < o.x1 and o.y0 < b.y1 and b.y0 < o.y1 for o in avoid_boxes
                 )
                 if best is None or n < best:
                     best, box = n, b
