@@ -10,8 +10,9 @@ is drawn. Every figure has a fixed pixel size (:data:`FIGURE_SIZE_PX`); nothing 
 cropped to fit, so the size is known before drawing.
 
 PNG: RGB, "Up" row filter, zlib level 1, the two halves of the image deflated at once
-(:meth:`limitlap._canvas.Canvas.png`): 3-6 ms a figure and files within a few per cent of
-Pillow's level 3 (which took 10-17 ms); measured on the report's figures.
+(:meth:`limitlap._canvas.Canvas.png`): 2-5 ms a figure against Pillow's 11-27 ms at any
+compress level, files 2-24 % larger than its level 3 (7 % over the report); measured on
+the demo report's figures.
 
 Inputs are plain SI arrays and records; the conversion to km/h and g for display happens
 here, with the factors of :mod:`limitlap.units`.
