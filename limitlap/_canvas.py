@@ -38,6 +38,7 @@ References
 from __future__ import annotations
 
 import math
+import os
 import struct
 import threading
 import zlib
@@ -333,14 +334,18 @@ def auto_bins(length_px: float, size_pt: float, per_label: float, dpi: float) ->
 _DASHES = {"--": (3.7, 1.6), ":": (1.0, 1.65), "-.": (6.4, 1.6, 1.0, 1.6)}  # [lw units]
 _CAPS = {"butt", "round", "projecting"}
 _POOL = None
+_POOL_PID = None
 _POOL_LOCK = threading.Lock()
 
 
 def _pool() -> ThreadPoolExecutor:
-    global _POOL
+    """The PNG encoder's helper thread, one per process (a forked child, which inherits
+    the parent's pool but not its thread, makes its own)."""
+    global _POOL, _POOL_PID
     with _POOL_LOCK:
-        if _POOL is None:
+        if _POOL is None or _POOL_PID != os.getpid():
             _POOL = ThreadPoolExecutor(max_workers=1, thread_name_prefix="limitlap-png")
+            _POOL_PID = os.getpid()
         return _POOL
 
 

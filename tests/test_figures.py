@@ -397,3 +397,26 @@ def test_ray_reach_of_a_circle_and_a_square():
     off = figures._ray_reach([2.0, 3.0, 3.0, 2.0], [-0.5, -0.5, 0.5, 0.5], angles)
     assert off[np.abs(angles) > 0.3].max() == 0.0
     assert off[360] == pytest.approx(3.0)  # angle 0: in at x = 2, out at x = 3
+
+
+@pytest.mark.skipif(not hasattr(__import__("os"), "fork"), reason="needs os.fork")
+# Python 3.12+ warns on any fork of a process with threads; the fork is the point here
+@pytest.mark.filterwarnings("ignore:This process .* is multi-threaded:DeprecationWarning")
+def test_png_encodes_in_a_forked_child_after_the_parent_encoded():
+    # The parent's helper thread does not survive a fork; a child that reused its pool
+    # would wait for ever on the lower half of the image.
+    import multiprocessing
+
+    c = cv.Canvas(200, 100)
+    c.text(10, 50, "lap 3", size_pt=11)
+    parent = c.png()
+    ctx = multiprocessing.get_context("fork")
+    with ctx.Pool(1) as pool:
+        child = pool.apply_async(_encode_small).get(timeout=20)
+    assert child == parent
+
+
+def _encode_small():
+    c = cv.Canvas(200, 100)
+    c.text(10, 50, "lap 3", size_pt=11)
+    return c.png()
