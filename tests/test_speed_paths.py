@@ -145,6 +145,12 @@ def test_envelope_plane_kernel_matches_the_numpy_functions(power_w):
     np.testing.assert_allclose(rho, rho_ref, rtol=1e-12, atol=0.0)
     np.testing.assert_allclose(phi, np.arctan2(sy, sx), rtol=1e-12, atol=1e-15)
     np.testing.assert_allclose(r, r_ref, rtol=1e-12, atol=0.0)
+    # the numpy pass of the boundary points shares the forces between the two: the
+    # same operations in the same order, so the same bits
+    with np.errstate(divide="ignore", invalid="ignore"):
+        rho_np, phi_np = envelope._usage_and_direction(v, ax, ay, car)
+    assert np.array_equal(rho_np, rho_ref, equal_nan=True)
+    assert np.array_equal(phi_np, np.arctan2(sy, sx), equal_nan=True)
 
 
 def test_thinned_fit_keeps_the_envelope():
