@@ -151,8 +151,11 @@ def analyse_job(job: _Job) -> BatchRow:
     An unexpected exception (a bug) is also kept in the row, marked as such, so the
     other logs still go through.
     """
+    import gc
+
     from limitlap import pipeline, report
 
+    gc.freeze()  # the imports' objects out of the collector's way for the job (cli._settle_imports)
     try:
         analysis = pipeline.analyse(
             job.log,
@@ -169,6 +172,8 @@ def analyse_job(job: _Job) -> BatchRow:
         return BatchRow(job.log, job.out_dir, error=str(err))
     except Exception as err:
         return BatchRow(job.log, job.out_dir, error=f"internal error ({type(err).__name__}): {err}")
+    finally:
+        gc.unfreeze()
     cmp_ = analysis.comparison
     return BatchRow(
         log=job.log,

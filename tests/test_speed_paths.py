@@ -313,3 +313,28 @@ def test_peak_prominences_match_scipy_find_peaks():
         want, props = find_peaks(x, prominence=0.0)
         assert np.array_equal(peaks, want)
         assert np.array_equal(prominences, props["prominences"])
+
+
+def test_commands_hand_frozen_objects_back(monkeypatch, capsys):
+    # A command moves the imports' objects out of the collector's way (gc.freeze) and
+    # main() hands them back when it ends: a process that runs commands in-process (these
+    # tests, a notebook) must be left with nothing frozen, or its garbage would pile up.
+    import gc
+    import sys
+
+    from limitlap import cli
+    from limitlap.resources import bundled_path
+
+    line = str(bundled_path("demo_tracks", "example_loop_line.csv"))
+    car = str(bundled_path("vehicles", "gt_coupe.toml"))
+    monkeypatch.setattr(sys, "argv", ["limitlap", "solve", line, "--vehicle", car, "--json"])
+    frozen = []
+    real_freeze = gc.freeze
+    monkeypatch.setattr(gc, "freeze", lambda: (real_freeze(), frozen.append(gc.get_freeze_count())))
+    try:
+        cli.main()
+    except SystemExit as stop:
+        assert stop.code in (None, 0)
+    assert frozen and frozen[0] > 0  # the command did freeze
+    assert gc.get_freeze_count() == 0  # and main() handed everything back
+    assert "lap_time_s" in capsys.readouterr().out
