@@ -208,21 +208,16 @@ def peak_prominences(x):
     n = x.shape[0]
     if n < 3:
         return np.zeros(0, np.int64), np.zeros(0)
-    rise = np.flatnonzero(x[1:-1] > x[:-2]) + 1  # candidates: higher than the left one
-    peaks = []
-    i_next = 0
-    for i in rise.tolist():  # a handful per corner
-        if i < i_next:
-            continue
-        j = i + 1
-        while j < n - 1 and x[j] == x[i]:
-            j += 1
-        if x[j] < x[i]:
-            peaks.append((i + j - 1) // 2)
-        i_next = j
-    peaks = np.asarray(peaks, dtype=np.int64)
+    # Steps that change the value, in order: a rise followed (after any flat run) by a
+    # fall brackets a peak, its flat top from the sample after the rise to the one
+    # before the fall.
+    step = np.sign(np.diff(x))
+    moves = np.flatnonzero(step)
+    turn = (step[moves[:-1]] > 0) & (step[moves[1:]] < 0)
+    left, right = moves[:-1][turn] + 1, moves[1:][turn]
+    peaks = ((left + right) // 2).astype(np.int64)
     prom = np.empty(peaks.shape[0])
-    for k, p in enumerate(peaks.tolist()):
+    for k, p in enumerate(peaks.tolist()):  # a handful of peaks per corner
         higher_left = np.flatnonzero(x[:p] > x[p])
         lo = higher_left[-1] + 1 if higher_left.size else 0
         higher_right = np.flatnonzero(x[p + 1 :] > x[p])
