@@ -90,7 +90,7 @@ _BOUNDS = {
     "drag_area_m2": (0.0, 5.0),
     "downforce_area_m2": (-2.0, 20.0),
 }
-_SCALE = {"power_w": 1.0e5}
+_SCALE = {"power_w": 1.0e5}  # fit power in units of 100 kW for conditioning
 
 #: Rate the low-passed samples are thinned to for the fit when a session has plenty of
 #: them. After the 3 Hz Gaussian low-pass the signal's content at 12.5 Hz (this rate's
@@ -101,7 +101,7 @@ FIT_RATE_HZ = 25.0
 #: the high-quantile rank in sparsely filled direction bins is what thinning would upset
 #: (measured: a two-lap session thinned to 20 Hz moved its fitted exponent 2.0 -> 1.8,
 #: a one-hour session thinned to 25 Hz moved its ideal lap by 0.003 s). [-]
-FIT_MIN_SAMPLES = 60_000  # fit power in units of 100 kW for conditioning
+FIT_MIN_SAMPLES = 60_000
 
 
 @dataclass(frozen=True, eq=False)
@@ -126,6 +126,16 @@ class Selection:
     accel_lat_m_s2: np.ndarray
     used: np.ndarray
     n_spikes: int = 0
+    spike: np.ndarray | None = None
+
+    def within(self, mask) -> Selection:
+        """The same selection restricted to the samples where ``mask`` is True (the
+        result of :func:`select_samples` given that mask: filtering does not look at it)."""
+        keep = np.asarray(mask, dtype=bool)
+        if keep.shape != self.used.shape:
+            raise LimitlapError(f"sample mask has shape {keep.shape}, expected {self.used.shape}")
+        n_spikes = self.n_spikes if self.spike is None else int((self.spike & keep).sum())
+        return replace(self, used=self.used & keep, n_spikes=n_spikes)
 
 
 @dataclass(frozen=True, eq=False)
@@ -323,8 +333,10 @@ def select_samples(
                 finite[a:b] = False  # too short to filter: leave out
         n_spikes = int((spike & keep).sum())
         keep = keep & ~spike & finite
+    else:
+        spike = None
     ok = keep & np.isfinite(v) & np.isfinite(ax) & np.isfinite(ay) & (v >= min_speed_m_s)
-    return Selection(v, ax, ay, ok, n_spikes)
+    return Selection(v, ax, ay, ok, n_spikes, spike)
 
 
 #: Records at least this long have their two acceleration channels despiked and filtered
@@ -506,6 +518,7 @@ def fit_envelope(
     max_passes=5,
     throttle=None,
     fit_rate_hz=FIT_RATE_HZ,
+    selection: Selection | None = None,
 ) -> EnvelopeFit:
     """Fit the g-g-V envelope of INTERFACE §3 to the samples a driver demonstrated.
 
@@ -554,6 +567,10 @@ def fit_envelope(
         With ``sample_rate_hz``, a long session's filtered samples are thinned to about
         this rate before binning (never below :data:`FIT_MIN_SAMPLES` samples); None keeps
         every sample. [Hz]
+    selection : Selection, optional
+        :func:`select_samples` of these same arrays with this sample rate and minimum
+        speed but no mask, made beforehand (the pipeline makes it in a second thread while
+        it splits the laps); ``mask`` is applied to it. [-]
 
     Returns
     -------
@@ -584,14 +601,17 @@ def fit_envelope(
         raise LimitlapError(f"vehicle '{base.name}' needs a positive mass to fit an envelope")
     if not 0.5 <= quantile < 1.0:
         raise LimitlapError(f"envelope quantile {quantile} is outside 0.5-1")
-    sel = select_samples(
-        speed_m_s,
-        accel_lon_m_s2,
-        accel_lat_m_s2,
-        mask,
-        sample_rate_hz=sample_rate_hz,
-        min_speed_m_s=min_speed_m_s,
-    )
+    if selection is None:
+        sel = select_samples(
+            speed_m_s,
+            accel_lon_m_s2,
+            accel_lat_m_s2,
+            mask,
+            sample_rate_hz=sample_rate_hz,
+            min_speed_m_s=min_speed_m_s,
+        )
+    else:
+        sel = selection if mask is None else selection.within(mask)
     used = sel.used
     if sample_rate_hz is not None and fit_rate_hz is not None:
         step = min(int(float(sample_rate_hz) // float(fit_rate_hz)), int(used.sum()) // FIT_MIN_SAMPLES)

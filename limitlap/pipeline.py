@@ -19,6 +19,7 @@ from __future__ import annotations
 
 import math
 from collections.abc import Callable
+from concurrent.futures import ThreadPoolExecutor
 from dataclasses import dataclass, field
 from pathlib import Path
 
@@ -178,11 +179,21 @@ def load_session(log_path, *, gate=None, channels=None, track=None):
     -------
     (ingest.Log, list of laps.Lap, ingest.Track or None, list of str)
     """
-    warnings: list[str] = []
+    log, trk, warnings = _read_session(log_path, channels, track)
+    laps = _split_session(log_path, log, trk, gate, warnings)
+    return log, laps, trk, warnings
+
+
+def _read_session(log_path, channels, track):
+    """The log (and its warnings) and the track of :func:`load_session`."""
     channel_map = ingest.read_channel_map(channels) if channels is not None else None
     log = ingest.read_log(log_path, channel_map)
-    warnings += list(log.warnings)
     trk = ingest.read_track(track) if isinstance(track, str | Path) else track
+    return log, trk, list(log.warnings)
+
+
+def _split_session(log_path, log, trk, gate, warnings):
+    """The laps of :func:`load_session` (a warning added when the gate was placed)."""
     if isinstance(gate, str):
         gate = laps_mod.parse_gate(gate)
     if gate is None and trk is not None and trk.gate_latlon is not None:
@@ -200,8 +211,13 @@ def load_session(log_path, *, gate=None, channels=None, track=None):
             f"{log_path}: no start/finish gate given and no lap column; gate placed at {where} "
             "(give --gate LAT,LON for lap times from the real line)"
         )
-    laps = laps_mod.split_laps(log, gate)
-    return log, laps, trk, warnings
+    return laps_mod.split_laps(log, gate)
+
+
+def _sample_rate(log):
+    """The log's sample rate from its median time step, None for a single row. [Hz]"""
+    dt = np.diff(log.time_s)
+    return float(1.0 / np.median(dt)) if dt.size else None
 
 
 def _imu_samples(log, laps, rows_of, pad_s=None):
@@ -215,8 +231,7 @@ def _imu_samples(log, laps, rows_of, pad_s=None):
     if not (log.has("accel_lon") and log.has("accel_lat")):
         return None
     n = log.time_s.shape[0]
-    dt = np.diff(log.time_s)
-    rate = float(1.0 / np.median(dt)) if dt.size else None
+    rate = _sample_rate(log)
     rows = slice(0, n)
     if pad_s is not None and rows_of and rate:
         pad = math.ceil(pad_s * rate)
@@ -281,60 +296,72 @@ def analyse(
     total = 6
     k = check_grip_scale(grip_scale)
     _step(progress, 0, total, "reading the log")
-    log, laps, trk, warnings = load_session(log_path, gate=gate, channels=channels, track=track)
-    complete = [lp for lp in laps if lp.complete]
-    if not complete:
-        raise InputError(log_path, "no complete lap in the log (a lap needs two gate crossings)")
-    if lap is None:
-        chosen = laps_mod.fastest_lap(laps)
-    else:
-        matches = [lp for lp in laps if lp.number == lap]
-        if not matches:
-            numbers = ", ".join(str(lp.number) for lp in laps)
-            raise InputError(log_path, f"no lap {lap}; the log has laps {numbers}")
-        chosen = matches[0]
-        if not chosen.complete:
-            raise InputError(log_path, f"lap {lap} is not complete ({chosen.reason})")
-
-    _step(progress, 1, total, "rebuilding the driven line")
-    # Only the analysed lap's line is rebuilt (GNSS/inertial fusion); the other laps give
-    # the composite their time against distance straight from the logged speed.
-    the_lap = driven_mod.reconstruct_lap(log, chosen)
-    warnings += [w for w in the_lap.warnings if w not in warnings]
-
-    _step(progress, 2, total, "fitting the grip envelope")
+    log, trk, warnings = _read_session(log_path, channels, track)
     if isinstance(vehicle, Vehicle):
         base = vehicle
     elif vehicle is not None:
         base = ingest.read_vehicle(vehicle, require_complete=False)
     else:
         base = Vehicle("fitted from the log", NOMINAL_MASS_KG)
-    fit = None
-    if base.is_complete:
-        car = base
-    else:
-        samples = _imu_samples(log, laps, complete)
-        if samples is None:  # no IMU: samples from every complete lap's rebuilt line
-            samples = _trace_samples(
-                [the_lap if lp is chosen else driven_mod.reconstruct_lap(log, lp) for lp in complete]
+    with ThreadPoolExecutor(max_workers=1) as pool:
+        # The envelope's sample selection (despike and low-pass every row) needs no laps:
+        # it runs in a second thread while the laps are split and the line rebuilt.
+        early = None
+        if not base.is_complete and log.has("accel_lon") and log.has("accel_lat"):
+            ch = log.channels
+            early = pool.submit(
+                envelope.select_samples, ch["speed"], ch["accel_lon"], ch["accel_lat"],
+                sample_rate_hz=_sample_rate(log),
             )
-        v_s, ax_s, ay_s, mask_s, rate, thr_s = samples
-        try:
-            fit = envelope.fit_envelope(
-                v_s, ax_s, ay_s, base, mask=mask_s, sample_rate_hz=rate, throttle=thr_s
-            )
-        except InputError:
-            raise
-        except LimitlapError as err:  # the log's data cannot support a fit: name the log
-            raise InputError(log_path, f"{err} (give a vehicle file with [grip])") from err
-        car = fit.vehicle
-        # The fit's own lines do not know the file; say which log they are about.
-        warnings += [f"{log_path}: {w}" for w in fit.warnings if f"{log_path}: {w}" not in warnings]
-        if vehicle is None:
-            warnings.append(
-                f"no vehicle file: mass taken as {NOMINAL_MASS_KG:.0f} kg; the fitted power and "
-                "aero areas are per that mass (the ideal lap does not depend on it)"
-            )
+        laps = _split_session(log_path, log, trk, gate, warnings)
+        complete = [lp for lp in laps if lp.complete]
+        if not complete:
+            raise InputError(log_path, "no complete lap in the log (a lap needs two gate crossings)")
+        if lap is None:
+            chosen = laps_mod.fastest_lap(laps)
+        else:
+            matches = [lp for lp in laps if lp.number == lap]
+            if not matches:
+                numbers = ", ".join(str(lp.number) for lp in laps)
+                raise InputError(log_path, f"no lap {lap}; the log has laps {numbers}")
+            chosen = matches[0]
+            if not chosen.complete:
+                raise InputError(log_path, f"lap {lap} is not complete ({chosen.reason})")
+
+        _step(progress, 1, total, "rebuilding the driven line")
+        # Only the analysed lap's line is rebuilt (GNSS/inertial fusion); the other laps
+        # give the composite their time against distance straight from the logged speed.
+        the_lap = driven_mod.reconstruct_lap(log, chosen)
+        warnings += [w for w in the_lap.warnings if w not in warnings]
+
+        _step(progress, 2, total, "fitting the grip envelope")
+        fit = None
+        if base.is_complete:
+            car = base
+        else:
+            samples = _imu_samples(log, laps, complete)
+            if samples is None:  # no IMU: samples from every complete lap's rebuilt line
+                samples = _trace_samples(
+                    [the_lap if lp is chosen else driven_mod.reconstruct_lap(log, lp) for lp in complete]
+                )
+            v_s, ax_s, ay_s, mask_s, rate, thr_s = samples
+            try:
+                fit = envelope.fit_envelope(
+                    v_s, ax_s, ay_s, base, mask=mask_s, sample_rate_hz=rate, throttle=thr_s,
+                    selection=None if early is None else early.result(),
+                )
+            except InputError:
+                raise
+            except LimitlapError as err:  # the log's data cannot support a fit: name the log
+                raise InputError(log_path, f"{err} (give a vehicle file with [grip])") from err
+            car = fit.vehicle
+            # The fit's own lines do not know the file; say which log they are about.
+            warnings += [f"{log_path}: {w}" for w in fit.warnings if f"{log_path}: {w}" not in warnings]
+            if vehicle is None:
+                warnings.append(
+                    f"no vehicle file: mass taken as {NOMINAL_MASS_KG:.0f} kg; the fitted power "
+                    "and aero areas are per that mass (the ideal lap does not depend on it)"
+                )
 
     _step(progress, 3, total, "solving the ideal lap")
     ideal = solve.solve_profile(the_lap.line, car, k)

@@ -338,3 +338,24 @@ def test_commands_hand_frozen_objects_back(monkeypatch, capsys):
     assert frozen and frozen[0] > 0  # the command did freeze
     assert gc.get_freeze_count() == 0  # and main() handed everything back
     assert "lap_time_s" in capsys.readouterr().out
+
+
+def test_selection_made_beforehand_gives_the_same_fit(session_and_log):
+    # The pipeline selects the envelope's samples (no mask) in a second thread while it
+    # splits the laps, then fits with the laps' mask applied to that selection: the fit
+    # must be the one made from the arrays and the mask directly.
+    session, log = session_and_log
+    laps = split_laps(log, Gate.geodetic(*session.truth.gate_latlon))
+    v, ax, ay, mask, rate, thr = pipeline._imu_samples(log, laps, [lp for lp in laps if lp.complete])
+    base = envelope.Vehicle("m", 1200.0)
+    direct = envelope.fit_envelope(v, ax, ay, base, mask=mask, sample_rate_hz=rate, throttle=thr)
+    early = envelope.select_samples(v, ax, ay, sample_rate_hz=rate)
+    later = envelope.fit_envelope(
+        v, ax, ay, base, mask=mask, sample_rate_hz=rate, throttle=thr, selection=early
+    )
+    assert later.vehicle == direct.vehicle
+    assert np.array_equal(later.used, direct.used)
+    restricted = early.within(mask)
+    again = envelope.select_samples(v, ax, ay, mask, sample_rate_hz=rate)
+    assert np.array_equal(restricted.used, again.used)
+    assert restricted.n_spikes == again.n_spikes
