@@ -1,5 +1,5 @@
 """``python -m limitlap`` runs the command line."""
 
-from limitlap.cli import main
+from limitlap.cli import run
 
-main()
+run()
