@@ -195,7 +195,8 @@ def main() -> None:
         help_cmd = [sys.executable, "-m", "limitlap", "--help"]
         print("\ncold start (median of 5 fresh processes, numba cache warm):")
         print(f"  limitlap --help         {_cold(help_cmd):.2f} s")
-        print(f"  limitlap solve --json   {_cold(solve_cmd):.2f} s")
+        cold_solve = _cold(solve_cmd)
+        print(f"  limitlap solve --json   {cold_solve:.2f} s")
 
         demo = str(bundled_path("demo_tracks", "tarrowby_dry.csv.gz"))
         out = str(Path(tmp) / "imports-out")
@@ -228,6 +229,24 @@ def main() -> None:
             got = "matplotlib" in _imports(cmd)
             verdict = "ok" if got == expected else "UNEXPECTED"
             print(f"  {label:<22}{'yes' if got else 'no':>4}  ({verdict})")
+
+        def ratio(name):
+            r = results[name]
+            return statistics.median(r["times"]) / statistics.median(r["yard"])
+
+        peak = max(max(r["rss"], r["traced"]) for r in results.values()) / size
+        checks = [
+            ("analyse without figures <= 3x parse", f"{ratio('analyse'):.2f}x", ratio("analyse") <= 3.0),
+            ("analyse with the report <= 6x parse", f"{ratio('analyse+report'):.2f}x",
+             ratio("analyse+report") <= 6.0),
+            ("sweep of 1,000 scales < 1 s", f"{statistics.median(results['sweep']['times']):.2f} s",
+             statistics.median(results["sweep"]["times"]) < 1.0),
+            ("peak memory < 10x the file", f"{peak:.2f}x", peak < 10.0),
+            ("cold start of solve --json < 1.5 s", f"{cold_solve:.2f} s", cold_solve < 1.5),
+        ]
+        print("\nissue 6 targets:")
+        for what, got, ok in checks:
+            print(f"  {what:<40}{got:>9}  {'met' if ok else 'NOT met'}")
 
 
 if __name__ == "__main__":
