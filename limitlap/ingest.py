@@ -733,7 +733,8 @@ def read_log(path, channel_map=None) -> Log:
             data.pop("y", None)
         lat, lon = data["latitude"], data["longitude"]
         for channel, values, limit in (("latitude", lat, 90.0), ("longitude", lon, 180.0)):
-            out = np.abs(np.nan_to_num(values)) > limit
+            with np.errstate(invalid="ignore"):
+                out = np.abs(values) > limit  # False for blanks (NaN)
             if out.any():
                 i, row = _first_bad(rows, out)
                 raise InputError(
@@ -780,16 +781,17 @@ def _to_enu(lat, lon, altitude, fix):
     import pymap3d  # deferred with polars: only logs need it
 
     first = int(np.argmax(fix))
-    height = np.zeros_like(lat) if altitude is None else altitude.copy()
+    rows = np.flatnonzero(fix)  # only the fixes are converted
+    height = np.zeros(rows.size) if altitude is None else altitude[rows]  # a copy
     known = np.isfinite(height)
-    h0 = float(height[first]) if known[first] else (float(height[known][0]) if known.any() else 0.0)
+    h0 = float(height[0]) if known[0] else (float(height[known][0]) if known.any() else 0.0)
     height[~known] = h0
     origin = (float(lat[first]), float(lon[first]), h0)
     x = np.full_like(lat, np.nan)
     y = np.full_like(lat, np.nan)
-    east, north, _ = pymap3d.geodetic2enu(lat[fix], lon[fix], height[fix], *origin)
-    x[fix] = east
-    y[fix] = north
+    east, north, _ = pymap3d.geodetic2enu(lat[rows], lon[rows], height, *origin)
+    x[rows] = east
+    y[rows] = north
     return x, y, origin
 
 

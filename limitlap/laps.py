@@ -250,23 +250,33 @@ def gate_crossings(log: Log, gate: Gate) -> np.ndarray:
     x, y = fill_position(log)
     s = travelled_m(log)
     t = log.time_s
-    dist = np.hypot(x - gx, y - gy)
-    if not np.isfinite(dist).any():
+    dx, dy = x - gx, y - gy
+    d2 = dx * dx + dy * dy
+    if not np.isfinite(d2).any():
         raise InputError(log.path, "no position to place the gate on")
-    near = int(np.nanargmin(dist))
-    if dist[near] > gate.half_width_m:
+    near = int(np.nanargmin(d2))
+    if math.sqrt(d2[near]) > gate.half_width_m:
         raise InputError(
-            log.path, f"the car never crosses the gate at {gate} (closest pass {dist[near]:.0f} m away)"
+            log.path,
+            f"the car never crosses the gate at {gate} (closest pass {math.sqrt(d2[near]):.0f} m away)",
         )
     direction = _direction_at(x, y, s, near)
     if direction is None:
         raise InputError(log.path, f"the car does not move at the gate at {gate}")
     nx, ny = direction
-    along = (x - gx) * nx + (y - gy) * ny  # signed distance past the gate line
-    across = -(x - gx) * ny + (y - gy) * nx  # offset along the gate line
-    a0, a1 = along[:-1], along[1:]
-    i = np.flatnonzero(np.isfinite(a0) & np.isfinite(a1) & (a0 < 0) & (a1 >= 0))
-    frac = -a0[i] / (a1[i] - a0[i])
+    # Only row pairs near the gate can cross it within its half width (a row's step is a
+    # metre or so; 100 m of margin): the signed distances are taken there alone.
+    with np.errstate(invalid="ignore"):
+        close = d2 < (gate.half_width_m + 100.0) ** 2
+    pairs = np.flatnonzero(close[:-1] & close[1:])
+    ends = np.concatenate((pairs, pairs + 1))
+    along = np.full(x.shape[0], np.nan)
+    across = np.full(x.shape[0], np.nan)
+    along[ends] = dx[ends] * nx + dy[ends] * ny  # signed distance past the gate line
+    across[ends] = -dx[ends] * ny + dy[ends] * nx  # offset along the gate line
+    a0, a1 = along[pairs], along[pairs + 1]
+    i = pairs[(a0 < 0) & (a1 >= 0)]
+    frac = -along[i] / (along[i + 1] - along[i])
     offset = across[i] + frac * (across[i + 1] - across[i])
     keep = np.abs(offset) <= gate.half_width_m
     i, frac = i[keep], frac[keep]
