@@ -331,16 +331,22 @@ def profile_csv_text(columns: Mapping, units: Mapping) -> str:
     Returns
     -------
     str
-        Header row and one row per sample, 8 significant digits, blank cells for NaN.
+        Header row and one row per sample, blank cells for NaN. Each column is rounded to
+        the decimal places that keep 8 significant digits of its largest value (the same
+        absolute resolution all down the column) and written as the shortest decimal of
+        that number, by polars' CSV writer (a few milliseconds where Python's own
+        formatting of a lap's 50,000 cells took 13).
 
     Examples
     --------
     >>> print(profile_csv_text({"distance": [0.0, 1.5], "speed": [100.0, float("nan")]},
     ...                        {"distance": "m", "speed": "km/h"}), end="")
     distance [m],speed [km/h]
-    0,100
+    0.0,100.0
     1.5,
     """
+    import polars as pl  # deferred, as in the reader
+
     names = list(columns)
     if not names:
         raise LimitlapError("a profile CSV needs at least one column")
@@ -350,13 +356,18 @@ def profile_csv_text(columns: Mapping, units: Mapping) -> str:
         if a.shape[0] != n_rows:
             raise LimitlapError(f"profile column '{name}' has {a.shape[0]} rows, expected {n_rows}")
     header = ",".join(_csv_cell(f"{n} [{units[n]}]" if units.get(n) else str(n)) for n in names)
-    table = np.column_stack(arrays) if n_rows else np.empty((0, len(names)))
-    # Non-finite cells become NaN, whose "nan" is then blanked; adding +0.0 turns -0.0 into
-    # +0.0 (IEEE 754 round-to-nearest), so no cell reads "-0". One format per row.
-    table = np.where(np.isfinite(table), table, np.nan) + 0.0
-    row = ",".join(["%.8g"] * len(names))
-    body = "\n".join([row % values for values in map(tuple, table.tolist())])
-    return f"{header}\n{body.replace('nan', '')}\n" if n_rows else f"{header}\n"
+    if n_rows == 0:
+        return f"{header}\n"
+    frame = {}
+    for j, a in enumerate(arrays):
+        finite = np.isfinite(a)
+        top = float(np.max(np.abs(a[finite]))) if finite.any() else 0.0
+        places = 8 - (math.floor(math.log10(top)) + 1) if top > 0.0 else 0
+        # NaN for every non-finite cell (written blank); + 0.0 turns -0.0 into +0.0
+        # (IEEE 754 round-to-nearest), so no cell reads "-0.0"
+        frame[f"c{j}"] = np.round(np.where(finite, a, np.nan), min(max(places, 0), 15)) + 0.0
+    body = pl.DataFrame(frame).fill_nan(None).write_csv(include_header=False, null_value="")
+    return f"{header}\n{body}"
 
 
 def solve_profile_csv_text(profile, line=None) -> str:
