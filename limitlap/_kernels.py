@@ -391,6 +391,29 @@ def boundary_points(key, rho, rank):
     return out
 
 
+@njit(cache=True, inline="always")
+def _plane_point(v, ax, ay, veh):
+    """One sample of ``envelope_plane``: (rho, s_x, s_y, r)."""
+    m = veh[I_MASS]
+    e = veh[I_EXPONENT]
+    weight = m * veh[I_G]
+    q = 0.5 * veh[I_RHO] * v * v
+    normal = weight + q * veh[I_LIFT_AREA]
+    fx = m * ax + (q * veh[I_DRAG_AREA] + veh[I_CRR] * weight)
+    sy = m * ay / (veh[I_MU_LAT] * normal)
+    if fx >= 0.0:
+        traction = veh[I_MU_TRAC] * normal
+        tyre_x = fx / traction
+        power_force = veh[I_POWER] / v if v > 0.0 else np.inf
+        sx = fx / min(traction, power_force)
+    else:
+        tyre_x = -fx / (veh[I_MU_BRK] * normal)
+        sx = -tyre_x
+    tyre = (tyre_x**e + abs(sy) ** e) ** (1.0 / e)
+    power = fx * v / veh[I_POWER] if fx > 0.0 else 0.0
+    return max(tyre, power), sx, sy, np.hypot(fx / m, ay)
+
+
 @njit(cache=True)
 def envelope_plane(v, ax, ay, veh):
     """Kernel of ``limitlap.envelope``'s tyre-plane quantities, one pass per sample.
@@ -406,31 +429,50 @@ def envelope_plane(v, ax, ay, veh):
     rho = np.empty(n)
     phi = np.empty(n)
     r = np.empty(n)
-    m = veh[I_MASS]
-    g = veh[I_G]
-    e = veh[I_EXPONENT]
-    inv_e = 1.0 / e
-    weight = m * g
-    rolling = veh[I_CRR] * weight
     for i in range(n):
-        q = 0.5 * veh[I_RHO] * v[i] * v[i]
-        normal = weight + q * veh[I_LIFT_AREA]
-        fx = m * ax[i] + (q * veh[I_DRAG_AREA] + rolling)
-        sy = m * ay[i] / (veh[I_MU_LAT] * normal)
-        if fx >= 0.0:
-            traction = veh[I_MU_TRAC] * normal
-            tyre_x = fx / traction
-            power_force = veh[I_POWER] / v[i] if v[i] > 0.0 else np.inf
-            sx = fx / min(traction, power_force)
-        else:
-            tyre_x = -fx / (veh[I_MU_BRK] * normal)
-            sx = -tyre_x
-        tyre = (tyre_x**e + abs(sy) ** e) ** inv_e
-        power = fx * v[i] / veh[I_POWER] if fx > 0.0 else 0.0
-        rho[i] = max(tyre, power)
+        rho[i], sx, sy, r[i] = _plane_point(v[i], ax[i], ay[i], veh)
         phi[i] = np.arctan2(sy, sx)
-        r[i] = np.hypot(fx / m, ay[i])
     return rho, phi, r
+
+
+@njit(cache=True, inline="always")
+def _plane_residuals_into(v, ax, ay, veh, out):
+    for i in range(v.shape[0]):
+        rho, _, _, r = _plane_point(v[i], ax[i], ay[i], veh)
+        out[i] = r * (1.0 - 1.0 / max(rho, 1e-9))
+
+
+@njit(cache=True)
+def envelope_residuals(v, ax, ay, base, where, scale, x):
+    """Kernel of ``limitlap.envelope._plane_residuals``: radial distance of each point
+    from the envelope, r (1 - 1/max(rho, 1e-9)), with ``base[where] = x * scale``. [m/s²]"""
+    veh = base.copy()
+    for k in range(x.shape[0]):
+        veh[where[k]] = x[k] * scale[k]
+    out = np.empty(v.shape[0])
+    _plane_residuals_into(v, ax, ay, veh, out)
+    return out
+
+
+@njit(cache=True)
+def envelope_residuals_jacobian(v, ax, ay, base, where, scale, x, h):
+    """Forward-difference Jacobian of ``envelope_residuals`` in x: column k is
+    (f(x + h_k e_k) - f(x)) / h_k, every evaluation in this one call. [m/s² per unit x]"""
+    veh = base.copy()
+    for k in range(x.shape[0]):
+        veh[where[k]] = x[k] * scale[k]
+    n = v.shape[0]
+    f0 = np.empty(n)
+    f1 = np.empty(n)
+    _plane_residuals_into(v, ax, ay, veh, f0)
+    jac = np.empty((n, x.shape[0]))
+    for k in range(x.shape[0]):
+        moved = veh.copy()
+        moved[where[k]] = (x[k] + h[k]) * scale[k]
+        _plane_residuals_into(v, ax, ay, moved, f1)
+        for i in range(n):
+            jac[i, k] = (f1[i] - f0[i]) / h[k]
+    return jac
 
 
 @njit(cache=True, nogil=True)

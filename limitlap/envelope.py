@@ -427,24 +427,36 @@ _KERNEL_INDEX = {
 }
 
 
-def _plane_residuals(v, ax, ay, names, veh):
-    """``fun(x)``: :func:`_residuals` of the points for the parameter vector ``x``.
+def _plane_residuals(v, ax, ay, names, veh, lo, hi):
+    r"""``(fun, jac)`` of :func:`_residuals` of the points for the parameter vector ``x``.
 
     The same quantities as :func:`_tyre_plane` and :func:`limitlap.limits.combined_usage`
-    in one compiled pass (``_kernels.envelope_plane``; tests hold the two to 1e-12), for
-    the hundreds of evaluations a least-squares fit makes.
+    in compiled passes (``_kernels.envelope_residuals``; tests hold them to 1e-12), for the
+    hundreds of evaluations a least-squares fit makes. ``jac`` is the forward-difference
+    Jacobian with SciPy's default step for it, :math:`\sqrt{\epsilon}\max(1, |x|)`, taken
+    backwards where a forward step would leave the bounds ``lo``-``hi``, and the step made
+    exact in floating point (``(x + h) - x``), all evaluations in one kernel call.
     """
     base = vehicle_array(veh)
-    where = np.array([_KERNEL_INDEX[k] for k in names])
+    where = np.array([_KERNEL_INDEX[k] for k in names], dtype=np.int64)
     scale = np.array([_SCALE.get(k, 1.0) for k in names])
 
     def fun(x):
-        arr = base.copy()
-        arr[where] = x * scale
-        rho, _, r = _kernels.envelope_plane(v, ax, ay, arr)
-        return r * (1.0 - 1.0 / np.maximum(rho, 1e-9))
+        return _kernels.envelope_residuals(v, ax, ay, base, where, scale, np.asarray(x, float))
 
-    return fun
+    def jac(x):
+        x = np.asarray(x, dtype=np.float64)
+        h = _FD_STEP * np.where(x >= 0.0, 1.0, -1.0) * np.maximum(1.0, np.abs(x))
+        h = np.where((x + h > hi) | (x + h < lo), -h, h)
+        h = (x + h) - x
+        return _kernels.envelope_residuals_jacobian(v, ax, ay, base, where, scale, x, h)
+
+    return fun, jac
+
+
+#: Relative forward-difference step, the square root of double precision (SciPy's default
+#: for ``least_squares``'s "2-point" Jacobian). [-]
+_FD_STEP = float(np.finfo(np.float64).eps) ** 0.5
 
 
 def _boundary_points(v, ax, ay, veh, band, n_angle_bins, quantile, min_bin_samples):
@@ -656,14 +668,21 @@ def fit_envelope(
                 "too few to fit a grip envelope"
             )
         bv, bax, bay = v[idx], ax[idx], ay[idx]
-        plane = _plane_residuals(bv, bax, bay, names, veh)
+        plane, plane_jac = _plane_residuals(bv, bax, bay, names, veh, lo, hi)
+        prior_jac = np.zeros((len(pri), len(names)))
+        for row, (i, _, sd) in enumerate(pri):
+            prior_jac[row, i] = w_prior / sd
 
         def fun(x, plane=plane):
             extra = [w_prior * (x[i] - c) / s for i, c, s in pri]
             return np.concatenate((plane(x), extra))
 
+        def jac(x, plane_jac=plane_jac, prior_jac=prior_jac):
+            return np.vstack((plane_jac(x), prior_jac))
+
         sol = optimize.least_squares(
-            fun, x0, bounds=(lo, hi), loss="soft_l1", f_scale=loss_scale_m_s2, x_scale="jac"
+            fun, x0, jac=jac, bounds=(lo, hi), loss="soft_l1", f_scale=loss_scale_m_s2,
+            x_scale="jac",
         )
         step = np.abs(sol.x - x0)
         moved = np.max(step / np.maximum(np.abs(x0), 1e-6))
@@ -683,15 +702,21 @@ def fit_envelope(
         x0f = np.array([getattr(veh, k) / _SCALE.get(k, 1.0) for k in names_f])
         pri_f = [(keep.index(i), c, sd) for i, c, sd in pri if i in keep]
 
-        plane_f = _plane_residuals(bv, bax, bay, names_f, veh)
+        plane_f, plane_jac_f = _plane_residuals(bv, bax, bay, names_f, veh, lo[keep], hi[keep])
+        prior_jac_f = np.zeros((len(pri_f), len(names_f)))
+        for row, (i, _, sd) in enumerate(pri_f):
+            prior_jac_f[row, i] = w_prior / sd
 
         def fun_f(x, plane_f=plane_f):
             extra = [w_prior * (x[i] - c) / sd for i, c, sd in pri_f]
             return np.concatenate((plane_f(x), extra))
 
+        def jac_f(x, plane_jac_f=plane_jac_f, prior_jac_f=prior_jac_f):
+            return np.vstack((plane_jac_f(x), prior_jac_f))
+
         sol_f = optimize.least_squares(
-            fun_f, np.clip(x0f, lo[keep] + 1e-9, hi[keep] - 1e-9), bounds=(lo[keep], hi[keep]),
-            loss="soft_l1", f_scale=loss_scale_m_s2, x_scale="jac",
+            fun_f, np.clip(x0f, lo[keep] + 1e-9, hi[keep] - 1e-9), jac=jac_f,
+            bounds=(lo[keep], hi[keep]), loss="soft_l1", f_scale=loss_scale_m_s2, x_scale="jac",
         )
         veh = _vehicle_from(sol_f.x, names_f, veh)
         bp = (idx, bp_band, bv, bax, bay, sol)

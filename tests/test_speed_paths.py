@@ -359,3 +359,29 @@ def test_selection_made_beforehand_gives_the_same_fit(session_and_log):
     again = envelope.select_samples(v, ax, ay, mask, sample_rate_hz=rate)
     assert np.array_equal(restricted.used, again.used)
     assert restricted.n_spikes == again.n_spikes
+
+
+def test_compiled_residuals_and_jacobian_match_numpy_and_scipy():
+    # The fit's residuals (kernel) against envelope._residuals on the numpy functions
+    # (1e-12: the same formulas), and its forward-difference Jacobian against SciPy's own
+    # "2-point" approx_derivative of the same residuals (same step rule: the columns agree
+    # to rounding of the differences, 1e-6 of the column scale; measured ~1e-9).
+    from scipy.optimize._numdiff import approx_derivative
+
+    rng = np.random.default_rng(13)
+    n = 400
+    v = rng.uniform(10.0, 80.0, n)
+    ax = rng.uniform(-30.0, 15.0, n)
+    ay = rng.uniform(-30.0, 30.0, n)
+    names = list(envelope._PARAMS)
+    scale = np.array([envelope._SCALE.get(k, 1.0) for k in names])
+    x = np.array([getattr(EXAMPLE_CAR, k) for k in names]) / scale
+    lo = np.array([envelope._BOUNDS[k][0] for k in names]) / scale
+    hi = np.array([envelope._BOUNDS[k][1] for k in names]) / scale
+    fun, jac = envelope._plane_residuals(v, ax, ay, names, EXAMPLE_CAR, lo, hi)
+    want = envelope._residuals(v, ax, ay, envelope._vehicle_from(x, names, EXAMPLE_CAR))
+    np.testing.assert_allclose(fun(x), want, rtol=1e-12, atol=1e-12)
+    got = jac(x)
+    ref = approx_derivative(fun, x, method="2-point", bounds=(lo, hi))
+    col_scale = np.maximum(np.abs(ref).max(axis=0), 1e-12)
+    assert np.all(np.abs(got - ref).max(axis=0) <= 1e-6 * col_scale)
