@@ -216,8 +216,12 @@ def _split_session(log_path, log, trk, gate, warnings):
 
 def _sample_rate(log):
     """The log's sample rate from its median time step, None for a single row. [Hz]"""
-    dt = np.diff(log.time_s)
-    return float(1.0 / np.median(dt)) if dt.size else None
+
+    def rate(lg):
+        dt = np.diff(lg.time_s)
+        return float(1.0 / np.median(dt)) if dt.size else None
+
+    return log.remembered("sample_rate_hz", rate)
 
 
 def _imu_samples(log, laps, rows_of, pad_s=None):
