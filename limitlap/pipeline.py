@@ -69,6 +69,8 @@ class Analysis:
         Elapsed time against distance for every complete lap (what the composite is
         built from); only the analysed lap's line is rebuilt, in ``driven``.
     track_name : str
+    corner_labels : dict of str to str
+        Corner name -> the track file's label for it ("T1" -> "Sentry"), where it gives one.
     warnings : list of str
     """
 
@@ -86,6 +88,7 @@ class Analysis:
     best_of_laps: object | None
     complete_laps: list = field(default_factory=list)
     track_name: str = ""
+    corner_labels: dict = field(default_factory=dict)
     warnings: list = field(default_factory=list)
 
 
@@ -416,6 +419,9 @@ def analyse(
         best_of_laps=best,
         complete_laps=complete_laps,
         track_name=trk.name if trk is not None else "",
+        corner_labels={}
+        if trk is None
+        else {n: lb for n, lb in zip(trk.corner_names, trk.corner_labels, strict=True) if lb},
         warnings=warnings,
     )
 

@@ -607,6 +607,10 @@ def _view(analysis) -> _View:
     delta = _get(comparison, "time_delta_s")
     delta = np.asarray(delta, dtype=np.float64) if delta is not None else t_real - t_ideal
     corners = corner_rows(comparison)
+    labels = _get(analysis, "corner_labels", default={}) or {}
+    for c in corners:  # the track file's names for its corners ("Sentry"), where given
+        if labels.get(c["name"]):
+            c["label"] = str(labels[c["name"]])
     lap = analysis.lap
     lap_time = _f(_get(lap, "time_s"))
     ideal_time = float(ideal.lap_time_s)
@@ -677,7 +681,7 @@ def build_summary(analysis) -> dict:
         if "_summary" in c:
             rec = dict(c["_summary"])
             rec.setdefault("plain", c["plain"])
-            for key in ("best_s", "best_lap"):
+            for key in ("best_s", "best_lap", "label"):
                 if key in c:
                     rec[key] = c[key]
             corners.append(rec)
@@ -700,7 +704,7 @@ def build_summary(analysis) -> dict:
             )
         }
         rec["plain"] = c["plain"]
-        for key in ("best_s", "best_lap"):
+        for key in ("best_s", "best_lap", "label"):
             if key in c:
                 rec[key] = c[key]
         corners.append(rec)
@@ -1059,7 +1063,7 @@ def report_html(v: _View, figure_list) -> str:
         cls = ' class="top"' if i <= 3 else ""
         cells = [
             str(i),
-            c["name"],
+            f"{c['name']} {c['label']}" if c.get("label") else c["name"],
             _fmt(c["time_left_s"], ".2f"),
             _fmt(c["actual_s"], ".2f"),
             _fmt(c["ideal_s"], ".2f"),

@@ -600,3 +600,25 @@ def test_report_renders_in_headless_chromium(written, tmp_path):
 
     pixels = matplotlib.image.imread(shot)
     assert pixels[..., :3].std() > 0.05  # something was drawn, not a blank page
+
+
+def test_track_corner_labels_reach_summary_and_report(tmp_path):
+    # A track file names its corners ("T4" -> "Kettle Hairpin" on the bundled invented
+    # circuit): the labels must reach summary.json (an extra "label" key, INTERFACE §5
+    # allows more keys) and the report's corner table, and only where the file gives one.
+    from limitlap import ingest, pipeline
+    from limitlap.resources import bundled_path
+
+    track_file = bundled_path("demo_tracks", "tarrowby_heath.toml")
+    track = ingest.read_track(track_file)
+    want = {n: lb for n, lb in zip(track.corner_names, track.corner_labels, strict=True) if lb}
+    assert want  # the bundled track does label its corners
+    a = pipeline.analyse(bundled_path("demo_tracks", "tarrowby_dry.csv.gz"), track=track_file)
+    assert a.corner_labels == want
+    files = report.write_outputs(a, tmp_path / "out", figures=False)
+    corners = json.loads(Path(files["summary"]).read_text())["corners"]
+    assert corners and all(c.get("label") == want.get(c["name"]) for c in corners)
+    page = Path(files["report"]).read_text(encoding="utf-8")
+    for c in corners:
+        if c.get("label"):
+            assert f"{c['name']} {html.escape(c['label'])}" in page
