@@ -7,6 +7,7 @@ reading.
 
 from __future__ import annotations
 
+import contextlib
 import csv
 import gzip
 import math
@@ -444,15 +445,22 @@ class Dropout:
         return self.end_time_s - self.start_time_s
 
 
-def _read_log_bytes(path: Path) -> bytes:
+@contextlib.contextmanager
+def _reading(path: Path):
+    """Turn the operating system's refusals to read ``path`` into one-line input errors."""
     try:
-        raw = path.read_bytes()
+        yield
     except FileNotFoundError:
         raise InputError(path, "file not found") from None
     except IsADirectoryError:
         raise InputError(path, "is a folder, not a log file") from None
     except OSError as err:
         raise InputError(path, f"cannot be read: {err.strerror}") from err
+
+
+def _read_log_bytes(path: Path) -> bytes:
+    with _reading(path):
+        raw = path.read_bytes()
     if raw[:2] == _GZIP_MAGIC:
         try:
             raw = gzip.decompress(raw)
@@ -477,22 +485,15 @@ def _log_source(path: Path) -> tuple[str | bytes, bytes, bool]:
     start (at least the header line, 64 KB or so) serves the format detection; a UTF-8
     byte-order mark is removed from it (the parser skips the header line anyway).
     """
-    try:
-        with path.open("rb") as fh:
-            head = fh.read(_HEAD_BYTES)
-            if head[:2] != _GZIP_MAGIC:
-                while b"\n" not in head:  # a header line longer than the chunk
-                    more = fh.read(_HEAD_BYTES)
-                    if not more:
-                        break
-                    head += more
-                whole = not fh.read(1)
-    except FileNotFoundError:
-        raise InputError(path, "file not found") from None
-    except IsADirectoryError:
-        raise InputError(path, "is a folder, not a log file") from None
-    except OSError as err:
-        raise InputError(path, f"cannot be read: {err.strerror}") from err
+    with _reading(path), path.open("rb") as fh:
+        head = fh.read(_HEAD_BYTES)
+        if head[:2] != _GZIP_MAGIC:
+            while b"\n" not in head:  # a header line longer than the chunk
+                more = fh.read(_HEAD_BYTES)
+                if not more:
+                    break
+                head += more
+            whole = not fh.read(1)
     if head[:2] == _GZIP_MAGIC:
         raw = _read_log_bytes(path)
         return raw, raw[:_HEAD_BYTES], len(raw) <= _HEAD_BYTES

@@ -133,3 +133,28 @@ def assert_inside_envelope(line, car, k, profile, combined_tol=1e-2):
     if not line.closed:
         both = both[:-1]  # the last station of an open line has no step after it
     assert both.max() <= 1 + combined_tol
+
+
+def circling_record(duration_s, vehicle=None, fs=100.0, seed=8, noise_m_s2=0.1):
+    """A logged-looking record that sweeps the whole envelope, for envelope fits.
+
+    Speed sweeps 12-80 m/s and back every 120 s; the acceleration vector circles the
+    envelope of ``vehicle`` (default EXAMPLE_CAR) at 0.3 rev/s on the unit superellipse of
+    its exponent, its radius between 0.7 and 1 of the limit (the driving force cut at
+    P/v), white noise added (invented test data). Returns (t, v, ax, ay, rng) with the
+    generator, so a caller can draw more from the same stream (kerb strikes).
+    """
+    car = EXAMPLE_CAR if vehicle is None else vehicle
+    t = np.arange(0.0, duration_s, 1.0 / fs)
+    rng = np.random.default_rng(seed)
+    v = 12.0 + 68.0 * np.abs(((t / 120.0) % 1.0) * 2.0 - 1.0)
+    th = 2.0 * np.pi * 0.3 * t
+    e = car.exponent
+    sx = np.sign(np.cos(th)) * np.abs(np.cos(th)) ** (2.0 / e)
+    sy = np.sign(np.sin(th)) * np.abs(np.sin(th)) ** (2.0 / e)
+    share = 0.85 + 0.15 * np.sin(2.0 * np.pi * 0.037 * t)
+    normal = limits.normal_load_n(v, car)
+    fx = np.minimum(sx * np.where(sx >= 0, car.mu_trac, car.mu_brk) * normal, car.power_w / v)
+    ax = (share * fx - limits.resistance_n(v, car)) / car.mass_kg
+    ay = share * sy * car.mu_lat * normal / car.mass_kg
+    return t, v, ax + rng.normal(0, noise_m_s2, t.size), ay + rng.normal(0, noise_m_s2, t.size), rng

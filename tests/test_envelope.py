@@ -17,7 +17,7 @@ from limitlap.errors import LimitlapError
 from limitlap.limits import combined_usage, normal_load_n, resistance_n
 from limitlap.units import G0_M_S2
 from limitlap.vehicle import Vehicle
-from tests.cases import EXAMPLE_CAR, friction_car
+from tests.cases import EXAMPLE_CAR, circling_record, friction_car
 
 G = G0_M_S2
 
@@ -365,18 +365,8 @@ def test_fit_on_a_time_series_with_kerb_strikes():
     # sample rate the fit despikes and low-passes (select_samples) and must still meet
     # issue 4's 3 % on the friction coefficients; the spikes are not used.
     fs = 100.0
-    t = np.arange(0.0, 600.0, 1.0 / fs)
-    rng = np.random.default_rng(8)
-    v = 12.0 + 68.0 * np.abs(((t / 120.0) % 1.0) * 2.0 - 1.0)
-    th = 2.0 * np.pi * 0.3 * t
-    e = EXAMPLE_CAR.exponent
-    sx = np.sign(np.cos(th)) * np.abs(np.cos(th)) ** (2.0 / e)
-    sy = np.sign(np.sin(th)) * np.abs(np.sin(th)) ** (2.0 / e)
-    rho = 0.85 + 0.15 * np.sin(2.0 * np.pi * 0.037 * t)
+    t, v, ax, ay, rng = circling_record(600.0, fs=fs, seed=8)
     m = EXAMPLE_CAR.mass_kg
-    ax, ay = model_point(v, sx, sy, rho, EXAMPLE_CAR)
-    ax += rng.normal(0, 0.1, t.size)
-    ay += rng.normal(0, 0.1, t.size)
     spikes = rng.choice(t.size, t.size // 200, replace=False)
     ay[spikes] += 3.0 * G * np.sign(rng.normal(size=spikes.size))
     fit = envelope.fit_envelope(v, ax, ay, Vehicle("mass only", m), sample_rate_hz=fs)

@@ -25,7 +25,7 @@ from limitlap import _kernels, compare, envelope, ingest, pipeline, synth
 from limitlap.laps import Gate, split_laps
 from limitlap.limits import combined_usage
 from limitlap.solve import vehicle_array
-from tests.cases import EXAMPLE_CAR
+from tests.cases import EXAMPLE_CAR, circling_record
 
 
 def _lexsort_reference(key, rho, rank):
@@ -161,24 +161,8 @@ def test_thinned_fit_keeps_the_envelope():
     # 4's 3 % accuracy requirement (project requirement, no published source; measured
     # 0.03-0.05 %), and the thinned fit must recover the true car within that 3 %.
     fs = 100.0
-    t = np.arange(0.0, 1800.0, 1.0 / fs)
-    rng = np.random.default_rng(8)
-    v = 12.0 + 68.0 * np.abs(((t / 120.0) % 1.0) * 2.0 - 1.0)
-    th = 2.0 * np.pi * 0.3 * t
-    e = EXAMPLE_CAR.exponent
-    sx = np.sign(np.cos(th)) * np.abs(np.cos(th)) ** (2.0 / e)
-    sy = np.sign(np.sin(th)) * np.abs(np.sin(th)) ** (2.0 / e)
-    share = 0.85 + 0.15 * np.sin(2.0 * np.pi * 0.037 * t)
-    normal = EXAMPLE_CAR.mass_kg * 9.80665 + 0.5 * EXAMPLE_CAR.air_density_kg_m3 * v**2 * (
-        EXAMPLE_CAR.downforce_area_m2
-    )
-    fx = sx * np.where(sx >= 0, EXAMPLE_CAR.mu_trac, EXAMPLE_CAR.mu_brk) * normal
-    fx = np.minimum(fx, EXAMPLE_CAR.power_w / v)
+    _, v, ax, ay, _ = circling_record(1800.0, fs=fs, seed=8)
     m = EXAMPLE_CAR.mass_kg
-    drag = 0.5 * EXAMPLE_CAR.air_density_kg_m3 * v**2 * EXAMPLE_CAR.drag_area_m2
-    rolling = EXAMPLE_CAR.rolling_coeff * m * 9.80665
-    ax = (share * fx - drag - rolling) / m + rng.normal(0, 0.1, t.size)
-    ay = share * sy * EXAMPLE_CAR.mu_lat * normal / m + rng.normal(0, 0.1, t.size)
     base = envelope.Vehicle("mass only", m, rolling_coeff=EXAMPLE_CAR.rolling_coeff)
     thin = envelope.fit_envelope(v, ax, ay, base, sample_rate_hz=fs)
     full = envelope.fit_envelope(v, ax, ay, base, sample_rate_hz=fs, fit_rate_hz=None)
