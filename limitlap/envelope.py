@@ -628,7 +628,9 @@ def fit_envelope(
     if sample_rate_hz is not None and fit_rate_hz is not None:
         step = min(int(float(sample_rate_hz) // float(fit_rate_hz)), int(used.sum()) // FIT_MIN_SAMPLES)
         if step > 1:  # every step-th row (thinning in time, not of the selected samples)
-            used = used & (np.arange(used.shape[0]) % step == 0)
+            every = np.zeros(used.shape[0], dtype=bool)
+            every[::step] = True
+            used = used & every
     v, ax, ay = sel.speed_m_s[used], sel.accel_lon_m_s2[used], sel.accel_lat_m_s2[used]
     if v.size < min_bin_samples * 4:
         raise LimitlapError(
@@ -730,18 +732,20 @@ def fit_envelope(
     uncertainty = {k: float(sigma[i] * _SCALE.get(k, 1.0)) for i, k in enumerate(names)}
 
     usage = combined_usage(v, ax, ay, veh)
+    n_bands = edges.size - 1
+    in_band = np.bincount(band, minlength=n_bands)  # samples per band, and near the limit
+    near_limit = np.bincount(band[usage >= 0.95], minlength=n_bands)
     bands = []
     warnings = []
     sparse = []
-    for b in range(edges.size - 1):
-        inb = band == b
-        if not inb.any():
+    for b in range(n_bands):
+        if in_band[b] == 0:
             continue
         sel_b = bp_band == b
-        near = int((usage[inb] >= 0.95).sum())
+        near = int(near_limit[b])
         lo_b, hi_b = float(edges[b]), float(edges[b + 1])
         bands.append(
-            EnvelopeBand(lo_b, hi_b, int(inb.sum()), near, bv[sel_b], bax[sel_b], bay[sel_b])
+            EnvelopeBand(lo_b, hi_b, int(in_band[b]), near, bv[sel_b], bax[sel_b], bay[sel_b])
         )
         if near < min_near_limit:
             sparse.append(f"{lo_b:.0f}-{hi_b:.0f}")
@@ -796,13 +800,15 @@ def _full_throttle_power_drag(sel, used, throttle, veh, names):
     thr = np.asarray(throttle, dtype=np.float64)
     if thr.shape != used.shape:
         return None
-    v = sel.speed_m_s
-    ax = sel.accel_lon_m_s2
-    ay = sel.accel_lat_m_s2
+    rows = np.flatnonzero(used)  # only the samples in use are looked at
+    v = sel.speed_m_s[rows]
+    ax = sel.accel_lon_m_s2[rows]
+    ay = sel.accel_lat_m_s2[rows]
+    thr = thr[rows]
     m = veh.mass_kg
     with np.errstate(invalid="ignore", divide="ignore"):
         power_limited = veh.power_w / np.maximum(v, 1e-3) < 0.9 * veh.mu_trac * normal_load_n(v, veh)
-        pick = used & (thr >= 0.98) & (np.abs(ay) < 2.0) & power_limited & np.isfinite(ax)
+        pick = (thr >= 0.98) & (np.abs(ay) < 2.0) & power_limited & np.isfinite(ax)
     if pick.sum() < 200 or np.ptp(v[pick]) < 10.0:
         return None
     vp = v[pick]
