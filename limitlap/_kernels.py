@@ -581,3 +581,4 @@ def polygon_self_crosses(x, y):
             if _touches(x[i], y[i], x[j], y[j], bx[j], by[j]):
                 return True
     return False
+

@@ -221,21 +221,38 @@ def _refine_crossings(log, gx, gy, nx, ny, s, at):
     rows = _fix_rows(log)
     s_fix = s[rows]
     along = (log.channels["x"][rows] - gx) * nx + (log.channels["y"][rows] - gy) * ny
-    out = at.copy()
-    for k, s0 in enumerate(at):  # one small fit per crossing
-        lo, hi = np.searchsorted(s_fix, [s0 - FIT_SPAN_M, s0 + FIT_SPAN_M])
-        if hi - lo < 6:
-            continue
-        u = s_fix[lo:hi] - s0
-        if np.ptp(u) < FIT_SPAN_M:  # fixes bunched on one side or a car barely moving
-            continue
-        design = np.column_stack((u * u, u, np.ones_like(u)))
-        (c2, c1, c0), *_ = np.linalg.lstsq(design, along[lo:hi], rcond=None)
-        roots = np.roots([c2, c1, c0]) if abs(c2) > 1e-12 else np.array([-c0 / c1])
-        roots = roots[np.isreal(roots)].real
-        roots = roots[np.abs(roots) <= FIT_SPAN_M]
-        if roots.size:
-            out[k] = s0 + roots[np.argmin(np.abs(roots))]
+    out = np.asarray(at, dtype=np.float64).copy()
+    lo = np.searchsorted(s_fix, out - FIT_SPAN_M)
+    hi = np.searchsorted(s_fix, out + FIT_SPAN_M)
+    ok = hi - lo >= 6
+    ok[ok] = s_fix[hi[ok] - 1] - s_fix[lo[ok]] >= FIT_SPAN_M  # fixes on both sides
+    k = np.flatnonzero(ok)
+    if k.size == 0:
+        return out
+    # All windows' fixes in one array, each centred on its own crossing (u = s - s0), the
+    # normal equations of every window's quadratic summed at once (np.add.reduceat).
+    count = hi[k] - lo[k]
+    first = np.concatenate(([0], np.cumsum(count)[:-1]))
+    member = np.arange(count.sum()) - np.repeat(first - lo[k], count)
+    u = s_fix[member] - np.repeat(out[k], count)
+    y = along[member]
+    powers = np.stack([u**4, u**3, u * u, u, np.ones_like(u), u * u * y, u * y, y], axis=1)
+    m = np.add.reduceat(powers, first, axis=0)
+    normal = m[:, [[0, 1, 2], [1, 2, 3], [2, 3, 4]]]
+    rhs = m[:, 5:8]
+    solvable = np.abs(np.linalg.det(normal)) > 0.0
+    k, normal, rhs = k[solvable], normal[solvable], rhs[solvable]
+    c2, c1, c0 = np.linalg.solve(normal, rhs[..., None])[..., 0].T
+    quad = np.abs(c2) > 1e-12
+    with np.errstate(invalid="ignore", divide="ignore"):
+        disc = np.where(quad, c1 * c1 - 4.0 * c2 * c0, np.nan)
+        r1 = np.where(quad, (-c1 + np.sqrt(disc)) / (2.0 * c2), -c0 / c1)
+        r2 = np.where(quad, (-c1 - np.sqrt(disc)) / (2.0 * c2), np.nan)
+    r1 = np.where(np.abs(r1) <= FIT_SPAN_M, r1, np.nan)  # NaN (complex, none) never passes
+    r2 = np.where(np.abs(r2) <= FIT_SPAN_M, r2, np.nan)
+    best = np.where(np.isnan(r2) | (np.abs(r1) <= np.abs(r2)), r1, r2)
+    found = np.isfinite(best)
+    out[k[found]] += best[found]
     return out
 
 
