@@ -371,20 +371,6 @@ def test_compiled_residuals_and_jacobian_match_numpy_and_scipy():
     assert np.all(np.abs(got - ref).max(axis=0) <= 1e-6 * col_scale)
 
 
-def test_reader_hands_over_the_final_channels_early(tmp_path):
-    # read_log's on_channels hook (the pipeline starts the envelope samples there) must get
-    # the very arrays the returned log holds, in SI, on the final time base.
-    session = synth.generate_session(n_laps=1, seed=22)
-    path = tmp_path / "s.csv"
-    path.write_text(synth.session_csv_text(session), encoding="utf-8")
-    seen = {}
-    log = ingest.read_log(path, on_channels=lambda t, ch: seen.update(t=t, ch=dict(ch)))
-    assert seen["t"] is log.time_s
-    for name in ("speed", "accel_lon", "accel_lat"):
-        assert seen["ch"][name] is log.channels[name]
-    np.testing.assert_allclose(log.channels["speed"], session.channels["speed"], atol=0.01)
-
-
 def _refine_reference(log, gx, gy, nx, ny, s, at, span=30.0):
     """One least-squares quadratic and np.roots per crossing (the loop laps.py replaced)."""
     from limitlap.ingest import _fix_rows
