@@ -475,51 +475,6 @@ def envelope_residuals_jacobian(v, ax, ay, base, where, scale, x, h):
     return jac
 
 
-@njit(cache=True, nogil=True)
-def running_median(x, width):
-    """Kernel of ``limitlap.envelope.select_samples``: centred running median.
-
-    The same values as ``scipy.ndimage.median_filter(x, size=width, mode="nearest")`` for
-    an odd ``width`` (edges repeat the end values), from a sorted window updated by one
-    removal and one insertion per sample. Runs without the GIL, so the two acceleration
-    channels can be filtered side by side.
-    """
-    n = x.shape[0]
-    h = width // 2
-    out = np.empty(n)
-    if n == 0:
-        return out
-    buf = np.empty(width)
-    for j in range(width):
-        buf[j] = x[min(max(j - h, 0), n - 1)]
-    buf.sort()
-    out[0] = buf[h]
-    for i in range(1, n):
-        old = x[max(i - h - 1, 0)]
-        new = x[min(i + h, n - 1)]
-        if old != new:
-            lo = 0
-            hi = width
-            while lo < hi:  # leftmost slot holding ``old``
-                mid = (lo + hi) >> 1
-                if buf[mid] < old:
-                    lo = mid + 1
-                else:
-                    hi = mid
-            p = lo
-            if new > old:
-                while p + 1 < width and buf[p + 1] < new:
-                    buf[p] = buf[p + 1]
-                    p += 1
-            else:
-                while p > 0 and buf[p - 1] > new:
-                    buf[p] = buf[p - 1]
-                    p -= 1
-            buf[p] = new
-        out[i] = buf[h]
-    return out
-
-
 @njit(cache=True, inline="always")
 def _orient(px, py, qx, qy, rx, ry):
     d = (qx - px) * (ry - py) - (qy - py) * (rx - px)
@@ -582,3 +537,101 @@ def polygon_self_crosses(x, y):
                 return True
     return False
 
+
+
+@njit(cache=True, inline="always")
+def _window_spans(x, width):
+    """An upper bound of each centred window's spread (max - min), from the extremes of
+    the blocks of 16 samples that cover the window (edges repeat the end values)."""
+    n = x.shape[0]
+    h = width // 2
+    nb = (n + 15) // 16
+    bmax = np.empty(nb)
+    bmin = np.empty(nb)
+    for b in range(nb):
+        hi = x[b * 16]
+        lo = hi
+        for j in range(b * 16 + 1, min(b * 16 + 16, n)):
+            v = x[j]
+            if v > hi:
+                hi = v
+            elif v < lo:
+                lo = v
+        bmax[b] = hi
+        bmin[b] = lo
+    span = np.empty(n)
+    for i in range(n):
+        b0 = max(i - h, 0) // 16
+        b1 = min(i + h, n - 1) // 16
+        hi = bmax[b0]
+        lo = bmin[b0]
+        for b in range(b0 + 1, b1 + 1):
+            hi = max(hi, bmax[b])
+            lo = min(lo, bmin[b])
+        span[i] = hi - lo
+    return span
+
+
+@njit(cache=True, nogil=True)
+def despike(x, width, threshold):
+    """Kernel of ``limitlap.envelope.select_samples``' spike test, in place.
+
+    A sample further than ``threshold`` from the running median of ``width`` samples
+    (centred, edges repeating the end values: ``scipy.ndimage.median_filter``'s
+    ``mode="nearest"``) is a spike and is replaced by that median; returns the spike mask.
+    The median is found only where it can matter: a sample whose window spans no more
+    than ``threshold`` (max - min, bounded from above by the blocks of 16 samples covering
+    the window) is within ``threshold`` of any value in it, so of the median too, and
+    cannot be a spike. Elsewhere, runs of such samples keep a sorted window updated by one
+    removal and one insertion per sample. Runs without the GIL.
+    """
+    n = x.shape[0]
+    bad = np.zeros(n, np.bool_)
+    if n == 0:
+        return bad
+    h = width // 2
+    span = _window_spans(x, width)
+    med_at = np.empty(n)
+    buf = np.empty(width)
+    i = 0
+    while i < n:
+        if span[i] <= threshold:
+            i += 1
+            continue
+        for j in range(width):  # a run of candidates starts: its first window, sorted
+            buf[j] = x[min(max(i - h + j, 0), n - 1)]
+        buf.sort()
+        med_at[i] = buf[h]
+        k = i + 1
+        while k < n and span[k] > threshold:
+            old = x[max(k - h - 1, 0)]
+            new = x[min(k + h, n - 1)]
+            if old != new:
+                a = 0
+                b = width
+                while a < b:
+                    mid = (a + b) >> 1
+                    if buf[mid] < old:
+                        a = mid + 1
+                    else:
+                        b = mid
+                p = a
+                if new > old:
+                    while p + 1 < width and buf[p + 1] < new:
+                        buf[p] = buf[p + 1]
+                        p += 1
+                else:
+                    while p > 0 and buf[p - 1] > new:
+                        buf[p] = buf[p - 1]
+                        p -= 1
+                buf[p] = new
+            med_at[k] = buf[h]
+            k += 1
+        for q in range(i, k):  # decide after the run: the windows read unreplaced values
+            if abs(x[q] - med_at[q]) > threshold:
+                bad[q] = True
+        for q in range(i, k):
+            if bad[q]:
+                x[q] = med_at[q]
+        i = k
+    return bad

@@ -355,10 +355,7 @@ def _despike_and_filter(values, starts, ends, width, sigma, threshold):
     spike = np.zeros(values.shape[0], bool)
     for a, b in zip(starts, ends, strict=True):  # one pass per unbroken stretch
         seg = values[a:b]
-        med = _kernels.running_median(seg, width)
-        bad = np.abs(seg - med) > threshold
-        spike[a:b] = bad
-        seg[bad] = med[bad]  # replace before filtering
+        spike[a:b] = _kernels.despike(seg, width, float(threshold))  # replaced in place
         if b - a > 8.0 * sigma:
             values[a:b] = gaussian_filter1d(seg, sigma, mode="nearest")
     return spike

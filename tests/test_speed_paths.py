@@ -5,7 +5,7 @@
 - the lap timelines (time against distance integrated from the logged speed) that
   best-of-laps uses for the laps whose line is not rebuilt reproduce the generator's
   true time at each distance fraction;
-- the running-median kernel gives ``scipy.ndimage.median_filter``'s values;
+- the despike kernel marks and replaces what ``scipy.ndimage.median_filter`` would;
 - the compiled tyre-plane pass of the envelope fit gives the numpy functions' values;
 - thinning a long record before the envelope fit keeps the fitted envelope;
 - the grip estimate of one lap, filtered on the lap's rows only, equals the one filtered
@@ -113,18 +113,25 @@ class _Segment:
 
 
 @pytest.mark.parametrize("width", [3, 5, 31, 51])
-def test_running_median_kernel_matches_scipy(width):
-    # Exact equality: the median of the same multiset of window values (edges repeat the
-    # end values, scipy's mode="nearest"); quantised values make many ties, as a logger's.
+def test_despike_kernel_matches_scipy_median_filter(width):
+    # Exact equality with the spike test written on scipy.ndimage.median_filter (edges
+    # repeating the end values, mode="nearest"): the same samples marked and the same
+    # medians put in their place, although the kernel finds medians only where a window
+    # spans more than the threshold; quantised values make many ties, as a logger's.
     from scipy.ndimage import median_filter
 
     rng = np.random.default_rng(width)
     for n in (1, 2, width - 1, width, 1000):
-        x = np.cumsum(rng.normal(size=n)) * 0.05 + rng.normal(size=n)
-        x[:: 17] += 4.0  # spikes
+        x = np.cumsum(rng.normal(size=n)) * 0.3 + rng.normal(size=n) * 0.5
+        x[::17] += 6.0  # spikes
         for values in (x, np.round(x, 1)):
-            got = _kernels.running_median(np.ascontiguousarray(values), width)
-            assert np.array_equal(got, median_filter(values, size=width, mode="nearest"))
+            med = median_filter(values, size=width, mode="nearest")
+            want = np.abs(values - med) > 2.0
+            got_values = np.ascontiguousarray(values).copy()
+            got = _kernels.despike(got_values, width, 2.0)
+            assert np.array_equal(got, want)
+            assert np.array_equal(got_values, np.where(want, med, values))
+        assert n < width + 1 or want.any()  # the cases do contain spikes
 
 
 @pytest.mark.parametrize("power_w", [EXAMPLE_CAR.power_w, math.inf])
