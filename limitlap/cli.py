@@ -106,6 +106,8 @@ class _Progress:
             from tqdm import tqdm
 
             self.bar = tqdm(total=total, desc=self.desc, unit="step", leave=False, file=sys.stderr)
+        elif total != self.bar.total:  # the next stage (the analysis, then the files)
+            self.bar.reset(total=total)
         self.bar.set_postfix_str(step, refresh=False)
         self.bar.n = done
         self.bar.refresh()

@@ -622,3 +622,21 @@ def test_track_corner_labels_reach_summary_and_report(tmp_path):
     for c in corners:
         if c.get("label"):
             assert f"{c['name']} {html.escape(c['label'])}" in page
+
+
+def test_terminal_progress_follows_each_stage(capsys):
+    # The analysis reports 6 steps, writing the files 15: one bar, reset to each stage's
+    # total, so it never reads 100 % and then counts on (10/6).
+    from limitlap import cli
+
+    bar = cli._Progress(False, "log")
+    for done in range(1, 7):
+        bar(done, 6, "analysis")
+    assert bar.bar.total == 6 and bar.bar.n == 6
+    for done in range(1, 16):
+        bar(done, 15, "files")
+    assert bar.bar.total == 15 and bar.bar.n == 15
+    bar.close()
+    err = capsys.readouterr().err
+    shown = [(int(a), int(b)) for a, b in re.findall(r"(\d+)/(\d+) \[", err)]
+    assert (15, 15) in shown and all(n <= total for n, total in shown)
