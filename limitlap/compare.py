@@ -595,7 +595,7 @@ def _brake_zone(tr: _Trace, f, lo, i_min, gap_m=BRAKE_GAP_M):
     i_lo = int(np.searchsorted(tr.u, lo, "left"))
     if i_min is None or i_min <= i_lo:
         return math.nan, math.nan
-    on = np.nan_to_num(f[i_lo : i_min + 1], nan=-1.0) > 0.0
+    on = f[i_lo : i_min + 1] > 0.0  # False where blank (NaN)
     if not on.any():
         return math.nan, math.nan
     last = i_lo + int(np.flatnonzero(on)[-1])
@@ -605,7 +605,7 @@ def _brake_zone(tr: _Trace, f, lo, i_min, gap_m=BRAKE_GAP_M):
         if f[first - 1] > 0.0:
             first -= 1
             continue
-        prev_on = np.flatnonzero(np.nan_to_num(f[i_lo:first], nan=-1.0) > 0.0)
+        prev_on = np.flatnonzero(f[i_lo:first] > 0.0)
         if prev_on.size:
             j = i_lo + int(prev_on[-1])
             gap = u[first] - u[j]
@@ -651,7 +651,7 @@ def _profile_brake_start(tr: _Trace, f, lo, i_min):
     j = top + int(np.flatnonzero(seg >= v[top] - 1e-9 * max(v[top], 1.0))[-1])
     if v[j] - v[i_min] < MIN_BRAKE_DROP_M_S:
         return math.nan
-    on = np.flatnonzero(np.nan_to_num(f[j : i_min + 1], nan=-1.0) > 0.0)
+    on = np.flatnonzero(f[j : i_min + 1] > 0.0)
     if on.size == 0:
         return math.nan
     first = j + int(on[0])
@@ -671,7 +671,7 @@ def _full_drive(tr: _Trace, i_min, hi, use_throttle):
         g = np.where(
             tr.drive_avail > FULL_DRIVE_MIN_M_S2, tr.ax - FULL_DRIVE_SHARE * tr.drive_avail, -1.0
         )
-    hit = np.flatnonzero(np.nan_to_num(g[i_min:i1], nan=-1.0) >= 0.0)
+    hit = np.flatnonzero(g[i_min:i1] >= 0.0)  # False where blank (NaN)
     if hit.size == 0:
         return math.nan
     return _crossing(tr.u, g, i_min + int(hit[0]))
