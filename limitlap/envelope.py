@@ -894,15 +894,24 @@ def envelope_boundary(speed_m_s, vehicle: Vehicle, n_points=181):
     return ax, ay
 
 
-def _grip_demand(speed_m_s, accel_lon_m_s2, accel_lat_m_s2, vehicle: Vehicle):
-    """Required grip scale per sample; ``inf`` beyond the power limit. [-]"""
+def _grip_demand(speed_m_s, accel_lon_m_s2, accel_lat_m_s2, vehicle: Vehicle, margin=0.0):
+    """Required grip scale per sample; ``inf`` beyond ``(1 - margin)`` of the power limit. [-]"""
     vehicle.require_complete()
     v = np.asarray(speed_m_s, dtype=np.float64)
     fx = vehicle.mass_kg * np.asarray(accel_lon_m_s2, dtype=np.float64) + resistance_n(v, vehicle)
     # Tyre share alone: combined_usage of the same car without its power limit.
     k_grip = combined_usage(v, accel_lon_m_s2, accel_lat_m_s2, replace(vehicle, power_w=math.inf))
     power_force = drive_force_max_n(v, replace(vehicle, mu_trac=math.inf))  # P/v
-    return np.where(fx > power_force, np.inf, k_grip)
+    return np.where(fx > (1.0 - margin) * power_force, np.inf, k_grip)
+
+
+#: Samples driving within this share of the power limit P/v (or beyond it) show the
+#: engine's limit, not the tyres': through a flat-out bend the tyres are not asked for
+#: their grip, so such samples are left out of the grip estimates, and a corner with no
+#: other samples gets none (NaN) rather than a low figure that reads as a damp patch.
+#: 5 % is a few times the filtered acceleration noise of a logger at speed; common
+#: practice, no published source. [-]
+POWER_LIMIT_MARGIN = 0.05
 
 
 def required_grip_scale(speed_m_s, accel_lon_m_s2, accel_lat_m_s2, vehicle: Vehicle):
@@ -986,7 +995,8 @@ def grip_estimate(
     -----
     Per sample the required scale comes from :func:`required_grip_scale`; samples beyond
     the power limit (no grip scale explains them: an under-estimated power, or noise on
-    a full-throttle straight) are left out.
+    a full-throttle straight), and those within :data:`POWER_LIMIT_MARGIN` of it (they
+    show the engine's limit, not the tyres'), are left out.
 
     Examples
     --------
@@ -998,7 +1008,7 @@ def grip_estimate(
     v, ax, ay, ok = _prepare(
         speed_m_s, accel_lon_m_s2, accel_lat_m_s2, mask, min_speed_m_s, sample_rate_hz
     )
-    k = _grip_demand(v[ok], ax[ok], ay[ok], vehicle)
+    k = _grip_demand(v[ok], ax[ok], ay[ok], vehicle, POWER_LIMIT_MARGIN)
     k = k[np.isfinite(k)]
     if k.size == 0:
         raise LimitlapError("no samples within the power limit to estimate the grip scale from")
@@ -1047,7 +1057,7 @@ def grip_estimate_by_segment(
     n_seg = int(seg.max()) + 1 if seg.size else 0
     out = np.full(max(n_seg, 0), np.nan)
     k = np.full(v.shape, np.inf)
-    k[ok] = _grip_demand(v[ok], ax[ok], ay[ok], vehicle)
+    k[ok] = _grip_demand(v[ok], ax[ok], ay[ok], vehicle, POWER_LIMIT_MARGIN)
     good = ok & np.isfinite(k) & (seg >= 0)
     if not good.any():
         return out

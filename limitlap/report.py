@@ -1080,8 +1080,9 @@ def report_html(v: _View, figure_list) -> str:
         '<p class="sub">Time left: your segment time minus the ideal\'s on the same line. '
         "Grip used: the share of the available combined grip this lap used in the corner. "
         "Grip found: the grip scale the corner showed against the envelope (below 1 = "
-        "less grip there than at its best, e.g. a damp patch). Brake points in metres "
-        "from the start/finish gate.</p>"
+        "less grip there than at its best, e.g. a damp patch; n/a where the corner is "
+        "taken flat out, on the engine's limit, so it does not show the tyres'). Brake "
+        "points in metres from the start/finish gate.</p>"
     )
     out.append("<h2>Figures</h2>")
     for name, caption, png in figure_list:

@@ -502,3 +502,27 @@ def test_full_throttle_calibration_removes_straight_line_bias(dry_session_fit):
     assert t_c == pytest.approx(t_true, rel=2e-3)
     assert abs(t_c - t_true) < abs(t_q - t_true)
     assert fit_c.vehicle.power_w == pytest.approx(truth.vehicle.power_w, rel=0.02)
+
+
+def test_flat_out_bend_gets_no_grip_estimate():
+    # Through a flat-out bend the driving force sits on the power limit P/v and the tyres
+    # are asked for little of their grip: those samples show the engine's limit, so the
+    # segment gets no estimate (NaN), while a segment at 80 % of the lateral limit reads
+    # 0.80 (the tyre share of INTERFACE §3 at zero longitudinal force is a_y / a_y,max).
+    car = EXAMPLE_CAR
+    v = np.full(200, 60.0)
+    m = car.mass_kg
+    power_force = car.power_w / v
+    ax_flat = (0.99 * power_force - resistance_n(v, car)) / m  # within 5 % of P/v
+    ay_limit = car.mu_lat * normal_load_n(v, car) / m
+    ax = np.concatenate([ax_flat[:100], -resistance_n(v[100:], car) / m])
+    ay = np.concatenate([0.4 * ay_limit[:100], 0.8 * ay_limit[100:]])
+    seg = np.repeat([0, 1], 100)
+    k = envelope.grip_estimate_by_segment(v, ax, ay, car, seg)
+    assert math.isnan(k[0])
+    assert k[1] == pytest.approx(0.8, rel=1e-9)
+    # The same samples a little below the margin count again: 0.4 of the lateral limit
+    # combined with 0.9 P/v of driving force against the traction limit.
+    ax_lift = (0.90 * power_force - resistance_n(v, car)) / m
+    k2 = envelope.grip_estimate_by_segment(v[:100], ax_lift[:100], ay[:100], car, seg[:100])
+    assert np.isfinite(k2[0]) and 0.4 < k2[0] < 1.0
