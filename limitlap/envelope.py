@@ -655,34 +655,43 @@ def fit_envelope(
     pri = [(i, *prior[k]) for i, k in enumerate(names) if k in prior]
     w_prior = 0.01  # m/s² per prior standard deviation
 
+    def boundary(veh):
+        """The boundary points of every bin under the normalisation by ``veh``."""
+        idx, bp_band = _boundary_points(v, ax, ay, veh, band, n_angle_bins, quantile, min_bin_samples)
+        return idx, bp_band, v[idx], ax[idx], ay[idx]
+
+    def fit_points(sub, veh, start, bv, bax, bay):
+        """Least squares of the parameters ``names[sub]`` (the others held at ``veh``'s)."""
+        sub_names = [names[i] for i in sub]
+        sub_pri = [(sub.index(i), c, sd) for i, c, sd in pri if i in sub]
+        plane, plane_jac = _plane_residuals(bv, bax, bay, sub_names, veh, lo[sub], hi[sub])
+        prior_jac = np.zeros((len(sub_pri), len(sub)))
+        for row, (i, _, sd) in enumerate(sub_pri):
+            prior_jac[row, i] = w_prior / sd
+
+        def fun(x):
+            extra = [w_prior * (x[i] - c) / sd for i, c, sd in sub_pri]
+            return np.concatenate((plane(x), extra))
+
+        def jac(x):
+            return np.vstack((plane_jac(x), prior_jac))
+
+        return optimize.least_squares(
+            fun, start, jac=jac, bounds=(lo[sub], hi[sub]), loss="soft_l1",
+            f_scale=loss_scale_m_s2, x_scale="jac",
+        )
+
+    every = list(range(len(names)))
     bp = None
     passes = 0
     for passes in range(1, max_passes + 1):
-        idx, bp_band = _boundary_points(
-            v, ax, ay, veh, band, n_angle_bins, quantile, min_bin_samples
-        )
+        idx, bp_band, bv, bax, bay = boundary(veh)
         if idx.size < len(names) + 3:
             raise LimitlapError(
                 f"only {idx.size} direction bins hold {min_bin_samples} or more samples; "
                 "too few to fit a grip envelope"
             )
-        bv, bax, bay = v[idx], ax[idx], ay[idx]
-        plane, plane_jac = _plane_residuals(bv, bax, bay, names, veh, lo, hi)
-        prior_jac = np.zeros((len(pri), len(names)))
-        for row, (i, _, sd) in enumerate(pri):
-            prior_jac[row, i] = w_prior / sd
-
-        def fun(x, plane=plane):
-            extra = [w_prior * (x[i] - c) / s for i, c, s in pri]
-            return np.concatenate((plane(x), extra))
-
-        def jac(x, plane_jac=plane_jac, prior_jac=prior_jac):
-            return np.vstack((plane_jac(x), prior_jac))
-
-        sol = optimize.least_squares(
-            fun, x0, jac=jac, bounds=(lo, hi), loss="soft_l1", f_scale=loss_scale_m_s2,
-            x_scale="jac",
-        )
+        sol = fit_points(every, veh, x0, bv, bax, bay)
         step = np.abs(sol.x - x0)
         moved = np.max(step / np.maximum(np.abs(x0), 1e-6))
         x0 = sol.x
@@ -696,27 +705,10 @@ def fit_envelope(
         veh = calibrated
         keep = [i for i, k in enumerate(names) if k not in ("power_w", "drag_area_m2")]
         names_f = [names[i] for i in keep]
-        idx, bp_band = _boundary_points(v, ax, ay, veh, band, n_angle_bins, quantile, min_bin_samples)
-        bv, bax, bay = v[idx], ax[idx], ay[idx]
+        idx, bp_band, bv, bax, bay = boundary(veh)
         x0f = np.array([getattr(veh, k) / _SCALE.get(k, 1.0) for k in names_f])
-        pri_f = [(keep.index(i), c, sd) for i, c, sd in pri if i in keep]
-
-        plane_f, plane_jac_f = _plane_residuals(bv, bax, bay, names_f, veh, lo[keep], hi[keep])
-        prior_jac_f = np.zeros((len(pri_f), len(names_f)))
-        for row, (i, _, sd) in enumerate(pri_f):
-            prior_jac_f[row, i] = w_prior / sd
-
-        def fun_f(x, plane_f=plane_f):
-            extra = [w_prior * (x[i] - c) / sd for i, c, sd in pri_f]
-            return np.concatenate((plane_f(x), extra))
-
-        def jac_f(x, plane_jac_f=plane_jac_f, prior_jac_f=prior_jac_f):
-            return np.vstack((plane_jac_f(x), prior_jac_f))
-
-        sol_f = optimize.least_squares(
-            fun_f, np.clip(x0f, lo[keep] + 1e-9, hi[keep] - 1e-9), jac=jac_f,
-            bounds=(lo[keep], hi[keep]), loss="soft_l1", f_scale=loss_scale_m_s2, x_scale="jac",
-        )
+        start_f = np.clip(x0f, lo[keep] + 1e-9, hi[keep] - 1e-9)
+        sol_f = fit_points(keep, veh, start_f, bv, bax, bay)
         veh = _vehicle_from(sol_f.x, names_f, veh)
         bp = (idx, bp_band, bv, bax, bay, sol)
     idx, bp_band, bv, bax, bay, sol = bp
