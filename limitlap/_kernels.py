@@ -393,7 +393,12 @@ def boundary_points(key, rho, rank):
 
 @njit(cache=True, inline="always")
 def _plane_point(v, ax, ay, veh):
-    """One sample of ``envelope_plane``: (rho, s_x, s_y, r)."""
+    """One sample's combined usage and tyre-force radius, as ``limitlap.limits``.
+
+    With F_x = m a_x + drag + rolling and N = m g + q ClA: ``rho`` is
+    ``limits.combined_usage`` (the tyre share against μ_t N or μ_b N, or the power share
+    F_x v / P when larger), ``r = hypot(F_x / m, a_y)``. [-], [m/s²]
+    """
     m = veh[I_MASS]
     e = veh[I_EXPONENT]
     weight = m * veh[I_G]
@@ -402,43 +407,18 @@ def _plane_point(v, ax, ay, veh):
     fx = m * ax + (q * veh[I_DRAG_AREA] + veh[I_CRR] * weight)
     sy = m * ay / (veh[I_MU_LAT] * normal)
     if fx >= 0.0:
-        traction = veh[I_MU_TRAC] * normal
-        tyre_x = fx / traction
-        power_force = veh[I_POWER] / v if v > 0.0 else np.inf
-        sx = fx / min(traction, power_force)
+        tyre_x = fx / (veh[I_MU_TRAC] * normal)
     else:
         tyre_x = -fx / (veh[I_MU_BRK] * normal)
-        sx = -tyre_x
     tyre = (tyre_x**e + abs(sy) ** e) ** (1.0 / e)
     power = fx * v / veh[I_POWER] if fx > 0.0 else 0.0
-    return max(tyre, power), sx, sy, np.hypot(fx / m, ay)
-
-
-@njit(cache=True)
-def envelope_plane(v, ax, ay, veh):
-    """Kernel of ``limitlap.envelope``'s tyre-plane quantities, one pass per sample.
-
-    For each sample, with the forces of ``limitlap.limits`` (F_x = m a_x + drag + rolling,
-    N = m g + q ClA): the combined usage ``rho`` of ``limits.combined_usage`` (tyre share
-    against μ_t N or μ_b N, or the power share F_x v / P when larger), the direction
-    ``phi = atan2(s_y, s_x)`` of the normalised point with s_x = F_x / min(μ_t N, P/v)
-    when driving and F_x / (μ_b N) when braking, s_y = m a_y / (μ_y N), and the tyre-force
-    radius ``r = hypot(F_x / m, a_y)``. [-], [rad], [m/s²]
-    """
-    n = v.shape[0]
-    rho = np.empty(n)
-    phi = np.empty(n)
-    r = np.empty(n)
-    for i in range(n):
-        rho[i], sx, sy, r[i] = _plane_point(v[i], ax[i], ay[i], veh)
-        phi[i] = np.arctan2(sy, sx)
-    return rho, phi, r
+    return max(tyre, power), np.hypot(fx / m, ay)
 
 
 @njit(cache=True, inline="always")
 def _plane_residuals_into(v, ax, ay, veh, out):
     for i in range(v.shape[0]):
-        rho, _, _, r = _plane_point(v[i], ax[i], ay[i], veh)
+        rho, r = _plane_point(v[i], ax[i], ay[i], veh)
         out[i] = r * (1.0 - 1.0 / max(rho, 1e-9))
 
 

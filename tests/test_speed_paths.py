@@ -6,7 +6,7 @@
   best-of-laps uses for the laps whose line is not rebuilt reproduce the generator's
   true time at each distance fraction;
 - the despike kernel marks and replaces what ``scipy.ndimage.median_filter`` would;
-- the compiled tyre-plane pass of the envelope fit gives the numpy functions' values;
+- the envelope fit's compiled residuals and shared-force usage give the numpy functions' values;
 - thinning a long record before the envelope fit keeps the fitted envelope;
 - the grip estimate of one lap, filtered on the lap's rows only, equals the one filtered
   on the whole log;
@@ -135,25 +135,29 @@ def test_despike_kernel_matches_scipy_median_filter(width):
 
 
 @pytest.mark.parametrize("power_w", [EXAMPLE_CAR.power_w, math.inf])
-def test_envelope_plane_kernel_matches_the_numpy_functions(power_w):
+def test_tyre_plane_fast_paths_match_the_numpy_functions(power_w):
     # Braking, driving below and beyond the power limit, both turning directions, and
-    # zero speed; the numpy functions (limits.combined_usage, envelope._tyre_plane) are
-    # the reference. 1e-12 relative: rounding of the same formulas in another order.
+    # zero speed; the numpy functions (limits.combined_usage, envelope._tyre_plane,
+    # envelope._residuals) are the reference. The compiled residual of the fit: 1e-12
+    # relative (the same formulas, rounded in another order). The numpy pass of the
+    # boundary points shares the forces between usage and direction: the same operations
+    # in the same order, so the same bits.
     car = replace(EXAMPLE_CAR, power_w=power_w)
     rng = np.random.default_rng(11)
     n = 5000
     v = np.concatenate(([0.0, 1e-3], rng.uniform(0.0, 90.0, n)))
     ax = np.concatenate(([0.5, -0.5], rng.uniform(-40.0, 25.0, n)))
     ay = np.concatenate(([0.0, 1.0], rng.uniform(-40.0, 40.0, n)))
-    rho, phi, r = _kernels.envelope_plane(v, ax, ay, vehicle_array(car))
-    sx, sy, r_ref = envelope._tyre_plane(v, ax, ay, car)
+    sx, sy, _ = envelope._tyre_plane(v, ax, ay, car)
     with np.errstate(divide="ignore", invalid="ignore"):
         rho_ref = combined_usage(v, ax, ay, car)
-    np.testing.assert_allclose(rho, rho_ref, rtol=1e-12, atol=0.0)
-    np.testing.assert_allclose(phi, np.arctan2(sy, sx), rtol=1e-12, atol=1e-15)
-    np.testing.assert_allclose(r, r_ref, rtol=1e-12, atol=0.0)
-    # the numpy pass of the boundary points shares the forces between the two: the
-    # same operations in the same order, so the same bits
+        res_ref = envelope._residuals(v, ax, ay, car)
+    names = list(envelope._PARAMS)
+    scale = np.array([envelope._SCALE.get(k, 1.0) for k in names])
+    where = np.array([envelope._KERNEL_INDEX[k] for k in names], dtype=np.int64)
+    x = np.array([getattr(car, k) for k in names]) / scale
+    res = _kernels.envelope_residuals(v, ax, ay, vehicle_array(car), where, scale, x)
+    np.testing.assert_allclose(res, res_ref, rtol=1e-12, atol=1e-12)
     with np.errstate(divide="ignore", invalid="ignore"):
         rho_np, phi_np = envelope._usage_and_direction(v, ax, ay, car)
     assert np.array_equal(rho_np, rho_ref, equal_nan=True)
