@@ -391,6 +391,38 @@ def boundary_points(key, rho, rank):
     return out
 
 
+@njit(cache=True, nogil=True)
+def tyre_plane_parts(v, ax, ay, veh, tyre_x, tyre_y, sx, sy, power):
+    """Kernel of ``limitlap.envelope._usage_and_direction``: per sample, into the arrays
+    given, the tyre shares |F_x| / (μ N) and |s_y|, the direction shares s_x (against the
+    drive limit min(μ_t N, P / v) or μ_b N) and s_y = m a_y / (μ_l N), and the power share
+    F_x v / P (0 unless driving), with the operations in numpy's order (the same bits).
+    The powers and the arctangent are left to numpy's vectorised functions. [-]"""
+    m = veh[I_MASS]
+    weight = m * veh[I_G]
+    half_rho = 0.5 * veh[I_RHO]
+    resist = veh[I_CRR] * m * veh[I_G]
+    for i in range(v.shape[0]):
+        vi = v[i]
+        q = half_rho * vi * vi
+        normal = weight + q * veh[I_LIFT_AREA]
+        fx = m * ax[i] + (q * veh[I_DRAG_AREA] + resist)
+        s_y = m * ay[i] / (veh[I_MU_LAT] * normal)
+        sy[i] = s_y
+        tyre_y[i] = abs(s_y)
+        if fx >= 0.0:
+            traction = veh[I_MU_TRAC] * normal
+            tyre_x[i] = abs(fx) / traction
+            drive = veh[I_POWER] / vi if vi > 0.0 else np.inf
+            sx[i] = fx / min(traction, drive)
+            power[i] = fx * vi / veh[I_POWER] if fx > 0.0 else 0.0
+        else:
+            braking = veh[I_MU_BRK] * normal
+            tyre_x[i] = abs(fx) / braking
+            sx[i] = fx / braking
+            power[i] = 0.0
+
+
 @njit(cache=True, inline="always")
 def _plane_point(v, ax, ay, veh):
     """One sample's combined usage and tyre-force radius, as ``limitlap.limits``.
@@ -520,18 +552,16 @@ def polygon_self_crosses(x, y):
 
 
 @njit(cache=True, inline="always")
-def _window_spans(x, width):
-    """An upper bound of each centred window's spread (max - min), from the extremes of
-    the blocks of 16 samples that cover the window (edges repeat the end values)."""
+def _block_extremes(x, block):
+    """Largest and smallest value of each run of ``block`` samples (the last one shorter)."""
     n = x.shape[0]
-    h = width // 2
-    nb = (n + 15) // 16
+    nb = (n + block - 1) // block
     bmax = np.empty(nb)
     bmin = np.empty(nb)
     for b in range(nb):
-        hi = x[b * 16]
+        hi = x[b * block]
         lo = hi
-        for j in range(b * 16 + 1, min(b * 16 + 16, n)):
+        for j in range(b * block + 1, min(b * block + block, n)):
             v = x[j]
             if v > hi:
                 hi = v
@@ -539,7 +569,33 @@ def _window_spans(x, width):
                 lo = v
         bmax[b] = hi
         bmin[b] = lo
-    span = np.empty(n)
+    return bmax, bmin
+
+
+@njit(cache=True, nogil=True)
+def despike(x, width, threshold):
+    """Kernel of ``limitlap.envelope.select_samples``' spike test, in place.
+
+    A sample further than ``threshold`` from the running median of ``width`` samples
+    (odd; centred, edges repeating the end values: ``scipy.ndimage.median_filter``'s
+    ``mode="nearest"``) is a spike and is replaced by that median; returns the spike mask.
+
+    The test needs no median: with ``width = 2h + 1`` the median is the (h+1)-th smallest
+    and the (h+1)-th largest value of the window, so it lies more than ``threshold`` below
+    x exactly when more than h values of the window do, and more than ``threshold`` above
+    x exactly when more than h values do (order statistics; e.g. David & Nagaraja, *Order
+    Statistics*, 3rd ed., 2003, §2.1). Those two counts are taken only where the window
+    reaches further than ``threshold`` from x at all (bounded from above by the extremes
+    of the blocks of 16 samples covering it); the median itself is found by sorting only
+    at the spikes, from the unreplaced values. Runs without the GIL.
+    """
+    n = x.shape[0]
+    bad = np.zeros(n, np.bool_)
+    if n == 0:
+        return bad
+    h = width // 2
+    bmax, bmin = _block_extremes(x, 16)
+    n_bad = 0
     for i in range(n):
         b0 = max(i - h, 0) // 16
         b1 = min(i + h, n - 1) // 16
@@ -548,70 +604,38 @@ def _window_spans(x, width):
         for b in range(b0 + 1, b1 + 1):
             hi = max(hi, bmax[b])
             lo = min(lo, bmin[b])
-        span[i] = hi - lo
-    return span
-
-
-@njit(cache=True, nogil=True)
-def despike(x, width, threshold):
-    """Kernel of ``limitlap.envelope.select_samples``' spike test, in place.
-
-    A sample further than ``threshold`` from the running median of ``width`` samples
-    (centred, edges repeating the end values: ``scipy.ndimage.median_filter``'s
-    ``mode="nearest"``) is a spike and is replaced by that median; returns the spike mask.
-    The median is found only where it can matter: a sample whose window spans no more
-    than ``threshold`` (max - min, bounded from above by the blocks of 16 samples covering
-    the window) is within ``threshold`` of any value in it, so of the median too, and
-    cannot be a spike. Elsewhere, runs of such samples keep a sorted window updated by one
-    removal and one insertion per sample. Runs without the GIL.
-    """
-    n = x.shape[0]
-    bad = np.zeros(n, np.bool_)
-    if n == 0:
-        return bad
-    h = width // 2
-    span = _window_spans(x, width)
-    med_at = np.empty(n)
+        xi = x[i]
+        if xi - lo <= threshold and hi - xi <= threshold:
+            continue  # every value of the window, so the median too, is within reach
+        lo = xi - threshold
+        hi = xi + threshold
+        below = 0
+        above = 0
+        if i >= h and i + h < n:
+            for j in range(i - h, i + h + 1):
+                w = x[j]
+                below += w < lo
+                above += w > hi
+        else:
+            for j in range(i - h, i + h + 1):
+                w = x[min(max(j, 0), n - 1)]
+                below += w < lo
+                above += w > hi
+        if below > h or above > h:
+            bad[i] = True
+            n_bad += 1
+    at = np.empty(n_bad, np.int64)
+    med = np.empty(n_bad)
     buf = np.empty(width)
-    i = 0
-    while i < n:
-        if span[i] <= threshold:
-            i += 1
-            continue
-        for j in range(width):  # a run of candidates starts: its first window, sorted
-            buf[j] = x[min(max(i - h + j, 0), n - 1)]
-        buf.sort()
-        med_at[i] = buf[h]
-        k = i + 1
-        while k < n and span[k] > threshold:
-            old = x[max(k - h - 1, 0)]
-            new = x[min(k + h, n - 1)]
-            if old != new:
-                a = 0
-                b = width
-                while a < b:
-                    mid = (a + b) >> 1
-                    if buf[mid] < old:
-                        a = mid + 1
-                    else:
-                        b = mid
-                p = a
-                if new > old:
-                    while p + 1 < width and buf[p + 1] < new:
-                        buf[p] = buf[p + 1]
-                        p += 1
-                else:
-                    while p > 0 and buf[p - 1] > new:
-                        buf[p] = buf[p - 1]
-                        p -= 1
-                buf[p] = new
-            med_at[k] = buf[h]
+    k = 0
+    for i in range(n):
+        if bad[i]:
+            for j in range(width):
+                buf[j] = x[min(max(i - h + j, 0), n - 1)]
+            buf.sort()
+            at[k] = i
+            med[k] = buf[h]
             k += 1
-        for q in range(i, k):  # decide after the run: the windows read unreplaced values
-            if abs(x[q] - med_at[q]) > threshold:
-                bad[q] = True
-        for q in range(i, k):
-            if bad[q]:
-                x[q] = med_at[q]
-        i = k
+    for k in range(n_bad):  # replaced after the test: every window reads unreplaced values
+        x[at[k]] = med[k]
     return bad

@@ -375,29 +375,49 @@ def _tyre_plane(v, ax, ay, veh):
     return fx / fx_max, m * ay / (veh.mu_lat * normal), np.hypot(fx / m, ay)
 
 
-def _usage_and_direction(v, ax, ay, veh):
+def _usage_and_direction(v, ax, ay, veh, work=None):
     """``combined_usage`` and ``arctan2`` of :func:`_tyre_plane`'s shares, sharing the forces.
 
-    The formulas of :func:`limitlap.limits.combined_usage` and :func:`_tyre_plane`, each
-    intermediate (q, N, F_x) computed once instead of in each; tests hold the results
-    equal to the two functions'. [-], [rad]
+    The formulas of :func:`limitlap.limits.combined_usage` and :func:`_tyre_plane`: the
+    forces and shares in one compiled pass (``_kernels.tyre_plane_parts``), the powers
+    and the arctangent by numpy's vectorised functions, all into five work arrays
+    (``work``, shape (5, n), reused by the caller across passes; fresh when None) instead
+    of a score of temporaries; tests hold the results equal to the two functions', bit
+    for bit. Returns views of ``work``. [-], [rad]
     """
-    m = veh.mass_kg
-    q = 0.5 * veh.air_density_kg_m3 * v * v
-    normal = m * G0_M_S2 + q * veh.downforce_area_m2
-    fx = m * ax + (q * veh.drag_area_m2 + veh.rolling_coeff * m * G0_M_S2)
-    driving = fx >= 0.0
-    traction = veh.mu_trac * normal
-    braking = veh.mu_brk * normal
-    lateral = veh.mu_lat * normal
-    sy = m * ay / lateral
+    v = np.ascontiguousarray(v, dtype=np.float64)
+    work = np.empty((5, v.shape[0])) if work is None else work
+    tyre, tyre_y, sx, sy, power = work
+    _kernels.tyre_plane_parts(
+        v, np.ascontiguousarray(ax, dtype=np.float64), np.ascontiguousarray(ay, dtype=np.float64),
+        _plane_array(veh), tyre, tyre_y, sx, sy, power,
+    )
     n = veh.exponent
-    tyre = ((np.abs(fx) / np.where(driving, traction, braking)) ** n + np.abs(sy) ** n) ** (1.0 / n)
-    with np.errstate(divide="ignore", invalid="ignore"):
-        power_force = np.where(v > 0, veh.power_w / np.where(v > 0, v, 1.0), np.inf)
-        power = np.where(fx > 0, fx * v / veh.power_w, 0.0)
-    sx = fx / np.where(driving, np.minimum(traction, power_force), braking)
-    return np.maximum(tyre, power), np.arctan2(sy, sx)
+    np.power(tyre, n, out=tyre)
+    np.power(tyre_y, n, out=tyre_y)
+    tyre += tyre_y
+    np.power(tyre, 1.0 / n, out=tyre)
+    np.maximum(tyre, power, out=tyre)
+    np.arctan2(sy, sx, out=sx)
+    return tyre, sx
+
+
+def _plane_array(veh):
+    """The kernels' parameter array of the quantities the tyre plane uses (mass, g, air
+    density, aero areas, rolling resistance, friction, power); the fit's vehicles need
+    not be complete."""
+    out = np.zeros(_kernels.N_VEH)
+    out[_kernels.I_MASS] = veh.mass_kg
+    out[_kernels.I_G] = G0_M_S2
+    out[_kernels.I_RHO] = veh.air_density_kg_m3
+    out[_kernels.I_LIFT_AREA] = veh.downforce_area_m2
+    out[_kernels.I_DRAG_AREA] = veh.drag_area_m2
+    out[_kernels.I_CRR] = veh.rolling_coeff
+    out[_kernels.I_MU_LAT] = veh.mu_lat
+    out[_kernels.I_MU_BRK] = veh.mu_brk
+    out[_kernels.I_MU_TRAC] = veh.mu_trac
+    out[_kernels.I_POWER] = veh.power_w
+    return out
 
 
 def _residuals(v, ax, ay, veh):
@@ -456,11 +476,11 @@ def _plane_residuals(v, ax, ay, names, veh, lo, hi):
 _FD_STEP = float(np.finfo(np.float64).eps) ** 0.5
 
 
-def _boundary_points(v, ax, ay, veh, band, n_angle_bins, quantile, min_bin_samples):
+def _boundary_points(v, ax, ay, veh, band, n_angle_bins, quantile, min_bin_samples, work=None):
     """Index of the sample at the ``quantile`` rank of normalised radius in every bin."""
-    # numpy here: on tens of thousands of samples its vectorised pow/arctan2 beat the
-    # kernel's scalar ones (measured 3.5 vs 9 ms a pass on 84k samples)
-    rho, phi = _usage_and_direction(v, ax, ay, veh)
+    # the powers and arctangent by numpy: on tens of thousands of samples its vectorised
+    # pow/arctan2 beat a kernel's scalar ones (measured 3.5 vs 9 ms a pass on 84k samples)
+    rho, phi = _usage_and_direction(v, ax, ay, veh, work)
     abin = np.minimum(
         ((phi + np.pi) / (2 * np.pi) * n_angle_bins).astype(np.int64), n_angle_bins - 1
     )
@@ -655,9 +675,13 @@ def fit_envelope(
     pri = [(i, *prior[k]) for i, k in enumerate(names) if k in prior]
     w_prior = 0.01  # m/s² per prior standard deviation
 
+    work = np.empty((5, v.shape[0]))  # _usage_and_direction's arrays, reused by each pass
+
     def boundary(veh):
         """The boundary points of every bin under the normalisation by ``veh``."""
-        idx, bp_band = _boundary_points(v, ax, ay, veh, band, n_angle_bins, quantile, min_bin_samples)
+        idx, bp_band = _boundary_points(
+            v, ax, ay, veh, band, n_angle_bins, quantile, min_bin_samples, work
+        )
         return idx, bp_band, v[idx], ax[idx], ay[idx]
 
     def fit_points(sub, veh, start, bv, bax, bay):

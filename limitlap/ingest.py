@@ -667,7 +667,7 @@ def _first_bad(rows, mask):
     return i, int(rows[i])
 
 
-def read_log(path, channel_map=None) -> Log:
+def read_log(path, channel_map=None, *, on_channels=None) -> Log:
     """Read a session log (INTERFACE §1) into SI arrays on the log's own time base.
 
     Parameters
@@ -679,6 +679,11 @@ def read_log(path, channel_map=None) -> Log:
     channel_map : ChannelMap, str, Path or None
         Column names and units for a log that does not use the §1 names (a
         :class:`ChannelMap` or the path of its TOML file).
+    on_channels : callable, optional
+        ``on_channels(time_s, channels)`` as soon as the time base and the channels are
+        final and in SI (the same arrays the returned :class:`Log` holds), before the
+        positions are converted and the dropouts looked for: work that needs only them can
+        start in another thread meanwhile (the pipeline's envelope samples).
 
     Returns
     -------
@@ -763,6 +768,8 @@ def read_log(path, channel_map=None) -> Log:
         raise InputError(path, "no speed: the column is blank in every row", column=column("speed"))
     if "lap" in data:
         _check_lap_column(path, data["lap"], rows, column("lap"))
+    if on_channels is not None:
+        on_channels(time_s, data)
 
     origin = None
     if "latitude" in data and "longitude" in data:

@@ -187,10 +187,10 @@ def load_session(log_path, *, gate=None, channels=None, track=None):
     return log, laps, trk, warnings
 
 
-def _read_session(log_path, channels, track):
+def _read_session(log_path, channels, track, on_channels=None):
     """The log (and its warnings) and the track of :func:`load_session`."""
     channel_map = ingest.read_channel_map(channels) if channels is not None else None
-    log = ingest.read_log(log_path, channel_map)
+    log = ingest.read_log(log_path, channel_map, on_channels=on_channels)
     trk = ingest.read_track(track) if isinstance(track, str | Path) else track
     return log, trk, list(log.warnings)
 
@@ -267,6 +267,21 @@ def _trace_samples(drivens):
     return v, ax, ay, mask, None, throttle if np.isfinite(throttle).any() else None
 
 
+def _fit(log_path, samples, base, early):
+    """The envelope fitted to ``samples`` (see :func:`_imu_samples`); ``early`` is the
+    pending sample selection of the whole log, or None. Errors name the log."""
+    v_s, ax_s, ay_s, mask_s, rate, thr_s = samples
+    try:
+        return envelope.fit_envelope(
+            v_s, ax_s, ay_s, base, mask=mask_s, sample_rate_hz=rate, throttle=thr_s,
+            selection=None if early is None else early.result(),
+        )
+    except InputError:
+        raise
+    except LimitlapError as err:  # the log's data cannot support a fit: name the log
+        raise InputError(log_path, f"{err} (give a vehicle file with [grip])") from err
+
+
 def analyse(
     log_path,
     *,
@@ -302,26 +317,34 @@ def analyse(
     """
     total = 6
     k = check_grip_scale(grip_scale)
-    _step(progress, 0, total, "reading the log")
-    log, trk, warnings = _read_session(log_path, channels, track)
     if isinstance(vehicle, Vehicle):
         base = vehicle
     elif vehicle is not None:
         base = ingest.read_vehicle(vehicle, require_complete=False)
     else:
         base = Vehicle("fitted from the log", NOMINAL_MASS_KG)
+    _step(progress, 0, total, "reading the log")
     with ThreadPoolExecutor(max_workers=1) as pool:
-        # The envelope's sample selection (despike and low-pass every row) needs no laps:
-        # it runs in a second thread while the laps are split and the line rebuilt.
-        # (Started earlier, inside the reader, it slowed the reader's own work by more
-        # than it gained: measured 257-280 against 233-259 ms.)
-        early = None
-        if not base.is_complete and log.has("accel_lon") and log.has("accel_lat"):
-            ch = log.channels
-            early = pool.submit(
+        # The envelope's sample selection (despike and low-pass every row) needs neither
+        # positions nor laps: it starts in a second thread as soon as the reader has the
+        # channels, and the fit follows it there once the laps are known, while this thread
+        # converts the positions, splits the laps, rebuilds the line, finds the corners and
+        # times the other laps.
+        started = {}
+
+        def select_early(time_s, ch):
+            if base.is_complete or time_s.shape[0] < 2:
+                return
+            if not all(k in ch and np.isfinite(ch[k]).any() for k in ("accel_lon", "accel_lat")):
+                return
+            rate = float(1.0 / np.median(np.diff(time_s)))  # as _sample_rate
+            started["selection"] = pool.submit(
                 envelope.select_samples, ch["speed"], ch["accel_lon"], ch["accel_lat"],
-                sample_rate_hz=_sample_rate(log),
+                sample_rate_hz=rate,
             )
+
+        log, trk, warnings = _read_session(log_path, channels, track, on_channels=select_early)
+        early = started.get("selection")
         laps = _split_session(log_path, log, trk, gate, warnings)
         complete = [lp for lp in laps if lp.complete]
         if not complete:
@@ -337,32 +360,34 @@ def analyse(
             if not chosen.complete:
                 raise InputError(log_path, f"lap {lap} is not complete ({chosen.reason})")
 
+        samples = fitting = None
+        if not base.is_complete:
+            samples = _imu_samples(log, laps, complete)
+            if samples is not None:  # the fit runs beside the line rebuild (it needs no line)
+                fitting = pool.submit(_fit, log_path, samples, base, early)
+
         _step(progress, 1, total, "rebuilding the driven line")
         # Only the analysed lap's line is rebuilt (GNSS/inertial fusion); the other laps
         # give the composite their time against distance straight from the logged speed.
         the_lap = driven_mod.reconstruct_lap(log, chosen)
         warnings += [w for w in the_lap.warnings if w not in warnings]
+        names = list(trk.corner_names) if trk is not None and trk.corner_names else None
+        apexes = list(trk.corner_apexes_m) if names is not None else None
+        corners = compare.find_corners(the_lap.line, names, apexes_m=apexes)
+        timelines = lap_timelines(log, [lp for lp in complete if lp is not chosen])
 
         _step(progress, 2, total, "fitting the grip envelope")
         fit = None
         if base.is_complete:
             car = base
         else:
-            samples = _imu_samples(log, laps, complete)
-            if samples is None:  # no IMU: samples from every complete lap's rebuilt line
+            if fitting is not None:
+                fit = fitting.result()
+            else:  # no IMU: samples from every complete lap's rebuilt line
                 samples = _trace_samples(
                     [the_lap if lp is chosen else driven_mod.reconstruct_lap(log, lp) for lp in complete]
                 )
-            v_s, ax_s, ay_s, mask_s, rate, thr_s = samples
-            try:
-                fit = envelope.fit_envelope(
-                    v_s, ax_s, ay_s, base, mask=mask_s, sample_rate_hz=rate, throttle=thr_s,
-                    selection=None if early is None else early.result(),
-                )
-            except InputError:
-                raise
-            except LimitlapError as err:  # the log's data cannot support a fit: name the log
-                raise InputError(log_path, f"{err} (give a vehicle file with [grip])") from err
+                fit = _fit(log_path, samples, base, None)
             car = fit.vehicle
             # The fit's own lines do not know the file; say which log they are about.
             warnings += [f"{log_path}: {w}" for w in fit.warnings if f"{log_path}: {w}" not in warnings]
@@ -387,13 +412,9 @@ def analyse(
             f"so most of the time left against the ideal at grip scale {k:g} is grip that was "
             f"not there; analyse with --grip {grip_est:.2f} for the ideal at the grip found"
         )
-    names = list(trk.corner_names) if trk is not None and trk.corner_names else None
-    apexes = list(trk.corner_apexes_m) if names is not None else None
-    corners = compare.find_corners(the_lap.line, names, apexes_m=apexes)
     comparison = compare.compare_lap(the_lap, ideal, car, corners, grip_scale=k, grip_estimate=grip_est)
 
     _step(progress, 5, total, "best of the session's own laps")
-    timelines = lap_timelines(log, [lp for lp in complete if lp is not chosen])
     timelines[chosen.number] = _timeline_of(the_lap, chosen)
     complete_laps = [timelines[lp.number] for lp in complete]
     best = None

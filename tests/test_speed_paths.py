@@ -116,14 +116,15 @@ class _Segment:
 def test_despike_kernel_matches_scipy_median_filter(width):
     # Exact equality with the spike test written on scipy.ndimage.median_filter (edges
     # repeating the end values, mode="nearest"): the same samples marked and the same
-    # medians put in their place, although the kernel finds medians only where a window
-    # spans more than the threshold; quantised values make many ties, as a logger's.
+    # medians put in their place, although the kernel tests by counting and sorts only at
+    # the spikes; quantised values make many ties, as a logger's.
     from scipy.ndimage import median_filter
 
     rng = np.random.default_rng(width)
     for n in (1, 2, width - 1, width, 1000):
         x = np.cumsum(rng.normal(size=n)) * 0.3 + rng.normal(size=n) * 0.5
-        x[::17] += 6.0  # spikes
+        x[::17] += 6.0  # spikes, upwards and downwards
+        x[5::23] -= 6.0
         for values in (x, np.round(x, 1)):
             med = median_filter(values, size=width, mode="nearest")
             want = np.abs(values - med) > 2.0
@@ -380,6 +381,20 @@ def test_compiled_residuals_and_jacobian_match_numpy_and_scipy():
     ref = approx_derivative(fun, x, method="2-point", bounds=(lo, hi))
     col_scale = np.maximum(np.abs(ref).max(axis=0), 1e-12)
     assert np.all(np.abs(got - ref).max(axis=0) <= 1e-6 * col_scale)
+
+
+def test_reader_hands_over_the_final_channels_early(tmp_path):
+    # read_log's on_channels hook (the pipeline starts the envelope samples there) must get
+    # the very arrays the returned log holds, in SI, on the final time base.
+    session = synth.generate_session(n_laps=1, seed=22)
+    path = tmp_path / "s.csv"
+    path.write_text(synth.session_csv_text(session), encoding="utf-8")
+    seen = {}
+    log = ingest.read_log(path, on_channels=lambda t, ch: seen.update(t=t, ch=dict(ch)))
+    assert seen["t"] is log.time_s
+    for name in ("speed", "accel_lon", "accel_lat"):
+        assert seen["ch"][name] is log.channels[name]
+    np.testing.assert_allclose(log.channels["speed"], session.channels["speed"], atol=0.01)
 
 
 def _refine_reference(log, gx, gy, nx, ny, s, at, span=30.0):
