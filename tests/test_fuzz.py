@@ -306,15 +306,22 @@ def curvature_lines(draw):
 def test_solver_on_random_curvature_stays_in_envelope(line, car, k, entry):
     # Open lines enter at a given speed: the default (the cornering limit, the 200 m/s
     # cap on a straight) is no speed a car with a 22 m/s top speed can arrive at.
-    climb = float(np.max(line.gradient / np.sqrt(1 + line.gradient**2)))
-    # the envelope tolerance is for a car that can climb the line's grades with margin;
-    # one that cannot must raise the documented error instead
-    weak = car.mu_trac * k < car.rolling_coeff + max(climb, 0.0) + 0.05
+    sines = line.gradient / np.sqrt(1 + line.gradient**2)
+    climb, descent = float(np.max(sines)), float(-np.min(sines))
+    # the envelope tolerance is for a car that can climb the line's grades, and hold
+    # itself on their descents, with margin (mu k g beyond g sin theta: a brake that
+    # cannot beat the slope cannot slow for the next bend); one that cannot must raise
+    # the documented error or give finite speeds
+    weak = (
+        car.mu_trac * k < car.rolling_coeff + max(climb, 0.0) + 0.05
+        or car.mu_brk * k < max(descent, 0.0) - car.rolling_coeff + 0.05
+    )
     try:
         profile = solve.solve_profile(line, car, k, entry_speed_m_s=None if line.closed else entry)
     except LimitlapError as err:
         # only the documented "cannot complete": tyres that cannot beat rolling resistance
-        # plus the steepest climb at walking pace (mu_t k g < Crr g + g sin theta)
+        # plus the steepest climb at walking pace (mu_t k g < Crr g + g sin theta), or
+        # brakes that cannot hold the car on the steepest descent
         assert "cannot complete" in str(err)
         assert weak
         return

@@ -442,3 +442,37 @@ def test_vectorised_crossing_refinement_matches_one_fit_per_crossing(session_and
         want = _refine_reference(log, gx, gy, nx, ny, s, at)
         np.testing.assert_allclose(got, want, rtol=0.0, atol=1e-9)
         assert np.any(got != at)  # some crossings were refined
+
+
+def test_robust_least_squares_matches_scipy_soft_l1():
+    # The fit's least squares (MINPACK's Levenberg-Marquardt on transformed residuals)
+    # against the reference it replaces, scipy.optimize.least_squares(loss="soft_l1",
+    # method="trf"): the same minimum of the same cost (to the solvers' own tolerances,
+    # 1e-6 relative here), the same loss-scaled Jacobian at it, and with the minimum
+    # beyond a bound, the bounded method's answer on that bound.
+    from scipy.optimize import least_squares
+
+    rng = np.random.default_rng(5)
+    t = np.linspace(0.0, 4.0, 120)
+    y = 2.0 * np.exp(-0.7 * t) + 0.3 + rng.normal(0.0, 0.02, t.size)
+    y[::9] += rng.normal(0.0, 0.5, y[::9].size)  # outliers: where soft-L1 differs from L2
+
+    def fun(x):
+        return x[0] * np.exp(-x[1] * t) + x[2] - y
+
+    def jac(x):
+        e = np.exp(-x[1] * t)
+        return np.column_stack([e, -x[0] * t * e, np.ones_like(t)])
+
+    start = np.array([1.0, 1.0, 0.0])
+    for lo, hi, inside in (
+        (np.array([0.0, 0.0, -1.0]), np.array([10.0, 10.0, 1.0]), True),
+        (np.array([0.0, 0.0, -1.0]), np.array([10.0, 10.0, 0.1]), False),  # x[2] held at 0.1
+    ):
+        ref = least_squares(fun, start, jac=jac, bounds=(lo, hi), loss="soft_l1", f_scale=0.1,
+                            x_scale="jac", ftol=1e-12, xtol=1e-12, gtol=1e-12)
+        got = envelope._robust_least_squares(fun, jac, start, lo, hi, 0.1)
+        np.testing.assert_allclose(got.x, ref.x, rtol=1e-6, atol=1e-9)
+        np.testing.assert_allclose(got.fun, fun(got.x), rtol=0, atol=0)
+        np.testing.assert_allclose(got.jac, ref.jac, rtol=1e-5, atol=1e-8)
+        assert inside == bool(np.all(ref.active_mask == 0))  # the case is what it says
