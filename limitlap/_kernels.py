@@ -348,6 +348,53 @@ def lap_times_for_scales(curvature_1_m, sin_grad, ds_m, veh, closed, b_entry, b_
     return out
 
 
+@njit(cache=True)
+def first_row_at_speed(x, y, v, threshold):
+    """Kernel of ``limitlap.laps.auto_gate``: the first row with a position whose speed
+    is at least ``threshold`` and above zero, -1 when none (NaN never counts). [-]"""
+    for i in range(v.shape[0]):
+        if v[i] >= threshold and v[i] > 0.0 and np.isfinite(x[i]) and np.isfinite(y[i]):
+            return i
+    return -1
+
+
+@njit(cache=True)
+def gate_approaches(x, y, gx, gy, reach):
+    """Kernel of ``limitlap.laps.gate_crossings``' search: the row nearest the gate point
+    (the first of equals; -1 when no row has a position), its distance, and the rows i
+    whose step to i + 1 stays within ``reach`` of the point at both ends. Two passes over
+    the positions, no full-length temporaries. [-], [m], [-]"""
+    n = x.shape[0]
+    reach2 = reach * reach
+    best = np.inf
+    near = -1
+    count = 0
+    prev = False
+    for i in range(n):
+        dx = x[i] - gx
+        dy = y[i] - gy
+        d2 = dx * dx + dy * dy
+        if d2 < best:  # NaN (no position) never is
+            best = d2
+            near = i
+        close = d2 < reach2
+        if close and prev:
+            count += 1
+        prev = close
+    pairs = np.empty(count, np.int64)
+    k = 0
+    prev = False
+    for i in range(n):
+        dx = x[i] - gx
+        dy = y[i] - gy
+        close = dx * dx + dy * dy < reach2
+        if close and prev:
+            pairs[k] = i - 1
+            k += 1
+        prev = close
+    return near, np.sqrt(best) if near >= 0 else np.nan, pairs
+
+
 @njit(cache=True, inline="always")
 def _nearer_root(va, ia, vb, ib, top):
     """Heap order of (value, index) pairs: smaller first in the heap of a group's largest

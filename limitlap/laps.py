@@ -12,6 +12,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from limitlap import _kernels
 from limitlap.errors import InputError, LimitlapError
 from limitlap.ingest import Log, fill_position, gps_dropouts, travelled_m
 
@@ -178,11 +179,17 @@ def auto_gate(log: Log, speed_share: float = 0.6) -> Gate:
     """
     v = log.channels["speed"]
     x, y = fill_position(log)
-    fast = np.nanpercentile(v, 95.0) if np.isfinite(v).any() else np.nan
-    ok = np.isfinite(x) & np.isfinite(y) & (v >= speed_share * fast) & (v > 0)
-    if not ok.any():
+    finite = np.isfinite(v)
+    if finite.all():
+        fast = np.percentile(v, 95.0)  # nanpercentile's value, without its NaN handling
+    else:
+        fast = np.nanpercentile(v, 95.0) if finite.any() else np.nan
+    i = int(_kernels.first_row_at_speed(
+        np.ascontiguousarray(x), np.ascontiguousarray(y), np.ascontiguousarray(v, dtype=np.float64),
+        float(speed_share * fast),
+    ))
+    if i < 0:
         raise InputError(log.path, "cannot place a gate: the car never reaches speed with a position fix")
-    i = int(np.argmax(ok))
     if log.origin is None:
         return Gate.planar(x[i], y[i])
     import pymap3d
@@ -267,34 +274,35 @@ def gate_crossings(log: Log, gate: Gate) -> np.ndarray:
     x, y = fill_position(log)
     s = travelled_m(log)
     t = log.time_s
-    dx, dy = x - gx, y - gy
-    d2 = dx * dx + dy * dy
-    if not np.isfinite(d2).any():
+    # Only row pairs near the gate can cross it within its half width (a row's step is a
+    # metre or so; 100 m of margin): the signed distances are taken there alone.
+    near, closest, pairs = _kernels.gate_approaches(
+        np.ascontiguousarray(x), np.ascontiguousarray(y), float(gx), float(gy),
+        gate.half_width_m + 100.0,
+    )
+    if near < 0:
         raise InputError(log.path, "no position to place the gate on")
-    near = int(np.nanargmin(d2))
-    if math.sqrt(d2[near]) > gate.half_width_m:
+    if closest > gate.half_width_m:
         raise InputError(
             log.path,
-            f"the car never crosses the gate at {gate} (closest pass {math.sqrt(d2[near]):.0f} m away)",
+            f"the car never crosses the gate at {gate} (closest pass {closest:.0f} m away)",
         )
     direction = _direction_at(x, y, s, near)
     if direction is None:
         raise InputError(log.path, f"the car does not move at the gate at {gate}")
     nx, ny = direction
-    # Only row pairs near the gate can cross it within its half width (a row's step is a
-    # metre or so; 100 m of margin): the signed distances are taken there alone.
-    with np.errstate(invalid="ignore"):
-        close = d2 < (gate.half_width_m + 100.0) ** 2
-    pairs = np.flatnonzero(close[:-1] & close[1:])
-    ends = np.concatenate((pairs, pairs + 1))
-    along = np.full(x.shape[0], np.nan)
-    across = np.full(x.shape[0], np.nan)
-    along[ends] = dx[ends] * nx + dy[ends] * ny  # signed distance past the gate line
-    across[ends] = -dx[ends] * ny + dy[ends] * nx  # offset along the gate line
-    a0, a1 = along[pairs], along[pairs + 1]
-    i = pairs[(a0 < 0) & (a1 >= 0)]
-    frac = -along[i] / (along[i + 1] - along[i])
-    offset = across[i] + frac * (across[i + 1] - across[i])
+
+    def signed(rows):  # distance past the gate line, and offset along it
+        dx, dy = x[rows] - gx, y[rows] - gy
+        return dx * nx + dy * ny, -dx * ny + dy * nx
+
+    a0, c0 = signed(pairs)
+    a1, c1 = signed(pairs + 1)
+    cross = (a0 < 0) & (a1 >= 0)
+    i = pairs[cross]
+    a0, a1, c0, c1 = a0[cross], a1[cross], c0[cross], c1[cross]
+    frac = -a0 / (a1 - a0)
+    offset = c0 + frac * (c1 - c0)
     keep = np.abs(offset) <= gate.half_width_m
     i, frac = i[keep], frac[keep]
     at = s[i] + frac * (s[i + 1] - s[i])
