@@ -390,7 +390,7 @@ def _usage_and_direction(v, ax, ay, veh, work=None):
     tyre, tyre_y, sx, sy, power = work
     _kernels.tyre_plane_parts(
         v, np.ascontiguousarray(ax, dtype=np.float64), np.ascontiguousarray(ay, dtype=np.float64),
-        _plane_array(veh), tyre, tyre_y, sx, sy, power,
+        vehicle_array(veh), tyre, tyre_y, sx, sy, power,
     )
     n = veh.exponent
     np.power(tyre, n, out=tyre)
@@ -400,24 +400,6 @@ def _usage_and_direction(v, ax, ay, veh, work=None):
     np.maximum(tyre, power, out=tyre)
     np.arctan2(sy, sx, out=sx)
     return tyre, sx
-
-
-def _plane_array(veh):
-    """The kernels' parameter array of the quantities the tyre plane uses (mass, g, air
-    density, aero areas, rolling resistance, friction, power); the fit's vehicles need
-    not be complete."""
-    out = np.zeros(_kernels.N_VEH)
-    out[_kernels.I_MASS] = veh.mass_kg
-    out[_kernels.I_G] = G0_M_S2
-    out[_kernels.I_RHO] = veh.air_density_kg_m3
-    out[_kernels.I_LIFT_AREA] = veh.downforce_area_m2
-    out[_kernels.I_DRAG_AREA] = veh.drag_area_m2
-    out[_kernels.I_CRR] = veh.rolling_coeff
-    out[_kernels.I_MU_LAT] = veh.mu_lat
-    out[_kernels.I_MU_BRK] = veh.mu_brk
-    out[_kernels.I_MU_TRAC] = veh.mu_trac
-    out[_kernels.I_POWER] = veh.power_w
-    return out
 
 
 def _residuals(v, ax, ay, veh):
