@@ -644,6 +644,26 @@ def polygon_self_crosses(x, y):
 
 
 
+@njit(cache=True, nogil=True)
+def held_at_least(x, rows, reach, level):
+    """Kernel of ``limitlap.envelope._full_throttle_held``: for ascending ``rows``, True
+    where every x within ``reach`` rows either side is >= ``level`` (NaN is not). One scan
+    of x up to the last row's window, remembering the last row below the level."""
+    n = x.shape[0]
+    out = np.empty(rows.shape[0], dtype=np.bool_)
+    last_low = -reach - 1  # no row below the level seen yet
+    scanned = -1
+    for i in range(rows.shape[0]):
+        r = rows[i]
+        top = min(r + reach, n - 1)
+        while scanned < top:
+            scanned += 1
+            if not (x[scanned] >= level):
+                last_low = scanned
+        out[i] = last_low < r - reach
+    return out
+
+
 @njit(cache=True, inline="always")
 def _block_extremes(x, block):
     """Largest and smallest value of each run of ``block`` samples (the last one shorter)."""

@@ -37,6 +37,7 @@ from __future__ import annotations
 import math
 from concurrent.futures import ThreadPoolExecutor
 from dataclasses import dataclass, field, replace
+from statistics import NormalDist
 
 import numpy as np
 from scipy import optimize
@@ -119,6 +120,12 @@ class Selection:
         True for samples that count. [-]
     n_spikes : int
         Samples rejected as spikes or short transients. [-]
+    spike : numpy.ndarray or None
+        True for the samples found to be spikes (None without a sample rate). [-]
+    noise_m_s2 : float
+        Standard deviation of the sensor noise left in the filtered accelerations (root
+        mean square of the two axes; :func:`filtered_noise`), 0 without a sample rate.
+        [m/s²]
     """
 
     speed_m_s: np.ndarray
@@ -127,6 +134,7 @@ class Selection:
     used: np.ndarray
     n_spikes: int = 0
     spike: np.ndarray | None = None
+    noise_m_s2: float = 0.0
 
     def within(self, mask) -> Selection:
         """The same selection restricted to the samples where ``mask`` is True (the
@@ -173,9 +181,16 @@ class EnvelopeFit:
         Complete vehicle: the base's given values plus the fitted ones.
     quality : dict[str, float]
         ``rms_residual_m_s2`` (radial distance of the boundary points from the fitted
-        envelope, in the tyre-force plane), ``share_outside`` (used samples with combined
-        usage > 1), ``n_used``, ``n_boundary_points``, ``speed_min_m_s``,
-        ``speed_max_m_s``, ``quantile``, ``passes``.
+        envelope, in the tyre-force plane), ``share_outside_tyre_limit`` (used samples
+        beyond the friction limits: up to half of those driven on the limit, the noise
+        scattering them both ways once it is taken out of the envelope),
+        ``share_above_power_line`` (of the full-throttle samples the power and drag were
+        calibrated on, see :func:`fit_envelope`'s Notes, the share above the power line:
+        about half, that fit being a central one; NaN without that calibration),
+        ``n_used``, ``n_boundary_points``, ``speed_min_m_s``, ``speed_max_m_s``,
+        ``quantile``, ``noise_m_s2`` (:attr:`Selection.noise_m_s2`),
+        ``noise_offset_m_s2`` (how far outside the envelope the boundary points were
+        fitted, :func:`_noise_offset`), ``passes``.
     uncertainty : dict[str, float]
         One standard deviation per fitted parameter, same names and units as
         :class:`Vehicle` fields.
@@ -321,13 +336,18 @@ def select_samples(
         width = max(3, round(persistence_s * fs) | 1)  # odd window
         sigma = gaussian_sigma_samples(cutoff_hz, fs)
         starts, ends = _runs(finite)
-        args = (starts, ends, width, sigma, spike_threshold_m_s2)
+        stride = max(1, n // _NOISE_SAMPLES)
+        args = (starts, ends, width, sigma, spike_threshold_m_s2, stride)
         if n >= _THREADED_SAMPLES:  # the two channels side by side (the kernels drop the GIL)
             with ThreadPoolExecutor(max_workers=1) as pool:
                 later = pool.submit(_despike_and_filter, ay, *args)
-                spike = _despike_and_filter(ax, *args) | later.result()
+                spike_x, res_x = _despike_and_filter(ax, *args)
+                spike_y, res_y = later.result()
         else:
-            spike = _despike_and_filter(ax, *args) | _despike_and_filter(ay, *args)
+            spike_x, res_x = _despike_and_filter(ax, *args)
+            spike_y, res_y = _despike_and_filter(ay, *args)
+        spike = spike_x | spike_y
+        noise = math.sqrt(0.5 * (filtered_noise(res_x, sigma) ** 2 + filtered_noise(res_y, sigma) ** 2))
         for a, b in zip(starts, ends, strict=True):
             if not b - a > 8.0 * sigma:
                 finite[a:b] = False  # too short to filter: leave out
@@ -335,8 +355,48 @@ def select_samples(
         keep = keep & ~spike & finite
     else:
         spike = None
+        noise = 0.0
     ok = keep & np.isfinite(v) & np.isfinite(ax) & np.isfinite(ay) & (v >= min_speed_m_s)
-    return Selection(v, ax, ay, ok, n_spikes, spike)
+    return Selection(v, ax, ay, ok, n_spikes, spike, noise)
+
+
+#: The noise of the accelerations is estimated from about this many samples (every
+#: n-th of a longer record): its standard error is then about 1 %. [-]
+_NOISE_SAMPLES = 10_000
+
+
+def filtered_noise(residual, sigma):
+    r"""Standard deviation of white sensor noise after the Gaussian low-pass, from the
+    high-pass residual (despiked samples minus their low-passed values).
+
+    For white noise of standard deviation :math:`\sigma_n` through a kernel of weights
+    :math:`w_j` (SciPy's ``gaussian_filter1d``: a Gaussian of ``sigma`` samples truncated
+    at 4 sigma, normalised), the residual :math:`n_0 - \sum_j w_j n_j` has variance
+    :math:`\sigma_n^2 (1 - 2 w_0 + \sum_j w_j^2)` and the low-passed noise
+    :math:`\sigma_n^2 \sum_j w_j^2`. The residual's spread is taken as
+    :math:`1.4826\,\mathrm{MAD}` (the normal distribution's consistent scale, robust to
+    the few samples where the driver's own inputs change faster than the cut-off).
+    Returns 0 for an empty residual. [m/s²]
+
+    Examples
+    --------
+    >>> rng = np.random.default_rng(1)
+    >>> noise = rng.standard_normal(200_000)
+    >>> low = gaussian_filter1d(noise, 4.417)
+    >>> round(filtered_noise(noise - low, 4.417) / float(np.std(low)), 2)
+    1.0
+    """
+    r = np.asarray(residual, dtype=np.float64)
+    r = r[np.isfinite(r)]
+    if r.size == 0:
+        return 0.0
+    spread = 1.4826 * float(np.median(np.abs(r - np.median(r))))
+    radius = int(4.0 * float(sigma) + 0.5)
+    j = np.arange(-radius, radius + 1, dtype=np.float64)
+    w = np.exp(-0.5 * (j / float(sigma)) ** 2)
+    w /= w.sum()
+    w0, w2 = float(w[radius]), float(np.sum(w * w))
+    return spread * math.sqrt(w2 / (1.0 - 2.0 * w0 + w2))
 
 
 #: Records at least this long have their two acceleration channels despiked and filtered
@@ -344,21 +404,29 @@ def select_samples(
 _THREADED_SAMPLES = 50_000
 
 
-def _despike_and_filter(values, starts, ends, width, sigma, threshold):
+def _despike_and_filter(values, starts, ends, width, sigma, threshold, stride=1):
     """Despike (running median) and low-pass (Gaussian) one channel in place, per stretch.
 
     A sample further than ``threshold`` from the running median of ``width`` samples is a
     spike: it is replaced by that median before the zero-phase Gaussian low-pass of
     standard deviation ``sigma`` samples; stretches of ``8 sigma`` samples or fewer are
-    not filtered (the caller leaves them out). Returns the spike mask.
+    not filtered (the caller leaves them out). Returns the spike mask and, for the noise
+    estimate (:func:`filtered_noise`), the high-pass residual at every ``stride``-th
+    sample of the filtered stretches (away from their ends, where the filter's edge
+    handling is not the kernel's).
     """
     spike = np.zeros(values.shape[0], bool)
+    residual = []
+    edge = int(4.0 * sigma + 0.5)
     for a, b in zip(starts, ends, strict=True):  # one pass per unbroken stretch
         seg = values[a:b]
         spike[a:b] = _kernels.despike(seg, width, float(threshold))  # replaced in place
         if b - a > 8.0 * sigma:
-            values[a:b] = gaussian_filter1d(seg, sigma, mode="nearest")
-    return spike
+            low = gaussian_filter1d(seg, sigma, mode="nearest")
+            inner = slice(edge, b - a - edge, stride)
+            residual.append(seg[inner] - low[inner])
+            values[a:b] = low
+    return spike, np.concatenate(residual) if residual else np.empty(0)
 
 
 def _vehicle_from(x, names, base):
@@ -383,7 +451,21 @@ def _usage_and_direction(v, ax, ay, veh, work=None):
     and the arctangent by numpy's vectorised functions, all into five work arrays
     (``work``, shape (5, n), reused by the caller across passes; fresh when None) instead
     of a score of temporaries; tests hold the results equal to the two functions', bit
-    for bit. Returns views of ``work``. [-], [rad]
+    for bit. Returns views of ``work``; its first row keeps the tyre share alone (for
+    :func:`_noise_offset`). [-], [rad]
+    """
+    tyre, power, sx, sy = _tyre_and_power_shares(v, ax, ay, veh, work)
+    usage = np.maximum(tyre, power, out=power)
+    np.arctan2(sy, sx, out=sx)
+    return usage, sx
+
+
+def _tyre_and_power_shares(v, ax, ay, veh, work=None):
+    """The two parts of ``combined_usage`` (their maximum), and the direction shares.
+
+    Returns views of ``work`` (see :func:`_usage_and_direction`): the tyre share (the
+    superellipse of the friction limits alone), the power share F_x v / P, and the shares
+    s_x, s_y whose ``arctan2`` is the direction in the normalised g-g plane. [-]
     """
     v = np.ascontiguousarray(v, dtype=np.float64)
     work = np.empty((5, v.shape[0])) if work is None else work
@@ -397,9 +479,7 @@ def _usage_and_direction(v, ax, ay, veh, work=None):
     np.power(tyre_y, n, out=tyre_y)
     tyre += tyre_y
     np.power(tyre, 1.0 / n, out=tyre)
-    np.maximum(tyre, power, out=tyre)
-    np.arctan2(sy, sx, out=sx)
-    return tyre, sx
+    return tyre, power, sx, sy
 
 
 def _residuals(v, ax, ay, veh):
@@ -530,6 +610,7 @@ def fit_envelope(
     throttle=None,
     fit_rate_hz=FIT_RATE_HZ,
     selection: Selection | None = None,
+    remove_noise: bool = True,
 ) -> EnvelopeFit:
     """Fit the g-g-V envelope of INTERFACE §3 to the samples a driver demonstrated.
 
@@ -582,6 +663,10 @@ def fit_envelope(
         :func:`select_samples` of these same arrays with this sample rate and minimum
         speed but no mask, made beforehand (the pipeline makes it in a second thread while
         it splits the laps); ``mask`` is applied to it. [-]
+    remove_noise : bool, default True
+        Take out of the envelope the width the sensor noise adds to a high quantile
+        (:func:`_noise_offset`; nothing without a sample rate, which leaves the samples
+        unfiltered and their noise unknown): see Notes. [-]
 
     Returns
     -------
@@ -603,10 +688,21 @@ def fit_envelope(
     not a cloud inside the envelope but noisy points on it; a high quantile of them sits
     above the limit by the noise (about two standard deviations), which would make the
     ideal faster on every straight. With a throttle channel, power and drag are therefore
-    refitted by ordinary least squares on :math:`m a_x + C_{rr} m g = P/v -
-    \tfrac12\rho v^2 C_D A` over the full-throttle (≥ 98 %), nearly straight (|a_y| < 2
-    m/s²), power-limited samples, and the friction values refitted with those held
-    (common practice, no published source).
+    refitted by a central (Huber-loss) line fit of :math:`m a_x + C_{rr} m g = P/v -
+    \tfrac12\rho v^2 C_D A` over the full-throttle (≥ 98 %, held for 0.3 s either side
+    so that the filtered deceleration of a lift does not reach in), nearly straight
+    (|a_y| < 2 m/s²), power-limited samples, and the friction values refitted with those
+    held (common practice, no published source).
+
+    A high quantile of samples that lie on the limit with noise sits above the limit:
+    by the normal quantile times the noise's standard deviation (2.33 sigma at 0.99) when
+    every sample of a bin is on the limit, less when most are inside. Left in, it widens
+    the envelope by the sensor's noise (about 1 % of the grip for 0.03 g white noise at
+    100 Hz after the 3 Hz low-pass) and the ideal lap gains time no driver can find. With
+    ``remove_noise``, that lift is estimated from the samples found outside the envelope
+    (:func:`_noise_offset`: the noise level is measured from the high-pass residual of
+    the accelerations, :func:`filtered_noise`) and the boundary points are fitted that
+    far outside it (one more pass, or the refit after the power calibration).
     """
     if base.mass_kg is None or not (base.mass_kg > 0):
         raise LimitlapError(f"vehicle '{base.name}' needs a positive mass to fit an envelope")
@@ -630,7 +726,8 @@ def fit_envelope(
             every = np.zeros(used.shape[0], dtype=bool)
             every[::step] = True
             used = used & every
-    v, ax, ay = sel.speed_m_s[used], sel.accel_lon_m_s2[used], sel.accel_lat_m_s2[used]
+    rows = np.flatnonzero(used)  # the rows in use, found once
+    v, ax, ay = (np.take(a, rows) for a in (sel.speed_m_s, sel.accel_lon_m_s2, sel.accel_lat_m_s2))
     if v.size < min_bin_samples * 4:
         raise LimitlapError(
             f"only {v.size} usable samples above {min_speed_m_s:g} m/s on complete laps; "
@@ -658,6 +755,7 @@ def fit_envelope(
     w_prior = 0.01  # m/s² per prior standard deviation
 
     work = np.empty((5, v.shape[0]))  # _usage_and_direction's arrays, reused by each pass
+    offset = 0.0  # how far outside the envelope the boundary points are fitted (Notes)
 
     def boundary(veh):
         """The boundary points of every bin under the normalisation by ``veh``."""
@@ -677,7 +775,7 @@ def fit_envelope(
 
         def fun(x):
             extra = [w_prior * (x[i] - c) / sd for i, c, sd in sub_pri]
-            return np.concatenate((plane(x), extra))
+            return np.concatenate((plane(x) - offset, extra))
 
         def jac(x):
             return np.vstack((plane_jac(x), prior_jac))
@@ -703,19 +801,28 @@ def fit_envelope(
         if passes > 1 and (moved < 1e-3 or np.all(step < 0.1 * _standard_errors(sol, idx.size))):
             break
 
-    calibrated = _full_throttle_power_drag(v, ax, ay, used, throttle, veh, names)
+    calibrated = _full_throttle_power_drag(v, ax, ay, rows, throttle, veh, names, sample_rate_hz)
+    full_throttle = None
     if calibrated is not None:
-        veh = calibrated
+        veh, full_throttle = calibrated
+    if calibrated is not None or (remove_noise and sel.noise_m_s2 > 0.0):
+        idx, bp_band, bv, bax, bay = boundary(veh)  # leaves the tyre shares in work[0]
+        if remove_noise:
+            offset = _noise_offset(v, ax, ay, veh, sel.noise_m_s2, quantile, work[0])
+    if calibrated is None and offset > 0.0:  # the same parameters again, points off the limit
+        sol = fit_points(every, veh, x0, bv, bax, bay)
+        veh = _vehicle_from(sol.x, names, veh)
+        bp = (idx, bp_band, bv, bax, bay, sol)
+    if calibrated is not None:
         keep = [i for i, k in enumerate(names) if k not in ("power_w", "drag_area_m2")]
         names_f = [names[i] for i in keep]
-        idx, bp_band, bv, bax, bay = boundary(veh)
         x0f = np.array([getattr(veh, k) / _SCALE.get(k, 1.0) for k in names_f])
         start_f = np.clip(x0f, lo[keep] + 1e-9, hi[keep] - 1e-9)
         sol_f = fit_points(keep, veh, start_f, bv, bax, bay)
         veh = _vehicle_from(sol_f.x, names_f, veh)
         bp = (idx, bp_band, bv, bax, bay, sol)
     idx, bp_band, bv, bax, bay, sol = bp
-    res = _residuals(bv, bax, bay, veh)
+    res = _residuals(bv, bax, bay, veh) - offset
     dof = max(res.size - len(names), 1)
     s2 = float(np.sum(res**2) / dof)
     jac = sol.jac
@@ -723,7 +830,15 @@ def fit_envelope(
     sigma = np.sqrt(np.clip(np.diag(cov), 0.0, None))
     uncertainty = {k: float(sigma[i] * _SCALE.get(k, 1.0)) for i, k in enumerate(names)}
 
-    usage = _usage_and_direction(v, ax, ay, veh, work)[0]  # combined_usage, bit for bit
+    tyre, power = _tyre_and_power_shares(v, ax, ay, veh, work)[:2]
+    # Beyond the friction limits (up to half of the samples driven on the limit).
+    share_tyre = float(np.mean(tyre > 1.0))
+    # The power line calibrated on the full-throttle samples is a central fit of them
+    # (see Notes): about half lie above it, by the noise.
+    share_power = (
+        float(np.mean(power[full_throttle] > 1.0)) if full_throttle is not None else math.nan
+    )
+    usage = np.maximum(tyre, power, out=tyre)  # combined_usage, bit for bit
     n_bands = edges.size - 1
     in_band = np.bincount(band, minlength=n_bands)  # samples per band, and near the limit
     near_limit = np.bincount(band[usage >= 0.95], minlength=n_bands)
@@ -750,12 +865,15 @@ def fit_envelope(
     warnings.extend(_plausibility(veh, v, names, uncertainty))
     quality = {
         "rms_residual_m_s2": float(np.sqrt(np.mean(res**2))),
-        "share_outside": float(np.mean(usage > 1.0)),
+        "share_outside_tyre_limit": share_tyre,
+        "share_above_power_line": share_power,
         "n_used": int(v.size),
         "n_boundary_points": int(idx.size),
         "speed_min_m_s": float(v.min()),
         "speed_max_m_s": float(v.max()),
         "quantile": float(quantile),
+        "noise_m_s2": float(sel.noise_m_s2),
+        "noise_offset_m_s2": float(offset),
         "passes": int(passes),
     }
     fitted = tuple(names)
@@ -826,6 +944,52 @@ def _robust_least_squares(fun, jac, start, lo, hi, f_scale):
     return sol
 
 
+#: The noise offset is estimated only from at least this many samples outside the
+#: envelope (a mean over fewer would move it by a tenth of the noise or more). [-]
+_MIN_TAIL_SAMPLES = 100
+
+
+def _noise_offset(v, ax, ay, veh, noise, quantile, tyre=None):
+    r"""How far the sensor noise lifts the boundary points above the limit. [m/s²]
+
+    Samples on the limit with noise of standard deviation :math:`\sigma` (the filtered
+    noise, :attr:`Selection.noise_m_s2`) scatter about it as :math:`N(0, \sigma^2)`; an
+    envelope fitted through high-quantile points lies :math:`b` outside the limit, so
+    those samples lie at :math:`N(-b, \sigma^2)` from it and the ones outside it (radial
+    distance :math:`r > 0`, tyre limits only) have the mean of a normal distribution
+    truncated at 0: :math:`E[r \mid r > 0] = -b + \sigma\,\varphi(b/\sigma) /
+    (1 - \Phi(b/\sigma))` (N. L. Johnson, S. Kotz, N. Balakrishnan, *Continuous
+    Univariate Distributions*, vol. 1, 2nd ed., Wiley, 1994, §13.10, from memory). That
+    mean is decreasing in :math:`b`; solved for :math:`b` from the samples' own mean and
+    kept within :math:`[0, z_q \sigma]` (:math:`z_q` the normal quantile of
+    ``quantile``: the lift when every sample of a bin is on the limit), so the
+    correction never widens the envelope and never narrows it by more than the noise can
+    have widened it. 0 without noise or with fewer than :data:`_MIN_TAIL_SAMPLES` samples
+    outside. Samples inside the limit but within the noise of it are counted as on it.
+    ``tyre``: the samples' tyre shares under ``veh`` when already known.
+    """
+    if not noise > 0.0:
+        return 0.0
+    if tyre is None:
+        tyre = _tyre_and_power_shares(v, ax, ay, veh)[0]
+    out = np.flatnonzero(tyre > 1.0)
+    if out.size < _MIN_TAIL_SAMPLES:
+        return 0.0
+    r = _residuals(v[out], ax[out], ay[out], replace(veh, power_w=math.inf))
+    mean_out = float(np.mean(r))
+    normal = NormalDist()
+    top = normal.inv_cdf(quantile)
+
+    def excess(z):  # E[r | r > 0] / sigma - mean / sigma for b = z sigma
+        return -z + normal.pdf(z) / (1.0 - normal.cdf(z)) - mean_out / noise
+
+    if excess(0.0) <= 0.0:
+        return 0.0
+    if excess(top) >= 0.0:
+        return top * noise
+    return float(optimize.brentq(excess, 0.0, top, xtol=1e-6)) * noise
+
+
 def _standard_errors(sol, n_points):
     r"""Gauss-Newton standard errors of a least-squares solution (internal units).
 
@@ -838,33 +1002,104 @@ def _standard_errors(sol, n_points):
     return np.sqrt(np.clip(np.diag(cov), 0.0, None))
 
 
-def _full_throttle_power_drag(v, ax, ay, used, throttle, veh, names):
+#: Throttle at or above this share counts as full throttle. [-]
+FULL_THROTTLE = 0.98
+
+#: A full-throttle sample calibrates power and drag only when the pedal stayed at full
+#: throttle this long either side of it: the spike test's running median (half of 0.3 s)
+#: and the 3 Hz Gaussian low-pass (3 sigma = 0.13 s) carry the deceleration of a lift
+#: or of the braking at the end of a straight back into the samples before it, which
+#: would pull the power line down at the highest speeds and make the drag too large.
+#: 0.3 s is those two reaches added up. [s]
+THROTTLE_HELD_S = 0.3
+
+
+def _full_throttle_held(throttle, rows, reach):
+    """True where no row within ``reach`` rows of ``rows`` (ascending) is below full
+    throttle (a blank counts as below); one compiled scan (``_kernels.held_at_least``)."""
+    return _kernels.held_at_least(
+        np.ascontiguousarray(throttle, dtype=np.float64), rows.astype(np.int64), int(reach),
+        FULL_THROTTLE,
+    )
+
+
+def _huber_line_fit(design, y, max_iter=50, rtol=1e-8):
+    r"""Linear least squares with Huber's loss, by iteratively reweighted least squares.
+
+    Huber's loss (quadratic within :math:`k = 1.345\,s` of the fit, linear beyond; 95 %
+    efficiency for normal errors) with the scale :math:`s = 1.4826\,\mathrm{MAD}` of the
+    residuals re-estimated each step (P. J. Huber, *Robust Statistics*, Wiley, 1981,
+    ch. 7; P. W. Holland and R. E. Welsch, "Robust regression using iteratively
+    reweighted least-squares", *Commun. Statist.* A6, 1977; constants from memory), the
+    MAD taken over at most :data:`_SCALE_SAMPLES` evenly spread residuals (the scale only
+    sets where the loss turns linear). Stops when no parameter moves by more than
+    ``rtol`` of itself. A gear change at full throttle (the drive cut for a fraction of a
+    second) gives a few samples far below the power line, which would pull a plain
+    least-squares fit down. Returns the parameters and the final :math:`k`.
+    """
+    # Columns scaled to unit norm (the 1/v and v² columns differ by 1e5), normal
+    # equations of the two columns solved directly: a few vector operations a step.
+    norm = np.sqrt(np.einsum("ij,ij->j", design, design))
+    c = np.ascontiguousarray((design / norm).T)
+    y = np.asarray(y, dtype=np.float64)
+    w = np.ones_like(y)
+    x = None
+    k = math.inf
+    stride = max(1, y.shape[0] // _SCALE_SAMPLES)
+    for _ in range(max_iter + 1):
+        wc = c * w
+        x_new = np.linalg.solve(wc @ c.T, wc @ y)
+        done = x is not None and np.all(np.abs(x_new - x) <= rtol * np.abs(x))
+        x = x_new
+        if done:
+            break
+        r = y - x @ c
+        some = r[::stride]
+        scale = 1.4826 * float(np.median(np.abs(some - np.median(some))))
+        if not scale > 0.0:
+            break
+        k = 1.345 * scale
+        w = k / np.maximum(np.abs(r), k)  # 1 within k of the fit
+    return x / norm, k
+
+
+#: Residuals the robust line fit's scale is taken from, at most. [-]
+_SCALE_SAMPLES = 2000
+
+
+def _full_throttle_power_drag(v, ax, ay, rows, throttle, veh, names, sample_rate_hz=None):
     """Power and drag from full-throttle straight-line samples (see fit_envelope Notes).
 
-    ``v``, ``ax``, ``ay`` are the samples in use, the rows of the log where ``used`` is
-    True; ``throttle`` is per row of the log. Returns the vehicle with both replaced, or
-    None when there is no throttle channel, too few such samples (< 200) or too narrow a
-    speed range (< 10 m/s) to separate them.
+    ``v``, ``ax``, ``ay`` are the samples in use, at the (ascending) ``rows`` of the log;
+    ``throttle`` is per row of the log. With ``sample_rate_hz`` (the samples were
+    low-pass filtered) only samples with the pedal held at full throttle for
+    :data:`THROTTLE_HELD_S` either side count. The fit is :func:`_huber_line_fit`.
+    Returns the vehicle with both replaced and the mask (over ``v``) of the samples they
+    were fitted to, or None when there is no throttle channel, too few such samples
+    (< 200) or too narrow a speed range (< 10 m/s) to separate them.
     """
     if throttle is None or "power_w" not in names or "drag_area_m2" not in names:
         return None
-    thr = np.asarray(throttle, dtype=np.float64)
-    if thr.shape != used.shape:
+    thr_rows = np.asarray(throttle, dtype=np.float64)
+    if thr_rows.ndim != 1 or (rows.size and rows[-1] >= thr_rows.shape[0]):
         return None
-    thr = thr[used]  # only the samples in use are looked at
+    thr = np.take(thr_rows, rows)  # only the samples in use are looked at
     m = veh.mass_kg
     with np.errstate(invalid="ignore", divide="ignore"):
         power_limited = veh.power_w / np.maximum(v, 1e-3) < 0.9 * veh.mu_trac * normal_load_n(v, veh)
-        pick = (thr >= 0.98) & (np.abs(ay) < 2.0) & power_limited & np.isfinite(ax)
+        pick = (thr >= FULL_THROTTLE) & (np.abs(ay) < 2.0) & power_limited & np.isfinite(ax)
+    if sample_rate_hz is not None and pick.any():
+        reach = math.ceil(THROTTLE_HELD_S * float(sample_rate_hz))
+        pick[pick] = _full_throttle_held(thr_rows, rows[pick], reach)
     if pick.sum() < 200 or np.ptp(v[pick]) < 10.0:
         return None
     vp = v[pick]
     y = m * ax[pick] + veh.rolling_coeff * m * G0_M_S2
     design = np.column_stack([1.0 / vp, -0.5 * veh.air_density_kg_m3 * vp * vp])
-    (power_w, drag_area_m2), *_ = np.linalg.lstsq(design, y, rcond=None)
+    (power_w, drag_area_m2), _ = _huber_line_fit(design, y)
     if not (power_w > 0 and drag_area_m2 >= 0):
         return None
-    return replace(veh, power_w=float(power_w), drag_area_m2=float(drag_area_m2))
+    return replace(veh, power_w=float(power_w), drag_area_m2=float(drag_area_m2)), pick
 
 
 def _plausibility(veh, v, names, uncertainty):

@@ -413,6 +413,35 @@ def fastest_lap(laps: list[Lap]) -> Lap:
     return min(complete, key=lambda lap: (lap.time_s, lap.number))
 
 
+#: A complete lap slower than this multiple of the fastest is not a flying lap (out-lap
+#: on cold tyres, cool-down lap, a lap behind traffic or under a caution). 107 % is the
+#: cut-off qualifying rules commonly use; its use here is common practice, no published
+#: source. [-]
+FLYING_LAP_RATIO = 1.07
+
+
+def flying_laps(laps: list[Lap], ratio: float = FLYING_LAP_RATIO) -> list[Lap]:
+    """The complete laps within ``ratio`` of the fastest complete lap, in log order.
+
+    A grip envelope is fitted to these: each direction bin's boundary is a high quantile
+    of its samples, and the many samples of a lap driven well inside the limit (an
+    out-lap from the pits) would pull it inwards, most of all in the slow bands that only
+    such a lap fills.
+
+    Examples
+    --------
+    >>> fast = Lap(1, 0.0, 84.0, 84.0, 3760.0, True, "", 0, 10)
+    >>> slow = Lap(2, 84.0, 197.0, 113.0, 3760.0, True, "", 10, 20)
+    >>> [lap.number for lap in flying_laps([fast, slow])]
+    [1]
+    """
+    complete = [lap for lap in laps if lap.complete]
+    if not complete:
+        return []
+    best = min(lap.time_s for lap in complete)
+    return [lap for lap in complete if lap.time_s <= ratio * best]
+
+
 def format_lap_time(time_s: float) -> str:
     """``m:ss.sss``.
 

@@ -68,6 +68,9 @@ class Analysis:
     complete_laps : list of LapTimeline
         Elapsed time against distance for every complete lap (what the composite is
         built from); only the analysed lap's line is rebuilt, in ``driven``.
+    fit_laps : list of int
+        Numbers of the laps the envelope was fitted to: the flying laps
+        (:func:`limitlap.laps.flying_laps`); empty when a vehicle file gave the envelope.
     track_name : str
     corner_labels : dict of str to str
         Corner name -> the track file's label for it ("T1" -> "Sentry"), where it gives one.
@@ -87,6 +90,7 @@ class Analysis:
     corners: list
     best_of_laps: object | None
     complete_laps: list = field(default_factory=list)
+    fit_laps: list = field(default_factory=list)
     track_name: str = ""
     corner_labels: dict = field(default_factory=dict)
     warnings: list = field(default_factory=list)
@@ -301,7 +305,8 @@ def analyse(
         Session log (INTERFACE §1).
     vehicle : path or Vehicle, optional
         Vehicle file; a complete one with ``[grip]`` is used as the envelope, otherwise
-        (mass only, or no file) the envelope is fitted to this log's complete laps.
+        (mass only, or no file) the envelope is fitted to this log's flying laps
+        (complete laps within 107 % of the fastest, :func:`limitlap.laps.flying_laps`).
     grip_scale : float
         Grip scale k for the ideal lap (damp or wet running), 0.2-2.0. [-]
     lap : int, optional
@@ -361,8 +366,9 @@ def analyse(
                 raise InputError(log_path, f"lap {lap} is not complete ({chosen.reason})")
 
         samples = fitting = None
+        flying = laps_mod.flying_laps(laps)  # the envelope's laps (out-laps left out)
         if not base.is_complete:
-            samples = _imu_samples(log, laps, complete)
+            samples = _imu_samples(log, laps, flying)
             if samples is not None:  # the fit runs beside the line rebuild (it needs no line)
                 fitting = pool.submit(_fit, log_path, samples, base, early)
 
@@ -383,12 +389,20 @@ def analyse(
         else:
             if fitting is not None:
                 fit = fitting.result()
-            else:  # no IMU: samples from every complete lap's rebuilt line
+            else:  # no IMU: samples from every flying lap's rebuilt line
                 samples = _trace_samples(
-                    [the_lap if lp is chosen else driven_mod.reconstruct_lap(log, lp) for lp in complete]
+                    [the_lap if lp is chosen else driven_mod.reconstruct_lap(log, lp) for lp in flying]
                 )
                 fit = _fit(log_path, samples, base, None)
             car = fit.vehicle
+            slow = [lp for lp in complete if lp not in flying]
+            if slow:
+                which = ", ".join(f"{lp.number} ({laps_mod.format_lap_time(lp.time_s)})" for lp in slow)
+                warnings.append(
+                    f"{log_path}: lap{'s' if len(slow) > 1 else ''} {which} left out of the "
+                    f"grip envelope: slower than {laps_mod.FLYING_LAP_RATIO * 100:.0f} % of the "
+                    "fastest lap (out-lap, cool-down or traffic), not driven at the limit"
+                )
             # The fit's own lines do not know the file; say which log they are about.
             warnings += [f"{log_path}: {w}" for w in fit.warnings if f"{log_path}: {w}" not in warnings]
             if vehicle is None:
@@ -441,6 +455,7 @@ def analyse(
         corners=corners,
         best_of_laps=best,
         complete_laps=complete_laps,
+        fit_laps=[lp.number for lp in flying] if fit is not None else [],
         track_name=trk.name if trk is not None else "",
         corner_labels={}
         if trk is None

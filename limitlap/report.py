@@ -308,6 +308,14 @@ def envelope_toml_text(vehicle, fit_info=None) -> str:
     if items:
         lines += ["", "# Fit of this envelope to the session's samples:"]
         lines += [f"#   {name} = {_comment_value(v)}" for name, v in items]
+        names = {name for name, _ in items}
+        if "quality.share_outside_tyre_limit" in names:
+            lines += [
+                "# share_outside_tyre_limit: samples beyond the friction limits (up to half of those",
+                "#   driven on the limit: the sensor noise scatters them both ways, and it is taken",
+                "#   out of the envelope, noise_offset_m_s2); share_above_power_line: full-throttle",
+                "#   samples above the power line (about half: it is a central fit of them).",
+            ]
     return "\n".join(lines) + "\n"
 
 
@@ -720,6 +728,10 @@ def build_summary(analysis) -> dict:
         "grip_estimate": v.grip_estimate,
         "corners": corners,
         "best_of_laps": best_rec,
+        "envelope": {
+            "fitted": v.fit is not None,
+            "laps": [int(n) for n in (_get(analysis, "fit_laps", default=[]) or [])],
+        },
         "warnings": list(v.warnings),
     }
 

@@ -90,3 +90,41 @@ def test_clean_data_has_no_such_warnings(tmp_path, capsys, monkeypatch):
     assert not [
         w for w in warnings if "GPS dropout" in w or "agrees poorly" in w or "does not follow" in w
     ]
+
+
+def test_out_lap_left_out_of_the_envelope_is_reported(tmp_path, capsys, monkeypatch):
+    # The bundled dry session without a track file: the automatic gate lies 90 m after
+    # the start of the log, so the out-lap from the pits (1:53 against 1:24) counts as a
+    # complete lap. Its cold-tyre samples, well inside the limit, must not go into the
+    # envelope: the fit must be that of the flying laps with the real gate (before the
+    # flying-lap rule, the out-lap pulled the traction limit down by 6 %), the report
+    # must say which lap was left out and summary.json list the laps used.
+    from limitlap.resources import bundled_path
+
+    demo = bundled_path("demo_tracks", "tarrowby_dry.csv.gz")
+    out_auto, out_gate = tmp_path / "auto", tmp_path / "gate"
+    for out, extra in ((out_auto, []), (out_gate, ["--gate", "-33.85736267,147.23744215"])):
+        code, _, err = run_cli(
+            ["analyse", demo, "--out", out, "--no-figures", "--quiet", *extra], capsys, monkeypatch
+        )
+        assert code == 0, err
+        if out is out_auto:
+            err_auto = err
+    summary = json.loads((out_auto / "summary.json").read_text())
+    page = (out_auto / "report.html").read_text()
+    left_out = [w for w in summary["warnings"] if "left out of the grip envelope" in w]
+    assert len(left_out) == 1 and "lap 1 (1:53.038)" in left_out[0]
+    shown_everywhere(left_out[0], page, err_auto)
+    assert summary["envelope"] == {"fitted": True, "laps": [2, 3, 4, 5, 6, 7, 8]}
+    gated = json.loads((out_gate / "summary.json").read_text())
+    assert gated["envelope"]["laps"] == [1, 2, 3, 4, 5, 6, 7]
+    assert not any("left out of the grip envelope" in w for w in gated["warnings"])
+
+    def grip(out):
+        import tomllib
+
+        return tomllib.loads((out / "envelope.toml").read_text())["grip"]
+
+    auto, gate = grip(out_auto), grip(out_gate)
+    for key in ("lateral", "braking", "traction"):
+        assert auto[key] == pytest.approx(gate[key], rel=0.01), key
