@@ -557,6 +557,7 @@ class _View:
     n_laps: int
     yaw_rate_rad_s: np.ndarray | None = None
     agreement: dict | None = None
+    fit_laps: list = dataclasses.field(default_factory=list)
 
 
 def _array(obj, name, n):
@@ -665,6 +666,7 @@ def _view(analysis) -> _View:
         n_laps=sum(1 for lp in laps if _get(lp, "complete", default=False)),
         yaw_rate_rad_s=_array(driven, "yaw_rate_rad_s", n),
         agreement=_get(driven, "agreement"),
+        fit_laps=[int(n) for n in (_get(analysis, "fit_laps", default=[]) or [])],
     )
 
 
@@ -1015,6 +1017,45 @@ def _laptime(t):
     return f"{int(m)}:{s:06.3f}" if m >= 1 else f"{s:.3f} s"
 
 
+def _lap_ranges(numbers) -> str:
+    """``[1, 2, 3, 5]`` -> ``"1-3, 5"``.
+
+    >>> _lap_ranges([1, 2, 3, 5, 7, 8])
+    '1-3, 5, 7-8'
+    """
+    out, run = [], []
+    for n in sorted(numbers):
+        if run and n != run[-1] + 1:
+            out.append(f"{run[0]}-{run[-1]}" if len(run) > 1 else str(run[0]))
+            run = []
+        run.append(n)
+    if run:
+        out.append(f"{run[0]}-{run[-1]}" if len(run) > 1 else str(run[0]))
+    return ", ".join(out)
+
+
+def _envelope_source(v: _View) -> str:
+    """Where the envelope came from, in a sentence for the report."""
+    if v.fit is None:
+        return (
+            f"The envelope is the vehicle file's ('{v.vehicle.name}'), so the time left is "
+            "what that envelope allows on your line."
+        )
+    laps = v.fit_laps
+    which = (
+        f" of lap{'s' if len(laps) > 1 else ''} {_lap_ranges(laps)}, the flying laps within "
+        "107 % of your fastest,"
+        if laps
+        else ""
+    )
+    return (
+        "The envelope is a g-g-V envelope (lateral, braking and driving friction, a "
+        "combined-slip exponent, power, drag and downforce) fitted to your own best samples"
+        f"{which} with the width the sensor's noise adds to it measured and taken out; so "
+        "the time left is time that grip you have already shown allows."
+    )
+
+
 def report_html(v: _View, figure_list) -> str:
     """report.html text: self-contained, figures inline as data URIs, no scripts."""
     e = html.escape
@@ -1109,9 +1150,7 @@ def report_html(v: _View, figure_list) -> str:
         "every metre the car may use as much grip as its envelope allows, braking and "
         "accelerating as hard as the grip left after cornering permits (forward and "
         "backward passes of the classic quasi-steady-state method; Lenzo &amp; Rossi 2020). "
-        "The envelope is fitted to your own best samples of the session (a g-g-V envelope: "
-        "lateral, braking and driving friction, a combined-slip exponent, power, drag and "
-        "downforce), so the time left is time that grip you have already shown allows. "
+        f"{e(_envelope_source(v))} "
         "Corners are cut from the line's curvature with boundaries in the middle of the "
         "straights, so their time left adds up to the lap's.</p>"
     )

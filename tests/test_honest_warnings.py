@@ -116,6 +116,7 @@ def test_out_lap_left_out_of_the_envelope_is_reported(tmp_path, capsys, monkeypa
     assert len(left_out) == 1 and "lap 1 (1:53.038)" in left_out[0]
     shown_everywhere(left_out[0], page, err_auto)
     assert summary["envelope"] == {"fitted": True, "laps": [2, 3, 4, 5, 6, 7, 8]}
+    assert "fitted to your own best samples of laps 2-8, the flying laps" in page
     gated = json.loads((out_gate / "summary.json").read_text())
     assert gated["envelope"]["laps"] == [1, 2, 3, 4, 5, 6, 7]
     assert not any("left out of the grip envelope" in w for w in gated["warnings"])
@@ -128,3 +129,22 @@ def test_out_lap_left_out_of_the_envelope_is_reported(tmp_path, capsys, monkeypa
     auto, gate = grip(out_auto), grip(out_gate)
     for key in ("lateral", "braking", "traction"):
         assert auto[key] == pytest.approx(gate[key], rel=0.01), key
+
+
+def test_report_says_when_the_envelope_is_the_vehicle_files(tmp_path, capsys, monkeypatch):
+    # With a complete vehicle file nothing is fitted: the report must not claim the
+    # envelope is the driver's own, and summary.json lists no fitted laps.
+    from limitlap.resources import bundled_path
+
+    out = tmp_path / "out"
+    car = bundled_path("vehicles", "gt_coupe.toml")
+    log = bundled_path("demo_tracks", "tarrowby_dry.csv.gz")
+    code, _, err = run_cli(
+        ["analyse", log, "--vehicle", car, "--gate", "-33.85736267,147.23744215", "--out", out,
+         "--no-figures", "--quiet"], capsys, monkeypatch,
+    )
+    assert code == 0, err
+    page = html.unescape((out / "report.html").read_text())
+    assert "The envelope is the vehicle file's ('GT coupe (invented example)')" in page
+    assert "fitted to your own best samples" not in page
+    assert json.loads((out / "summary.json").read_text())["envelope"] == {"fitted": False, "laps": []}
