@@ -149,6 +149,33 @@ def _line_arrays(line: Line):
     return curvature, sin_grad, ds
 
 
+def _cannot_complete(distance_m, sin_grad, veh, grip_scale) -> str:
+    r"""Why a profile's speed fell to zero, in one line.
+
+    At walking pace (no aero, no cornering force) the car can drive up a slope only while
+    :math:`\mu_t k > C_{rr} + \sin\theta` and hold itself on a descent only while
+    :math:`\mu_b k + C_{rr} > -\sin\theta` (the longitudinal balance of the Notes of
+    :func:`solve_profile` at v = 0). The steepest grade that breaks either is named;
+    otherwise the message stays general.
+    """
+    base = "the car cannot complete this line"
+    if sin_grad.size:
+        crr = veh[_kernels.I_CRR]
+        for i, limit, what, verb in (
+            (int(np.argmax(sin_grad)), veh[_kernels.I_MU_TRAC] - crr, "climb", "driving grip can take"),
+            (int(np.argmin(sin_grad)), veh[_kernels.I_MU_BRK] + crr, "descent", "brakes can hold the car on"),
+        ):
+            sine = abs(float(sin_grad[i]))
+            if (sin_grad[i] > 0.0) == (what == "climb") and sine > limit:
+                grade = 100.0 * sine / math.sqrt(max(1.0 - sine * sine, 1e-12))
+                steepest = 100.0 * limit / math.sqrt(max(1.0 - limit * limit, 1e-12))
+                return (
+                    f"{base}: the {grade:.1f} % {what} at {float(distance_m[i]):.0f} m is steeper "
+                    f"than its {verb} at grip scale {grip_scale:g} (at most {steepest:.1f} %)"
+                )
+    return f"{base} (speed falls to zero)"
+
+
 def solve_profile(
     line: Line,
     vehicle: Vehicle,
@@ -206,7 +233,7 @@ def solve_profile(
     )
     v, a_x, a_y, t, total = _kernels.profile_outputs(b, curvature, ds, bool(line.closed))
     if not math.isfinite(total):
-        raise LimitlapError("the car cannot complete this line (speed falls to zero)")
+        raise LimitlapError(_cannot_complete(line.distance_m, sin_grad, veh, grip_scale))
     return Profile(
         distance_m=line.distance_m.copy(),
         speed_m_s=v,

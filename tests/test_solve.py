@@ -9,6 +9,7 @@ from hypothesis import strategies as st
 from scipy.integrate import solve_ivp
 
 from limitlap import limits, solve
+from limitlap.errors import LimitlapError
 from limitlap.line import line_from_curvature
 from limitlap.units import G0_M_S2, RHO_ISA_KG_M3, V_CAP_M_S, isa_density_kg_m3
 from limitlap.vehicle import Vehicle
@@ -304,3 +305,33 @@ def test_line_file_points_reproduce_the_analytic_line():
     t_exact = solve.solve_profile(exact, EXAMPLE_CAR).lap_time_s
     t_file = solve.solve_profile(rebuilt, EXAMPLE_CAR).lap_time_s
     assert t_file == pytest.approx(t_exact, rel=1e-3)
+
+
+@pytest.mark.parametrize("what", ["climb", "descent"])
+def test_a_grade_the_car_cannot_take_is_named(what):
+    # A closed 4 km loop of gentle bends with a long 60 % grade (sin 0.514): 1.5 km up
+    # from 500 m, or 500 m down from 1000 m into a 15 m hairpin. At walking pace the car
+    # climbs while mu_t k > Crr + sin(theta) and holds itself on a descent while
+    # mu_b k + Crr > -sin(theta) (INTERFACE §3's longitudinal balance at v = 0). At grip
+    # scale 0.3 both fail (0.288 and 0.312 against 0.514): the climb stops the car, the
+    # descent cannot be slowed for the hairpin. The error must name the grade, where it
+    # is and the steepest the car can take; with full grip the same line completes.
+    s = np.arange(0.0, 4000.0, 1.0)
+    k = np.full(s.size, 2.0 * math.pi / 4000.0)
+    if what == "climb":
+        grad = np.where((s >= 500.0) & (s < 2000.0), 0.6, 0.0)
+    else:
+        grad = np.where((s >= 1000.0) & (s < 1500.0), -0.6, 0.0)
+        k[1400:1420] = 1.0 / 15.0
+        k[2000:2020] = -1.0 / 15.0  # the loop's total turn stays one revolution
+    line = line_from_curvature(s, k, grad, closed=True)
+    car = Vehicle("weak", 1000.0, 150e3, 0.7, 0.0, 0.012, mu_lat=1.0, mu_brk=1.0, mu_trac=1.0,
+                  exponent=2.0)
+    with pytest.raises(LimitlapError) as err:
+        solve.solve_profile(line, car, 0.3)
+    text = str(err.value)
+    assert text.startswith("the car cannot complete this line: the 60.0 % " + what + " at ")
+    assert "grip scale 0.3" in text
+    limit = 0.3 - 0.012 if what == "climb" else 0.3 + 0.012
+    assert f"(at most {100 * limit / math.sqrt(1 - limit * limit):.1f} %)" in text
+    assert math.isfinite(solve.solve_profile(line, car, 1.0).lap_time_s)
