@@ -551,8 +551,10 @@ def reconstruct_lap(log, lap, spacing_m: float = 1.0) -> DrivenLap:
     def station(name, nearest=False):
         if not log.has(name):
             return np.full(n_st, np.nan)
-        val = ch[name][sl][keep]
+        val = log.channel_rows(name, sl.start, sl.stop)[keep]  # a deferred trace: these rows
         ok = np.isfinite(val)
+        if not ok.any():
+            return np.full(n_st, np.nan)
         if nearest:
             j = np.clip(np.searchsorted(s_k[ok], s_in), 0, ok.sum() - 1)
             return val[ok][j].astype(np.float64)

@@ -208,16 +208,32 @@ class Log:
     warnings: list[str] = field(default_factory=list)
 
     def has(self, name: str) -> bool:
-        """True when the channel exists and has at least one value."""
+        """True when the channel exists and has at least one value (a deferred channel,
+        see :func:`read_log`'s ``defer``: when its column exists)."""
         ch = self.channels.get(name)
         if ch is None:
-            return False
+            deferred = getattr(self.channels, "deferred", None)
+            return deferred is not None and name in deferred.specs
         # remembered per array (the line rebuild asks about ten times a lap)
         seen = self.__dict__.setdefault("_has_seen", {})
         hit = seen.get(name)
         if hit is None or hit[0] is not ch:
             hit = seen[name] = (ch, bool(np.isfinite(ch).any()))
         return hit[1]
+
+    def channel_rows(self, name: str, start: int, stop: int) -> np.ndarray:
+        """Values of channel ``name`` for rows ``start`` to ``stop`` (exclusive), SI.
+
+        A channel :func:`read_log` deferred is parsed for those rows only (the bytes of
+        that stretch of the file, located by the time stamps), the same values the whole
+        column would give; when that cannot be done the whole column is parsed.
+        """
+        deferred = getattr(self.channels, "deferred", None)
+        if name not in self.channels and deferred is not None and name in deferred.specs:
+            part = deferred.rows(name, start, stop)
+            if part is not None:
+                return part
+        return self.channels[name][start:stop]
 
     def remembered(self, key, compute):
         """``compute(self)``, computed once per log and key while its arrays stay the same.
@@ -662,12 +678,245 @@ def _merge_duplicate_stamps(time_s, data, rows):
     return time_s[first], merged, rows[first]
 
 
+#: Channels only the analysed lap's traces use (pedal and steering traces, gear): with
+#: ``read_log(defer=TRACE_CHANNELS)`` they are parsed for that lap's rows when asked
+#: (:meth:`Log.channel_rows`), not for the whole log: on a one-hour log, 16 ms of the
+#: reader's 100. [-]
+TRACE_CHANNELS = ("brake", "steer", "gear")
+
+
+class _Channels(dict):
+    """A log's channels; one the reader deferred is parsed whole when asked for by key."""
+
+    deferred: _Deferred | None = None
+
+    def __missing__(self, key):
+        if self.deferred is None or key not in self.deferred.specs:
+            raise KeyError(key)
+        values = self.deferred.whole(key)
+        self[key] = values
+        return values
+
+
+@dataclass(eq=False)
+class _Deferred:
+    """What it takes to parse deferred channels later, and where each log row came from.
+
+    ``group_start[j]``: the parsed row (0-based after the header) of log row j's first
+    line (later lines with the same time stamp were merged into it); ``dropped``: parsed
+    rows left out as blank.
+    """
+
+    path: Path
+    source: str | bytes
+    header: list
+    sep: str
+    decimal_comma: bool
+    encoding: str
+    specs: dict
+    time_spec: tuple
+    time_s: np.ndarray
+    group_start: np.ndarray
+    dropped: np.ndarray
+    n_parsed: int
+    cache: dict = field(default_factory=dict)
+
+    def whole(self, name):
+        """The channel for every log row, from a parse of its whole column."""
+        values = _parse_numbers(
+            self.path, self.source, self.header, self.sep, self.decimal_comma, self.encoding,
+            {name: self.specs[name]},
+        )[name]
+        return self._merged(name, values, 0, self.group_start)
+
+    def rows(self, name, start, stop):
+        """The channel for log rows start..stop from those rows' bytes alone, or None."""
+        key = (start, stop)
+        if key not in self.cache:
+            self.cache.clear()
+            import polars as pl
+
+            try:
+                self.cache[key] = self._window(start, stop)
+            except (OSError, ValueError, ArithmeticError, pl.exceptions.PolarsError):
+                self.cache[key] = None  # the whole column instead (its errors name the row)
+        part = self.cache[key]
+        return None if part is None else part.get(name)
+
+    def _merged(self, name, values, first, starts):
+        """Parsed rows ``first``.. -> log rows whose first lines are ``starts``: units,
+        the reader's checks, and the first non-blank cell of merged duplicates."""
+        column = self.header[self.specs[name][0]]
+        rows = np.arange(values.shape[0]) + first + 2  # spreadsheet rows: header = 1
+        inf = np.isinf(values)
+        if inf.any():
+            i, row = _first_bad(rows, inf)
+            raise InputError(self.path, f"'{values[i]}' is not a finite number", row=row, column=column)
+        _, factor, sign = self.specs[name]
+        if factor * sign != 1.0:
+            values = values * (factor * sign)
+        if self.dropped.size:  # a row the reader found blank must be blank here too
+            inside = self.dropped[(self.dropped >= first) & (self.dropped < first + values.shape[0])]
+            cell = np.isfinite(values[inside - first])
+            if cell.any():
+                row = int(inside[np.argmax(cell)]) + 2
+                raise InputError(self.path, "time is blank", row=row,
+                                 column=self.header[self.time_spec[0]])
+        if starts.shape[0] == values.shape[0]:  # one line per log row: nothing merged
+            return values
+        group = np.searchsorted(starts - first, np.arange(values.shape[0]), side="right") - 1
+        ok = np.isfinite(values) & (group >= 0)
+        out = np.full(starts.shape[0], np.nan)
+        groups, at = np.unique(group[ok], return_index=True)
+        out[groups] = values[ok][at]
+        return out
+
+    def _window(self, start, stop):
+        """Every deferred channel for log rows start..stop, or None when the stretch
+        cannot be found or does not parse to the same time stamps."""
+        if not (0 <= start < stop <= self.time_s.shape[0]) or self.encoding != "utf8":
+            return None
+        first = int(self.group_start[start])
+        last = int(self.group_start[stop]) if stop < self.time_s.shape[0] else self.n_parsed
+        with _ByteSource(self.source) as src:
+            begin = src.line_offset(first, float(self.time_s[start]), self)
+            end = src.size if last == self.n_parsed else src.line_offset(last, float(self.time_s[stop]), self)
+            if begin is None or end is None or end <= begin:
+                return None
+            text = src.read(begin, end - begin)
+        import polars as pl
+
+        names = [f"column_{i}" for i in range(len(self.header))]
+        wanted = {names[self.time_spec[0]]: "time"}
+        wanted.update({names[spec[0]]: ch for ch, spec in self.specs.items()})
+        frame = pl.read_csv(
+            text, has_header=False, separator=self.sep, columns=list(wanted),
+            schema={n: (pl.Float64 if n in wanted else pl.String) for n in names},
+            decimal_comma=self.decimal_comma, truncate_ragged_lines=True,
+            missing_columns="insert", extra_columns="ignore", raise_if_empty=False, quote_char='"',
+        )
+        if frame.height != last - first:
+            return None
+        cols = {wanted[n]: frame[n].to_numpy().astype(np.float64) for n in wanted}
+        starts = self.group_start[start:stop]
+        _, factor, sign = self.time_spec
+        t = cols.pop("time")
+        if factor * sign != 1.0:
+            t = t * (factor * sign)
+        if not np.array_equal(t[starts - first], self.time_s[start:stop]):
+            return None
+        return {ch: self._merged(ch, values, first, starts) for ch, values in cols.items()}
+
+
+class _ByteSource:
+    """Byte ranges of a log: a plain file read at offsets, or gzip-decompressed bytes."""
+
+    #: Bytes read around an estimated row offset: a hundred lines or so. [B]
+    CHUNK = 1 << 13
+
+    def __init__(self, source):
+        self.source = source
+
+    def __enter__(self):
+        if isinstance(self.source, bytes):
+            self.fh, self.size = None, len(self.source)
+            data_start = self.source.find(b"\n") + 1
+        else:
+            self.fh = open(self.source, "rb")  # closed in __exit__
+            self.size = self.fh.seek(0, 2)
+            length = self.CHUNK
+            while True:  # the header line, however long
+                chunk = self.read(0, length)
+                data_start = chunk.find(b"\n") + 1
+                if data_start or len(chunk) < length:
+                    break
+                length *= 4
+        self.data_start = data_start
+        return self
+
+    def __exit__(self, *exc):
+        if self.fh is not None:
+            self.fh.close()
+
+    def read(self, offset, length):
+        if self.fh is None:
+            return self.source[offset : offset + length]
+        self.fh.seek(offset)
+        return self.fh.read(length)
+
+    def line_offset(self, row, time_s, deferred):
+        """Byte offset of parsed row ``row``, the first line whose time stamp is
+        ``time_s``, or None. From an offset estimated by the mean line length, small
+        chunks are read and their first and last time stamps move the estimate until the
+        chunk holds the stamp; only that chunk's lines are all read."""
+        if self.data_start <= 0:
+            return None
+        per_row = (self.size - self.data_start) / max(deferred.n_parsed, 1)
+        estimate = self.data_start + row * per_row
+        for _ in range(32):
+            lo = max(self.data_start, int(estimate) - self.CHUNK // 2)
+            chunk = self.read(lo, self.CHUNK)
+            cut = 0 if lo == self.data_start else chunk.find(b"\n") + 1
+            if cut < 0 or (lo > self.data_start and cut == 0):
+                return None
+            lines = chunk[cut:].split(b"\n")
+            if lo + len(chunk) < self.size:
+                lines.pop()  # the last one is cut off by the chunk
+            if len(lines) < 2:
+                return None
+            # the first and last stamps of the chunk (blank rows have none)
+            i_first = next((i for i, ln in enumerate(lines[:16]) if math.isfinite(self._time(ln, deferred))), None)
+            i_last = next((i for i in range(len(lines) - 1, max(len(lines) - 17, -1), -1)
+                           if math.isfinite(self._time(lines[i], deferred))), None)
+            if i_first is None or i_last is None or i_last <= i_first:
+                return None
+            t_first, t_last = self._time(lines[i_first], deferred), self._time(lines[i_last], deferred)
+            if not t_last > t_first:
+                return None
+            step = (t_last - t_first) / (i_last - i_first)
+            if time_s < t_first or (time_s == t_first and lo > self.data_start):
+                if lo <= self.data_start:
+                    return None
+                estimate = lo + cut - ((t_first - time_s) / step + len(lines) // 4) * per_row
+                continue
+            if time_s > t_last:
+                if lo + len(chunk) >= self.size:
+                    return None
+                estimate = lo + len(chunk) + ((time_s - t_last) / step) * per_row
+                continue
+            return self._scan(lines, lo + cut, time_s, deferred, lo)
+        return None
+
+    def _scan(self, lines, at, time_s, deferred, lo):
+        """Offset of the first of ``lines`` (starting at byte ``at``) stamped ``time_s``."""
+        for i, line in enumerate(lines):
+            if self._time(line, deferred) == time_s:
+                if i == 0 and lo > self.data_start:
+                    return None  # an earlier line might have the same stamp
+                return at
+            at += len(line) + 1
+        return None
+
+    @staticmethod
+    def _time(line, deferred):
+        """The time stamp of one line in SI, NaN when blank or not a number."""
+        col, factor, sign = deferred.time_spec
+        cells = line.split(deferred.sep.encode(), col + 1)
+        try:
+            cell = cells[col].strip().strip(b'"').strip()
+            if deferred.decimal_comma:
+                cell = cell.replace(b",", b".")
+            return float(cell) * (factor * sign) if cell else math.nan
+        except (IndexError, ValueError):
+            return math.nan
+
+
 def _first_bad(rows, mask):
     i = int(np.argmax(mask))
     return i, int(rows[i])
 
 
-def read_log(path, channel_map=None, *, on_channels=None) -> Log:
+def read_log(path, channel_map=None, *, on_channels=None, defer=()) -> Log:
     """Read a session log (INTERFACE §1) into SI arrays on the log's own time base.
 
     Parameters
@@ -684,6 +933,13 @@ def read_log(path, channel_map=None, *, on_channels=None) -> Log:
         final and in SI (the same arrays the returned :class:`Log` holds), before the
         positions are converted and the dropouts looked for: work that needs only them can
         start in another thread meanwhile (the pipeline's envelope samples).
+    defer : sequence of str
+        Channels (of :data:`TRACE_CHANNELS`: the pipeline's choice) not parsed now: the
+        log's ``channels`` gets them on first access by key (the whole column) and
+        :meth:`Log.channel_rows` for a stretch of rows (those rows alone). Their cells are
+        checked when parsed, so a bad cell outside the rows asked for goes unnoticed
+        (a row blank but for such cells is dropped as blank, and found out when its
+        stretch is parsed).
 
     Returns
     -------
@@ -716,7 +972,11 @@ def read_log(path, channel_map=None, *, on_channels=None) -> Log:
         raise InputError(path, "file is empty")
     header, sep, decimal_comma, encoding = _detect_format(path, head)
     found = _resolve_columns(path, header, channel_map)
-    data = _parse_numbers(path, source, header, sep, decimal_comma, encoding, found)
+    later = {ch: found[ch] for ch in defer if ch in found and ch != "time"}
+    data = _parse_numbers(
+        path, source, header, sep, decimal_comma, encoding,
+        {ch: spec for ch, spec in found.items() if ch not in later},
+    )
     n_rows = len(data["time"])
     rows = np.arange(n_rows) + 2  # spreadsheet rows: header = 1
     # A row is blank when every cell is; only rows without a time can be (cheap to test).
@@ -801,7 +1061,15 @@ def read_log(path, channel_map=None, *, on_channels=None) -> Log:
             raise InputError(path, "no position: the column is blank in every row", column=column(blank_one))
         data["x"][~fix] = np.nan
         data["y"][~fix] = np.nan
-    log = Log(path=str(path), time_s=time_s, channels=data, origin=origin, warnings=warnings)
+    channels = _Channels(data)
+    if later:
+        parsed_rows = rows - 2
+        channels.deferred = _Deferred(
+            path, source, header, sep, decimal_comma, encoding, later, found["time"], time_s,
+            parsed_rows, np.setdiff1d(np.arange(n_rows), np.flatnonzero(keep)) if not keep.all()
+            else np.empty(0, dtype=np.int64), n_rows,
+        )
+    log = Log(path=str(path), time_s=time_s, channels=channels, origin=origin, warnings=warnings)
     warnings.extend(_dropout_warnings(log, rows))
     return log
 

@@ -194,7 +194,7 @@ def load_session(log_path, *, gate=None, channels=None, track=None):
 def _read_session(log_path, channels, track, on_channels=None):
     """The log (and its warnings) and the track of :func:`load_session`."""
     channel_map = ingest.read_channel_map(channels) if channels is not None else None
-    log = ingest.read_log(log_path, channel_map, on_channels=on_channels)
+    log = ingest.read_log(log_path, channel_map, on_channels=on_channels, defer=ingest.TRACE_CHANNELS)
     trk = ingest.read_track(track) if isinstance(track, str | Path) else track
     return log, trk, list(log.warnings)
 

@@ -409,3 +409,93 @@ def test_reader_fuzz_only_input_errors(tmp_path, header, rows, sep, crlf):
     assert np.isfinite(log.channels["x"]).any()
     fill_position(log)
     gps_dropouts(log)
+
+
+# ----------------------------------------------------------------------------- deferred traces
+
+
+def _trace_log(n=20_000, seed=2):
+    """A long log with the trace channels, some duplicate stamps, blank rows, blank trace
+    cells and an unparsed column; returned as CSV text."""
+    rng = np.random.default_rng(seed)
+    t = np.round(np.arange(n) * 0.01, 2)
+    cols = {
+        "time [s]": t,
+        "speed [km/h]": 100.0 + rng.normal(0.0, 5.0, n),
+        "x": np.where(np.arange(n) % 10 == 0, rng.normal(0.0, 100.0, n), np.nan),
+        "y": np.where(np.arange(n) % 10 == 0, rng.normal(0.0, 100.0, n), np.nan),
+        "brake [bar]": np.where(rng.random(n) < 0.1, np.nan, rng.uniform(0.0, 80.0, n)),
+        "steer [deg]": rng.normal(0.0, 30.0, n),
+        "gear": rng.integers(1, 7, n).astype(float),
+    }
+    lines = csv_text(cols).splitlines()
+    # the GPS row of an instant logged separately (merged: first non-blank cell wins)
+    lines.insert(5001, f"{t[4999]:.9g},,1,2,,7.5,")
+    lines.insert(12001, ",,,,,,")  # a blank row
+    return "\n".join(lines) + "\n"
+
+
+@pytest.mark.parametrize("kind", ["plain", "gzip", "semicolon"])
+def test_deferred_trace_channels_read_the_same_values(tmp_path, kind):
+    # Deferred channels parsed for a stretch of rows (their bytes alone, found by the time
+    # stamps) must be bit for bit the whole-column values, merged duplicates and dropped
+    # blank rows included, also for gzip and decimal-comma logs; the whole column on
+    # access by key as well.
+    from limitlap.ingest import TRACE_CHANNELS
+
+    text = _trace_log()
+    if kind == "semicolon":
+        text = text.replace(",", ";").replace(".", ",")
+    data = gzip.compress(text.encode()) if kind == "gzip" else text
+    path = write(tmp_path, data, "log.csv.gz" if kind == "gzip" else "log.csv")
+    eager = read_log(path)
+    lazy = read_log(path, defer=TRACE_CHANNELS)
+    n = eager.time_s.size
+    np.testing.assert_array_equal(lazy.time_s, eager.time_s)
+    assert not any(ch in lazy.channels for ch in TRACE_CHANNELS)  # not parsed yet
+    for start, stop in ((0, 50), (4990, 5010), (11990, 12010), (7000, 15000), (n - 30, n)):
+        for ch in TRACE_CHANNELS:
+            np.testing.assert_array_equal(
+                lazy.channel_rows(ch, start, stop), eager.channels[ch][start:stop], err_msg=ch
+            )
+        part = lazy.channels.deferred.cache[(start, stop)]
+        assert part is not None  # found by its bytes, not by the whole-column fallback
+    assert lazy.channels[TRACE_CHANNELS[0]] is not None and TRACE_CHANNELS[0] in lazy.channels
+    np.testing.assert_array_equal(lazy.channels["brake"], eager.channels["brake"])
+    # the merged duplicate: its steer cell (the first non-blank of the instant) and the
+    # brake cell of the first line (the second line's is blank)
+    assert eager.channels["steer"][4999] != pytest.approx(math.radians(7.5))
+    assert lazy.channel_rows("steer", 4999, 5000)[0] == eager.channels["steer"][4999]
+
+
+def test_deferred_trace_cells_are_checked_where_they_are_read(tmp_path):
+    # A bad cell in a deferred channel is reported (file, row, column) when its rows are
+    # read, as the eager reader reports it; a row blank but for a trace cell is the
+    # eager reader's "time is blank".
+    from limitlap.ingest import TRACE_CHANNELS
+
+    lines = _trace_log().splitlines()
+    cells = lines[3001].split(",")
+    cells[4] = "abc"
+    lines[3001] = ",".join(cells)
+    path = write(tmp_path, "\n".join(lines) + "\n")
+    with pytest.raises(InputError, match="'abc' is not a number") as err:
+        read_log(path)
+    assert "row 3002" in str(err.value) and "brake [bar]" in str(err.value)
+    lazy = read_log(path, defer=TRACE_CHANNELS)
+    with pytest.raises(InputError, match="'abc' is not a number") as err:
+        lazy.channel_rows("brake", 2990, 3010)
+    assert "row 3002" in str(err.value) and "brake [bar]" in str(err.value)
+    np.testing.assert_array_equal(  # elsewhere the stretch reads as it should
+        lazy.channel_rows("steer", 100, 200), read_log(write(tmp_path, _trace_log(), "ok.csv"))
+        .channels["steer"][100:200]
+    )
+    lines = _trace_log().splitlines()
+    lines[12001] = ",,,,3.5,,"  # the blank row, but for a brake cell
+    path = write(tmp_path, "\n".join(lines) + "\n", "blank.csv")
+    with pytest.raises(InputError, match="time is blank"):
+        read_log(path)
+    lazy = read_log(path, defer=TRACE_CHANNELS)
+    with pytest.raises(InputError, match="time is blank") as err:
+        lazy.channel_rows("brake", 11990, 12010)
+    assert "row 12002" in str(err.value)
