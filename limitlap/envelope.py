@@ -34,6 +34,7 @@ References
 
 from __future__ import annotations
 
+import functools
 import math
 from concurrent.futures import ThreadPoolExecutor
 from dataclasses import dataclass, field, replace
@@ -122,10 +123,9 @@ class Selection:
         Samples rejected as spikes or short transients. [-]
     spike : numpy.ndarray or None
         True for the samples found to be spikes (None without a sample rate). [-]
-    noise_m_s2 : float
-        Standard deviation of the sensor noise left in the filtered accelerations (root
-        mean square of the two axes; :func:`filtered_noise`), 0 without a sample rate.
-        [m/s²]
+    noise_parts : tuple or None
+        High-pass residuals of the two axes (a subsample) and the low-pass width in
+        samples, for :attr:`noise_m_s2`; None without a sample rate.
     """
 
     speed_m_s: np.ndarray
@@ -134,7 +134,17 @@ class Selection:
     used: np.ndarray
     n_spikes: int = 0
     spike: np.ndarray | None = None
-    noise_m_s2: float = 0.0
+    noise_parts: tuple | None = None
+
+    @functools.cached_property
+    def noise_m_s2(self) -> float:
+        """Standard deviation of the sensor noise left in the filtered accelerations (root
+        mean square of the two axes, :func:`filtered_noise` of their high-pass residuals,
+        estimated when first asked for); 0 without a sample rate. [m/s²]"""
+        if self.noise_parts is None:
+            return 0.0
+        res_x, res_y, sigma = self.noise_parts
+        return math.sqrt(0.5 * (filtered_noise(res_x, sigma) ** 2 + filtered_noise(res_y, sigma) ** 2))
 
     def within(self, mask) -> Selection:
         """The same selection restricted to the samples where ``mask`` is True (the
@@ -347,7 +357,7 @@ def select_samples(
             spike_x, res_x = _despike_and_filter(ax, *args)
             spike_y, res_y = _despike_and_filter(ay, *args)
         spike = spike_x | spike_y
-        noise = math.sqrt(0.5 * (filtered_noise(res_x, sigma) ** 2 + filtered_noise(res_y, sigma) ** 2))
+        noise = (res_x, res_y, sigma)
         for a, b in zip(starts, ends, strict=True):
             if not b - a > 8.0 * sigma:
                 finite[a:b] = False  # too short to filter: leave out
@@ -355,7 +365,7 @@ def select_samples(
         keep = keep & ~spike & finite
     else:
         spike = None
-        noise = 0.0
+        noise = None
     ok = keep & np.isfinite(v) & np.isfinite(ax) & np.isfinite(ay) & (v >= min_speed_m_s)
     return Selection(v, ax, ay, ok, n_spikes, spike, noise)
 
