@@ -435,7 +435,7 @@ def _trace_log(n=20_000, seed=2):
     return "\n".join(lines) + "\n"
 
 
-@pytest.mark.parametrize("kind", ["plain", "gzip", "semicolon"])
+@pytest.mark.parametrize("kind", ["plain", "gzip", "semicolon", "crlf_bom_ms"])
 def test_deferred_trace_channels_read_the_same_values(tmp_path, kind):
     # Deferred channels parsed for a stretch of rows (their bytes alone, found by the time
     # stamps) must be bit for bit the whole-column values, merged duplicates and dropped
@@ -447,6 +447,11 @@ def test_deferred_trace_channels_read_the_same_values(tmp_path, kind):
     if kind == "semicolon":
         text = text.replace(",", ";").replace(".", ",")
     data = gzip.compress(text.encode()) if kind == "gzip" else text
+    if kind == "crlf_bom_ms":  # time in ms, quoted, in the last column; Windows line ends
+        rows = [line.split(",") for line in text.splitlines()]
+        rows[0] = [*rows[0][1:], "time [ms]"]
+        rows[1:] = [r[1:] + ([f'"{float(r[0]) * 1000:g}"'] if r[0] else [""]) for r in rows[1:]]
+        data = b"\xef\xbb\xbf" + "\r\n".join(",".join(r) for r in rows).encode() + b"\r\n"
     path = write(tmp_path, data, "log.csv.gz" if kind == "gzip" else "log.csv")
     eager = read_log(path)
     lazy = read_log(path, defer=TRACE_CHANNELS)
