@@ -940,6 +940,13 @@ class LapComparison:
         return [c.summary_dict() for c in (self.ranked() if ranked else self.corners)]
 
 
+#: A corner driven this much quicker than the ideal (and no marker apart) is called out:
+#: a corner's time is good to about a hundredth of a second (100 Hz rows, interpolated
+#: along distance), so less than two hundredths is the ideal's time within the
+#: measurement. Common practice, no published source. [s]
+QUICKER_THAN_IDEAL_S = 0.02
+
+
 def _fmt_m(x):
     return f"{abs(x):.0f} m"
 
@@ -988,9 +995,10 @@ def advice_line(name, time_left_s, brake_later_m, min_speed_gain_m_s, full_drive
             f"is at full drive {_fmt_m(full_drive_sooner_m)} "
             f"{'sooner' if full_drive_sooner_m > 0 else 'later'}"
         )
-    head = f"{name}: {time_left_s:.2f} s"
+    shown = 0.0 if round(time_left_s, 2) == 0 else time_left_s  # no "-0.00"
+    head = f"{name}: {shown:.2f} s"
     if not parts:
-        if time_left_s < 0:
+        if time_left_s <= -QUICKER_THAN_IDEAL_S:
             return f"{head} — quicker than the ideal here; the envelope may be set too low"
         return f"{head} — same brake point, minimum speed and drive point as the ideal"
     if parts[0].startswith("carries") or parts[0].startswith("is at"):

@@ -418,7 +418,8 @@ def time_left_figure(corners) -> bytes:
     p.barh(y, values, colours, height=0.7)
     p.vline(0.0, EDGE, 0.8)
     for yi, v in zip(y, values, strict=True):
-        p.text(max(v, 0.0), yi, f"{v:+.2f} s", dx=_pt(4), size_pt=9, colour=INK, va="center")
+        shown = 0.0 if round(v, 2) == 0 else v  # no "-0.00"
+        p.text(max(v, 0.0), yi, f"{shown:+.2f} s", dx=_pt(4), size_pt=9, colour=INK, va="center")
     p.frame(colour=EDGE)
     below = p.xticks(xt, size_pt=_FONT_PT, colour=INK)
     p.yticks(y, names, size_pt=name_pt, colour=INK)

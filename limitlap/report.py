@@ -465,7 +465,7 @@ def _plain_line(rec) -> str:
         if parts
         else "the same line at the limit"
     )
-    return f"{rec['name']}: {rec['time_left_s']:.2f} s — {tail}"
+    return f"{rec['name']}: {_hundredths(rec['time_left_s'])} s — {tail}"
 
 
 def corner_rows(comparison) -> list[dict]:
@@ -1010,6 +1010,17 @@ def _fmt(x, spec, unit=""):
     return "n/a" if x is None or not math.isfinite(x) else f"{x:{spec}}{unit}"
 
 
+def _hundredths(x) -> str:
+    """A time left in seconds to 0.01, "n/a" when unknown; never "-0.00".
+
+    >>> _hundredths(-0.004), _hundredths(-0.012), _hundredths(float("nan"))
+    ('0.00', '-0.01', 'n/a')
+    """
+    if x is None or not math.isfinite(x):
+        return "n/a"
+    return f"{0.0 if round(x, 2) == 0 else x:.2f}"
+
+
 def _laptime(t):
     if t is None or not math.isfinite(t):
         return "n/a"
@@ -1117,7 +1128,7 @@ def report_html(v: _View, figure_list) -> str:
         cells = [
             str(i),
             f"{c['name']} {c['label']}" if c.get("label") else c["name"],
-            _fmt(c["time_left_s"], ".2f"),
+            _hundredths(c["time_left_s"]),
             _fmt(c["actual_s"], ".2f"),
             _fmt(c["ideal_s"], ".2f"),
             f"{_fmt(c['min_speed_actual_kmh'], '.0f')} / {_fmt(c['min_speed_ideal_kmh'], '.0f')}",

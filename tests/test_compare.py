@@ -308,6 +308,15 @@ def test_advice_line_wording():
     assert compare.advice_line("T2", 0.05, math.nan, 3 * KMH_TO_M_S, 0.5) == (
         "T2: 0.05 s — the ideal carries 3 km/h more at the minimum"
     )
+    # A corner within a few thousandths of the ideal is on it: no "-0.00", no call to
+    # look at the envelope; two hundredths quicker (the segment timing's resolution
+    # twice over) is called out.
+    assert compare.advice_line("T8", -0.004, math.nan, 0.1 * KMH_TO_M_S, math.nan) == (
+        "T8: 0.00 s — same brake point, minimum speed and drive point as the ideal"
+    )
+    assert compare.advice_line("T8", -0.03, math.nan, 0.1 * KMH_TO_M_S, math.nan) == (
+        "T8: -0.03 s — quicker than the ideal here; the envelope may be set too low"
+    )
 
 
 def test_best_of_laps_composite(lap):
