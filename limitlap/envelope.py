@@ -199,8 +199,9 @@ class EnvelopeFit:
         about half, that fit being a central one; NaN without that calibration),
         ``n_used``, ``n_boundary_points``, ``speed_min_m_s``, ``speed_max_m_s``,
         ``quantile``, ``noise_m_s2`` (:attr:`Selection.noise_m_s2`),
-        ``noise_offset_m_s2`` (how far outside the envelope the boundary points were
-        fitted, :func:`_noise_offset`), ``passes``.
+        ``noise_offset_m_s2`` and ``noise_offset_power_m_s2`` (how far outside the tyre
+        limit and the power line their boundary points were fitted, :func:`_noise_offsets`),
+        ``passes``.
     uncertainty : dict[str, float]
         One standard deviation per fitted parameter, same names and units as
         :class:`Vehicle` fields.
@@ -461,11 +462,11 @@ def _usage_and_direction(v, ax, ay, veh, work=None):
     and the arctangent by numpy's vectorised functions, all into five work arrays
     (``work``, shape (5, n), reused by the caller across passes; fresh when None) instead
     of a score of temporaries; tests hold the results equal to the two functions', bit
-    for bit. Returns views of ``work``; its first row keeps the tyre share alone (for
-    :func:`_noise_offset`). [-], [rad]
+    for bit. Returns views of ``work``; its first and last rows keep the tyre and power
+    shares (for :func:`_noise_offsets`). [-], [rad]
     """
     tyre, power, sx, sy = _tyre_and_power_shares(v, ax, ay, veh, work)
-    usage = np.maximum(tyre, power, out=power)
+    usage = np.maximum(tyre, power, out=None if work is None else work[1])
     np.arctan2(sy, sx, out=sx)
     return usage, sx
 
@@ -675,7 +676,7 @@ def fit_envelope(
         it splits the laps); ``mask`` is applied to it. [-]
     remove_noise : bool, default True
         Take out of the envelope the width the sensor noise adds to a high quantile
-        (:func:`_noise_offset`; nothing without a sample rate, which leaves the samples
+        (:func:`_noise_offsets`; nothing without a sample rate, which leaves the samples
         unfiltered and their noise unknown): see Notes. [-]
 
     Returns
@@ -709,10 +710,11 @@ def fit_envelope(
     every sample of a bin is on the limit, less when most are inside. Left in, it widens
     the envelope by the sensor's noise (about 1 % of the grip for 0.03 g white noise at
     100 Hz after the 3 Hz low-pass) and the ideal lap gains time no driver can find. With
-    ``remove_noise``, that lift is estimated from the samples found outside the envelope
-    (:func:`_noise_offset`: the noise level is measured from the high-pass residual of
-    the accelerations, :func:`filtered_noise`) and the boundary points are fitted that
-    far outside it (one more pass, or the refit after the power calibration).
+    ``remove_noise``, that lift is estimated from the samples found outside the envelope,
+    for the tyre limit and the power line apart (:func:`_noise_offsets`: the noise level
+    is measured from the high-pass residual of the accelerations, :func:`filtered_noise`),
+    and each boundary point is fitted that far outside the limit it is on (one more pass,
+    or the refit after the power calibration, whose central power line gets about none).
     """
     if base.mass_kg is None or not (base.mass_kg > 0):
         raise LimitlapError(f"vehicle '{base.name}' needs a positive mass to fit an envelope")
@@ -766,6 +768,7 @@ def fit_envelope(
 
     work = np.empty((5, v.shape[0]))  # _usage_and_direction's arrays, reused by each pass
     offset = 0.0  # how far outside the envelope the boundary points are fitted (Notes)
+    lifts = (0.0, 0.0)
 
     def boundary(veh):
         """The boundary points of every bin under the normalisation by ``veh``."""
@@ -816,10 +819,12 @@ def fit_envelope(
     if calibrated is not None:
         veh, full_throttle = calibrated
     if calibrated is not None or (remove_noise and sel.noise_m_s2 > 0.0):
-        idx, bp_band, bv, bax, bay = boundary(veh)  # leaves the tyre shares in work[0]
+        idx, bp_band, bv, bax, bay = boundary(veh)  # leaves the tyre/power shares in work
         if remove_noise:
-            offset = _noise_offset(v, ax, ay, veh, sel.noise_m_s2, quantile, work[0])
-    if calibrated is None and offset > 0.0:  # the same parameters again, points off the limit
+            lifts = _noise_offsets(v, ax, ay, veh, sel.noise_m_s2, quantile, work[0], work[4])
+            tyre_b, power_b = _tyre_and_power_shares(bv, bax, bay, veh)[:2]
+            offset = np.where(power_b >= tyre_b, lifts[1], lifts[0])  # the limit each point is on
+    if calibrated is None and np.any(offset > 0.0):  # the same parameters, points off the limit
         sol = fit_points(every, veh, x0, bv, bax, bay)
         veh = _vehicle_from(sol.x, names, veh)
         bp = (idx, bp_band, bv, bax, bay, sol)
@@ -883,7 +888,8 @@ def fit_envelope(
         "speed_max_m_s": float(v.max()),
         "quantile": float(quantile),
         "noise_m_s2": float(sel.noise_m_s2),
-        "noise_offset_m_s2": float(offset),
+        "noise_offset_m_s2": float(lifts[0]),
+        "noise_offset_power_m_s2": float(lifts[1]),
         "passes": int(passes),
     }
     fitted = tuple(names)
@@ -954,38 +960,52 @@ def _robust_least_squares(fun, jac, start, lo, hi, f_scale):
     return sol
 
 
-#: The noise offset is estimated only from at least this many samples outside the
-#: envelope (a mean over fewer would move it by a tenth of the noise or more). [-]
+#: A noise lift is estimated only from at least this many samples outside the envelope
+#: (a mean over fewer would move it by a tenth of the noise or more). [-]
 _MIN_TAIL_SAMPLES = 100
 
 
-def _noise_offset(v, ax, ay, veh, noise, quantile, tyre=None):
-    r"""How far the sensor noise lifts the boundary points above the limit. [m/s²]
+def _noise_offsets(v, ax, ay, veh, noise, quantile, tyre, power):
+    r"""How far the sensor noise lifts the boundary points above the tyre limit and above
+    the power line. [m/s²]
 
-    Samples on the limit with noise of standard deviation :math:`\sigma` (the filtered
+    Samples on a limit with noise of standard deviation :math:`\sigma` (the filtered
     noise, :attr:`Selection.noise_m_s2`) scatter about it as :math:`N(0, \sigma^2)`; an
     envelope fitted through high-quantile points lies :math:`b` outside the limit, so
-    those samples lie at :math:`N(-b, \sigma^2)` from it and the ones outside it (radial
-    distance :math:`r > 0`, tyre limits only) have the mean of a normal distribution
-    truncated at 0: :math:`E[r \mid r > 0] = -b + \sigma\,\varphi(b/\sigma) /
-    (1 - \Phi(b/\sigma))` (N. L. Johnson, S. Kotz, N. Balakrishnan, *Continuous
-    Univariate Distributions*, vol. 1, 2nd ed., Wiley, 1994, §13.10, from memory). That
-    mean is decreasing in :math:`b`; solved for :math:`b` from the samples' own mean and
-    kept within :math:`[0, z_q \sigma]` (:math:`z_q` the normal quantile of
-    ``quantile``: the lift when every sample of a bin is on the limit), so the
-    correction never widens the envelope and never narrows it by more than the noise can
-    have widened it. 0 without noise or with fewer than :data:`_MIN_TAIL_SAMPLES` samples
-    outside. Samples inside the limit but within the noise of it are counted as on it.
-    ``tyre``: the samples' tyre shares under ``veh`` when already known.
+    those samples lie at :math:`N(-b, \sigma^2)` from it and the ones beyond it have the
+    mean of a normal distribution truncated at 0: :math:`E[r \mid r > 0] = -b +
+    \sigma\,\varphi(b/\sigma) / (1 - \Phi(b/\sigma))` (N. L. Johnson, S. Kotz,
+    N. Balakrishnan, *Continuous Univariate Distributions*, vol. 1, 2nd ed., Wiley, 1994,
+    §13.10, from memory). That mean is decreasing in :math:`b`; solved for :math:`b` from
+    the samples' own mean (:func:`_lift_from_tail`) and kept within :math:`[0, z_q
+    \sigma]` (:math:`z_q` the normal quantile of ``quantile``: the lift when every sample
+    of a bin is on the limit), so the correction never widens the envelope and never
+    narrows it by more than the noise can have widened it.
+
+    The tyre limit's samples beyond it (tyre share ``tyre`` > 1) give their radial
+    distance from it; the power line's (power share ``power`` > 1, driving at more than
+    P/v) their longitudinal excess :math:`(s_P - 1) P / (m v)`. A power line calibrated as
+    a central fit (throttle channel) has about half its samples above it: its lift comes
+    out 0. Each is 0 without noise or with fewer than :data:`_MIN_TAIL_SAMPLES` samples
+    beyond.
     """
     if not noise > 0.0:
-        return 0.0
-    if tyre is None:
-        tyre = _tyre_and_power_shares(v, ax, ay, veh)[0]
+        return 0.0, 0.0
+    b_tyre = b_power = 0.0
     out = np.flatnonzero(tyre > 1.0)
-    if out.size < _MIN_TAIL_SAMPLES:
-        return 0.0
-    r = _residuals(v[out], ax[out], ay[out], replace(veh, power_w=math.inf))
+    if out.size >= _MIN_TAIL_SAMPLES:
+        r = _residuals(v[out], ax[out], ay[out], replace(veh, power_w=math.inf))
+        b_tyre = _lift_from_tail(r, noise, quantile)
+    if math.isfinite(veh.power_w):
+        beyond = np.flatnonzero(power > 1.0)
+        if beyond.size >= _MIN_TAIL_SAMPLES:
+            excess = (power[beyond] - 1.0) * veh.power_w / (veh.mass_kg * np.maximum(v[beyond], 1e-3))
+            b_power = _lift_from_tail(excess, noise, quantile)
+    return b_tyre, b_power
+
+
+def _lift_from_tail(r, noise, quantile):
+    """:func:`_noise_offsets`' lift b from the distances r > 0 beyond a limit. [m/s²]"""
     mean_out = float(np.mean(r))
     normal = NormalDist()
     top = normal.inv_cdf(quantile)
