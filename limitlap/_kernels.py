@@ -645,6 +645,23 @@ def polygon_self_crosses(x, y):
 
 
 @njit(cache=True, nogil=True)
+def trapezoid_running(t, v):
+    """Kernel of ``limitlap.ingest.travelled_m``: the running trapezoidal integral of v
+    over t from 0, as ``concatenate(([0], cumsum(0.5 * (v[1:] + v[:-1]) * diff(t))))``
+    computes it, operation for operation. [m]"""
+    n = t.shape[0]
+    out = np.empty(n)
+    if n == 0:
+        return out
+    out[0] = 0.0
+    acc = 0.0
+    for i in range(n - 1):
+        acc += 0.5 * (v[i + 1] + v[i]) * (t[i + 1] - t[i])
+        out[i + 1] = acc
+    return out
+
+
+@njit(cache=True, nogil=True)
 def held_at_least(x, rows, reach, level):
     """Kernel of ``limitlap.envelope._full_throttle_held``: for ascending ``rows``, True
     where every x within ``reach`` rows either side is >= ``level`` (NaN is not). One scan

@@ -10,7 +10,8 @@
 - thinning a long record before the envelope fit keeps the fitted envelope;
 - the grip estimate of one lap, filtered on the lap's rows only, equals the one filtered
   on the whole log;
-- quantities remembered on a log are recomputed when its arrays are replaced.
+- quantities remembered on a log are recomputed when its arrays are replaced;
+- the distance travelled by one compiled pass is numpy's trapezoid expression, bit for bit.
 """
 
 from __future__ import annotations
@@ -476,3 +477,18 @@ def test_robust_least_squares_matches_scipy_soft_l1():
         np.testing.assert_allclose(got.fun, fun(got.x), rtol=0, atol=0)
         np.testing.assert_allclose(got.jac, ref.jac, rtol=1e-5, atol=1e-8)
         assert inside == bool(np.all(ref.active_mask == 0))  # the case is what it says
+
+
+def test_travelled_distance_kernel_is_numpys_trapezoid_bit_for_bit():
+    # The reader's distance travelled (one compiled pass) must be the numpy expression it
+    # replaces, bit for bit, and scipy.integrate.cumulative_trapezoid's to rounding.
+    from scipy.integrate import cumulative_trapezoid
+
+    rng = np.random.default_rng(12)
+    t = np.cumsum(rng.uniform(0.005, 0.015, 50_000))
+    v = np.abs(rng.normal(40.0, 15.0, t.size))
+    ref = np.concatenate(([0.0], np.cumsum(0.5 * (v[1:] + v[:-1]) * np.diff(t))))
+    got = _kernels.trapezoid_running(t, v)
+    assert np.array_equal(got, ref)
+    np.testing.assert_allclose(got, cumulative_trapezoid(v, t, initial=0.0), rtol=1e-12, atol=1e-9)
+    assert _kernels.trapezoid_running(t[:1], v[:1]).tolist() == [0.0]
