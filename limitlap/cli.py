@@ -120,6 +120,7 @@ class _Progress:
 
 def _corner_table(analysis) -> str:
     """The ranked corner table and headline, for the terminal."""
+    from limitlap import compare
     from limitlap.laps import format_lap_time
     from limitlap.units import KMH_TO_M_S
 
@@ -135,16 +136,13 @@ def _corner_table(analysis) -> str:
         f"{'':>4}  {'':<7}{'[s]':>10}{'[km/h]':>10}{'[km/h]':>10}{'[m]':>11}{'[m]':>12}{'[%]':>10}",
     ]
 
-    def _no_negative_zero(x):  # a time left that rounds to 0.00 is shown as 0.00
-        return 0.0 if x == x and round(x, 2) == 0 else x
-
     def num(x, spec, scale=1.0):
         width = int(spec.split(".")[0])
         return "-".rjust(width) if x is None or x != x else format(x * scale, spec)
 
     for c in cmp_.ranked():
         lines.append(
-            f"{c.rank:>4}  {c.name:<7}{num(_no_negative_zero(c.time_left_s), '10.2f')}"
+            f"{c.rank:>4}  {c.name:<7}{num(compare.hundredths(c.time_left_s), '10.2f')}"
             f"{num(c.min_speed_actual_m_s, '10.1f', 1 / KMH_TO_M_S)}{num(c.min_speed_ideal_m_s, '10.1f', 1 / KMH_TO_M_S)}"
             f"{num(c.brake_start_actual_m, '11.0f')}{num(c.brake_start_ideal_m, '12.0f')}"
             f"{num(c.grip_used, '10.0f', 100.0)}"

@@ -947,6 +947,15 @@ class LapComparison:
 QUICKER_THAN_IDEAL_S = 0.02
 
 
+def hundredths(time_s: float) -> float:
+    """A time as shown to 0.01 s: exactly 0 when it rounds to 0.00, so no "-0.00". [s]
+
+    >>> hundredths(-0.004), hundredths(-0.012)
+    (0.0, -0.012)
+    """
+    return 0.0 if math.isfinite(time_s) and round(time_s, 2) == 0 else time_s
+
+
 def _fmt_m(x):
     return f"{abs(x):.0f} m"
 
@@ -995,8 +1004,7 @@ def advice_line(name, time_left_s, brake_later_m, min_speed_gain_m_s, full_drive
             f"is at full drive {_fmt_m(full_drive_sooner_m)} "
             f"{'sooner' if full_drive_sooner_m > 0 else 'later'}"
         )
-    shown = 0.0 if round(time_left_s, 2) == 0 else time_left_s  # no "-0.00"
-    head = f"{name}: {shown:.2f} s"
+    head = f"{name}: {hundredths(time_left_s):.2f} s"
     if not parts:
         if time_left_s <= -QUICKER_THAN_IDEAL_S:
             return f"{head} — quicker than the ideal here; the envelope may be set too low"

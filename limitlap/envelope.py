@@ -371,6 +371,12 @@ def select_samples(
     return Selection(v, ax, ay, ok, n_spikes, spike, noise)
 
 
+def _mad_scale(r) -> float:
+    """1.4826 times the median absolute deviation: the standard deviation of normal data,
+    robust to a few outliers (the factor is 1 / Phi^-1(3/4); from memory). [same as r]"""
+    return 1.4826 * float(np.median(np.abs(r - np.median(r))))
+
+
 #: The noise of the accelerations is estimated from about this many samples (every
 #: n-th of a longer record): its standard error is then about 1 %. [-]
 _NOISE_SAMPLES = 10_000
@@ -401,7 +407,7 @@ def filtered_noise(residual, sigma):
     r = r[np.isfinite(r)]
     if r.size == 0:
         return 0.0
-    spread = 1.4826 * float(np.median(np.abs(r - np.median(r))))
+    spread = _mad_scale(r)
     radius = int(4.0 * float(sigma) + 0.5)
     j = np.arange(-radius, radius + 1, dtype=np.float64)
     w = np.exp(-0.5 * (j / float(sigma)) ** 2)
@@ -1085,7 +1091,7 @@ def _huber_line_fit(design, y, max_iter=50, rtol=1e-8):
             break
         r = y - x @ c
         some = r[::stride]
-        scale = 1.4826 * float(np.median(np.abs(some - np.median(some))))
+        scale = _mad_scale(some)
         if not scale > 0.0:
             break
         k = 1.345 * scale

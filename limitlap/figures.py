@@ -392,6 +392,7 @@ def time_left_figure(corners) -> bytes:
         PNG image, ``FIGURE_SIZE_PX["time_left"]`` pixels.
     """
     from limitlap._canvas import Panel
+    from limitlap.compare import hundredths  # the figure's labels as the tables print them
 
     c = _canvas("time_left")
     ranked = sorted(corners, key=lambda r: -r["time_left_s"])
@@ -418,8 +419,7 @@ def time_left_figure(corners) -> bytes:
     p.barh(y, values, colours, height=0.7)
     p.vline(0.0, EDGE, 0.8)
     for yi, v in zip(y, values, strict=True):
-        shown = 0.0 if round(v, 2) == 0 else v  # no "-0.00"
-        p.text(max(v, 0.0), yi, f"{shown:+.2f} s", dx=_pt(4), size_pt=9, colour=INK, va="center")
+        p.text(max(v, 0.0), yi, f"{hundredths(v):+.2f} s", dx=_pt(4), size_pt=9, colour=INK, va="center")
     p.frame(colour=EDGE)
     below = p.xticks(xt, size_pt=_FONT_PT, colour=INK)
     p.yticks(y, names, size_pt=name_pt, colour=INK)

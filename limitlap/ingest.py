@@ -668,14 +668,27 @@ def _merge_duplicate_stamps(time_s, data, rows):
     """Drop rows whose time equals the previous row's, keeping the first value of each cell."""
     group = np.concatenate(([0], np.cumsum(np.diff(time_s) != 0)))
     first = np.concatenate(([True], np.diff(group) != 0))
-    merged = {}
-    for name, values in data.items():
-        out = values[first].copy()
-        ok = np.isfinite(values)
-        groups, at = np.unique(group[ok], return_index=True)
-        out[groups] = values[ok][at]
-        merged[name] = out
+    n_groups = int(group[-1]) + 1
+    merged = {name: _first_cell(values, group, n_groups) for name, values in data.items()}
     return time_s[first], merged, rows[first]
+
+
+def _first_cell(values, group, n_groups):
+    """The first non-blank value of each group (rows in order, ``group`` their group
+    number, -1 for none), NaN for a group with none."""
+    out = np.full(n_groups, np.nan)
+    ok = np.isfinite(values) & (group >= 0)
+    groups, at = np.unique(group[ok], return_index=True)
+    out[groups] = values[ok][at]
+    return out
+
+
+def _check_finite(path, values, rows, column):
+    """InputError at the first infinite cell (``rows``: spreadsheet row of each value)."""
+    inf = np.isinf(values)
+    if inf.any():
+        i, row = _first_bad(rows, inf)
+        raise InputError(path, f"'{values[i]}' is not a finite number", row=row, column=column)
 
 
 #: Channels only the analysed lap's traces use (pedal and steering traces, gear): with
@@ -746,12 +759,8 @@ class _Deferred:
     def _merged(self, name, values, first, starts):
         """Parsed rows ``first``.. -> log rows whose first lines are ``starts``: units,
         the reader's checks, and the first non-blank cell of merged duplicates."""
-        column = self.header[self.specs[name][0]]
         rows = np.arange(values.shape[0]) + first + 2  # spreadsheet rows: header = 1
-        inf = np.isinf(values)
-        if inf.any():
-            i, row = _first_bad(rows, inf)
-            raise InputError(self.path, f"'{values[i]}' is not a finite number", row=row, column=column)
+        _check_finite(self.path, values, rows, self.header[self.specs[name][0]])
         _, factor, sign = self.specs[name]
         if factor * sign != 1.0:
             values = values * (factor * sign)
@@ -765,11 +774,7 @@ class _Deferred:
         if starts.shape[0] == values.shape[0]:  # one line per log row: nothing merged
             return values
         group = np.searchsorted(starts - first, np.arange(values.shape[0]), side="right") - 1
-        ok = np.isfinite(values) & (group >= 0)
-        out = np.full(starts.shape[0], np.nan)
-        groups, at = np.unique(group[ok], return_index=True)
-        out[groups] = values[ok][at]
-        return out
+        return _first_cell(values, group, starts.shape[0])  # as _merge_duplicate_stamps
 
     def _window(self, start, stop):
         """Every deferred channel for log rows start..stop, or None when the stretch
@@ -987,11 +992,7 @@ def read_log(path, channel_map=None, *, on_channels=None, defer=()) -> Log:
     if n_rows == 0 or blank.all():
         raise InputError(path, "no data rows (header only)")
     for channel, values in data.items():
-        inf = np.isinf(values)
-        if inf.any():
-            i, row = _first_bad(rows, inf)
-            raise InputError(path, f"'{values[i]}' is not a finite number", row=row,
-                             column=header[found[channel][0]])
+        _check_finite(path, values, rows, header[found[channel][0]])
     keep = ~blank
     if not keep.all():  # rows with every cell blank are dropped (most logs have none)
         data = {k: v[keep] for k, v in data.items()}
@@ -1066,8 +1067,7 @@ def read_log(path, channel_map=None, *, on_channels=None, defer=()) -> Log:
         parsed_rows = rows - 2
         channels.deferred = _Deferred(
             path, source, header, sep, decimal_comma, encoding, later, found["time"], time_s,
-            parsed_rows, np.setdiff1d(np.arange(n_rows), np.flatnonzero(keep)) if not keep.all()
-            else np.empty(0, dtype=np.int64), n_rows,
+            parsed_rows, np.flatnonzero(~keep), n_rows,
         )
     log = Log(path=str(path), time_s=time_s, channels=channels, origin=origin, warnings=warnings)
     warnings.extend(_dropout_warnings(log, rows))

@@ -1016,9 +1016,11 @@ def _hundredths(x) -> str:
     >>> _hundredths(-0.004), _hundredths(-0.012), _hundredths(float("nan"))
     ('0.00', '-0.01', 'n/a')
     """
+    from limitlap.compare import hundredths
+
     if x is None or not math.isfinite(x):
         return "n/a"
-    return f"{0.0 if round(x, 2) == 0 else x:.2f}"
+    return f"{hundredths(x):.2f}"
 
 
 def _laptime(t):
