@@ -732,7 +732,7 @@ def build_summary(analysis) -> dict:
         "best_of_laps": best_rec,
         "envelope": {
             "fitted": v.fit is not None,
-            "laps": [int(n) for n in (_get(analysis, "fit_laps", default=[]) or [])],
+            "laps": list(v.fit_laps),
         },
         "warnings": list(v.warnings),
     }
@@ -1036,15 +1036,13 @@ def _lap_ranges(numbers) -> str:
     >>> _lap_ranges([1, 2, 3, 5, 7, 8])
     '1-3, 5, 7-8'
     """
-    out, run = [], []
+    runs = []
     for n in sorted(numbers):
-        if run and n != run[-1] + 1:
-            out.append(f"{run[0]}-{run[-1]}" if len(run) > 1 else str(run[0]))
-            run = []
-        run.append(n)
-    if run:
-        out.append(f"{run[0]}-{run[-1]}" if len(run) > 1 else str(run[0]))
-    return ", ".join(out)
+        if runs and n == runs[-1][1] + 1:
+            runs[-1][1] = n
+        else:
+            runs.append([n, n])
+    return ", ".join(f"{a}-{b}" if b > a else str(a) for a, b in runs)
 
 
 def _envelope_source(v: _View) -> str:
@@ -1054,10 +1052,12 @@ def _envelope_source(v: _View) -> str:
             f"The envelope is the vehicle file's ('{v.vehicle.name}'), so the time left is "
             "what that envelope allows on your line."
         )
+    from limitlap.laps import FLYING_LAP_RATIO
+
     laps = v.fit_laps
     which = (
         f" of lap{'s' if len(laps) > 1 else ''} {_lap_ranges(laps)}, the flying laps within "
-        "107 % of your fastest,"
+        f"{FLYING_LAP_RATIO * 100:.0f} % of your fastest,"
         if laps
         else ""
     )
