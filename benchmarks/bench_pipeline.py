@@ -58,7 +58,8 @@ def _child(name: str, path: str, repeats: int) -> None:
     import numpy as np
     import polars as pl
 
-    from limitlap import compare, ingest, pipeline, report, solve
+    from limitlap import corners as corners_mod
+    from limitlap import ingest, pipeline, report, solve
     from limitlap import targets as targets_mod
     from limitlap.resources import bundled_path
 
@@ -86,7 +87,7 @@ def _child(name: str, path: str, repeats: int) -> None:
             a = pipeline.analyse(path)
             report.write_outputs(a, out_dir, figures=figures)
         elif name == "targets":
-            corners = compare.find_corners(setup[0])
+            corners = corners_mod.find_corners(setup[0])
             targets_mod.target_tables(setup[0], setup[1], list(CONDITIONS), corners)
         elif name == "sweep":
             solve.lap_times_for_scales(setup[0], setup[1], scales)

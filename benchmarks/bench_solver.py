@@ -22,9 +22,9 @@ ROOT = Path(__file__).resolve().parent.parent
 sys.path.insert(0, str(ROOT))
 
 from limitlap import solve  # noqa: E402
+from limitlap.ingest import read_vehicle  # noqa: E402
 from limitlap.line import line_from_curvature  # noqa: E402
 from limitlap.resources import bundled_path  # noqa: E402
-from limitlap.ingest import read_vehicle  # noqa: E402
 from limitlap.units import G0_M_S2, V_CAP_M_S  # noqa: E402
 from tests import reference  # noqa: E402
 

@@ -284,7 +284,8 @@ def targets(
     as_json: bool = typer.Option(False, "--json", help="Print JSON on stdout."),
 ) -> None:
     """Target sheet per corner for one or more grip scales (dry, damp, wet)."""
-    from limitlap import compare, ingest, pipeline
+    from limitlap import corners as corners_mod
+    from limitlap import ingest, pipeline
     from limitlap import targets as targets_mod
 
     _settle_imports()
@@ -298,7 +299,7 @@ def targets(
     trk = ingest.read_track(track) if track is not None else None
     names = list(trk.corner_names) if trk is not None and trk.corner_names else None
     apexes = list(trk.corner_apexes_m) if names else None
-    corners = compare.find_corners(line, names, apexes_m=apexes)
+    corners = corners_mod.find_corners(line, names, apexes_m=apexes)
     conditions = targets_mod.target_tables(line, car, grip, corners)
     if out is not None:
         from limitlap import report

@@ -1,60 +1,33 @@
-r"""Corners of a line, and the real lap against the ideal one corner by corner.
+r"""The real lap against the ideal one, corner by corner.
 
-Three steps, all on the stations of one line (SI throughout):
-
-1. :func:`find_corners` finds the bends from the line's smoothed curvature with a
-   threshold with hysteresis, joins same-direction bends that follow closely into one
-   corner with several apexes, names them in driving order from the gate and cuts the
-   lap into segments that tile it, one per corner, with the boundaries in the middle of
-   the straights.
-2. :func:`compare_lap` puts the real lap and the ideal :class:`~limitlap.solve.Profile`
-   on the same distance axis: time delta along the lap, and per corner the time left,
-   minimum speeds, brake points, where full drive begins, peak lateral acceleration, the
-   share of grip used, the time left split into braking, mid-corner and exit phases, and
-   one plain-language line for the driver.
-3. :func:`best_of_laps` builds the composite of each segment's best time over a
-   session's complete laps.
+:func:`compare_lap` puts the real lap and the ideal :class:`~limitlap.solve.Profile` on
+the same distance axis, on the corners of :mod:`limitlap.corners`: time delta along the
+lap, and per corner the time left, minimum speeds, brake points, where full drive begins,
+peak lateral acceleration, the share of grip used, the time left split into braking,
+mid-corner and exit phases, and one plain-language line for the driver.
 
 Segment times are differences of elapsed time interpolated at the segment boundaries,
 so the corners' times telescope to the lap time: the corners' time left adds up to the
-lap's (INTERFACE §5; REFERENCES T1.10).
-
-Distances are metres from the gate, in ``[0, length)``; the one segment that runs
-through the gate of a closed lap has ``start_m > end_m`` (and a single corner that
-covers the whole lap has ``start_m == end_m``).
+lap's (docs/outputs.md, summary.json). Distances are metres from the gate, in
+``[0, length)``.
 """
 
 from __future__ import annotations
 
-import itertools
 import math
 from collections.abc import Mapping, Sequence
-from dataclasses import dataclass, replace
+from dataclasses import dataclass
 
 import numpy as np
-from scipy.ndimage import gaussian_filter1d
 
 from limitlap import limits
+from limitlap.corners import Corner, plateau_middle, segment_index
+from limitlap.driven import elapsed_from_gate
 from limitlap.errors import LimitlapError
 from limitlap.line import Line
 from limitlap.solve import Profile
 from limitlap.units import G0_M_S2, KMH_TO_M_S
 from limitlap.vehicle import Vehicle
-
-# --- Defaults of corner detection (common practice of the trade, no published source) ---
-#: Gaussian smoothing of curvature before the thresholds (standard deviation). [m]
-SMOOTHING_M = 8.0
-#: A bend starts where |curvature| exceeds this (radius under 250 m)... [1/m]
-ENTER_CURVATURE_1_M = 1.0 / 250.0
-#: ... and lasts while |curvature| stays above this (radius under 500 m). [1/m]
-LEAVE_CURVATURE_1_M = 1.0 / 500.0
-#: A bend must change the heading by at least this much to count (15°). [rad]
-MIN_TURN_RAD = math.radians(15.0)
-#: A second apex inside one bend needs a dip of |curvature| before it of at least this
-#: share of its own peak (peak prominence, as ``scipy.signal.find_peaks``). [-]
-APEX_PROMINENCE = 0.3
-#: Same-direction bends closer than this form one corner with two apexes. [m]
-MERGE_GAP_M = 50.0
 
 # --- Defaults of the per-corner markers (common practice, no published source) ---
 #: Deceleration beyond which a car without a brake-pressure channel counts as braking
@@ -84,379 +57,6 @@ FULL_DRIVE_MIN_M_S2 = 0.5
 #: Stations where the ideal's combined usage is at least this count as grip-limited;
 #: a corner's grip used is measured there only. [-]
 GRIP_LIMITED_USAGE = 0.95
-
-
-@dataclass(frozen=True)
-class Corner:
-    """One corner and its segment of the lap (distances from the gate, SI).
-
-    Attributes
-    ----------
-    name : str
-        "T1", "T2", ... in driving order from the gate, or a given name.
-    start_m, end_m : float
-        Segment bounds, in the middle of the straights either side; ``start_m > end_m``
-        for the segment through the gate, ``start_m == end_m`` for one segment
-        covering the whole lap. [m]
-    apex_m : float
-        Main apex: the point of largest |curvature| (lowest cornering speed limit). [m]
-    apexes_m : tuple of float
-        Every apex in driving order (two or more for a compound corner). [m]
-    turn_in_m, exit_m : float
-        Where the curvature zone begins and ends (the hysteresis thresholds). [m]
-    direction : str
-        'left' (+ curvature, ISO 8855) or 'right'.
-    peak_curvature_1_m : float
-        Smoothed curvature at the main apex, signed. [1/m]
-    """
-
-    name: str
-    start_m: float
-    apex_m: float
-    apexes_m: tuple[float, ...]
-    end_m: float
-    turn_in_m: float
-    exit_m: float
-    direction: str
-    peak_curvature_1_m: float
-
-
-# ----------------------------------------------------------------------------------
-# Corner detection
-# ----------------------------------------------------------------------------------
-
-
-def smoothed_curvature(line: Line, smoothing_m: float = SMOOTHING_M) -> np.ndarray:
-    """Curvature smoothed by a Gaussian of standard deviation ``smoothing_m``.
-
-    Parameters
-    ----------
-    line : Line
-        The line; stations are taken as evenly spaced at their median step.
-    smoothing_m : float
-        Standard deviation of the Gaussian; 0 leaves the curvature as it is. [m]
-
-    Returns
-    -------
-    numpy.ndarray
-        Smoothed curvature, + left. [1/m]
-
-    Notes
-    -----
-    Closed lines wrap round the gate (``scipy.ndimage.gaussian_filter1d``,
-    ``mode='wrap'``); open lines repeat their end values.
-    """
-    kappa = np.asarray(line.curvature_1_m, dtype=np.float64)
-    n = kappa.shape[0]
-    ds = line.ds_m[: n if line.closed else n - 1]
-    sigma = float(smoothing_m) / float(np.median(ds))
-    if sigma <= 0.0:
-        return kappa.copy()
-    return gaussian_filter1d(kappa, sigma, mode="wrap" if line.closed else "nearest")
-
-
-def _runs(values: np.ndarray) -> list[tuple[int, int]]:
-    """Inclusive index ranges of equal consecutive values."""
-    change = np.flatnonzero(np.diff(values) != 0) + 1
-    starts = np.concatenate([[0], change])
-    ends = np.concatenate([change - 1, [values.shape[0] - 1]])
-    return list(zip(starts.tolist(), ends.tolist(), strict=True))
-
-
-def _plateau_middle(values: np.ndarray, i: int, tol: float) -> int:
-    """Middle of the run of values within ``tol`` of ``values[i]`` that contains i."""
-    near = np.abs(values - values[i]) <= tol
-    lo = i
-    while lo > 0 and near[lo - 1]:
-        lo -= 1
-    hi = i
-    while hi < values.shape[0] - 1 and near[hi + 1]:
-        hi += 1
-    return (lo + hi) // 2
-
-
-def peak_prominences(x):
-    """Local maxima of ``x`` and the prominence of each.
-
-    A peak is a sample higher than its left neighbour and than the first different sample
-    to its right (a flat top counts once, at its middle, rounded down); its prominence is
-    its height above the higher of the two lowest points between it and the nearest
-    higher sample on each side (or the array's end). The definitions and the search of
-    ``scipy.signal.find_peaks`` with ``prominence=0`` (Scipy's documentation, after the
-    topographic prominence), re-written here because importing ``scipy.signal`` costs the
-    command line half a second; the tests hold the two equal.
-
-    Parameters
-    ----------
-    x : array-like
-        Samples (one corner's |curvature|: a few hundred). [any]
-
-    Returns
-    -------
-    peaks : numpy.ndarray
-        Indices of the peaks, increasing. [-]
-    prominences : numpy.ndarray
-        Prominence of each, in the units of ``x``.
-
-    Examples
-    --------
-    >>> p, h = peak_prominences([0.0, 2.0, 1.0, 3.0, 3.0, 0.0])
-    >>> p.tolist(), h.tolist()
-    ([1, 3], [1.0, 3.0])
-    """
-    x = np.asarray(x, dtype=np.float64)
-    n = x.shape[0]
-    if n < 3:
-        return np.zeros(0, np.int64), np.zeros(0)
-    # Steps that change the value, in order: a rise followed (after any flat run) by a
-    # fall brackets a peak, its flat top from the sample after the rise to the one
-    # before the fall.
-    step = np.sign(np.diff(x))
-    moves = np.flatnonzero(step)
-    turn = (step[moves[:-1]] > 0) & (step[moves[1:]] < 0)
-    left, right = moves[:-1][turn] + 1, moves[1:][turn]
-    peaks = ((left + right) // 2).astype(np.int64)
-    prom = np.empty(peaks.shape[0])
-    for k, p in enumerate(peaks.tolist()):  # a handful of peaks per corner
-        higher_left = np.flatnonzero(x[:p] > x[p])
-        lo = higher_left[-1] + 1 if higher_left.size else 0
-        higher_right = np.flatnonzero(x[p + 1 :] > x[p])
-        hi = p + 1 + higher_right[0] if higher_right.size else n
-        prom[k] = x[p] - max(x[lo : p + 1].min(), x[p:hi].min())
-    return peaks, prom
-
-
-def find_corners(
-    line: Line,
-    names: Sequence[str] | None = None,
-    *,
-    smoothing_m: float = SMOOTHING_M,
-    enter_curvature_1_m: float = ENTER_CURVATURE_1_M,
-    leave_curvature_1_m: float = LEAVE_CURVATURE_1_M,
-    min_turn_rad: float = MIN_TURN_RAD,
-    merge_gap_m: float = MERGE_GAP_M,
-    apexes_m: Sequence[float] | None = None,
-) -> list[Corner]:
-    r"""Corners of a line from its curvature, with segments that tile the lap.
-
-    Parameters
-    ----------
-    line : Line
-        Closed lap (segments wrap round the gate) or open stretch.
-    names : sequence of str, optional
-        Names in driving order from the gate (e.g. from a track file); default T1, T2, ...
-        Without ``apexes_m`` their number must match the corners found.
-    apexes_m : sequence of float, optional
-        Apex of each named corner, from the gate (a track file's ``apex_m``) [m]. Each
-        name goes to the corner whose curvature zone holds its apex; a named apex
-        outside every zone found (a fast bend under the thresholds) makes a corner of
-        its own, from where |curvature| falls to half its peak nearby; several names in
-        one zone give one corner with the first name; a corner found with no name is
-        called after the corner before it with a "+" ("T8+").
-    smoothing_m : float
-        Gaussian smoothing of curvature (standard deviation). [m]
-    enter_curvature_1_m, leave_curvature_1_m : float
-        Hysteresis thresholds on |curvature|: a bend starts above the first and lasts
-        while above the second. [1/m]
-    min_turn_rad : float
-        Least heading change of a bend. [rad]
-    merge_gap_m : float
-        Same-direction bends with less straight than this between them are one corner
-        with several apexes. [m]
-
-    Returns
-    -------
-    list of Corner
-        In driving order from the gate.
-
-    Notes
-    -----
-    The apexes of a bend are the stations of locally largest smoothed |curvature|
-    whose peak stands out by at least 30 % of its height (the middle of the run when
-    the value is a plateau, as on a constant-radius arc); the main apex is the largest. For
-    every vehicle of INTERFACE §3 the cornering speed limit
-    :math:`v^2 = \mu g / (|\kappa| - \mu k_z/m)` is strictly decreasing in
-    :math:`|\kappa|` where grip limits at all, so these are the local minima of the
-    speed limit, the QSS critical points (REFERENCES §1.2), for any car: no vehicle
-    is needed. Boundaries sit halfway between one corner's exit and the next one's
-    turn-in. Thresholds are common practice, not published values.
-    """
-    if not (0.0 < leave_curvature_1_m <= enter_curvature_1_m):
-        raise LimitlapError("corner thresholds must satisfy 0 < leave <= enter")
-    n = line.n
-    length = float(line.length_m)
-    s = np.asarray(line.distance_m, dtype=np.float64)
-    ks = smoothed_curvature(line, smoothing_m)
-    mag = np.abs(ks)
-    state = np.where(mag > leave_curvature_1_m, np.sign(ks), 0.0).astype(np.int8)
-    ds = line.ds_m
-
-    # Rotate a closed lap so that station 0 of the work arrays starts a run: no run wraps.
-    if line.closed:
-        change = np.flatnonzero(state != np.roll(state, 1))
-        if change.size == 0:
-            if state[0] == 0:
-                return []
-            rot = 0  # one bend all the way round (a circle)
-        else:
-            rot = int(change[0])
-    else:
-        rot = 0
-    idx = (np.arange(n) + rot) % n
-    u = s[idx] + np.where(idx < rot, length, 0.0)  # unwrapped, increasing
-    st = state[idx]
-
-    zones = []  # (turn_in_u, exit_u, direction, [(apex_u, |kappa|, signed kappa)])
-    for i0, i1 in _runs(st):
-        if st[i0] == 0:
-            continue
-        seg = idx[i0 : i1 + 1]
-        if mag[seg].max() <= enter_curvature_1_m:
-            continue
-        if float(np.sum(mag[seg] * ds[seg])) < min_turn_rad:
-            continue
-        zm = mag[seg]
-        tol = 1e-9 * zm.max()
-        peaks, prominences = peak_prominences(np.concatenate([[0.0], zm, [0.0]]))
-        keep = prominences >= APEX_PROMINENCE * zm[peaks - 1]
-        apex_js = {_plateau_middle(zm, int(p) - 1, tol) for p in peaks[keep]}
-        apex_js.add(_plateau_middle(zm, int(np.argmax(zm)), tol))
-        apexes = [(u[i0 + j], zm[j], ks[seg[j]]) for j in sorted(apex_js)]
-        zones.append([u[i0], u[i1], int(st[i0]), apexes, []])
-    named = None
-    if names is not None and apexes_m is not None:
-        ap = np.asarray(apexes_m, dtype=np.float64)
-        if ap.shape != (len(names),):
-            raise LimitlapError(f"{ap.size} corner apexes given for {len(names)} names")
-        if np.isfinite(ap).all():
-            named = list(zip(ap.tolist(), [str(x) for x in names], strict=True))
-    if not zones and named is None:
-        return []
-
-    # Join same-direction bends close together (also across the gate on a lap).
-    merged = zones[:1]
-    for z in zones[1:]:
-        last = merged[-1]
-        if z[2] == last[2] and z[0] - last[1] < merge_gap_m:
-            last[1] = z[1]
-            last[3].extend(z[3])
-        else:
-            merged.append(z)
-    if line.closed and len(merged) > 1:
-        first, last = merged[0], merged[-1]
-        if first[2] == last[2] and first[0] + length - last[1] < merge_gap_m:
-            last[1] = first[1] + length
-            last[3].extend((a + length, m, k) for a, m, k in first[3])
-            merged.pop(0)
-    if named is not None:
-        merged = _place_named_apexes(merged, named, u, idx, mag, ks, length, line.closed)
-
-    # Boundaries halfway along the straights.
-    m = len(merged)
-    if line.closed:
-        bounds = np.empty(m)
-        for j in range(m):
-            nxt = merged[(j + 1) % m][0] + (length if j == m - 1 else 0.0)
-            bounds[j] = 0.5 * (merged[j][1] + nxt)
-        bounds = np.mod(bounds, length)
-        starts = np.roll(bounds, 1)
-        ends = bounds
-    else:
-        inner = np.array([0.5 * (merged[j][1] + merged[j + 1][0]) for j in range(m - 1)])
-        starts = np.concatenate([[0.0], inner])
-        ends = np.concatenate([inner, [length]])
-
-    def wrap(d):
-        return float(np.mod(d, length)) if line.closed else float(d)
-
-    out = []
-    for j, z in enumerate(merged):
-        apexes = sorted(z[3])
-        main = max(apexes, key=lambda a: a[1])
-        out.append(
-            Corner(
-                name="",
-                start_m=float(starts[j]),
-                apex_m=wrap(main[0]),
-                apexes_m=tuple(wrap(a[0]) for a in apexes),
-                end_m=float(ends[j]),
-                turn_in_m=wrap(z[0]),
-                exit_m=wrap(z[1]),
-                direction="left" if z[2] > 0 else "right",
-                peak_curvature_1_m=float(main[2]),
-            )
-        )
-    if named is not None:
-        order = sorted(range(len(out)), key=lambda j: out[j].apex_m)
-        final, prev = [], None
-        for j in order:
-            nm = merged[j][4][0][1] if merged[j][4] else None
-            if nm is None:  # a bend found that the track file does not name
-                nm = f"{prev}+" if prev is not None else "start+"
-            else:
-                prev = nm
-            final.append((out[j], nm))
-        if final and final[0][1] == "start+":  # name it after the last named corner
-            last_named = next((nm for _, nm in reversed(final) if not nm.endswith("+")), "T")
-            final[0] = (final[0][0], f"{last_named}+")
-        return [_renamed(c, nm) for c, nm in final]
-    out.sort(key=lambda c: c.apex_m)
-    if names is None:
-        names = [f"T{i + 1}" for i in range(len(out))]
-    names = [str(x) for x in names]
-    if len(names) != len(out):
-        raise LimitlapError(f"{len(names)} corner names given but the line has {len(out)} corners")
-    return [_renamed(c, nm) for nm, c in zip(names, out, strict=True)]
-
-
-def _renamed(c: Corner, name: str) -> Corner:
-    return replace(c, name=name)
-
-
-def _place_named_apexes(zones, named, u, idx, mag, ks, length, closed, slack_m=10.0, snap_m=15.0):
-    """Attach (apex_m, name) pairs to curvature zones; make zones for unmatched apexes.
-
-    ``u`` is the unwrapped station distance of the work arrays (``idx`` maps to
-    stations), zones are [turn_in, exit, direction, apexes, names] on that axis.
-    """
-    u0 = float(u[0])
-    n = u.shape[0]
-    for a, name in named:
-        ua = u0 + float(np.mod(a - u0, length)) if closed else float(a)
-        host = None
-        for z in zones:
-            for cand in (ua, ua + length) if closed else (ua,):
-                if z[0] - slack_m <= cand <= z[1] + slack_m:
-                    host, ua = z, cand
-                    break
-            if host is not None:
-                break
-        i = int(np.argmin(np.abs(u - ua)))
-        near = np.flatnonzero(np.abs(u - ua) <= snap_m)
-        j = int(near[np.argmax(mag[idx[near]])]) if near.size else i
-        if host is not None:
-            host[4].append((ua, name))
-            # A second name in one zone marks a second apex, unless one was found there.
-            if len(host[4]) > 1 and min(abs(a[0] - u[j]) for a in host[3]) > snap_m:
-                host[3].append((float(u[j]), float(mag[idx[j]]), float(ks[idx[j]])))
-            continue
-        # A corner the thresholds missed: its apex where the track file puts it.
-        apex = (float(u[i]), float(mag[idx[i]]), float(ks[idx[i]]))
-        peak, sign = mag[idx[j]], np.sign(ks[idx[j]])
-        lo = hi = j
-        while lo > 0 and mag[idx[lo - 1]] >= 0.5 * peak and np.sign(ks[idx[lo - 1]]) == sign:
-            lo -= 1
-        while hi < n - 1 and mag[idx[hi + 1]] >= 0.5 * peak and np.sign(ks[idx[hi + 1]]) == sign:
-            hi += 1
-        zones.append([float(u[lo]), float(u[hi]), int(sign) if sign else 1, [apex], [(ua, name)]])
-    zones.sort(key=lambda z: z[0])
-    for z in zones:
-        z[4].sort()
-    for p, q in itertools.pairwise(zones):  # keep zones apart
-        if q[0] < p[1]:
-            mid = 0.5 * (q[0] + p[1])
-            p[1], q[0] = mid, mid
-    return zones
 
 
 # ----------------------------------------------------------------------------------
@@ -571,7 +171,7 @@ def _min_speed(tr: _Trace, lo, hi):
     if v.size == 0 or not np.isfinite(v).any():
         return math.nan, math.nan, None
     j = int(np.nanargmin(v))
-    j = _plateau_middle(np.where(np.isfinite(v), v, np.inf), j, 1e-9)
+    j = plateau_middle(np.where(np.isfinite(v), v, np.inf), j, 1e-9)
     return float(v[j]), float(tr.u[i0 + j]), i0 + j
 
 
@@ -1018,24 +618,6 @@ def advice_line(name, time_left_s, brake_later_m, min_speed_gain_m_s, full_drive
     return f"{head} — {text}"
 
 
-def _elapsed(driven):
-    """Elapsed time from the gate at each station, and the lap time. [s]"""
-    t = np.asarray(driven.time_s, dtype=np.float64)
-    if not np.isfinite(t).all():
-        raise LimitlapError("the real lap's time has gaps")
-    t = t - t[0]
-    lap_time = getattr(driven, "lap_time_s", None)
-    if lap_time is None:
-        line = driven.line
-        v = np.asarray(driven.speed_m_s, dtype=np.float64)
-        v_end = 0.5 * (v[-1] + v[0]) if np.isfinite(v[[0, -1]]).all() else math.nan
-        step = line.ds_m[-1] if line.closed else 0.0
-        if step > 0 and not (v_end > 0):
-            raise LimitlapError("the real lap has no speed at the gate to close the lap time")
-        lap_time = t[-1] + (step / v_end if step > 0 else 0.0)
-    return t, float(lap_time)
-
-
 def _driven_channels(driven, line: Line):
     """Speed, a_x, a_y of the real lap; a missing sample of a_x / a_y is filled from speed
     and curvature (a_x = v dv/ds, a_y = kappa v^2)."""
@@ -1141,55 +723,17 @@ def compare_lap(
     common practice, not published values.
     """
     line = driven.line
-    n = line.n
-    if ideal.speed_m_s.shape[0] != n or not np.allclose(ideal.distance_m, line.distance_m):
+    if ideal.speed_m_s.shape[0] != line.n or not np.allclose(ideal.distance_m, line.distance_m):
         raise LimitlapError("the ideal profile is not on the real lap's stations")
     k = float(ideal.grip_scale if grip_scale is None else grip_scale)
     env = vehicle.scaled(k) if k != 1.0 else vehicle.require_complete()
-    length = float(line.length_m)
     sin_grad = np.asarray(line.gradient) / np.sqrt(1.0 + np.asarray(line.gradient) ** 2)
-
-    t_act, lap_act = _elapsed(driven)
+    t_act, lap_act = elapsed_from_gate(driven)
     v_act, ax_act, ay_act = _driven_channels(driven, line)
-    brake = _optional_channel(driven, "brake_pa")
-    throttle = _optional_channel(driven, "throttle")
-    brake_thr = None
-    if brake is not None:
-        p99 = float(np.nanquantile(brake, 0.99))
-        if not p99 > 0:  # braking on under 1 % of the lap: take the highest pressure
-            p99 = float(np.nanmax(brake))
-        brake_thr = BRAKE_PRESSURE_SHARE * p99 if p99 > 0 else None
-    usage_act = limits.combined_usage(v_act, ax_act, ay_act, env, sin_grad)
-    actual = _Trace(
-        line.distance_m,
-        length,
-        line.closed,
-        t_act,
-        lap_act,
-        v_act,
-        ax_act,
-        ay_act,
-        _drive_accel_available(v_act, ay_act, env, sin_grad),
-        brake=brake if brake_thr is not None else None,
-        throttle=throttle,
-        usage=usage_act,
-        dwell=np.asarray(line.ds_m, dtype=np.float64) / np.maximum(v_act, 0.1),
+    actual, brake_thr, has_throttle = _actual_trace(
+        driven, env, sin_grad, (t_act, lap_act, v_act, ax_act, ay_act)
     )
-    v_id = ideal.speed_m_s
-    ax_id = station_accel(ideal, line.closed)
-    usage_id = limits.combined_usage(v_id, ax_id, ideal.accel_lat_m_s2, env, sin_grad)
-    best = _Trace(
-        line.distance_m,
-        length,
-        line.closed,
-        ideal.time_s,
-        ideal.lap_time_s,
-        v_id,
-        ax_id,
-        ideal.accel_lat_m_s2,
-        _drive_accel_available(v_id, ideal.accel_lat_m_s2, env, sin_grad),
-        usage=usage_id,
-    )
+    best = _ideal_trace(ideal, line, env, sin_grad)
 
     if grip_estimate is None or corner_grip_estimates is None:
         est_all, est_seg = _grip_estimates(
@@ -1199,88 +743,150 @@ def compare_lap(
         if corner_grip_estimates is None:
             corner_grip_estimates = est_seg
     grips = _per_corner_values(corner_grip_estimates, corners, "corner grip estimates")
-    bounds = _unwrapped_bounds(corners, length, line.closed)
-    rows = []
-    for c, (start_u, apex_u, end_u, lo, hi), g in zip(corners, bounds, grips, strict=True):
-        end_mod = c.end_m
-        a_s = actual.time_at_mod(end_mod) - actual.time_at_mod(c.start_m)
-        i_s = best.time_at_mod(end_mod) - best.time_at_mod(c.start_m)
-        if line.closed and c.end_m <= c.start_m:
-            a_s += actual.lap_time
-            i_s += best.lap_time
-        zone = _zone_u(c, start_u, length, line.closed)
-        ma = _corner_markers(
-            actual, lo, start_u, end_u, hi, brake_thr, throttle is not None, zone, apex_u
-        )
-        mi = _corner_markers(
-            best, lo, start_u, end_u, hi, None, False, zone, apex_u, profile_brake=True
-        )
-        # Phases cut where the ideal stops braking and where it reaches full drive.
-        cut_a = mi.brake_end
-        if not math.isfinite(cut_a):
-            cut_a = _unwrap_after(c.turn_in_m, start_u, length, line.closed)
-        cut_b = mi.full_drive
-        if not math.isfinite(cut_b):
-            cut_b = _unwrap_after(c.exit_m, start_u, length, line.closed)
-        cut_a = min(max(cut_a, start_u), end_u)
-        cut_b = min(max(cut_b, cut_a), end_u)
-
-        def left(u0, u1):
-            return (actual.time_at(u1) - actual.time_at(u0)) - (best.time_at(u1) - best.time_at(u0))
-
-        raw = _grip_used(actual, best, start_u, end_u)
-        later = mi.brake_start - ma.brake_start
-        sooner = ma.full_drive - mi.full_drive
-        rows.append(
-            dict(
-                name=c.name,
-                direction=c.direction,
-                start_m=c.start_m,
-                apex_m=c.apex_m,
-                apexes_m=c.apexes_m,
-                end_m=c.end_m,
-                turn_in_m=c.turn_in_m,
-                exit_m=c.exit_m,
-                actual_s=a_s,
-                ideal_s=i_s,
-                time_left_s=a_s - i_s,
-                time_left_braking_s=left(start_u, cut_a),
-                time_left_mid_s=left(cut_a, cut_b),
-                time_left_exit_s=left(cut_b, end_u),
-                min_speed_actual_m_s=ma.min_speed,
-                min_speed_actual_at_m=_mod(ma.min_at, length, line.closed),
-                min_speed_ideal_m_s=mi.min_speed,
-                min_speed_ideal_at_m=_mod(mi.min_at, length, line.closed),
-                brake_start_actual_m=_mod(ma.brake_start, length, line.closed),
-                brake_start_ideal_m=_mod(mi.brake_start, length, line.closed),
-                brake_later_m=later,
-                full_drive_actual_m=_mod(ma.full_drive, length, line.closed),
-                full_drive_ideal_m=_mod(mi.full_drive, length, line.closed),
-                full_drive_sooner_m=sooner,
-                peak_accel_lat_actual_m_s2=ma.peak_lat,
-                peak_accel_lat_ideal_m_s2=mi.peak_lat,
-                grip_used=min(max(raw, 0.0), 1.0) if math.isfinite(raw) else math.nan,
-                grip_used_raw=raw,
-                grip_estimate=g,
-                advice=advice_line(c.name, a_s - i_s, later, mi.min_speed - ma.min_speed, sooner),
-            )
-        )
+    bounds = _unwrapped_bounds(corners, actual.length, line.closed)
+    rows = [
+        _corner_row(c, bound, g, actual, best, brake_thr, has_throttle)
+        for c, bound, g in zip(corners, bounds, grips, strict=True)
+    ]
     order = sorted(range(len(rows)), key=lambda i: -rows[i]["time_left_s"])
     for r, i in enumerate(order):
         rows[i]["rank"] = r + 1
-    delta = t_act - np.asarray(ideal.time_s, dtype=np.float64)
     return LapComparison(
         distance_m=np.asarray(line.distance_m, dtype=np.float64).copy(),
-        length_m=length,
+        length_m=actual.length,
         speed_actual_m_s=v_act,
-        speed_ideal_m_s=np.asarray(v_id, dtype=np.float64).copy(),
-        time_delta_s=delta,
+        speed_ideal_m_s=np.asarray(ideal.speed_m_s, dtype=np.float64).copy(),
+        time_delta_s=t_act - np.asarray(ideal.time_s, dtype=np.float64),
         lap_time_s=lap_act,
         ideal_lap_time_s=float(ideal.lap_time_s),
         time_left_s=lap_act - float(ideal.lap_time_s),
         grip_scale=k,
         grip_estimate=None if grip_estimate is None else float(grip_estimate),
         corners=tuple(CornerComparison(**r) for r in rows),
+    )
+
+
+def _brake_threshold(brake):
+    """Brake pressure that counts as braking: a share of the lap's 99th percentile. [Pa]"""
+    if brake is None:
+        return None
+    p99 = float(np.nanquantile(brake, 0.99))
+    if not p99 > 0:  # braking on under 1 % of the lap: take the highest pressure
+        p99 = float(np.nanmax(brake))
+    return BRAKE_PRESSURE_SHARE * p99 if p99 > 0 else None
+
+
+def _actual_trace(driven, env: Vehicle, sin_grad, channels):
+    """The real lap as a :class:`_Trace`, its brake threshold [Pa] and whether it has throttle.
+
+    ``channels`` are the elapsed time from the gate per station and the lap time
+    (:func:`limitlap.driven.elapsed_from_gate`) [s], then speed [m/s] and longitudinal
+    and lateral acceleration [m/s²] per station.
+    """
+    line = driven.line
+    t_act, lap_act, v_act, ax_act, ay_act = channels
+    brake = _optional_channel(driven, "brake_pa")
+    throttle = _optional_channel(driven, "throttle")
+    brake_thr = _brake_threshold(brake)
+    trace = _Trace(
+        line.distance_m,
+        float(line.length_m),
+        line.closed,
+        t_act,
+        lap_act,
+        v_act,
+        ax_act,
+        ay_act,
+        _drive_accel_available(v_act, ay_act, env, sin_grad),
+        brake=brake if brake_thr is not None else None,
+        throttle=throttle,
+        usage=limits.combined_usage(v_act, ax_act, ay_act, env, sin_grad),
+        dwell=np.asarray(line.ds_m, dtype=np.float64) / np.maximum(v_act, 0.1),
+    )
+    return trace, brake_thr, throttle is not None
+
+
+def _ideal_trace(ideal: Profile, line: Line, env: Vehicle, sin_grad) -> _Trace:
+    """The ideal profile as a :class:`_Trace` on the real lap's stations."""
+    v_id = ideal.speed_m_s
+    ax_id = station_accel(ideal, line.closed)
+    return _Trace(
+        line.distance_m,
+        float(line.length_m),
+        line.closed,
+        ideal.time_s,
+        ideal.lap_time_s,
+        v_id,
+        ax_id,
+        ideal.accel_lat_m_s2,
+        _drive_accel_available(v_id, ideal.accel_lat_m_s2, env, sin_grad),
+        usage=limits.combined_usage(v_id, ax_id, ideal.accel_lat_m_s2, env, sin_grad),
+    )
+
+
+def _phase_cuts(c: Corner, mi, start_u: float, end_u: float, length: float, closed: bool):
+    """Where the ideal stops braking and where it reaches full drive (unwrapped). [m]"""
+    cut_a = mi.brake_end
+    if not math.isfinite(cut_a):
+        cut_a = _unwrap_after(c.turn_in_m, start_u, length, closed)
+    cut_b = mi.full_drive
+    if not math.isfinite(cut_b):
+        cut_b = _unwrap_after(c.exit_m, start_u, length, closed)
+    cut_a = min(max(cut_a, start_u), end_u)
+    return cut_a, min(max(cut_b, cut_a), end_u)
+
+
+def _corner_row(c: Corner, bound, g, actual: _Trace, best: _Trace, brake_thr, has_throttle):
+    """One corner's comparison as the fields of :class:`CornerComparison` (rank aside)."""
+    start_u, apex_u, end_u, lo, hi = bound
+    length, closed = actual.length, actual.closed
+    a_s = actual.time_at_mod(c.end_m) - actual.time_at_mod(c.start_m)
+    i_s = best.time_at_mod(c.end_m) - best.time_at_mod(c.start_m)
+    if closed and c.end_m <= c.start_m:
+        a_s += actual.lap_time
+        i_s += best.lap_time
+    zone = _zone_u(c, start_u, length, closed)
+    ma = _corner_markers(actual, lo, start_u, end_u, hi, brake_thr, has_throttle, zone, apex_u)
+    mi = _corner_markers(best, lo, start_u, end_u, hi, None, False, zone, apex_u, profile_brake=True)
+    cut_a, cut_b = _phase_cuts(c, mi, start_u, end_u, length, closed)
+
+    def left(u0, u1):
+        return (actual.time_at(u1) - actual.time_at(u0)) - (best.time_at(u1) - best.time_at(u0))
+
+    raw = _grip_used(actual, best, start_u, end_u)
+    later = mi.brake_start - ma.brake_start
+    sooner = ma.full_drive - mi.full_drive
+    return dict(
+        name=c.name,
+        direction=c.direction,
+        start_m=c.start_m,
+        apex_m=c.apex_m,
+        apexes_m=c.apexes_m,
+        end_m=c.end_m,
+        turn_in_m=c.turn_in_m,
+        exit_m=c.exit_m,
+        actual_s=a_s,
+        ideal_s=i_s,
+        time_left_s=a_s - i_s,
+        time_left_braking_s=left(start_u, cut_a),
+        time_left_mid_s=left(cut_a, cut_b),
+        time_left_exit_s=left(cut_b, end_u),
+        min_speed_actual_m_s=ma.min_speed,
+        min_speed_actual_at_m=_mod(ma.min_at, length, closed),
+        min_speed_ideal_m_s=mi.min_speed,
+        min_speed_ideal_at_m=_mod(mi.min_at, length, closed),
+        brake_start_actual_m=_mod(ma.brake_start, length, closed),
+        brake_start_ideal_m=_mod(mi.brake_start, length, closed),
+        brake_later_m=later,
+        full_drive_actual_m=_mod(ma.full_drive, length, closed),
+        full_drive_ideal_m=_mod(mi.full_drive, length, closed),
+        full_drive_sooner_m=sooner,
+        peak_accel_lat_actual_m_s2=ma.peak_lat,
+        peak_accel_lat_ideal_m_s2=mi.peak_lat,
+        grip_used=min(max(raw, 0.0), 1.0) if math.isfinite(raw) else math.nan,
+        grip_used_raw=raw,
+        grip_estimate=g,
+        advice=advice_line(c.name, a_s - i_s, later, mi.min_speed - ma.min_speed, sooner),
     )
 
 
@@ -1347,215 +953,3 @@ def _mod(u, length, closed):
     if not math.isfinite(u):
         return math.nan
     return float(np.mod(u, length)) if closed else float(u)
-
-
-def segment_index(distance_m, length_m: float, corners: Sequence[Corner], closed=True):
-    """Segment number (position in ``corners``) of each distance; -1 in none.
-
-    Parameters
-    ----------
-    distance_m : array-like
-        Distances from the gate. [m]
-    length_m : float
-        Lap length. [m]
-    corners : sequence of Corner
-        Segments that tile the lap.
-    closed : bool
-        A lap: the segment with ``start_m >= end_m`` runs through the gate.
-
-    Returns
-    -------
-    numpy.ndarray of int
-        Index per distance; every station of a tiled lap gets exactly one. [-]
-    """
-    d = np.asarray(distance_m, dtype=np.float64)
-    out = np.full(d.shape, -1, dtype=np.int64)
-    for j, c in enumerate(corners):
-        if closed:
-            span = c.end_m - c.start_m if c.end_m > c.start_m else c.end_m + length_m - c.start_m
-            inside = np.mod(d - c.start_m, length_m) < span
-        else:
-            inside = (d >= c.start_m) & ((d < c.end_m) | ((j == len(corners) - 1) & (d <= c.end_m)))
-        out[inside & (out < 0)] = j
-    return out
-
-
-# ----------------------------------------------------------------------------------
-# Best of the session's own laps
-# ----------------------------------------------------------------------------------
-
-
-@dataclass(frozen=True, eq=False)
-class BestOfLaps:
-    """Each segment's best time over a session's complete laps (SI).
-
-    Attributes
-    ----------
-    names : tuple of str
-        Segment (corner) names in driving order.
-    lap_numbers : tuple of int
-        The laps compared, in the order of the rows of ``segment_times_s``.
-    segment_times_s : numpy.ndarray
-        Segment time per lap and segment, shape (laps, segments). [s]
-    best_s : numpy.ndarray
-        Best time per segment. [s]
-    best_lap : tuple of int
-        Lap number that set each best.
-    composite_lap_time_s : float
-        Sum of the best segment times. [s]
-    lap_times_s : numpy.ndarray
-        Each lap's time (the sum of its segments). [s]
-    ideal_s : numpy.ndarray or None
-        The ideal's segment times, when an ideal profile was given. [s]
-    ideal_lap_time_s : float or None
-        The ideal lap time. [s]
-    """
-
-    names: tuple[str, ...]
-    lap_numbers: tuple[int, ...]
-    segment_times_s: np.ndarray
-    best_s: np.ndarray
-    best_lap: tuple[int, ...]
-    composite_lap_time_s: float
-    lap_times_s: np.ndarray
-    ideal_s: np.ndarray | None = None
-    ideal_lap_time_s: float | None = None
-
-    def summary_dict(self) -> dict:
-        """Plain record for summary.json (SI, unrounded)."""
-        segs = []
-        for j, name in enumerate(self.names):
-            row = {"name": name, "best_s": float(self.best_s[j]), "lap": self.best_lap[j]}
-            if self.ideal_s is not None:
-                row["ideal_s"] = float(self.ideal_s[j])
-            segs.append(row)
-        return {
-            "composite_time_s": self.composite_lap_time_s,
-            "ideal_time_s": self.ideal_lap_time_s,
-            "laps": list(self.lap_numbers),
-            "segments": segs,
-        }
-
-
-def segment_times(distance_m, length_m, elapsed_s, lap_time_s, corners, scale=1.0):
-    """Time spent in each corner's segment, bounds scaled by ``scale`` (closed lap).
-
-    Parameters
-    ----------
-    distance_m : array-like
-        Stations from the gate. [m]
-    length_m : float
-        Lap length. [m]
-    elapsed_s : array-like
-        Elapsed time at each station from the gate. [s]
-    lap_time_s : float
-        Time back to the gate. [s]
-    corners : sequence of Corner
-        Segments on the reference line.
-    scale : float
-        Factor from the reference line's distances to this lap's (length ratio). [-]
-
-    Returns
-    -------
-    numpy.ndarray
-        Segment times, adding up to ``lap_time_s``. [s]
-    """
-    s = np.append(np.asarray(distance_m, dtype=np.float64), length_m)
-    t = np.append(np.asarray(elapsed_s, dtype=np.float64) - elapsed_s[0], lap_time_s)
-    starts = np.array([c.start_m for c in corners]) * scale
-    ends = np.array([c.end_m for c in corners]) * scale
-    wraps = np.array([c.end_m <= c.start_m for c in corners])
-    out = np.interp(ends, s, t) - np.interp(starts, s, t)
-    return out + np.where(wraps, lap_time_s, 0.0)
-
-
-def best_of_laps(
-    laps: Sequence,
-    corners: Sequence[Corner],
-    *,
-    reference_length_m: float,
-    lap_numbers: Sequence[int] | None = None,
-    ideal: Profile | None = None,
-    ideal_length_m: float | None = None,
-) -> BestOfLaps:
-    """Composite of each segment's best time over the complete laps of a session.
-
-    Parameters
-    ----------
-    laps : sequence of DrivenLap or pipeline.LapTimeline
-        Complete laps (``line``, ``time_s``, ``speed_m_s``; optional ``lap_time_s``), or
-        records with ``distance_m``, ``length_m``, ``time_s`` and ``lap_time_s`` in place
-        of a line.
-    corners : sequence of Corner
-        Segments found on the reference lap's line.
-    reference_length_m : float
-        Length of the line the corners were found on. [m]
-    lap_numbers : sequence of int, optional
-        Lap numbers; default 1, 2, ...
-    ideal : Profile, optional
-        The ideal on the reference line, for its segment times beside the composite.
-    ideal_length_m : float, optional
-        Length of the ideal's line; default ``reference_length_m``. [m]
-
-    Returns
-    -------
-    BestOfLaps
-
-    Notes
-    -----
-    Laps' measured lengths differ by a few metres, so the reference bounds are mapped
-    to each lap by distance fraction (bound × lap length / reference length).
-    """
-    if not laps:
-        raise LimitlapError("no complete laps to build the best-of-laps composite from")
-    if not corners:
-        raise LimitlapError("no corners to split the laps into segments")
-    numbers = (
-        tuple(range(1, len(laps) + 1))
-        if lap_numbers is None
-        else tuple(int(x) for x in lap_numbers)
-    )
-    if len(numbers) != len(laps):
-        raise LimitlapError(f"{len(numbers)} lap numbers given for {len(laps)} laps")
-    rows = []
-    totals = []
-    for lap in laps:
-        t, total = _elapsed(lap)
-        line = getattr(lap, "line", lap)  # a timeline carries distance_m and length_m itself
-        rows.append(
-            segment_times(
-                line.distance_m,
-                line.length_m,
-                t,
-                total,
-                corners,
-                line.length_m / reference_length_m,
-            )
-        )
-        totals.append(total)
-    table = np.vstack(rows)
-    j_best = np.argmin(table, axis=0)
-    best = table[j_best, np.arange(table.shape[1])]
-    ideal_s = ideal_total = None
-    if ideal is not None:
-        lref = reference_length_m if ideal_length_m is None else ideal_length_m
-        ideal_s = segment_times(
-            ideal.distance_m,
-            lref,
-            ideal.time_s,
-            ideal.lap_time_s,
-            corners,
-            lref / reference_length_m,
-        )
-        ideal_total = float(ideal.lap_time_s)
-    return BestOfLaps(
-        names=tuple(c.name for c in corners),
-        lap_numbers=numbers,
-        segment_times_s=table,
-        best_s=best,
-        best_lap=tuple(numbers[j] for j in j_best),
-        composite_lap_time_s=float(best.sum()),
-        lap_times_s=np.asarray(totals),
-        ideal_s=ideal_s,
-        ideal_lap_time_s=ideal_total,
-    )

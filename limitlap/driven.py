@@ -634,3 +634,21 @@ def line_csv_text(line: Line) -> str:
     header = "x [m],y [m]" + (",z [m]" if line.z_m is not None else "")
     body = "\n".join(",".join(f"{v:.3f}" for v in row) for row in np.column_stack(cols))
     return header + "\n" + body + "\n"
+
+
+def elapsed_from_gate(driven):
+    """Elapsed time from the gate at each station, and the lap time. [s]"""
+    t = np.asarray(driven.time_s, dtype=np.float64)
+    if not np.isfinite(t).all():
+        raise LimitlapError("the real lap's time has gaps")
+    t = t - t[0]
+    lap_time = getattr(driven, "lap_time_s", None)
+    if lap_time is None:
+        line = driven.line
+        v = np.asarray(driven.speed_m_s, dtype=np.float64)
+        v_end = 0.5 * (v[-1] + v[0]) if np.isfinite(v[[0, -1]]).all() else math.nan
+        step = line.ds_m[-1] if line.closed else 0.0
+        if step > 0 and not (v_end > 0):
+            raise LimitlapError("the real lap has no speed at the gate to close the lap time")
+        lap_time = t[-1] + (step / v_end if step > 0 else 0.0)
+    return t, float(lap_time)

@@ -25,7 +25,8 @@ from pathlib import Path
 
 import numpy as np
 
-from limitlap import compare, envelope, ingest, solve
+from limitlap import best_laps, compare, envelope, ingest, solve
+from limitlap import corners as corners_mod
 from limitlap import driven as driven_mod
 from limitlap import laps as laps_mod
 from limitlap.errors import InputError, LimitlapError
@@ -63,8 +64,8 @@ class Analysis:
     grip_estimate : float or None
         Grip scale the lap actually used, relative to ``vehicle``. [-]
     comparison : compare.LapComparison
-    corners : list of compare.Corner
-    best_of_laps : compare.BestOfLaps or None
+    corners : list of corners_mod.Corner
+    best_of_laps : best_laps.BestOfLaps or None
     complete_laps : list of LapTimeline
         Elapsed time against distance for every complete lap (what the composite is
         built from); only the analysed lap's line is rebuilt, in ``driven``.
@@ -100,7 +101,7 @@ class Analysis:
 class LapTimeline:
     """Elapsed time against distance along one complete lap, gate to gate (all SI).
 
-    What the best-of-laps composite needs from a lap (``compare.best_of_laps`` maps the
+    What the best-of-laps composite needs from a lap (``best_laps.best_of_laps`` maps the
     reference corners to it by distance fraction), without rebuilding its line.
 
     Attributes
@@ -379,7 +380,7 @@ def analyse(
         warnings += [w for w in the_lap.warnings if w not in warnings]
         names = list(trk.corner_names) if trk is not None and trk.corner_names else None
         apexes = list(trk.corner_apexes_m) if names is not None else None
-        corners = compare.find_corners(the_lap.line, names, apexes_m=apexes)
+        corners = corners_mod.find_corners(the_lap.line, names, apexes_m=apexes)
         timelines = lap_timelines(log, [lp for lp in complete if lp is not chosen])
 
         _step(progress, 2, total, "fitting the grip envelope")
@@ -433,7 +434,7 @@ def analyse(
     complete_laps = [timelines[lp.number] for lp in complete]
     best = None
     if len(complete) >= 1:
-        best = compare.best_of_laps(
+        best = best_laps.best_of_laps(
             complete_laps,
             corners,
             reference_length_m=the_lap.line.length_m,

@@ -571,7 +571,7 @@ def _array(obj, name, n):
 def _best_of_laps(best, corners):
     """Total of the own-best composite; adds ``best_s`` and ``best_lap`` to the corners.
 
-    Takes :class:`limitlap.compare.BestOfLaps` (``names``, ``best_s``, ``best_lap``,
+    Takes :class:`limitlap.best_laps.BestOfLaps` (``names``, ``best_s``, ``best_lap``,
     ``composite_lap_time_s``) or a record with a ``segments`` list of
     ``{name, best_s, lap}``.
     """

@@ -18,7 +18,6 @@ from dataclasses import dataclass
 import numpy as np
 
 from limitlap.compare import (
-    Corner,
     _corner_markers,
     _drive_accel_available,
     _min_speed,
@@ -27,9 +26,9 @@ from limitlap.compare import (
     _unwrap_after,
     _unwrapped_bounds,
     _zone_u,
-    find_corners,
     station_accel,
 )
+from limitlap.corners import Corner, find_corners
 from limitlap.errors import LimitlapError
 from limitlap.line import Line
 from limitlap.solve import Profile, solve_profile
@@ -178,7 +177,7 @@ def target_table(
     grip_scale : float
         Grip scale k, 0.2-2.0. [-]
     corners : sequence of Corner, optional
-        Default :func:`limitlap.compare.find_corners` on ``line``; pass the same list
+        Default :func:`limitlap.corners.find_corners` on ``line``; pass the same list
         to every condition so the tables line up.
     label : str, optional
         Condition name to carry.
@@ -275,7 +274,7 @@ def target_tables(
     conditions : sequence of str or float
         Condition names ('dry', 'damp', 'wet') or grip scales. [-]
     corners : sequence of Corner, optional
-        Default :func:`limitlap.compare.find_corners` on ``line``.
+        Default :func:`limitlap.corners.find_corners` on ``line``.
     named : mapping, optional
         Names to grip scales, overriding :data:`CONDITIONS`. [-]
 

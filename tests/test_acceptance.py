@@ -20,7 +20,8 @@ import math
 import numpy as np
 import pytest
 
-from limitlap import compare, laps, pipeline, report, synth
+from limitlap import best_laps, laps, pipeline, report, synth
+from limitlap import corners as corners_mod
 
 SEED_DRY, SEED_WET, SEED_LIMIT = 3, 4, 5
 ENVELOPES = ["fitted", "true"]  # envelope fitted from the log (no vehicle file) / true car
@@ -54,7 +55,7 @@ def _planted_rows(analysis, truth):
     """The analysed corner whose segment holds each planted apex (by distance fraction)."""
     cmp_ = analysis.comparison
     scale = cmp_.length_m / truth.line.length_m
-    seg = compare.segment_index(
+    seg = corners_mod.segment_index(
         [m.apex_m * scale for m in truth.mistakes], cmp_.length_m, analysis.corners
     )
     return {m.corner: cmp_.corners[j] for m, j in zip(truth.mistakes, seg.tolist(), strict=True)}
@@ -68,7 +69,7 @@ def _segment_truth(analysis, truth):
     s = truth.line.distance_m
 
     def split(profile):
-        return compare.segment_times(
+        return best_laps.segment_times(
             s, truth.line.length_m, profile.time_s, profile.lap_time_s, analysis.corners, scale
         )
 

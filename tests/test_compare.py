@@ -13,7 +13,8 @@ from dataclasses import dataclass
 import numpy as np
 import pytest
 
-from limitlap import compare, solve
+from limitlap import best_laps, compare, solve
+from limitlap import corners as corners_mod
 from limitlap.errors import LimitlapError
 from limitlap.line import Line, line_from_curvature
 from limitlap.units import G0_M_S2, KMH_TO_M_S
@@ -75,7 +76,7 @@ def capped(line, arc, v_cap):
 @pytest.fixture(scope="module")
 def lap():
     line, arcs = build(LAYOUT)
-    return line, arcs, compare.find_corners(line), solve.solve_profile(line, CAR)
+    return line, arcs, corners_mod.find_corners(line), solve.solve_profile(line, CAR)
 
 
 def test_corners_found_in_driving_order_with_double_apex(lap):
@@ -107,12 +108,12 @@ def test_apexes_at_arcs_of_smallest_speed_limit():
         (80.0, 290.0, +1),
     ]
     line, arcs = build(layout)
-    corners = compare.find_corners(line)
+    corners = corners_mod.find_corners(line)
     assert len(corners) == 3
     for car in (CAR, EXAMPLE_CAR):
         v_lim = solve.cornering_speed_limit(line.curvature_1_m, car)
         for c in corners:
-            zone = compare.segment_index(line.distance_m, line.length_m, [c]) == 0
+            zone = corners_mod.segment_index(line.distance_m, line.length_m, [c]) == 0
             slowest = line.distance_m[zone & (v_lim <= v_lim[zone].min() * (1 + 1e-12))]
             gap = np.abs(
                 (slowest - c.apex_m + line.length_m / 2) % line.length_m - line.length_m / 2
@@ -139,7 +140,7 @@ def test_segments_tile_the_lap_and_time_left_adds_up(lap):
         ]
     )
     assert (member.sum(axis=0) == 1).all()
-    assert (compare.segment_index(line.distance_m, line.length_m, corners) >= 0).all()
+    assert (corners_mod.segment_index(line.distance_m, line.length_m, corners) >= 0).all()
     # One segment runs through the gate (boundary halfway along the first straight).
     assert sum(c.start_m > c.end_m for c in corners) == 1
     # REFERENCES T1.10 / INTERFACE §5: the corners' time left adds up to the lap's,
@@ -164,8 +165,8 @@ def test_rotated_gate_keeps_corners_and_times():
     # them now straddling the gate, and the segments still tile the lap.
     line0, _ = build(LAYOUT)
     line1, _ = build(LAYOUT, rotate_m=230.0)
-    c0 = compare.find_corners(line0)
-    c1 = compare.find_corners(line1)
+    c0 = corners_mod.find_corners(line0)
+    c1 = corners_mod.find_corners(line1)
     assert len(c0) == len(c1)
     apex0 = sorted((c.apex_m - 230.0) % line0.length_m for c in c0)
     assert sorted(c.apex_m for c in c1) == pytest.approx(apex0, abs=DS)  # one station
@@ -295,9 +296,9 @@ def test_summary_dict_has_the_interface_keys(lap):
 def test_names_given_and_wrong_count():
     line, _ = build(LAYOUT)
     names = ["Gate bend", "Double", "Kink right", "Long left", "Last"]
-    assert [c.name for c in compare.find_corners(line, names)] == names
+    assert [c.name for c in corners_mod.find_corners(line, names)] == names
     with pytest.raises(LimitlapError, match="5 corners"):
-        compare.find_corners(line, names[:3])
+        corners_mod.find_corners(line, names[:3])
 
 
 def test_advice_line_wording():
@@ -328,7 +329,7 @@ def test_best_of_laps_composite(lap):
         line.distance_m * 1.003, line.curvature_1_m / 1.003, length_m=line.length_m * 1.003
     )
     b = solve.solve_profile(long_line, CAR, speed_cap_m_s=capped(line, arcs[4], 18.0))
-    best = compare.best_of_laps(
+    best = best_laps.best_of_laps(
         [driven_from(a, line), driven_from(b, long_line)],
         corners,
         reference_length_m=line.length_m,
@@ -358,7 +359,7 @@ def test_names_matched_by_apex_with_a_missed_fast_bend():
     line, arcs = build(layout)
     mid = [0.5 * (a + b) for a, b, _ in arcs]
     names = ["Gate bend", "Double", "Double b", "Kink right", "Long left", "Fast"]
-    corners = compare.find_corners(line, names, apexes_m=mid[:6])
+    corners = corners_mod.find_corners(line, names, apexes_m=mid[:6])
     assert [c.name for c in corners] == [
         "Gate bend",
         "Double",
@@ -371,7 +372,7 @@ def test_names_matched_by_apex_with_a_missed_fast_bend():
     assert abs(fast.apex_m - mid[5]) <= DS  # where the track file puts it (one station)
     assert len(corners[1].apexes_m) == 2
     # Still a tiling: every station in one segment.
-    seg = compare.segment_index(line.distance_m, line.length_m, corners)
+    seg = corners_mod.segment_index(line.distance_m, line.length_m, corners)
     assert (seg >= 0).all()
 
 
@@ -407,7 +408,7 @@ TIGHTENING = [
 
 def test_brake_point_of_a_tightening_corner_is_where_the_speed_starts_falling():
     line, arcs = build(TIGHTENING)
-    corners = compare.find_corners(line)
+    corners = corners_mod.find_corners(line)
     ideal = solve.solve_profile(line, CAR)
     mu, mu_b, mu_t = 1.2, 1.3, 1.1
     # Closed form: leaving the R=120 m arc at the gate at sqrt(mu g 120), accelerating

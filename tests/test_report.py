@@ -24,7 +24,8 @@ from pathlib import Path
 import numpy as np
 import pytest
 
-from limitlap import compare, figures, report, targets
+from limitlap import best_laps, compare, figures, report, targets
+from limitlap import corners as corners_mod
 from limitlap.errors import InputError
 from limitlap.ingest import read_vehicle
 from limitlap.line import line_from_xy
@@ -83,12 +84,12 @@ def make_analysis():
     x, y = _loop_xy()
     line = line_from_xy(x, y, spacing_m=2.0)
     ideal = solve_profile(line, CAR)
-    corners = compare.find_corners(line)
+    corners = corners_mod.find_corners(line)
     planted = {0: 0.86, 2: 0.9, 3: 0.92}  # lower minimum speeds in three corners
     driven = _lap(line, 0.95, planted, corners, ideal, 431.7)
     other = _lap(line, 0.97, {0: 0.95, 2: 0.8}, corners, ideal, 500.0)
     comparison = compare.compare_lap(driven, ideal, CAR, corners, grip_estimate=0.95)
-    best = compare.best_of_laps(
+    best = best_laps.best_of_laps(
         [driven, other], corners, reference_length_m=line.length_m, lap_numbers=[3, 4], ideal=ideal
     )
     ns = types.SimpleNamespace
@@ -132,7 +133,7 @@ def written(analysis, tmp_path_factory):
 def _conditions():
     x, y = _loop_xy()
     line = line_from_xy(x, y, spacing_m=2.0)
-    corners = compare.find_corners(line)
+    corners = corners_mod.find_corners(line)
     return [
         targets.target_table(line, CAR, k, corners, label=lab)
         for lab, k in (("dry", 1.0), ("wet", 0.74))

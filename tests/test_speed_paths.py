@@ -22,7 +22,8 @@ from dataclasses import replace
 import numpy as np
 import pytest
 
-from limitlap import _kernels, compare, envelope, ingest, pipeline, synth
+from limitlap import _kernels, best_laps, envelope, ingest, pipeline, synth
+from limitlap import corners as corners_mod
 from limitlap.laps import Gate, split_laps
 from limitlap.limits import combined_usage
 from limitlap.solve import vehicle_array
@@ -96,9 +97,9 @@ def test_best_of_laps_takes_timelines(session_and_log):
     ref = timelines[0]
     seg = [(0.0, 0.3), (0.3, 0.7), (0.7, 1.0)]
     corners = [_Segment(a * ref.length_m, b * ref.length_m, f"S{i}") for i, (a, b) in enumerate(seg)]
-    best = compare.best_of_laps(timelines, corners, reference_length_m=ref.length_m)
+    best = best_laps.best_of_laps(timelines, corners, reference_length_m=ref.length_m)
     for row, tl in zip(best.segment_times_s, timelines, strict=True):
-        expect = compare.segment_times(
+        expect = best_laps.segment_times(
             tl.distance_m, tl.length_m, tl.time_s, tl.lap_time_s, corners, tl.length_m / ref.length_m
         )
         assert np.array_equal(row, expect)
@@ -293,7 +294,7 @@ def test_self_crossing_sweep_matches_all_pairs():
 
 
 def test_peak_prominences_match_scipy_find_peaks():
-    # compare.peak_prominences replaces scipy.signal.find_peaks(x, prominence=0) (whose
+    # corners_mod.peak_prominences replaces scipy.signal.find_peaks(x, prominence=0) (whose
     # import costs the command line half a second): the same peaks, plateaus included, and
     # the same prominences, exactly, on random, quantised and stepped series.
     from scipy.signal import find_peaks
@@ -306,7 +307,7 @@ def test_peak_prominences_match_scipy_find_peaks():
             x = np.round(x * 4) / 4
         elif t % 3 == 1:
             x = np.repeat(np.round(rng.random(max(n // 3, 1)) * 5), 3)
-        peaks, prominences = compare.peak_prominences(x)
+        peaks, prominences = corners_mod.peak_prominences(x)
         want, props = find_peaks(x, prominence=0.0)
         assert np.array_equal(peaks, want)
         assert np.array_equal(prominences, props["prominences"])

@@ -6,7 +6,8 @@ import math
 
 import pytest
 
-from limitlap import compare, solve, targets
+from limitlap import corners as corners_mod
+from limitlap import solve, targets
 from limitlap.errors import LimitlapError
 from limitlap.units import KMH_TO_M_S, RHO_ISA_KG_M3
 from limitlap.vehicle import Vehicle
@@ -28,7 +29,7 @@ def line():
 
 @pytest.fixture(scope="module")
 def corners(line):
-    return compare.find_corners(line)
+    return corners_mod.find_corners(line)
 
 
 def test_lap_time_ratios_within_the_grip_scale_bounds(line, corners):
