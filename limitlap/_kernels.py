@@ -704,7 +704,7 @@ def _block_extremes(x, block):
 
 @njit(cache=True, nogil=True)
 def despike(x, width, threshold):
-    """Kernel of ``limitlap.envelope.select_samples``' spike test, in place.
+    """Kernel of ``limitlap.samples.select_samples``' spike test, in place.
 
     A sample further than ``threshold`` from the running median of ``width`` samples
     (odd; centred, edges repeating the end values: ``scipy.ndimage.median_filter``'s

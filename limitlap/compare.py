@@ -26,7 +26,7 @@ from limitlap.driven import elapsed_from_gate
 from limitlap.errors import LimitlapError
 from limitlap.line import Line
 from limitlap.solve import Profile
-from limitlap.units import G0_M_S2, KMH_TO_M_S
+from limitlap.units import KMH_TO_M_S
 from limitlap.vehicle import Vehicle
 
 # --- Defaults of the per-corner markers (common practice, no published source) ---
@@ -124,23 +124,6 @@ class _Trace:
     def window(self, lo, hi):
         """Index range [i0, i1) of stations with lo <= u < hi."""
         return int(np.searchsorted(self.u, lo, "left")), int(np.searchsorted(self.u, hi, "left"))
-
-
-def _drive_accel_available(speed_m_s, accel_lat_m_s2, vehicle: Vehicle, sin_grad):
-    r"""Forward acceleration the envelope allows with the lateral demand, as the solver.
-
-    :math:`a = (\min(\mu_t N (1-u^n)^{1/n}, P/v) - R)/m - g\sin\theta`,
-    :math:`u = m|a_y|/(\mu_y N)` (INTERFACE §3 combined law). [m/s²]
-    """
-    v = np.asarray(speed_m_s, dtype=np.float64)
-    m = vehicle.mass_kg
-    normal = np.maximum(limits.normal_load_n(v, vehicle), 0.0)
-    with np.errstate(divide="ignore", invalid="ignore"):
-        usage = np.where(normal > 0, m * np.abs(accel_lat_m_s2) / (vehicle.mu_lat * normal), 1.0)
-        fx = vehicle.mu_trac * normal * limits.available_share(usage, vehicle.exponent)
-        power = np.where(v > 0, vehicle.power_w / np.where(v > 0, v, 1.0), np.inf)
-    fx = np.minimum(fx, power)
-    return (fx - limits.resistance_n(v, vehicle)) / m - G0_M_S2 * np.asarray(sin_grad)
 
 
 def station_accel(profile: Profile, closed: bool) -> np.ndarray:
@@ -695,11 +678,11 @@ def compare_lap(
         Grip scale of the envelope the lap is measured against; default the ideal's. [-]
     grip_estimate : float, optional
         Grip scale the lap used (e.g. from the raw samples); default
-        :func:`limitlap.envelope.grip_estimate` on the lap's stations against
+        :func:`limitlap.grip.grip_estimate` on the lap's stations against
         ``vehicle`` at grip 1 (None where no sample is grip-limited). [-]
     corner_grip_estimates : mapping name -> float, or sequence in corner order, optional
         Grip scale found per corner; default
-        :func:`limitlap.envelope.grip_estimate_by_segment` on the stations. [-]
+        :func:`limitlap.grip.grip_estimate_by_segment` on the stations. [-]
 
     Returns
     -------
@@ -797,7 +780,7 @@ def _actual_trace(driven, env: Vehicle, sin_grad, channels):
         v_act,
         ax_act,
         ay_act,
-        _drive_accel_available(v_act, ay_act, env, sin_grad),
+        limits.drive_accel_available_m_s2(v_act, ay_act, env, sin_grad),
         brake=brake if brake_thr is not None else None,
         throttle=throttle,
         usage=limits.combined_usage(v_act, ax_act, ay_act, env, sin_grad),
@@ -819,7 +802,7 @@ def _ideal_trace(ideal: Profile, line: Line, env: Vehicle, sin_grad) -> _Trace:
         v_id,
         ax_id,
         ideal.accel_lat_m_s2,
-        _drive_accel_available(v_id, ideal.accel_lat_m_s2, env, sin_grad),
+        limits.drive_accel_available_m_s2(v_id, ideal.accel_lat_m_s2, env, sin_grad),
         usage=limits.combined_usage(v_id, ax_id, ideal.accel_lat_m_s2, env, sin_grad),
     )
 
@@ -913,7 +896,7 @@ def _unwrap_after(d, start_u, length, closed):
 
 
 #: Uniform rate the real lap's stations are resampled to in time for the grip
-#: estimates, so they are filtered as a raw log is (limitlap.envelope.select_samples). [Hz]
+#: estimates, so they are filtered as a raw log is (limitlap.samples.select_samples). [Hz]
 GRIP_RESAMPLE_HZ = 50.0
 
 
@@ -925,7 +908,7 @@ def _grip_estimates(t, lap_time, v, ax, ay, vehicle: Vehicle, line: Line, corner
     the overall estimate of :func:`limitlap.pipeline.analyse`, so that noise does not
     raise the 99 % quantile of a corner's few hundred samples.
     """
-    from limitlap import envelope
+    from limitlap import grip
 
     s = np.asarray(line.distance_m, dtype=np.float64)
     if line.closed:
@@ -938,11 +921,11 @@ def _grip_estimates(t, lap_time, v, ax, ay, vehicle: Vehicle, line: Line, corner
     if line.closed:
         dg = np.mod(dg, line.length_m)
     try:
-        overall = envelope.grip_estimate(vg, axg, ayg, vehicle, sample_rate_hz=GRIP_RESAMPLE_HZ)
+        overall = grip.grip_estimate(vg, axg, ayg, vehicle, sample_rate_hz=GRIP_RESAMPLE_HZ)
     except LimitlapError:
         overall = None
     seg = segment_index(dg, line.length_m, corners, line.closed)
-    per = envelope.grip_estimate_by_segment(
+    per = grip.grip_estimate_by_segment(
         vg, axg, ayg, vehicle, seg, sample_rate_hz=GRIP_RESAMPLE_HZ
     )
     per = np.concatenate([per, np.full(max(0, len(corners) - per.shape[0]), np.nan)])

@@ -646,64 +646,6 @@ def map_figure(x_m, y_m, loss_rate_s_m, corners, distance_m) -> bytes:
 # --------------------------------------------------------------------------- g-g diagram
 
 
-def envelope_boundary(speed_m_s: float, vehicle, grip_scale: float = 1.0, n_points: int = 181):
-    r"""Closed boundary of the g-g envelope at one speed, as (a_y, a_x) points.
-
-    Parameters
-    ----------
-    speed_m_s : float
-        Speed. [m/s]
-    vehicle : Vehicle
-        Complete vehicle (INTERFACE §3).
-    grip_scale : float
-        Grip scale k on the friction coefficients. [-]
-    n_points : int
-        Points per half (driving and braking side). [-]
-
-    Returns
-    -------
-    tuple of numpy.ndarray
-        Lateral acceleration (+ left) and longitudinal acceleration (+ forward) along the
-        boundary, driving half left to right, then braking half back. [m/s²]
-
-    Notes
-    -----
-    INTERFACE §3 on tyre forces: at lateral share :math:`u = F_y/F_{y,max}` the tyres
-    leave :math:`(1-|u|^n)^{1/n}` of the longitudinal limit (superellipse); the driving
-    side is also capped at :math:`P/v`, as in the solver's kernel; drag and rolling
-    resistance shift both sides rearwards.
-
-    Examples
-    --------
-    >>> from limitlap.vehicle import Vehicle
-    >>> car = Vehicle("dot", 1000.0, math.inf, 0.0, 0.0, 0.0, mu_lat=1.0, mu_brk=1.0,
-    ...               mu_trac=1.0, exponent=2.0)
-    >>> ay, ax = envelope_boundary(20.0, car)
-    >>> bool(np.allclose(np.hypot(ay, ax), 9.80665))  # the friction circle of radius g
-    True
-    """
-    from limitlap import limits
-
-    veh = vehicle.scaled(grip_scale) if grip_scale != 1.0 else vehicle
-    v = float(speed_m_s)
-    m = veh.mass_kg
-    normal = float(limits.normal_load_n(v, veh))
-    resist = float(limits.resistance_n(v, veh))
-    fy_max = veh.mu_lat * normal
-    n = veh.exponent
-    theta = np.linspace(-0.5 * np.pi, 0.5 * np.pi, n_points)
-    # Superellipse parametrisation: u = sign(sin)|sin|^(2/n), share = |cos|^(2/n).
-    u = np.sign(np.sin(theta)) * np.abs(np.sin(theta)) ** (2.0 / n)
-    share = np.abs(np.cos(theta)) ** (2.0 / n)
-    drive_power = veh.power_w / v if v > 0 else math.inf
-    fx_drive = np.minimum(veh.mu_trac * normal * share, drive_power)
-    fx_brake = veh.mu_brk * normal * share
-    ay = u * fy_max / m
-    ax_drive = (fx_drive - resist) / m
-    ax_brake = (-fx_brake - resist) / m
-    return np.concatenate([ay, ay[::-1]]), np.concatenate([ax_drive, ax_brake[::-1]])
-
-
 def _ray_reach(poly_x, poly_y, angles):
     """Farthest crossing of rays from the origin with a closed polygon, per angle.
 
@@ -841,8 +783,10 @@ def gg_figure(
     the middle speed: grip the lap never asked for. Its share of the envelope's area is
     in each panel's title.
     """
+    from limitlap import limits
     from limitlap._canvas import Entry, Panel, auto_bins, nice_ticks
 
+    env = vehicle.scaled(grip_scale) if grip_scale != 1.0 else vehicle
     v = np.asarray(speed_m_s, dtype=np.float64)
     ax_s = np.asarray(accel_lon_m_s2, dtype=np.float64)
     ay_s = np.asarray(accel_lat_m_s2, dtype=np.float64)
@@ -862,9 +806,9 @@ def gg_figure(
     lim = 0.0
     for lo, hi in bands:
         mid = 0.5 * (lo + hi)
-        ey, ex = (a / G0_M_S2 for a in envelope_boundary(mid, vehicle, grip_scale))
+        ex, ey = (a / G0_M_S2 for a in limits.envelope_boundary(mid, env))
         edges = [
-            tuple(a / G0_M_S2 for a in envelope_boundary(edge, vehicle, grip_scale))
+            tuple(a / G0_M_S2 for a in limits.envelope_boundary(edge, env)[::-1])
             for edge in (lo, hi)
             if edge > 0
         ]

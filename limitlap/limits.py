@@ -1,4 +1,7 @@
-r"""The envelope of INTERFACE §3 as plain functions of speed (numpy, all SI).
+r"""The vehicle model's envelope as plain functions of speed (numpy, all SI).
+
+The model is the one of docs/formats.md (Vehicle files) and docs/methods.md (Vehicle
+model); the solver's compiled kernels implement the same formulas.
 
 With :math:`q = \tfrac12\rho v^2` and :math:`N = m g + q C_L A`:
 
@@ -43,13 +46,17 @@ def braking_limit_m_s2(speed_m_s, vehicle: Vehicle):
     return (vehicle.mu_brk * normal_load_n(speed_m_s, vehicle) + resistance_n(speed_m_s, vehicle)) / m
 
 
+def power_force_n(speed_m_s, vehicle: Vehicle):
+    """Driving force the power allows, P/v; infinite at standstill. [N]"""
+    v = np.asarray(speed_m_s, dtype=np.float64)
+    return np.where(v > 0, vehicle.power_w / np.where(v > 0, v, 1.0), np.inf)
+
+
 def drive_force_max_n(speed_m_s, vehicle: Vehicle):
     """Largest tyre driving force min(μ_t N, P/v). [N]"""
     v = np.asarray(speed_m_s, dtype=np.float64)
     traction = vehicle.mu_trac * normal_load_n(v, vehicle)
-    with np.errstate(divide="ignore"):
-        power = np.where(v > 0, vehicle.power_w / np.where(v > 0, v, 1.0), np.inf)
-    return np.minimum(traction, power)
+    return np.minimum(traction, power_force_n(v, vehicle))
 
 
 def driving_limit_m_s2(speed_m_s, vehicle: Vehicle):
@@ -97,3 +104,76 @@ def combined_usage(speed_m_s, accel_lon_m_s2, accel_lat_m_s2, vehicle: Vehicle, 
     with np.errstate(divide="ignore", invalid="ignore"):
         power = np.where(fx > 0, fx * v / vehicle.power_w, 0.0)
     return np.maximum(tyre, power)
+
+
+def drive_accel_available_m_s2(speed_m_s, accel_lat_m_s2, vehicle: Vehicle, sin_grad=0.0):
+    r"""Forward acceleration the envelope leaves beside a lateral demand, as the solver.
+
+    :math:`a = (\min(\mu_t N (1-u^n)^{1/n}, P/v) - R)/m - g\sin\theta` with
+    :math:`u = m|a_y|/(\mu_y N)`, the combined law of docs/formats.md (Vehicle files).
+
+    Returns
+    -------
+    numpy.ndarray
+        Forward acceleration available. [m/s²]
+    """
+    v = np.asarray(speed_m_s, dtype=np.float64)
+    m = vehicle.mass_kg
+    normal = np.maximum(normal_load_n(v, vehicle), 0.0)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        usage = np.where(normal > 0, m * np.abs(accel_lat_m_s2) / (vehicle.mu_lat * normal), 1.0)
+        fx = vehicle.mu_trac * normal * available_share(usage, vehicle.exponent)
+    fx = np.minimum(fx, power_force_n(v, vehicle))
+    return (fx - resistance_n(v, vehicle)) / m - G0_M_S2 * np.asarray(sin_grad)
+
+
+def envelope_boundary(speed_m_s: float, vehicle: Vehicle, n_points: int = 181):
+    r"""Closed boundary of the g-g envelope at one speed.
+
+    Parameters
+    ----------
+    speed_m_s : float
+        Speed. [m/s]
+    vehicle : Vehicle
+        Complete vehicle, grip scale already applied (:meth:`Vehicle.scaled`).
+    n_points : int
+        Points per half (driving and braking side). [-]
+
+    Returns
+    -------
+    accel_lon_m_s2, accel_lat_m_s2 : numpy.ndarray
+        Longitudinal (+ forward) and lateral (+ left) acceleration along the boundary,
+        driving half from right to left, then braking half back. [m/s²]
+
+    Notes
+    -----
+    At lateral share :math:`u = F_y/F_{y,max}` the tyres leave :math:`(1-|u|^n)^{1/n}`
+    of the longitudinal limit (superellipse, parametrised as
+    :math:`u = \mathrm{sgn}\sin t |\sin t|^{2/n}`, share :math:`|\cos t|^{2/n}`); the
+    driving side is also capped at :math:`P/v`, as in the solver; drag and rolling
+    resistance shift both sides rearwards.
+
+    Examples
+    --------
+    >>> car = Vehicle("dot", 1000.0, float("inf"), 0.0, 0.0, 0.0, mu_lat=1.0, mu_brk=1.0,
+    ...               mu_trac=1.0, exponent=2.0)
+    >>> ax, ay = envelope_boundary(20.0, car)
+    >>> bool(np.allclose(np.hypot(ay, ax), 9.80665))  # the friction circle of radius g
+    True
+    """
+    vehicle.require_complete()
+    v = float(speed_m_s)
+    m = vehicle.mass_kg
+    normal = float(normal_load_n(v, vehicle))
+    resist = float(resistance_n(v, vehicle))
+    n = vehicle.exponent
+    theta = np.linspace(-0.5 * np.pi, 0.5 * np.pi, n_points)
+    u = np.sign(np.sin(theta)) * np.abs(np.sin(theta)) ** (2.0 / n)
+    share = np.abs(np.cos(theta)) ** (2.0 / n)
+    fx_drive = np.minimum(vehicle.mu_trac * normal * share, float(power_force_n(v, vehicle)))
+    fx_brake = vehicle.mu_brk * normal * share
+    fy_max = vehicle.mu_lat * normal
+    ay = u * fy_max / m
+    ax_drive = (fx_drive - resist) / m
+    ax_brake = (-fx_brake - resist) / m
+    return np.concatenate([ax_drive, ax_brake[::-1]]), np.concatenate([ay, ay[::-1]])

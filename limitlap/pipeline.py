@@ -25,11 +25,12 @@ from pathlib import Path
 
 import numpy as np
 
-from limitlap import best_laps, compare, envelope, ingest, solve
+from limitlap import best_laps, compare, envelope, grip, ingest, solve
 from limitlap import corners as corners_mod
 from limitlap import driven as driven_mod
 from limitlap import laps as laps_mod
 from limitlap.errors import InputError, LimitlapError
+from limitlap.samples import select_samples
 from limitlap.vehicle import Vehicle, check_grip_scale
 
 #: Mass assumed when no vehicle file is given. The point-mass lap depends on power, drag
@@ -237,7 +238,7 @@ def _imu_samples(log, laps, rows_of, pad_s=None):
 
     With ``pad_s``, only the rows from ``pad_s`` before the first lap to ``pad_s`` after
     the last are returned (the mask still marks the laps' own rows): enough for the
-    sample filters (:func:`limitlap.envelope.select_samples` reaches well under a second)
+    sample filters (:func:`limitlap.samples.select_samples` reaches well under a second)
     to give the same values inside the laps as on the whole log, at a lap's cost. [s]
     """
     if not (log.has("accel_lon") and log.has("accel_lat")):
@@ -345,7 +346,7 @@ def analyse(
                 return
             rate = float(1.0 / np.median(np.diff(time_s)))  # as _sample_rate
             started["selection"] = pool.submit(
-                envelope.select_samples, ch["speed"], ch["accel_lon"], ch["accel_lat"],
+                select_samples, ch["speed"], ch["accel_lon"], ch["accel_lat"],
                 sample_rate_hz=rate,
             )
 
@@ -420,7 +421,7 @@ def analyse(
     if lap_samples is None:
         lap_samples = _trace_samples([the_lap])
     v_l, ax_l, ay_l, mask_l, rate_l, _ = lap_samples
-    grip_est = envelope.grip_estimate(v_l, ax_l, ay_l, car, mask=mask_l, sample_rate_hz=rate_l)
+    grip_est = grip.grip_estimate(v_l, ax_l, ay_l, car, mask=mask_l, sample_rate_hz=rate_l)
     if grip_est is not None and fit is None and grip_est < 0.9 * k:
         warnings.append(
             f"this lap showed about {grip_est:.2f} of the envelope's grip (damp or wet track?), "

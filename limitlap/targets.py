@@ -17,9 +17,9 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from limitlap import limits
 from limitlap.compare import (
     _corner_markers,
-    _drive_accel_available,
     _min_speed,
     _mod,
     _Trace,
@@ -212,7 +212,7 @@ def target_table(
         prof.speed_m_s,
         station_accel(prof, line.closed),
         prof.accel_lat_m_s2,
-        _drive_accel_available(prof.speed_m_s, prof.accel_lat_m_s2, env, sin_grad),
+        limits.drive_accel_available_m_s2(prof.speed_m_s, prof.accel_lat_m_s2, env, sin_grad),
     )
     s_ext = np.append(line.distance_m, length)
     v_ext = np.append(prof.speed_m_s, prof.speed_m_s[0] if line.closed else prof.speed_m_s[-1])

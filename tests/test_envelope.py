@@ -12,7 +12,7 @@ import pytest
 from scipy import signal
 from scipy.spatial import ConvexHull
 
-from limitlap import envelope
+from limitlap import envelope, grip, limits, samples
 from limitlap.errors import LimitlapError
 from limitlap.limits import combined_usage, normal_load_n, resistance_n
 from limitlap.units import G0_M_S2
@@ -219,7 +219,7 @@ def test_envelope_boundary_lies_on_combined_limit():
     for n in (1.5, 2.0, 3.0):
         car = replace(EXAMPLE_CAR, exponent=n)
         for speed in (15.0, 45.0, 80.0):
-            ax, ay = envelope.envelope_boundary(speed, car, n_points=73)
+            ax, ay = limits.envelope_boundary(speed, car, n_points=73)
             u = combined_usage(np.full(ax.size, speed), ax, ay, car)
             assert u == pytest.approx(np.ones(ax.size), abs=1e-12)
 
@@ -236,7 +236,7 @@ def test_required_grip_scale_puts_sample_on_scaled_envelope():
     ang = rng.uniform(0.0, 2.0 * np.pi, 400)
     r = rng.uniform(3.0, 14.0, 400)
     ax, ay = r * np.cos(ang), r * np.sin(ang)
-    k = envelope.required_grip_scale(v, ax, ay, EXAMPLE_CAR)
+    k = grip.required_grip_scale(v, ax, ay, EXAMPLE_CAR)
     checked = 0
     for i in np.flatnonzero((k > 0.21) & (k < 1.99)):
         u = combined_usage(v[i], ax[i], ay[i], EXAMPLE_CAR.scaled(float(k[i])))
@@ -246,20 +246,20 @@ def test_required_grip_scale_puts_sample_on_scaled_envelope():
     # A driving force beyond P/v is outside at every grip scale.
     v_top = 60.0
     ax_over = (1.01 * EXAMPLE_CAR.power_w / v_top - resistance_n(v_top, EXAMPLE_CAR)) / 1300.0
-    assert envelope.required_grip_scale([v_top], [ax_over], [0.0], EXAMPLE_CAR)[0] == math.inf
+    assert grip.required_grip_scale([v_top], [ax_over], [0.0], EXAMPLE_CAR)[0] == math.inf
 
 
 def test_grip_estimate_wet_session_and_own_data(ggv_data):
     # Issue 4: a dry envelope applied to samples that reached an envelope scaled by 0.75
     # must give 0.75 (± 0.02, the brief's tolerance); on its own data 1.0 ± 0.02.
     wet = ggv_samples(np.random.default_rng(75), EXAMPLE_CAR.scaled(0.75), 60_000)
-    assert envelope.grip_estimate(*wet, EXAMPLE_CAR) == pytest.approx(0.75, abs=0.02)
-    assert envelope.grip_estimate(*ggv_data, EXAMPLE_CAR) == pytest.approx(1.0, abs=0.02)
+    assert grip.grip_estimate(*wet, EXAMPLE_CAR) == pytest.approx(0.75, abs=0.02)
+    assert grip.grip_estimate(*ggv_data, EXAMPLE_CAR) == pytest.approx(1.0, abs=0.02)
 
 
 def test_grip_estimate_on_fitted_envelope_is_near_one(ggv_fit, ggv_data):
     # INTERFACE §5: near 1 when the envelope was fitted from the same session (± 0.02).
-    k = envelope.grip_estimate(*ggv_data, ggv_fit.vehicle)
+    k = grip.grip_estimate(*ggv_data, ggv_fit.vehicle)
     assert k == pytest.approx(1.0, abs=0.02)
 
 
@@ -272,13 +272,13 @@ def test_grip_estimate_by_segment_finds_wet_patch():
     v, ax, ay = (np.concatenate((x, y)) for x, y in zip(a, b, strict=True))
     seg = np.concatenate((np.zeros(8000, int), np.full(8000, 2)))
     seg[:100] = -1  # samples in no segment are ignored
-    k = envelope.grip_estimate_by_segment(v, ax, ay, EXAMPLE_CAR, seg)
+    k = grip.grip_estimate_by_segment(v, ax, ay, EXAMPLE_CAR, seg)
     assert k.shape == (3,)
     assert k[0] == pytest.approx(0.9, abs=0.02)
     assert math.isnan(k[1])
     assert k[2] == pytest.approx(0.6, abs=0.02)
     # The same statistic as grip_estimate on each segment alone.
-    one = envelope.grip_estimate(v[seg == 2], ax[seg == 2], ay[seg == 2], EXAMPLE_CAR)
+    one = grip.grip_estimate(v[seg == 2], ax[seg == 2], ay[seg == 2], EXAMPLE_CAR)
     assert k[2] == pytest.approx(one, rel=1e-12)
 
 
@@ -288,10 +288,10 @@ def test_grip_estimate_ignores_masked_and_slow_samples():
     ay = np.array([20.0, 19.0, 8.0, 8.0])
     ax = np.zeros(4)
     # Sample 0 is slower than 10 m/s, sample 1 is masked: k = 8/9.80665 exactly.
-    k = envelope.grip_estimate(v, ax, ay, car, quantile=1.0, mask=[True, False, True, True])
+    k = grip.grip_estimate(v, ax, ay, car, quantile=1.0, mask=[True, False, True, True])
     assert k == pytest.approx(8.0 / G, rel=1e-12)
     with pytest.raises(LimitlapError):
-        envelope.grip_estimate(v[:1], ax[:1], ay[:1], car)
+        grip.grip_estimate(v[:1], ax[:1], ay[:1], car)
 
 
 # --- sample selection ----------------------------------------------------------------
@@ -304,12 +304,12 @@ def test_lowpass_gain_matches_gaussian_response():
     # changes H by far less than the 1e-3 allowed, which covers the amplitude read-off
     # (the maximum of a sampled sine) in the middle of a 20 s record, away from its ends.
     fs, fc = 100.0, 3.0
-    sigma_t = envelope.gaussian_sigma_samples(fc, fs) / fs
+    sigma_t = samples.gaussian_sigma_samples(fc, fs) / fs
     assert math.exp(-4.0 * math.pi**2 * sigma_t**2 * fc**2) == pytest.approx(0.5, rel=1e-12)
     t = np.arange(0.0, 20.0, 1.0 / fs)
     for f in (0.5, 1.5, 3.0):
         ay = 10.0 * np.sin(2 * np.pi * f * t)
-        sel = envelope.select_samples(
+        sel = samples.select_samples(
             np.full(t.size, 30.0),
             np.zeros(t.size),
             ay,
@@ -328,7 +328,7 @@ def test_lowpass_does_not_overshoot_a_step():
     # and backwards (scipy.signal.sosfiltfilt) rings past the step by more than 1 %.
     fs = 100.0
     ax = np.where(np.arange(1000) < 500, 3.0, -15.0)
-    sel = envelope.select_samples(np.full(1000, 40.0), ax, np.zeros(1000), sample_rate_hz=fs)
+    sel = samples.select_samples(np.full(1000, 40.0), ax, np.zeros(1000), sample_rate_hz=fs)
     assert sel.accel_lon_m_s2.max() <= 3.0 + 1e-12
     assert sel.accel_lon_m_s2.min() >= -15.0 - 1e-12
     bw = signal.sosfiltfilt(signal.butter(2, 3.0 / (fs / 2), output="sos"), ax)
@@ -349,7 +349,7 @@ def test_select_rejects_spikes_slow_and_masked_samples():
     v = np.where(t < 2.0, 5.0, 40.0)
     v[1::5] = np.nan  # blanks between slower GPS samples
     mask = t < 18.0
-    sel = envelope.select_samples(v, ax, ay, mask, sample_rate_hz=fs)
+    sel = samples.select_samples(v, ax, ay, mask, sample_rate_hz=fs)
     assert sel.n_spikes == 3
     assert not sel.used[spikes].any()
     assert not sel.used[t < 2.0].any()
@@ -461,7 +461,7 @@ def test_wet_session_grip_estimate_with_dry_envelope(dry_session_fit):
 
     dry, dry_mask, fit = dry_session_fit
     ch = dry.channels
-    own = envelope.grip_estimate(
+    own = grip.grip_estimate(
         ch["speed"],
         ch["accel_lon"],
         ch["accel_lat"],
@@ -473,7 +473,7 @@ def test_wet_session_grip_estimate_with_dry_envelope(dry_session_fit):
     wet = synth.generate_session(n_laps=3, limit_laps=(1, 2, 3), seed=5, grip_scale=0.72)
     ch = wet.channels
     mask = np.isin(wet.truth.lap_number, wet.truth.limit_laps)
-    k = envelope.grip_estimate(
+    k = grip.grip_estimate(
         ch["speed"],
         ch["accel_lon"],
         ch["accel_lat"],
@@ -538,7 +538,7 @@ def test_noise_taken_out_of_the_envelope_brings_the_ideal_to_the_truth(dry_sessi
     err = {k: solve.solve_profile(truth.line, f.vehicle).lap_time_s - t_true for k, f in fits.items()}
     assert abs(err[True]) < 1e-3 * t_true
     assert abs(err[True]) < abs(err[False]) and err[False] < 0.0
-    s = envelope.gaussian_sigma_samples(3.0, 100.0)
+    s = samples.gaussian_sigma_samples(3.0, 100.0)
     expected = 0.03 * G0_M_S2 / math.sqrt(2.0 * math.sqrt(math.pi) * s)
     q = fits[True].quality
     assert q["noise_m_s2"] == pytest.approx(expected, rel=0.05)
@@ -614,13 +614,13 @@ def test_flat_out_bend_gets_no_grip_estimate():
     ax = np.concatenate([ax_flat[:100], -resistance_n(v[100:], car) / m])
     ay = np.concatenate([0.4 * ay_limit[:100], 0.8 * ay_limit[100:]])
     seg = np.repeat([0, 1], 100)
-    k = envelope.grip_estimate_by_segment(v, ax, ay, car, seg)
+    k = grip.grip_estimate_by_segment(v, ax, ay, car, seg)
     assert math.isnan(k[0])
     assert k[1] == pytest.approx(0.8, rel=1e-9)
     # The same samples a little below the margin count again: 0.4 of the lateral limit
     # combined with 0.9 P/v of driving force against the traction limit.
     ax_lift = (0.90 * power_force - resistance_n(v, car)) / m
-    k2 = envelope.grip_estimate_by_segment(v[:100], ax_lift[:100], ay[:100], car, seg[:100])
+    k2 = grip.grip_estimate_by_segment(v[:100], ax_lift[:100], ay[:100], car, seg[:100])
     assert np.isfinite(k2[0]) and 0.4 < k2[0] < 1.0
 
 
@@ -633,15 +633,15 @@ def test_filtered_noise_is_the_noise_left_after_the_low_pass():
     from scipy.ndimage import gaussian_filter1d
 
     rng = np.random.default_rng(21)
-    fs, s = 100.0, envelope.gaussian_sigma_samples(3.0, 100.0)
+    fs, s = 100.0, samples.gaussian_sigma_samples(3.0, 100.0)
     t = np.arange(200_000) / fs
     noise = 0.3 * rng.standard_normal(t.size)
     raw = 8.0 * np.sin(2.0 * np.pi * 0.25 * t) + noise
     residual = raw - gaussian_filter1d(raw, s, mode="nearest")
-    got = envelope.filtered_noise(residual, s)
+    got = samples.filtered_noise(residual, s)
     assert got == pytest.approx(float(np.std(gaussian_filter1d(noise, s))), rel=0.02)
     assert got == pytest.approx(0.3 / math.sqrt(2.0 * math.sqrt(math.pi) * s), rel=0.02)
-    assert envelope.filtered_noise(np.empty(0), s) == 0.0
+    assert samples.filtered_noise(np.empty(0), s) == 0.0
 
 
 def _samples_off_the_limit(rng, car, offsets_m_s2, inside_share=0.0):

@@ -474,7 +474,7 @@ def test_envelope_boundary_matches_interface_limits_and_solver():
     from limitlap.solve import vehicle_array
 
     v = 40.0
-    ay, ax = figures.envelope_boundary(v, CAR, n_points=101)
+    ax, ay = limits.envelope_boundary(v, CAR, n_points=101)
     # Pure cornering, braking and driving points are the §3 limits (closed forms on
     # both sides; rel=1e-12 is rounding).
     assert np.max(ay) == pytest.approx(float(limits.lateral_limit_m_s2(v, CAR)), rel=1e-12)

@@ -22,7 +22,7 @@ from dataclasses import replace
 import numpy as np
 import pytest
 
-from limitlap import _kernels, best_laps, envelope, ingest, pipeline, synth
+from limitlap import _kernels, best_laps, envelope, grip, ingest, pipeline, samples, synth
 from limitlap import corners as corners_mod
 from limitlap.laps import Gate, split_laps
 from limitlap.limits import combined_usage
@@ -208,8 +208,8 @@ def test_one_lap_grip_estimate_on_its_own_rows(session_and_log):
     whole = pipeline._imu_samples(log, laps, [lap])
     own = pipeline._imu_samples(log, laps, [lap], pad_s=2.0)
     assert own[0].size < 0.5 * whole[0].size
-    k_whole = envelope.grip_estimate(*whole[:3], car, mask=whole[3], sample_rate_hz=whole[4])
-    k_own = envelope.grip_estimate(*own[:3], car, mask=own[3], sample_rate_hz=own[4])
+    k_whole = grip.grip_estimate(*whole[:3], car, mask=whole[3], sample_rate_hz=whole[4])
+    k_own = grip.grip_estimate(*own[:3], car, mask=own[3], sample_rate_hz=own[4])
     assert k_own == pytest.approx(k_whole, rel=1e-12)
 
 
@@ -231,10 +231,10 @@ def test_select_samples_in_two_threads_equals_one(session_and_log, monkeypatch):
     _, log = session_and_log
     ch = log.channels
     args = (ch["speed"], ch["accel_lon"], ch["accel_lat"])
-    monkeypatch.setattr(envelope, "_THREADED_SAMPLES", 10**12)
-    one = envelope.select_samples(*args, sample_rate_hz=100.0)
-    monkeypatch.setattr(envelope, "_THREADED_SAMPLES", 0)
-    two = envelope.select_samples(*args, sample_rate_hz=100.0)
+    monkeypatch.setattr(samples, "_THREADED_SAMPLES", 10**12)
+    one = samples.select_samples(*args, sample_rate_hz=100.0)
+    monkeypatch.setattr(samples, "_THREADED_SAMPLES", 0)
+    two = samples.select_samples(*args, sample_rate_hz=100.0)
     for name in ("speed_m_s", "accel_lon_m_s2", "accel_lat_m_s2", "used"):
         assert np.array_equal(getattr(one, name), getattr(two, name), equal_nan=name != "used")
     assert one.n_spikes == two.n_spikes
@@ -347,14 +347,14 @@ def test_selection_made_beforehand_gives_the_same_fit(session_and_log):
     v, ax, ay, mask, rate, thr = pipeline._imu_samples(log, laps, [lp for lp in laps if lp.complete])
     base = envelope.Vehicle("m", 1200.0)
     direct = envelope.fit_envelope(v, ax, ay, base, mask=mask, sample_rate_hz=rate, throttle=thr)
-    early = envelope.select_samples(v, ax, ay, sample_rate_hz=rate)
+    early = samples.select_samples(v, ax, ay, sample_rate_hz=rate)
     later = envelope.fit_envelope(
         v, ax, ay, base, mask=mask, sample_rate_hz=rate, throttle=thr, selection=early
     )
     assert later.vehicle == direct.vehicle
     assert np.array_equal(later.used, direct.used)
     restricted = early.within(mask)
-    again = envelope.select_samples(v, ax, ay, mask, sample_rate_hz=rate)
+    again = samples.select_samples(v, ax, ay, mask, sample_rate_hz=rate)
     assert np.array_equal(restricted.used, again.used)
     assert restricted.n_spikes == again.n_spikes
 

@@ -1,0 +1,309 @@
+r"""The envelope's samples: chosen, despiked and low-passed, and their noise.
+
+The driver's samples that the grip envelope (:mod:`limitlap.envelope`) and the grip
+estimates (:mod:`limitlap.grip`) are measured on: rows of the chosen laps at speed,
+spikes replaced by a running median, then a zero-phase Gaussian low-pass (3 Hz by
+default; docs/methods.md, Envelope fit). The filtered noise that is left is estimated
+from the high-pass residual, so the fit can take its lift of a high quantile out.
+
+References
+----------
+.. [4] A. V. Oppenheim and R. W. Schafer, *Discrete-Time Signal Processing*,
+   Prentice Hall (window/kernel smoothing as a zero-phase low-pass; the Gaussian's
+   Fourier transform is again a Gaussian -- textbook result, chapter from memory).
+"""
+
+from __future__ import annotations
+
+import functools
+import math
+from concurrent.futures import ThreadPoolExecutor
+from dataclasses import dataclass, replace
+
+import numpy as np
+from scipy.ndimage import gaussian_filter1d
+
+from limitlap import _kernels
+from limitlap.errors import LimitlapError
+
+
+@dataclass(frozen=True, eq=False)
+class Selection:
+    """Samples chosen for the envelope (all arrays as long as the input).
+
+    Attributes
+    ----------
+    speed_m_s : numpy.ndarray
+        Speed, blanks filled where they could be. [m/s]
+    accel_lon_m_s2, accel_lat_m_s2 : numpy.ndarray
+        Accelerations after spike removal and low-pass filtering (when a sample rate was
+        given), + forward and + left. [m/s²]
+    used : numpy.ndarray
+        True for samples that count. [-]
+    n_spikes : int
+        Samples rejected as spikes or short transients. [-]
+    spike : numpy.ndarray or None
+        True for the samples found to be spikes (None without a sample rate). [-]
+    noise_parts : tuple or None
+        High-pass residuals of the two axes (a subsample) and the low-pass width in
+        samples, for :attr:`noise_m_s2`; None without a sample rate.
+    """
+
+    speed_m_s: np.ndarray
+    accel_lon_m_s2: np.ndarray
+    accel_lat_m_s2: np.ndarray
+    used: np.ndarray
+    n_spikes: int = 0
+    spike: np.ndarray | None = None
+    noise_parts: tuple | None = None
+
+    @functools.cached_property
+    def noise_m_s2(self) -> float:
+        """Standard deviation of the sensor noise left in the filtered accelerations (root
+        mean square of the two axes, :func:`filtered_noise` of their high-pass residuals,
+        estimated when first asked for); 0 without a sample rate. [m/s²]"""
+        if self.noise_parts is None:
+            return 0.0
+        res_x, res_y, sigma = self.noise_parts
+        return math.sqrt(0.5 * (filtered_noise(res_x, sigma) ** 2 + filtered_noise(res_y, sigma) ** 2))
+
+    def within(self, mask) -> Selection:
+        """The same selection restricted to the samples where ``mask`` is True (the
+        result of :func:`select_samples` given that mask: filtering does not look at it)."""
+        keep = np.asarray(mask, dtype=bool)
+        if keep.shape != self.used.shape:
+            raise LimitlapError(f"sample mask has shape {keep.shape}, expected {self.used.shape}")
+        n_spikes = self.n_spikes if self.spike is None else int((self.spike & keep).sum())
+        return replace(self, used=self.used & keep, n_spikes=n_spikes)
+
+
+
+def _as_1d(name, values, n=None):
+    arr = np.asarray(values, dtype=np.float64)
+    if arr.ndim != 1:
+        raise LimitlapError(f"{name} must be a 1-D array")
+    if n is not None and arr.shape[0] != n:
+        raise LimitlapError(f"{name} has {arr.shape[0]} samples, expected {n}")
+    return arr
+
+
+
+def _fill_gaps(values):
+    """Linear interpolation over the index across interior blanks (NaN)."""
+    out = values.copy()
+    ok = np.isfinite(out)
+    if ok.sum() >= 2 and not ok.all():
+        idx = np.arange(out.shape[0])
+        first, last = np.flatnonzero(ok)[[0, -1]]
+        inner = (~ok) & (idx > first) & (idx < last)
+        out[inner] = np.interp(idx[inner], idx[ok], out[ok])
+    return out
+
+
+
+def _runs(ok):
+    """Start and end (exclusive) of the runs of True in a boolean array."""
+    padded = np.concatenate(([False], ok, [False])).astype(np.int8)
+    edges = np.flatnonzero(np.diff(padded))
+    return edges[0::2], edges[1::2]
+
+
+
+def gaussian_sigma_samples(cutoff_hz, sample_rate_hz):
+    r"""Standard deviation of the Gaussian kernel with a given half-power frequency.
+
+    Parameters
+    ----------
+    cutoff_hz : float
+        Frequency where the power gain is 1/2. [Hz]
+    sample_rate_hz : float
+        Sample rate. [Hz]
+
+    Returns
+    -------
+    float
+        Kernel standard deviation in samples. [-]
+
+    Notes
+    -----
+    The kernel's amplitude response is :math:`H(f) = e^{-2\pi^2\sigma_t^2 f^2}` (Fourier
+    transform of a Gaussian [4]_); :math:`H^2 = 1/2` at
+    :math:`f_c = \sqrt{\ln 2 / 4}/(\pi\sigma_t)`. A Gaussian is used rather than a
+    Butterworth because its kernel is never negative: a smoothed sample is a weighted
+    mean of its neighbours and so stays inside the (convex) envelope they lie in, where a
+    Butterworth's ringing overshoots a step of acceleration (braking to throttle) and
+    puts spurious samples outside it.
+
+    Examples
+    --------
+    >>> round(gaussian_sigma_samples(3.0, 100.0), 3)
+    4.417
+    """
+    sigma_t = math.sqrt(math.log(2.0) / 4.0) / (math.pi * cutoff_hz)
+    return sigma_t * sample_rate_hz
+
+
+
+def select_samples(
+    speed_m_s,
+    accel_lon_m_s2,
+    accel_lat_m_s2,
+    mask=None,
+    *,
+    sample_rate_hz=None,
+    cutoff_hz=3.0,
+    persistence_s=0.3,
+    spike_threshold_m_s2=2.0,
+    min_speed_m_s=10.0,
+) -> Selection:
+    """Choose the samples that show sustained grip.
+
+    Parameters
+    ----------
+    speed_m_s : array-like
+        Speed per sample; blanks (NaN) between slower GPS samples are filled by
+        linear interpolation over the sample index when ``sample_rate_hz`` is given. [m/s]
+    accel_lon_m_s2, accel_lat_m_s2 : array-like
+        Longitudinal (+ forward) and lateral (+ left) acceleration per sample. [m/s²]
+    mask : array-like of bool, optional
+        True for samples on complete laps (out-laps and in-laps excluded); all when
+        omitted. [-]
+    sample_rate_hz : float, optional
+        Uniform sample rate. When given, spikes are removed and the accelerations
+        low-pass filtered; without it (e.g. samples on distance stations) neither. [Hz]
+    cutoff_hz : float, default 3.0
+        Half-power (-3 dB) frequency of the zero-phase Gaussian low-pass [4]_; "a few Hz"
+        is common practice, no published source (REFERENCES §2.2). [Hz]
+    persistence_s : float, default 0.3
+        Width of the running median: a value must last about half of it to count as
+        sustained grip (0.2-0.5 s is common practice, no published source). [s]
+    spike_threshold_m_s2 : float, default 2.0
+        A sample further than this from the running median (in either axis) is a spike
+        or short transient (kerb strike) and is dropped. Common practice. [m/s²]
+    min_speed_m_s : float, default 10.0
+        Slower samples (pit lane, stops) are dropped. Common practice. [m/s]
+
+    Returns
+    -------
+    Selection
+        Filtered arrays and the mask of samples used.
+    """
+    v = _as_1d("speed", speed_m_s)
+    n = v.shape[0]
+    ax = _as_1d("longitudinal acceleration", accel_lon_m_s2, n).copy()
+    ay = _as_1d("lateral acceleration", accel_lat_m_s2, n).copy()
+    keep = np.ones(n, bool) if mask is None else np.asarray(mask, dtype=bool)
+    if keep.shape != (n,):
+        raise LimitlapError(f"sample mask has shape {keep.shape}, expected ({n},)")
+    n_spikes = 0
+    if sample_rate_hz is not None:
+        fs = float(sample_rate_hz)
+        if not (math.isfinite(fs) and fs > 0.0):
+            raise LimitlapError(f"sample rate {sample_rate_hz} Hz is not a positive number")
+        v = _fill_gaps(v)
+        finite = np.isfinite(ax) & np.isfinite(ay)
+        width = max(3, round(persistence_s * fs) | 1)  # odd window
+        sigma = gaussian_sigma_samples(cutoff_hz, fs)
+        starts, ends = _runs(finite)
+        stride = max(1, n // _NOISE_SAMPLES)
+        args = (starts, ends, width, sigma, spike_threshold_m_s2, stride)
+        if n >= _THREADED_SAMPLES:  # the two channels side by side (the kernels drop the GIL)
+            with ThreadPoolExecutor(max_workers=1) as pool:
+                later = pool.submit(_despike_and_filter, ay, *args)
+                spike_x, res_x = _despike_and_filter(ax, *args)
+                spike_y, res_y = later.result()
+        else:
+            spike_x, res_x = _despike_and_filter(ax, *args)
+            spike_y, res_y = _despike_and_filter(ay, *args)
+        spike = spike_x | spike_y
+        noise = (res_x, res_y, sigma)
+        for a, b in zip(starts, ends, strict=True):
+            if not b - a > 8.0 * sigma:
+                finite[a:b] = False  # too short to filter: leave out
+        n_spikes = int((spike & keep).sum())
+        keep = keep & ~spike & finite
+    else:
+        spike = None
+        noise = None
+    ok = keep & np.isfinite(v) & np.isfinite(ax) & np.isfinite(ay) & (v >= min_speed_m_s)
+    return Selection(v, ax, ay, ok, n_spikes, spike, noise)
+
+
+
+def mad_scale(r) -> float:
+    """1.4826 times the median absolute deviation: the standard deviation of normal data,
+    robust to a few outliers (the factor is 1 / Phi^-1(3/4); from memory). [same as r]"""
+    return 1.4826 * float(np.median(np.abs(r - np.median(r))))
+
+
+
+#: The noise of the accelerations is estimated from about this many samples (every
+#: n-th of a longer record): its standard error is then about 1 %. [-]
+_NOISE_SAMPLES = 10_000
+
+
+
+def filtered_noise(residual, sigma):
+    r"""Standard deviation of white sensor noise after the Gaussian low-pass, from the
+    high-pass residual (despiked samples minus their low-passed values).
+
+    For white noise of standard deviation :math:`\sigma_n` through a kernel of weights
+    :math:`w_j` (SciPy's ``gaussian_filter1d``: a Gaussian of ``sigma`` samples truncated
+    at 4 sigma, normalised), the residual :math:`n_0 - \sum_j w_j n_j` has variance
+    :math:`\sigma_n^2 (1 - 2 w_0 + \sum_j w_j^2)` and the low-passed noise
+    :math:`\sigma_n^2 \sum_j w_j^2`. The residual's spread is taken as
+    :math:`1.4826\,\mathrm{MAD}` (the normal distribution's consistent scale, robust to
+    the few samples where the driver's own inputs change faster than the cut-off).
+    Returns 0 for an empty residual. [m/s²]
+
+    Examples
+    --------
+    >>> rng = np.random.default_rng(1)
+    >>> noise = rng.standard_normal(200_000)
+    >>> low = gaussian_filter1d(noise, 4.417)
+    >>> round(filtered_noise(noise - low, 4.417) / float(np.std(low)), 2)
+    1.0
+    """
+    r = np.asarray(residual, dtype=np.float64)
+    r = r[np.isfinite(r)]
+    if r.size == 0:
+        return 0.0
+    spread = mad_scale(r)
+    radius = int(4.0 * float(sigma) + 0.5)
+    j = np.arange(-radius, radius + 1, dtype=np.float64)
+    w = np.exp(-0.5 * (j / float(sigma)) ** 2)
+    w /= w.sum()
+    w0, w2 = float(w[radius]), float(np.sum(w * w))
+    return spread * math.sqrt(w2 / (1.0 - 2.0 * w0 + w2))
+
+
+
+#: Records at least this long have their two acceleration channels despiked and filtered
+#: in two threads (below it the thread costs more than it saves). [-]
+_THREADED_SAMPLES = 50_000
+
+
+
+def _despike_and_filter(values, starts, ends, width, sigma, threshold, stride=1):
+    """Despike (running median) and low-pass (Gaussian) one channel in place, per stretch.
+
+    A sample further than ``threshold`` from the running median of ``width`` samples is a
+    spike: it is replaced by that median before the zero-phase Gaussian low-pass of
+    standard deviation ``sigma`` samples; stretches of ``8 sigma`` samples or fewer are
+    not filtered (the caller leaves them out). Returns the spike mask and, for the noise
+    estimate (:func:`filtered_noise`), the high-pass residual at every ``stride``-th
+    sample of the filtered stretches (away from their ends, where the filter's edge
+    handling is not the kernel's).
+    """
+    spike = np.zeros(values.shape[0], bool)
+    residual = []
+    edge = int(4.0 * sigma + 0.5)
+    for a, b in zip(starts, ends, strict=True):  # one pass per unbroken stretch
+        seg = values[a:b]
+        spike[a:b] = _kernels.despike(seg, width, float(threshold))  # replaced in place
+        if b - a > 8.0 * sigma:
+            low = gaussian_filter1d(seg, sigma, mode="nearest")
+            inner = slice(edge, b - a - edge, stride)
+            residual.append(seg[inner] - low[inner])
+            values[a:b] = low
+    return spike, np.concatenate(residual) if residual else np.empty(0)
