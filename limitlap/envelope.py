@@ -463,13 +463,7 @@ def fit_envelope(
         )
     else:
         sel = selection if mask is None else selection.within(mask)
-    used = sel.used
-    if sample_rate_hz is not None and fit_rate_hz is not None:
-        step = min(int(float(sample_rate_hz) // float(fit_rate_hz)), int(used.sum()) // FIT_MIN_SAMPLES)
-        if step > 1:  # every step-th row (thinning in time, not of the selected samples)
-            every = np.zeros(used.shape[0], dtype=bool)
-            every[::step] = True
-            used = used & every
+    used = _thinned(sel.used, sample_rate_hz, fit_rate_hz)
     rows = np.flatnonzero(used)  # the rows in use, found once
     v, ax, ay = (np.take(a, rows) for a in (sel.speed_m_s, sel.accel_lon_m_s2, sel.accel_lat_m_s2))
     if v.size < min_bin_samples * 4:
@@ -477,121 +471,216 @@ def fit_envelope(
             f"only {v.size} usable samples above {min_speed_m_s:g} m/s on complete laps; "
             "too few to fit a grip envelope"
         )
-    edges = np.arange(min_speed_m_s, v.max() + band_width_m_s, band_width_m_s)
-    band = np.clip(np.searchsorted(edges, v, side="right") - 1, 0, edges.size - 2)
-
-    veh, start, p_demo = _provisional(v, ax, ay, base, quantile)
-    names = list(_PARAMS[:4]) + [k for k in _PARAMS[4:] if getattr(base, k) is None]
-    x0 = np.array([getattr(veh, k) if k not in start else start[k] for k in names])
-    if base.has_grip:
-        x0[:4] = [base.mu_lat, base.mu_brk, base.mu_trac, base.exponent]
-    x0 = x0 / np.array([_SCALE.get(k, 1.0) for k in names])
-    lo = np.array([_BOUNDS[k][0] / _SCALE.get(k, 1.0) for k in names])
-    hi = np.array([_BOUNDS[k][1] / _SCALE.get(k, 1.0) for k in names])
-    x0 = np.clip(x0, lo + 1e-9, hi - 1e-9)
-    # Weak priors: (centre, standard deviation) in internal units.
-    prior = {
-        "power_w": (p_demo / 1e5, p_demo / 1e5),
-        "drag_area_m2": (0.7, 1.0),
-        "downforce_area_m2": (0.0, 2.0),
+    problem = _FitProblem(
+        v, ax, ay, base, quantile, band_width_m_s, min_speed_m_s, n_angle_bins,
+        min_bin_samples, loss_scale_m_s2,
+    )  # fmt: skip
+    veh, bp, passes = problem.passes(max_passes)
+    calibrated = _full_throttle_power_drag(
+        v, ax, ay, rows, throttle, veh, problem.names, sample_rate_hz
+    )
+    noise = sel.noise_m_s2 if remove_noise else 0.0
+    veh, bp, lifts, full_throttle = problem.calibrated_and_lifted(veh, bp, calibrated, noise)
+    res, uncertainty = problem.uncertainty(veh, bp)
+    quality = {
+        "rms_residual_m_s2": float(np.sqrt(np.mean(res**2))),
+        **_outside_shares(problem, veh, full_throttle),
+        "n_used": int(v.size),
+        "n_boundary_points": int(bp[0].size),
+        "speed_min_m_s": float(v.min()),
+        "speed_max_m_s": float(v.max()),
+        "quantile": float(quantile),
+        "noise_m_s2": float(sel.noise_m_s2),
+        "noise_offset_m_s2": float(lifts[0]),
+        "noise_offset_power_m_s2": float(lifts[1]),
+        "passes": int(passes),
     }
-    pri = [(i, *prior[k]) for i, k in enumerate(names) if k in prior]
-    w_prior = 0.01  # m/s² per prior standard deviation
+    bands, warnings = _bands_and_warnings(problem, bp, min_near_limit)
+    warnings.extend(_plausibility(veh, v, problem.names, uncertainty))
+    if base.rolling_coeff is None:
+        warnings.append(
+            f"rolling resistance not given: {ROLLING_COEFF_DEFAULT} assumed "
+            "(it cannot be told apart from grip in the g-g data)"
+        )
+    return EnvelopeFit(
+        veh.require_complete(), quality, uncertainty, bands, used, tuple(problem.names), warnings
+    )
 
-    work = np.empty((5, v.shape[0]))  # _usage_and_direction's arrays, reused by each pass
-    offset = 0.0  # how far outside the envelope the boundary points are fitted (Notes)
-    lifts = (0.0, 0.0)
 
-    def boundary(veh):
+def _thinned(used, sample_rate_hz, fit_rate_hz):
+    """``used`` thinned to every step-th row, about ``fit_rate_hz`` (see FIT_MIN_SAMPLES)."""
+    if sample_rate_hz is None or fit_rate_hz is None:
+        return used
+    step = min(int(float(sample_rate_hz) // float(fit_rate_hz)), int(used.sum()) // FIT_MIN_SAMPLES)
+    if step <= 1:
+        return used
+    every = np.zeros(used.shape[0], dtype=bool)  # thinning in time, not of the selection
+    every[::step] = True
+    return used & every
+
+
+class _FitProblem:
+    """The envelope fit's samples, binning, parameters, bounds and weak priors.
+
+    One fit's state: the samples ``v, ax, ay`` [m/s, m/s²] and their speed band, the
+    fitted parameter names with their internal scale and bounds, the priors, the work
+    arrays reused by every binning pass, and ``offset``, how far outside the envelope
+    the boundary points are fitted [m/s²] (``fit_envelope`` Notes).
+    """
+
+    def __init__(
+        self, v, ax, ay, base, quantile, band_width_m_s, min_speed_m_s, n_angle_bins,
+        min_bin_samples, loss_scale_m_s2,
+    ):  # fmt: skip
+        self.v, self.ax, self.ay = v, ax, ay
+        self.quantile = quantile
+        self.n_angle_bins, self.min_bin_samples = n_angle_bins, min_bin_samples
+        self.loss_scale_m_s2 = loss_scale_m_s2
+        self.edges = np.arange(min_speed_m_s, v.max() + band_width_m_s, band_width_m_s)
+        self.band = np.clip(np.searchsorted(self.edges, v, side="right") - 1, 0, self.edges.size - 2)
+        veh, start, p_demo = _provisional(v, ax, ay, base, quantile)
+        names = list(_PARAMS[:4]) + [k for k in _PARAMS[4:] if getattr(base, k) is None]
+        x0 = np.array([getattr(veh, k) if k not in start else start[k] for k in names])
+        if base.has_grip:
+            x0[:4] = [base.mu_lat, base.mu_brk, base.mu_trac, base.exponent]
+        x0 = x0 / np.array([_SCALE.get(k, 1.0) for k in names])
+        self.lo = np.array([_BOUNDS[k][0] / _SCALE.get(k, 1.0) for k in names])
+        self.hi = np.array([_BOUNDS[k][1] / _SCALE.get(k, 1.0) for k in names])
+        self.x0 = np.clip(x0, self.lo + 1e-9, self.hi - 1e-9)
+        self.names, self.start_vehicle = names, veh
+        # Weak priors: (centre, standard deviation) in internal units.
+        prior = {
+            "power_w": (p_demo / 1e5, p_demo / 1e5),
+            "drag_area_m2": (0.7, 1.0),
+            "downforce_area_m2": (0.0, 2.0),
+        }
+        self.pri = [(i, *prior[k]) for i, k in enumerate(names) if k in prior]
+        self.w_prior = 0.01  # m/s² per prior standard deviation
+        self.work = np.empty((5, v.shape[0]))  # _usage_and_direction's arrays, reused
+        self.offset = 0.0
+        self.usage = None  # combined usage of every sample, once the fit is done [-]
+
+    def boundary(self, veh):
         """The boundary points of every bin under the normalisation by ``veh``."""
         idx, bp_band = _boundary_points(
-            v, ax, ay, veh, band, n_angle_bins, quantile, min_bin_samples, work
-        )
-        return idx, bp_band, v[idx], ax[idx], ay[idx]
+            self.v, self.ax, self.ay, veh, self.band, self.n_angle_bins, self.quantile,
+            self.min_bin_samples, self.work,
+        )  # fmt: skip
+        return idx, bp_band, self.v[idx], self.ax[idx], self.ay[idx]
 
-    def fit_points(sub, veh, start, bv, bax, bay):
+    def fit_points(self, sub, veh, start, bv, bax, bay):
         """Least squares of the parameters ``names[sub]`` (the others held at ``veh``'s)."""
-        sub_names = [names[i] for i in sub]
-        sub_pri = [(sub.index(i), c, sd) for i, c, sd in pri if i in sub]
-        plane, plane_jac = _plane_residuals(bv, bax, bay, sub_names, veh, lo[sub], hi[sub])
+        lo, hi, w_prior = self.lo[sub], self.hi[sub], self.w_prior
+        sub_names = [self.names[i] for i in sub]
+        sub_pri = [(sub.index(i), c, sd) for i, c, sd in self.pri if i in sub]
+        plane, plane_jac = _plane_residuals(bv, bax, bay, sub_names, veh, lo, hi)
         prior_jac = np.zeros((len(sub_pri), len(sub)))
         for row, (i, _, sd) in enumerate(sub_pri):
             prior_jac[row, i] = w_prior / sd
 
         def fun(x):
             extra = [w_prior * (x[i] - c) / sd for i, c, sd in sub_pri]
-            return np.concatenate((plane(x) - offset, extra))
+            return np.concatenate((plane(x) - self.offset, extra))
 
         def jac(x):
             return np.vstack((plane_jac(x), prior_jac))
 
-        return _robust_least_squares(fun, jac, start, lo[sub], hi[sub], loss_scale_m_s2)
+        return _robust_least_squares(fun, jac, start, lo, hi, self.loss_scale_m_s2)
 
-    every = list(range(len(names)))
-    bp = None
-    passes = 0
-    for passes in range(1, max_passes + 1):
-        idx, bp_band, bv, bax, bay = boundary(veh)
-        if idx.size < len(names) + 3:
-            raise LimitlapError(
-                f"only {idx.size} direction bins hold {min_bin_samples} or more samples; "
-                "too few to fit a grip envelope"
-            )
-        sol = fit_points(every, veh, x0, bv, bax, bay)
-        step = np.abs(sol.x - x0)
-        moved = np.max(step / np.maximum(np.abs(x0), 1e-6))
-        x0 = sol.x
-        veh = _vehicle_from(sol.x, names, veh)
-        bp = (idx, bp_band, bv, bax, bay, sol)
-        if passes > 1 and (moved < 1e-3 or np.all(step < 0.1 * _standard_errors(sol, idx.size))):
-            break
+    def passes(self, max_passes):
+        """Normalise-bin-fit passes until the parameters settle: vehicle, points, passes."""
+        every = list(range(len(self.names)))
+        veh, x0, bp, passes = self.start_vehicle, self.x0, None, 0
+        for passes in range(1, max_passes + 1):
+            idx, bp_band, bv, bax, bay = self.boundary(veh)
+            if idx.size < len(self.names) + 3:
+                raise LimitlapError(
+                    f"only {idx.size} direction bins hold {self.min_bin_samples} or more "
+                    "samples; too few to fit a grip envelope"
+                )
+            sol = self.fit_points(every, veh, x0, bv, bax, bay)
+            step = np.abs(sol.x - x0)
+            moved = np.max(step / np.maximum(np.abs(x0), 1e-6))
+            x0 = sol.x
+            veh = _vehicle_from(sol.x, self.names, veh)
+            bp = (idx, bp_band, bv, bax, bay, sol)
+            if passes > 1 and (moved < 1e-3 or np.all(step < 0.1 * _standard_errors(sol, idx.size))):
+                break
+        self.x0 = x0
+        return veh, bp, passes
 
-    calibrated = _full_throttle_power_drag(v, ax, ay, rows, throttle, veh, names, sample_rate_hz)
-    full_throttle = None
-    if calibrated is not None:
-        veh, full_throttle = calibrated
-    if calibrated is not None or (remove_noise and sel.noise_m_s2 > 0.0):
-        idx, bp_band, bv, bax, bay = boundary(veh)  # leaves the tyre/power shares in work
-        if remove_noise:
-            lifts = _noise_offsets(v, ax, ay, veh, sel.noise_m_s2, quantile, work[0], work[4])
-            tyre_b, power_b = _tyre_and_power_shares(bv, bax, bay, veh)[:2]
-            offset = np.where(power_b >= tyre_b, lifts[1], lifts[0])  # the limit each point is on
-    if calibrated is None and np.any(offset > 0.0):  # the same parameters, points off the limit
-        sol = fit_points(every, veh, x0, bv, bax, bay)
-        veh = _vehicle_from(sol.x, names, veh)
-        bp = (idx, bp_band, bv, bax, bay, sol)
-    if calibrated is not None:
-        keep = [i for i, k in enumerate(names) if k not in ("power_w", "drag_area_m2")]
-        names_f = [names[i] for i in keep]
-        x0f = np.array([getattr(veh, k) / _SCALE.get(k, 1.0) for k in names_f])
-        start_f = np.clip(x0f, lo[keep] + 1e-9, hi[keep] - 1e-9)
-        sol_f = fit_points(keep, veh, start_f, bv, bax, bay)
-        veh = _vehicle_from(sol_f.x, names_f, veh)
-        bp = (idx, bp_band, bv, bax, bay, sol)
-    idx, bp_band, bv, bax, bay, sol = bp
-    res = _residuals(bv, bax, bay, veh) - offset
-    dof = max(res.size - len(names), 1)
-    s2 = float(np.sum(res**2) / dof)
-    jac = sol.jac
-    cov = np.linalg.pinv(jac.T @ jac) * s2
-    sigma = np.sqrt(np.clip(np.diag(cov), 0.0, None))
-    uncertainty = {k: float(sigma[i] * _SCALE.get(k, 1.0)) for i, k in enumerate(names)}
+    def calibrated_and_lifted(self, veh, bp, calibrated, noise_m_s2):
+        """The fit after the power/drag calibration and with the noise lift taken out.
 
-    tyre, power = _tyre_and_power_shares(v, ax, ay, veh, work)[:2]
-    # Beyond the friction limits (up to half of the samples driven on the limit).
-    share_tyre = float(np.mean(tyre > 1.0))
+        ``calibrated`` is :func:`_full_throttle_power_drag`'s result (or None);
+        ``noise_m_s2`` the filtered noise (0 leaves the points on the limit). Returns the
+        vehicle, the boundary points, the lifts (tyre, power) [m/s²] and the
+        full-throttle rows used (or None).
+        """
+        lifts, full_throttle = (0.0, 0.0), None
+        if calibrated is not None:
+            veh, full_throttle = calibrated
+        if calibrated is not None or noise_m_s2 > 0.0:
+            idx, bp_band, bv, bax, bay = self.boundary(veh)  # leaves the shares in work
+            if noise_m_s2 > 0.0:
+                w = self.work
+                lifts = _noise_offsets(
+                    self.v, self.ax, self.ay, veh, noise_m_s2, self.quantile, w[0], w[4]
+                )
+                tyre_b, power_b = _tyre_and_power_shares(bv, bax, bay, veh)[:2]
+                # each point fitted off the limit it is on
+                self.offset = np.where(power_b >= tyre_b, lifts[1], lifts[0])
+        every = list(range(len(self.names)))
+        if calibrated is None and np.any(self.offset > 0.0):  # same parameters, points off
+            sol = self.fit_points(every, veh, self.x0, bv, bax, bay)
+            veh = _vehicle_from(sol.x, self.names, veh)
+            bp = (idx, bp_band, bv, bax, bay, sol)
+        if calibrated is not None:
+            keep = [i for i, k in enumerate(self.names) if k not in ("power_w", "drag_area_m2")]
+            names_f = [self.names[i] for i in keep]
+            x0f = np.array([getattr(veh, k) / _SCALE.get(k, 1.0) for k in names_f])
+            start_f = np.clip(x0f, self.lo[keep] + 1e-9, self.hi[keep] - 1e-9)
+            sol_f = self.fit_points(keep, veh, start_f, bv, bax, bay)
+            veh = _vehicle_from(sol_f.x, names_f, veh)
+            bp = (idx, bp_band, bv, bax, bay, bp[5])
+        return veh, bp, lifts, full_throttle
+
+    def uncertainty(self, veh, bp):
+        """Residuals of the boundary points [m/s²] and the parameters' standard errors [SI].
+
+        Gauss-Newton covariance :math:`s^2 (J^T J)^{-1}` at the solution.
+        """
+        _, _, bv, bax, bay, sol = bp
+        res = _residuals(bv, bax, bay, veh) - self.offset
+        dof = max(res.size - len(self.names), 1)
+        s2 = float(np.sum(res**2) / dof)
+        cov = np.linalg.pinv(sol.jac.T @ sol.jac) * s2
+        sigma = np.sqrt(np.clip(np.diag(cov), 0.0, None))
+        return res, {k: float(sigma[i] * _SCALE.get(k, 1.0)) for i, k in enumerate(self.names)}
+
+
+def _outside_shares(problem: _FitProblem, veh, full_throttle) -> dict:
+    """Shares of samples beyond the tyre limit and above the power line; usage in work."""
+    tyre, power = _tyre_and_power_shares(problem.v, problem.ax, problem.ay, veh, problem.work)[:2]
     # The power line calibrated on the full-throttle samples is a central fit of them
-    # (see Notes): about half lie above it, by the noise.
+    # (fit_envelope Notes): about half lie above it, by the noise.
     share_power = (
         float(np.mean(power[full_throttle] > 1.0)) if full_throttle is not None else math.nan
     )
-    usage = np.maximum(tyre, power, out=tyre)  # combined_usage, bit for bit
+    # Beyond the friction limits (up to half of the samples driven on the limit).
+    share_tyre = float(np.mean(tyre > 1.0))
+    problem.usage = np.maximum(tyre, power, out=tyre)  # combined_usage, bit for bit
+    return {"share_outside_tyre_limit": share_tyre, "share_above_power_line": share_power}
+
+
+def _bands_and_warnings(problem: _FitProblem, bp, min_near_limit):
+    """Per speed band: samples, samples near the limit, boundary points; sparse warning."""
+    _, bp_band, bv, bax, bay, _ = bp
+    edges, band = problem.edges, problem.band
     n_bands = edges.size - 1
     in_band = np.bincount(band, minlength=n_bands)  # samples per band, and near the limit
-    near_limit = np.bincount(band[usage >= 0.95], minlength=n_bands)
-    bands = []
-    warnings = []
-    sparse = []
+    near_limit = np.bincount(band[problem.usage >= 0.95], minlength=n_bands)
+    bands, warnings, sparse = [], [], []
     for b in range(n_bands):
         if in_band[b] == 0:
             continue
@@ -609,30 +698,7 @@ def fit_envelope(
             f"{min_near_limit} samples within 5 % of the fitted limit; the envelope there "
             "rests on the neighbouring bands (the g-g diagram shows the samples)"
         )
-    warnings.extend(_plausibility(veh, v, names, uncertainty))
-    quality = {
-        "rms_residual_m_s2": float(np.sqrt(np.mean(res**2))),
-        "share_outside_tyre_limit": share_tyre,
-        "share_above_power_line": share_power,
-        "n_used": int(v.size),
-        "n_boundary_points": int(idx.size),
-        "speed_min_m_s": float(v.min()),
-        "speed_max_m_s": float(v.max()),
-        "quantile": float(quantile),
-        "noise_m_s2": float(sel.noise_m_s2),
-        "noise_offset_m_s2": float(lifts[0]),
-        "noise_offset_power_m_s2": float(lifts[1]),
-        "passes": int(passes),
-    }
-    fitted = tuple(names)
-    if base.rolling_coeff is None:
-        warnings.append(
-            f"rolling resistance not given: {ROLLING_COEFF_DEFAULT} assumed "
-            "(it cannot be told apart from grip in the g-g data)"
-        )
-    return EnvelopeFit(
-        veh.require_complete(), quality, uncertainty, tuple(bands), used, fitted, warnings
-    )
+    return tuple(bands), warnings
 
 
 def _robust_least_squares(fun, jac, start, lo, hi, f_scale):
