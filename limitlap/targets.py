@@ -18,19 +18,19 @@ from dataclasses import dataclass
 import numpy as np
 
 from limitlap import limits
-from limitlap.compare import (
-    _corner_markers,
-    _min_speed,
-    _mod,
-    _Trace,
-    _unwrap_after,
-    _unwrapped_bounds,
-    _zone_u,
-    station_accel,
-)
 from limitlap.corners import Corner, find_corners
 from limitlap.errors import LimitlapError
 from limitlap.line import Line
+from limitlap.markers import (
+    Trace,
+    corner_markers,
+    lowest_speed,
+    station_accel,
+    unwrap_after,
+    unwrapped_bounds,
+    wrap_distance,
+    zone_u,
+)
 from limitlap.solve import Profile, solve_profile
 from limitlap.units import KMH_TO_M_S
 from limitlap.vehicle import Vehicle, check_grip_scale
@@ -203,7 +203,7 @@ def target_table(
     length = float(line.length_m)
     grad = np.asarray(line.gradient, dtype=np.float64)
     sin_grad = grad / np.sqrt(1.0 + grad * grad)
-    tr = _Trace(
+    tr = Trace(
         line.distance_m,
         length,
         line.closed,
@@ -218,13 +218,13 @@ def target_table(
     v_ext = np.append(prof.speed_m_s, prof.speed_m_s[0] if line.closed else prof.speed_m_s[-1])
     out = []
     for c, (start_u, apex_u, end_u, lo, hi) in zip(
-        corners, _unwrapped_bounds(corners, length, line.closed), strict=True
+        corners, unwrapped_bounds(corners, length, line.closed), strict=True
     ):
         seg_time = tr.time_at_mod(c.end_m) - tr.time_at_mod(c.start_m)
         if line.closed and c.end_m <= c.start_m:
             seg_time += tr.lap_time
-        zone = _zone_u(c, start_u, length, line.closed)
-        mk = _corner_markers(
+        zone = zone_u(c, start_u, length, line.closed)
+        mk = corner_markers(
             tr, lo, start_u, end_u, hi, None, False, zone, apex_u, profile_brake=True
         )
         braked = math.isfinite(mk.brake_start)
@@ -232,23 +232,23 @@ def target_table(
         entry = float(np.interp(entry_u, tr.u, tr.v))
         # The minimum from the entry point to the exit (turn-in included: a corner
         # still accelerating has its minimum, equal to the entry speed, there).
-        v_min, min_u, _ = _min_speed(tr, entry_u, max(zone[1], entry_u) + 1e-9)
+        v_min, min_u, _ = lowest_speed(tr, entry_u, max(zone[1], entry_u) + 1e-9)
         if not v_min <= entry:  # the entry point lies between stations
             v_min, min_u = entry, entry_u
         # The apex of that minimum: the nearest apex not before the brake point.
-        apexes_u = [_unwrap_after(a, start_u, length, line.closed) for a in c.apexes_m]
+        apexes_u = [unwrap_after(a, start_u, length, line.closed) for a in c.apexes_m]
         after = [a for a in apexes_u if a >= entry_u] or [min_u]
         apex_at = min(after, key=lambda a: abs(a - min_u))
         before = apex_at - mk.brake_start if braked else math.nan
         out.append(
             CornerTarget(
                 name=c.name,
-                apex_m=_mod(apex_at, length, line.closed),
+                apex_m=wrap_distance(apex_at, length, line.closed),
                 entry_speed_m_s=entry,
-                brake_start_m=_mod(mk.brake_start, length, line.closed),
+                brake_start_m=wrap_distance(mk.brake_start, length, line.closed),
                 brake_before_apex_m=float(before),
                 min_speed_m_s=float(v_min),
-                min_speed_at_m=_mod(min_u, length, line.closed),
+                min_speed_at_m=wrap_distance(min_u, length, line.closed),
                 exit_speed_m_s=float(np.interp(c.end_m, s_ext, v_ext)),
                 segment_time_s=float(seg_time),
             )

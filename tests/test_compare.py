@@ -13,7 +13,7 @@ from dataclasses import dataclass
 import numpy as np
 import pytest
 
-from limitlap import best_laps, compare, solve
+from limitlap import best_laps, compare, markers, solve
 from limitlap import corners as corners_mod
 from limitlap.errors import LimitlapError
 from limitlap.line import Line, line_from_curvature
@@ -51,7 +51,7 @@ def driven_from(profile, line, **channels):
         line,
         profile.time_s.copy(),
         profile.speed_m_s.copy(),
-        compare.station_accel(profile, line.closed),  # sampled at the stations, as logged
+        markers.station_accel(profile, line.closed),  # sampled at the stations, as logged
         profile.accel_lat_m_s2.copy(),
         lap_time_s=profile.lap_time_s,
         **channels,
