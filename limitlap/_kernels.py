@@ -663,7 +663,7 @@ def trapezoid_running(t, v):
 
 @njit(cache=True, nogil=True)
 def held_at_least(x, rows, reach, level):
-    """Kernel of ``limitlap.envelope._full_throttle_held``: for ascending ``rows``, True
+    """Kernel of ``limitlap.power_line.full_throttle_held``: for ascending ``rows``, True
     where every x within ``reach`` rows either side is >= ``level`` (NaN is not). One scan
     of x up to the last row's window, remembering the last row below the level."""
     n = x.shape[0]

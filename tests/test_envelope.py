@@ -12,7 +12,7 @@ import pytest
 from scipy import signal
 from scipy.spatial import ConvexHull
 
-from limitlap import envelope, grip, limits, samples
+from limitlap import envelope, grip, limits, power_line, samples
 from limitlap.errors import LimitlapError
 from limitlap.limits import combined_usage, normal_load_n, resistance_n
 from limitlap.units import G0_M_S2
@@ -559,15 +559,15 @@ def test_full_throttle_held_leaves_out_rows_near_a_lift():
     thr[40] = 0.5  # a lift at row 40
     thr[90] = np.nan  # a blank cell counts as a lift too
     rows = np.array([0, 34, 35, 45, 46, 80, 84, 85, 99])
-    held = envelope._full_throttle_held(thr, rows, reach=5)
+    held = power_line.full_throttle_held(thr, rows, reach=5)
     assert held.tolist() == [True, True, False, False, True, True, True, False, True]
-    assert envelope._full_throttle_held(np.ones(10), np.arange(10), 3).all()
+    assert power_line.full_throttle_held(np.ones(10), np.arange(10), 3).all()
     # Against the plain definition on a random pedal trace, every row a candidate.
     rng = np.random.default_rng(3)
     thr = np.where(rng.random(5000) < 0.02, 0.3, 1.0)
     rows = np.arange(5000)
     brute = [bool(np.all(thr[max(r - 7, 0) : r + 8] >= 0.98)) for r in rows]
-    assert envelope._full_throttle_held(thr, rows, 7).tolist() == brute
+    assert power_line.full_throttle_held(thr, rows, 7).tolist() == brute
 
 
 def test_huber_line_fit_is_the_huber_minimum_and_ignores_gear_change_cuts():
@@ -585,7 +585,7 @@ def test_huber_line_fit_is_the_huber_minimum_and_ignores_gear_change_cuts():
     y = design @ np.array([car.power_w, car.drag_area_m2]) + rng.normal(0.0, 150.0, v.size)
     cut = rng.random(v.size) < 0.03
     y[cut] = 0.0  # a_x = -(drag + rolling) / m: the force balance's left side is 0
-    x, k = envelope._huber_line_fit(design, y)
+    x, k = power_line.huber_line_fit(design, y)
     r = y - design @ x
     # k is 1.345 times the residuals' MAD scale (from a subsample of them)
     assert k == pytest.approx(1.345 * 1.4826 * float(np.median(np.abs(r - np.median(r)))), rel=0.1)
