@@ -59,7 +59,7 @@ def _child(name: str, path: str, repeats: int) -> None:
     import polars as pl
 
     from limitlap import corners as corners_mod
-    from limitlap import ingest, pipeline, report, solve
+    from limitlap import logfile, pipeline, report, solve
     from limitlap import targets as targets_mod
     from limitlap.resources import bundled_path
 
@@ -82,7 +82,7 @@ def _child(name: str, path: str, repeats: int) -> None:
         if name == "parse":
             pl.read_csv(path)
         elif name == "read_log":
-            ingest.read_log(path)
+            logfile.read_log(path)
         elif name in ("analyse", "analyse+report"):
             a = pipeline.analyse(path)
             report.write_outputs(a, out_dir, figures=figures)

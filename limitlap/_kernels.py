@@ -646,7 +646,7 @@ def polygon_self_crosses(x, y):
 
 @njit(cache=True, nogil=True)
 def trapezoid_running(t, v):
-    """Kernel of ``limitlap.ingest.travelled_m``: the running trapezoidal integral of v
+    """Kernel of ``limitlap.gnss.travelled_m``: the running trapezoidal integral of v
     over t from 0, as ``concatenate(([0], cumsum(0.5 * (v[1:] + v[:-1]) * diff(t))))``
     computes it, operation for operation. [m]"""
     n = t.shape[0]

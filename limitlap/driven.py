@@ -380,7 +380,7 @@ def reconstruct_lap(log, lap, spacing_m: float = 1.0) -> DrivenLap:
 
     Parameters
     ----------
-    log : limitlap.ingest.Log
+    log : limitlap.logfile.Log
         Session log in SI; position in ``x``/``y`` (ENU, NaN between fixes), ``speed``
         required, ``yaw_rate``, ``accel_lat``, ``altitude`` and the others optional.
     lap : limitlap.laps.Lap

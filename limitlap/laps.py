@@ -14,7 +14,8 @@ import numpy as np
 
 from limitlap import _kernels
 from limitlap.errors import InputError, LimitlapError
-from limitlap.ingest import Log, fill_position, gps_dropouts, travelled_m
+from limitlap.gnss import fill_position, gps_dropouts, travelled_m
+from limitlap.logfile import Log
 
 #: Half-width of the gate either side of its point: a crossing further off is another
 #: road (pit lane, a parallel straight). Common practice, no published source. [m]
@@ -223,9 +224,9 @@ def _refine_crossings(log, gx, gy, nx, ny, s, at):
     than GPS over a few tens of metres. Falls back to the two-fix value when fewer than
     six fixes are in the window or the fit has no root inside it.
     """
-    from limitlap.ingest import _fix_rows
+    from limitlap.gnss import fix_rows
 
-    rows = _fix_rows(log)
+    rows = fix_rows(log)
     s_fix = s[rows]
     along = (log.channels["x"][rows] - gx) * nx + (log.channels["y"][rows] - gy) * ny
     out = np.asarray(at, dtype=np.float64).copy()
@@ -266,7 +267,7 @@ def _refine_crossings(log, gx, gy, nx, ny, s, at):
 def gate_crossings(log: Log, gate: Gate) -> np.ndarray:
     """Times the car crosses the gate line in its direction of travel. [s]
 
-    Positions are first filled at every row (:func:`limitlap.ingest.fill_position`), the
+    Positions are first filled at every row (:func:`limitlap.gnss.fill_position`), the
     signed distance to the gate line taken at every row, and the crossing time
     interpolated linearly between the two rows either side of it.
     """

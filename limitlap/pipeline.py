@@ -25,7 +25,7 @@ from pathlib import Path
 
 import numpy as np
 
-from limitlap import best_laps, compare, envelope, grip, ingest, solve
+from limitlap import best_laps, compare, envelope, gnss, grip, ingest, logfile, solve
 from limitlap import corners as corners_mod
 from limitlap import driven as driven_mod
 from limitlap import laps as laps_mod
@@ -130,13 +130,13 @@ def lap_timelines(log, laps) -> dict:
     """Elapsed time against travelled distance for each lap, from the logged speed.
 
     Distance is the trapezoidal integral of ``speed`` (as the lap table's distance,
-    :func:`limitlap.ingest.travelled_m`), both measured from the gate crossing
+    :func:`limitlap.gnss.travelled_m`), both measured from the gate crossing
     (interpolated between rows); the log's rows inside the lap are the stations, one per
     distance where the car stood still. Vectorised over each lap's rows.
 
     Parameters
     ----------
-    log : ingest.Log
+    log : logfile.Log
     laps : sequence of laps.Lap
 
     Returns
@@ -145,7 +145,7 @@ def lap_timelines(log, laps) -> dict:
         Lap number -> :class:`LapTimeline`.
     """
     t = log.time_s
-    s = ingest.travelled_m(log)
+    s = gnss.travelled_m(log)
     out = {}
     ends = np.interp([[lp.start_time_s, lp.end_time_s] for lp in laps], t, s).reshape(-1, 2)
     for lp, (s0, s1) in zip(laps, ends.tolist(), strict=True):  # each lap's rows in one go
@@ -186,7 +186,7 @@ def load_session(log_path, *, gate=None, channels=None, track=None):
 
     Returns
     -------
-    (ingest.Log, list of laps.Lap, ingest.Track or None, list of str)
+    (logfile.Log, list of laps.Lap, ingest.Track or None, list of str)
     """
     log, trk, warnings = _read_session(log_path, channels, track)
     laps = _split_session(log_path, log, trk, gate, warnings)
@@ -196,7 +196,7 @@ def load_session(log_path, *, gate=None, channels=None, track=None):
 def _read_session(log_path, channels, track, on_channels=None):
     """The log (and its warnings) and the track of :func:`load_session`."""
     channel_map = ingest.read_channel_map(channels) if channels is not None else None
-    log = ingest.read_log(log_path, channel_map, on_channels=on_channels, defer=ingest.TRACE_CHANNELS)
+    log = logfile.read_log(log_path, channel_map, on_channels=on_channels, defer=logfile.TRACE_CHANNELS)
     trk = ingest.read_track(track) if isinstance(track, str | Path) else track
     return log, trk, list(log.warnings)
 

@@ -10,8 +10,9 @@ import pymap3d
 import pytest
 
 from limitlap import driven, synth
-from limitlap.ingest import Log, read_line
+from limitlap.ingest import read_line
 from limitlap.laps import Lap
+from limitlap.logfile import Log
 from limitlap.solve import solve_profile
 
 

@@ -18,9 +18,11 @@ from hypothesis import strategies as st
 
 from limitlap import solve
 from limitlap.errors import InputError, LimitlapError
-from limitlap.ingest import fill_position, gps_dropouts, read_line, read_log, read_vehicle
+from limitlap.gnss import fill_position, gps_dropouts
+from limitlap.ingest import read_line, read_vehicle
 from limitlap.laps import split_laps
 from limitlap.line import line_from_curvature, line_from_xy
+from limitlap.logfile import read_log
 from limitlap.units import G0_M_S2
 from limitlap.vehicle import Vehicle
 from tests.cases import assert_inside_envelope

@@ -11,7 +11,9 @@ import pytest
 from geographiclib.geodesic import Geodesic
 
 from limitlap.errors import InputError
-from limitlap.ingest import fill_position, gps_dropouts, read_channel_map, read_log
+from limitlap.gnss import fill_position, gps_dropouts
+from limitlap.ingest import read_channel_map
+from limitlap.logfile import read_log
 
 from .synthetic_logs import ORIGIN, Circle, csv_text
 
@@ -311,9 +313,9 @@ def test_enu_distances_match_geographiclib():
     # at most 0.51 mm over these pairs, up to 6.8 km apart); 1 mm tolerance.
     lats = np.array([-35.2, -35.2, -35.21, -35.185, -35.23])
     lons = np.array([139.8, 139.83, 139.81, 139.79, 139.84])
-    from limitlap.ingest import _to_enu
+    from limitlap.gnss import to_enu
 
-    x, y, origin = _to_enu(lats.copy(), lons.copy(), None, np.ones(5, dtype=bool))
+    x, y, origin = to_enu(lats.copy(), lons.copy(), None, np.ones(5, dtype=bool))
     assert origin == (-35.2, 139.8, 0.0)
     for i in range(5):
         for j in range(i + 1, 5):
@@ -441,7 +443,7 @@ def test_deferred_trace_channels_read_the_same_values(tmp_path, kind):
     # stamps) must be bit for bit the whole-column values, merged duplicates and dropped
     # blank rows included, also for gzip and decimal-comma logs; the whole column on
     # access by key as well.
-    from limitlap.ingest import TRACE_CHANNELS
+    from limitlap.logfile import TRACE_CHANNELS
 
     text = _trace_log()
     if kind == "semicolon":
@@ -477,7 +479,7 @@ def test_deferred_trace_cells_are_checked_where_they_are_read(tmp_path):
     # A bad cell in a deferred channel is reported (file, row, column) when its rows are
     # read, as the eager reader reports it; a row blank but for a trace cell is the
     # eager reader's "time is blank".
-    from limitlap.ingest import TRACE_CHANNELS
+    from limitlap.logfile import TRACE_CHANNELS
 
     lines = _trace_log().splitlines()
     cells = lines[3001].split(",")

@@ -8,7 +8,6 @@ import pymap3d
 import pytest
 
 from limitlap.errors import InputError, LimitlapError
-from limitlap.ingest import read_log
 from limitlap.laps import (
     Gate,
     auto_gate,
@@ -20,6 +19,7 @@ from limitlap.laps import (
     parse_gate,
     split_laps,
 )
+from limitlap.logfile import read_log
 
 from .synthetic_logs import ORIGIN, Circle, csv_text
 

@@ -22,7 +22,17 @@ from dataclasses import replace
 import numpy as np
 import pytest
 
-from limitlap import _kernels, best_laps, envelope, grip, ingest, pipeline, samples, synth
+from limitlap import (
+    _kernels,
+    best_laps,
+    envelope,
+    gnss,
+    grip,
+    logfile,
+    pipeline,
+    samples,
+    synth,
+)
 from limitlap import corners as corners_mod
 from limitlap.laps import Gate, split_laps
 from limitlap.limits import combined_usage
@@ -62,7 +72,7 @@ def session_and_log(tmp_path_factory):
     session = synth.generate_session(n_laps=3, seed=21)
     path = tmp_path_factory.mktemp("timeline") / "s.csv"
     path.write_text(synth.session_csv_text(session), encoding="utf-8")
-    return session, ingest.read_log(path)
+    return session, logfile.read_log(path)
 
 
 def test_lap_timelines_follow_true_time_against_distance(session_and_log):
@@ -215,13 +225,13 @@ def test_one_lap_grip_estimate_on_its_own_rows(session_and_log):
 
 def test_remembered_values_follow_the_arrays(session_and_log):
     _, log = session_and_log
-    log = ingest.Log(log.path, log.time_s, dict(log.channels), log.origin, [])
-    first = ingest.travelled_m(log)
-    assert ingest.travelled_m(log) is first  # kept
+    log = logfile.Log(log.path, log.time_s, dict(log.channels), log.origin, [])
+    first = gnss.travelled_m(log)
+    assert gnss.travelled_m(log) is first  # kept
     with pytest.raises(ValueError):
         first[0] = 1.0  # read-only: a caller cannot change what the next one gets
     log.channels["speed"] = 2.0 * log.channels["speed"]
-    again = ingest.travelled_m(log)
+    again = gnss.travelled_m(log)
     np.testing.assert_allclose(again, 2.0 * first, rtol=1e-12)
 
 
@@ -392,7 +402,7 @@ def test_reader_hands_over_the_final_channels_early(tmp_path):
     path = tmp_path / "s.csv"
     path.write_text(synth.session_csv_text(session), encoding="utf-8")
     seen = {}
-    log = ingest.read_log(path, on_channels=lambda t, ch: seen.update(t=t, ch=dict(ch)))
+    log = logfile.read_log(path, on_channels=lambda t, ch: seen.update(t=t, ch=dict(ch)))
     assert seen["t"] is log.time_s
     for name in ("speed", "accel_lon", "accel_lat"):
         assert seen["ch"][name] is log.channels[name]
@@ -401,9 +411,9 @@ def test_reader_hands_over_the_final_channels_early(tmp_path):
 
 def _refine_reference(log, gx, gy, nx, ny, s, at, span=30.0):
     """One least-squares quadratic and np.roots per crossing (the loop laps.py replaced)."""
-    from limitlap.ingest import _fix_rows
+    from limitlap.gnss import fix_rows
 
-    rows = _fix_rows(log)
+    rows = fix_rows(log)
     s_fix = s[rows]
     along = (log.channels["x"][rows] - gx) * nx + (log.channels["y"][rows] - gy) * ny
     out = at.copy()
@@ -430,7 +440,7 @@ def test_vectorised_crossing_refinement_matches_one_fit_per_crossing(session_and
     # the crossing times need at racing speed: 1 ms).
     session, log = session_and_log
     from limitlap import laps as laps_mod
-    from limitlap.ingest import fill_position, travelled_m
+    from limitlap.gnss import fill_position, travelled_m
 
     gate = Gate.geodetic(*session.truth.gate_latlon)
     gx, gy = gate.position_m(log)
