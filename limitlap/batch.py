@@ -348,10 +348,10 @@ def batch_csv_text(rows: Sequence[BatchRow]) -> str:
 
 def format_batch_table(rows: Sequence[BatchRow]) -> str:
     """The combined table for the terminal (lap times as m:ss.sss)."""
-    from limitlap.laps import format_lap_time
+    from limitlap.formatting import lap_time
 
     def lt(x):
-        return "-" if not math.isfinite(x) else format_lap_time(x)
+        return "-" if not math.isfinite(x) else lap_time(x)
 
     names = [Path(r.log).name for r in rows]
     w = max([len("log"), *map(len, names)])

@@ -9,6 +9,7 @@ from __future__ import annotations
 import json
 import sys
 from pathlib import Path
+from typing import TYPE_CHECKING
 
 import typer
 
@@ -18,6 +19,9 @@ except ImportError:  # older typer uses click itself
     from click.exceptions import ClickException
 
 from limitlap.errors import InputError, LimitlapError
+
+if TYPE_CHECKING:
+    from limitlap.targets import TargetCondition
 
 Abort = typer.Abort
 
@@ -81,9 +85,10 @@ def solve(
     if as_json:
         typer.echo(json.dumps(result))
         return
-    minutes, seconds = divmod(profile.lap_time_s, 60.0)
+    from limitlap.formatting import lap_time
+
     typer.echo(f"{car.name} on {line.name}, grip scale {k:g}")
-    typer.echo(f"  lap time   {int(minutes)}:{seconds:06.3f}  ({profile.lap_time_s:.3f} s)")
+    typer.echo(f"  lap time   {lap_time(profile.lap_time_s)}  ({profile.lap_time_s:.3f} s)")
     typer.echo(f"  min speed  {result['min_speed_kmh']:.1f} km/h")
     typer.echo(f"  max speed  {result['max_speed_kmh']:.1f} km/h")
     typer.echo(f"  length     {the_line.length_m:.1f} m, {the_line.n} stations")
@@ -120,14 +125,13 @@ class _Progress:
 
 def _corner_table(analysis) -> str:
     """The ranked corner table and headline, for the terminal."""
-    from limitlap import compare
-    from limitlap.laps import format_lap_time
+    from limitlap.formatting import hundredths, lap_time, number
     from limitlap.units import KMH_TO_M_S
 
     cmp_ = analysis.comparison
     lines = [
-        f"lap {analysis.lap.number}: {format_lap_time(cmp_.lap_time_s)}   ideal "
-        f"{format_lap_time(cmp_.ideal_lap_time_s)} at grip scale {analysis.grip_scale:g}   "
+        f"lap {analysis.lap.number}: {lap_time(cmp_.lap_time_s)}   ideal "
+        f"{lap_time(cmp_.ideal_lap_time_s)} at grip scale {analysis.grip_scale:g}   "
         f"time left {cmp_.time_left_s:.2f} s   grip estimate "
         + ("-" if analysis.grip_estimate is None else f"{analysis.grip_estimate:.2f}"),
         "",
@@ -137,12 +141,12 @@ def _corner_table(analysis) -> str:
     ]
 
     def num(x, spec, scale=1.0):
-        width = int(spec.split(".")[0])
-        return "-".rjust(width) if x is None or x != x else format(x * scale, spec)
+        blank = "-".rjust(int(spec.split(".")[0]))
+        return number(None if x is None else x * scale, spec, blank=blank)
 
     for c in cmp_.ranked():
         lines.append(
-            f"{c.rank:>4}  {c.name:<7}{num(compare.hundredths(c.time_left_s), '10.2f')}"
+            f"{c.rank:>4}  {c.name:<7}{num(hundredths(c.time_left_s), '10.2f')}"
             f"{num(c.min_speed_actual_m_s, '10.1f', 1 / KMH_TO_M_S)}{num(c.min_speed_ideal_m_s, '10.1f', 1 / KMH_TO_M_S)}"
             f"{num(c.brake_start_actual_m, '11.0f')}{num(c.brake_start_ideal_m, '12.0f')}"
             f"{num(c.grip_used, '10.0f', 100.0)}"
@@ -174,7 +178,7 @@ def laps(
     if as_json:
         typer.echo(json.dumps(laps_mod.laps_json(found)))
     else:
-        typer.echo(laps_mod.format_laps_table(found))
+        typer.echo(format_laps_table(found))
 
 
 def _settle_imports() -> None:
@@ -311,7 +315,7 @@ def targets(
     typer.echo(f"{car.name} on {where}")
     for cond in conditions:
         typer.echo("")
-        typer.echo(targets_mod.format_targets_table(cond))
+        typer.echo(format_targets_table(cond))
     if out is not None:
         typer.echo(f"\nsheets written to {out}/")
 
@@ -337,7 +341,7 @@ def demo(
     report.write_target_sheets(conditions, out, analysis.track_name or "demo circuit")
     for cond in conditions:
         typer.echo("")
-        typer.echo(targets_mod.format_targets_table(cond))
+        typer.echo(format_targets_table(cond))
     typer.echo(f"\nreport: {Path(out) / 'report.html'}  (open it in a browser)")
 
 
@@ -378,3 +382,92 @@ def run() -> None:
         main()
     finally:
         gc.freeze()
+
+
+def format_laps_table(laps) -> str:
+    """The lap table as text: number, time m:ss.sss, distance, complete or why not; the
+    fastest marked."""
+    lines = [f"{'lap':>4}  {'time':>9}  {'distance':>10}  status"]
+    from limitlap.formatting import lap_time
+    from limitlap.laps import laps_table
+
+    for rec in laps_table(laps):
+        status = "complete" if rec["complete"] else f"not complete: {rec['reason']}"
+        mark = "  <- fastest" if rec["fastest"] else ""
+        lines.append(
+            f"{rec['number']:>4}  {lap_time(rec['time_s']):>9}  "
+            f"{rec['distance_m']:>8.1f} m  {status}{mark}"
+        )
+    return "\n".join(lines)
+
+
+def format_targets_table(condition: TargetCondition) -> str:
+    """The target table of one condition as fixed-width text for the terminal.
+
+    Parameters
+    ----------
+    condition : TargetCondition
+
+    Returns
+    -------
+    str
+        Heading, one row per corner (km/h, m, s), and the caution.
+    """
+    from limitlap.formatting import NO_POINT, lap_time, number
+    from limitlap.targets import CAUTION
+    from limitlap.units import KMH_TO_M_S
+
+    k = 1.0 / KMH_TO_M_S
+    name = f"{condition.label} " if condition.label else ""
+    head = (
+        f"Targets {name}(grip scale {condition.grip_scale:.2f}) — "
+        f"ideal lap {lap_time(condition.lap_time_s)}"
+    )
+    cols = (
+        "corner",
+        "apex m",
+        "brake at m",
+        "before apex m",
+        "entry km/h",
+        "min km/h",
+        "exit km/h",
+        "segment s",
+    )
+    rows = []
+    for t in condition.corners:
+
+        def f(x, nd=0):
+            return number(x, f".{nd}f", blank=NO_POINT)
+
+        rows.append(
+            (
+                t.name,
+                f(t.apex_m),
+                f(t.brake_start_m),
+                f(t.brake_before_apex_m),
+                f(t.entry_speed_m_s * k),
+                f(t.min_speed_m_s * k),
+                f(t.exit_speed_m_s * k),
+                f(t.segment_time_s, 2),
+            )
+        )
+    widths = [
+        max(len(cols[i]), *(len(r[i]) for r in rows)) if rows else len(cols[i])
+        for i in range(len(cols))
+    ]
+    lines = [head, ""]
+    lines.append(
+        "  ".join(
+            c.ljust(w) if i == 0 else c.rjust(w)
+            for i, (c, w) in enumerate(zip(cols, widths, strict=True))
+        )
+    )
+    for r in rows:
+        lines.append(
+            "  ".join(
+                c.ljust(w) if i == 0 else c.rjust(w)
+                for i, (c, w) in enumerate(zip(r, widths, strict=True))
+            )
+        )
+    lines += ["", CAUTION]
+    return "\n".join(lines)

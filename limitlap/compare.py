@@ -24,6 +24,7 @@ from limitlap import limits
 from limitlap.corners import Corner, segment_index
 from limitlap.driven import elapsed_from_gate
 from limitlap.errors import LimitlapError
+from limitlap.formatting import hundredths, metres
 from limitlap.line import Line
 from limitlap.markers import (
     BRAKE_PRESSURE_SHARE,
@@ -236,19 +237,6 @@ class LapComparison:
 QUICKER_THAN_IDEAL_S = 0.02
 
 
-def hundredths(time_s: float) -> float:
-    """A time as shown to 0.01 s: exactly 0 when it rounds to 0.00, so no "-0.00". [s]
-
-    >>> hundredths(-0.004), hundredths(-0.012)
-    (0.0, -0.012)
-    """
-    return 0.0 if math.isfinite(time_s) and round(time_s, 2) == 0 else time_s
-
-
-def _fmt_m(x):
-    return f"{abs(x):.0f} m"
-
-
 def advice_line(name, time_left_s, brake_later_m, min_speed_gain_m_s, full_drive_sooner_m):
     """One line a driver understands, e.g. "T6: 0.21 s — the ideal brakes 12 m later, ...".
 
@@ -280,7 +268,7 @@ def advice_line(name, time_left_s, brake_later_m, min_speed_gain_m_s, full_drive
     parts = []
     if math.isfinite(brake_later_m) and abs(brake_later_m) >= 2.0:
         parts.append(
-            f"the ideal brakes {_fmt_m(brake_later_m)} "
+            f"the ideal brakes {metres(brake_later_m)} "
             f"{'later' if brake_later_m > 0 else 'earlier'}"
         )
     dv_kmh = min_speed_gain_m_s / KMH_TO_M_S
@@ -290,7 +278,7 @@ def advice_line(name, time_left_s, brake_later_m, min_speed_gain_m_s, full_drive
         )
     if math.isfinite(full_drive_sooner_m) and abs(full_drive_sooner_m) >= 2.0:
         parts.append(
-            f"is at full drive {_fmt_m(full_drive_sooner_m)} "
+            f"is at full drive {metres(full_drive_sooner_m)} "
             f"{'sooner' if full_drive_sooner_m > 0 else 'later'}"
         )
     head = f"{name}: {hundredths(time_left_s):.2f} s"

@@ -38,6 +38,7 @@ import threading
 
 import numpy as np
 
+from limitlap.formatting import lap_time
 from limitlap.units import G0_M_S2, KMH_TO_M_S
 
 # Okabe-Ito colours [1].
@@ -392,7 +393,7 @@ def time_left_figure(corners) -> bytes:
         PNG image, ``FIGURE_SIZE_PX["time_left"]`` pixels.
     """
     from limitlap._canvas import Panel
-    from limitlap.compare import hundredths  # the figure's labels as the tables print them
+    from limitlap.formatting import hundredths  # the figure's labels as the tables print them
 
     c = _canvas("time_left")
     ranked = sorted(corners, key=lambda r: -r["time_left_s"])
@@ -1124,9 +1125,9 @@ def best_figure(corners, lap_time_s, best_time_s, ideal_time_s, lap_label="this 
         text = (
             "n/a"
             if not np.isfinite(a)
-            else f"{_laptime(v)}  (+{a:.2f} s)"
+            else f"{lap_time(v, decimals=2)}  (+{a:.2f} s)"
             if a > 0
-            else _laptime(v)
+            else lap_time(v, decimals=2)
         )
         left.text(
             max(a, 0.0) if np.isfinite(a) else 0.0,
@@ -1233,7 +1234,7 @@ def target_sheet(condition, circuit_name: str, caution: str, fmt: str = "png") -
     fig.text(
         0.94,
         0.945,
-        _laptime(condition["lap_time_s"]),
+        lap_time(condition["lap_time_s"], decimals=2),
         fontsize=30,
         fontweight="bold",
         ha="right",
@@ -1328,11 +1329,3 @@ def target_sheet(condition, circuit_name: str, caution: str, fmt: str = "png") -
     )
     fig.savefig(buf, format=fmt, dpi=SHEET_DPI, metadata=meta)
     return buf.getvalue()
-
-
-def _laptime(t_s: float) -> str:
-    """Lap time as m:ss.ss (or s.ss under a minute)."""
-    if t_s is None or not np.isfinite(t_s):
-        return "n/a"
-    minutes, seconds = divmod(float(t_s), 60.0)
-    return f"{int(minutes)}:{seconds:05.2f}" if minutes >= 1 else f"{seconds:.2f} s"

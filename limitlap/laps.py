@@ -443,21 +443,6 @@ def flying_laps(laps: list[Lap], ratio: float = FLYING_LAP_RATIO) -> list[Lap]:
     return [lap for lap in complete if lap.time_s <= ratio * best]
 
 
-def format_lap_time(time_s: float) -> str:
-    """``m:ss.sss``.
-
-    Examples
-    --------
-    >>> format_lap_time(92.4056)
-    '1:32.406'
-    >>> format_lap_time(59.9996)
-    '1:00.000'
-    """
-    ms = round(time_s * 1000.0)
-    minutes, rest = divmod(ms, 60_000)
-    return f"{minutes}:{rest / 1000.0:06.3f}"
-
-
 def laps_table(laps: list[Lap]) -> list[dict]:
     """One record per lap: number, time_s, distance_m, complete, reason, fastest, start_time_s."""
     try:
@@ -476,20 +461,6 @@ def laps_table(laps: list[Lap]) -> list[dict]:
         }
         for lap in laps
     ]
-
-
-def format_laps_table(laps: list[Lap]) -> str:
-    """The lap table as text: number, time m:ss.sss, distance, complete or why not; the
-    fastest marked."""
-    lines = [f"{'lap':>4}  {'time':>9}  {'distance':>10}  status"]
-    for rec in laps_table(laps):
-        status = "complete" if rec["complete"] else f"not complete: {rec['reason']}"
-        mark = "  <- fastest" if rec["fastest"] else ""
-        lines.append(
-            f"{rec['number']:>4}  {format_lap_time(rec['time_s']):>9}  "
-            f"{rec['distance_m']:>8.1f} m  {status}{mark}"
-        )
-    return "\n".join(lines)
 
 
 def laps_json(laps: list[Lap]) -> dict:

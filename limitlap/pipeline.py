@@ -25,7 +25,7 @@ from pathlib import Path
 
 import numpy as np
 
-from limitlap import best_laps, compare, envelope, gnss, grip, ingest, logfile, solve
+from limitlap import best_laps, compare, envelope, formatting, gnss, grip, ingest, logfile, solve
 from limitlap import corners as corners_mod
 from limitlap import driven as driven_mod
 from limitlap import laps as laps_mod
@@ -399,7 +399,7 @@ def analyse(
             car = fit.vehicle
             slow = [lp for lp in complete if lp not in flying]
             if slow:
-                which = ", ".join(f"{lp.number} ({laps_mod.format_lap_time(lp.time_s)})" for lp in slow)
+                which = ", ".join(f"{lp.number} ({formatting.lap_time(lp.time_s)})" for lp in slow)
                 warnings.append(
                     f"{log_path}: lap{'s' if len(slow) > 1 else ''} {which} left out of the "
                     f"grip envelope: slower than {laps_mod.FLYING_LAP_RATIO * 100:.0f} % of the "

@@ -29,6 +29,7 @@ from pathlib import Path
 import numpy as np
 
 from limitlap.errors import InputError, LimitlapError
+from limitlap.formatting import lap_time, number, time_left
 from limitlap.units import KMH_TO_M_S, KW_TO_W
 
 #: Schema string of summary.json (INTERFACE §5).
@@ -465,7 +466,7 @@ def _plain_line(rec) -> str:
         if parts
         else "the same line at the limit"
     )
-    return f"{rec['name']}: {_hundredths(rec['time_left_s'])} s — {tail}"
+    return f"{rec['name']}: {time_left(rec['time_left_s'])} s — {tail}"
 
 
 def corner_rows(comparison) -> list[dict]:
@@ -1006,30 +1007,6 @@ figcaption { color: var(--muted); font-size: .9rem; }
 """
 
 
-def _fmt(x, spec, unit=""):
-    return "n/a" if x is None or not math.isfinite(x) else f"{x:{spec}}{unit}"
-
-
-def _hundredths(x) -> str:
-    """A time left in seconds to 0.01, "n/a" when unknown; never "-0.00".
-
-    >>> _hundredths(-0.004), _hundredths(-0.012), _hundredths(float("nan"))
-    ('0.00', '-0.01', 'n/a')
-    """
-    from limitlap.compare import hundredths
-
-    if x is None or not math.isfinite(x):
-        return "n/a"
-    return f"{hundredths(x):.2f}"
-
-
-def _laptime(t):
-    if t is None or not math.isfinite(t):
-        return "n/a"
-    m, s = divmod(t, 60.0)
-    return f"{int(m)}:{s:06.3f}" if m >= 1 else f"{s:.3f} s"
-
-
 def _lap_ranges(numbers) -> str:
     """``[1, 2, 3, 5]`` -> ``"1-3, 5"``.
 
@@ -1082,17 +1059,17 @@ def report_html(v: _View, figure_list) -> str:
         f"<style>{_CSS}</style>",
         "</head>",
         "<body>",
-        f"<h1>Lap {v.lap_number}: {e(_laptime(v.lap_time_s))}, ideal {e(_laptime(v.ideal_time_s))}</h1>",
+        f"<h1>Lap {v.lap_number}: {e(lap_time(v.lap_time_s))}, ideal {e(lap_time(v.ideal_time_s))}</h1>",
         f'<p class="sub">{e(Path(v.source).name or "session")} &middot; '
         f"{v.lap_distance_m:.0f} m lap &middot; {v.n_laps} complete laps in the session</p>",
         '<div class="cards">',
     ]
     cards = [
-        ("", "lap time", _laptime(v.lap_time_s)),
-        ("ideal", f"ideal at grip {v.grip_scale:.2f}", _laptime(v.ideal_time_s)),
-        ("left", "time left", _fmt(v.time_left_s, ".2f", " s")),
-        ("", "grip estimate", _fmt(v.grip_estimate, ".2f")),
-        ("", "best of your laps", _laptime(v.best_time_s)),
+        ("", "lap time", lap_time(v.lap_time_s)),
+        ("ideal", f"ideal at grip {v.grip_scale:.2f}", lap_time(v.ideal_time_s)),
+        ("left", "time left", number(v.time_left_s, ".2f", " s")),
+        ("", "grip estimate", number(v.grip_estimate, ".2f")),
+        ("", "best of your laps", lap_time(v.best_time_s)),
     ]
     for cls, k, val in cards:
         out.append(
@@ -1130,13 +1107,13 @@ def report_html(v: _View, figure_list) -> str:
         cells = [
             str(i),
             f"{c['name']} {c['label']}" if c.get("label") else c["name"],
-            _hundredths(c["time_left_s"]),
-            _fmt(c["actual_s"], ".2f"),
-            _fmt(c["ideal_s"], ".2f"),
-            f"{_fmt(c['min_speed_actual_kmh'], '.0f')} / {_fmt(c['min_speed_ideal_kmh'], '.0f')}",
-            f"{_fmt(c['brake_start_actual_m'], '.0f')} / {_fmt(c['brake_start_ideal_m'], '.0f')}",
-            _fmt(100 * c["grip_used"], ".0f", " %"),
-            _fmt(_f(c.get("grip_estimate")), ".2f"),
+            time_left(c["time_left_s"]),
+            number(c["actual_s"], ".2f"),
+            number(c["ideal_s"], ".2f"),
+            f"{number(c['min_speed_actual_kmh'], '.0f')} / {number(c['min_speed_ideal_kmh'], '.0f')}",
+            f"{number(c['brake_start_actual_m'], '.0f')} / {number(c['brake_start_ideal_m'], '.0f')}",
+            number(100 * c["grip_used"], ".0f", " %"),
+            number(_f(c.get("grip_estimate")), ".2f"),
             c["plain"],
         ]
         tds = [f'<td class="{"t" if j in (1, 9) else ""}">{e(x)}</td>' for j, x in enumerate(cells)]

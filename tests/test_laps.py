@@ -7,12 +7,12 @@ import numpy as np
 import pymap3d
 import pytest
 
+from limitlap.cli import format_laps_table
 from limitlap.errors import InputError, LimitlapError
 from limitlap.laps import (
     Gate,
     auto_gate,
     fastest_lap,
-    format_laps_table,
     gate_crossings,
     laps_json,
     laps_table,

@@ -6,8 +6,8 @@ import math
 
 import pytest
 
+from limitlap import cli, solve, targets
 from limitlap import corners as corners_mod
-from limitlap import solve, targets
 from limitlap.errors import LimitlapError
 from limitlap.units import KMH_TO_M_S, RHO_ISA_KG_M3
 from limitlap.vehicle import Vehicle
@@ -118,6 +118,15 @@ def test_lower_grip_is_never_faster_and_matches_the_solver(line, corners):
     assert all([c.apex_m for c in t.corners] == [c.apex_m for c in corners] for t in tables)
 
 
+def test_terminal_table_rounds_the_lap_time_before_the_minutes(line, corners):
+    # 119.9996 s rounds to 120.000 s: "2:00.000" (the table printed "1:60.000" before).
+    import dataclasses
+
+    table = targets.target_table(line, EXAMPLE_CAR, 1.0, corners, label="dry")
+    text = cli.format_targets_table(dataclasses.replace(table, lap_time_s=119.9996))
+    assert "ideal lap 2:00.000" in text and "1:60" not in text
+
+
 def test_json_form_matches_the_interface(line, corners):
     tables = targets.target_tables(line, EXAMPLE_CAR, ["dry", "wet"], corners)
     doc = targets.targets_json(tables)
@@ -146,7 +155,7 @@ def test_json_form_matches_the_interface(line, corners):
 
 def test_terminal_table_and_conditions(line, corners):
     table = targets.target_table(line, EXAMPLE_CAR, 0.85, corners, label="damp")
-    text = targets.format_targets_table(table)
+    text = cli.format_targets_table(table)
     assert "damp" in text and "0.85" in text
     assert all(c.name in text for c in corners)
     assert "theoretical estimates" in text  # the caution goes with every table
