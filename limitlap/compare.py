@@ -141,7 +141,7 @@ class CornerComparison:
     advice: str
 
     def summary_dict(self) -> dict:
-        """The INTERFACE §5 corner keys first (km/h where the key says so), then extras.
+        """The docs/outputs.md, summary.json corner keys first (km/h where the key says so), then extras.
 
         NaN becomes ``None`` (JSON null); values are not rounded.
         """
@@ -258,7 +258,7 @@ def advice_line(name, time_left_s, brake_later_m, min_speed_gain_m_s, full_drive
     str
         Speeds in km/h, distances in m. Differences under 2 m or 1 km/h are left out
         (common practice: engineers discuss brake points to a few metres and apex speeds
-        to 1-2 km/h, REFERENCES §7).
+        to 1-2 km/h, docs/methods.md, Rules of thumb).
 
     Examples
     --------
@@ -386,7 +386,7 @@ def compare_lap(
     -----
     Segment times are elapsed-time differences at the segment bounds (linear in
     distance between stations), so they add up to the lap times and the corners' time
-    left to the lap's (INTERFACE §5). Brake start is where brake pressure first exceeds
+    left to the lap's (docs/outputs.md, summary.json). Brake start is where brake pressure first exceeds
     5 % of the lap's 99th-percentile pressure, or without pressure where a_x first falls
     below -2.5 m/s², in the braking zone before the minimum speed, interpolated between
     stations. Full drive is throttle ≥ 98 %, or without throttle (and always for the

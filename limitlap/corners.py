@@ -244,10 +244,10 @@ def find_corners(
     The apexes of a bend are the stations of locally largest smoothed |curvature|
     whose peak stands out by at least 30 % of its height (the middle of the run when
     the value is a plateau, as on a constant-radius arc); the main apex is the largest. For
-    every vehicle of INTERFACE §3 the cornering speed limit
+    every vehicle of docs/formats.md, Vehicle files the cornering speed limit
     :math:`v^2 = \mu g / (|\kappa| - \mu k_z/m)` is strictly decreasing in
     :math:`|\kappa|` where grip limits at all, so these are the local minima of the
-    speed limit, the QSS critical points (REFERENCES §1.2), for any car: no vehicle
+    speed limit, the QSS critical points (docs/methods.md, Ideal lap (QSS solver)), for any car: no vehicle
     is needed. Boundaries sit halfway between one corner's exit and the next one's
     turn-in. Thresholds are common practice, not published values.
     """

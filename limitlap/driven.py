@@ -1,6 +1,6 @@
 r"""The driven line of a lap: low-rate GNSS fused with speed and the inertial channels.
 
-Curvature from GNSS positions alone is dominated by their noise (REFERENCES §3.2: about
+Curvature from GNSS positions alone is dominated by their noise (docs/methods.md, Driven line: about
 15 % radius error from three 1 m-noise points on a 50 m corner). The line of a lap is
 therefore rebuilt in two fixed-interval smoothing steps at the log's full rate, then
 closed and resampled by distance:
@@ -24,7 +24,7 @@ closed and resampled by distance:
    periodic Gaussian kernel; height is a periodic low-pass (Fourier) of the GNSS
    altitude, gradient its derivative.
 
-Curvature is cross-checked against :math:`a_y/v^2` and :math:`r/v` (REFERENCES §3.1,
+Curvature is cross-checked against :math:`a_y/v^2` and :math:`r/v` (docs/methods.md, Driven line,
 :math:`\kappa = a_n / v^2 = \dot\chi / v`), and, independently of the fusion, the
 GNSS-only curvature of a smoothing spline (SciPy's ``make_smoothing_spline``) is
 compared with both channels; the figures go into :attr:`DrivenLap.agreement`.
@@ -615,7 +615,7 @@ def reconstruct_lap(log, lap, spacing_m: float = 1.0) -> DrivenLap:
 
 
 def line_csv_text(line: Line) -> str:
-    """The line as INTERFACE §2 x/y text: ``x [m],y [m]`` (and ``z [m]`` when known).
+    """The line as docs/formats.md, Line files x/y text: ``x [m],y [m]`` (and ``z [m]`` when known).
 
     Parameters
     ----------

@@ -1,6 +1,6 @@
 r"""The g-g-V grip envelope fitted to a driver's best samples, and the grip estimate.
 
-The envelope is the point-mass model of INTERFACE §3 (functions in
+The envelope is the point-mass model of docs/formats.md, Vehicle files (functions in
 :mod:`limitlap.limits`, shared with the solver): with :math:`q = \tfrac12\rho v^2` and
 :math:`N = m g + q C_L A`, the tyre forces obey
 
@@ -10,14 +10,14 @@ The envelope is the point-mass model of INTERFACE §3 (functions in
 :math:`F_x = m a_x + q C_D A + C_{rr} m g`, :math:`F_y = m a_y`; power is a separate
 limit :math:`F_x \le P/v`, as in the solver.
 
-Fitting follows the polar-binning method (REFERENCES §2.2): normalise every sample by
+Fitting follows the polar-binning method (docs/methods.md, Envelope fit): normalise every sample by
 a provisional envelope at its own speed, so the boundary becomes the unit superellipse;
 bin by speed band and by direction; take the sample at a high quantile of the
 normalised radius in each bin as a boundary point; fit the physical parameters to the
 boundary points with robust least squares; repeat the normalisation with the fitted
 envelope until the parameters settle. A high quantile rather than the maximum keeps
 single spikes out (for samples uniform over the area the q-quantile of the normalised
-radius is :math:`\sqrt q`, REFERENCES §2.2).
+radius is :math:`\sqrt q`, docs/methods.md, Envelope fit).
 
 References
 ----------
@@ -61,7 +61,7 @@ from limitlap.vehicle import Vehicle
 ROLLING_COEFF_DEFAULT = 0.012
 
 #: Plausibility windows for fitted values: (low, high, unit label, factor to the label).
-#: Lateral limit from REFERENCES T4.6 (0.5-6 g); the others are common practice, no
+#: Lateral limit from docs/checks.md, C4.6 (0.5-6 g); the others are common practice, no
 #: published source (wide enough for road cars to single-seaters).
 PLAUSIBLE = {
     "lateral_g": (0.5, 6.0),
@@ -356,7 +356,7 @@ def fit_envelope(
     selection: Selection | None = None,
     remove_noise: bool = True,
 ) -> EnvelopeFit:
-    """Fit the g-g-V envelope of INTERFACE §3 to the samples a driver demonstrated.
+    """Fit the g-g-V envelope of docs/formats.md, Vehicle files to the samples a driver demonstrated.
 
     Parameters
     ----------
@@ -375,7 +375,7 @@ def fit_envelope(
         (:func:`select_samples`). [Hz]
     quantile : float, default 0.99
         Rank of the boundary sample in each bin; 0.95-0.99 is the usual range
-        (REFERENCES §2.2). [-]
+        (docs/methods.md, Envelope fit). [-]
     band_width_m_s : float, default 5.0
         Width of the speed bands. [m/s]
     n_angle_bins : int, default 36

@@ -331,7 +331,7 @@ def curvature_check_figure(
 ) -> bytes:
     """Data check: the rebuilt line's curvature against a_y/v² and yaw rate/v.
 
-    The three are the same quantity measured three ways (κ = a_n/v² = χ̇/v; REFERENCES §3.1
+    The three are the same quantity measured three ways (κ = a_n/v² = χ̇/v; docs/methods.md, Driven line
     identities), so they should lie on top of one another; where they part, the line, and
     every result built on it, is less certain there.
 

@@ -63,7 +63,7 @@ def required_grip_scale(speed_m_s, accel_lon_m_s2, accel_lat_m_s2, vehicle: Vehi
 
     Notes
     -----
-    k multiplies the three friction coefficients only (INTERFACE §3). The tyre law's
+    k multiplies the three friction coefficients only (docs/formats.md, Vehicle files). The tyre law's
     limits are all proportional to k, so its share at scale k is :math:`u_1/k`, with
     :math:`u_1` the tyre share at k = 1; power is a separate limit
     :math:`F_x \le P/v` that k does not change (:func:`limitlap.limits.combined_usage`,

@@ -53,7 +53,7 @@ def _number(path, key, value, *, may_be_zero):
 
 
 def read_vehicle(path, *, require_complete: bool = True) -> Vehicle:
-    """Read a vehicle file (INTERFACE §3).
+    """Read a vehicle file (docs/formats.md, Vehicle files).
 
     Parameters
     ----------
@@ -141,7 +141,7 @@ def _column_name(header_cell: str) -> tuple[str, str]:
 
 
 def read_line(path, *, spacing_m: float = 1.0) -> Line:
-    """Read a line file (INTERFACE §2): ``x [m], y [m] (, z [m])`` or
+    """Read a line file (docs/formats.md, Line files): ``x [m], y [m] (, z [m])`` or
     ``distance [m], curvature [1/m] (, gradient [-])``.
 
     Returns
@@ -207,7 +207,7 @@ _UNIT_ALIASES = {
 
 @dataclass(frozen=True)
 class ChannelSpec:
-    """Where one channel of INTERFACE §1 is found in a log with other column names.
+    """Where one channel of docs/formats.md, Log files is found in a log with other column names.
 
     Attributes
     ----------
@@ -226,7 +226,7 @@ class ChannelSpec:
 
 @dataclass(frozen=True)
 class ChannelMap:
-    """A channel-map file: INTERFACE §1 channel name -> :class:`ChannelSpec`."""
+    """A channel-map file: docs/formats.md, Log files channel name -> :class:`ChannelSpec`."""
 
     path: str
     channels: dict[str, ChannelSpec]
@@ -268,7 +268,7 @@ def _open_toml(path: Path, what: str) -> dict:
 
 
 def read_channel_map(path) -> ChannelMap:
-    """Read a channel-map file (INTERFACE §1) that names a log's columns.
+    """Read a channel-map file (docs/formats.md, Log files) that names a log's columns.
 
     The file holds one table per channel::
 

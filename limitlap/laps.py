@@ -1,6 +1,6 @@
 """Laps of a session: from the log's ``lap`` column or from crossings of a start/finish gate.
 
-Numbering follows INTERFACE §1: lap 0 runs from the start of the log to the first gate
+Numbering follows docs/formats.md, Log files: lap 0 runs from the start of the log to the first gate
 crossing (out-lap, not complete), lap 1 is the first complete lap, and the stretch after
 the last crossing is not complete. Times and distances are SI (s, m).
 """
@@ -36,7 +36,7 @@ class Lap:
     Attributes
     ----------
     number : int
-        0 for the out-lap, 1 for the first complete lap (INTERFACE §1).
+        0 for the out-lap, 1 for the first complete lap (docs/formats.md, Log files).
     start_time_s, end_time_s : float
         Gate crossing (or log start/end) times, interpolated between rows. [s]
     time_s : float
@@ -346,7 +346,7 @@ def _make_laps(log: Log, bounds, numbers, complete, reasons) -> list[Lap]:
 
 
 def split_laps(log: Log, gate: Gate | tuple[float, float] | None = None) -> list[Lap]:
-    """Split a log into laps (INTERFACE §1 numbering).
+    """Split a log into laps (docs/formats.md, Log files numbering).
 
     Parameters
     ----------
@@ -464,7 +464,7 @@ def laps_table(laps: list[Lap]) -> list[dict]:
 
 
 def laps_json(laps: list[Lap]) -> dict:
-    """INTERFACE §4 form: ``{"laps": [{"number", "time_s", "distance_m", "complete"}, ...]}``
+    """docs/outputs.md, Target sheets form: ``{"laps": [{"number", "time_s", "distance_m", "complete"}, ...]}``
     plus ``reason`` and ``fastest``; times to 1 ms, distances to 1 cm."""
     return {
         "laps": [

@@ -59,7 +59,7 @@ class Line:
 
 
 def line_from_curvature(distance_m, curvature_1_m, gradient=None, *, closed=True, length_m=None):
-    """Line from a distance/curvature table (INTERFACE §2, second form).
+    """Line from a distance/curvature table (docs/formats.md, Line files, second form).
 
     Parameters
     ----------

@@ -40,7 +40,7 @@ class Log:
     time_s : numpy.ndarray
         Time of each row, strictly increasing. [s]
     channels : dict[str, numpy.ndarray]
-        INTERFACE §1 channel name -> values per row in SI (``speed`` m/s, ``accel_*``
+        docs/formats.md, Log files channel name -> values per row in SI (``speed`` m/s, ``accel_*``
         m/s², ``yaw_rate`` rad/s, ``throttle`` 0-1, ``brake`` Pa, ``steer`` rad,
         ``altitude`` m). NaN where the row left the cell blank (lower-rate channels).
         Position is always planar: ``x`` east and ``y`` north in metres; a WGS84 log is
@@ -596,7 +596,7 @@ def _first_bad(rows, mask):
 
 
 def read_log(path, channel_map=None, *, on_channels=None, defer=()) -> Log:
-    """Read a session log (INTERFACE §1) into SI arrays on the log's own time base.
+    """Read a session log (docs/formats.md, Log files) into SI arrays on the log's own time base.
 
     Parameters
     ----------

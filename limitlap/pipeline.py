@@ -304,7 +304,7 @@ def analyse(
     Parameters
     ----------
     log_path : path
-        Session log (INTERFACE §1).
+        Session log (docs/formats.md, Log files).
     vehicle : path or Vehicle, optional
         Vehicle file; a complete one with ``[grip]`` is used as the envelope, otherwise
         (mass only, or no file) the envelope is fitted to this log's flying laps

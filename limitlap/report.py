@@ -32,7 +32,7 @@ from limitlap.errors import InputError, LimitlapError
 from limitlap.formatting import lap_time, number, time_left
 from limitlap.units import KMH_TO_M_S, KW_TO_W
 
-#: Schema string of summary.json (INTERFACE §5).
+#: Schema string of summary.json (docs/outputs.md, summary.json).
 SUMMARY_SCHEMA = "limitlap.summary/1"
 
 #: The safety caution every report and target sheet carries.
@@ -133,7 +133,7 @@ _DECIMALS = (
     ("_kmh", 2),
     ("_1_m", 7),
     # Times stay at full precision: the corners' time left must add up to the lap's
-    # (INTERFACE §5), which rounding each value separately would break.
+    # (docs/outputs.md, summary.json), which rounding each value separately would break.
     ("_s", None),
     ("_m", 3),
 )
@@ -182,7 +182,7 @@ def summary_json_text(summary: Mapping) -> str:
     Parameters
     ----------
     summary : Mapping
-        INTERFACE §5 content, SI and km/h as the keys say.
+        docs/outputs.md, summary.json content, SI and km/h as the keys say.
 
     Returns
     -------
@@ -259,7 +259,7 @@ def _comment_value(v) -> str:
 
 
 def envelope_toml_text(vehicle, fit_info=None) -> str:
-    """The vehicle in the INTERFACE §3 TOML form, fit quality as comments.
+    """The vehicle in the docs/formats.md, Vehicle files TOML form, fit quality as comments.
 
     Parameters
     ----------
@@ -328,7 +328,7 @@ def _csv_cell(text: str) -> str:
 
 
 def profile_csv_text(columns: Mapping, units: Mapping) -> str:
-    """CSV of equal-length numeric columns, headers ``name [unit]`` (INTERFACE §1 style).
+    """CSV of equal-length numeric columns, headers ``name [unit]`` (docs/formats.md, Log files style).
 
     Parameters
     ----------
@@ -470,7 +470,7 @@ def _plain_line(rec) -> str:
 
 
 def corner_rows(comparison) -> list[dict]:
-    """Per-corner records of a comparison as plain dicts with the INTERFACE §5 fields.
+    """Per-corner records of a comparison as plain dicts with the docs/outputs.md, summary.json fields.
 
     Accepts records (dataclass, mapping or namespace) with the §5 names; speeds may come
     as ``..._kmh`` or ``..._m_s``. Extra fields are kept; ``plain`` holds the
@@ -675,7 +675,7 @@ def _view(analysis) -> _View:
 
 
 def build_summary(analysis) -> dict:
-    """The INTERFACE §5 summary of an Analysis, plus corner extras and the warnings.
+    """The docs/outputs.md, summary.json summary of an Analysis, plus corner extras and the warnings.
 
     Parameters
     ----------
@@ -1278,7 +1278,7 @@ def targets_csv_text(conditions, *, length_m: float | None = None) -> str:
     Parameters
     ----------
     conditions : list
-        Records of :func:`limitlap.targets.target_table` (INTERFACE §4 fields).
+        Records of :func:`limitlap.targets.target_table` (docs/outputs.md, Target sheets fields).
 
     Returns
     -------
@@ -1330,7 +1330,7 @@ def write_target_sheets(
     Parameters
     ----------
     conditions : list
-        Records of :func:`limitlap.targets.target_table` (INTERFACE §4 fields; an optional
+        Records of :func:`limitlap.targets.target_table` (docs/outputs.md, Target sheets fields; an optional
         ``condition``/``label`` names it, e.g. "wet").
     out_dir : str or Path
         Output folder; made when missing (its parent must exist).

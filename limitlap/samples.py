@@ -173,7 +173,7 @@ def select_samples(
         low-pass filtered; without it (e.g. samples on distance stations) neither. [Hz]
     cutoff_hz : float, default 3.0
         Half-power (-3 dB) frequency of the zero-phase Gaussian low-pass [4]_; "a few Hz"
-        is common practice, no published source (REFERENCES §2.2). [Hz]
+        is common practice, no published source (docs/methods.md, Envelope fit). [Hz]
     persistence_s : float, default 0.3
         Width of the running median: a value must last about half of it to count as
         sustained grip (0.2-0.5 s is common practice, no published source). [s]

@@ -192,7 +192,7 @@ def solve_profile(
     line : Line
         Closed lap or open stretch.
     vehicle : Vehicle
-        Complete vehicle (INTERFACE §3).
+        Complete vehicle (docs/formats.md, Vehicle files).
     grip_scale : float
         Grip scale k, 0.2-2.0: multiplies the three friction coefficients only. [-]
     entry_speed_m_s, exit_speed_m_s : float, optional
@@ -208,13 +208,13 @@ def solve_profile(
 
     Notes
     -----
-    Envelope of INTERFACE §3, with :math:`q = \tfrac12\rho v^2`,
+    Envelope of docs/formats.md, Vehicle files, with :math:`q = \tfrac12\rho v^2`,
     :math:`N = m g + q C_L A`: lateral :math:`\mu_y N`, braking
     :math:`\mu_b N + q C_D A + C_{rr} m g`, driving :math:`\min(\mu_t N, P/v) - q C_D A -
     C_{rr} m g`, combined on the tyre forces
     :math:`(|F_x|/F_{x,max})^n + (|F_y|/F_{y,max})^n \le 1`. Gradient adds
     :math:`-g\sin\theta` to the longitudinal balance; its (second-order) effect on the
-    normal load is left out, as in INTERFACE §3.
+    normal load is left out, as in docs/formats.md, Vehicle files.
     """
     curvature, sin_grad, ds = _line_arrays(line)
     veh = vehicle_array(vehicle, grip_scale)

@@ -474,7 +474,7 @@ class Session:
     time_s : numpy.ndarray
         Row times from 0 at the sample rate. [s]
     channels : dict of str to numpy.ndarray
-        INTERFACE §1 channel -> SI values per row, NaN in blank cells: ``latitude``,
+        docs/formats.md, Log files channel -> SI values per row, NaN in blank cells: ``latitude``,
         ``longitude`` [deg], ``altitude`` [m], ``speed`` [m/s], ``accel_lon``,
         ``accel_lat`` [m/s²], ``yaw_rate`` [rad/s], ``throttle`` [0-1], ``brake`` [Pa],
         ``steer`` [rad], ``gear`` [-].
@@ -822,7 +822,7 @@ def generate_session(
 # --------------------------------------------------------------------------- CSV text
 
 #: Columns of :func:`session_csv_text`: channel, header unit, factor SI -> that unit,
-#: decimals. Units are INTERFACE §1 spellings; factors come from :mod:`limitlap.units`.
+#: decimals. Units are docs/formats.md, Log files spellings; factors come from :mod:`limitlap.units`.
 _CSV_COLUMNS = (
     ("latitude", "deg", 1.0, 8),
     ("longitude", "deg", 1.0, 8),
@@ -839,7 +839,7 @@ _CSV_COLUMNS = (
 
 
 def session_csv_text(session: Session, *, lap_column: bool = False, columns=None) -> str:
-    """The session as INTERFACE §1 CSV text, e.g. ``time [s],latitude [deg],...``.
+    """The session as docs/formats.md, Log files CSV text, e.g. ``time [s],latitude [deg],...``.
 
     Blank cells where a channel has no sample (GNSS between fixes).
 

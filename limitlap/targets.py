@@ -1,7 +1,7 @@
 r"""Targets before a session: per-corner speeds and brake points for a grip scale.
 
-For each condition (a grip scale k on the envelope's friction coefficients, INTERFACE
-§3) the ideal profile is solved on the line and read corner by corner: the speed where
+For each condition (a grip scale k on the envelope's friction coefficients,
+docs/formats.md, Vehicle files) the ideal profile is solved on the line and read corner by corner: the speed where
 braking starts, the brake point (from the gate and before the apex), the minimum speed,
 the speed at the end of the corner's segment and the segment time. The corners are
 found once on the line and reused for every condition, so the tables line up.
@@ -296,7 +296,7 @@ def _r(x, nd):
 
 
 def targets_json(conditions: Sequence[TargetCondition]) -> dict:
-    """The ``targets --json`` form of INTERFACE §4 (km/h, m, s).
+    """The ``targets --json`` form of docs/outputs.md, Target sheets (km/h, m, s).
 
     Distances and speeds are rounded to 0.1, times to 0.001; a corner taken without
     braking has ``brake_start_m`` null.

@@ -1,5 +1,5 @@
 """Plain-Python twin of the QSS kernels, written independently of ``_kernels`` from the
-INTERFACE §3 formulas, used to check the numba kernels and as the benchmark yardstick."""
+docs/formats.md, Vehicle files formulas, used to check the numba kernels and as the benchmark yardstick."""
 
 from __future__ import annotations
 

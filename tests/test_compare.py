@@ -92,7 +92,7 @@ def test_corners_found_in_driving_order_with_double_apex(lap):
 
 
 def test_apexes_at_arcs_of_smallest_speed_limit():
-    # REFERENCES T1.7: on straights and arcs the apexes coincide with the arcs of locally
+    # docs/checks.md, C1.7: on straights and arcs the apexes coincide with the arcs of locally
     # smallest cornering speed limit, within one station. The compound corner here
     # (R=60, then R=25, then R=60 with no straight between) must put its apex in the
     # R=25 arc; v_lim comes from the solver's own cornering_speed_limit on the raw
@@ -143,7 +143,7 @@ def test_segments_tile_the_lap_and_time_left_adds_up(lap):
     assert (corners_mod.segment_index(line.distance_m, line.length_m, corners) >= 0).all()
     # One segment runs through the gate (boundary halfway along the first straight).
     assert sum(c.start_m > c.end_m for c in corners) == 1
-    # REFERENCES T1.10 / INTERFACE §5: the corners' time left adds up to the lap's,
+    # docs/checks.md, C1.10 / docs/outputs.md, summary.json: the corners' time left adds up to the lap's,
     # 1e-9 s (the segment times telescope; what is left is float rounding).
     assert sum(c.time_left_s for c in cmp.corners) == pytest.approx(cmp.time_left_s, abs=1e-9)
     assert sum(c.actual_s for c in cmp.corners) == pytest.approx(real.lap_time_s, abs=1e-9)
@@ -160,7 +160,7 @@ def test_segments_tile_the_lap_and_time_left_adds_up(lap):
 
 
 def test_rotated_gate_keeps_corners_and_times():
-    # REFERENCES T1.8 (rotating the start of a closed line leaves the lap unchanged): with
+    # docs/checks.md, C1.8 (rotating the start of a closed line leaves the lap unchanged): with
     # the gate moved into the T1 braking zone, the same corners come out shifted, one of
     # them now straddling the gate, and the segments still tile the lap.
     line0, _ = build(LAYOUT)
@@ -216,7 +216,7 @@ def test_planted_slow_corner_costs_time_there_and_brakes_earlier(lap):
 
 
 def test_brake_and_min_speed_fields_reproduce_known_values(lap):
-    # REFERENCES T7.2: brake start within 1 m and minimum speed within 0.5 km/h of the
+    # docs/checks.md, C7.2: brake start within 1 m and minimum speed within 0.5 km/h of the
     # known values when the channels are dense (here one sample per 1 m station, finer
     # than 100 Hz below 100 m/s).
     line, arcs, corners, ideal = lap
@@ -282,7 +282,7 @@ def test_summary_dict_has_the_interface_keys(lap):
         "brake_start_actual_m",
         "brake_start_ideal_m",
         "grip_used",
-    ]  # INTERFACE §5, in its order
+    ]  # docs/outputs.md, summary.json, in its order
     d = cmp.corners[0].summary_dict()
     assert list(d)[: len(keys)] == keys
     # km/h by the exact factor 3.6 (SI brochure).

@@ -58,7 +58,7 @@ def circle_session():
 
 
 def test_noisy_gnss_circle_curvature_t31():
-    # REFERENCES T3.1: circle R = 100 m, 10 Hz, white noise σ = 0.3 m per coordinate,
+    # docs/checks.md, C3.1: circle R = 100 m, 10 Hz, white noise σ = 0.3 m per coordinate,
     # GNSS only: median |Δκ|/κ < 0.10, 95th percentile < 0.35.
     c = synth.circle_circuit(100.0)
     s = synth.generate_session(
@@ -82,7 +82,7 @@ def test_fusion_beats_gnss_only_and_recovers_the_radius(circle_session):
     e_alone, _ = curvature_error(alone, s.truth.line)
     rms_fused = np.sqrt(np.mean(e_fused**2)) / k[0]
     rms_alone = np.sqrt(np.mean(e_alone**2)) / k[0]
-    assert rms_fused < rms_alone  # REFERENCES T3.2
+    assert rms_fused < rms_alone  # docs/checks.md, C3.2
     # Issue 3: radius within 2 % with the inertial channels (median over the lap; the
     # GNSS-only figure is kept beside it for comparison).
     radius = 1.0 / np.median(fused.line.curvature_1_m)
@@ -96,7 +96,7 @@ def test_closure_t33(circle_session):
     dl = driven.reconstruct_lap(session_log(s), truth_lap(s, 2))
     line = dl.line
     ds = line.length_m / line.n
-    # REFERENCES T3.3: first and last point within 0.5 m after the closure step (the
+    # docs/checks.md, C3.3: first and last point within 0.5 m after the closure step (the
     # last station is one station step before the first).
     gap = math.hypot(line.x_m[0] - line.x_m[-1], line.y_m[0] - line.y_m[-1])
     assert abs(gap - ds) < 0.5
@@ -109,7 +109,7 @@ def test_closure_t33(circle_session):
 
 
 def test_signs_t35(circle_session):
-    # ISO 8855 / REFERENCES T3.5: CCW circle -> κ > 0, r > 0, a_y > 0.
+    # ISO 8855 / docs/checks.md, C3.5: CCW circle -> κ > 0, r > 0, a_y > 0.
     s = circle_session
     dl = driven.reconstruct_lap(session_log(s), truth_lap(s, 1))
     assert (dl.line.curvature_1_m > 0).all()
@@ -137,7 +137,7 @@ def test_demo_lap_line_and_speed():
     assert elapsed < 1.0  # contract: well under a second per lap
     line = dl.line
     assert line.length_m == pytest.approx(tr.line.length_m, rel=5e-3)  # issue 3: 0.5 %
-    # Ideal lap on the rebuilt line against the truth: 0.5 % (REFERENCES §7: gaps above
+    # Ideal lap on the rebuilt line against the truth: 0.5 % (docs/methods.md, Rules of thumb: gaps above
     # 0.5 % between correct solvers on smooth lines point to a bug; measured 0.1 % here).
     ideal = solve_profile(line, tr.vehicle).lap_time_s
     assert ideal == pytest.approx(tr.ideal_lap_time_s, rel=5e-3)

@@ -1,7 +1,7 @@
-"""Tests of the g-g-V envelope fit and the grip estimate (limitlap.envelope).
+"""Tests of the g-g-V envelope fit and the grip estimate (limitlap.envelope, limitlap.samples, limitlap.grip).
 
-Sources are named beside each check; "REFERENCES Tx.y" is the project's research note of
-published methods and check values.
+Sources are named beside each check; "docs/checks.md, Cx.y" names the check and where its
+value comes from.
 """
 
 import math
@@ -35,7 +35,7 @@ def superellipse_samples(rng, n, a_x, b_y, exponent, noise=0.0):
 
 
 def ggv_samples(rng, vehicle, n, v_lo=12.0, v_hi=80.0, on_limit=0.3, noise=0.05):
-    """Samples on and inside the speed-dependent envelope of INTERFACE §3.
+    """Samples on and inside the speed-dependent envelope of docs/formats.md, Vehicle files.
 
     Each sample: a speed, a point of the unit superellipse of the vehicle's exponent
     scaled by the tyre force limits at that speed (mu N), the driving force cut at the
@@ -67,20 +67,20 @@ def friction_base(mass_kg=1000.0):
     return Vehicle("pure g-g", mass_kg, math.inf, 0.0, 0.0, 0.0)
 
 
-# --- REFERENCES T2.1-T2.5: the pure g-g diagram -------------------------------------
+# --- docs/checks.md, C2.1-C2.5: the pure g-g diagram -------------------------------------
 
 
 @pytest.fixture(scope="module")
 def t21_data():
-    # REFERENCES T2.1: A = 1.30 g, B = 1.45 g, n = 2.5, noise sigma = 0.02 g.
+    # docs/checks.md, C2.1: A = 1.30 g, B = 1.45 g, n = 2.5, noise sigma = 0.02 g.
     rng = np.random.default_rng(21)
     ax, ay = superellipse_samples(rng, 40_000, 1.30 * G, 1.45 * G, 2.5, noise=0.02 * G)
     return np.full(ax.size, 30.0), ax, ay
 
 
 def test_superellipse_recovery_t21(t21_data):
-    # REFERENCES T2.1 (polar binning + high quantile, §2.2): A, B within 2 %, n within
-    # 10 % -- the tolerances of the research note.
+    # docs/checks.md, C2.1 (polar binning + high quantile, §2.2): A, B within 2 %, n within
+    # 10 % (docs/checks.md, C2.1).
     v, ax, ay = t21_data
     fit = envelope.fit_envelope(v, ax, ay, friction_base())
     car = fit.vehicle
@@ -96,7 +96,7 @@ def test_superellipse_recovery_t21(t21_data):
 
 
 def test_quantile_statistic_t22():
-    # REFERENCES T2.2 [D]: for samples uniform over an ellipse's area the normalised
+    # docs/checks.md, C2.2 [D]: for samples uniform over an ellipse's area the normalised
     # radius has CDF rho^2 in every direction, so a bin's q-quantile is sqrt(q).
     # 40 000 points in 36 bins = about 1100 per bin (the note asks >= 500); tolerance
     # 0.01 from the note (a 0.99 order statistic of ~1100 samples scatters by ~0.003).
@@ -114,7 +114,7 @@ def test_quantile_statistic_t22():
 
 
 def test_spikes_move_fit_little_but_hull_a_lot_t23(t21_data):
-    # REFERENCES T2.3: 0.5 % spikes at 3 g change the fitted limits by < 2 %; the convex
+    # docs/checks.md, C2.3: 0.5 % spikes at 3 g change the fitted limits by < 2 %; the convex
     # hull of the same data is the negative control and must move by more than that.
     v, ax, ay = t21_data
     rng = np.random.default_rng(23)
@@ -136,7 +136,7 @@ def test_spikes_move_fit_little_but_hull_a_lot_t23(t21_data):
 
 
 def test_convex_hull_sanity_t25():
-    # REFERENCES T2.5 [R]: the hull of 40 000 uniform points in an ellipse covers
+    # docs/checks.md, C2.5 [R]: the hull of 40 000 uniform points in an ellipse covers
     # 0.99-1.00 of its area (the note saw 0.9968) and every sample is inside or on it
     # (hull.equations . [x, y, 1] <= 1e-12, rounding).
     rng = np.random.default_rng(25)
@@ -163,7 +163,7 @@ def ggv_fit(ggv_data):
 
 
 def test_ggv_recovers_friction_aero_and_power(ggv_fit):
-    # Samples from the INTERFACE §3 model of the example vehicle (Crr = 0.012, the
+    # Samples from the docs/formats.md, Vehicle files model of the example vehicle (Crr = 0.012, the
     # default the fit assumes). Friction 3 % and exponent 10 % are issue 4's acceptance
     # tolerances. Power 3 %, drag area 10 %, downforce area 5 % are ours: downforce comes
     # from the v² growth of the lateral limit (well determined), power from the driving
@@ -214,7 +214,7 @@ def test_ggv_fit_quality_and_bands(ggv_fit, ggv_data):
 
 
 def test_envelope_boundary_lies_on_combined_limit():
-    # REFERENCES T1.11: boundary points satisfy the superellipse (combined usage 1) to
+    # docs/checks.md, C1.11: boundary points satisfy the superellipse (combined usage 1) to
     # 1e-12 (rounding), for n = 1.5, 2, 3, with and without aero and power.
     for n in (1.5, 2.0, 3.0):
         car = replace(EXAMPLE_CAR, exponent=n)
@@ -258,7 +258,7 @@ def test_grip_estimate_wet_session_and_own_data(ggv_data):
 
 
 def test_grip_estimate_on_fitted_envelope_is_near_one(ggv_fit, ggv_data):
-    # INTERFACE §5: near 1 when the envelope was fitted from the same session (± 0.02).
+    # docs/outputs.md, summary.json: near 1 when the envelope was fitted from the same session (± 0.02).
     k = grip.grip_estimate(*ggv_data, ggv_fit.vehicle)
     assert k == pytest.approx(1.0, abs=0.02)
 
@@ -385,7 +385,7 @@ def test_fit_on_a_time_series_with_kerb_strikes():
 
 
 def test_implausible_lateral_limit_is_a_warning_not_an_error(t21_data):
-    # REFERENCES T4.6: a fitted lateral limit outside 0.5-6 g must warn, not crash.
+    # docs/checks.md, C4.6: a fitted lateral limit outside 0.5-6 g must warn, not crash.
     v, ax, ay = t21_data
     fit = envelope.fit_envelope(v, 5.0 * ax, 5.0 * ay, friction_base())
     assert any("lateral limit" in w and "6.0 g" in w for w in fit.warnings)
@@ -456,7 +456,7 @@ def test_generated_session_recovers_traction(dry_session_fit):
 def test_wet_session_grip_estimate_with_dry_envelope(dry_session_fit):
     # Issue 4: a wet session (generator at grip 0.72) analysed with the dry envelope
     # fitted above gives grip_estimate within 0.03 of the truth; the dry session on its
-    # own envelope gives 1 (± 0.02, INTERFACE §5 "near 1").
+    # own envelope gives 1 (± 0.02, docs/outputs.md, summary.json "near 1").
     from limitlap import synth
 
     dry, dry_mask, fit = dry_session_fit
@@ -604,7 +604,7 @@ def test_flat_out_bend_gets_no_grip_estimate():
     # Through a flat-out bend the driving force sits on the power limit P/v and the tyres
     # are asked for little of their grip: those samples show the engine's limit, so the
     # segment gets no estimate (NaN), while a segment at 80 % of the lateral limit reads
-    # 0.80 (the tyre share of INTERFACE §3 at zero longitudinal force is a_y / a_y,max).
+    # 0.80 (the tyre share of docs/formats.md, Vehicle files at zero longitudinal force is a_y / a_y,max).
     car = EXAMPLE_CAR
     v = np.full(200, 60.0)
     m = car.mass_kg
@@ -646,7 +646,7 @@ def test_filtered_noise_is_the_noise_left_after_the_low_pass():
 
 def _samples_off_the_limit(rng, car, offsets_m_s2, inside_share=0.0):
     """Samples at radial distances ``offsets`` [m/s²] from the tyre limit of ``car`` in
-    the tyre-force plane (the superellipse of INTERFACE §3, as ``envelope_boundary``
+    the tyre-force plane (the superellipse of docs/formats.md, Vehicle files, as ``envelope_boundary``
     draws it, without the power cut), a share of them well inside (at 80 % of it)."""
     n = offsets_m_s2.size
     v = rng.uniform(20.0, 60.0, n)

@@ -70,7 +70,7 @@ def test_units_match_their_exact_definitions(tmp_path):
 @pytest.mark.parametrize(
     ("header", "value", "expected"),
     [
-        ("speed", "36", 10.0),  # no unit: first listed (km/h, INTERFACE §1)
+        ("speed", "36", 10.0),  # no unit: first listed (km/h, docs/formats.md, Log files)
         ("speed [KM/H]", "36", 10.0),
         ("speed [kph]", "36", 10.0),
         ("Speed [m/s]", "10", 10.0),
@@ -181,7 +181,7 @@ def test_reads_a_long_session_in_about_polars_time(tmp_path):
 
 
 def test_channel_map_renames_converts_and_inverts(tmp_path):
-    # REFERENCES T6.2: the same log with accel_lat and yaw_rate negated (a logger whose
+    # docs/checks.md, C6.2: the same log with accel_lat and yaw_rate negated (a logger whose
     # lateral sign is + in a right turn), read through a map with invert = true,
     # reproduces the ISO 8855 log exactly.
     circle = Circle(duration_s=5.0)

@@ -285,7 +285,7 @@ def test_summary_json_has_interface_fields_and_tiles(written, analysis):
     }
     for c in data["corners"]:
         assert fields <= set(c)
-    # Tiling (INTERFACE §5): corners' time left add up to the lap's. Rounding is 1e-5 s
+    # Tiling (docs/outputs.md, summary.json): corners' time left add up to the lap's. Rounding is 1e-5 s
     # per value (summary rounding), so the sum can differ by at most n * 5e-6 s.
     total = sum(c["time_left_s"] for c in data["corners"])
     assert total == pytest.approx(data["time_left_s"], abs=len(data["corners"]) * 5e-6 + 1e-9)
@@ -308,7 +308,7 @@ def test_summary_json_text_rounds_and_rejects_nothing_silently():
     text = report.summary_json_text(
         {"x_s": np.float64(1 / 3), "y_m": 1 / 3, "n": np.int64(4), "bad_m": float("nan"), "v": [np.float32(0.5)]}
     )
-    # Times keep full precision (corner times must add up to the lap's, INTERFACE §5);
+    # Times keep full precision (corner times must add up to the lap's, docs/outputs.md, summary.json);
     # distances are rounded to the millimetre.
     assert json.loads(text) == {"x_s": 1 / 3, "y_m": 0.333, "n": 4, "bad_m": None, "v": [0.5]}
     with pytest.raises(Exception, match="unsupported type"):
@@ -605,7 +605,7 @@ def test_report_renders_in_headless_chromium(written, tmp_path):
 
 def test_track_corner_labels_reach_summary_and_report(tmp_path):
     # A track file names its corners ("T4" -> "Kettle Hairpin" on the bundled invented
-    # circuit): the labels must reach summary.json (an extra "label" key, INTERFACE §5
+    # circuit): the labels must reach summary.json (an extra "label" key, docs/outputs.md, summary.json
     # allows more keys) and the report's corner table, and only where the file gives one.
     from limitlap import ingest, pipeline
     from limitlap.resources import bundled_path

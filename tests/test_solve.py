@@ -38,7 +38,7 @@ def test_standard_constants():
 def test_constant_radius_circle(radius_m, mu, v_ref, t_ref):
     # Steady-state cornering v = sqrt(mu g R) (Milliken & Milliken 1995, steady-state
     # cornering); lap 2 pi R / v. Closed forms: 1e-9 is rounding; the 4-5 digit reference
-    # values (REFERENCES 1.5 a) agree to their printed precision.
+    # values (docs/checks.md, S-a) agree to their printed precision.
     p = solve.solve_profile(circle(radius_m), friction_car(mu))
     v = math.sqrt(mu * G0_M_S2 * radius_m)
     assert p.speed_m_s == pytest.approx(v, rel=1e-9)
@@ -65,7 +65,7 @@ def test_stadium_closed_form(ds_m):
     vc = math.sqrt(mu * G0_M_S2 * R)
     vp = math.sqrt(vc**2 + mu * G0_M_S2 * L)
     t_ref = 2 * math.pi * R / vc + 4 * (vp - vc) / (mu * G0_M_S2)
-    assert t_ref == pytest.approx(25.3516, abs=1e-4)  # REFERENCES 1.5 c
+    assert t_ref == pytest.approx(25.3516, abs=1e-4)  # docs/checks.md, S-c
     p = solve.solve_profile(stadium(L, R, ds_m), friction_car(mu))
     assert p.lap_time_s == pytest.approx(t_ref, rel=1e-3)
     # The peak sits mid-straight; the corner exit is resolved to one station, which moves
@@ -74,13 +74,13 @@ def test_stadium_closed_form(ds_m):
 
 
 def test_stadium_friction_ellipse_and_grip_scale_law():
-    # REFERENCES 1.5 c': mu_lat 1.45 / mu_trac 1.30 / mu_brk 1.55 -> 21.1177 s [D].
+    # docs/checks.md, S-c′: mu_lat 1.45 / mu_trac 1.30 / mu_brk 1.55 -> 21.1177 s [D].
     car = friction_car(1.45, mu_brk=1.55, mu_trac=1.30)
     line = stadium(200.0, 50.0, 0.25)
     t1 = solve.solve_profile(line, car).lap_time_s
     assert t1 == pytest.approx(21.1177, rel=1e-3)
     # Grip-scale law: friction only -> every v² scales by k, T sqrt(k) constant; exact in
-    # the discrete equations (REFERENCES 1.5 d), so 1e-9 is rounding.
+    # the discrete equations (docs/checks.md, S-d), so 1e-9 is rounding.
     for k in (0.8, 0.7, 0.6):
         tk = solve.solve_profile(line, car, k).lap_time_s
         assert tk * math.sqrt(k) == pytest.approx(t1, rel=1e-9)
@@ -91,7 +91,7 @@ def test_stadium_friction_ellipse_and_grip_scale_law():
 def test_aero_corner_speed_and_critical_radius():
     # With downforce: v² = mu g R / (1 - mu R rho ClA / (2 m)) (Milliken & Milliken, aero
     # load on the steady-state corner); critical radius R_c = m / (mu k_z), k_z = rho ClA / 2
-    # (Lenzo & Rossi 2020, Applied Sciences 10(4):1498). REFERENCES 1.2 [D]: example car
+    # (Lenzo & Rossi 2020, Applied Sciences 10(4):1498). docs/methods.md, Ideal lap (QSS solver) [D]: example car
     # R = 100 m -> 39.2110 m/s, R_c = 1330.7 m. Closed forms: 1e-9 rounding.
     car = EXAMPLE_CAR
     k_z = 0.5 * car.air_density_kg_m3 * car.downforce_area_m2
@@ -106,7 +106,7 @@ def test_aero_corner_speed_and_critical_radius():
 
 
 def test_aero_circle_solver_matches_formula():
-    # REFERENCES T1.5: the example car's downforce, no drag or power limit: speed equals the
+    # docs/checks.md, C1.5: the example car's downforce, no drag or power limit: speed equals the
     # closed form at every station (1e-9: rounding).
     car = Vehicle("aero", 1300.0, math.inf, 0.0, 1.10, 0.0, mu_lat=1.45, mu_brk=1.55, mu_trac=1.30, exponent=2.0)
     p = solve.solve_profile(circle(100.0), car)
@@ -115,7 +115,7 @@ def test_aero_circle_solver_matches_formula():
 
 def test_beyond_critical_radius_settles_at_power_drag_top_speed():
     # R = 2000 m > R_c: not grip-limited; with power and drag the car settles where
-    # P = v (rho CdA v² / 2 + Crr m g): 91.849 m/s for the example car (REFERENCES 1.5 f).
+    # P = v (rho CdA v² / 2 + Crr m g): 91.849 m/s for the example car (docs/checks.md, S-f).
     car = EXAMPLE_CAR
     from scipy.optimize import brentq
 
@@ -133,7 +133,7 @@ def test_beyond_critical_radius_settles_at_power_drag_top_speed():
 
 def test_power_limited_acceleration_closed_form():
     # No drag or rolling, traction never binds: P = m v dv/dt -> v³ = v0³ + 3 P s / m
-    # (REFERENCES 1.5 i). Heun steps at 0.1 m: 1e-6 relative measured margin class.
+    # (docs/checks.md, S-i). Heun steps at 0.1 m: 1e-6 relative measured margin class.
     car = Vehicle("power", 1300.0, 370e3, 0.0, 0.0, 0.0, mu_lat=5.0, mu_brk=5.0, mu_trac=50.0, exponent=2.0)
     line = straight(500.0, 0.1)
     p = solve.solve_profile(line, car, entry_speed_m_s=20.0)
@@ -143,7 +143,7 @@ def test_power_limited_acceleration_closed_form():
 
 def test_drive_with_drag_against_solve_ivp():
     # Example car from 20 m/s on a straight: forward pass against scipy.integrate.solve_ivp
-    # (DOP853, rtol = atol = 1e-10) on dv/ds = a_x,drv(v) / v (INTERFACE §3). 1e-5: Heun
+    # (DOP853, rtol = atol = 1e-10) on dv/ds = a_x,drv(v) / v (docs/formats.md, Vehicle files). 1e-5: Heun
     # error at ds = 0.1 m is far below; measured max |rel| ~1e-7.
     car = EXAMPLE_CAR
     line = straight(800.0, 0.1)
@@ -158,7 +158,7 @@ def test_drive_with_drag_against_solve_ivp():
 
 def test_braking_distance_with_drag_and_downforce():
     # d = ln(1 + B v0² / A) / (2 B), A = mu_b g + Crr g, B = (mu_b rho ClA / 2 + rho CdA / 2) / m
-    # (derived from the INTERFACE §3 braking limit). REFERENCES 1.5 e': 250 -> 0 km/h,
+    # (derived from the docs/formats.md, Vehicle files braking limit). docs/checks.md, S-e′: 250 -> 0 km/h,
     # example car: 134.236 m. Also against solve_ivp on dv/ds = -a_brk(v) / v.
     car = EXAMPLE_CAR
     rho = car.air_density_kg_m3
@@ -178,7 +178,7 @@ def test_braking_distance_with_drag_and_downforce():
     hit = lambda s, y: y[0] - 0.5  # noqa: E731 - stop at 0.5 m/s: 1/v is singular at rest
     hit.terminal = True
     sol = solve_ivp(rhs, (0, 200.0), [v0], method="DOP853", rtol=1e-10, atol=1e-10, events=hit)
-    # The last 0.5 m/s take a_brk(0) ~ 15.3 m/s²: 0.5²/(2·15.3) = 0.008 m (REFERENCES 1.5 e').
+    # The last 0.5 m/s take a_brk(0) ~ 15.3 m/s²: 0.5²/(2·15.3) = 0.008 m (docs/checks.md, S-e′).
     assert sol.t_events[0][0] + 0.5**2 / (2 * a) == pytest.approx(d, abs=2e-3)
 
 
@@ -195,7 +195,7 @@ def test_mesh_independence_on_example_line():
 
 
 def test_periodic_rotation_and_mirror():
-    # REFERENCES T1.8/T1.12: rotating the start of a closed line leaves the lap time
+    # docs/checks.md, C1.8/C1.12: rotating the start of a closed line leaves the lap time
     # unchanged; mirroring it (left <-> right) too. 1e-9: summation order only.
     line = random_smooth_loop(3)
     base = solve.solve_profile(line, EXAMPLE_CAR)
@@ -212,7 +212,7 @@ def test_periodic_rotation_and_mirror():
 
 
 def test_direction_reversal_depends_on_asymmetric_limits():
-    # REFERENCES T1.12: reversing the direction gives the same time only when braking and
+    # docs/checks.md, C1.12: reversing the direction gives the same time only when braking and
     # traction limits are equal.
     line = random_smooth_loop(5)
     rev = line_from_curvature(line.distance_m, -line.curvature_1_m[::-1].copy(), length_m=line.length_m)
@@ -312,7 +312,7 @@ def test_a_grade_the_car_cannot_take_is_named(what):
     # A closed 4 km loop of gentle bends with a long 60 % grade (sin 0.514): 1.5 km up
     # from 500 m, or 500 m down from 1000 m into a 15 m hairpin. At walking pace the car
     # climbs while mu_t k > Crr + sin(theta) and holds itself on a descent while
-    # mu_b k + Crr > -sin(theta) (INTERFACE §3's longitudinal balance at v = 0). At grip
+    # mu_b k + Crr > -sin(theta) (the Vehicle files format's longitudinal balance at v = 0). At grip
     # scale 0.3 both fail (0.288 and 0.312 against 0.514): the climb stops the car, the
     # descent cannot be slowed for the hairpin. The error must name the grade, where it
     # is and the steepest the car can take; with full grip the same line completes.

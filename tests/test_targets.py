@@ -1,4 +1,4 @@
-"""Target tables per grip scale against the grip-scale laws of REFERENCES §7 (T7.1)."""
+"""Target tables per grip scale against the grip-scale laws of docs/methods.md, Rules of thumb (T7.1)."""
 
 import itertools
 import json
@@ -33,7 +33,7 @@ def corners(line):
 
 
 def test_lap_time_ratios_within_the_grip_scale_bounds(line, corners):
-    # REFERENCES T7.1: with CdA = ClA = Crr = 0 and finite power every acceleration limit
+    # docs/checks.md, C7.1: with CdA = ClA = Crr = 0 and finite power every acceleration limit
     # shrinks by a factor between k and 1, and the profile is monotone in the limits, so
     # 1 <= T(k)/T(1) <= k^-1/2 [D]. 1e-9 relative slack: float rounding of the passes.
     car = Vehicle(
@@ -49,7 +49,7 @@ def test_lap_time_ratios_within_the_grip_scale_bounds(line, corners):
 
 
 def test_grip_limited_minimum_speed_with_downforce_follows_the_aero_law(line, corners):
-    # REFERENCES §7 [D]: with downforce, v_lim^2(k)/v_lim^2(1) =
+    # docs/methods.md, Rules of thumb [D]: with downforce, v_lim^2(k)/v_lim^2(1) =
     # k (kappa - mu k_z/m) / (kappa - k mu k_z/m), k_z = rho ClA / 2, at the apex of every
     # grip-limited corner (no drag or rolling resistance, so the ideal holds v_lim on an
     # arc exactly). 1e-6 relative: float rounding of the solver's v = sqrt(b).
@@ -78,7 +78,7 @@ def test_grip_limited_minimum_speed_with_downforce_follows_the_aero_law(line, co
 
 
 def test_friction_only_car_scales_with_sqrt_k_and_brake_points_stay(line, corners):
-    # REFERENCES summary item 4 [D]: limited only by friction, every limit scales by k, so
+    # docs/checks.md, S-d [D]: limited only by friction, every limit scales by k, so
     # v_k = sqrt(k) v_1 at every station (also in the discrete scheme) and the brake points
     # do not move. Speeds: 1e-9 relative (rounding); brake points: 1 m (the fixed
     # -2.5 m/s² threshold is crossed at a different point of one 1 m step).
@@ -133,7 +133,7 @@ def test_json_form_matches_the_interface(line, corners):
     json.dumps(doc, allow_nan=False)  # plain JSON, no NaN
     assert list(doc) == ["conditions"]
     cond = doc["conditions"][1]
-    # INTERFACE §4 `targets --json` keys, exactly.
+    # docs/outputs.md, Target sheets `targets --json` keys, exactly.
     assert list(cond) == ["grip_scale", "lap_time_s", "corners"]
     assert list(cond["corners"][0]) == [
         "name",
