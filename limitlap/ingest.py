@@ -60,7 +60,7 @@ def read_vehicle(path, *, require_complete: bool = True) -> Vehicle:
     path : str or Path
         TOML file.
     require_complete : bool
-        When True every key of §3 except ``air_density_kg_m3`` and ``[grip]`` must be
+        When True every key of a vehicle file (docs/formats.md) except ``air_density_kg_m3`` and ``[grip]`` must be
         present; when False only ``mass_kg`` is required (the rest is fitted from a log).
 
     Returns

@@ -472,7 +472,7 @@ def _plain_line(rec) -> str:
 def corner_rows(comparison) -> list[dict]:
     """Per-corner records of a comparison as plain dicts with the docs/outputs.md, summary.json fields.
 
-    Accepts records (dataclass, mapping or namespace) with the §5 names; speeds may come
+    Accepts records (dataclass, mapping or namespace) with the summary.json corner names (docs/outputs.md); speeds may come
     as ``..._kmh`` or ``..._m_s``. Extra fields are kept; ``plain`` holds the
     plain-language line.
 
@@ -510,7 +510,7 @@ def corner_rows(comparison) -> list[dict]:
         }
         row["plain"] = _plain_line({**rec, **row})
         if callable(getattr(obj, "summary_dict", None)):
-            row["_summary"] = obj.summary_dict()  # the comparison's own §5 record
+            row["_summary"] = obj.summary_dict()  # the comparison's own summary.json record
         for k, v in rec.items():
             if (
                 k not in row
@@ -684,7 +684,7 @@ def build_summary(analysis) -> dict:
     Returns
     -------
     dict
-        Keys in §5 order; values SI or km/h as the keys say (not yet rounded).
+        Keys in the order of docs/outputs.md, summary.json; values SI or km/h as the keys say (not yet rounded).
     """
     v = _view(analysis)
     corners = []

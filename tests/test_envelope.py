@@ -79,8 +79,7 @@ def t21_data():
 
 
 def test_superellipse_recovery_t21(t21_data):
-    # docs/checks.md, C2.1 (polar binning + high quantile, §2.2): A, B within 2 %, n within
-    # 10 % (docs/checks.md, C2.1).
+    # docs/checks.md, C2.1 (polar binning + high quantile): A, B within 2 %, n within 10 %.
     v, ax, ay = t21_data
     fit = envelope.fit_envelope(v, ax, ay, friction_base())
     car = fit.vehicle
