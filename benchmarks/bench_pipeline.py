@@ -8,7 +8,7 @@ the small bundled demo log (numba cache loaded, lazy imports done):
 - ``parse``: polars ``read_csv`` of the same file alone -- the yardstick, which is also
   timed in every measurement's own process just before each run (the ratios use that);
 - ``read_log``: limitlap's reader (parse, units, ENU), for information;
-- ``analyse``: ``pipeline.analyse`` + ``report.write_outputs(figures=False)``;
+- ``analyse``: ``pipeline.analyse`` + ``outputs.write_outputs(figures=False)``;
 - ``analyse+report``: the same with the figures (``figures=True``);
 - ``targets``: corners and target tables for dry, damp and wet on the analysed line;
 - ``sweep``: 1,000 grip scales on that line (``solve.lap_times_for_scales``).
@@ -59,7 +59,7 @@ def _child(name: str, path: str, repeats: int) -> None:
     import polars as pl
 
     from limitlap import corners as corners_mod
-    from limitlap import logfile, pipeline, report, solve
+    from limitlap import logfile, outputs, pipeline, solve
     from limitlap import targets as targets_mod
     from limitlap.resources import bundled_path
 
@@ -68,7 +68,7 @@ def _child(name: str, path: str, repeats: int) -> None:
     figures = name == "analyse+report"
     demo = bundled_path("demo_tracks", "tarrowby_dry.csv.gz")
     warm = pipeline.analyse(demo)  # numba cache, lazy imports
-    report.write_outputs(warm, out_dir, figures=figures)
+    outputs.write_outputs(warm, out_dir, figures=figures)
     scales = np.linspace(0.2, 2.0, 1000)
 
     setup = None
@@ -85,7 +85,7 @@ def _child(name: str, path: str, repeats: int) -> None:
             logfile.read_log(path)
         elif name in ("analyse", "analyse+report"):
             a = pipeline.analyse(path)
-            report.write_outputs(a, out_dir, figures=figures)
+            outputs.write_outputs(a, out_dir, figures=figures)
         elif name == "targets":
             corners = corners_mod.find_corners(setup[0])
             targets_mod.target_tables(setup[0], setup[1], list(CONDITIONS), corners)

@@ -1,7 +1,7 @@
 """Many logs at once: one analysis and output folder per log, and a combined table.
 
 ``run_batch`` runs :func:`limitlap.pipeline.analyse` and
-:func:`limitlap.report.write_outputs` for every log, in a process pool by default
+:func:`limitlap.outputs.write_outputs` for every log, in a process pool by default
 (:class:`concurrent.futures.ProcessPoolExecutor`, one worker per core), or on a Dask
 cluster (``dask.distributed``, the optional ``limitlap[dask]`` extra) when given a
 scheduler address; the workers then need the logs and the output folder on a shared
@@ -153,7 +153,7 @@ def analyse_job(job: _Job) -> BatchRow:
     """
     import gc
 
-    from limitlap import pipeline, report
+    from limitlap import outputs, pipeline
 
     gc.freeze()  # the imports' objects out of the collector's way for the job (cli._settle_imports)
     try:
@@ -167,7 +167,7 @@ def analyse_job(job: _Job) -> BatchRow:
             track=job.track,
         )
         Path(job.out_dir).parent.mkdir(parents=True, exist_ok=True)
-        report.write_outputs(analysis, job.out_dir, figures=job.figures)
+        outputs.write_outputs(analysis, job.out_dir, figures=job.figures)
     except LimitlapError as err:
         return BatchRow(job.log, job.out_dir, error=str(err))
     except Exception as err:

@@ -74,9 +74,9 @@ def solve(
     the_line = ingest.read_line(line)
     profile = solver.solve_profile(the_line, car, k)
     if out is not None:
-        from limitlap import report
+        from limitlap import outputs
 
-        report.write_atomic(out, report.solve_profile_csv_text(profile, the_line))
+        outputs.write_atomic(out, outputs.solve_profile_csv_text(profile, the_line))
     result = {
         "lap_time_s": round(profile.lap_time_s, 3),
         "min_speed_kmh": round(_kmh(float(profile.speed_m_s.min())), 2),
@@ -197,7 +197,7 @@ def _settle_imports() -> None:
 
 
 def _analyse_one(log, vehicle, k, lap, gate, channels, track, out, quiet, figures=True):
-    from limitlap import pipeline, report
+    from limitlap import outputs, pipeline
 
     _settle_imports()
 
@@ -207,7 +207,7 @@ def _analyse_one(log, vehicle, k, lap, gate, channels, track, out, quiet, figure
             log, vehicle=vehicle, grip_scale=k, lap=lap, gate=gate, channels=channels,
             track=track, progress=bar,
         )
-        written = report.write_outputs(analysis, out, figures=figures, progress=bar)
+        written = outputs.write_outputs(analysis, out, figures=figures, progress=bar)
     finally:
         bar.close()
     return analysis, written
@@ -215,7 +215,7 @@ def _analyse_one(log, vehicle, k, lap, gate, channels, track, out, quiet, figure
 
 def _analyse_batch(logs, out, quiet, scheduler, **options) -> None:
     """Several logs (or folders): one output folder each, a combined table, batch.csv."""
-    from limitlap import batch, report
+    from limitlap import batch, outputs, report
 
     found = batch.find_logs(logs)
     bar = _Progress(quiet, "logs")
@@ -230,7 +230,7 @@ def _analyse_batch(logs, out, quiet, scheduler, **options) -> None:
         for w in row.warnings:  # each line names its log
             typer.echo(f"limitlap: warning: {w if w.startswith(row.log) else f'{row.log}: {w}'}", err=True)
     typer.echo(batch.format_batch_table(rows))
-    table = report.write_atomic(Path(out) / "batch.csv", batch.batch_csv_text(rows))
+    table = outputs.write_atomic(Path(out) / "batch.csv", batch.batch_csv_text(rows))
     typer.echo(f"\nwritten to {out}/: one folder per log, {table.name}")
     typer.echo(report.SAFETY_CAUTION)
     if not all(row.ok for row in rows):
@@ -306,9 +306,9 @@ def targets(
     corners = corners_mod.find_corners(line, names, apexes_m=apexes)
     conditions = targets_mod.target_tables(line, car, grip, corners)
     if out is not None:
-        from limitlap import report
+        from limitlap import outputs
 
-        report.write_target_sheets(conditions, out, trk.name if trk else where)
+        outputs.write_target_sheets(conditions, out, trk.name if trk else where)
     if as_json:
         typer.echo(json.dumps(targets_mod.targets_json(conditions)))
         return
@@ -326,7 +326,7 @@ def demo(
     quiet: bool = typer.Option(False, "--quiet", help="No progress display."),
 ) -> None:
     """The whole job on the bundled demo session: report, figures and target sheets."""
-    from limitlap import report
+    from limitlap import outputs
     from limitlap import targets as targets_mod
     from limitlap.resources import bundled_path
 
@@ -338,7 +338,7 @@ def demo(
     typer.echo(_corner_table(analysis))
     corners = analysis.corners
     conditions = targets_mod.target_tables(analysis.driven.line, analysis.vehicle, ["dry", "damp", "wet"], corners)
-    report.write_target_sheets(conditions, out, analysis.track_name or "demo circuit")
+    outputs.write_target_sheets(conditions, out, analysis.track_name or "demo circuit")
     for cond in conditions:
         typer.echo("")
         typer.echo(format_targets_table(cond))

@@ -96,6 +96,35 @@ MIN_CORRELATION = 0.9
 MAX_RELATIVE_RMS = 0.25
 
 
+#: Slowest speed at which the curvature cross-check divides by speed. [m/s]
+CHECK_MIN_SPEED_M_S = 10.0
+
+
+@dataclass(frozen=True, eq=False)
+class CurvatureCheck:
+    """The line's curvature measured two more ways, at its stations (NaN where unknown).
+
+    Attributes
+    ----------
+    from_accel_lat_1_m, from_yaw_rate_1_m : numpy.ndarray
+        :math:`a_y/v^2` and :math:`r/v`, smoothed as the line's curvature; NaN below
+        :data:`CHECK_MIN_SPEED_M_S` and where the log has no such channel. [1/m]
+    fast : numpy.ndarray of bool
+        Stations faster than :data:`CHECK_MIN_SPEED_M_S`. [-]
+    """
+
+    from_accel_lat_1_m: np.ndarray
+    from_yaw_rate_1_m: np.ndarray
+    fast: np.ndarray
+
+    @property
+    def available(self) -> bool:
+        """Whether either channel gave a curvature anywhere. [-]"""
+        return bool(
+            np.isfinite(self.from_accel_lat_1_m).any() or np.isfinite(self.from_yaw_rate_1_m).any()
+        )
+
+
 @dataclass(frozen=True, eq=False)
 class DrivenLap:
     """The line a lap actually drove, with the lap's channels on its stations (SI).
@@ -120,6 +149,8 @@ class DrivenLap:
     lap_time_s : float or None
         The lap's time gate to gate (from the lap split), so comparisons close the lap
         exactly as the lap table does. [s]
+    curvature_check : CurvatureCheck or None
+        The line's curvature from a_y/v² and r/v, for the data check.
     """
 
     line: Line
@@ -135,6 +166,7 @@ class DrivenLap:
     warnings: list[str] = field(default_factory=list)
     steer_rad: np.ndarray | None = None
     lap_time_s: float | None = None
+    curvature_check: CurvatureCheck | None = None
 
 
 # --------------------------------------------------------------------------- smoothers
@@ -405,9 +437,57 @@ def reconstruct_lap(log, lap, spacing_m: float = 1.0) -> DrivenLap:
     """
     if not spacing_m > 0:
         raise LimitlapError("station spacing must be positive")
+    warnings: list[str] = []
+    rows = _lap_rows(log, lap)
+    rate, rate_var, used, gnss_kappa = _heading_rate(log, lap, rows, warnings)
+    psi, bias = _heading(rows, rate, rate_var, used)
+    px, py, s_row = _positions(rows, psi)
+    line, st = _closed_line(log, lap, rows, psi, px, py, s_row, spacing_m, used)
+    ch = _StationChannels(log, rows, st)
+    speed_st, ay_st, r_st = ch("speed"), ch("accel_lat"), ch("yaw_rate")
+    check = _curvature_check(speed_st, ay_st, r_st, st.ds)
+    agreement = _agreement(log, lap, line.curvature_1_m, ch.along(gnss_kappa), check, warnings)
+    agreement = {"fusion": list(used), "bias_rad_s": float(np.median(bias)), **agreement}
+    if st.closure_gap_m > 5.0:
+        warnings.append(
+            f"{log.path}: lap {lap.number}: the rebuilt lap missed its start by "
+            f"{st.closure_gap_m:.1f} m before the closure correction"
+        )
+    return DrivenLap(
+        line=line,
+        time_s=ch.along(rows.t) - lap.start_time_s,
+        speed_m_s=speed_st,
+        accel_lon_m_s2=ch("accel_lon"),
+        accel_lat_m_s2=ay_st,
+        yaw_rate_rad_s=r_st,
+        throttle=ch("throttle"),
+        brake_pa=ch("brake"),
+        gear=ch("gear", nearest=True),
+        agreement=agreement,
+        warnings=warnings,
+        steer_rad=ch("steer"),
+        lap_time_s=float(lap.time_s) if getattr(lap, "time_s", None) is not None else None,
+        curvature_check=check,
+    )
+
+
+@dataclass(frozen=True, eq=False)
+class _LapRows:
+    """The log's rows of one lap (with ``PAD_S`` either side), as the rebuild uses them."""
+
+    rows: slice
+    t: np.ndarray  # time [s]
+    x_raw: np.ndarray  # east, NaN between fixes [m]
+    y_raw: np.ndarray  # north [m]
+    fix: np.ndarray  # rows with a position fix [-]
+    v: np.ndarray  # speed, gaps filled, >= 0 [m/s]
+    dt: np.ndarray  # time steps [s]
+
+
+def _lap_rows(log, lap) -> _LapRows:
+    """Step 1: the lap's rows, its positions and filled speed; too few rows or fixes raise."""
     t_all = log.time_s
     ch = log.channels
-    warnings: list[str] = []
     if "x" not in ch or "y" not in ch or "speed" not in ch:
         raise LimitlapError(f"{log.path}: a driven line needs position and speed")
     lo = int(np.searchsorted(t_all, lap.start_time_s - PAD_S, side="left"))
@@ -422,10 +502,19 @@ def reconstruct_lap(log, lap, spacing_m: float = 1.0) -> DrivenLap:
     if fix.sum() < 10:
         raise LimitlapError(f"{log.path}: lap {lap.number} has too few position fixes")
     v = np.maximum(_fill(t, ch["speed"][sl]), 0.0)
-    dt = np.diff(t)
+    return _LapRows(sl, t, x_raw, y_raw, fix, v, np.diff(t))
 
-    # ---- heading rate sources -----------------------------------------------------
-    gnss_rate, gnss_kappa = _spline_path(t, x_raw, y_raw, fix)
+
+def _heading_rate(log, lap, rows: _LapRows, warnings: list[str]):
+    """Step 2: heading rate from yaw rate and a_y/v, weighted by their noise.
+
+    A channel whose gain against the GNSS course rate is far from 1 (sign or scale wrong)
+    is left out with a warning. Without inertial channels the GNSS spline's course rate
+    stands in (smoothing by generalised cross-validation). Returns the rate [rad/s], its
+    variance [rad²/s²], the channels used and the GNSS-only curvature per row [1/m].
+    """
+    t, sl, v, ch = rows.t, rows.rows, rows.v, log.channels
+    gnss_rate, gnss_kappa = _spline_path(t, rows.x_raw, rows.y_raw, rows.fix)
     moving = v > MIN_SPEED_M_S
     sources = []
     if log.has("yaw_rate"):
@@ -442,9 +531,9 @@ def reconstruct_lap(log, lap, spacing_m: float = 1.0) -> DrivenLap:
     for name, rate, var in sources:
         # gain of the channel against the GNSS course rate (uncentred, so a steady
         # circle counts): about 1 when sign and scale are right
-        ok = moving
-        g_ref = gnss_rate[ok]
-        gain = float(np.dot(rate[ok], g_ref) / np.dot(g_ref, g_ref)) if ok.sum() > 10 else 1.0
+        g_ref = gnss_rate[moving]
+        ok_n = moving.sum()
+        gain = float(np.dot(rate[moving], g_ref) / np.dot(g_ref, g_ref)) if ok_n > 10 else 1.0
         if not 0.5 < gain < 2.0:
             warnings.append(
                 f"{log.path}: lap {lap.number}: '{name}' does not follow the GNSS course "
@@ -454,20 +543,20 @@ def reconstruct_lap(log, lap, spacing_m: float = 1.0) -> DrivenLap:
         used.append(name)
         num += rate / var
         den += 1.0 / var
-    if not used:  # GNSS alone: let generalised cross-validation pick the smoothing
-        gnss_rate, gnss_kappa = _spline_path(t, x_raw, y_raw, fix, gcv=True)
     if used:
-        rate = num / den
-        rate_var = 1.0 / den
-    else:
-        # The spline's course rate is smooth and already holds all the GNSS information:
-        # trust it like a gyro, and let the course measurements only stop the drift.
-        rate = gnss_rate
-        rate_var = np.full(t.shape, SIGMA_YAW_RAD_S**2)
-        used = ["gnss"]
+        return num / den, 1.0 / den, used, gnss_kappa
+    # GNSS alone: generalised cross-validation picks the smoothing. The spline's course
+    # rate is smooth and already holds all the GNSS information: trust it like a gyro,
+    # and let the course measurements only stop the drift.
+    gnss_rate, gnss_kappa = _spline_path(t, rows.x_raw, rows.y_raw, rows.fix, gcv=True)
+    return gnss_rate, np.full(t.shape, SIGMA_YAW_RAD_S**2), ["gnss"], gnss_kappa
 
-    # ---- heading smoother ----------------------------------------------------------
-    c_idx, course, c_var = _gnss_course(t, x_raw, y_raw, fix)
+
+def _heading(rows: _LapRows, rate, rate_var, used):
+    """Step 3: heading [rad] and gyro bias [rad/s] by the smoother on GNSS course."""
+    t, dt = rows.t, rows.dt
+    moving = rows.v > MIN_SPEED_M_S
+    c_idx, course, c_var = _gnss_course(t, rows.x_raw, rows.y_raw, rows.fix)
     c_ok = moving[c_idx]
     c_idx, course, c_var = c_idx[c_ok], course[c_ok], c_var[c_ok]
     if used == ["gnss"]:
@@ -476,20 +565,37 @@ def reconstruct_lap(log, lap, spacing_m: float = 1.0) -> DrivenLap:
     if c_idx.shape[0]:
         diff = np.unwrap(np.angle(np.exp(1j * (course - psi_dr[c_idx]))))
         course = psi_dr[c_idx] + diff
-    psi, bias = smooth_heading(dt, rate, rate_var, c_idx, course, c_var)
+    return smooth_heading(dt, rate, rate_var, c_idx, course, c_var)
 
-    # ---- position smoother -----------------------------------------------------------
-    fi = np.flatnonzero(fix)
+
+def _positions(rows: _LapRows, psi):
+    """Step 4: east and north by the smoother on the fixes, and distance per row. [m]"""
+    dt, v = rows.dt, rows.v
+    fi = np.flatnonzero(rows.fix)
     vm = 0.5 * (v[1:] + v[:-1]) * dt
     pm = 0.5 * (psi[1:] + psi[:-1])
     fvar = np.full(fi.shape[0], SIGMA_FIX_M**2)
-    px = smooth_track(dt, vm * np.cos(pm), fi, x_raw[fi], fvar)
-    py = smooth_track(dt, vm * np.sin(pm), fi, y_raw[fi], fvar)
+    px = smooth_track(dt, vm * np.cos(pm), fi, rows.x_raw[fi], fvar)
+    py = smooth_track(dt, vm * np.sin(pm), fi, rows.y_raw[fi], fvar)
     s_row = np.concatenate([[0.0], np.cumsum(np.hypot(np.diff(px), np.diff(py)))])
+    return px, py, s_row
 
-    # ---- stations, closure -----------------------------------------------------------
-    s_a = float(np.interp(lap.start_time_s, t, s_row))
-    s_b = float(np.interp(lap.end_time_s, t, s_row))
+
+@dataclass(frozen=True, eq=False)
+class _Stations:
+    """Where the line's stations lie on the rows: distances and the rows kept."""
+
+    s_st: np.ndarray  # station distances along the rows' path, closing station included [m]
+    s_k: np.ndarray  # distance of each kept row (strictly increasing) [m]
+    keep: np.ndarray  # rows kept (a car standing still repeats its distance) [-]
+    ds: float  # station spacing [m]
+    closure_gap_m: float  # how far the rebuilt lap missed its start [m]
+
+
+def _closed_line(log, lap, rows, psi, px, py, s_row, spacing_m, used):
+    """Step 5: stations at even spacing, closure correction, curvature, heights."""
+    s_a = float(np.interp(lap.start_time_s, rows.t, s_row))
+    s_b = float(np.interp(lap.end_time_s, rows.t, s_row))
     length = s_b - s_a
     if not length > 10.0 * spacing_m:
         raise LimitlapError(f"{log.path}: lap {lap.number} is too short for a line")
@@ -511,75 +617,96 @@ def reconstruct_lap(log, lap, spacing_m: float = 1.0) -> DrivenLap:
     x_st, y_st = at(px), at(py)
     gap_x, gap_y = x_st[-1] - x_st[0], y_st[-1] - y_st[0]
     x_c, y_c = x_st - frac * gap_x, y_st - frac * gap_y
-    # curvature: centred differences of the closed heading, periodic Gaussian smoothing
+    kappa = _closed_curvature(psi_c, turns, ds, length)
+    z, grad = _heights(log, rows, s_row, s_st, frac, ds, n_st)
+    gap = float(math.hypot(gap_x, gap_y))
+    meta = {
+        "lap": lap.number,
+        "closure_gap_m": gap,
+        "heading_gap_rad": float(heading_gap),
+        "turns": int(turns),
+        "fusion": list(used),
+    }
+    line = Line(np.arange(n_st) * ds, kappa, grad, length, True, x_c[:-1], y_c[:-1], z, meta)
+    return line, _Stations(s_st, s_k, keep, ds, gap)
+
+
+def _closed_curvature(psi_c, turns, ds, length):
+    """Curvature of the closed heading: centred differences, periodic Gaussian smoothing,
+    then shifted so the lap turns a whole number of turns exactly. [1/m]"""
     loop = psi_c[:-1]
     ahead = np.append(loop[1:], psi_c[-1])
     behind = np.insert(loop[:-1], 0, psi_c[-2] - 2 * math.pi * turns)
     kappa = (ahead - behind) / (2 * ds)
     kappa = gaussian_filter1d(kappa, CURVATURE_SMOOTHING_M / ds, mode="wrap")
     kappa -= (kappa.sum() * ds - 2 * math.pi * turns) / length  # exact whole turn
+    return kappa
 
-    if log.has("altitude"):
-        alt = ch["altitude"][sl]
-        zf = np.isfinite(alt)
-        z_st = np.interp(s_st, s_row[zf], alt[zf])
-        z_st = z_st - frac * (z_st[-1] - z_st[0])
-        z, grad = _periodic_lowpass(z_st[:-1], ds, HEIGHT_CUTOFF_M)
-    else:
-        z, grad = np.zeros(n_st), np.zeros(n_st)
-    line = Line(
-        np.arange(n_st) * ds,
-        kappa,
-        grad,
-        length,
-        True,
-        x_c[:-1],
-        y_c[:-1],
-        z,
-        {
-            "lap": lap.number,
-            "closure_gap_m": float(math.hypot(gap_x, gap_y)),
-            "heading_gap_rad": float(heading_gap),
-            "turns": int(turns),
-            "fusion": list(used),
-        },
-    )
 
-    # ---- channels on the stations -----------------------------------------------------
-    s_in = s_st[:-1]
+def _heights(log, rows, s_row, s_st, frac, ds, n_st):
+    """Heights [m] and gradient [-] at the stations, low-passed and closed; zero without."""
+    if not log.has("altitude"):
+        return np.zeros(n_st), np.zeros(n_st)
+    alt = log.channels["altitude"][rows.rows]
+    zf = np.isfinite(alt)
+    z_st = np.interp(s_st, s_row[zf], alt[zf])
+    z_st = z_st - frac * (z_st[-1] - z_st[0])
+    return _periodic_lowpass(z_st[:-1], ds, HEIGHT_CUTOFF_M)
 
-    def station(name, nearest=False):
-        if not log.has(name):
+
+class _StationChannels:
+    """Step 6: the log's channels on the line's stations (interpolated by distance)."""
+
+    def __init__(self, log, rows: _LapRows, st: _Stations):
+        self.log, self.rows, self.st = log, rows.rows, st
+        self.s_in = st.s_st[:-1]
+
+    def along(self, per_row):
+        """A per-row array at the stations."""
+        return np.interp(self.s_in, self.st.s_k, per_row[self.st.keep])
+
+    def __call__(self, name, nearest=False):
+        n_st = self.s_in.shape[0]
+        if not self.log.has(name):
             return np.full(n_st, np.nan)
-        val = log.channel_rows(name, sl.start, sl.stop)[keep]  # a deferred trace: these rows
+        sl, keep, s_k = self.rows, self.st.keep, self.st.s_k
+        val = self.log.channel_rows(name, sl.start, sl.stop)[keep]  # a deferred trace: these rows
         ok = np.isfinite(val)
         if not ok.any():
             return np.full(n_st, np.nan)
         if nearest:
-            j = np.clip(np.searchsorted(s_k[ok], s_in), 0, ok.sum() - 1)
+            j = np.clip(np.searchsorted(s_k[ok], self.s_in), 0, ok.sum() - 1)
             return val[ok][j].astype(np.float64)
-        return np.interp(s_in, s_k[ok], val[ok])
+        return np.interp(self.s_in, s_k[ok], val[ok])
 
-    time_st = np.interp(s_in, s_k, t[keep]) - lap.start_time_s
-    speed_st = station("speed")
-    ay_st, r_st = station("accel_lat"), station("yaw_rate")
 
-    # ---- cross-check -------------------------------------------------------------------
-    sig = CURVATURE_SMOOTHING_M / ds
-    fast = speed_st > 10.0
-    with np.errstate(divide="ignore", invalid="ignore"):
-        k_ay = gaussian_filter1d(np.nan_to_num(ay_st / speed_st**2), sig, mode="wrap")
-        k_r = gaussian_filter1d(np.nan_to_num(r_st / speed_st), sig, mode="wrap")
-    k_gnss = np.interp(s_in, s_k, gnss_kappa[keep])
-    agreement: dict = {"fusion": list(used), "bias_rad_s": float(np.median(bias))}
-    for name, other, present in (
-        ("accel_lat", k_ay, log.has("accel_lat")),
-        ("yaw_rate", k_r, log.has("yaw_rate")),
-    ):
-        if not present:
+def _curvature_check(speed, accel_lat, yaw_rate, ds) -> CurvatureCheck:
+    """Step 7: curvature from a_y/v² and from r/v at the stations, smoothed as the line's.
+
+    NaN below ``CHECK_MIN_SPEED_M_S``, where dividing by v² magnifies noise, and where the
+    log has no such channel.
+    """
+    fast = np.isfinite(speed) & (speed > CHECK_MIN_SPEED_M_S)
+    series = []
+    for values, denom in ((accel_lat, speed**2), (yaw_rate, speed)):
+        if not np.isfinite(values).any():
+            series.append(np.full(speed.shape, np.nan))
+            continue
+        with np.errstate(divide="ignore", invalid="ignore"):
+            k = np.where(fast, values / denom, 0.0)
+        k = gaussian_filter1d(np.nan_to_num(k), CURVATURE_SMOOTHING_M / max(ds, 1e-6), mode="wrap")
+        series.append(np.where(fast, k, np.nan))
+    return CurvatureCheck(series[0], series[1], fast)
+
+
+def _agreement(log, lap, kappa, k_gnss, check: CurvatureCheck, warnings):
+    """Step 8: how the line's and the GNSS path's curvature agree with each channel's."""
+    agreement: dict = {}
+    for name, other in (("accel_lat", check.from_accel_lat_1_m), ("yaw_rate", check.from_yaw_rate_1_m)):
+        if not log.has(name):
             continue
         for which, kap in (("line", kappa), ("gnss", k_gnss)):
-            fig = _compare(kap, other, fast)
+            fig = _compare(kap, other, check.fast)
             if fig is not None:
                 agreement[f"{which}_vs_{name}"] = fig
         fig = agreement.get(f"gnss_vs_{name}")
@@ -592,26 +719,7 @@ def reconstruct_lap(log, lap, spacing_m: float = 1.0) -> DrivenLap:
                 f"RMS {fig['relative_rms']:.0%} of the curvature; the report's data-check "
                 "figure shows where)"
             )
-    if math.hypot(gap_x, gap_y) > 5.0:
-        warnings.append(
-            f"{log.path}: lap {lap.number}: the rebuilt lap missed its start by "
-            f"{math.hypot(gap_x, gap_y):.1f} m before the closure correction"
-        )
-    return DrivenLap(
-        line=line,
-        time_s=time_st,
-        speed_m_s=speed_st,
-        accel_lon_m_s2=station("accel_lon"),
-        accel_lat_m_s2=ay_st,
-        yaw_rate_rad_s=r_st,
-        throttle=station("throttle"),
-        brake_pa=station("brake"),
-        gear=station("gear", nearest=True),
-        agreement=agreement,
-        warnings=warnings,
-        steer_rad=station("steer"),
-        lap_time_s=float(lap.time_s) if getattr(lap, "time_s", None) is not None else None,
-    )
+    return agreement
 
 
 def line_csv_text(line: Line) -> str:

@@ -20,7 +20,7 @@ import math
 import numpy as np
 import pytest
 
-from limitlap import best_laps, laps, pipeline, report, synth
+from limitlap import best_laps, laps, outputs, pipeline, synth
 from limitlap import corners as corners_mod
 
 SEED_DRY, SEED_WET, SEED_LIMIT = 3, 4, 5
@@ -183,7 +183,7 @@ def wet_with_dry_envelope(dry, dry_analyses, tmp_path_factory):
     # back as the vehicle file, as a user would between two sessions.
     folder = tmp_path_factory.mktemp("wet")
     envelope_file = folder / "envelope.toml"
-    envelope_file.write_text(report.envelope_toml_text(dry_analyses["fitted"].vehicle))
+    envelope_file.write_text(outputs.envelope_toml_text(dry_analyses["fitted"].vehicle))
     wet = synth.generate_session(n_laps=2, lap_variation=0.0, grip_scale=0.72, seed=SEED_WET)
     path = _write(wet, folder / "wet.csv")
     return wet, pipeline.analyse(path, vehicle=envelope_file, gate=_gate(wet))

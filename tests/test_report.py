@@ -17,18 +17,21 @@ import struct
 import subprocess
 import sys
 import tomllib
-import types
 import zlib
 from pathlib import Path
 
 import numpy as np
 import pytest
 
-from limitlap import best_laps, compare, figures, report, targets
+from limitlap import best_laps, compare, figures, outputs, report, targets
 from limitlap import corners as corners_mod
+from limitlap.driven import DrivenLap
+from limitlap.envelope import EnvelopeFit
 from limitlap.errors import InputError
 from limitlap.ingest import read_vehicle
+from limitlap.laps import Lap
 from limitlap.line import line_from_xy
+from limitlap.pipeline import Analysis
 from limitlap.solve import solve_profile
 from limitlap.units import BAR_TO_PA
 from limitlap.vehicle import Vehicle
@@ -63,7 +66,7 @@ def _lap(line, grip_scale, slow_corners, corners, ideal, time_offset_s):
         near = np.abs(line.distance_m - corners[j].apex_m) < 50.0
         cap[near] = np.min(ideal.speed_m_s[near]) * share
     real = solve_profile(line, CAR, grip_scale, speed_cap_m_s=cap)
-    return types.SimpleNamespace(
+    return DrivenLap(
         line=line,
         time_s=real.time_s + time_offset_s,  # log time of the lap's stations
         lap_time_s=real.lap_time_s,
@@ -92,19 +95,26 @@ def make_analysis():
     best = best_laps.best_of_laps(
         [driven, other], corners, reference_length_m=line.length_m, lap_numbers=[3, 4], ideal=ideal
     )
-    ns = types.SimpleNamespace
-    fit = ns(
+    fit = EnvelopeFit(
         vehicle=CAR,
         quality={"n_used": 812, "rms_residual_m_s2": 0.21},
         uncertainty={"mu_lat": 0.012, "mu_brk": 0.02},
         bands=(),
+        used=np.ones(812, dtype=bool),
+        fitted=("mu_lat", "mu_brk"),
         warnings=["few samples near the limit above 150 km/h"],
     )
-    lap = ns(number=3, time_s=driven.lap_time_s, distance_m=line.length_m, complete=True)
-    return ns(
+
+    def lap_record(k):
+        t0 = 431.7 + 90.0 * (k - 3)
+        time_s = driven.lap_time_s if k == 3 else 90.0
+        return Lap(k, t0, t0 + time_s, time_s, line.length_m, k > 0, "", 0, 0)
+
+    laps = [lap_record(k) for k in range(5)]
+    return Analysis(
         log_path="sessions/invented_dry.csv",
-        laps=[ns(number=k, complete=k > 0) for k in range(5)],
-        lap=lap,
+        laps=laps,
+        lap=laps[3],
         driven=driven,
         ideal=ideal,
         vehicle=CAR,
@@ -112,6 +122,7 @@ def make_analysis():
         grip_scale=1.0,
         grip_estimate=0.95,
         comparison=comparison,
+        corners=corners,
         best_of_laps=best,
         warnings=[],
     )
@@ -126,7 +137,7 @@ def analysis():
 def written(analysis, tmp_path_factory):
     out = tmp_path_factory.mktemp("report") / "out"
     steps = []
-    files = report.write_outputs(analysis, out, progress=lambda d, t, s: steps.append((d, t, s)))
+    files = outputs.write_outputs(analysis, out, progress=lambda d, t, s: steps.append((d, t, s)))
     return out, files, steps
 
 
@@ -198,8 +209,8 @@ class _TagChecker(html.parser.HTMLParser):
 
 def test_write_atomic_writes_and_replaces(tmp_path):
     p = tmp_path / "a.txt"
-    report.write_atomic(p, "one\n")
-    report.write_atomic(p, b"two\n")
+    outputs.write_atomic(p, "one\n")
+    outputs.write_atomic(p, b"two\n")
     assert p.read_bytes() == b"two\n"
     assert [q.name for q in tmp_path.iterdir()] == ["a.txt"]  # no temp file left
 
@@ -211,9 +222,9 @@ def test_failed_replace_leaves_previous_file_intact(tmp_path, monkeypatch):
     def boom(src, dst):
         raise OSError(28, "No space left on device")
 
-    monkeypatch.setattr(report.os, "replace", boom)
+    monkeypatch.setattr(outputs.os, "replace", boom)
     with pytest.raises(InputError, match="No space left"):
-        report.write_atomic(p, "new\n")
+        outputs.write_atomic(p, "new\n")
     assert p.read_text() == "previous\n"
     assert [q.name for q in tmp_path.iterdir()] == ["summary.json"]  # temp file removed
 
@@ -226,9 +237,9 @@ def test_interrupted_write_leaves_previous_file_intact(tmp_path, monkeypatch):
     def interrupt(fd):
         raise KeyboardInterrupt
 
-    monkeypatch.setattr(report.os, "fsync", interrupt)
+    monkeypatch.setattr(outputs.os, "fsync", interrupt)
     with pytest.raises(KeyboardInterrupt):
-        report.write_atomic(p, "new\n")
+        outputs.write_atomic(p, "new\n")
     assert p.read_text() == "previous\n"
     assert [q.name for q in tmp_path.iterdir()] == ["report.html"]
 
@@ -237,12 +248,12 @@ def test_unwritable_folder_is_one_clear_input_error(tmp_path, analysis):
     blocker = tmp_path / "not_a_folder"
     blocker.write_text("x")
     with pytest.raises(InputError) as err:
-        report.write_atomic(blocker / "summary.json", "{}")
+        outputs.write_atomic(blocker / "summary.json", "{}")
     assert str(blocker) in str(err.value) and "\n" not in str(err.value)
     with pytest.raises(InputError, match="parent folder does not exist"):
-        report.write_outputs(analysis, tmp_path / "missing" / "out", figures=False)
+        outputs.write_outputs(analysis, tmp_path / "missing" / "out", figures=False)
     with pytest.raises(InputError, match="is a file"):
-        report.write_outputs(analysis, blocker, figures=False)
+        outputs.write_outputs(analysis, blocker, figures=False)
 
 
 @pytest.mark.skipif(
@@ -254,7 +265,7 @@ def test_read_only_folder_is_input_error(tmp_path):
     ro.chmod(0o555)
     try:
         with pytest.raises(InputError, match="cannot be written"):
-            report.write_atomic(ro / "x.json", "{}")
+            outputs.write_atomic(ro / "x.json", "{}")
     finally:
         ro.chmod(0o755)
 
@@ -298,21 +309,21 @@ def test_summary_json_has_interface_fields_and_tiles(written, analysis):
 
 
 def test_summary_json_byte_identical_on_two_runs(tmp_path):
-    a = report.write_outputs(make_analysis(), tmp_path / "one", figures=False)
-    b = report.write_outputs(make_analysis(), tmp_path / "two", figures=False)
+    a = outputs.write_outputs(make_analysis(), tmp_path / "one", figures=False)
+    b = outputs.write_outputs(make_analysis(), tmp_path / "two", figures=False)
     for key in ("summary", "profile", "envelope", "report"):
         assert a[key].read_bytes() == b[key].read_bytes(), key
 
 
 def test_summary_json_text_rounds_and_rejects_nothing_silently():
-    text = report.summary_json_text(
+    text = outputs.summary_json_text(
         {"x_s": np.float64(1 / 3), "y_m": 1 / 3, "n": np.int64(4), "bad_m": float("nan"), "v": [np.float32(0.5)]}
     )
     # Times keep full precision (corner times must add up to the lap's, docs/outputs.md, summary.json);
     # distances are rounded to the millimetre.
     assert json.loads(text) == {"x_s": 1 / 3, "y_m": 0.333, "n": 4, "bad_m": None, "v": [0.5]}
     with pytest.raises(Exception, match="unsupported type"):
-        report.summary_json_text({"thing": object()})
+        outputs.summary_json_text({"thing": object()})
 
 
 # --------------------------------------------------------------------------- envelope.toml, CSV
@@ -326,8 +337,8 @@ def test_envelope_toml_round_trips_through_read_vehicle(tmp_path):
         mu_lat=1.2345678901234567,
         exponent=1.87654321,
     )
-    text = report.envelope_toml_text(car, {"quality": {"rms_m_s2": 0.2, "bands": [1, 2]}, "n": 5})
-    p = report.write_atomic(tmp_path / "envelope.toml", text)
+    text = outputs.envelope_toml_text(car, {"quality": {"rms_m_s2": 0.2, "bands": [1, 2]}, "n": 5})
+    p = outputs.write_atomic(tmp_path / "envelope.toml", text)
     back = read_vehicle(p)
     for f in dataclasses.fields(Vehicle):
         a, b = getattr(car, f.name), getattr(back, f.name)
@@ -436,12 +447,10 @@ def test_minimal_analysis_without_fit_best_map_or_pedals(tmp_path):
     full = make_analysis()
     src = full.driven.line
     line = line_from_curvature(src.distance_m, src.curvature_1_m, length_m=src.length_m)
-    driven = types.SimpleNamespace(**{**vars(full.driven), "line": line})
-    del driven.throttle, driven.brake_pa
-    bare = types.SimpleNamespace(
-        **{**vars(full), "driven": driven, "fit": None, "best_of_laps": None, "laps": []}
-    )
-    files = report.write_outputs(bare, tmp_path / "out")
+    missing = np.full(line.n, np.nan)  # what the line rebuild gives for an absent channel
+    driven = dataclasses.replace(full.driven, line=line, throttle=missing, brake_pa=missing)
+    bare = dataclasses.replace(full, driven=driven, fit=None, best_of_laps=None, laps=[])
+    files = outputs.write_outputs(bare, tmp_path / "out")
     assert "map.png" not in files and "best_of_laps.png" not in files
     assert {"corner_1.png", "gg.png", "speed.png"} <= set(files)
     text = files["report"].read_text(encoding="utf-8")
@@ -502,7 +511,7 @@ def test_time_loss_rate_of_linear_delta_is_its_slope():
 
 def test_target_sheets_pdf_png_and_csv(tmp_path):
     conds = _conditions()
-    files = report.write_target_sheets(conds, tmp_path / "targets", "Invented Ring")
+    files = outputs.write_target_sheets(conds, tmp_path / "targets", "Invented Ring")
     names = sorted(p.name for p in files)
     assert names == [
         "targets.csv",
@@ -531,7 +540,7 @@ def test_target_sheets_pdf_png_and_csv(tmp_path):
 
 
 def test_target_sheet_pdf_is_deterministic():
-    cond = report._condition(_conditions()[1])
+    cond = outputs._condition(_conditions()[1])
     a = figures.target_sheet(cond, "Invented Ring", report.SAFETY_CAUTION, fmt="pdf")
     b = figures.target_sheet(cond, "Invented Ring", report.SAFETY_CAUTION, fmt="pdf")
     assert a == b
@@ -616,7 +625,7 @@ def test_track_corner_labels_reach_summary_and_report(tmp_path):
     assert want  # the bundled track does label its corners
     a = pipeline.analyse(bundled_path("demo_tracks", "tarrowby_dry.csv.gz"), track=track_file)
     assert a.corner_labels == want
-    files = report.write_outputs(a, tmp_path / "out", figures=False)
+    files = outputs.write_outputs(a, tmp_path / "out", figures=False)
     corners = json.loads(Path(files["summary"]).read_text())["corners"]
     assert corners and all(c.get("label") == want.get(c["name"]) for c in corners)
     page = Path(files["report"]).read_text(encoding="utf-8")

@@ -1,0 +1,872 @@
+"""Every file a run writes: summary.json, profiles, envelope.toml, the report, sheets.
+
+With :mod:`limitlap.report` (the page it writes), the only module that writes files.
+Every file is written whole to a temporary name in its own folder, flushed to disk and
+moved into place with :func:`os.replace` (atomic on POSIX and Windows), so a run that
+fails half way leaves the earlier results intact. The same inputs give byte-identical
+``summary.json``, CSV and TOML: keys in a fixed order, floats rounded to fixed decimals,
+no timestamps. Formats: docs/outputs.md.
+
+SI values come in; km/h and g appear only in what is written, with the factors of
+:mod:`limitlap.units`. matplotlib is only imported when a figure is drawn
+(:mod:`limitlap.figures`).
+"""
+
+from __future__ import annotations
+
+import contextlib
+import dataclasses
+import json
+import math
+import os
+import re
+import tempfile
+from collections.abc import Callable, Mapping
+from pathlib import Path
+from typing import TYPE_CHECKING
+
+import numpy as np
+
+from limitlap.errors import InputError, LimitlapError
+from limitlap.units import KMH_TO_M_S, KW_TO_W
+
+if TYPE_CHECKING:
+    from limitlap.best_laps import BestOfLaps
+    from limitlap.compare import LapComparison
+    from limitlap.driven import CurvatureCheck
+    from limitlap.targets import TargetCondition
+
+#: Progress callback: ``progress(done, total, step)`` after each step of a write.
+Progress = Callable[[int, int, str], None]
+
+
+#: Schema string of summary.json (docs/outputs.md, summary.json).
+SUMMARY_SCHEMA = "limitlap.summary/1"
+
+
+
+def write_atomic(path, data: bytes | str) -> Path:
+    """Write ``data`` to ``path`` atomically: temp file in the same folder, fsync, replace.
+
+    Parameters
+    ----------
+    path : str or Path
+        Destination file; its folder must exist.
+    data : bytes or str
+        Content; text is written as UTF-8 with ``\\n`` line ends.
+
+    Returns
+    -------
+    Path
+        The destination.
+
+    Raises
+    ------
+    InputError
+        Naming the folder when it is missing or cannot be written; any file already at
+        ``path`` is left as it was.
+    """
+    path = Path(path)
+    folder = path.parent
+    payload = data.encode("utf-8") if isinstance(data, str) else bytes(data)
+    if not folder.is_dir():
+        problem = "is not a folder" if folder.exists() else "output folder does not exist"
+        raise InputError(folder, problem)
+    try:
+        fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".tmp", dir=folder)
+    except OSError as err:
+        raise InputError(folder, f"output folder cannot be written: {err.strerror or err}") from err
+    try:
+        with os.fdopen(fd, "wb") as fh:
+            fh.write(payload)
+            fh.flush()
+            os.fsync(fh.fileno())
+        umask = os.umask(0)
+        os.umask(umask)
+        os.chmod(tmp, 0o666 & ~umask)  # mkstemp makes 0600; give the usual file mode
+        os.replace(tmp, path)
+    except OSError as err:
+        with contextlib.suppress(OSError):
+            os.unlink(tmp)
+        raise InputError(folder, f"cannot write {path.name}: {err.strerror or err}") from err
+    except BaseException:
+        with contextlib.suppress(OSError):
+            os.unlink(tmp)
+        raise
+    with contextlib.suppress(OSError, AttributeError):  # make the rename durable (POSIX)
+        dir_fd = os.open(folder, os.O_RDONLY)
+        try:
+            os.fsync(dir_fd)
+        finally:
+            os.close(dir_fd)
+    return path
+
+
+
+def _prepare_folder(out_dir) -> Path:
+    """Create the output folder (one level) or raise an InputError naming it."""
+    out = Path(out_dir)
+    try:
+        out.mkdir(exist_ok=True)
+    except FileNotFoundError:
+        raise InputError(
+            out, "output folder cannot be made: its parent folder does not exist"
+        ) from None
+    except FileExistsError:
+        raise InputError(out, "is a file, not an output folder") from None
+    except OSError as err:
+        raise InputError(out, f"output folder cannot be made: {err.strerror or err}") from err
+    if not out.is_dir():
+        raise InputError(out, "is not a folder")
+    return out
+
+
+
+# Decimals per key suffix (longest first): 10 µs, 1 mm, 0.001 m/s, 0.01 km/h.
+_DECIMALS = (
+    ("_m_s2", 4),
+    ("_m_s", 4),
+    ("_kmh", 2),
+    ("_1_m", 7),
+    # Times stay at full precision: the corners' time left must add up to the lap's
+    # (docs/outputs.md, summary.json), which rounding each value separately would break.
+    ("_s", None),
+    ("_m", 3),
+)
+
+
+
+_DEFAULT_DECIMALS = 5
+
+
+
+def _decimals(key: str) -> int | None:
+    for suffix, n in _DECIMALS:
+        if key.endswith(suffix):
+            return n
+    return _DEFAULT_DECIMALS
+
+
+
+def _plain(value, key: str = ""):
+    """JSON-ready copy: numpy -> Python, floats rounded by key, NaN/inf -> None."""
+    if isinstance(value, Mapping):
+        return {str(k): _plain(v, str(k)) for k, v in value.items()}
+    if dataclasses.is_dataclass(value) and not isinstance(value, type):
+        return {f.name: _plain(getattr(value, f.name), f.name) for f in dataclasses.fields(value)}
+    if isinstance(value, np.ndarray):
+        return [_plain(v, key) for v in value.tolist()]
+    if isinstance(value, list | tuple):
+        return [_plain(v, key) for v in value]
+    if isinstance(value, bool | np.bool_):
+        return bool(value)
+    if isinstance(value, int | np.integer):
+        return int(value)
+    if isinstance(value, float | np.floating):
+        x = float(value)
+        if not math.isfinite(x):
+            return None
+        n = _decimals(key)
+        if n is not None:
+            x = round(x, n)
+        return 0.0 if x == 0.0 else x  # no "-0.0"
+    if value is None or isinstance(value, str):
+        return value
+    if isinstance(value, os.PathLike):
+        return os.fspath(value)
+    raise LimitlapError(f"summary value of '{key}' has an unsupported type {type(value).__name__}")
+
+
+
+def summary_json_text(summary: Mapping) -> str:
+    """summary.json text: keys in the given order, floats rounded by their unit suffix.
+
+    Parameters
+    ----------
+    summary : Mapping
+        docs/outputs.md, summary.json content, SI and km/h as the keys say.
+
+    Returns
+    -------
+    str
+        Indented JSON ending in a newline; identical for identical input.
+
+    Examples
+    --------
+    >>> print(summary_json_text({"lap_time_s": 92.4123456, "apex_m": -0.0001}), end="")
+    {
+      "lap_time_s": 92.4123456,
+      "apex_m": 0.0
+    }
+    """
+    return json.dumps(_plain(summary), indent=2, ensure_ascii=False, allow_nan=False) + "\n"
+
+
+
+def write_summary_json(path, summary: Mapping) -> Path:
+    """Write ``summary`` as summary.json (see :func:`summary_json_text`) atomically."""
+    return write_atomic(path, summary_json_text(summary))
+
+
+
+def _toml_float(x: float) -> str:
+    """Shortest text that reads back as the same float (``repr`` round-trips exactly)."""
+    x = float(x)
+    if math.isnan(x):
+        return "nan"
+    if math.isinf(x):
+        return "inf" if x > 0 else "-inf"
+    return repr(x)
+
+
+
+def _flat_items(obj, prefix=""):
+    """(name, value) pairs of a mapping, dataclass or namespace, nested names joined by '.'."""
+    if obj is None:
+        return []
+    if dataclasses.is_dataclass(obj) and not isinstance(obj, type):
+        obj = {f.name: getattr(obj, f.name) for f in dataclasses.fields(obj)}
+    elif not isinstance(obj, Mapping) and hasattr(obj, "__dict__"):
+        obj = dict(vars(obj))
+    if not isinstance(obj, Mapping):
+        return [(prefix or "value", obj)]
+    out = []
+    for k, v in obj.items():
+        name = f"{prefix}.{k}" if prefix else str(k)
+        if isinstance(v, Mapping) or (dataclasses.is_dataclass(v) and not isinstance(v, type)):
+            out.extend(_flat_items(v, name))
+        else:
+            out.append((name, v))
+    return out
+
+
+
+def _comment_value(v) -> str:
+    if isinstance(v, float | np.floating):
+        return f"{float(v):.4g}"
+    if isinstance(v, np.ndarray):
+        return (
+            "["
+            + ", ".join(_comment_value(x) for x in v.ravel()[:8])
+            + (", ..." if v.size > 8 else "")
+            + "]"
+        )
+    if isinstance(v, list | tuple):
+        return (
+            "["
+            + ", ".join(_comment_value(x) for x in list(v)[:8])
+            + (", ..." if len(v) > 8 else "")
+            + "]"
+        )
+    return " ".join(str(v).split())
+
+
+
+def envelope_toml_text(vehicle, fit_info=None) -> str:
+    """The vehicle in the docs/formats.md, Vehicle files TOML form, fit quality as comments.
+
+    Parameters
+    ----------
+    vehicle : Vehicle
+        Complete vehicle (the fitted envelope at grip scale 1).
+    fit_info : Mapping or dataclass, optional
+        Fit quality and uncertainty figures, written as ``#`` comments (nested names
+        joined with '.').
+
+    Returns
+    -------
+    str
+        TOML text that :func:`limitlap.ingest.read_vehicle` reads back to the same
+        numbers (floats are written with ``repr``, which round-trips exactly).
+
+    Examples
+    --------
+    >>> from limitlap.vehicle import Vehicle
+    >>> car = Vehicle("demo", 1000.0, 150e3, 0.7, 0.0, 0.013, mu_lat=1.1, mu_brk=1.2,
+    ...               mu_trac=1.0, exponent=2.0)
+    >>> print(envelope_toml_text(car).splitlines()[2])
+    name = "demo"
+    """
+    vehicle.require_complete()
+    if not math.isfinite(vehicle.power_w):
+        raise LimitlapError(
+            f"vehicle '{vehicle.name}' has no finite power; envelope.toml needs power_kw"
+        )
+    lines = [
+        "# Grip envelope in the limitlap vehicle form; reuse it with --vehicle.",
+        "# Units as the keys say; friction coefficients are dimensionless.",
+        f"name = {json.dumps(vehicle.name, ensure_ascii=False)}",
+        f"mass_kg = {_toml_float(vehicle.mass_kg)}",
+        f"power_kw = {_toml_float(vehicle.power_w / KW_TO_W)}",
+        f"drag_area_m2 = {_toml_float(vehicle.drag_area_m2)}",
+        f"downforce_area_m2 = {_toml_float(vehicle.downforce_area_m2)}",
+        f"rolling_coeff = {_toml_float(vehicle.rolling_coeff)}",
+        f"air_density_kg_m3 = {_toml_float(vehicle.air_density_kg_m3)}",
+        "",
+        "[grip]",
+        f"lateral = {_toml_float(vehicle.mu_lat)}",
+        f"braking = {_toml_float(vehicle.mu_brk)}",
+        f"traction = {_toml_float(vehicle.mu_trac)}",
+        f"exponent = {_toml_float(vehicle.exponent)}",
+    ]
+    items = _flat_items(fit_info)
+    if items:
+        lines += ["", "# Fit of this envelope to the session's samples:"]
+        lines += [f"#   {name} = {_comment_value(v)}" for name, v in items]
+        names = {name for name, _ in items}
+        if "quality.share_outside_tyre_limit" in names:
+            lines += [
+                "# share_outside_tyre_limit: samples beyond the friction limits (up to half of those",
+                "#   driven on the limit: the sensor noise scatters them both ways, and it is taken",
+                "#   out of the envelope, noise_offset_m_s2); share_above_power_line: full-throttle",
+                "#   samples above the power line (about half: it is a central fit of them).",
+            ]
+    return "\n".join(lines) + "\n"
+
+
+
+def _csv_cell(text: str) -> str:
+    return f'"{text.replace(chr(34), chr(34) * 2)}"' if any(c in text for c in ',"\n') else text
+
+
+
+def profile_csv_text(columns: Mapping, units: Mapping) -> str:
+    """CSV of equal-length numeric columns, headers ``name [unit]`` (docs/formats.md, Log files style).
+
+    Parameters
+    ----------
+    columns : Mapping
+        Column name -> 1-D array, in output order; already in the units given.
+    units : Mapping
+        Column name -> unit text (``""`` or missing for none).
+
+    Returns
+    -------
+    str
+        Header row and one row per sample, blank cells for NaN. Each column is rounded to
+        the decimal places that keep 8 significant digits of its largest value (the same
+        absolute resolution all down the column) and written as the shortest decimal of
+        that number, by polars' CSV writer (a few milliseconds where Python's own
+        formatting of a lap's 50,000 cells took 13).
+
+    Examples
+    --------
+    >>> print(profile_csv_text({"distance": [0.0, 1.5], "speed": [100.0, float("nan")]},
+    ...                        {"distance": "m", "speed": "km/h"}), end="")
+    distance [m],speed [km/h]
+    0.0,100.0
+    1.5,
+    """
+    import polars as pl  # deferred, as in the reader
+
+    names = list(columns)
+    if not names:
+        raise LimitlapError("a profile CSV needs at least one column")
+    arrays = [np.asarray(columns[n], dtype=np.float64).ravel() for n in names]
+    n_rows = arrays[0].shape[0]
+    for name, a in zip(names, arrays, strict=True):
+        if a.shape[0] != n_rows:
+            raise LimitlapError(f"profile column '{name}' has {a.shape[0]} rows, expected {n_rows}")
+    header = ",".join(_csv_cell(f"{n} [{units[n]}]" if units.get(n) else str(n)) for n in names)
+    if n_rows == 0:
+        return f"{header}\n"
+    frame = {}
+    for j, a in enumerate(arrays):
+        finite = np.isfinite(a)
+        top = float(np.max(np.abs(a[finite]))) if finite.any() else 0.0
+        places = 8 - (math.floor(math.log10(top)) + 1) if top > 0.0 else 0
+        # NaN for every non-finite cell (written blank); + 0.0 turns -0.0 into +0.0
+        # (IEEE 754 round-to-nearest), so no cell reads "-0.0"
+        frame[f"c{j}"] = np.round(np.where(finite, a, np.nan), min(max(places, 0), 15)) + 0.0
+    body = pl.DataFrame(frame).fill_nan(None).write_csv(include_header=False, null_value="")
+    return f"{header}\n{body}"
+
+
+
+def solve_profile_csv_text(profile, line=None) -> str:
+    """``limitlap solve --out``: a solved profile as CSV with unit brackets.
+
+    Columns distance [m], speed [km/h], accel_lon [m/s^2], accel_lat [m/s^2], time [s],
+    speed_limit [km/h], and curvature [1/m] when the line is given.
+    """
+    columns = {
+        "distance": profile.distance_m,
+        "speed": np.asarray(profile.speed_m_s) / KMH_TO_M_S,
+        "accel_lon": profile.accel_lon_m_s2,
+        "accel_lat": profile.accel_lat_m_s2,
+        "time": profile.time_s,
+        "speed_limit": np.asarray(profile.speed_limit_m_s) / KMH_TO_M_S,
+    }
+    units = {"distance": "m", "speed": "km/h", "accel_lon": "m/s^2", "accel_lat": "m/s^2",
+             "time": "s", "speed_limit": "km/h"}
+    if line is not None:
+        columns["curvature"] = line.curvature_1_m
+        units["curvature"] = "1/m"
+    return profile_csv_text(columns, units)
+
+
+
+def _f(value) -> float:
+    return float("nan") if value is None else float(value)
+
+
+def corner_rows(comparison: LapComparison) -> list[dict]:
+    """Per-corner records of a comparison as plain dicts with the summary.json fields.
+
+    The fields of docs/outputs.md (summary.json) in km/h where the key says so, the
+    corner's other scalar fields after them, ``plain`` (its advice line) and
+    ``_summary`` (the comparison's own summary.json record).
+
+    Returns
+    -------
+    list of dict
+        In driving order.
+    """
+    k = 1.0 / KMH_TO_M_S
+    rows = []
+    for c in comparison.corners:
+        row = {
+            "name": str(c.name),
+            "start_m": _f(c.start_m),
+            "apex_m": _f(c.apex_m),
+            "end_m": _f(c.end_m),
+            "actual_s": _f(c.actual_s),
+            "ideal_s": _f(c.ideal_s),
+            "time_left_s": _f(c.time_left_s),
+            "min_speed_actual_kmh": _f(c.min_speed_actual_m_s) * k,
+            "min_speed_ideal_kmh": _f(c.min_speed_ideal_m_s) * k,
+            "brake_start_actual_m": _f(c.brake_start_actual_m),
+            "brake_start_ideal_m": _f(c.brake_start_ideal_m),
+            "grip_used": _f(c.grip_used),
+            "plain": c.advice.strip(),
+            "_summary": c.summary_dict(),
+        }
+        for f in dataclasses.fields(c):
+            v = getattr(c, f.name)
+            if (
+                f.name not in row
+                and isinstance(v, int | float | str | np.floating | np.integer)
+                and not isinstance(v, bool)
+            ):
+                row[f.name] = v
+        rows.append(row)
+    return rows
+
+
+@dataclasses.dataclass(frozen=True, eq=False)
+class ReportView:
+    """What the report needs from a pipeline Analysis, in SI arrays and plain records."""
+
+    source: str
+    lap_number: int
+    lap_time_s: float
+    lap_distance_m: float
+    ideal_time_s: float
+    grip_scale: float
+    grip_estimate: float
+    time_left_s: float
+    distance_m: np.ndarray
+    length_m: float
+    x_m: np.ndarray | None
+    y_m: np.ndarray | None
+    curvature_1_m: np.ndarray
+    time_real_s: np.ndarray
+    time_ideal_s: np.ndarray
+    time_delta_s: np.ndarray
+    speed_real_m_s: np.ndarray
+    speed_ideal_m_s: np.ndarray
+    ax_real_m_s2: np.ndarray
+    ay_real_m_s2: np.ndarray
+    ax_ideal_m_s2: np.ndarray
+    ay_ideal_m_s2: np.ndarray
+    throttle: np.ndarray
+    brake_pa: np.ndarray
+    corners: list
+    vehicle: object
+    fit: object
+    best_time_s: float
+    warnings: list
+    n_laps: int
+    yaw_rate_rad_s: np.ndarray | None = None
+    agreement: dict | None = None
+    fit_laps: list = dataclasses.field(default_factory=list)
+    curvature_check: CurvatureCheck | None = None
+
+
+
+def _best_of_laps(best: BestOfLaps | None, corners) -> float:
+    """Total of the own-best composite [s]; adds ``best_s`` and ``best_lap`` to the corners."""
+    if best is None:
+        return float("nan")
+    by_name = {str(name): j for j, name in enumerate(best.names)}
+    for c in corners:
+        j = by_name.get(c["name"])
+        if j is not None:
+            c["best_s"] = float(best.best_s[j])
+            c["best_lap"] = int(best.best_lap[j])
+    return float(best.composite_lap_time_s)
+
+
+def report_view(analysis) -> ReportView:
+    """Collect what the report needs from a pipeline Analysis (see module docstring)."""
+    driven = analysis.driven
+    ideal = analysis.ideal
+    line = driven.line
+    comparison = analysis.comparison
+    s = np.asarray(line.distance_m, dtype=np.float64)
+    t_real = np.asarray(driven.time_s, dtype=np.float64)
+    t_ideal = np.asarray(ideal.time_s, dtype=np.float64)
+    corners = corner_rows(comparison)
+    for c in corners:  # the track file's names for its corners ("Sentry"), where given
+        if analysis.corner_labels.get(c["name"]):
+            c["label"] = str(analysis.corner_labels[c["name"]])
+    warnings = [str(w) for w in analysis.warnings]
+    fit_warnings = analysis.fit.warnings if analysis.fit is not None else []
+    for extra in (driven.warnings, fit_warnings):
+        # the pipeline may already carry them with the log's name in front
+        warnings += [str(w) for w in extra if not any(x.endswith(str(w)) for x in warnings)]
+    return ReportView(
+        source=str(analysis.log_path),
+        lap_number=int(analysis.lap.number),
+        lap_time_s=_f(analysis.lap.time_s),
+        lap_distance_m=_f(analysis.lap.distance_m),
+        ideal_time_s=float(ideal.lap_time_s),
+        grip_scale=float(analysis.grip_scale),
+        grip_estimate=_f(analysis.grip_estimate),
+        time_left_s=float(comparison.time_left_s),
+        distance_m=s,
+        length_m=float(line.length_m),
+        x_m=None if line.x_m is None else np.asarray(line.x_m, dtype=np.float64),
+        y_m=None if line.y_m is None else np.asarray(line.y_m, dtype=np.float64),
+        curvature_1_m=np.asarray(line.curvature_1_m, dtype=np.float64),
+        time_real_s=t_real - t_real[0],
+        time_ideal_s=t_ideal - t_ideal[0],
+        time_delta_s=np.asarray(comparison.time_delta_s, dtype=np.float64),
+        speed_real_m_s=np.asarray(driven.speed_m_s, dtype=np.float64),
+        speed_ideal_m_s=np.asarray(ideal.speed_m_s, dtype=np.float64),
+        ax_real_m_s2=np.asarray(driven.accel_lon_m_s2, dtype=np.float64),
+        ay_real_m_s2=np.asarray(driven.accel_lat_m_s2, dtype=np.float64),
+        ax_ideal_m_s2=np.asarray(ideal.accel_lon_m_s2, dtype=np.float64),
+        ay_ideal_m_s2=np.asarray(ideal.accel_lat_m_s2, dtype=np.float64),
+        throttle=np.asarray(driven.throttle, dtype=np.float64),
+        brake_pa=np.asarray(driven.brake_pa, dtype=np.float64),
+        corners=corners,
+        vehicle=analysis.vehicle,
+        fit=analysis.fit,
+        best_time_s=_best_of_laps(analysis.best_of_laps, corners),
+        warnings=warnings,
+        n_laps=sum(1 for lp in analysis.laps if lp.complete),
+        yaw_rate_rad_s=np.asarray(driven.yaw_rate_rad_s, dtype=np.float64),
+        agreement=driven.agreement,
+        fit_laps=[int(n) for n in analysis.fit_laps],
+        curvature_check=driven.curvature_check,
+    )
+
+
+def build_summary(analysis) -> dict:
+    """The docs/outputs.md, summary.json summary of an Analysis, plus corner extras and the warnings.
+
+    Parameters
+    ----------
+    analysis : pipeline.Analysis
+
+    Returns
+    -------
+    dict
+        Keys in the order of docs/outputs.md, summary.json; values SI or km/h as the keys say (not yet rounded).
+    """
+    v = report_view(analysis)
+    corners = []
+    for c in v.corners:
+        if "_summary" in c:
+            rec = dict(c["_summary"])
+            rec.setdefault("plain", c["plain"])
+            for key in ("best_s", "best_lap", "label"):
+                if key in c:
+                    rec[key] = c[key]
+            corners.append(rec)
+            continue
+        rec = {
+            k: c[k]
+            for k in (
+                "name",
+                "start_m",
+                "apex_m",
+                "end_m",
+                "actual_s",
+                "ideal_s",
+                "time_left_s",
+                "min_speed_actual_kmh",
+                "min_speed_ideal_kmh",
+                "brake_start_actual_m",
+                "brake_start_ideal_m",
+                "grip_used",
+            )
+        }
+        rec["plain"] = c["plain"]
+        for key in ("best_s", "best_lap", "label"):
+            if key in c:
+                rec[key] = c[key]
+        corners.append(rec)
+    best_rec = {"time_s": v.best_time_s, "complete_laps": v.n_laps}
+    if analysis.best_of_laps is not None:
+        best_rec.update(analysis.best_of_laps.summary_dict())
+    return {
+        "schema": SUMMARY_SCHEMA,
+        "lap": {"number": v.lap_number, "time_s": v.lap_time_s, "distance_m": v.lap_distance_m},
+        "ideal": {"time_s": v.ideal_time_s, "grip_scale": v.grip_scale},
+        "time_left_s": v.time_left_s,
+        "grip_estimate": v.grip_estimate,
+        "corners": corners,
+        "best_of_laps": best_rec,
+        "envelope": {
+            "fitted": v.fit is not None,
+            "laps": list(v.fit_laps),
+        },
+        "warnings": list(v.warnings),
+    }
+
+
+
+def _profile_columns(v: ReportView):
+    columns = {
+        "distance": v.distance_m,
+        "time_actual": v.time_real_s,
+        "time_ideal": v.time_ideal_s,
+        "time_delta": v.time_delta_s,
+        "speed_actual": v.speed_real_m_s / KMH_TO_M_S,
+        "speed_ideal": v.speed_ideal_m_s / KMH_TO_M_S,
+        "accel_lon_actual": v.ax_real_m_s2,
+        "accel_lat_actual": v.ay_real_m_s2,
+        "accel_lon_ideal": v.ax_ideal_m_s2,
+        "accel_lat_ideal": v.ay_ideal_m_s2,
+        "curvature": v.curvature_1_m,
+    }
+    units = {
+        "distance": "m",
+        "time_actual": "s",
+        "time_ideal": "s",
+        "time_delta": "s",
+        "speed_actual": "km/h",
+        "speed_ideal": "km/h",
+        "accel_lon_actual": "m/s^2",
+        "accel_lat_actual": "m/s^2",
+        "accel_lon_ideal": "m/s^2",
+        "accel_lat_ideal": "m/s^2",
+        "curvature": "1/m",
+    }
+    if v.x_m is not None and v.y_m is not None:
+        columns["x"], columns["y"] = v.x_m, v.y_m
+        units["x"] = units["y"] = "m"
+    return columns, units
+
+
+
+def _stepper(progress, total):
+    state = {"done": 0}
+
+    def step(name):
+        state["done"] += 1
+        if progress is not None:
+            progress(min(state["done"], total), total, name)
+
+    return step
+
+
+
+def write_outputs(
+    analysis, out_dir, *, figures: bool = True, progress: Progress | None = None
+) -> dict:
+    """Write everything ``analyse`` leaves in its output folder.
+
+    Parameters
+    ----------
+    analysis : pipeline.Analysis
+        The finished analysis.
+    out_dir : str or Path
+        Output folder; made when missing (its parent must exist).
+    figures : bool
+        Draw the PNG figures and put them in report.html.
+    progress : callable, optional
+        ``progress(done, total, step)`` after each step; None = silent.
+
+    Returns
+    -------
+    dict
+        File kind -> path written: ``summary``, ``profile``, ``envelope``, ``report`` and
+        one entry per PNG (its file name).
+    """
+    from limitlap.report import _curvature_check, _figures, report_html
+
+    out = _prepare_folder(out_dir)
+    v = report_view(analysis)
+    n_fig = (
+        (
+            3
+            + (v.x_m is not None)
+            + 1
+            + min(3, len(v.corners))
+            + (math.isfinite(v.best_time_s) and bool(v.corners))
+            + (_curvature_check(v) is not None)
+        )
+        if figures
+        else 0
+    )
+    total = 4 + n_fig + 1
+    step = _stepper(progress, total)
+    written = {}
+    written["summary"] = write_summary_json(out / "summary.json", build_summary(analysis))
+    step("summary.json")
+    columns, units = _profile_columns(v)
+    written["profile"] = write_atomic(out / "profile.csv", profile_csv_text(columns, units))
+    step("profile.csv")
+    fit_info = None
+    if v.fit is not None:
+        fit_info = {"quality": v.fit.quality, "uncertainty": v.fit.uncertainty}
+    written["envelope"] = write_atomic(
+        out / "envelope.toml", envelope_toml_text(v.vehicle, fit_info)
+    )
+    step("envelope.toml")
+    figure_list = _figures(v, step) if figures else []
+    for name, _caption, png in figure_list:
+        written[name] = write_atomic(out / name, png)
+    step("figures written")
+    written["report"] = write_atomic(out / "report.html", report_html(v, figure_list))
+    step("report.html")
+    return written
+
+
+
+def _condition(cond: TargetCondition, length_m=None) -> dict:
+    """A target table as a plain dict (km/h); ``before_apex_m`` wraps across the gate."""
+    k = float(cond.grip_scale)
+    length = _f(length_m)
+    kmh = 1.0 / KMH_TO_M_S
+    corners = []
+    for r in cond.corners:
+        before = _f(r.brake_before_apex_m)
+        if before < 0 and math.isfinite(length):  # braking starts before the gate
+            before += length
+        corners.append(
+            {
+                "name": str(r.name),
+                "apex_m": _f(r.apex_m),
+                "brake_start_m": _f(r.brake_start_m),
+                "before_apex_m": before if before >= 0 else float("nan"),
+                "entry_speed_kmh": _f(r.entry_speed_m_s) * kmh,
+                "min_speed_kmh": _f(r.min_speed_m_s) * kmh,
+                "exit_speed_kmh": _f(r.exit_speed_m_s) * kmh,
+                "segment_time_s": _f(r.segment_time_s),
+            }
+        )
+    return {
+        "label": str(cond.label) if cond.label else f"grip {k:.2f}",
+        "grip_scale": k,
+        "lap_time_s": float(cond.lap_time_s),
+        "length_m": length,
+        "corners": corners,
+    }
+
+
+def _slug(text: str) -> str:
+    return re.sub(r"[^a-z0-9]+", "_", text.lower()).strip("_") or "condition"
+
+
+
+def targets_csv_text(conditions, *, length_m: float | None = None) -> str:
+    """CSV of the target tables: one row per condition and corner.
+
+    Parameters
+    ----------
+    conditions : list
+        Records of :func:`limitlap.targets.target_table` (docs/outputs.md, Target sheets fields).
+
+    Returns
+    -------
+    str
+    """
+    conds = [_condition(c, length_m) for c in conditions]
+    header = (
+        "condition,grip_scale [-],lap_time [s],corner,apex [m],brake_start [m],"
+        "brake_before_apex [m],entry_speed [km/h],min_speed [km/h],exit_speed [km/h],"
+        "segment_time [s]"
+    )
+    rows = [header]
+
+    def num(x, nd):
+        return "" if not math.isfinite(x) else f"{round(x, nd) + 0.0:.{nd}f}"
+
+    for c in conds:
+        for r in c["corners"]:
+            rows.append(
+                ",".join(
+                    [
+                        _csv_cell(c["label"]),
+                        num(c["grip_scale"], 3),
+                        num(c["lap_time_s"], 3),
+                        _csv_cell(r["name"]),
+                        num(r["apex_m"], 1),
+                        num(r["brake_start_m"], 1),
+                        num(r["before_apex_m"], 1),
+                        num(r["entry_speed_kmh"], 1),
+                        num(r["min_speed_kmh"], 1),
+                        num(r["exit_speed_kmh"], 1),
+                        num(r["segment_time_s"], 3),
+                    ]
+                )
+            )
+    return "\n".join(rows) + "\n"
+
+
+
+def write_target_sheets(
+    conditions,
+    out_dir,
+    circuit_name: str,
+    *,
+    length_m: float | None = None,
+    progress: Progress | None = None,
+) -> list[Path]:
+    """Write a printable one-page sheet per condition (PDF and PNG) and targets.csv.
+
+    Parameters
+    ----------
+    conditions : list
+        Records of :func:`limitlap.targets.target_table` (docs/outputs.md, Target sheets fields; an optional
+        ``condition``/``label`` names it, e.g. "wet").
+    out_dir : str or Path
+        Output folder; made when missing (its parent must exist).
+    circuit_name : str
+        Heading of each sheet.
+    length_m : float, optional
+        Lap length, so a brake point before the gate gives its distance before an apex
+        after it (records may carry ``length_m`` themselves). [m]
+    progress : callable, optional
+        ``progress(done, total, step)``; None = silent.
+
+    Returns
+    -------
+    list of Path
+        Files written: per condition ``targets_<label>.pdf`` and ``.png``, then targets.csv.
+    """
+    from limitlap import figures as fg
+    from limitlap import report
+
+    out = _prepare_folder(out_dir)
+    conds = [_condition(c, length_m) for c in conditions]
+    step = _stepper(progress, 2 * len(conds) + 1)
+    written, seen = [], set()
+    for c in conds:
+        slug = _slug(c["label"])
+        if slug in seen:
+            slug = f"{slug}_{c['grip_scale']:.2f}".replace(".", "_")
+        seen.add(slug)
+        for fmt in ("pdf", "png"):
+            data = fg.target_sheet(c, circuit_name, report.SAFETY_CAUTION, fmt=fmt)
+            written.append(write_atomic(out / f"targets_{slug}.{fmt}", data))
+            step(f"target sheet {c['label']} ({fmt})")
+    written.append(
+        write_atomic(out / "targets.csv", targets_csv_text(conditions, length_m=length_m))
+    )
+    step("targets.csv")
+    return written
