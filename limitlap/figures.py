@@ -32,7 +32,6 @@ from __future__ import annotations
 
 import functools
 import io
-import itertools
 import math
 import threading
 
@@ -647,127 +646,13 @@ def map_figure(x_m, y_m, loss_rate_s_m, corners, distance_m) -> bytes:
 # --------------------------------------------------------------------------- g-g diagram
 
 
-def _ray_reach(poly_x, poly_y, angles):
-    """Farthest crossing of rays from the origin with a closed polygon, per angle.
-
-    Parameters
-    ----------
-    poly_x, poly_y : array-like
-        The polygon's vertices (closed implicitly: the last joins the first). [any unit]
-    angles : array-like
-        Ray directions, ascending within [-pi, pi]. [rad]
-
-    Returns
-    -------
-    numpy.ndarray
-        Distance from the origin to the farthest crossing of each ray with an edge; 0 where
-        a ray crosses none. [unit of the vertices]
-
-    Notes
-    -----
-    An edge that does not pass through the origin subtends less than half a turn as seen
-    from it, and only rays within that arc can cross it, so only those (edge, ray) pairs
-    are tested -- each with the full crossing test (ray distance t >= 0, edge parameter
-    0 <= w <= 1, not parallel), as if every pair were.
-    """
-    ax_ = np.asarray(poly_x, dtype=np.float64)
-    ay_ = np.asarray(poly_y, dtype=np.float64)
-    th = np.asarray(angles, dtype=np.float64)
-    bx, by = np.roll(ax_, -1), np.roll(ay_, -1)
-    start = np.arctan2(ay_, ax_)
-    turn = np.arctan2(ax_ * by - ay_ * bx, ax_ * bx + ay_ * by)  # signed angle a -> b
-    lo = np.where(turn >= 0, start, start + turn)  # the arc [lo, lo + |turn|]
-    hi = lo + np.abs(turn)
-    edges, rays = [], []
-    margin = 1e-9  # [rad] rays through a vertex belong to both its edges
-    for shift in (-2.0 * np.pi, 0.0, 2.0 * np.pi):  # arcs across the -pi/pi seam
-        i0 = np.searchsorted(th, lo + shift - margin, side="left")
-        i1 = np.searchsorted(th, hi + shift + margin, side="right")
-        n = np.maximum(i1 - i0, 0)
-        first = np.cumsum(n) - n
-        edges.append(np.repeat(np.arange(lo.size), n))
-        rays.append(np.repeat(i0, n) + np.arange(int(n.sum())) - np.repeat(first, n))
-    e = np.concatenate(edges)
-    i = np.concatenate(rays)
-    dx, dy = np.cos(th[i]), np.sin(th[i])
-    ex, ey = bx[e] - ax_[e], by[e] - ay_[e]
-    denom = dx * ey - dy * ex
-    with np.errstate(divide="ignore", invalid="ignore"):
-        t = (ax_[e] * ey - ay_[e] * ex) / denom  # distance along the ray
-        w = (ax_[e] * dy - ay_[e] * dx) / denom  # position along the edge
-    ok = (np.abs(denom) > 1e-15) & (t >= 0) & (w >= 0) & (w <= 1)
-    out = np.zeros(th.size)
-    np.maximum.at(out, i[ok], t[ok])
-    return out
-
-
-def _hull(points_x, points_y):
-    """Convex hull polygon of the points, or None for fewer than 3 non-collinear points."""
-    pts = np.column_stack([points_x, points_y])
-    pts = pts[np.all(np.isfinite(pts), axis=1)]
-    if pts.shape[0] < 3:
-        return None
-    from scipy.spatial import ConvexHull, QhullError
-
-    try:
-        hull = ConvexHull(pts)
-    except (QhullError, ValueError):
-        return None
-    v = pts[hull.vertices]
-    return v[:, 0], v[:, 1]
-
-
-def speed_bands_m_s(speed_m_s, n_bands: int = 3):
-    """Speed band edges for the g-g panels: equal sample counts, rounded to 10 km/h.
-
-    Parameters
-    ----------
-    speed_m_s : array-like
-        Sample speeds. [m/s]
-    n_bands : int
-        Number of bands. [-]
-
-    Returns
-    -------
-    list of tuple
-        (low, high) edges of each band. [m/s]
-    """
-    v = np.asarray(speed_m_s, dtype=np.float64)
-    v = v[np.isfinite(v)]
-    step = 10.0 * KMH_TO_M_S
-    if v.size == 0:
-        return []
-    q = np.quantile(v, np.linspace(0.0, 1.0, n_bands + 1))
-    edges = np.unique(
-        np.concatenate(
-            [
-                [np.floor(q[0] / step) * step],
-                np.round(q[1:-1] / step) * step,
-                [np.ceil(q[-1] / step) * step],
-            ]
-        )
-    )
-    if edges.size < 2:
-        edges = np.array([edges[0] - step, edges[0] + step])
-    return [(float(a), float(b)) for a, b in itertools.pairwise(edges)]
-
-
-def gg_figure(
-    speed_m_s, accel_lon_m_s2, accel_lat_m_s2, vehicle, grip_scale=1.0, bands=None, fit_points=None
-) -> bytes:
+def gg_figure(bands, fit_points=None) -> bytes:
     """g-g diagram per speed band: envelope, the lap's samples, the grip left unused.
 
     Parameters
     ----------
-    speed_m_s, accel_lon_m_s2, accel_lat_m_s2 : array-like
-        The lap's samples: speed [m/s], longitudinal (+ forward) and lateral (+ left)
-        acceleration [m/s²].
-    vehicle : Vehicle
-        Complete envelope the lap is compared with.
-    grip_scale : float
-        Grip scale of the comparison. [-]
-    bands : list of tuple, optional
-        (low, high) speed bands [m/s]; by default four from :func:`speed_bands_m_s`.
+    bands : list of limitlap.gg.GGBand
+        What each panel shows, computed by :func:`limitlap.gg.gg_bands`.
     fit_points : list of dict, optional
         Boundary points the envelope fit used, each with ``accel_lat_m_s2``,
         ``accel_lon_m_s2`` and ``speed_m_s`` arrays; drawn as small crosses.
@@ -780,24 +665,15 @@ def gg_figure(
     Notes
     -----
     The envelope is drawn at the band's middle speed (solid) and its edges (dashed). The
-    shaded ring lies between the convex hull of the band's samples and the envelope at
+    shaded ring lies between the samples' reach (their convex hull) and the envelope at
     the middle speed: grip the lap never asked for. Its share of the envelope's area is
     in each panel's title.
     """
-    from limitlap import limits
     from limitlap._canvas import Entry, Panel, auto_bins, nice_ticks
+    from limitlap.gg import REACH_ANGLES_RAD
 
-    env = vehicle.scaled(grip_scale) if grip_scale != 1.0 else vehicle
-    v = np.asarray(speed_m_s, dtype=np.float64)
-    ax_s = np.asarray(accel_lon_m_s2, dtype=np.float64)
-    ay_s = np.asarray(accel_lat_m_s2, dtype=np.float64)
-    if bands is None:
-        bands = speed_bands_m_s(v, n_bands=4)
-    bands = list(bands)[:4] or [(0.0, 1.0)]
     c = _canvas("gg")
-
-    # What each panel shows, in g, before the common limits are known.
-    angles = np.linspace(-np.pi, np.pi, 721)
+    angles = REACH_ANGLES_RAD
     if fit_points:
         fv, fy, fx = (
             np.concatenate([np.asarray(fp[k], dtype=np.float64) for fp in fit_points])
@@ -805,32 +681,23 @@ def gg_figure(
         )
     panels = []
     lim = 0.0
-    for lo, hi in bands:
-        mid = 0.5 * (lo + hi)
-        ex, ey = (a / G0_M_S2 for a in limits.envelope_boundary(mid, env))
-        edges = [
-            tuple(a / G0_M_S2 for a in limits.envelope_boundary(edge, env)[::-1])
-            for edge in (lo, hi)
-            if edge > 0
-        ]
-        inband = (v >= lo) & (v < hi) & np.isfinite(ax_s) & np.isfinite(ay_s)
-        sy, sx = ay_s[inband] / G0_M_S2, ax_s[inband] / G0_M_S2
+    for b in bands:
+        lo, hi = b.speed_lo_m_s, b.speed_hi_m_s
+        ey, ex = b.envelope_lat_m_s2 / G0_M_S2, b.envelope_lon_m_s2 / G0_M_S2
+        edges = [(lat / G0_M_S2, lon / G0_M_S2) for lon, lat in b.edge_boundaries]
+        sy, sx = b.sample_lat_m_s2 / G0_M_S2, b.sample_lon_m_s2 / G0_M_S2
         title = f"{lo / KMH_TO_M_S:.0f}-{hi / KMH_TO_M_S:.0f} km/h"
         ring = hull = None
-        hull_pts = _hull(sy, sx)
-        if hull_pts is not None:
-            r_env = _ray_reach(ey, ex, angles)
-            r_in = np.minimum(_ray_reach(hull_pts[0], hull_pts[1], angles), r_env)
+        if b.hull_lat_m_s2 is not None:
+            r_env, r_in = b.envelope_reach_m_s2 / G0_M_S2, b.sample_reach_m_s2 / G0_M_S2
             # Ring between the samples' reach and the envelope: outer loop forward, inner
             # loop back; the angles include both -pi and pi so the seam closes exactly.
             ring = (
                 np.concatenate([r_env * np.cos(angles), (r_in * np.cos(angles))[::-1]]),
                 np.concatenate([r_env * np.sin(angles), (r_in * np.sin(angles))[::-1]]),
             )
-            hull = (np.append(hull_pts[0], hull_pts[0][0]), np.append(hull_pts[1], hull_pts[1][0]))
-            # Polar area 1/2 sum r^2 dtheta on equal steps (last angle repeats the first).
-            unused = 1.0 - float(np.sum(r_in[:-1] ** 2) / np.sum(r_env[:-1] ** 2))
-            title += f": {100 * unused:.0f} % of the envelope unused"
+            hull = (b.hull_lat_m_s2 / G0_M_S2, b.hull_lon_m_s2 / G0_M_S2)
+            title += f": {100 * b.unused_share:.0f} % of the envelope unused"
         fit = None
         if fit_points:
             sel = (fv >= lo) & (fv < hi)

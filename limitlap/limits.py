@@ -106,6 +106,29 @@ def combined_usage(speed_m_s, accel_lon_m_s2, accel_lat_m_s2, vehicle: Vehicle, 
     return np.maximum(tyre, power)
 
 
+def longitudinal_shares(speed_m_s, accel_lon_m_s2, vehicle: Vehicle):
+    r"""Shares of the braking and driving limits a longitudinal acceleration needs.
+
+    The tyre force :math:`F_x = m a_x + R` against :math:`\mu_b N` when braking and
+    against :math:`\min(\mu_t N, P/v)` when driving, on a level road.
+
+    Returns
+    -------
+    brake, drive : numpy.ndarray
+        Each 0 on the other side; NaN where the force is unknown. [-]
+    """
+    v = np.asarray(speed_m_s, dtype=np.float64)
+    fx = vehicle.mass_kg * np.asarray(accel_lon_m_s2, dtype=np.float64) + resistance_n(v, vehicle)
+    normal = normal_load_n(v, vehicle)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        brake = np.where(fx < 0, -fx / (vehicle.mu_brk * normal), 0.0)
+        drive = np.where(fx > 0, fx / drive_force_max_n(v, vehicle), 0.0)
+    bad = ~np.isfinite(fx)
+    brake[bad] = np.nan
+    drive[bad] = np.nan
+    return brake, drive
+
+
 def drive_accel_available_m_s2(speed_m_s, accel_lat_m_s2, vehicle: Vehicle, sin_grad=0.0):
     r"""Forward acceleration the envelope leaves beside a lateral demand, as the solver.
 

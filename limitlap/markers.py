@@ -17,6 +17,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from limitlap.corners import Corner, plateau_middle
+from limitlap.power_line import FULL_THROTTLE
 from limitlap.solve import Profile
 
 # --- Defaults of the per-corner markers (common practice, no published source) ---
@@ -55,8 +56,6 @@ MIN_BRAKE_DROP_M_S = 1.0
 
 
 
-#: Throttle at or above this counts as full drive. [-]
-FULL_THROTTLE = 0.98
 
 
 

@@ -491,6 +491,7 @@ class ReportView:
     agreement: dict | None = None
     fit_laps: list = dataclasses.field(default_factory=list)
     curvature_check: CurvatureCheck | None = None
+    gg_bands: list = dataclasses.field(default_factory=list)
 
 
 
@@ -560,6 +561,7 @@ def report_view(analysis) -> ReportView:
         agreement=driven.agreement,
         fit_laps=[int(n) for n in analysis.fit_laps],
         curvature_check=driven.curvature_check,
+        gg_bands=analysis.gg_bands,
     )
 
 

@@ -25,7 +25,18 @@ from pathlib import Path
 
 import numpy as np
 
-from limitlap import best_laps, compare, envelope, formatting, gnss, grip, ingest, logfile, solve
+from limitlap import (
+    best_laps,
+    compare,
+    envelope,
+    formatting,
+    gg,
+    gnss,
+    grip,
+    ingest,
+    logfile,
+    solve,
+)
 from limitlap import corners as corners_mod
 from limitlap import driven as driven_mod
 from limitlap import laps as laps_mod
@@ -77,6 +88,8 @@ class Analysis:
     corner_labels : dict of str to str
         Corner name -> the track file's label for it ("T1" -> "Sentry"), where it gives one.
     warnings : list of str
+    gg_bands : list of gg.GGBand
+        The analysed lap's samples against the envelope in the g-g diagram, by speed band.
     """
 
     log_path: str
@@ -96,6 +109,7 @@ class Analysis:
     track_name: str = ""
     corner_labels: dict = field(default_factory=dict)
     warnings: list = field(default_factory=list)
+    gg_bands: list = field(default_factory=list)
 
 
 @dataclass(frozen=True, eq=False)
@@ -463,6 +477,9 @@ def analyse(
         if trk is None
         else {n: lb for n, lb in zip(trk.corner_names, trk.corner_labels, strict=True) if lb},
         warnings=warnings,
+        gg_bands=gg.gg_bands(
+            the_lap.speed_m_s, the_lap.accel_lon_m_s2, the_lap.accel_lat_m_s2, car, k
+        ),
     )
 
 

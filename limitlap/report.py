@@ -38,15 +38,7 @@ def _usage_traces(speed, ax, ay, vehicle, grip_scale):
     from limitlap import limits
 
     veh = vehicle.scaled(grip_scale) if grip_scale != 1.0 else vehicle
-    m = veh.mass_kg
-    fx = m * ax + limits.resistance_n(speed, veh)
-    normal = limits.normal_load_n(speed, veh)
-    with np.errstate(invalid="ignore", divide="ignore"):
-        brake = np.where(fx < 0, -fx / (veh.mu_brk * normal), 0.0)
-        drive = np.where(fx > 0, fx / limits.drive_force_max_n(speed, veh), 0.0)
-    bad = ~np.isfinite(fx)
-    brake[bad] = np.nan
-    drive[bad] = np.nan
+    brake, drive = limits.longitudinal_shares(speed, ax, veh)
     return np.clip(brake, 0.0, 1.0), np.clip(drive, 0.0, 1.0)
 
 
@@ -135,14 +127,7 @@ def _figures(v: ReportView, step):
         (
             "gg.png",
             "g-g diagram by speed band: the shaded ring is grip this lap did not use.",
-            fg.gg_figure(
-                v.speed_real_m_s,
-                v.ax_real_m_s2,
-                v.ay_real_m_s2,
-                v.vehicle,
-                v.grip_scale,
-                fit_points=_fit_points(v.fit),
-            ),
+            fg.gg_figure(v.gg_bands, fit_points=_fit_points(v.fit)),
         )
     )
     real, ideal = _detail_traces(v)

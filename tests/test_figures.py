@@ -17,7 +17,7 @@ import numpy as np
 import pytest
 
 from limitlap import _canvas as cv
-from limitlap import figures
+from limitlap import figures, gg
 
 matplotlib = pytest.importorskip("matplotlib")
 Image = pytest.importorskip("PIL.Image")
@@ -339,10 +339,7 @@ def _every_figure():
             300 * np.cos(th), 200 * np.sin(th), np.gradient(2e-4 * S), CORNERS, S
         ),
         "gg": figures.gg_figure(
-            V_REAL,
-            ax,
-            ay,
-            _car(),
+            gg.gg_bands(V_REAL, ax, ay, _car()),
             fit_points=[
                 {"speed_m_s": V_REAL[::25], "accel_lat_m_s2": ay[::25], "accel_lon_m_s2": ax[::25]}
             ],
@@ -389,12 +386,12 @@ def test_ray_reach_of_a_circle_and_a_square():
     # (to the chord error of a 720-gon); a square of half-side 1 at 1 / max(|cos|, |sin|).
     angles = np.linspace(-np.pi, np.pi, 721)
     t = np.linspace(0, 2 * np.pi, 720, endpoint=False)
-    r = figures._ray_reach(2 * np.cos(t), 2 * np.sin(t), angles)
+    r = gg.ray_reach(2 * np.cos(t), 2 * np.sin(t), angles)
     assert r == pytest.approx(2.0, abs=2.0 * (1 - np.cos(np.pi / 720)) + 1e-12)
-    sq = figures._ray_reach([1.0, -1.0, -1.0, 1.0], [1.0, 1.0, -1.0, -1.0], angles)
+    sq = gg.ray_reach([1.0, -1.0, -1.0, 1.0], [1.0, 1.0, -1.0, -1.0], angles)
     assert sq == pytest.approx(1.0 / np.maximum(np.abs(np.cos(angles)), np.abs(np.sin(angles))))
     # origin outside a polygon: rays that miss it reach 0, the farthest crossing counts
-    off = figures._ray_reach([2.0, 3.0, 3.0, 2.0], [-0.5, -0.5, 0.5, 0.5], angles)
+    off = gg.ray_reach([2.0, 3.0, 3.0, 2.0], [-0.5, -0.5, 0.5, 0.5], angles)
     assert off[np.abs(angles) > 0.3].max() == 0.0
     assert off[360] == pytest.approx(3.0)  # angle 0: in at x = 2, out at x = 3
 

@@ -23,7 +23,7 @@ from pathlib import Path
 import numpy as np
 import pytest
 
-from limitlap import best_laps, compare, figures, outputs, report, targets
+from limitlap import best_laps, compare, figures, gg, outputs, report, targets
 from limitlap import corners as corners_mod
 from limitlap.driven import DrivenLap
 from limitlap.envelope import EnvelopeFit
@@ -125,6 +125,7 @@ def make_analysis():
         corners=corners,
         best_of_laps=best,
         warnings=[],
+        gg_bands=gg.gg_bands(driven.speed_m_s, driven.accel_lon_m_s2, driven.accel_lat_m_s2, CAR),
     )
 
 

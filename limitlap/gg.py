@@ -1,0 +1,212 @@
+"""The lap's samples against the envelope in the g-g diagram, speed band by speed band.
+
+For each speed band: the envelope's boundary at the band's middle speed and at its
+edges, the lap's samples in the band, their convex hull, and how far the samples and
+the envelope reach in every direction; the share of the envelope's area the samples
+never reached is the grip the lap left unused there (polar area on equal angle steps).
+All in m/s², + forward, + left (ISO 8855).
+"""
+
+from __future__ import annotations
+
+import itertools
+import math
+from dataclasses import dataclass
+
+import numpy as np
+
+from limitlap import limits
+from limitlap.units import KMH_TO_M_S
+from limitlap.vehicle import Vehicle
+
+#: Ray directions of the reach, -pi to pi inclusive (0.5 degree steps). [rad]
+REACH_ANGLES_RAD = np.linspace(-np.pi, np.pi, 721)
+
+
+@dataclass(frozen=True, eq=False)
+class GGBand:
+    """One speed band of the g-g diagram (accelerations in m/s², + forward, + left).
+
+    Attributes
+    ----------
+    speed_lo_m_s, speed_hi_m_s : float
+        The band's speeds. [m/s]
+    envelope_lon_m_s2, envelope_lat_m_s2 : numpy.ndarray
+        The envelope's boundary at the band's middle speed. [m/s²]
+    edge_boundaries : tuple of (lon, lat) arrays
+        The boundary at the band's edge speeds (those above 0). [m/s²]
+    sample_lon_m_s2, sample_lat_m_s2 : numpy.ndarray
+        The lap's samples in the band. [m/s²]
+    hull_lon_m_s2, hull_lat_m_s2 : numpy.ndarray or None
+        Their convex hull, closed (first point repeated); None for fewer than 3. [m/s²]
+    envelope_reach_m_s2, sample_reach_m_s2 : numpy.ndarray or None
+        How far the envelope and the samples (never beyond the envelope) reach along
+        each of :data:`REACH_ANGLES_RAD`, angles measured in the diagram's plane from
+        + lateral (left) towards + longitudinal (forward). [m/s²]
+    unused_share : float
+        Share of the envelope's area beyond the samples' reach; NaN without a hull. [-]
+    """
+
+    speed_lo_m_s: float
+    speed_hi_m_s: float
+    envelope_lon_m_s2: np.ndarray
+    envelope_lat_m_s2: np.ndarray
+    edge_boundaries: tuple
+    sample_lon_m_s2: np.ndarray
+    sample_lat_m_s2: np.ndarray
+    hull_lon_m_s2: np.ndarray | None
+    hull_lat_m_s2: np.ndarray | None
+    envelope_reach_m_s2: np.ndarray | None
+    sample_reach_m_s2: np.ndarray | None
+    unused_share: float
+
+
+def gg_bands(speed_m_s, accel_lon_m_s2, accel_lat_m_s2, vehicle: Vehicle, grip_scale=1.0, bands=None):
+    """The lap's samples against the envelope in each speed band.
+
+    Parameters
+    ----------
+    speed_m_s, accel_lon_m_s2, accel_lat_m_s2 : array-like
+        The lap's samples. [m/s], [m/s²]
+    vehicle : Vehicle
+        Complete envelope at grip scale 1.
+    grip_scale : float
+        Grip scale of the comparison. [-]
+    bands : list of tuple, optional
+        (low, high) speed bands [m/s]; by default four from :func:`speed_bands_m_s`.
+
+    Returns
+    -------
+    list of GGBand
+    """
+    env = vehicle.scaled(grip_scale) if grip_scale != 1.0 else vehicle
+    v = np.asarray(speed_m_s, dtype=np.float64)
+    ax = np.asarray(accel_lon_m_s2, dtype=np.float64)
+    ay = np.asarray(accel_lat_m_s2, dtype=np.float64)
+    if bands is None:
+        bands = speed_bands_m_s(v, n_bands=4)
+    bands = list(bands)[:4] or [(0.0, 1.0)]
+    return [_band(v, ax, ay, env, lo, hi) for lo, hi in bands]
+
+
+def _band(v, ax, ay, env, lo, hi) -> GGBand:
+    ex, ey = limits.envelope_boundary(0.5 * (lo + hi), env)
+    edges = tuple(limits.envelope_boundary(edge, env) for edge in (lo, hi) if edge > 0)
+    inband = (v >= lo) & (v < hi) & np.isfinite(ax) & np.isfinite(ay)
+    sx, sy = ax[inband], ay[inband]
+    hull = convex_hull(sy, sx)  # in the (lateral, longitudinal) plane of the diagram
+    if hull is None:
+        return GGBand(lo, hi, ex, ey, edges, sx, sy, None, None, None, None, math.nan)
+    r_env = ray_reach(ey, ex, REACH_ANGLES_RAD)
+    r_in = np.minimum(ray_reach(hull[0], hull[1], REACH_ANGLES_RAD), r_env)
+    # Polar area 1/2 sum r^2 dtheta on equal steps (the last angle repeats the first).
+    unused = 1.0 - float(np.sum(r_in[:-1] ** 2) / np.sum(r_env[:-1] ** 2))
+    hy, hx = np.append(hull[0], hull[0][0]), np.append(hull[1], hull[1][0])
+    return GGBand(lo, hi, ex, ey, edges, sx, sy, hx, hy, r_env, r_in, unused)
+
+
+def ray_reach(poly_x, poly_y, angles):
+    """Farthest crossing of rays from the origin with a closed polygon, per angle.
+
+    Parameters
+    ----------
+    poly_x, poly_y : array-like
+        The polygon's vertices (closed implicitly: the last joins the first). [any unit]
+    angles : array-like
+        Ray directions, ascending within [-pi, pi]. [rad]
+
+    Returns
+    -------
+    numpy.ndarray
+        Distance from the origin to the farthest crossing of each ray with an edge; 0 where
+        a ray crosses none. [unit of the vertices]
+
+    Notes
+    -----
+    An edge that does not pass through the origin subtends less than half a turn as seen
+    from it, and only rays within that arc can cross it, so only those (edge, ray) pairs
+    are tested -- each with the full crossing test (ray distance t >= 0, edge parameter
+    0 <= w <= 1, not parallel), as if every pair were.
+    """
+    ax_ = np.asarray(poly_x, dtype=np.float64)
+    ay_ = np.asarray(poly_y, dtype=np.float64)
+    th = np.asarray(angles, dtype=np.float64)
+    bx, by = np.roll(ax_, -1), np.roll(ay_, -1)
+    start = np.arctan2(ay_, ax_)
+    turn = np.arctan2(ax_ * by - ay_ * bx, ax_ * bx + ay_ * by)  # signed angle a -> b
+    lo = np.where(turn >= 0, start, start + turn)  # the arc [lo, lo + |turn|]
+    hi = lo + np.abs(turn)
+    edges, rays = [], []
+    margin = 1e-9  # [rad] rays through a vertex belong to both its edges
+    for shift in (-2.0 * np.pi, 0.0, 2.0 * np.pi):  # arcs across the -pi/pi seam
+        i0 = np.searchsorted(th, lo + shift - margin, side="left")
+        i1 = np.searchsorted(th, hi + shift + margin, side="right")
+        n = np.maximum(i1 - i0, 0)
+        first = np.cumsum(n) - n
+        edges.append(np.repeat(np.arange(lo.size), n))
+        rays.append(np.repeat(i0, n) + np.arange(int(n.sum())) - np.repeat(first, n))
+    e = np.concatenate(edges)
+    i = np.concatenate(rays)
+    dx, dy = np.cos(th[i]), np.sin(th[i])
+    ex, ey = bx[e] - ax_[e], by[e] - ay_[e]
+    denom = dx * ey - dy * ex
+    with np.errstate(divide="ignore", invalid="ignore"):
+        t = (ax_[e] * ey - ay_[e] * ex) / denom  # distance along the ray
+        w = (ax_[e] * dy - ay_[e] * dx) / denom  # position along the edge
+    ok = (np.abs(denom) > 1e-15) & (t >= 0) & (w >= 0) & (w <= 1)
+    out = np.zeros(th.size)
+    np.maximum.at(out, i[ok], t[ok])
+    return out
+
+
+
+def convex_hull(points_x, points_y):
+    """Convex hull polygon of the points, or None for fewer than 3 non-collinear points."""
+    pts = np.column_stack([points_x, points_y])
+    pts = pts[np.all(np.isfinite(pts), axis=1)]
+    if pts.shape[0] < 3:
+        return None
+    from scipy.spatial import ConvexHull, QhullError
+
+    try:
+        hull = ConvexHull(pts)
+    except (QhullError, ValueError):
+        return None
+    v = pts[hull.vertices]
+    return v[:, 0], v[:, 1]
+
+
+
+def speed_bands_m_s(speed_m_s, n_bands: int = 3):
+    """Speed band edges for the g-g panels: equal sample counts, rounded to 10 km/h.
+
+    Parameters
+    ----------
+    speed_m_s : array-like
+        Sample speeds. [m/s]
+    n_bands : int
+        Number of bands. [-]
+
+    Returns
+    -------
+    list of tuple
+        (low, high) edges of each band. [m/s]
+    """
+    v = np.asarray(speed_m_s, dtype=np.float64)
+    v = v[np.isfinite(v)]
+    step = 10.0 * KMH_TO_M_S
+    if v.size == 0:
+        return []
+    q = np.quantile(v, np.linspace(0.0, 1.0, n_bands + 1))
+    edges = np.unique(
+        np.concatenate(
+            [
+                [np.floor(q[0] / step) * step],
+                np.round(q[1:-1] / step) * step,
+                [np.ceil(q[-1] / step) * step],
+            ]
+        )
+    )
+    if edges.size < 2:
+        edges = np.array([edges[0] - step, edges[0] + step])
+    return [(float(a), float(b)) for a, b in itertools.pairwise(edges)]
