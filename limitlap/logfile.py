@@ -649,13 +649,45 @@ def read_log(path, channel_map=None, *, on_channels=None, defer=()) -> Log:
     source, head, whole = _log_source(path)
     if whole and (not head or head.isspace()):
         raise InputError(path, "file is empty")
-    header, sep, decimal_comma, encoding = _detect_format(path, head)
+    fmt = _detect_format(path, head)
+    header = fmt[0]
     found = _resolve_columns(path, header, channel_map)
     later = {ch: found[ch] for ch in defer if ch in found and ch != "time"}
     data = _parse_numbers(
-        path, source, header, sep, decimal_comma, encoding,
-        {ch: spec for ch, spec in found.items() if ch not in later},
+        path, source, *fmt, {ch: spec for ch, spec in found.items() if ch not in later}
     )
+    n_rows = len(data["time"])
+
+    def column(channel):
+        return header[found[channel][0]]
+
+    data, rows, keep = _data_rows(path, data, found, column)
+    warnings: list[str] = []
+    time_s, data, rows = _time_base(path, data, rows, column, warnings)
+    if not np.isfinite(data["speed"]).any():
+        raise InputError(path, "no speed: the column is blank in every row", column=column("speed"))
+    if "lap" in data:
+        _check_lap_column(path, data["lap"], rows, column("lap"))
+    if on_channels is not None:
+        on_channels(time_s, data)
+    origin = _local_positions(path, data, rows, column, warnings)
+    channels = _Channels(data)
+    if later:
+        channels.deferred = _Deferred(
+            path, source, *fmt, later, found["time"], time_s, rows - 2,
+            np.flatnonzero(~keep), n_rows,
+        )  # fmt: skip
+    log = Log(path=str(path), time_s=time_s, channels=channels, origin=origin, warnings=warnings)
+    warnings.extend(dropout_warnings(log, rows))
+    return log
+
+
+def _data_rows(path, data, found, column):
+    """Blank rows dropped, every value checked finite and scaled to SI.
+
+    Returns the data, the spreadsheet row of each kept row (header = 1) and the mask of
+    the parsed rows kept.
+    """
     n_rows = len(data["time"])
     rows = np.arange(n_rows) + 2  # spreadsheet rows: header = 1
     # A row is blank when every cell is; only rows without a time can be (cheap to test).
@@ -666,7 +698,7 @@ def read_log(path, channel_map=None, *, on_channels=None, defer=()) -> Log:
     if n_rows == 0 or blank.all():
         raise InputError(path, "no data rows (header only)")
     for channel, values in data.items():
-        _check_finite(path, values, rows, header[found[channel][0]])
+        _check_finite(path, values, rows, column(channel))
     keep = ~blank
     if not keep.all():  # rows with every cell blank are dropped (most logs have none)
         data = {k: v[keep] for k, v in data.items()}
@@ -675,10 +707,11 @@ def read_log(path, channel_map=None, *, on_channels=None, defer=()) -> Log:
         _, factor, sign = found[channel]
         if factor * sign != 1.0:
             values *= factor * sign
+    return data, rows, keep
 
-    def column(channel):
-        return header[found[channel][0]]
 
+def _time_base(path, data, rows, column, warnings):
+    """The time channel checked (no blanks, never backwards), repeated stamps merged."""
     time_s = data.pop("time")
     if np.isnan(time_s).any():
         _, row = _first_bad(rows, np.isnan(time_s))
@@ -689,8 +722,7 @@ def read_log(path, channel_map=None, *, on_channels=None, defer=()) -> Log:
         raise InputError(
             path, f"time goes backwards: {time_s[i + 1]:g} s after {time_s[i]:g} s",
             row=int(rows[i + 1]), column=column("time"),
-        )
-    warnings: list[str] = []
+        )  # fmt: skip
     if (step == 0).any():
         n_dup = int((step == 0).sum())
         first_row = int(rows[1:][np.argmax(step == 0)])
@@ -699,14 +731,15 @@ def read_log(path, channel_map=None, *, on_channels=None, defer=()) -> Log:
             f"{path}: {n_dup} row(s) repeat the previous time stamp (first at row {first_row}); "
             "merged into one row each"
         )
-    if not np.isfinite(data["speed"]).any():
-        raise InputError(path, "no speed: the column is blank in every row", column=column("speed"))
-    if "lap" in data:
-        _check_lap_column(path, data["lap"], rows, column("lap"))
-    if on_channels is not None:
-        on_channels(time_s, data)
+    return time_s, data, rows
 
-    origin = None
+
+def _local_positions(path, data, rows, column, warnings):
+    """Positions in the local frame, in place: ``x``/``y`` [m]; returns the WGS84 origin.
+
+    Latitude/longitude go to east-north-up (:func:`limitlap.gnss.to_enu`); a planar
+    ``x``/``y`` log is taken as it is (origin None). Rows without a fix get NaN.
+    """
     if "latitude" in data and "longitude" in data:
         if "x" in data or "y" in data:
             warnings.append(f"{path}: both latitude/longitude and x/y columns; x/y ignored")
@@ -721,32 +754,24 @@ def read_log(path, channel_map=None, *, on_channels=None, defer=()) -> Log:
                 raise InputError(
                     path, f"{channel} {values[i]:g} is out of range -{limit:g}..{limit:g} degrees",
                     row=row, column=column(channel),
-                )
+                )  # fmt: skip
         fix = np.isfinite(lat) & np.isfinite(lon)
-        if not fix.any():
-            blank_one = "latitude" if not np.isfinite(lat).any() else "longitude"
-            raise InputError(path, "no position: the column is blank in every row", column=column(blank_one))
+        _require_a_fix(path, lat, fix, "latitude", "longitude", column)
         lat[~fix] = np.nan
         lon[~fix] = np.nan
         data["x"], data["y"], origin = to_enu(lat, lon, data.get("altitude"), fix)
-    else:
-        fix = np.isfinite(data["x"]) & np.isfinite(data["y"])
-        if not fix.any():
-            blank_one = "x" if not np.isfinite(data["x"]).any() else "y"
-            raise InputError(path, "no position: the column is blank in every row", column=column(blank_one))
-        data["x"][~fix] = np.nan
-        data["y"][~fix] = np.nan
-    channels = _Channels(data)
-    if later:
-        parsed_rows = rows - 2
-        channels.deferred = _Deferred(
-            path, source, header, sep, decimal_comma, encoding, later, found["time"], time_s,
-            parsed_rows, np.flatnonzero(~keep), n_rows,
-        )
-    log = Log(path=str(path), time_s=time_s, channels=channels, origin=origin, warnings=warnings)
-    warnings.extend(dropout_warnings(log, rows))
-    return log
+        return origin
+    fix = np.isfinite(data["x"]) & np.isfinite(data["y"])
+    _require_a_fix(path, data["x"], fix, "x", "y", column)
+    data["x"][~fix] = np.nan
+    data["y"][~fix] = np.nan
+    return None
 
+
+def _require_a_fix(path, first, fix, first_name, second_name, column):
+    if not fix.any():
+        blank_one = first_name if not np.isfinite(first).any() else second_name
+        raise InputError(path, "no position: the column is blank in every row", column=column(blank_one))
 
 
 def _check_lap_column(path, lap, rows, column):
