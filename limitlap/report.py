@@ -265,8 +265,19 @@ def _envelope_source(v: ReportView) -> str:
 
 def report_html(v: ReportView, figure_list) -> str:
     """report.html text: self-contained, figures inline as data URIs, no scripts."""
+    out: list[str] = []
+    _head_and_cards(v, out)
+    _warnings(v, out)
+    _corner_table(v, out)
+    _figure_section(figure_list, out)
+    _method_and_caution(v, out)
+    return "\n".join(out) + "\n"
+
+
+def _head_and_cards(v: ReportView, out: list[str]) -> None:
+    """The page head, title line and the headline numbers."""
     e = html.escape
-    out = [
+    out += [
         "<!DOCTYPE html>",
         '<html lang="en">',
         "<head>",
@@ -293,12 +304,21 @@ def report_html(v: ReportView, figure_list) -> str:
             f'<div class="card {cls}"><div class="k">{e(k)}</div><div class="v">{e(val)}</div></div>'
         )
     out.append("</div>")
-    # Warnings near the top: a result the data cannot support must not be missed.
+
+
+def _warnings(v: ReportView, out: list[str]) -> None:
+    """Warnings near the top: a result the data cannot support must not be missed."""
+    e = html.escape
     out.append("<h2>Warnings</h2>")
     if v.warnings:
         out += [f'<p class="warn">{e(w)}</p>' for w in v.warnings]
     else:
         out.append('<p class="ok">None: the data passed every check this report makes.</p>')
+
+
+def _corner_table(v: ReportView, out: list[str]) -> None:
+    """The corners ranked by time left, with the numbers a driver acts on."""
+    e = html.escape
     out.append("<h2>Where the time is, corner by corner</h2>")
     out.append("<table><thead><tr>")
     heads = [
@@ -344,6 +364,11 @@ def report_html(v: ReportView, figure_list) -> str:
         "taken flat out, on the engine's limit, so it does not show the tyres'). Brake "
         "points in metres from the start/finish gate.</p>"
     )
+
+
+def _figure_section(figure_list, out: list[str]) -> None:
+    """The figures, inline as PNG data URIs."""
+    e = html.escape
     out.append("<h2>Figures</h2>")
     for name, caption, png in figure_list:
         data = base64.b64encode(png).decode("ascii")
@@ -351,6 +376,11 @@ def report_html(v: ReportView, figure_list) -> str:
             f'<figure><img src="data:image/png;base64,{data}" alt="{e(caption)}" data-file="{e(name)}">'
             f"<figcaption>{e(caption)}</figcaption></figure>"
         )
+
+
+def _method_and_caution(v: ReportView, out: list[str]) -> None:
+    """How the numbers were worked out, the assumptions, and the caution."""
+    e = html.escape
     out.append("<h2>How this was worked out</h2>")
     out.append(
         "<p>The ideal lap is a quasi-steady-state point-mass lap on the line you drove: at "
@@ -370,6 +400,3 @@ def report_html(v: ReportView, figure_list) -> str:
     out.append("<h2>Caution</h2>")
     out.append(f'<p class="caution">{e(SAFETY_CAUTION)}</p>')
     out += ["</body>", "</html>"]
-    return "\n".join(out) + "\n"
-
-
