@@ -30,7 +30,7 @@ KW_TO_W = 1.0e3
 MS_TO_S = 1.0e-3
 
 #: Units accepted per channel: unit string -> factor to SI. The first entry is the default
-#: when a header gives no unit (INTERFACE §1). ``None`` key means "no unit".
+#: when a header gives no unit (docs/formats.md, Log files). ``None`` key means "no unit".
 CHANNEL_UNITS: dict[str, dict[str, float]] = {
     "time": {"s": 1.0, "ms": MS_TO_S},
     "latitude": {"deg": 1.0},

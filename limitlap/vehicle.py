@@ -8,14 +8,14 @@ from dataclasses import dataclass, replace
 from limitlap.errors import LimitlapError
 from limitlap.units import RHO_ISA_KG_M3
 
-#: Valid range of the grip scale k (INTERFACE §3).
+#: Valid range of the grip scale k (docs/formats.md, Vehicle files).
 GRIP_SCALE_MIN = 0.2
 GRIP_SCALE_MAX = 2.0
 
 
 @dataclass(frozen=True)
 class Vehicle:
-    """Point-mass vehicle of INTERFACE §3, all SI.
+    """Point-mass vehicle of docs/formats.md (Vehicle files), all SI.
 
     Attributes
     ----------
@@ -89,7 +89,7 @@ class Vehicle:
         """The same car on a track whose grip is ``grip_scale`` times as high.
 
         Only the three friction coefficients change; power, drag and downforce stay
-        (INTERFACE §3).
+        (docs/formats.md, Vehicle files).
 
         Parameters
         ----------
@@ -112,7 +112,10 @@ class Vehicle:
 
 
 def check_grip_scale(grip_scale: float) -> float:
-    """Return ``grip_scale`` as a float, or raise when it is outside 0.2-2.0 (INTERFACE §3)."""
+    """Return ``grip_scale`` as a float, or raise when it is outside 0.2-2.0.
+
+    The range is docs/formats.md's (Vehicle files).
+    """
     try:
         k = float(grip_scale)
     except (TypeError, ValueError):

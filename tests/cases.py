@@ -19,7 +19,7 @@ def friction_car(mu=1.0, mu_brk=None, mu_trac=None, exponent=2.0, mass_kg=1000.0
     )
 
 
-#: The example vehicle of INTERFACE §3 (REFERENCES: "the example vehicle").
+#: The example vehicle of docs/formats.md (Vehicle files).
 EXAMPLE_CAR = Vehicle(
     "example", 1300.0, 370e3, 0.75, 1.10, 0.012, 1.225,
     mu_lat=1.45, mu_brk=1.55, mu_trac=1.30, exponent=2.0,

@@ -381,7 +381,7 @@ def test_valid_line_solves(cli, line_file, vehicle_file):
 
 def test_repeated_points_are_not_a_self_crossing(tmp_path, cli, vehicle_file):
     # A point listed twice in a row, and a last point repeating the first (against
-    # INTERFACE §2 but common), touch nothing: the line still solves.
+    # docs/formats.md, Line files, but common), touch nothing: the line still solves.
     lines = square_line_csv().splitlines(keepends=True)
     text = "".join([*lines[:10], lines[9], *lines[10:], lines[1]])
     path = write(tmp_path, "line.csv", text)
