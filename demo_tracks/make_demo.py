@@ -6,7 +6,8 @@ Run from the repository root: ``python demo_tracks/make_demo.py``. Deterministic
 Writes, next to this script:
 
 - ``tarrowby_heath.toml``      track file: name, ENU origin, gate, corner names and apexes
-- ``tarrowby_heath_line.csv``  the reference line (docs/formats.md, Line files, x/y/z in the origin's ENU frame)
+- ``tarrowby_heath_line.csv``  the reference line (docs/formats.md, Line files; x/y/z in
+                               the origin's ENU frame)
 - ``tarrowby_dry.csv.gz``      dry session: out-lap, 7 flying laps, in-lap; 100 Hz, 10 Hz GNSS
 - ``tarrowby_wet.csv.gz``      wet session (grip scale 0.75): out-lap, 4 laps, in-lap
 - ``tarrowby_truth.json``      what the generator planted (lap times, mistakes, ideal laps)

@@ -23,11 +23,11 @@ import math
 import os
 from collections.abc import Callable, Sequence
 from concurrent.futures import ProcessPoolExecutor, as_completed
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 from multiprocessing import get_context
 from pathlib import Path
 
-from limitlap.errors import InputError, LimitlapError
+from limitlap.errors import ExtraNeeded, InputError, LimitlapError
 
 #: File endings taken as logs when a folder is given.
 LOG_SUFFIXES = (".csv", ".csv.gz")
@@ -52,7 +52,7 @@ class BatchRow:
     error : str
         One-line error; empty when the log went through.
     warnings : list of str
-        The analysis warnings, one line each.
+        The analysis warnings, one line each (as the batch's ``wording`` says them).
     """
 
     log: str
@@ -84,6 +84,7 @@ class _Job:
     channels: str | None
     track: str | None
     figures: bool
+    wording: Callable[[object], str] = str
 
 
 def _log_name(path: Path) -> str:
@@ -147,6 +148,8 @@ def output_folders(logs: Sequence[Path], out_dir) -> list[Path]:
 def analyse_job(job: _Job) -> BatchRow:
     """Analyse one log and write its folder; a user error becomes the row's error.
 
+    Warnings and the error are put in the job's ``wording`` (see :func:`run_batch`).
+
     Runs in a worker process (or a Dask worker), so it takes and returns plain data.
     An unexpected exception (a bug) is also kept in the row, marked as such, so the
     other logs still go through.
@@ -156,6 +159,7 @@ def analyse_job(job: _Job) -> BatchRow:
     from limitlap import outputs, pipeline
 
     gc.freeze()  # the imports' objects out of the collector's way for the job (cli._settle_imports)
+    say = job.wording
     try:
         analysis = pipeline.analyse(
             job.log,
@@ -166,10 +170,11 @@ def analyse_job(job: _Job) -> BatchRow:
             channels=job.channels,
             track=job.track,
         )
+        analysis = replace(analysis, warnings=[say(w) for w in analysis.warnings])
         Path(job.out_dir).parent.mkdir(parents=True, exist_ok=True)
         outputs.write_outputs(analysis, job.out_dir, figures=job.figures)
     except LimitlapError as err:
-        return BatchRow(job.log, job.out_dir, error=str(err))
+        return BatchRow(job.log, job.out_dir, error=say(err))
     except Exception as err:
         return BatchRow(job.log, job.out_dir, error=f"internal error ({type(err).__name__}): {err}")
     finally:
@@ -183,7 +188,7 @@ def analyse_job(job: _Job) -> BatchRow:
         ideal_lap_time_s=float(cmp_.ideal_lap_time_s),
         time_left_s=float(cmp_.time_left_s),
         grip_estimate=None if analysis.grip_estimate is None else float(analysis.grip_estimate),
-        warnings=[str(w) for w in analysis.warnings],
+        warnings=list(analysis.warnings),
     )
 
 
@@ -201,74 +206,84 @@ def run_batch(
     workers: int | None = None,
     scheduler=None,
     on_done: Callable[[BatchRow, int, int], None] | None = None,
+    wording: Callable[[object], str] = str,
 ) -> list[BatchRow]:
     """Analyse every log into ``out_dir/<log name>/``, in parallel.
 
     Parameters
     ----------
     logs : sequence of str or Path
-        Log files (see :func:`find_logs` for folders).
+        Log files (see :func:`find_logs` for folders). [-]
     out_dir : str or Path
-        Parent of the per-log output folders (made when missing).
+        Parent of the per-log output folders (made when missing). [-]
     vehicle, grip_scale, lap, gate, channels, track
         As for :func:`limitlap.pipeline.analyse`, the same for every log; ``grip_scale``
         [-].
     figures : bool
-        Draw the figures of each report.
+        Draw the figures of each report. [-]
     workers : int, optional
         Worker processes; default one per core (at most one per log). 1 runs the logs
-        one after the other in this process.
+        one after the other in this process. [-]
     scheduler : str or dask.distributed.Client, optional
         Dask scheduler address (e.g. ``"tcp://10.0.0.5:8786"``) or a client: run on that
-        cluster instead of the local pool. Needs the ``limitlap[dask]`` extra.
+        cluster instead of the local pool. Needs the ``limitlap[dask]`` extra. [-]
     on_done : callable, optional
-        ``on_done(row, done, total)`` as each log finishes.
+        ``on_done(row, done, total)`` as each log finishes. [-]
+    wording : callable, optional
+        How a warning or an error becomes the line the rows and each log's files hold
+        (a front end's own words for :mod:`limitlap.errors`' facts); default ``str``. It
+        runs in the workers, so it must be picklable (a module-level function). [-]
 
     Returns
     -------
     list of BatchRow
-        In the order of ``logs``.
+        In the order of ``logs``. [-]
     """
     paths = [Path(p) for p in logs]
     folders = output_folders(paths, out_dir)
     Path(out_dir).mkdir(parents=True, exist_ok=True)
-    jobs = [
-        _Job(
-            str(p),
-            str(f),
-            str(vehicle) if isinstance(vehicle, str | Path) else vehicle,
-            float(grip_scale),
-            lap,
-            gate,
-            None if channels is None else str(channels),
-            None if track is None else str(track),
-            bool(figures),
-        )
-        for p, f in zip(paths, folders, strict=True)
-    ]
+    common = (vehicle, grip_scale, lap, gate, channels, track, figures, wording)
+    jobs = [_job(p, f, *common) for p, f in zip(paths, folders, strict=True)]
     rows: list[BatchRow | None] = [None] * len(jobs)
-    total = len(jobs)
-
-    def done(i, row):
+    for i, row in _finished(jobs, workers, scheduler):
         rows[i] = row
         if on_done is not None:
-            on_done(row, sum(r is not None for r in rows), total)
-
-    if scheduler is not None:
-        for i, row in _run_dask(jobs, scheduler):
-            done(i, row)
-    else:
-        n = min(workers or os.cpu_count() or 1, total)
-        if n <= 1:
-            for i, job in enumerate(jobs):
-                done(i, analyse_job(job))
-        else:
-            # spawn, not fork: polars and numba hold threads that a fork would copy mid-state
-            with ProcessPoolExecutor(max_workers=n, mp_context=get_context("spawn")) as pool:
-                futures = {pool.submit(analyse_job, job): i for i, job in enumerate(jobs)}
-                for fut in as_completed(futures):
-                    done(futures[fut], fut.result())
+            on_done(row, sum(r is not None for r in rows), len(jobs))
     return [r for r in rows if r is not None]
+
+
+def _job(log, folder, vehicle, grip_scale, lap, gate, channels, track, figures, wording) -> _Job:
+    """One log's job in plain, picklable values (paths as text)."""
+    return _Job(
+        str(log),
+        str(folder),
+        str(vehicle) if isinstance(vehicle, str | Path) else vehicle,
+        float(grip_scale),
+        lap,
+        gate,
+        None if channels is None else str(channels),
+        None if track is None else str(track),
+        bool(figures),
+        wording,
+    )
+
+
+def _finished(jobs, workers, scheduler):
+    """(index, row) pairs as the jobs finish: on a Dask cluster when given a scheduler,
+    else in a process pool, or one after the other in this process for one worker."""
+    if scheduler is not None:
+        yield from _run_dask(jobs, scheduler)
+        return
+    n = min(workers or os.cpu_count() or 1, len(jobs))
+    if n <= 1:
+        for i, job in enumerate(jobs):
+            yield i, analyse_job(job)
+        return
+    # spawn, not fork: polars and numba hold threads that a fork would copy mid-state
+    with ProcessPoolExecutor(max_workers=n, mp_context=get_context("spawn")) as pool:
+        futures = {pool.submit(analyse_job, job): i for i, job in enumerate(jobs)}
+        for fut in as_completed(futures):
+            yield futures[fut], fut.result()
 
 
 def _run_dask(jobs, scheduler):
@@ -277,7 +292,7 @@ def _run_dask(jobs, scheduler):
         from dask.distributed import Client
         from dask.distributed import as_completed as dask_completed
     except ImportError as err:
-        raise LimitlapError("a --scheduler needs Dask: pip install 'limitlap[dask]'") from err
+        raise ExtraNeeded("scheduler", "Dask", "dask") from err
     own = not isinstance(scheduler, Client)
     try:
         client = Client(scheduler) if own else scheduler

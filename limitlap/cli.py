@@ -18,7 +18,7 @@ try:  # typer >= 0.29 carries its own copy of click
 except ImportError:  # older typer uses click itself
     from click.exceptions import ClickException
 
-from limitlap.errors import InputError, LimitlapError
+from limitlap.errors import ArgumentError, ExtraNeeded, InputError, LimitlapError, WarningLine
 
 if TYPE_CHECKING:
     from limitlap.targets import TargetCondition
@@ -37,6 +37,48 @@ app = typer.Typer(
 @app.callback()
 def _root() -> None:
     """limitlap: how much lap time the driver's own demonstrated grip still allows."""
+
+
+#: The command line's option for each parameter a message may name.
+_OPTIONS = {"gate": "--gate", "grip_scale": "--grip", "scheduler": "--scheduler"}
+
+#: How the command line words the advice of each hint kind (``errors.WarningLine``).
+_ADVICE = {
+    "gate": " (give --gate LAT,LON for lap times from the real line)",
+    "grip_scale": "; analyse with --grip {value:.2f} for the ideal at the grip found",
+}
+
+
+def worded(said) -> str:
+    """A warning or error of the library as the terminal and the files say it.
+
+    The library names a parameter as the Python call spells it and keeps advice as a hint
+    kind (:mod:`limitlap.errors`); here they get the command line's option names.
+
+    Parameters
+    ----------
+    said : str or LimitlapError
+        A warning line or an error. [-]
+
+    Returns
+    -------
+    str
+        The line without its ``limitlap: warning:`` / ``error:`` prefix. [-]
+    """
+    if isinstance(said, ExtraNeeded):
+        option = _OPTIONS.get(said.argument, said.argument)
+        return f"a {option} needs {said.library}: pip install 'limitlap[{said.extra}]'"
+    if isinstance(said, ArgumentError):
+        return f"{_OPTIONS.get(said.argument, said.argument)}: {said.problem}"
+    if isinstance(said, WarningLine) and said.hint is not None:
+        return said.fact + _ADVICE[said.hint].format(value=said.value)
+    return str(said)
+
+
+def _warn(warnings) -> None:
+    """The warnings on stderr, one line each."""
+    for w in warnings:
+        typer.echo(f"limitlap: warning: {worded(w)}", err=True)
 
 
 def _grip(value: str | None, default: float = 1.0) -> float:
@@ -173,8 +215,7 @@ def laps(
     from limitlap import pipeline
 
     _, found, _, warnings = pipeline.load_session(log, gate=gate, channels=channels, track=track)
-    for w in warnings:
-        typer.echo(f"limitlap: warning: {w}", err=True)
+    _warn(warnings)
     if as_json:
         typer.echo(json.dumps(laps_mod.laps_json(found)))
     else:
@@ -197,6 +238,9 @@ def _settle_imports() -> None:
 
 
 def _analyse_one(log, vehicle, k, lap, gate, channels, track, out, quiet, figures=True):
+    """One log analysed and its files written; the warnings as :func:`worded` says them."""
+    import dataclasses
+
     from limitlap import outputs, pipeline
 
     _settle_imports()
@@ -207,6 +251,7 @@ def _analyse_one(log, vehicle, k, lap, gate, channels, track, out, quiet, figure
             log, vehicle=vehicle, grip_scale=k, lap=lap, gate=gate, channels=channels,
             track=track, progress=bar,
         )
+        analysis = dataclasses.replace(analysis, warnings=[worded(w) for w in analysis.warnings])
         written = outputs.write_outputs(analysis, out, figures=figures, progress=bar)
     finally:
         bar.close()
@@ -222,7 +267,7 @@ def _analyse_batch(logs, out, quiet, scheduler, **options) -> None:
     try:
         rows = batch.run_batch(
             found, out, scheduler=scheduler, on_done=lambda row, done, total: bar(done, total, Path(row.log).name),
-            **options,
+            wording=worded, **options,
         )
     finally:
         bar.close()
@@ -268,8 +313,7 @@ def analyse(
         return
     log = log[0]
     analysis, written = _analyse_one(log, vehicle, k, lap, gate, channels, track, out, quiet, not no_figures)
-    for w in analysis.warnings:
-        typer.echo(f"limitlap: warning: {w}", err=True)
+    _warn(analysis.warnings)
     typer.echo(_corner_table(analysis))
     typer.echo(f"\nwritten to {out}/: " + ", ".join(sorted(Path(p).name for p in written.values())))
     typer.echo(report.SAFETY_CAUTION)
@@ -333,8 +377,7 @@ def demo(
     log = bundled_path("demo_tracks", "tarrowby_dry.csv.gz")
     track = bundled_path("demo_tracks", "tarrowby_heath.toml")
     analysis, _ = _analyse_one(log, None, 1.0, None, None, None, track, out, quiet)
-    for w in analysis.warnings:
-        typer.echo(f"limitlap: warning: {w}", err=True)
+    _warn(analysis.warnings)
     typer.echo(_corner_table(analysis))
     corners = analysis.corners
     conditions = targets_mod.target_tables(analysis.driven.line, analysis.vehicle, ["dry", "damp", "wet"], corners)
@@ -352,7 +395,7 @@ def main() -> None:
     try:
         app(standalone_mode=False)
     except LimitlapError as err:
-        typer.echo(f"limitlap: error: {err}", err=True)
+        typer.echo(f"limitlap: error: {worded(err)}", err=True)
         raise SystemExit(2) from None
     except Abort:
         typer.echo("limitlap: interrupted", err=True)

@@ -13,7 +13,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from limitlap import _kernels
-from limitlap.errors import InputError, LimitlapError
+from limitlap.errors import ArgumentError, InputError, LimitlapError
 from limitlap.gnss import fill_position, gps_dropouts, travelled_m
 from limitlap.logfile import Log
 
@@ -133,26 +133,32 @@ class Gate:
 
 
 def parse_gate(text: str) -> Gate:
-    """Parse ``--gate LAT,LON`` (decimal degrees, WGS84).
+    """Parse a gate given as text, ``"LAT,LON"`` (decimal degrees, WGS84).
+
+    Raises
+    ------
+    ArgumentError
+        For the parameter ``gate``: not two numbers, or not a position on Earth.
 
     Examples
     --------
     >>> parse_gate("-31.41780,148.61724")
     Gate(latitude_deg=-31.4178, longitude_deg=148.61724, x_m=None, y_m=None, half_width_m=30.0)
     """
+    bad_text = f"'{text}' is not LAT,LON (two numbers separated by a comma)"
     parts = [p.strip() for p in str(text).split(",")]
     if len(parts) != 2:
-        raise InputError("--gate", f"'{text}' is not LAT,LON (two numbers separated by a comma)")
+        raise ArgumentError("gate", bad_text)
     try:
         lat, lon = (float(p) for p in parts)
     except ValueError:
-        raise InputError("--gate", f"'{text}' is not LAT,LON (two numbers separated by a comma)") from None
+        raise ArgumentError("gate", bad_text) from None
     if not (math.isfinite(lat) and math.isfinite(lon)):
-        raise InputError("--gate", f"'{text}' is not a finite position")
+        raise ArgumentError("gate", f"'{text}' is not a finite position")
     if abs(lat) > 90:
-        raise InputError("--gate", f"latitude {lat:g} is out of range -90..90 degrees")
+        raise ArgumentError("gate", f"latitude {lat:g} is out of range -90..90 degrees")
     if abs(lon) > 180:
-        raise InputError("--gate", f"longitude {lon:g} is out of range -180..180 degrees")
+        raise ArgumentError("gate", f"longitude {lon:g} is out of range -180..180 degrees")
     return Gate.geodetic(lat, lon)
 
 
@@ -372,9 +378,7 @@ def split_laps(log: Log, gate: Gate | tuple[float, float] | None = None) -> list
     t = log.time_s
     if gate is None:
         if not log.has("lap"):
-            raise InputError(
-                log.path, "no 'lap' column: give the start/finish gate with --gate LAT,LON"
-            )
+            raise InputError(log.path, "no 'lap' column: give the start/finish gate")
         lap = log.channels["lap"].copy()
         ok = np.isfinite(lap)
         lap = lap[ok][np.clip(np.cumsum(ok) - 1, 0, None)]  # fill blanks with the lap before

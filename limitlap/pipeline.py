@@ -19,7 +19,7 @@ from __future__ import annotations
 
 import math
 from collections.abc import Callable
-from concurrent.futures import ThreadPoolExecutor
+from concurrent.futures import Future, ThreadPoolExecutor
 from dataclasses import dataclass, field
 from pathlib import Path
 
@@ -40,7 +40,7 @@ from limitlap import (
 from limitlap import corners as corners_mod
 from limitlap import driven as driven_mod
 from limitlap import laps as laps_mod
-from limitlap.errors import InputError, LimitlapError
+from limitlap.errors import InputError, LimitlapError, WarningLine
 from limitlap.samples import select_samples
 from limitlap.vehicle import Vehicle, check_grip_scale
 
@@ -50,66 +50,6 @@ from limitlap.vehicle import Vehicle, check_grip_scale
 NOMINAL_MASS_KG = 1000.0
 
 Progress = Callable[[int, int, str], None]
-
-
-@dataclass(frozen=True, eq=False)
-class Analysis:
-    """Everything ``analyse`` found, as arrays and plain records (all SI).
-
-    Attributes
-    ----------
-    log_path : str
-    laps : list of laps.Lap
-        Every lap of the log, complete or not.
-    lap : laps.Lap
-        The analysed lap.
-    driven : driven.DrivenLap
-        Its line and measured traces on the line's stations.
-    ideal : solve.Profile
-        The ideal on the same stations.
-    vehicle : Vehicle
-        The complete envelope at grip scale 1 (given or fitted).
-    fit : envelope.EnvelopeFit or None
-        The fit, when the envelope was fitted from this log.
-    grip_scale : float
-        Scale the ideal was solved at. [-]
-    grip_estimate : float or None
-        Grip scale the lap actually used, relative to ``vehicle``. [-]
-    comparison : compare.LapComparison
-    corners : list of corners_mod.Corner
-    best_of_laps : best_laps.BestOfLaps or None
-    complete_laps : list of LapTimeline
-        Elapsed time against distance for every complete lap (what the composite is
-        built from); only the analysed lap's line is rebuilt, in ``driven``.
-    fit_laps : list of int
-        Numbers of the laps the envelope was fitted to: the flying laps
-        (:func:`limitlap.laps.flying_laps`); empty when a vehicle file gave the envelope.
-    track_name : str
-    corner_labels : dict of str to str
-        Corner name -> the track file's label for it ("T1" -> "Sentry"), where it gives one.
-    warnings : list of str
-    gg_bands : list of gg.GGBand
-        The analysed lap's samples against the envelope in the g-g diagram, by speed band.
-    """
-
-    log_path: str
-    laps: list
-    lap: object
-    driven: object
-    ideal: solve.Profile
-    vehicle: Vehicle
-    fit: object | None
-    grip_scale: float
-    grip_estimate: float | None
-    comparison: object
-    corners: list
-    best_of_laps: object | None
-    complete_laps: list = field(default_factory=list)
-    fit_laps: list = field(default_factory=list)
-    track_name: str = ""
-    corner_labels: dict = field(default_factory=dict)
-    warnings: list = field(default_factory=list)
-    gg_bands: list = field(default_factory=list)
 
 
 @dataclass(frozen=True, eq=False)
@@ -140,7 +80,73 @@ class LapTimeline:
     lap_time_s: float
 
 
-def lap_timelines(log, laps) -> dict:
+@dataclass(frozen=True, eq=False)
+class Analysis:
+    """Everything ``analyse`` found, as arrays and plain records (all SI).
+
+    Attributes
+    ----------
+    log_path : str
+        The log analysed.
+    laps : list of laps.Lap
+        Every lap of the log, complete or not.
+    lap : laps.Lap
+        The analysed lap.
+    driven : driven.DrivenLap
+        Its line and measured traces on the line's stations.
+    ideal : solve.Profile
+        The ideal on the same stations.
+    vehicle : Vehicle
+        The complete envelope at grip scale 1 (given or fitted).
+    fit : envelope.EnvelopeFit or None
+        The fit, when the envelope was fitted from this log.
+    grip_scale : float
+        Scale the ideal was solved at. [-]
+    grip_estimate : float or None
+        Grip scale the lap actually used, relative to ``vehicle``. [-]
+    comparison : compare.LapComparison
+        The lap against the ideal, corner by corner.
+    corners : list of corners_mod.Corner
+        The corners found on the analysed lap's line.
+    best_of_laps : best_laps.BestOfLaps or None
+        Each segment's best time over the complete laps.
+    complete_laps : list of LapTimeline
+        Elapsed time against distance for every complete lap (what the composite is
+        built from); only the analysed lap's line is rebuilt, in ``driven``.
+    fit_laps : list of int
+        Numbers of the laps the envelope was fitted to: the flying laps
+        (:func:`limitlap.laps.flying_laps`); empty when a vehicle file gave the envelope.
+    track_name : str
+        The track file's name, empty without one.
+    corner_labels : dict of str to str
+        Corner name -> the track file's label for it ("T1" -> "Sentry"), where it gives one.
+    warnings : list of str
+        One line each; those with advice are :class:`limitlap.errors.WarningLine`.
+    gg_bands : list of gg.GGBand
+        The analysed lap's samples against the envelope in the g-g diagram, by speed band.
+    """
+
+    log_path: str
+    laps: list[laps_mod.Lap]
+    lap: laps_mod.Lap
+    driven: driven_mod.DrivenLap
+    ideal: solve.Profile
+    vehicle: Vehicle
+    fit: envelope.EnvelopeFit | None
+    grip_scale: float
+    grip_estimate: float | None
+    comparison: compare.LapComparison
+    corners: list[corners_mod.Corner]
+    best_of_laps: best_laps.BestOfLaps | None
+    complete_laps: list[LapTimeline] = field(default_factory=list)
+    fit_laps: list[int] = field(default_factory=list)
+    track_name: str = ""
+    corner_labels: dict[str, str] = field(default_factory=dict)
+    warnings: list[str] = field(default_factory=list)
+    gg_bands: list[gg.GGBand] = field(default_factory=list)
+
+
+def lap_timelines(log: logfile.Log, laps) -> dict[int, LapTimeline]:
     """Elapsed time against travelled distance for each lap, from the logged speed.
 
     Distance is the trapezoidal integral of ``speed`` (as the lap table's distance,
@@ -151,12 +157,14 @@ def lap_timelines(log, laps) -> dict:
     Parameters
     ----------
     log : logfile.Log
+        The session. [-]
     laps : sequence of laps.Lap
+        The laps to time. [-]
 
     Returns
     -------
     dict
-        Lap number -> :class:`LapTimeline`.
+        Lap number -> :class:`LapTimeline`. [-]
     """
     t = log.time_s
     s = gnss.travelled_m(log)
@@ -173,7 +181,7 @@ def lap_timelines(log, laps) -> dict:
     return out
 
 
-def _timeline_of(driven, lap) -> LapTimeline:
+def _timeline_of(driven: driven_mod.DrivenLap, lap: laps_mod.Lap) -> LapTimeline:
     """The analysed lap's timeline on its rebuilt line (the stations its corners are on)."""
     t = np.asarray(driven.time_s, dtype=np.float64)
     line = driven.line
@@ -191,16 +199,19 @@ def load_session(log_path, *, gate=None, channels=None, track=None):
     Parameters
     ----------
     log_path : path
+        Session log (docs/formats.md, Log files). [-]
     gate : str or laps.Gate, optional
         ``"LAT,LON"`` or a Gate; default from the track file, else the log's ``lap``
-        column, else a gate placed automatically (with a warning).
+        column, else a gate placed automatically (with a warning). [-]
     channels : path, optional
-        Channel-map TOML.
+        Channel-map TOML (docs/formats.md, Channel map). [-]
     track : path or ingest.Track, optional
+        Track file (docs/formats.md, Track file). [-]
 
     Returns
     -------
     (logfile.Log, list of laps.Lap, ingest.Track or None, list of str)
+        The log, its laps, the track and the warnings so far. [-]
     """
     log, trk, warnings = _read_session(log_path, channels, track)
     laps = _split_session(log_path, log, trk, gate, warnings)
@@ -215,7 +226,7 @@ def _read_session(log_path, channels, track, on_channels=None):
     return log, trk, list(log.warnings)
 
 
-def _split_session(log_path, log, trk, gate, warnings):
+def _split_session(log_path, log, trk, gate, warnings) -> list[laps_mod.Lap]:
     """The laps of :func:`load_session` (a warning added when the gate was placed)."""
     if isinstance(gate, str):
         gate = laps_mod.parse_gate(gate)
@@ -231,8 +242,10 @@ def _split_session(log_path, log, trk, gate, warnings):
             else f"x={gate.x_m:.1f} m, y={gate.y_m:.1f} m"
         )
         warnings.append(
-            f"{log_path}: no start/finish gate given and no lap column; gate placed at {where} "
-            "(give --gate LAT,LON for lap times from the real line)"
+            WarningLine(
+                f"{log_path}: no start/finish gate given and no lap column; gate placed at {where}",
+                hint="gate",
+            )
         )
     return laps_mod.split_laps(log, gate)
 
@@ -302,6 +315,10 @@ def _fit(log_path, samples, base, early):
         raise InputError(log_path, f"{err} (give a vehicle file with [grip])") from err
 
 
+#: The steps ``analyse`` reports to its ``progress`` callable.
+_STEPS = 6
+
+
 def analyse(
     log_path,
     *,
@@ -318,145 +335,52 @@ def analyse(
     Parameters
     ----------
     log_path : path
-        Session log (docs/formats.md, Log files).
+        Session log (docs/formats.md, Log files). [-]
     vehicle : path or Vehicle, optional
         Vehicle file; a complete one with ``[grip]`` is used as the envelope, otherwise
         (mass only, or no file) the envelope is fitted to this log's flying laps
-        (complete laps within 107 % of the fastest, :func:`limitlap.laps.flying_laps`).
+        (complete laps within 107 % of the fastest, :func:`limitlap.laps.flying_laps`). [-]
     grip_scale : float
         Grip scale k for the ideal lap (damp or wet running), 0.2-2.0. [-]
     lap : int, optional
-        Lap number to analyse; default the fastest complete lap.
+        Lap number to analyse; default the fastest complete lap. [-]
     gate, channels, track
-        See :func:`load_session`.
+        See :func:`load_session`. [-]
     progress : callable, optional
-        ``progress(done, total, step)``.
+        ``progress(done, total, step)``. [-]
 
     Returns
     -------
     Analysis
+        Everything found, SI. [-]
     """
-    total = 6
     k = check_grip_scale(grip_scale)
-    if isinstance(vehicle, Vehicle):
-        base = vehicle
-    elif vehicle is not None:
-        base = ingest.read_vehicle(vehicle, require_complete=False)
-    else:
-        base = Vehicle("fitted from the log", NOMINAL_MASS_KG)
-    _step(progress, 0, total, "reading the log")
-    with ThreadPoolExecutor(max_workers=1) as pool:
-        # The envelope's sample selection (despike and low-pass every row) needs neither
-        # positions nor laps: it starts in a second thread as soon as the reader has the
-        # channels, and the fit follows it there once the laps are known, while this thread
-        # converts the positions, splits the laps, rebuilds the line, finds the corners and
-        # times the other laps.
-        started = {}
-
-        def select_early(time_s, ch):
-            if base.is_complete or time_s.shape[0] < 2:
-                return
-            if not all(k in ch and np.isfinite(ch[k]).any() for k in ("accel_lon", "accel_lat")):
-                return
-            rate = float(1.0 / np.median(np.diff(time_s)))  # as _sample_rate
-            started["selection"] = pool.submit(
-                select_samples, ch["speed"], ch["accel_lon"], ch["accel_lat"],
-                sample_rate_hz=rate,
-            )
-
-        log, trk, warnings = _read_session(log_path, channels, track, on_channels=select_early)
-        early = started.get("selection")
+    base = _base_vehicle(vehicle)
+    _step(progress, 0, _STEPS, "reading the log")
+    with _EnvelopeBeside(log_path, base) as beside:  # the envelope's work overlaps the line's
+        log, trk, warnings = _read_session(log_path, channels, track, on_channels=beside.select)
         laps = _split_session(log_path, log, trk, gate, warnings)
-        complete = [lp for lp in laps if lp.complete]
-        if not complete:
-            raise InputError(log_path, "no complete lap in the log (a lap needs two gate crossings)")
-        if lap is None:
-            chosen = laps_mod.fastest_lap(laps)
-        else:
-            matches = [lp for lp in laps if lp.number == lap]
-            if not matches:
-                numbers = ", ".join(str(lp.number) for lp in laps)
-                raise InputError(log_path, f"no lap {lap}; the log has laps {numbers}")
-            chosen = matches[0]
-            if not chosen.complete:
-                raise InputError(log_path, f"lap {lap} is not complete ({chosen.reason})")
-
-        samples = fitting = None
+        chosen = _chosen_lap(log_path, laps, lap)
         flying = laps_mod.flying_laps(laps)  # the envelope's laps (out-laps left out)
-        if not base.is_complete:
-            samples = _imu_samples(log, laps, flying)
-            if samples is not None:  # the fit runs beside the line rebuild (it needs no line)
-                fitting = pool.submit(_fit, log_path, samples, base, early)
-
-        _step(progress, 1, total, "rebuilding the driven line")
-        # Only the analysed lap's line is rebuilt (GNSS/inertial fusion); the other laps
-        # give the composite their time against distance straight from the logged speed.
-        the_lap = driven_mod.reconstruct_lap(log, chosen)
-        warnings += [w for w in the_lap.warnings if w not in warnings]
-        names = list(trk.corner_names) if trk is not None and trk.corner_names else None
-        apexes = list(trk.corner_apexes_m) if names is not None else None
-        corners = corners_mod.find_corners(the_lap.line, names, apexes_m=apexes)
-        timelines = lap_timelines(log, [lp for lp in complete if lp is not chosen])
-
-        _step(progress, 2, total, "fitting the grip envelope")
-        fit = None
-        if base.is_complete:
-            car = base
-        else:
-            if fitting is not None:
-                fit = fitting.result()
-            else:  # no IMU: samples from every flying lap's rebuilt line
-                samples = _trace_samples(
-                    [the_lap if lp is chosen else driven_mod.reconstruct_lap(log, lp) for lp in flying]
-                )
-                fit = _fit(log_path, samples, base, None)
-            car = fit.vehicle
-            slow = [lp for lp in complete if lp not in flying]
-            if slow:
-                which = ", ".join(f"{lp.number} ({formatting.lap_time(lp.time_s)})" for lp in slow)
-                warnings.append(
-                    f"{log_path}: lap{'s' if len(slow) > 1 else ''} {which} left out of the "
-                    f"grip envelope: slower than {laps_mod.FLYING_LAP_RATIO * 100:.0f} % of the "
-                    "fastest lap (out-lap, cool-down or traffic), not driven at the limit"
-                )
-            # The fit's own lines do not know the file; say which log they are about.
-            warnings += [f"{log_path}: {w}" for w in fit.warnings if f"{log_path}: {w}" not in warnings]
-            if vehicle is None:
-                warnings.append(
-                    f"no vehicle file: mass taken as {NOMINAL_MASS_KG:.0f} kg; the fitted power "
-                    "and aero areas are per that mass (the ideal lap does not depend on it)"
-                )
-
-    _step(progress, 3, total, "solving the ideal lap")
+        beside.start_fit(log, laps, flying)
+        _step(progress, 1, _STEPS, "rebuilding the driven line")
+        the_lap = _rebuild_line(log, chosen, warnings)
+        corners = _find_corners(the_lap, trk)
+        timelines = lap_timelines(log, [lp for lp in laps if lp.complete and lp is not chosen])
+        _step(progress, 2, _STEPS, "fitting the grip envelope")
+        car, fit = _grip_envelope(
+            log_path, log, laps, chosen, the_lap, flying, beside, vehicle, warnings
+        )
+    _step(progress, 3, _STEPS, "solving the ideal lap")
     ideal = solve.solve_profile(the_lap.line, car, k)
-
-    _step(progress, 4, total, "comparing corner by corner")
-    lap_samples = _imu_samples(log, laps, [chosen], pad_s=2.0)
-    if lap_samples is None:
-        lap_samples = _trace_samples([the_lap])
-    v_l, ax_l, ay_l, mask_l, rate_l, _ = lap_samples
-    grip_est = grip.grip_estimate(v_l, ax_l, ay_l, car, mask=mask_l, sample_rate_hz=rate_l)
-    if grip_est is not None and fit is None and grip_est < 0.9 * k:
-        warnings.append(
-            f"this lap showed about {grip_est:.2f} of the envelope's grip (damp or wet track?), "
-            f"so most of the time left against the ideal at grip scale {k:g} is grip that was "
-            f"not there; analyse with --grip {grip_est:.2f} for the ideal at the grip found"
-        )
-    comparison = compare.compare_lap(the_lap, ideal, car, corners, grip_scale=k, grip_estimate=grip_est)
-
-    _step(progress, 5, total, "best of the session's own laps")
-    timelines[chosen.number] = _timeline_of(the_lap, chosen)
-    complete_laps = [timelines[lp.number] for lp in complete]
-    best = None
-    if len(complete) >= 1:
-        best = best_laps.best_of_laps(
-            complete_laps,
-            corners,
-            reference_length_m=the_lap.line.length_m,
-            lap_numbers=[lp.number for lp in complete],
-            ideal=ideal,
-        )
-    _step(progress, 6, total, "done")
+    _step(progress, 4, _STEPS, "comparing corner by corner")
+    grip_est = _grip_estimate(log, laps, chosen, the_lap, car, k, fit is not None, warnings)
+    comparison = compare.compare_lap(
+        the_lap, ideal, car, corners, grip_scale=k, grip_estimate=grip_est
+    )
+    _step(progress, 5, _STEPS, "best of the session's own laps")
+    complete_laps, best = _best_of_laps(laps, chosen, the_lap, timelines, corners, ideal)
+    _step(progress, 6, _STEPS, "done")
     return Analysis(
         log_path=str(log_path),
         laps=laps,
@@ -473,14 +397,193 @@ def analyse(
         complete_laps=complete_laps,
         fit_laps=[lp.number for lp in flying] if fit is not None else [],
         track_name=trk.name if trk is not None else "",
-        corner_labels={}
-        if trk is None
-        else {n: lb for n, lb in zip(trk.corner_names, trk.corner_labels, strict=True) if lb},
+        corner_labels=_corner_labels(trk),
         warnings=warnings,
         gg_bands=gg.gg_bands(
             the_lap.speed_m_s, the_lap.accel_lon_m_s2, the_lap.accel_lat_m_s2, car, k
         ),
     )
+
+
+def _base_vehicle(vehicle) -> Vehicle:
+    """The vehicle given (a Vehicle or a file's), else a nominal-mass car to fit."""
+    if isinstance(vehicle, Vehicle):
+        return vehicle
+    if vehicle is not None:
+        return ingest.read_vehicle(vehicle, require_complete=False)
+    return Vehicle("fitted from the log", NOMINAL_MASS_KG)
+
+
+class _EnvelopeBeside:
+    """The envelope's sample selection and fit in a second thread, beside the line rebuild.
+
+    Why a thread: it saves wall time on long logs (DEVELOPERS.md, "Speed"). Only the
+    reader and the envelope's sample selection (despike and low-pass every row) grow with
+    the log; the selection needs neither positions nor laps, so :meth:`select` (the
+    reader's ``on_channels`` hook) starts it as soon as the channels are parsed, before
+    the positions are converted. The fit follows it in the same thread once the laps are
+    split (:meth:`start_fit`), while the calling thread rebuilds the analysed lap's line,
+    finds its corners and times the other laps; :meth:`fitted` then waits for it. The
+    benchmark (benchmarks/bench_pipeline.py) counts on this overlap.
+
+    With a complete vehicle nothing is started. Leaving the ``with`` block waits for the
+    thread, also when the analysis stops on an error.
+
+    Parameters
+    ----------
+    log_path : path
+        The log, named by the fit's errors. [-]
+    base : Vehicle
+        The vehicle to fit the envelope to (mass and what it gives). [-]
+    """
+
+    def __init__(self, log_path, base: Vehicle):
+        self._log_path = log_path
+        self.base = base
+        self._pool = ThreadPoolExecutor(max_workers=1)
+        self._selection: Future | None = None
+        self._fitting: Future | None = None
+
+    def __enter__(self) -> _EnvelopeBeside:
+        return self
+
+    def __exit__(self, *exc) -> None:
+        self._pool.shutdown(wait=True)
+
+    def select(self, time_s: np.ndarray, ch: dict) -> None:
+        """The reader's ``on_channels`` hook: start the sample selection of every row
+        when an envelope is to be fitted and the log has both accelerations."""
+        if self.base.is_complete or time_s.shape[0] < 2:
+            return
+        if not all(c in ch and np.isfinite(ch[c]).any() for c in ("accel_lon", "accel_lat")):
+            return
+        rate = float(1.0 / np.median(np.diff(time_s)))  # as _sample_rate
+        self._selection = self._pool.submit(
+            select_samples, ch["speed"], ch["accel_lon"], ch["accel_lat"],
+            sample_rate_hz=rate,
+        )
+
+    def start_fit(self, log, laps, flying) -> None:
+        """Start the fit to the flying laps' IMU samples (it needs no line); a log without
+        IMU channels is fitted on the rebuilt lines instead (:func:`_grip_envelope`)."""
+        if self.base.is_complete:
+            return
+        samples = _imu_samples(log, laps, flying)
+        if samples is not None:
+            self._fitting = self._pool.submit(
+                _fit, self._log_path, samples, self.base, self._selection
+            )
+
+    def fitted(self) -> envelope.EnvelopeFit | None:
+        """The fit :meth:`start_fit` started (waiting for it), None when it started none."""
+        return None if self._fitting is None else self._fitting.result()
+
+
+def _chosen_lap(log_path, laps, lap: int | None) -> laps_mod.Lap:
+    """Lap ``lap``, or the fastest complete lap; it must be complete."""
+    if not any(lp.complete for lp in laps):
+        raise InputError(log_path, "no complete lap in the log (a lap needs two gate crossings)")
+    if lap is None:
+        return laps_mod.fastest_lap(laps)
+    matches = [lp for lp in laps if lp.number == lap]
+    if not matches:
+        numbers = ", ".join(str(lp.number) for lp in laps)
+        raise InputError(log_path, f"no lap {lap}; the log has laps {numbers}")
+    chosen = matches[0]
+    if not chosen.complete:
+        raise InputError(log_path, f"lap {lap} is not complete ({chosen.reason})")
+    return chosen
+
+
+def _rebuild_line(log, chosen, warnings) -> driven_mod.DrivenLap:
+    """The analysed lap's driven line (GNSS/inertial fusion), its warnings added once.
+
+    Only this lap's line is rebuilt; the other laps give the composite their time against
+    distance straight from the logged speed (:func:`lap_timelines`).
+    """
+    the_lap = driven_mod.reconstruct_lap(log, chosen)
+    warnings += [w for w in the_lap.warnings if w not in warnings]
+    return the_lap
+
+
+def _find_corners(the_lap, trk) -> list[corners_mod.Corner]:
+    """The corners of the rebuilt line, named (and placed) as the track file says."""
+    names = list(trk.corner_names) if trk is not None and trk.corner_names else None
+    apexes = list(trk.corner_apexes_m) if names is not None else None
+    return corners_mod.find_corners(the_lap.line, names, apexes_m=apexes)
+
+
+def _grip_envelope(log_path, log, laps, chosen, the_lap, flying, beside, vehicle, warnings):
+    """The envelope: the complete vehicle's, else the fit to the flying laps, with its
+    warnings added. Returns (Vehicle, envelope.EnvelopeFit or None)."""
+    if beside.base.is_complete:
+        return beside.base, None
+    fit = beside.fitted()
+    if fit is None:  # no IMU: samples from every flying lap's rebuilt line
+        samples = _trace_samples(
+            [the_lap if lp is chosen else driven_mod.reconstruct_lap(log, lp) for lp in flying]
+        )
+        fit = _fit(log_path, samples, beside.base, None)
+    slow = [lp for lp in laps if lp.complete and lp not in flying]
+    if slow:
+        which = ", ".join(f"{lp.number} ({formatting.lap_time(lp.time_s)})" for lp in slow)
+        warnings.append(
+            f"{log_path}: lap{'s' if len(slow) > 1 else ''} {which} left out of the "
+            f"grip envelope: slower than {laps_mod.FLYING_LAP_RATIO * 100:.0f} % of the "
+            "fastest lap (out-lap, cool-down or traffic), not driven at the limit"
+        )
+    # The fit's own lines do not know the file; say which log they are about.
+    warnings += [f"{log_path}: {w}" for w in fit.warnings if f"{log_path}: {w}" not in warnings]
+    if vehicle is None:
+        warnings.append(
+            f"no vehicle file: mass taken as {NOMINAL_MASS_KG:.0f} kg; the fitted power "
+            "and aero areas are per that mass (the ideal lap does not depend on it)"
+        )
+    return fit.vehicle, fit
+
+
+def _grip_estimate(log, laps, chosen, the_lap, car, k, fitted, warnings):
+    """Grip scale the analysed lap used, relative to ``car`` (None when its samples do
+    not tell); a warning when a given envelope was far from the grip found. [-]"""
+    lap_samples = _imu_samples(log, laps, [chosen], pad_s=2.0)
+    if lap_samples is None:
+        lap_samples = _trace_samples([the_lap])
+    v_l, ax_l, ay_l, mask_l, rate_l, _ = lap_samples
+    grip_est = grip.grip_estimate(v_l, ax_l, ay_l, car, mask=mask_l, sample_rate_hz=rate_l)
+    if grip_est is not None and not fitted and grip_est < 0.9 * k:
+        warnings.append(
+            WarningLine(
+                f"this lap showed about {grip_est:.2f} of the envelope's grip (damp or wet "
+                f"track?), so most of the time left against the ideal at grip scale {k:g} is "
+                "grip that was not there",
+                hint="grip_scale",
+                value=grip_est,
+            )
+        )
+    return grip_est
+
+
+def _best_of_laps(laps, chosen, the_lap, timelines, corners, ideal):
+    """Every complete lap's timeline (the analysed lap's on its rebuilt line) and the
+    composite of each segment's best: (list of LapTimeline, best_laps.BestOfLaps)."""
+    complete = [lp for lp in laps if lp.complete]
+    timelines = {**timelines, chosen.number: _timeline_of(the_lap, chosen)}
+    complete_laps = [timelines[lp.number] for lp in complete]
+    best = best_laps.best_of_laps(
+        complete_laps,
+        corners,
+        reference_length_m=the_lap.line.length_m,
+        lap_numbers=[lp.number for lp in complete],
+        ideal=ideal,
+    )
+    return complete_laps, best
+
+
+def _corner_labels(trk) -> dict[str, str]:
+    """Corner name -> the track file's label for it, where it gives one."""
+    if trk is None:
+        return {}
+    return {n: lb for n, lb in zip(trk.corner_names, trk.corner_labels, strict=True) if lb}
 
 
 def line_from_source(source, *, lap: int | None = None, gate=None, channels=None, track=None):

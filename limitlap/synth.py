@@ -474,7 +474,8 @@ class Session:
     time_s : numpy.ndarray
         Row times from 0 at the sample rate. [s]
     channels : dict of str to numpy.ndarray
-        docs/formats.md, Log files channel -> SI values per row, NaN in blank cells: ``latitude``,
+        Log channel (docs/formats.md, Log files) -> SI values per row, NaN in blank
+        cells: ``latitude``,
         ``longitude`` [deg], ``altitude`` [m], ``speed`` [m/s], ``accel_lon``,
         ``accel_lat`` [m/s²], ``yaw_rate`` [rad/s], ``throttle`` [0-1], ``brake`` [Pa],
         ``steer`` [rad], ``gear`` [-].
@@ -527,6 +528,302 @@ def default_vehicle() -> Vehicle:
     from limitlap.resources import bundled_path
 
     return read_vehicle(bundled_path("vehicles", "gt_coupe.toml"))
+
+
+@dataclass(frozen=True)
+class _Logger:
+    """The simulated logger's settings (see :func:`generate_session`'s parameters)."""
+
+    sample_rate_hz: float
+    gps_rate_hz: float
+    gps_sigma_m: float
+    gps_tau_s: float
+    gps_white_m: float
+    gps_vertical_factor: float
+    speed_noise_m_s: float
+    accel_noise_g: float
+    accel_bias_g: tuple[float, float]
+    yaw_noise_deg_s: float
+    yaw_bias_deg_s: float
+    gps_dropouts: tuple
+
+
+@dataclass(frozen=True)
+class _LapPlan:
+    """How many flying laps, and which carry the mistakes or are driven at the limit."""
+
+    n_laps: int
+    mistake_laps: tuple[int, ...]
+    limit_laps: tuple[int, ...]
+
+
+@dataclass(frozen=True, eq=False)
+class _Caps:
+    """Speed caps on the closed line's stations (inf where free). [m/s]
+
+    ``planted`` holds, per mistake, (mistake, apex [m], window mask, cap [m/s], ideal
+    minimum speed in the window [m/s]); ``mistake_cap`` all mistakes together;
+    ``lap_caps`` one array per flying lap (mistakes and lap-to-lap variation).
+    """
+
+    planted: list
+    mistake_cap: np.ndarray
+    lap_caps: list
+
+
+@dataclass(frozen=True, eq=False)
+class _Drive:
+    """The whole session solved as one open line (stations of the tiled circuit)."""
+
+    idx: np.ndarray  # circuit station of each session station [-]
+    lap_of: np.ndarray  # lap number of each session station [-]
+    distance_m: np.ndarray  # distance from the pit exit [m]
+    step_m: float  # station spacing [m]
+    profile: Profile
+    time_s: np.ndarray  # log time at each station (after the idle at the pit exit) [s]
+    gate_times_s: np.ndarray  # log time of each gate crossing [s]
+
+
+@dataclass(frozen=True, eq=False)
+class _Rows:
+    """The true motion on the log's rows (see :class:`SessionTruth` for the per-row truth)."""
+
+    time_s: np.ndarray  # [s]
+    distance_m: np.ndarray  # since the pit exit [m]
+    speed_m_s: np.ndarray  # [m/s]
+    accel_lon_m_s2: np.ndarray  # dv/dt, zero while standing [m/s²]
+    lap_distance_m: np.ndarray  # from the gate [m]
+    lap_number: np.ndarray  # [-]
+    x_m: np.ndarray  # true ENU position [m]
+    y_m: np.ndarray
+    z_m: np.ndarray
+    curvature_1_m: np.ndarray  # [1/m]
+    sin_grade: np.ndarray  # sine of the road's grade [-]
+
+
+def _rows_per_fix(logger: _Logger) -> int:
+    """Log rows per GNSS fix; the rates must be positive and the fix rate divide the row rate."""
+    if logger.sample_rate_hz <= 0 or logger.gps_rate_hz <= 0:
+        raise LimitlapError("sample and GPS rates must be positive")
+    step = logger.sample_rate_hz / logger.gps_rate_hz
+    if abs(step - round(step)) > 1e-9:
+        raise LimitlapError("gps_rate_hz must divide sample_rate_hz")
+    return round(step)
+
+
+def _lap_plan(
+    n_laps, duration_s, ideal, idle_s, out_lap_pace, in_lap_pace, mistake_laps, limit_laps
+):
+    """The flying laps (from ``duration_s`` when given) and their roles."""
+    if duration_s is not None:  # out-lap and in-lap take about a lap each at their pace
+        overhead_s = 2 * idle_s + ideal.lap_time_s * (1 / out_lap_pace + 1 / in_lap_pace)
+        n_laps = max(1, int((duration_s - overhead_s) / (1.02 * ideal.lap_time_s)))
+    if n_laps < 1:
+        raise LimitlapError("a session needs at least one complete lap")
+    limit_laps = tuple(int(k) for k in limit_laps)
+    if mistake_laps is None:
+        mistake_laps = tuple(k for k in range(1, n_laps + 1) if k not in limit_laps)
+    return _LapPlan(n_laps, tuple(int(k) for k in mistake_laps), limit_laps)
+
+
+def _speed_caps(
+    rng, circuit: Circuit, ideal: Profile, mistakes, plan: _LapPlan, lap_variation
+) -> _Caps:
+    """Per-lap speed caps on the closed line: the planted mistakes and the lap-to-lap
+    variation (a random lift at every corner but the last and the flat-out kinks)."""
+    line = circuit.line
+    inf = np.full(line.n, np.inf)
+    planted_masks = []
+    mistake_cap = inf.copy()
+    for m in mistakes:
+        apex = circuit.corner(m.corner).apex_m if m.apex_m is None else m.apex_m
+        mask, cap, v_min = _window_cap(
+            line, ideal.speed_m_s, apex, m.before_m, m.after_m, m.speed_drop
+        )
+        planted_masks.append((m, apex, mask, cap, v_min))
+        mistake_cap[mask] = np.minimum(mistake_cap[mask], cap)
+    varied = [c for c in circuit.corners if c.apex_m < line.length_m - 1.0][:-1]  # not the last
+    varied = [c for c in varied if abs(c.radius_m) < 400.0]  # flat-out kinks need no lift
+    lap_caps = []
+    for k in range(1, plan.n_laps + 1):
+        cap = mistake_cap.copy() if k in plan.mistake_laps else inf.copy()
+        if k not in plan.limit_laps and lap_variation > 0:
+            for c in varied:
+                mask, vcap, _ = _window_cap(
+                    line,
+                    ideal.speed_m_s,
+                    c.apex_m,
+                    10.0,
+                    10.0,
+                    abs(rng.normal(0.0, lap_variation)),
+                )
+                cap[mask] = np.minimum(cap[mask], vcap)
+        lap_caps.append(cap)
+    return _Caps(planted_masks, mistake_cap, lap_caps)
+
+
+def _drive_session(
+    circuit: Circuit, car, ideal, caps: _Caps, plan: _LapPlan, out_lap_pace, in_lap_pace, idle_s
+) -> _Drive:
+    """Out-lap, flying laps and in-lap as one open line from the pit exit to the pit entry,
+    solved from and to standstill under each lap's caps (and the slow out- and in-lap)."""
+    line, n_laps = circuit.line, plan.n_laps
+    idx, lap_of, dist, ds, _i0 = _tile(line, circuit.pit_exit_m, n_laps, circuit.pit_entry_m)
+    last_apex = circuit.corners[-1].apex_m
+    first_apex = circuit.corners[0].apex_m
+    s_lap = line.distance_m[idx]
+    cap = np.full(idx.shape[0], np.inf)
+    out = lap_of == 0
+    slow_out = out & (s_lap < last_apex - 100.0)
+    cap[slow_out] = out_lap_pace * ideal.speed_m_s[idx[slow_out]]
+    for k in range(1, n_laps + 1):
+        sel = lap_of == k
+        cap[sel] = caps.lap_caps[k - 1][idx[sel]]
+    inl = lap_of == n_laps + 1
+    slow_in = inl & (s_lap > first_apex - 60.0)
+    cap[inl] = caps.lap_caps[-1][idx[inl]]
+    cap[slow_in] = np.minimum(cap[slow_in], in_lap_pace * ideal.speed_m_s[idx[slow_in]])
+    cap = np.where(np.isfinite(cap), cap, 1e9)
+    session_line = Line(dist, line.curvature_1_m[idx], line.gradient[idx], float(dist[-1]), False)
+    prof = solve_profile(
+        session_line, car, entry_speed_m_s=0.0, exit_speed_m_s=0.0, speed_cap_m_s=cap
+    )
+    t_st = prof.time_s + idle_s
+    gate_rows = np.flatnonzero(idx == 0)
+    return _Drive(idx, lap_of, dist, ds, prof, t_st, t_st[gate_rows])
+
+
+def _planted_mistakes(line: Line, car, ideal: Profile, caps: _Caps):
+    """Each planted mistake with its cost on its own (solver), and a flying lap with all
+    of them: (tuple of PlantedMistake, Profile)."""
+    inf = np.full(line.n, np.inf)
+    planted = []
+    for m, apex, mask, vcap, v_min in caps.planted:
+        one = inf.copy()
+        one[mask] = vcap
+        cost = solve_profile(line, car, speed_cap_m_s=one).lap_time_s - ideal.lap_time_s
+        window = ((apex - m.before_m) % line.length_m, (apex + m.after_m) % line.length_m)
+        planted.append(
+            PlantedMistake(m.corner, float(apex), window, float(vcap), v_min, float(cost))
+        )
+    mistake_profile = solve_profile(
+        line, car, speed_cap_m_s=np.where(np.isfinite(caps.mistake_cap), caps.mistake_cap, 1e9)
+    )
+    return tuple(planted), mistake_profile
+
+
+def _sample_rows(line: Line, drive: _Drive, n_laps: int, idle_s, sample_rate_hz) -> _Rows:
+    """The solved drive sampled on the log's rows, standing still ``idle_s`` either side."""
+    t_st, dist, ds, idx, prof = (
+        drive.time_s,
+        drive.distance_m,
+        drive.step_m,
+        drive.idx,
+        drive.profile,
+    )
+    t_end = t_st[-1] + idle_s
+    n_rows = math.floor(t_end * sample_rate_hz) + 1
+    t = np.arange(n_rows) / sample_rate_hz
+    d = np.interp(t, t_st, dist)  # standing still before and after: clamped
+    v = np.interp(t, t_st, prof.speed_m_s)
+    # a_x of the profile belongs to the step leaving each station: place it at the
+    # step's middle in time, not at its start (half a station early otherwise).
+    ax = np.interp(t, 0.5 * (t_st[:-1] + t_st[1:]), prof.accel_lon_m_s2[:-1])
+    moving = (t > t_st[0]) & (t < t_st[-1])
+    ax = np.where(moving, ax, 0.0)
+    j = np.clip(np.searchsorted(dist, d, side="right") - 1, 0, dist.shape[0] - 2)
+    frac = (d - dist[j]) / ds
+    s_of_row = (line.distance_m[idx[j]] + frac * ds) % line.length_m
+    # true position: interpolate on the closed line by distance (periodic)
+    s_ring = np.append(line.distance_m, line.length_m)
+
+    def ring(a):
+        return np.interp(s_of_row, s_ring, np.append(a, a[0]))
+
+    x, y, z = ring(line.x_m), ring(line.y_m), ring(line.z_m)
+    kappa, grad = ring(line.curvature_1_m), ring(line.gradient)
+    sin_th = grad / np.sqrt(1 + grad * grad)
+    lap_row = drive.lap_of[j]
+    lap_row = np.where(d >= dist[-1] - 1e-9, n_laps + 1, lap_row)
+    return _Rows(
+        time_s=t,
+        distance_m=d,
+        speed_m_s=v,
+        accel_lon_m_s2=ax,
+        lap_distance_m=s_of_row,
+        lap_number=lap_row,
+        x_m=x,
+        y_m=y,
+        z_m=z,
+        curvature_1_m=kappa,
+        sin_grade=sin_th,
+    )
+
+
+def _motion_channels(rng, car, vehicle, rows: _Rows, logger: _Logger) -> dict:
+    """Speed, IMU, yaw rate (with their noise and bias), pedals, gear and steering, SI."""
+    n_rows = rows.time_s.shape[0]
+    v, ax, kappa, sin_th = rows.speed_m_s, rows.accel_lon_m_s2, rows.curvature_1_m, rows.sin_grade
+    bias, noise = logger.accel_bias_g, logger.accel_noise_g
+    g = G0_M_S2
+    speed = v + logger.speed_noise_m_s * rng.standard_normal(n_rows)
+    speed = np.where(v > 0, np.abs(speed), 0.0)  # a stationary car reads zero
+    a_lon = ax + g * sin_th + bias[0] * g + noise * g * rng.standard_normal(n_rows)
+    a_lat = kappa * v * v + bias[1] * g + noise * g * rng.standard_normal(n_rows)
+    yaw = (
+        kappa * v
+        + (logger.yaw_bias_deg_s + logger.yaw_noise_deg_s * rng.standard_normal(n_rows))
+        * DEG_TO_RAD
+    )
+    f_x = car.mass_kg * (ax + g * sin_th) + np.where(v > 0, limits.resistance_n(v, car), 0.0)
+    f_drive = limits.drive_force_max_n(np.maximum(v, 0.1), car)
+    throttle = np.clip(np.where(f_x > 0, f_x / f_drive, 0.0), 0.0, 1.0)
+    brake_gain = 120.0 * BAR_TO_PA / (vehicle.mu_brk * vehicle.mass_kg * g)  # [Pa/N], invented
+    brake = np.where(f_x < 0, -f_x * brake_gain, 0.0)
+    shifts = np.array([72.0, 108.0, 145.0, 182.0, 220.0]) * KMH_TO_M_S  # invented gearbox
+    gear = 1.0 + np.searchsorted(shifts, v).astype(np.float64)
+    steer = 14.0 * 2.6 * kappa * (v > 0)
+    return {
+        "speed": speed,
+        "accel_lon": a_lon,
+        "accel_lat": a_lat,
+        "yaw_rate": yaw,
+        "throttle": throttle,
+        "brake": brake,
+        "steer": steer,
+        "gear": gear,
+    }
+
+
+def _gnss_channels(rng, origin, rows: _Rows, logger: _Logger, fix_step: int):
+    """GNSS fixes every ``fix_step`` rows with a correlated plus white error, blanks
+    between and in the dropouts: (latitude/longitude/altitude channels, error per row
+    east/north/up [m], NaN between fixes)."""
+    t = rows.time_s
+    n_rows = t.shape[0]
+    fix = np.arange(0, n_rows, fix_step)
+    keep = np.ones(fix.shape[0], bool)
+    for start, length in logger.gps_dropouts:
+        keep &= ~((t[fix] >= start) & (t[fix] < start + length))
+    fix = fix[keep]
+    tau = logger.gps_tau_s * logger.gps_rate_hz
+    n_fix = fix.shape[0]
+    err = np.empty((n_fix, 3))
+    for axis, f in enumerate((1.0, 1.0, logger.gps_vertical_factor)):
+        err[:, axis] = f * (
+            _gauss_markov(rng, n_fix, logger.gps_sigma_m, tau)
+            + logger.gps_white_m * rng.standard_normal(n_fix)
+        )
+    lat = np.full(n_rows, np.nan)
+    lon = np.full(n_rows, np.nan)
+    alt = np.full(n_rows, np.nan)
+    la, lo, al = pymap3d.enu2geodetic(
+        rows.x_m[fix] + err[:, 0], rows.y_m[fix] + err[:, 1], rows.z_m[fix] + err[:, 2], *origin
+    )
+    lat[fix], lon[fix], alt[fix] = la, lo, al
+    gps_err = np.full((n_rows, 3), np.nan)
+    gps_err[fix] = err
+    return {"latitude": lat, "longitude": lon, "altitude": alt}, gps_err
 
 
 def generate_session(
@@ -624,205 +921,66 @@ def generate_session(
     """
     circuit = demo_circuit() if circuit is None else circuit
     vehicle = (default_vehicle() if vehicle is None else vehicle).require_complete()
-    if sample_rate_hz <= 0 or gps_rate_hz <= 0:
-        raise LimitlapError("sample and GPS rates must be positive")
-    step = sample_rate_hz / gps_rate_hz
-    if abs(step - round(step)) > 1e-9:
-        raise LimitlapError("gps_rate_hz must divide sample_rate_hz")
-    step = round(step)
+    logger = _Logger(
+        sample_rate_hz=sample_rate_hz,
+        gps_rate_hz=gps_rate_hz,
+        gps_sigma_m=gps_sigma_m,
+        gps_tau_s=gps_tau_s,
+        gps_white_m=gps_white_m,
+        gps_vertical_factor=gps_vertical_factor,
+        speed_noise_m_s=speed_noise_m_s,
+        accel_noise_g=accel_noise_g,
+        accel_bias_g=accel_bias_g,
+        yaw_noise_deg_s=yaw_noise_deg_s,
+        yaw_bias_deg_s=yaw_bias_deg_s,
+        gps_dropouts=tuple(gps_dropouts),
+    )
+    fix_step = _rows_per_fix(logger)
     rng = np.random.default_rng(seed)
-    line = circuit.line
     car = vehicle.scaled(grip_scale) if grip_scale != 1.0 else vehicle
-    ideal = solve_profile(line, car)
-    if duration_s is not None:  # out-lap and in-lap take about a lap each at their pace
-        overhead_s = 2 * idle_s + ideal.lap_time_s * (1 / out_lap_pace + 1 / in_lap_pace)
-        n_laps = max(1, int((duration_s - overhead_s) / (1.02 * ideal.lap_time_s)))
-    if n_laps < 1:
-        raise LimitlapError("a session needs at least one complete lap")
-    limit_laps = tuple(int(k) for k in limit_laps)
-    if mistake_laps is None:
-        mistake_laps = tuple(k for k in range(1, n_laps + 1) if k not in limit_laps)
-    mistake_laps = tuple(int(k) for k in mistake_laps)
-
-    # --- per-lap speed caps on the closed line -----------------------------------
-    inf = np.full(line.n, np.inf)
-    planted_masks = []
-    mistake_cap = inf.copy()
-    for m in mistakes:
-        apex = circuit.corner(m.corner).apex_m if m.apex_m is None else m.apex_m
-        mask, cap, v_min = _window_cap(
-            line, ideal.speed_m_s, apex, m.before_m, m.after_m, m.speed_drop
-        )
-        planted_masks.append((m, apex, mask, cap, v_min))
-        mistake_cap[mask] = np.minimum(mistake_cap[mask], cap)
-    varied = [c for c in circuit.corners if c.apex_m < line.length_m - 1.0][:-1]  # not the last
-    varied = [c for c in varied if abs(c.radius_m) < 400.0]  # flat-out kinks need no lift
-    lap_caps = []
-    for k in range(1, n_laps + 1):
-        cap = mistake_cap.copy() if k in mistake_laps else inf.copy()
-        if k not in limit_laps and lap_variation > 0:
-            for c in varied:
-                mask, vcap, _ = _window_cap(
-                    line,
-                    ideal.speed_m_s,
-                    c.apex_m,
-                    10.0,
-                    10.0,
-                    abs(rng.normal(0.0, lap_variation)),
-                )
-                cap[mask] = np.minimum(cap[mask], vcap)
-        lap_caps.append(cap)
-
-    # --- the whole session as one open line ---------------------------------------
-    idx, lap_of, dist, ds, _i0 = _tile(line, circuit.pit_exit_m, n_laps, circuit.pit_entry_m)
-    last_apex = circuit.corners[-1].apex_m
-    first_apex = circuit.corners[0].apex_m
-    s_lap = line.distance_m[idx]
-    cap = np.full(idx.shape[0], np.inf)
-    out = lap_of == 0
-    slow_out = out & (s_lap < last_apex - 100.0)
-    cap[slow_out] = out_lap_pace * ideal.speed_m_s[idx[slow_out]]
-    for k in range(1, n_laps + 1):
-        sel = lap_of == k
-        cap[sel] = lap_caps[k - 1][idx[sel]]
-    inl = lap_of == n_laps + 1
-    slow_in = inl & (s_lap > first_apex - 60.0)
-    cap[inl] = lap_caps[-1][idx[inl]]
-    cap[slow_in] = np.minimum(cap[slow_in], in_lap_pace * ideal.speed_m_s[idx[slow_in]])
-    cap = np.where(np.isfinite(cap), cap, 1e9)
-    session_line = Line(dist, line.curvature_1_m[idx], line.gradient[idx], float(dist[-1]), False)
-    prof = solve_profile(
-        session_line, car, entry_speed_m_s=0.0, exit_speed_m_s=0.0, speed_cap_m_s=cap
+    ideal = solve_profile(circuit.line, car)
+    plan = _lap_plan(
+        n_laps, duration_s, ideal, idle_s, out_lap_pace, in_lap_pace, mistake_laps, limit_laps
     )
-    t_st = prof.time_s + idle_s
-    gate_rows = np.flatnonzero(idx == 0)
-    gate_times = t_st[gate_rows]
-    lap_times = np.diff(gate_times)
-    solver_times = np.array(
-        [solve_profile(line, car, speed_cap_m_s=c).lap_time_s for c in lap_caps]
-    )
-
-    # --- mistakes: cost of each on its own ------------------------------------------
-    planted = []
-    for m, apex, mask, vcap, v_min in planted_masks:
-        one = inf.copy()
-        one[mask] = vcap
-        cost = solve_profile(line, car, speed_cap_m_s=one).lap_time_s - ideal.lap_time_s
-        window = ((apex - m.before_m) % line.length_m, (apex + m.after_m) % line.length_m)
-        planted.append(
-            PlantedMistake(m.corner, float(apex), window, float(vcap), v_min, float(cost))
-        )
-    mistake_profile = solve_profile(
-        line, car, speed_cap_m_s=np.where(np.isfinite(mistake_cap), mistake_cap, 1e9)
-    )
-
-    # --- sample in time --------------------------------------------------------------
-    t_end = t_st[-1] + idle_s
-    n_rows = math.floor(t_end * sample_rate_hz) + 1
-    t = np.arange(n_rows) / sample_rate_hz
-    d = np.interp(t, t_st, dist)  # standing still before and after: clamped
-    v = np.interp(t, t_st, prof.speed_m_s)
-    # a_x of the profile belongs to the step leaving each station: place it at the
-    # step's middle in time, not at its start (half a station early otherwise).
-    ax = np.interp(t, 0.5 * (t_st[:-1] + t_st[1:]), prof.accel_lon_m_s2[:-1])
-    moving = (t > t_st[0]) & (t < t_st[-1])
-    ax = np.where(moving, ax, 0.0)
-    j = np.clip(np.searchsorted(dist, d, side="right") - 1, 0, dist.shape[0] - 2)
-    frac = (d - dist[j]) / ds
-    s_of_row = (line.distance_m[idx[j]] + frac * ds) % line.length_m
-    # true position: interpolate on the closed line by distance (periodic)
-    s_ring = np.append(line.distance_m, line.length_m)
-
-    def ring(a):
-        return np.interp(s_of_row, s_ring, np.append(a, a[0]))
-
-    x, y, z = ring(line.x_m), ring(line.y_m), ring(line.z_m)
-    kappa, grad = ring(line.curvature_1_m), ring(line.gradient)
-    sin_th = grad / np.sqrt(1 + grad * grad)
-    lap_row = lap_of[j]
-    lap_row = np.where(d >= dist[-1] - 1e-9, n_laps + 1, lap_row)
-
-    g = G0_M_S2
-    speed = v + speed_noise_m_s * rng.standard_normal(n_rows)
-    speed = np.where(v > 0, np.abs(speed), 0.0)  # a stationary car reads zero
-    a_lon = ax + g * sin_th + accel_bias_g[0] * g + accel_noise_g * g * rng.standard_normal(n_rows)
-    a_lat = kappa * v * v + accel_bias_g[1] * g + accel_noise_g * g * rng.standard_normal(n_rows)
-    yaw = kappa * v + (yaw_bias_deg_s + yaw_noise_deg_s * rng.standard_normal(n_rows)) * DEG_TO_RAD
-    f_x = car.mass_kg * (ax + g * sin_th) + np.where(v > 0, limits.resistance_n(v, car), 0.0)
-    f_drive = limits.drive_force_max_n(np.maximum(v, 0.1), car)
-    throttle = np.clip(np.where(f_x > 0, f_x / f_drive, 0.0), 0.0, 1.0)
-    brake_gain = 120.0 * BAR_TO_PA / (vehicle.mu_brk * vehicle.mass_kg * g)  # [Pa/N], invented
-    brake = np.where(f_x < 0, -f_x * brake_gain, 0.0)
-    shifts = np.array([72.0, 108.0, 145.0, 182.0, 220.0]) * KMH_TO_M_S  # invented gearbox
-    gear = 1.0 + np.searchsorted(shifts, v).astype(np.float64)
-    steer = 14.0 * 2.6 * kappa * (v > 0)
-
-    # GNSS: fixes every `step` rows, correlated + white error, blanks between.
-    fix = np.arange(0, n_rows, step)
-    keep = np.ones(fix.shape[0], bool)
-    for start, length in gps_dropouts:
-        keep &= ~((t[fix] >= start) & (t[fix] < start + length))
-    fix = fix[keep]
-    tau = gps_tau_s * gps_rate_hz
-    n_fix = fix.shape[0]
-    err = np.empty((n_fix, 3))
-    for axis, f in enumerate((1.0, 1.0, gps_vertical_factor)):
-        err[:, axis] = f * (
-            _gauss_markov(rng, n_fix, gps_sigma_m, tau) + gps_white_m * rng.standard_normal(n_fix)
-        )
-    lat = np.full(n_rows, np.nan)
-    lon = np.full(n_rows, np.nan)
-    alt = np.full(n_rows, np.nan)
-    la, lo, al = pymap3d.enu2geodetic(
-        x[fix] + err[:, 0], y[fix] + err[:, 1], z[fix] + err[:, 2], *circuit.origin
-    )
-    lat[fix], lon[fix], alt[fix] = la, lo, al
-    gps_err = np.full((n_rows, 3), np.nan)
-    gps_err[fix] = err
-
-    channels = {
-        "latitude": lat,
-        "longitude": lon,
-        "altitude": alt,
-        "speed": speed,
-        "accel_lon": a_lon,
-        "accel_lat": a_lat,
-        "yaw_rate": yaw,
-        "throttle": throttle,
-        "brake": brake,
-        "steer": steer,
-        "gear": gear,
-    }
+    caps = _speed_caps(rng, circuit, ideal, mistakes, plan, lap_variation)
+    drive = _drive_session(circuit, car, ideal, caps, plan, out_lap_pace, in_lap_pace, idle_s)
+    planted, mistake_profile = _planted_mistakes(circuit.line, car, ideal, caps)
+    rows = _sample_rows(circuit.line, drive, plan.n_laps, idle_s, sample_rate_hz)
+    motion = _motion_channels(rng, car, vehicle, rows, logger)  # the noise draws in this order
+    gnss, gps_err = _gnss_channels(rng, circuit.origin, rows, logger, fix_step)
     truth = SessionTruth(
         circuit=circuit,
-        line=line,
+        line=circuit.line,
         vehicle=vehicle,
         grip_scale=float(grip_scale),
         gate_latlon=circuit.gate_latlon,
-        gate_times_s=gate_times,
-        lap_times_s=lap_times,
-        solver_lap_times_s=solver_times,
+        gate_times_s=drive.gate_times_s,
+        lap_times_s=np.diff(drive.gate_times_s),
+        solver_lap_times_s=np.array(
+            [solve_profile(circuit.line, car, speed_cap_m_s=c).lap_time_s for c in caps.lap_caps]
+        ),
         ideal_lap_time_s=ideal.lap_time_s,
         ideal_profile=ideal,
         mistake_profile=mistake_profile,
-        mistakes=tuple(planted),
-        mistake_laps=mistake_laps,
-        limit_laps=limit_laps,
-        distance_m=d,
-        lap_distance_m=s_of_row,
-        lap_number=lap_row,
-        x_m=x,
-        y_m=y,
-        z_m=z,
+        mistakes=planted,
+        mistake_laps=plan.mistake_laps,
+        limit_laps=plan.limit_laps,
+        distance_m=rows.distance_m,
+        lap_distance_m=rows.lap_distance_m,
+        lap_number=rows.lap_number,
+        x_m=rows.x_m,
+        y_m=rows.y_m,
+        z_m=rows.z_m,
         gps_error_m=gps_err,
     )
-    return Session(t, channels, truth)
+    return Session(rows.time_s, {**gnss, **motion}, truth)
 
 
 # --------------------------------------------------------------------------- CSV text
 
 #: Columns of :func:`session_csv_text`: channel, header unit, factor SI -> that unit,
-#: decimals. Units are docs/formats.md, Log files spellings; factors come from :mod:`limitlap.units`.
+#: decimals. Units are spelled as docs/formats.md (Log files) gives them; factors come from
+#: :mod:`limitlap.units`.
 _CSV_COLUMNS = (
     ("latitude", "deg", 1.0, 8),
     ("longitude", "deg", 1.0, 8),
@@ -839,9 +997,10 @@ _CSV_COLUMNS = (
 
 
 def session_csv_text(session: Session, *, lap_column: bool = False, columns=None) -> str:
-    """The session as docs/formats.md, Log files CSV text, e.g. ``time [s],latitude [deg],...``.
+    """The session as log CSV text, e.g. ``time [s],latitude [deg],...``.
 
-    Blank cells where a channel has no sample (GNSS between fixes).
+    Columns and units as docs/formats.md gives them (Log files); blank cells where a
+    channel has no sample (GNSS between fixes).
 
     Parameters
     ----------

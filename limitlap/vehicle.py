@@ -15,7 +15,7 @@ GRIP_SCALE_MAX = 2.0
 
 @dataclass(frozen=True)
 class Vehicle:
-    """Point-mass vehicle of docs/formats.md, Vehicle files, all SI.
+    """Point-mass vehicle of docs/formats.md (Vehicle files), all SI.
 
     Attributes
     ----------
@@ -112,7 +112,10 @@ class Vehicle:
 
 
 def check_grip_scale(grip_scale: float) -> float:
-    """Return ``grip_scale`` as a float, or raise when it is outside 0.2-2.0 (docs/formats.md, Vehicle files)."""
+    """Return ``grip_scale`` as a float, or raise when it is outside 0.2-2.0.
+
+    The range is docs/formats.md's (Vehicle files).
+    """
     try:
         k = float(grip_scale)
     except (TypeError, ValueError):

@@ -1,5 +1,6 @@
 """Plain-Python twin of the QSS kernels, written independently of ``_kernels`` from the
-docs/formats.md, Vehicle files formulas, used to check the numba kernels and as the benchmark yardstick."""
+vehicle model's formulas (docs/formats.md, Vehicle files), used to check the numba
+kernels and as the benchmark yardstick."""
 
 from __future__ import annotations
 

@@ -10,7 +10,7 @@ from pathlib import Path
 
 from limitlap import synth
 
-#: The valid vehicle of docs/formats.md, Vehicle files (the example car), as a vehicle file.
+#: The example car of docs/formats.md (Vehicle files), as a vehicle file.
 VEHICLE_TOML = """\
 name = "example"
 mass_kg = 1300.0

@@ -91,8 +91,9 @@ def test_planted_time_left_within_25_percent_of_the_truth(dry, dry_analyses, whi
     # Tolerance 25 %: issue 4's acceptance figure (a project requirement, no published
     # source). The truth of a corner is the generator's cost of the planted mistakes in
     # that corner's segment. A late throttle (T9) is partly paid on the following
-    # straight, after the boundary in the middle of the straight that the summary.json format's
-    # tiling puts there: that part belongs to the next segment on both sides.
+    # straight, after the boundary in the middle of the straight that summary.json's
+    # tiling (docs/outputs.md, summary.json) puts there: that part belongs to the next
+    # segment on both sides.
     # PlantedMistake.time_cost_s (the mistake's whole-lap cost) is checked against the
     # segment truth so the two stay tied.
     session, _ = dry
@@ -134,9 +135,9 @@ def test_ideal_lap_within_1_percent_of_the_solver_on_the_true_line(dry, dry_anal
 
 @pytest.mark.parametrize("which", ENVELOPES)
 def test_corner_time_left_adds_up_to_the_lap(dry_analyses, which):
-    # docs/outputs.md, summary.json: the segments tile the lap. Segment times are differences of one
-    # interpolated elapsed-time curve, so they telescope: 1e-9 s is float rounding of a
-    # sum of a dozen numbers of about 10 s (issue 4 asks for 1 ms).
+    # docs/outputs.md (summary.json): the segments tile the lap. Segment times are
+    # differences of one interpolated elapsed-time curve, so they telescope: 1e-9 s is
+    # float rounding of a sum of a dozen numbers of about 10 s (issue 4 asks for 1 ms).
     cmp_ = dry_analyses[which].comparison
     assert sum(c.time_left_s for c in cmp_.corners) == pytest.approx(cmp_.time_left_s, abs=1e-9)
     assert sum(c.actual_s for c in cmp_.corners) == pytest.approx(cmp_.lap_time_s, abs=1e-9)

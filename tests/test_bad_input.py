@@ -381,7 +381,7 @@ def test_valid_line_solves(cli, line_file, vehicle_file):
 
 def test_repeated_points_are_not_a_self_crossing(tmp_path, cli, vehicle_file):
     # A point listed twice in a row, and a last point repeating the first (against
-    # docs/formats.md, Line files but common), touch nothing: the line still solves.
+    # docs/formats.md, Line files, but common), touch nothing: the line still solves.
     lines = square_line_csv().splitlines(keepends=True)
     text = "".join([*lines[:10], lines[9], *lines[10:], lines[1]])
     path = write(tmp_path, "line.csv", text)
@@ -463,3 +463,59 @@ def test_subprocess_bom_crlf_log_analyses(tmp_path):
     summary = json.loads((tmp_path / "out" / "summary.json").read_text())
     assert summary["lap"]["number"] in (1, 2)
     assert Path(tmp_path / "out" / "report.html").stat().st_size > 0
+
+
+# ----------------------------------------------------------------------------- advice wording
+
+
+def test_advice_names_the_option_only_on_the_command_line(tmp_path, cli):
+    # The library states facts with the parameter names of the Python call; the command
+    # line words the same facts with its options. No gate and no lap column: the gate is
+    # placed automatically and the advice is to give one. A bad gate names the parameter.
+    from limitlap import pipeline
+    from limitlap.errors import ArgumentError
+
+    log = write(tmp_path, "s.csv", circle_csv(2))
+    code, _, err = cli("laps", log)
+    assert code == 0, err
+    (said,) = [ln for ln in err.splitlines() if "gate placed at" in ln]
+    cli_advice = " (give --gate LAT,LON for lap times from the real line)"
+    assert said.endswith(cli_advice)
+    _, _, _, warnings = pipeline.load_session(log)
+    (fact,) = [w for w in warnings if "gate placed at" in w]
+    assert said == f"limitlap: warning: {fact.fact}{cli_advice}"
+    api_advice = " (give the start/finish gate as LAT,LON for lap times from the real line)"
+    assert str(fact) == f"{fact.fact}{api_advice}"
+    assert "--" not in "".join(warnings)
+
+    problem = "'1;2' is not LAT,LON (two numbers separated by a comma)"
+    code, _, err = cli("laps", log, "--gate", "1;2")
+    assert one_error_line(code, err) == f"--gate: {problem}"
+    with pytest.raises(ArgumentError) as raised:
+        pipeline.load_session(log, gate="1;2")
+    assert str(raised.value) == f"gate: {problem}"
+
+
+def test_grip_and_extra_advice_wording():
+    # The two other facts with advice: the grip a lap showed (a suggested grip scale,
+    # rounded to the hundredth as the corner table shows grip) and a missing optional part.
+    import pickle
+
+    from limitlap.cli import worded
+    from limitlap.errors import ExtraNeeded, WarningLine
+
+    line = WarningLine("log.csv: this lap showed about 0.76 of the grip", "grip_scale", 0.756)
+    assert str(line) == (
+        "log.csv: this lap showed about 0.76 of the grip; analyse at grip scale 0.76 for the "
+        "ideal at the grip found"
+    )
+    assert worded(line) == (
+        "log.csv: this lap showed about 0.76 of the grip; analyse with --grip 0.76 for the "
+        "ideal at the grip found"
+    )
+    # A warning pickled to another process (a batch worker's) keeps its hint.
+    assert worded(pickle.loads(pickle.dumps(line))) == worded(line)
+    assert worded("a plain line") == "a plain line"
+    extra = ExtraNeeded("scheduler", "Dask", "dask")
+    assert str(extra) == "scheduler needs Dask: pip install 'limitlap[dask]'"
+    assert worded(extra) == "a --scheduler needs Dask: pip install 'limitlap[dask]'"

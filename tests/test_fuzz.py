@@ -217,7 +217,7 @@ def test_vehicle_reader_only_raises_input_errors(tmp_path, text, require_complet
 
 # ----------------------------------------------------------------------------- solver
 
-#: The example car of docs/formats.md, Vehicle files.
+#: The example car of docs/formats.md (Vehicle files).
 EXAMPLE = Vehicle(
     "example",
     1300.0,

@@ -132,7 +132,8 @@ def test_enu_geodetic_round_trip():
         s.channels["altitude"][f],
         *c.origin,
     )
-    # pymap3d round trip is exact to < 1e-8 m (docs/checks.md, Reference libraries); 1e-6 m allows for the
+    # pymap3d round trip is exact to < 1e-8 m (M. Hirsch, PyMap3D, Journal of Open Source
+    # Software 3(23), 580, 2018); 1e-6 m allows for the
     # iterative geodetic inversion.
     assert e == pytest.approx(tr.x_m[f] + tr.gps_error_m[f, 0], abs=1e-6)
     assert n == pytest.approx(tr.y_m[f] + tr.gps_error_m[f, 1], abs=1e-6)
@@ -154,7 +155,7 @@ def test_gps_error_is_metre_level_and_correlated():
 
 
 def test_signs_on_a_counter_clockwise_circle():
-    # ISO 8855 / docs/checks.md, C3.5: a left-hand (CCW) circle gives κ > 0, r > 0, a_y > 0.
+    # ISO 8855:2011 axes (y left, z up): a left-hand (CCW) circle gives κ > 0, r > 0, a_y > 0.
     c = synth.circle_circuit(100.0)
     s = synth.generate_session(c, n_laps=1, mistakes=(), seed=1)
     assert (c.line.curvature_1_m > 0).all()
