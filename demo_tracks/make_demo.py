@@ -19,7 +19,7 @@ import gzip
 import json
 from pathlib import Path
 
-from limitlap import synth
+from limitlap import circuits, synth
 from limitlap.driven import line_csv_text
 
 HERE = Path(__file__).resolve().parent
@@ -27,7 +27,7 @@ DRY = {"n_laps": 7, "grip_scale": 1.0, "seed": 20240611}
 WET = {"n_laps": 4, "grip_scale": 0.75, "seed": 20240612}
 
 
-def track_toml(circuit: synth.Circuit) -> str:
+def track_toml(circuit: circuits.Circuit) -> str:
     """The track file text (our own small format)."""
     lat0, lon0, h0 = circuit.origin
     lat, lon = circuit.gate_latlon
@@ -83,7 +83,7 @@ def truth_record(session: synth.Session, settings: dict) -> dict:
 
 def main() -> None:
     """Write the demo files."""
-    circuit = synth.demo_circuit()
+    circuit = circuits.demo_circuit()
     (HERE / "tarrowby_heath.toml").write_text(track_toml(circuit), encoding="utf-8")
     (HERE / "tarrowby_heath_line.csv").write_text(line_csv_text(circuit.line), encoding="utf-8")
     truth = {}

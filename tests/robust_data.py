@@ -8,7 +8,7 @@ import hashlib
 import sys
 from pathlib import Path
 
-from limitlap import synth
+from limitlap import circuits, synth
 
 #: The example car of docs/formats.md (Vehicle files), as a vehicle file.
 VEHICLE_TOML = """\
@@ -42,7 +42,7 @@ def square_line_csv(side_m: float = 200.0, n_side: int = 20) -> str:
 @functools.cache
 def circle_session(n_laps: int = 2, gps_dropouts: tuple = (), seed: int = 3) -> synth.Session:
     """A short generated session on a 100 m circle (laps in well under a second)."""
-    circuit = synth.circle_circuit(100.0)
+    circuit = circuits.circle_circuit(100.0)
     return synth.generate_session(
         circuit, n_laps=n_laps, mistakes=(), seed=seed, gps_dropouts=gps_dropouts
     )
@@ -65,12 +65,12 @@ def demo_csv(n_laps: int = 2, gps_dropouts: tuple = ()) -> str:
 
 
 def circle_gate() -> str:
-    lat, lon = synth.circle_circuit(100.0).gate_latlon
+    lat, lon = circuits.circle_circuit(100.0).gate_latlon
     return f"{lat:.7f},{lon:.7f}"
 
 
 def demo_gate() -> str:
-    lat, lon = synth.demo_circuit().gate_latlon
+    lat, lon = circuits.demo_circuit().gate_latlon
     return f"{lat:.7f},{lon:.7f}"
 
 

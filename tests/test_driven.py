@@ -9,7 +9,7 @@ import numpy as np
 import pymap3d
 import pytest
 
-from limitlap import driven, synth
+from limitlap import circuits, driven, synth
 from limitlap.ingest import read_line
 from limitlap.laps import Lap
 from limitlap.logfile import Log
@@ -53,14 +53,14 @@ def curvature_error(dl, truth_line):
 @pytest.fixture(scope="module")
 def circle_session():
     # R = 100 m CCW circle at the limit (about 38 m/s with the GT car's downforce).
-    c = synth.circle_circuit(100.0)
+    c = circuits.circle_circuit(100.0)
     return synth.generate_session(c, n_laps=2, mistakes=(), lap_variation=0.0, seed=21)
 
 
 def test_noisy_gnss_circle_curvature_t31():
     # docs/checks.md, C3.1: circle R = 100 m, 10 Hz, white noise σ = 0.3 m per coordinate,
     # GNSS only: median |Δκ|/κ < 0.10, 95th percentile < 0.35.
-    c = synth.circle_circuit(100.0)
+    c = circuits.circle_circuit(100.0)
     s = synth.generate_session(
         c, n_laps=1, mistakes=(), lap_variation=0.0, gps_sigma_m=1e-6, gps_white_m=0.3, seed=8
     )

@@ -294,10 +294,10 @@ def test_line_file_points_reproduce_the_analytic_line():
     # spline, the ideal lap must match the one on the analytic line it was written from
     # (clothoid-and-arc circuit, curvature known in closed form): 0.1 %, the issue's
     # solver-vs-reference scale; measured 0.06 % when written.
-    from limitlap import synth
+    from limitlap import circuits
     from limitlap.line import line_from_xy
 
-    circuit = synth.demo_circuit()
+    circuit = circuits.demo_circuit()
     exact = circuit.line
     x, y, z = (np.round(a, 3) for a in (exact.x_m, exact.y_m, exact.z_m))
     rebuilt = line_from_xy(x, y, z, spacing_m=1.0)

@@ -9,7 +9,7 @@ import numpy as np
 import pymap3d
 import pytest
 
-from limitlap import synth
+from limitlap import circuits, synth
 from limitlap.line import self_intersects
 from limitlap.solve import solve_profile
 from limitlap.units import DEG_TO_RAD, G0_M_S2
@@ -17,7 +17,7 @@ from limitlap.units import DEG_TO_RAD, G0_M_S2
 
 @pytest.fixture(scope="module")
 def circuit():
-    return synth.demo_circuit()
+    return circuits.demo_circuit()
 
 
 @pytest.fixture(scope="module")
@@ -98,7 +98,7 @@ def test_mistakes_cost_time_and_add_up(circuit):
 
 
 def test_gps_cells_blank_between_fixes_and_dropout():
-    c = synth.circle_circuit(80.0)
+    c = circuits.circle_circuit(80.0)
     s = synth.generate_session(
         c, n_laps=2, mistakes=(), gps_rate_hz=20.0, gps_dropouts=((12.0, 3.0),), seed=5
     )
@@ -122,7 +122,7 @@ def test_gps_cells_blank_between_fixes_and_dropout():
 
 
 def test_enu_geodetic_round_trip():
-    c = synth.circle_circuit(150.0)
+    c = circuits.circle_circuit(150.0)
     s = synth.generate_session(c, n_laps=1, mistakes=(), seed=11)
     tr = s.truth
     f = np.isfinite(s.channels["latitude"])
@@ -141,7 +141,7 @@ def test_enu_geodetic_round_trip():
 
 
 def test_gps_error_is_metre_level_and_correlated():
-    c = synth.circle_circuit(100.0)
+    c = circuits.circle_circuit(100.0)
     s = synth.generate_session(c, n_laps=30, mistakes=(), gps_tau_s=20.0, seed=2)
     err = s.truth.gps_error_m[np.isfinite(s.truth.gps_error_m[:, 0]), 0]
     # Gauss-Markov σ 0.7 m plus white 0.1 m: total σ = sqrt(0.49 + 0.01) = 0.707 m; a
@@ -156,7 +156,7 @@ def test_gps_error_is_metre_level_and_correlated():
 
 def test_signs_on_a_counter_clockwise_circle():
     # ISO 8855:2011 axes (y left, z up): a left-hand (CCW) circle gives κ > 0, r > 0, a_y > 0.
-    c = synth.circle_circuit(100.0)
+    c = circuits.circle_circuit(100.0)
     s = synth.generate_session(c, n_laps=1, mistakes=(), seed=1)
     assert (c.line.curvature_1_m > 0).all()
     moving = s.truth.lap_number == 1
@@ -171,7 +171,7 @@ def test_signs_on_a_counter_clockwise_circle():
 
 
 def test_seeded_and_deterministic():
-    c = synth.circle_circuit(60.0)
+    c = circuits.circle_circuit(60.0)
     a = synth.generate_session(c, n_laps=1, seed=4, mistakes=())
     b = synth.generate_session(c, n_laps=1, seed=4, mistakes=())
     d = synth.generate_session(c, n_laps=1, seed=5, mistakes=())
@@ -217,7 +217,7 @@ def test_bundled_track_files_are_the_generator_output():
     from limitlap.resources import bundled_path
 
     make_demo = _make_demo()
-    circuit = synth.demo_circuit()
+    circuit = circuits.demo_circuit()
     assert bundled_path("demo_tracks", "tarrowby_heath.toml").read_text() == (
         make_demo.track_toml(circuit)
     )
@@ -240,7 +240,7 @@ def test_bundled_session_agrees_with_its_truth(name):
     v = df["speed [km/h]"].to_numpy() / 3.6
     gates = np.array(truth["gate_times_s"])
     assert np.diff(gates) == pytest.approx(np.array(truth["lap_times_s"]), abs=1e-9)
-    length = synth.demo_circuit().line.length_m
+    length = circuits.demo_circuit().line.length_m
     for a, b in itertools.pairwise(gates):
         sel = (t >= a) & (t <= b)
         # 0.5 % (issue tolerance); speed noise 0.05 m/s averages out over 8000 rows
