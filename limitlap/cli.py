@@ -350,9 +350,9 @@ def targets(
     corners = corners_mod.find_corners(line, names, apexes_m=apexes)
     conditions = targets_mod.target_tables(line, car, grip, corners)
     if out is not None:
-        from limitlap import outputs
+        from limitlap import sheets
 
-        outputs.write_target_sheets(conditions, out, trk.name if trk else where)
+        sheets.write_target_sheets(conditions, out, trk.name if trk else where)
     if as_json:
         typer.echo(json.dumps(targets_mod.targets_json(conditions)))
         return
@@ -370,7 +370,7 @@ def demo(
     quiet: bool = typer.Option(False, "--quiet", help="No progress display."),
 ) -> None:
     """The whole job on the bundled demo session: report, figures and target sheets."""
-    from limitlap import outputs
+    from limitlap import sheets
     from limitlap import targets as targets_mod
     from limitlap.resources import bundled_path
 
@@ -381,7 +381,7 @@ def demo(
     typer.echo(_corner_table(analysis))
     corners = analysis.corners
     conditions = targets_mod.target_tables(analysis.driven.line, analysis.vehicle, ["dry", "damp", "wet"], corners)
-    outputs.write_target_sheets(conditions, out, analysis.track_name or "demo circuit")
+    sheets.write_target_sheets(conditions, out, analysis.track_name or "demo circuit")
     for cond in conditions:
         typer.echo("")
         typer.echo(format_targets_table(cond))

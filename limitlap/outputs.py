@@ -19,7 +19,6 @@ import dataclasses
 import json
 import math
 import os
-import re
 import tempfile
 from collections.abc import Callable, Mapping
 from pathlib import Path
@@ -34,7 +33,6 @@ if TYPE_CHECKING:
     from limitlap.best_laps import BestOfLaps
     from limitlap.compare import LapComparison
     from limitlap.driven import CurvatureCheck
-    from limitlap.targets import TargetCondition
 
 #: Progress callback: ``progress(done, total, step)`` after each step of a write.
 Progress = Callable[[int, int, str], None]
@@ -42,7 +40,6 @@ Progress = Callable[[int, int, str], None]
 
 #: Schema string of summary.json (docs/outputs.md, summary.json).
 SUMMARY_SCHEMA = "limitlap.summary/1"
-
 
 
 def write_atomic(path, data: bytes | str) -> Path:
@@ -102,8 +99,7 @@ def write_atomic(path, data: bytes | str) -> Path:
     return path
 
 
-
-def _prepare_folder(out_dir) -> Path:
+def prepare_folder(out_dir) -> Path:
     """Create the output folder (one level) or raise an InputError naming it."""
     out = Path(out_dir)
     try:
@@ -121,7 +117,6 @@ def _prepare_folder(out_dir) -> Path:
     return out
 
 
-
 # Decimals per key suffix (longest first): 10 µs, 1 mm, 0.001 m/s, 0.01 km/h.
 _DECIMALS = (
     ("_m_s2", 4),
@@ -135,9 +130,7 @@ _DECIMALS = (
 )
 
 
-
 _DEFAULT_DECIMALS = 5
-
 
 
 def _decimals(key: str) -> int | None:
@@ -145,7 +138,6 @@ def _decimals(key: str) -> int | None:
         if key.endswith(suffix):
             return n
     return _DEFAULT_DECIMALS
-
 
 
 def _plain(value, key: str = ""):
@@ -177,7 +169,6 @@ def _plain(value, key: str = ""):
     raise LimitlapError(f"summary value of '{key}' has an unsupported type {type(value).__name__}")
 
 
-
 def summary_json_text(summary: Mapping) -> str:
     """summary.json text: keys in the given order, floats rounded by their unit suffix.
 
@@ -202,11 +193,9 @@ def summary_json_text(summary: Mapping) -> str:
     return json.dumps(_plain(summary), indent=2, ensure_ascii=False, allow_nan=False) + "\n"
 
 
-
 def write_summary_json(path, summary: Mapping) -> Path:
     """Write ``summary`` as summary.json (see :func:`summary_json_text`) atomically."""
     return write_atomic(path, summary_json_text(summary))
-
 
 
 def _toml_float(x: float) -> str:
@@ -217,7 +206,6 @@ def _toml_float(x: float) -> str:
     if math.isinf(x):
         return "inf" if x > 0 else "-inf"
     return repr(x)
-
 
 
 def _flat_items(obj, prefix=""):
@@ -240,7 +228,6 @@ def _flat_items(obj, prefix=""):
     return out
 
 
-
 def _comment_value(v) -> str:
     if isinstance(v, float | np.floating):
         return f"{float(v):.4g}"
@@ -259,7 +246,6 @@ def _comment_value(v) -> str:
             + "]"
         )
     return " ".join(str(v).split())
-
 
 
 def envelope_toml_text(vehicle, fit_info=None) -> str:
@@ -324,10 +310,8 @@ def envelope_toml_text(vehicle, fit_info=None) -> str:
     return "\n".join(lines) + "\n"
 
 
-
-def _csv_cell(text: str) -> str:
+def csv_cell(text: str) -> str:
     return f'"{text.replace(chr(34), chr(34) * 2)}"' if any(c in text for c in ',"\n') else text
-
 
 
 def profile_csv_text(columns: Mapping, units: Mapping) -> str:
@@ -367,7 +351,7 @@ def profile_csv_text(columns: Mapping, units: Mapping) -> str:
     for name, a in zip(names, arrays, strict=True):
         if a.shape[0] != n_rows:
             raise LimitlapError(f"profile column '{name}' has {a.shape[0]} rows, expected {n_rows}")
-    header = ",".join(_csv_cell(f"{n} [{units[n]}]" if units.get(n) else str(n)) for n in names)
+    header = ",".join(csv_cell(f"{n} [{units[n]}]" if units.get(n) else str(n)) for n in names)
     if n_rows == 0:
         return f"{header}\n"
     frame = {}
@@ -380,7 +364,6 @@ def profile_csv_text(columns: Mapping, units: Mapping) -> str:
         frame[f"c{j}"] = np.round(np.where(finite, a, np.nan), min(max(places, 0), 15)) + 0.0
     body = pl.DataFrame(frame).fill_nan(None).write_csv(include_header=False, null_value="")
     return f"{header}\n{body}"
-
 
 
 def solve_profile_csv_text(profile, line=None) -> str:
@@ -405,8 +388,8 @@ def solve_profile_csv_text(profile, line=None) -> str:
     return profile_csv_text(columns, units)
 
 
-
-def _f(value) -> float:
+def float_or_nan(value) -> float:
+    """``value`` as a float; NaN for None. [unit of the value]"""
     return float("nan") if value is None else float(value)
 
 
@@ -427,17 +410,17 @@ def corner_rows(comparison: LapComparison) -> list[dict]:
     for c in comparison.corners:
         row = {
             "name": str(c.name),
-            "start_m": _f(c.start_m),
-            "apex_m": _f(c.apex_m),
-            "end_m": _f(c.end_m),
-            "actual_s": _f(c.actual_s),
-            "ideal_s": _f(c.ideal_s),
-            "time_left_s": _f(c.time_left_s),
-            "min_speed_actual_kmh": _f(c.min_speed_actual_m_s) * k,
-            "min_speed_ideal_kmh": _f(c.min_speed_ideal_m_s) * k,
-            "brake_start_actual_m": _f(c.brake_start_actual_m),
-            "brake_start_ideal_m": _f(c.brake_start_ideal_m),
-            "grip_used": _f(c.grip_used),
+            "start_m": float_or_nan(c.start_m),
+            "apex_m": float_or_nan(c.apex_m),
+            "end_m": float_or_nan(c.end_m),
+            "actual_s": float_or_nan(c.actual_s),
+            "ideal_s": float_or_nan(c.ideal_s),
+            "time_left_s": float_or_nan(c.time_left_s),
+            "min_speed_actual_kmh": float_or_nan(c.min_speed_actual_m_s) * k,
+            "min_speed_ideal_kmh": float_or_nan(c.min_speed_ideal_m_s) * k,
+            "brake_start_actual_m": float_or_nan(c.brake_start_actual_m),
+            "brake_start_ideal_m": float_or_nan(c.brake_start_ideal_m),
+            "grip_used": float_or_nan(c.grip_used),
             "plain": c.advice.strip(),
             "_summary": c.summary_dict(),
         }
@@ -494,7 +477,6 @@ class ReportView:
     gg_bands: list = dataclasses.field(default_factory=list)
 
 
-
 def _best_of_laps(best: BestOfLaps | None, corners) -> float:
     """Total of the own-best composite [s]; adds ``best_s`` and ``best_lap`` to the corners."""
     if best is None:
@@ -529,11 +511,11 @@ def report_view(analysis) -> ReportView:
     return ReportView(
         source=str(analysis.log_path),
         lap_number=int(analysis.lap.number),
-        lap_time_s=_f(analysis.lap.time_s),
-        lap_distance_m=_f(analysis.lap.distance_m),
+        lap_time_s=float_or_nan(analysis.lap.time_s),
+        lap_distance_m=float_or_nan(analysis.lap.distance_m),
         ideal_time_s=float(ideal.lap_time_s),
         grip_scale=float(analysis.grip_scale),
-        grip_estimate=_f(analysis.grip_estimate),
+        grip_estimate=float_or_nan(analysis.grip_estimate),
         time_left_s=float(comparison.time_left_s),
         distance_m=s,
         length_m=float(line.length_m),
@@ -629,7 +611,6 @@ def build_summary(analysis) -> dict:
     }
 
 
-
 def _profile_columns(v: ReportView):
     columns = {
         "distance": v.distance_m,
@@ -663,8 +644,7 @@ def _profile_columns(v: ReportView):
     return columns, units
 
 
-
-def _stepper(progress, total):
+def stepper(progress, total):
     state = {"done": 0}
 
     def step(name):
@@ -673,7 +653,6 @@ def _stepper(progress, total):
             progress(min(state["done"], total), total, name)
 
     return step
-
 
 
 def write_outputs(
@@ -700,7 +679,7 @@ def write_outputs(
     """
     from limitlap.report import _curvature_check, _figures, report_html
 
-    out = _prepare_folder(out_dir)
+    out = prepare_folder(out_dir)
     v = report_view(analysis)
     n_fig = (
         (
@@ -715,7 +694,7 @@ def write_outputs(
         else 0
     )
     total = 4 + n_fig + 1
-    step = _stepper(progress, total)
+    step = stepper(progress, total)
     written = {}
     written["summary"] = write_summary_json(out / "summary.json", build_summary(analysis))
     step("summary.json")
@@ -738,137 +717,3 @@ def write_outputs(
     return written
 
 
-
-def _condition(cond: TargetCondition, length_m=None) -> dict:
-    """A target table as a plain dict (km/h); ``before_apex_m`` wraps across the gate."""
-    k = float(cond.grip_scale)
-    length = _f(length_m)
-    kmh = 1.0 / KMH_TO_M_S
-    corners = []
-    for r in cond.corners:
-        before = _f(r.brake_before_apex_m)
-        if before < 0 and math.isfinite(length):  # braking starts before the gate
-            before += length
-        corners.append(
-            {
-                "name": str(r.name),
-                "apex_m": _f(r.apex_m),
-                "brake_start_m": _f(r.brake_start_m),
-                "before_apex_m": before if before >= 0 else float("nan"),
-                "entry_speed_kmh": _f(r.entry_speed_m_s) * kmh,
-                "min_speed_kmh": _f(r.min_speed_m_s) * kmh,
-                "exit_speed_kmh": _f(r.exit_speed_m_s) * kmh,
-                "segment_time_s": _f(r.segment_time_s),
-            }
-        )
-    return {
-        "label": str(cond.label) if cond.label else f"grip {k:.2f}",
-        "grip_scale": k,
-        "lap_time_s": float(cond.lap_time_s),
-        "length_m": length,
-        "corners": corners,
-    }
-
-
-def _slug(text: str) -> str:
-    return re.sub(r"[^a-z0-9]+", "_", text.lower()).strip("_") or "condition"
-
-
-
-def targets_csv_text(conditions, *, length_m: float | None = None) -> str:
-    """CSV of the target tables: one row per condition and corner.
-
-    Parameters
-    ----------
-    conditions : list
-        Records of :func:`limitlap.targets.target_table` (docs/outputs.md, Target sheets fields).
-
-    Returns
-    -------
-    str
-    """
-    conds = [_condition(c, length_m) for c in conditions]
-    header = (
-        "condition,grip_scale [-],lap_time [s],corner,apex [m],brake_start [m],"
-        "brake_before_apex [m],entry_speed [km/h],min_speed [km/h],exit_speed [km/h],"
-        "segment_time [s]"
-    )
-    rows = [header]
-
-    def num(x, nd):
-        return "" if not math.isfinite(x) else f"{round(x, nd) + 0.0:.{nd}f}"
-
-    for c in conds:
-        for r in c["corners"]:
-            rows.append(
-                ",".join(
-                    [
-                        _csv_cell(c["label"]),
-                        num(c["grip_scale"], 3),
-                        num(c["lap_time_s"], 3),
-                        _csv_cell(r["name"]),
-                        num(r["apex_m"], 1),
-                        num(r["brake_start_m"], 1),
-                        num(r["before_apex_m"], 1),
-                        num(r["entry_speed_kmh"], 1),
-                        num(r["min_speed_kmh"], 1),
-                        num(r["exit_speed_kmh"], 1),
-                        num(r["segment_time_s"], 3),
-                    ]
-                )
-            )
-    return "\n".join(rows) + "\n"
-
-
-
-def write_target_sheets(
-    conditions,
-    out_dir,
-    circuit_name: str,
-    *,
-    length_m: float | None = None,
-    progress: Progress | None = None,
-) -> list[Path]:
-    """Write a printable one-page sheet per condition (PDF and PNG) and targets.csv.
-
-    Parameters
-    ----------
-    conditions : list
-        Records of :func:`limitlap.targets.target_table` (docs/outputs.md, Target sheets fields; an optional
-        ``condition``/``label`` names it, e.g. "wet").
-    out_dir : str or Path
-        Output folder; made when missing (its parent must exist).
-    circuit_name : str
-        Heading of each sheet.
-    length_m : float, optional
-        Lap length, so a brake point before the gate gives its distance before an apex
-        after it (records may carry ``length_m`` themselves). [m]
-    progress : callable, optional
-        ``progress(done, total, step)``; None = silent.
-
-    Returns
-    -------
-    list of Path
-        Files written: per condition ``targets_<label>.pdf`` and ``.png``, then targets.csv.
-    """
-    from limitlap import figures as fg
-    from limitlap import report
-
-    out = _prepare_folder(out_dir)
-    conds = [_condition(c, length_m) for c in conditions]
-    step = _stepper(progress, 2 * len(conds) + 1)
-    written, seen = [], set()
-    for c in conds:
-        slug = _slug(c["label"])
-        if slug in seen:
-            slug = f"{slug}_{c['grip_scale']:.2f}".replace(".", "_")
-        seen.add(slug)
-        for fmt in ("pdf", "png"):
-            data = fg.target_sheet(c, circuit_name, report.SAFETY_CAUTION, fmt=fmt)
-            written.append(write_atomic(out / f"targets_{slug}.{fmt}", data))
-            step(f"target sheet {c['label']} ({fmt})")
-    written.append(
-        write_atomic(out / "targets.csv", targets_csv_text(conditions, length_m=length_m))
-    )
-    step("targets.csv")
-    return written

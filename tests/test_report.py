@@ -23,7 +23,7 @@ from pathlib import Path
 import numpy as np
 import pytest
 
-from limitlap import best_laps, compare, figures, gg, outputs, report, targets
+from limitlap import best_laps, compare, figures, gg, outputs, report, sheets, targets
 from limitlap import corners as corners_mod
 from limitlap.driven import DrivenLap
 from limitlap.envelope import EnvelopeFit
@@ -512,7 +512,7 @@ def test_time_loss_rate_of_linear_delta_is_its_slope():
 
 def test_target_sheets_pdf_png_and_csv(tmp_path):
     conds = _conditions()
-    files = outputs.write_target_sheets(conds, tmp_path / "targets", "Invented Ring")
+    files = sheets.write_target_sheets(conds, tmp_path / "targets", "Invented Ring")
     names = sorted(p.name for p in files)
     assert names == [
         "targets.csv",
@@ -541,7 +541,7 @@ def test_target_sheets_pdf_png_and_csv(tmp_path):
 
 
 def test_target_sheet_pdf_is_deterministic():
-    cond = outputs._condition(_conditions()[1])
+    cond = sheets._condition(_conditions()[1])
     a = figures.target_sheet(cond, "Invented Ring", report.SAFETY_CAUTION, fmt="pdf")
     b = figures.target_sheet(cond, "Invented Ring", report.SAFETY_CAUTION, fmt="pdf")
     assert a == b
