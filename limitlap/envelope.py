@@ -43,6 +43,7 @@ from scipy import optimize
 
 from limitlap import _kernels
 from limitlap.errors import LimitlapError
+from limitlap.least_squares import soft_l1_least_squares, standard_errors
 from limitlap.limits import (
     combined_usage,
     drive_force_max_n,
@@ -586,7 +587,7 @@ class _FitProblem:
         def jac(x):
             return np.vstack((plane_jac(x), prior_jac))
 
-        return _robust_least_squares(fun, jac, start, lo, hi, self.loss_scale_m_s2)
+        return soft_l1_least_squares(fun, jac, start, lo, hi, self.loss_scale_m_s2)
 
     def passes(self, max_passes):
         """Normalise-bin-fit passes until the parameters settle: vehicle, points, passes."""
@@ -605,7 +606,7 @@ class _FitProblem:
             x0 = sol.x
             veh = _vehicle_from(sol.x, self.names, veh)
             bp = (idx, bp_band, bv, bax, bay, sol)
-            if passes > 1 and (moved < 1e-3 or np.all(step < 0.1 * _standard_errors(sol, idx.size))):
+            if passes > 1 and (moved < 1e-3 or np.all(step < 0.1 * standard_errors(sol, idx.size))):
                 break
         self.x0 = x0
         return veh, bp, passes
@@ -702,63 +703,6 @@ def _bands_and_warnings(problem: _FitProblem, bp, min_near_limit):
     return tuple(bands), warnings
 
 
-def _robust_least_squares(fun, jac, start, lo, hi, f_scale):
-    r"""Soft-L1 least squares within bounds: MINPACK's Levenberg-Marquardt on transformed
-    residuals, SciPy's bounded trust-region method where that leaves the bounds.
-
-    The soft-L1 cost :math:`\tfrac12\sum f^2\rho(r_i^2/f^2)`, :math:`\rho(z) =
-    2(\sqrt{1+z}-1)`, is the plain sum of squares of :math:`\tilde r_i = f\,
-    \mathrm{sign}(r_i)\sqrt{\rho(r_i^2/f^2)}`, so an unbounded least-squares method
-    finds the same minimum (Hampel et al., *Robust Statistics*, Wiley, 1986, §6.3;
-    Triggs et al., *Bundle Adjustment — A Modern Synthesis*, 2000, §4.3), with the
-    Jacobian's rows scaled by :math:`d\tilde r/dr = \rho'(z)\,|r| / (f\sqrt{\rho(z)})`
-    (1 at r = 0). ``scipy.optimize.least_squares(method="lm")`` (MINPACK) does this in
-    compiled code, several times faster here than the bounded "trf" method; when its
-    solution is not strictly inside the bounds (a bound is active) or it fails, "trf"
-    with ``loss="soft_l1"`` is run as before. The result carries ``fun`` (the untransformed
-    residuals) and ``jac`` scaled as "trf" reports it, :math:`\sqrt{\rho' + 2\rho'' r^2}`
-    per row, so the standard errors do not depend on the method.
-    """
-    memo = {}
-
-    def residuals(x):
-        key = x.tobytes()
-        if key not in memo:
-            memo.clear()
-            memo[key] = fun(x)
-        return memo[key]
-
-    def t_fun(x):
-        r = residuals(x)
-        z = (r / f_scale) ** 2
-        return f_scale * np.sign(r) * np.sqrt(2.0 * (np.sqrt(1.0 + z) - 1.0))
-
-    def t_jac(x):
-        r = residuals(x)
-        z = (r / f_scale) ** 2
-        root = np.sqrt(2.0 * (np.sqrt(1.0 + z) - 1.0))
-        with np.errstate(divide="ignore", invalid="ignore"):
-            d = np.where(root > 0.0, np.abs(r) / (f_scale * root) / np.sqrt(1.0 + z), 1.0)
-        return d[:, None] * jac(x)
-
-    sol = None
-    try:
-        sol = optimize.least_squares(t_fun, start, jac=t_jac, method="lm", x_scale="jac")
-    except (ValueError, np.linalg.LinAlgError):
-        sol = None
-    if sol is None or sol.status <= 0 or not np.all((sol.x > lo) & (sol.x < hi)):
-        return optimize.least_squares(
-            fun, start, jac=jac, bounds=(lo, hi), loss="soft_l1", f_scale=f_scale,
-            x_scale="jac",
-        )
-    r = fun(sol.x)
-    z = (r / f_scale) ** 2
-    weight = (1.0 + z) ** -0.5 - (1.0 + z) ** -1.5 * z  # rho' + 2 rho'' r^2 (rho'' per f^2)
-    sol.fun = r
-    sol.jac = np.sqrt(np.maximum(weight, np.finfo(np.float64).eps))[:, None] * jac(sol.x)
-    return sol
-
-
 #: A noise lift is estimated only from at least this many samples outside the envelope
 #: (a mean over fewer would move it by a tenth of the noise or more). [-]
 _MIN_TAIL_SAMPLES = 100
@@ -817,18 +761,6 @@ def _lift_from_tail(r, noise, quantile):
     if excess(top) >= 0.0:
         return top * noise
     return float(optimize.brentq(excess, 0.0, top, xtol=1e-6)) * noise
-
-
-def _standard_errors(sol, n_points):
-    r"""Gauss-Newton standard errors of a least-squares solution (internal units).
-
-    :math:`\sqrt{\mathrm{diag}(s^2 (J^T J)^{-1})}` with :math:`s^2` the mean square of the
-    first ``n_points`` residuals (the boundary points; the prior terms are not data).
-    """
-    res = sol.fun[:n_points]
-    s2 = float(np.sum(res**2) / max(res.size - sol.x.size, 1))
-    cov = np.linalg.pinv(sol.jac.T @ sol.jac) * s2
-    return np.sqrt(np.clip(np.diag(cov), 0.0, None))
 
 
 def _plausibility(veh, v, names, uncertainty):

@@ -483,7 +483,7 @@ def test_robust_least_squares_matches_scipy_soft_l1():
     ):
         ref = least_squares(fun, start, jac=jac, bounds=(lo, hi), loss="soft_l1", f_scale=0.1,
                             x_scale="jac", ftol=1e-12, xtol=1e-12, gtol=1e-12)
-        got = envelope._robust_least_squares(fun, jac, start, lo, hi, 0.1)
+        got = least_squares.soft_l1_least_squares(fun, jac, start, lo, hi, 0.1)
         np.testing.assert_allclose(got.x, ref.x, rtol=1e-6, atol=1e-9)
         np.testing.assert_allclose(got.fun, fun(got.x), rtol=0, atol=0)
         np.testing.assert_allclose(got.jac, ref.jac, rtol=1e-5, atol=1e-8)
