@@ -462,7 +462,7 @@ def test_robust_least_squares_matches_scipy_soft_l1():
     # method="trf"): the same minimum of the same cost (to the solvers' own tolerances,
     # 1e-6 relative here), the same loss-scaled Jacobian at it, and with the minimum
     # beyond a bound, the bounded method's answer on that bound.
-    from scipy.optimize import least_squares
+    from scipy.optimize import least_squares as scipy_least_squares
 
     rng = np.random.default_rng(5)
     t = np.linspace(0.0, 4.0, 120)
@@ -481,7 +481,7 @@ def test_robust_least_squares_matches_scipy_soft_l1():
         (np.array([0.0, 0.0, -1.0]), np.array([10.0, 10.0, 1.0]), True),
         (np.array([0.0, 0.0, -1.0]), np.array([10.0, 10.0, 0.1]), False),  # x[2] held at 0.1
     ):
-        ref = least_squares(fun, start, jac=jac, bounds=(lo, hi), loss="soft_l1", f_scale=0.1,
+        ref = scipy_least_squares(fun, start, jac=jac, bounds=(lo, hi), loss="soft_l1", f_scale=0.1,
                             x_scale="jac", ftol=1e-12, xtol=1e-12, gtol=1e-12)
         got = least_squares.soft_l1_least_squares(fun, jac, start, lo, hi, 0.1)
         np.testing.assert_allclose(got.x, ref.x, rtol=1e-6, atol=1e-9)
