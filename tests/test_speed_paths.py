@@ -28,6 +28,7 @@ from limitlap import (
     envelope,
     gnss,
     grip,
+    least_squares,
     logfile,
     pipeline,
     samples,
