@@ -244,14 +244,31 @@ def main() -> None:
 
         peak = max(max(r["rss"], r["traced"]) for r in results.values()) / size
         checks = [
-            ("analyse without figures <= 3x parse", f"{ratio('analyse'):.2f}x", ratio("analyse") <= 3.0),
-            ("  the same against the parse alone", f"{strict('analyse'):.2f}x", strict("analyse") <= 3.0),
-            ("analyse with the report <= 6x parse", f"{ratio('analyse+report'):.2f}x",
-             ratio("analyse+report") <= 6.0),
-            ("  the same against the parse alone", f"{strict('analyse+report'):.2f}x",
-             strict("analyse+report") <= 6.0),
-            ("sweep of 1,000 scales < 1 s", f"{statistics.median(results['sweep']['times']):.2f} s",
-             statistics.median(results["sweep"]["times"]) < 1.0),
+            (
+                "analyse without figures <= 3x parse",
+                f"{ratio('analyse'):.2f}x",
+                ratio("analyse") <= 3.0,
+            ),
+            (
+                "  the same against the parse alone",
+                f"{strict('analyse'):.2f}x",
+                strict("analyse") <= 3.0,
+            ),
+            (
+                "analyse with the report <= 6x parse",
+                f"{ratio('analyse+report'):.2f}x",
+                ratio("analyse+report") <= 6.0,
+            ),
+            (
+                "  the same against the parse alone",
+                f"{strict('analyse+report'):.2f}x",
+                strict("analyse+report") <= 6.0,
+            ),
+            (
+                "sweep of 1,000 scales < 1 s",
+                f"{statistics.median(results['sweep']['times']):.2f} s",
+                statistics.median(results["sweep"]["times"]) < 1.0,
+            ),
             ("peak memory < 10x the file", f"{peak:.2f}x", peak < 10.0),
             ("cold start of solve --json < 1.5 s", f"{cold_solve:.2f} s", cold_solve < 1.5),
         ]

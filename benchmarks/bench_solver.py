@@ -64,8 +64,19 @@ def main() -> None:
         rows.append((n, t, t_min))
     # Yardstick: plain Python loop, same algorithm, 5,000 stations, same process.
     line = loop_line(5_000)
-    params = (car.mass_kg, car.power_w, car.drag_area_m2, car.downforce_area_m2, car.rolling_coeff,
-              car.air_density_kg_m3, car.mu_lat, car.mu_brk, car.mu_trac, car.exponent, G0_M_S2)
+    params = (
+        car.mass_kg,
+        car.power_w,
+        car.drag_area_m2,
+        car.downforce_area_m2,
+        car.rolling_coeff,
+        car.air_density_kg_m3,
+        car.mu_lat,
+        car.mu_brk,
+        car.mu_trac,
+        car.exponent,
+        G0_M_S2,
+    )
     k_list, ds_list = list(line.curvature_1_m), list(line.ds_m)
     t_py = median_time(lambda: reference.solve_closed(k_list, ds_list, params, V_CAP_M_S), 3)
     t_nb = rows[0][1]
@@ -74,23 +85,36 @@ def main() -> None:
     print(f"{'stations':>10} {'median [ms]':>12} {'fastest [ms]':>13} {'us/station':>11}")
     for n, t, t_min in rows:
         print(f"{n:>10,} {t * 1e3:>12.3f} {t_min * 1e3:>13.3f} {t_min / n * 1e6:>11.4f}")
-    print(f"\nplain Python loop, 5,000 stations: {t_py * 1e3:.1f} ms "
-          f"-> compiled is {t_py / t_nb:.0f}x faster (target >= 100x)")
-    print(f"20,000 stations: median {rows[1][1] * 1e3:.3f} ms, fastest {rows[1][2] * 1e3:.3f} ms "
-          "(target <= 0.5 ms)")
+    print(
+        f"\nplain Python loop, 5,000 stations: {t_py * 1e3:.1f} ms "
+        f"-> compiled is {t_py / t_nb:.0f}x faster (target >= 100x)"
+    )
+    print(
+        f"20,000 stations: median {rows[1][1] * 1e3:.3f} ms, fastest {rows[1][2] * 1e3:.3f} ms "
+        "(target <= 0.5 ms)"
+    )
 
     # Cold start of the command line: two fresh processes; the second loads the cache.
     with tempfile.TemporaryDirectory():
-        cmd = [sys.executable, "-m", "limitlap", "solve",
-               str(bundled_path("demo_tracks", "example_loop_line.csv")),
-               "--vehicle", str(bundled_path("vehicles", "gt_coupe.toml")), "--json"]
+        cmd = [
+            sys.executable,
+            "-m",
+            "limitlap",
+            "solve",
+            str(bundled_path("demo_tracks", "example_loop_line.csv")),
+            "--vehicle",
+            str(bundled_path("vehicles", "gt_coupe.toml")),
+            "--json",
+        ]
         starts = []
         for _ in range(4):
             t0 = time.perf_counter()
             subprocess.run(cmd, check=True, capture_output=True)
             starts.append(time.perf_counter() - t0)
-    print(f"\ncold start 'limitlap solve': first {starts[0]:.2f} s, "
-          f"then median {statistics.median(starts[1:]):.2f} s (numba cache)")
+    print(
+        f"\ncold start 'limitlap solve': first {starts[0]:.2f} s, "
+        f"then median {statistics.median(starts[1:]):.2f} s (numba cache)"
+    )
 
 
 if __name__ == "__main__":

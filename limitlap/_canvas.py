@@ -62,7 +62,7 @@ TITLE_PAD_PT = 6.0
 
 @dataclass(frozen=True)
 class Box:
-    """A pixel box, from the image's top-left corner, y down. [px]"""
+    """A pixel box, from the image's top-left corner, y down. [px]."""
 
     x0: float
     y0: float
@@ -92,7 +92,7 @@ def _colour_row(colour, n: int) -> np.ndarray:
 
 
 def rgb(colour) -> tuple[float, float, float]:
-    """An ``"#rrggbb"`` string or an RGB(A) tuple of 0-1 floats as an RGB tuple. [-]"""
+    """An ``"#rrggbb"`` string or an RGB(A) tuple of 0-1 floats as an RGB tuple. [-]."""
     if isinstance(colour, str):
         c = colour.lstrip("#")
         if len(c) != 6:
@@ -123,7 +123,7 @@ _FONT_LOCK = threading.Lock()
 
 
 def _font(weight: str):
-    """This thread's FreeType face of DejaVu Sans (matplotlib's bundled default)."""
+    """FreeType face for this thread of DejaVu Sans (matplotlib's bundled default)."""
     from matplotlib.font_manager import FontProperties, findfont, get_font
 
     path = _FONT_FILES.get(weight)
@@ -175,7 +175,7 @@ def _kerning(left: int, right: int, size_pt: float, weight: str, dpi: float) -> 
 
 
 def _line_metrics(size_pt: float, weight: str, dpi: float) -> tuple[int, int]:
-    """Ascent and descent of a line of text: those of "lp", as matplotlib lays text. [px]"""
+    """Ascent and descent of a line of text: those of "lp", as matplotlib lays text. [px]."""
     key = (size_pt, weight, dpi)
     m = _LINE.get(key)
     if m is None:
@@ -226,8 +226,7 @@ _TYPESET_MAX = 1024  # strings kept (tick labels, corner names and axis labels r
 
 
 def _typeset(s: str, size_pt: float, weight: str, dpi: float):
-    """(layout, alpha bitmap 0-255, its weights 0-1 repeated for RGBA) of a line of text,
-    cached per process."""
+    """(layout, alpha bitmap 0-255, its weights 0-1 repeated for RGBA) of a line of text, cached per process."""
     key = (s, size_pt, weight, dpi)
     hit = _TYPESET.get(key)
     if hit is None:
@@ -246,8 +245,7 @@ def _weights(alpha: np.ndarray) -> np.ndarray:
 
 
 def _text_alpha(lay: _Layout) -> np.ndarray:
-    """Alpha bitmap of a laid-out line: columns from ink_x0, rows from ``top`` above the
-    baseline to ``bottom`` below it."""
+    """Alpha bitmap of a laid-out line: columns from ink_x0, rows from ``top`` above the baseline to ``bottom`` below it."""
     out = np.zeros((lay.top + lay.bottom, max(lay.ink_x1 - lay.ink_x0, 0)), dtype=np.uint8)
     for g, px in lay.glyphs:
         if g.ink_x1 <= g.ink_x0:
@@ -294,8 +292,7 @@ def nice_ticks(lo: float, hi: float, max_bins: int) -> np.ndarray:
 
 
 def tick_labels(values) -> list[str]:
-    """Labels of tick values with the fewest decimals that show every one exactly, and a
-    Unicode minus, as matplotlib's default labels.
+    """Labels of tick values with the fewest decimals that show every one exactly, and a Unicode minus, as matplotlib's default labels.
 
     Examples
     --------
@@ -322,8 +319,10 @@ def tick_labels(values) -> list[str]:
 
 
 def auto_bins(length_px: float, size_pt: float, per_label: float, dpi: float) -> int:
-    """Most tick intervals for an axis, by matplotlib's rule: the axis length over
-    ``per_label`` font sizes (3 for x, 2 for y), at most 9. [-]"""
+    """Most tick intervals for an axis, by matplotlib's rule: the axis length over ``per_label`` font sizes (3 for x, 2 for y), at most 9.
+
+    [-].
+    """
     length_pt = length_px / dpi * 72.0
     return max(1, min(9, math.floor(length_pt / (per_label * size_pt))))
 
@@ -339,8 +338,7 @@ _POOL_LOCK = threading.Lock()
 
 
 def _pool() -> ThreadPoolExecutor:
-    """The PNG encoder's helper thread, one per process (a forked child, which inherits
-    the parent's pool but not its thread, makes its own)."""
+    """The PNG encoder's helper thread, one per process (a forked child, which inherits the parent's pool but not its thread, makes its own)."""
     global _POOL, _POOL_PID
     with _POOL_LOCK:
         if _POOL is None or _POOL_PID != os.getpid():
@@ -383,7 +381,7 @@ class Canvas:
     # ------------------------------------------------------------------ basics
 
     def pt(self, points: float) -> float:
-        """Points as pixels at this canvas's resolution. [px]"""
+        """Points as pixels at this canvas's resolution. [px]."""
         return points * self.dpi / 72.0
 
     @property
@@ -451,9 +449,11 @@ class Canvas:
         clip: Box | None = None,
         closed: bool = False,
     ) -> None:
-        """A line through the points; NaN points break it. ``dash`` is ``"--"``, ``":"``,
-        ``"-."`` or a pattern in line widths; ``cap`` defaults to projecting (solid) or
-        butt (dashed), as matplotlib's lines."""
+        """A line through the points; NaN points break it.
+
+        ``dash`` is ``"--"``, ``":"``, ``"-."`` or a pattern in line widths; ``cap``
+        defaults to projecting (solid) or butt (dashed), as matplotlib's lines.
+        """
         x = np.asarray(x_px, dtype=np.float64)
         if x.size < 2:
             return
@@ -468,8 +468,7 @@ class Canvas:
         gc.restore()
 
     def _snap_shift(self, x, y, lw_pt):
-        """Points of a horizontal/vertical line moved so Agg's pixel snapping puts it on
-        the pixel centre nearest the true place.
+        """Points of a horizontal/vertical line moved so Agg's pixel snapping puts it on the pixel centre nearest the true place.
 
         Agg (as matplotlib sets it up) snaps such lines to whole pixels: a line an odd
         number of pixels wide to ``floor(v + 0.5) + 0.5``, the centre of the pixel right
@@ -504,8 +503,7 @@ class Canvas:
     def runs(
         self, x_px, y_px, starts, stops, colour, lw_pt=1.0, *, cap="round", join="round", clip=None
     ) -> None:
-        """Pieces ``[starts[i], stops[i])`` of one polyline, as one path of sub-lines (so
-        a line coloured by value is one stroke per colour, not one per segment)."""
+        """Pieces ``[starts[i], stops[i])`` of one polyline, as one path of sub-lines (so a line coloured by value is one stroke per colour, not one per segment)."""
         from matplotlib.path import Path
 
         starts = np.asarray(starts, dtype=np.int64)
@@ -578,8 +576,7 @@ class Canvas:
         lw_pt: float = 1.0,
         clip: Box | None = None,
     ) -> None:
-        """One marker at each point: ``"o"`` filled disc, ``"s"`` filled square, ``"x"``
-        stroked cross; ``size_px`` is the marker's width."""
+        """One marker at each point: ``"o"`` filled disc, ``"s"`` filled square, ``"x"`` stroked cross; ``size_px`` is the marker's width."""
         from matplotlib.path import Path
         from matplotlib.transforms import Affine2D
 
@@ -624,12 +621,12 @@ class Canvas:
     # ------------------------------------------------------------------ text
 
     def text_extent(self, s: str, size_pt: float = 11.0, weight: str = "normal"):
-        """(width, ascent, descent) of a line of text, unrotated. [px]"""
+        """(width, ascent, descent) of a line of text, unrotated. [px]."""
         lay = _typeset(str(s), float(size_pt), weight, self.dpi)[0]
         return float(lay.ink_x1 - lay.ink_x0), float(lay.ascent), float(lay.descent)
 
     def text_width(self, texts, size_pt: float = 11.0, weight: str = "normal") -> float:
-        """Width of the widest of ``texts``. [px]"""
+        """Width of the widest of ``texts``. [px]."""
         return max((self.text_extent(t, size_pt, weight)[0] for t in texts), default=0.0)
 
     def text(
@@ -727,8 +724,7 @@ class Canvas:
         return Box(left + cols[0], top + rows[0], left + cols[-1] + 1, top + rows[-1] + 1)
 
     def _blend(self, alpha: np.ndarray, left: int, top: int, colour, weights=None) -> None:
-        """Blend ``colour`` into the image by an alpha bitmap (0-255) at (left, top);
-        ``weights`` are the bitmap's :func:`_weights` when already known.
+        """Blend ``colour`` into the image by an alpha bitmap (0-255) at (left, top); ``weights`` are the bitmap's :func:`_weights` when already known.
 
         All four channels of each pixel are blended, row by row over contiguous memory
         (the opaque alpha channel stays 255): numpy's loops over a 3-channel slice of the
@@ -767,10 +763,7 @@ class Canvas:
         avoid=None,
         avoid_boxes=(),
     ) -> Box:
-        """A legend of ``entries`` (see :class:`Entry`) placed at ``loc`` inside ``within``
-        (default: the whole image), laid out as matplotlib's: handles 2 font sizes long,
-        0.8 font size from their labels, rows 0.5 font size apart, columns 2 font sizes
-        apart, 0.5 font size from the edges.
+        """A legend of ``entries`` (see :class:`Entry`) placed at ``loc`` inside ``within`` (default: the whole image), laid out as matplotlib's: handles 2 font sizes long, 0.8 font size from their labels, rows 0.5 font size apart, columns 2 font sizes apart, 0.5 font size from the edges.
 
         ``loc`` is "upper right", "upper left", "lower left", "lower right", "center
         right", "center left", "upper center", "lower center", "center", or "best": the
@@ -878,8 +871,7 @@ class Canvas:
     def colour_bar(
         self, box: Box, colours, ticks_frac, labels, label: str, size_pt: float = 11.0
     ) -> None:
-        """A horizontal colour bar: ``colours`` (n, 3) in 0-1 left to right over ``box``,
-        ticks at fractions of its width with their labels below, ``label`` under them."""
+        """A horizontal colour bar: ``colours`` (n, 3) in 0-1 left to right over ``box``, ticks at fractions of its width with their labels below, ``label`` under them."""
         cols = np.asarray(colours, dtype=np.float64)
         x0, x1 = round(box.x0), round(box.x1)
         y0, y1 = round(box.y0), round(box.y1)
@@ -997,8 +989,7 @@ def _deflate_rows(flat: np.ndarray, r0: int, r1: int, level: int, last: bool):
 
 
 def _adler32_combine(adler_a: int, adler_b: int, len_b: int) -> int:
-    """Adler-32 of A + B from those of A and B and B's length (RFC 1950's sums, combined
-    as zlib's ``adler32_combine``).
+    """Adler-32 of A + B from those of A and B and B's length (RFC 1950's sums, combined as zlib's ``adler32_combine``).
 
     Examples
     --------
@@ -1076,21 +1067,21 @@ class Panel:
     # ------------------------------------------------------------------ scales
 
     def px(self, x):
-        """Data x to pixel column (float). [px]"""
+        """Data x to pixel column (float). [px]."""
         a, b = self.xlim
         return self.box.x0 + (np.asarray(x, dtype=np.float64) - a) * (self.box.width / (b - a))
 
     def py(self, y):
-        """Data y to pixel row (float), up the image for increasing y. [px]"""
+        """Data y to pixel row (float), up the image for increasing y. [px]."""
         a, b = self.ylim
         return self.box.y1 - (np.asarray(y, dtype=np.float64) - a) * (self.box.height / (b - a))
 
     def fy(self, frac):
-        """Fraction of the panel's height from its bottom to pixel row. [px]"""
+        """Fraction of the panel's height from its bottom to pixel row. [px]."""
         return self.box.y1 - float(frac) * self.box.height
 
     def fx(self, frac):
-        """Fraction of the panel's width from its left to pixel column. [px]"""
+        """Fraction of the panel's width from its left to pixel column. [px]."""
         return self.box.x0 + float(frac) * self.box.width
 
     # ------------------------------------------------------------------ data
@@ -1101,8 +1092,7 @@ class Panel:
         self.canvas.polyline(self.px(x), self.py(y), colour, lw_pt, **kwargs)
 
     def fill_between(self, x, y0, y1, colour, alpha=1.0, where=None) -> None:
-        """Fill between two curves (``y0`` may be a number), only where ``where`` holds;
-        a run ending between stations ends where the curves cross (linear)."""
+        """Fill between two curves (``y0`` may be a number), only where ``where`` holds; a run ending between stations ends where the curves cross (linear)."""
         x = np.asarray(x, dtype=np.float64)
         y1 = np.asarray(y1, dtype=np.float64)
         y0 = np.broadcast_to(np.asarray(y0, dtype=np.float64), y1.shape)
@@ -1195,12 +1185,12 @@ class Panel:
     # ------------------------------------------------------------------ axes
 
     def auto_xticks(self, size_pt=11.0):
-        """x tick values by matplotlib's default rule for this panel's width."""
+        """X tick values by matplotlib's default rule for this panel's width."""
         n = auto_bins(self.box.width, size_pt, 3.0, self.canvas.dpi)
         return nice_ticks(*self.xlim, n)
 
     def auto_yticks(self, size_pt=11.0):
-        """y tick values by matplotlib's default rule for this panel's height."""
+        """Y tick values by matplotlib's default rule for this panel's height."""
         n = auto_bins(self.box.height, size_pt, 2.0, self.canvas.dpi)
         return nice_ticks(*self.ylim, n)
 
@@ -1244,8 +1234,10 @@ class Panel:
         show_labels=True,
         colour="#222222",
     ) -> float:
-        """Ticks below the panel at data x values and their labels; returns the lowest
-        pixel row the labels reach. [px]"""
+        """Ticks below the panel at data x values and their labels; returns the lowest pixel row the labels reach.
+
+        [px].
+        """
         c = self.canvas
         b = self.box
         v = np.asarray(values, dtype=np.float64)
@@ -1276,8 +1268,10 @@ class Panel:
     def yticks(
         self, values, labels=None, *, size_pt=11.0, show_labels=True, colour="#222222"
     ) -> float:
-        """Ticks left of the panel at data y values and their labels; returns the leftmost
-        pixel column the labels reach. [px]"""
+        """Ticks left of the panel at data y values and their labels; returns the leftmost pixel column the labels reach.
+
+        [px].
+        """
         c = self.canvas
         b = self.box
         v = np.asarray(values, dtype=np.float64)
@@ -1304,8 +1298,7 @@ class Panel:
         return left
 
     def xlabel(self, text, below_px, size_pt=11.0) -> Box:
-        """Axis label centred under the panel, its top ``below_px`` (the tick labels'
-        lowest row) plus matplotlib's label pad."""
+        """Axis label centred under the panel, its top ``below_px`` (the tick labels' lowest row) plus matplotlib's label pad."""
         c = self.canvas
         return c.text(
             0.5 * (self.box.x0 + self.box.x1),
@@ -1317,8 +1310,7 @@ class Panel:
         )
 
     def ylabel(self, text, left_px, size_pt=11.0) -> Box:
-        """Axis label up the panel's left side, right of it at ``left_px`` (the tick
-        labels' leftmost column) less matplotlib's label pad."""
+        """Axis label up the panel's left side, right of it at ``left_px`` (the tick labels' leftmost column) less matplotlib's label pad."""
         c = self.canvas
         return c.text(
             left_px - c.pt(LABEL_PAD_PT),

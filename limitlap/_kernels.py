@@ -140,10 +140,11 @@ def _backward_step(b_j, d_j, k_i, s_i, h, b_lim_i, veh):
 
 @njit(cache=True)
 def _both_passes(k, sg, ds, veh, b_lim, fwd, bwd, fa, bd, f0, b0, steps):
-    """Forward pass from station f0 and backward pass from b0, ``steps`` each, in one
-    loop: the two dependency chains are independent, so the processor overlaps them.
+    """Forward pass from station f0 and backward pass from b0, ``steps`` each, in one loop: the two dependency chains are independent, so the processor overlaps them.
+
     Indices wrap round the arrays (closed laps). ``fa``/``bd`` receive the acceleration
-    and deceleration carried at each station."""
+    and deceleration carried at each station.
+    """
     n = k.shape[0]
     i = f0
     j = b0
@@ -164,8 +165,7 @@ def _both_passes(k, sg, ds, veh, b_lim, fwd, bwd, fa, bd, f0, b0, steps):
 
 @njit(cache=True)
 def _repeat_forward(k, sg, ds, veh, b_lim, fwd, fa, i0):
-    """Forward lap from i0 (start speed already lowered) until the trace rejoins the
-    previous lap's; returns the speed² it arrives back at i0 with."""
+    """Forward lap from i0 (start speed already lowered) until the trace rejoins the previous lap's; returns the speed² it arrives back at i0 with."""
     n = k.shape[0]
     i = i0
     a = drive_accel(k[i0], fwd[i0], sg[i0], veh)
@@ -234,14 +234,18 @@ def solve_speed_squared(curvature_1_m, sin_grad, ds_m, veh, closed, b_entry, b_e
         bwd[i0] = b_lim[i0]
         _both_passes(k, sg, ds_m, veh, b_lim, fwd, bwd, fa, bd, i0, i0, n - 1)
         i_last = i0 - 1 if i0 > 0 else n - 1
-        arrival, _ = _forward_step(fwd[i_last], fa[i_last], k[i0], sg[i0], ds_m[i_last], b_lim[i0], veh)
+        arrival, _ = _forward_step(
+            fwd[i_last], fa[i_last], k[i0], sg[i0], ds_m[i_last], b_lim[i0], veh
+        )
         for _ in range(200):
             if arrival >= fwd[i0] * (1.0 - 1e-13):
                 break
             fwd[i0] = arrival
             arrival = _repeat_forward(k, sg, ds_m, veh, b_lim, fwd, fa, i0)
         j_last = i0 + 1 if i0 + 1 < n else 0
-        arrival, _ = _backward_step(bwd[j_last], bd[j_last], k[i0], sg[i0], ds_m[i0], b_lim[i0], veh)
+        arrival, _ = _backward_step(
+            bwd[j_last], bd[j_last], k[i0], sg[i0], ds_m[i0], b_lim[i0], veh
+        )
         for _ in range(200):
             if arrival >= bwd[i0] * (1.0 - 1e-13):
                 break
@@ -279,8 +283,7 @@ def elapsed_time(speed_m_s, ds_m, closed):
 
 @njit(cache=True)
 def line_steps(distance_m, gradient, curvature_1_m, length_m, closed):
-    """Steps between stations, sin(theta) from dz/ds = tan(theta), and a check flag:
-    0 fine, 1 a non-finite curvature or gradient, 2 a step that is not positive."""
+    """Steps between stations, sin(theta) from dz/ds = tan(theta), and a check flag: 0 fine, 1 a non-finite curvature or gradient, 2 a step that is not positive."""
     n = distance_m.shape[0]
     ds = np.empty(n)
     sin_grad = np.empty(n)
@@ -333,7 +336,9 @@ def profile_outputs(b, curvature_1_m, ds_m, closed):
 
 
 @njit(cache=True)
-def lap_times_for_scales(curvature_1_m, sin_grad, ds_m, veh, closed, b_entry, b_exit, b_max, scales):
+def lap_times_for_scales(
+    curvature_1_m, sin_grad, ds_m, veh, closed, b_entry, b_exit, b_max, scales
+):
     """Lap time for each grip scale in ``scales`` (a sweep), same line and car."""
     out = np.empty(scales.shape[0])
     v2 = veh.copy()
@@ -341,7 +346,9 @@ def lap_times_for_scales(curvature_1_m, sin_grad, ds_m, veh, closed, b_entry, b_
         v2[I_MU_LAT] = veh[I_MU_LAT] * scales[k]
         v2[I_MU_BRK] = veh[I_MU_BRK] * scales[k]
         v2[I_MU_TRAC] = veh[I_MU_TRAC] * scales[k]
-        b, _ = solve_speed_squared(curvature_1_m, sin_grad, ds_m, v2, closed, b_entry, b_exit, b_max)
+        b, _ = solve_speed_squared(
+            curvature_1_m, sin_grad, ds_m, v2, closed, b_entry, b_exit, b_max
+        )
         v = np.sqrt(b)
         _, total = elapsed_time(v, ds_m, closed)
         out[k] = total
@@ -350,8 +357,10 @@ def lap_times_for_scales(curvature_1_m, sin_grad, ds_m, veh, closed, b_entry, b_
 
 @njit(cache=True)
 def first_row_at_speed(x, y, v, threshold):
-    """Kernel of ``limitlap.laps.auto_gate``: the first row with a position whose speed
-    is at least ``threshold`` and above zero, -1 when none (NaN never counts). [-]"""
+    """Kernel of ``limitlap.laps.auto_gate``: the first row with a position whose speed is at least ``threshold`` and above zero, -1 when none (NaN never counts).
+
+    [-].
+    """
     for i in range(v.shape[0]):
         if v[i] >= threshold and v[i] > 0.0 and np.isfinite(x[i]) and np.isfinite(y[i]):
             return i
@@ -360,10 +369,10 @@ def first_row_at_speed(x, y, v, threshold):
 
 @njit(cache=True)
 def gate_approaches(x, y, gx, gy, reach):
-    """Kernel of ``limitlap.laps.gate_crossings``' search: the row nearest the gate point
-    (the first of equals; -1 when no row has a position), its distance, and the rows i
-    whose step to i + 1 stays within ``reach`` of the point at both ends. Two passes over
-    the positions, no full-length temporaries. [-], [m], [-]"""
+    """Kernel of ``limitlap.laps.gate_crossings``' search: the row nearest the gate point (the first of equals; -1 when no row has a position), its distance, and the rows i whose step to i + 1 stays within ``reach`` of the point at both ends.
+
+    Two passes over the positions, no full-length temporaries. [-], [m], [-].
+    """
     n = x.shape[0]
     reach2 = reach * reach
     best = np.inf
@@ -397,8 +406,7 @@ def gate_approaches(x, y, gx, gy, reach):
 
 @njit(cache=True, inline="always")
 def _nearer_root(va, ia, vb, ib, top):
-    """Heap order of (value, index) pairs: smaller first in the heap of a group's largest
-    pairs (``top``), larger first in the heap of its smallest."""
+    """Heap order of (value, index) pairs: smaller first in the heap of a group's largest pairs (``top``), larger first in the heap of its smallest."""
     if top:
         return va < vb or (va == vb and ia < ib)
     return va > vb or (va == vb and ia > ib)
@@ -486,11 +494,10 @@ def boundary_points(key, rho, rank):
 
 @njit(cache=True, nogil=True)
 def tyre_plane_parts(v, ax, ay, veh, tyre_x, tyre_y, sx, sy, power):
-    """Kernel of ``limitlap.envelope._usage_and_direction``: per sample, into the arrays
-    given, the tyre shares |F_x| / (μ N) and |s_y|, the direction shares s_x (against the
-    drive limit min(μ_t N, P / v) or μ_b N) and s_y = m a_y / (μ_l N), and the power share
-    F_x v / P (0 unless driving), with the operations in numpy's order (the same bits).
-    The powers and the arctangent are left to numpy's vectorised functions. [-]"""
+    """Kernel of ``limitlap.envelope._usage_and_direction``: per sample, into the arrays given, the tyre shares |F_x| / (μ N) and |s_y|, the direction shares s_x (against the drive limit min(μ_t N, P / v) or μ_b N) and s_y = m a_y / (μ_l N), and the power share F_x v / P (0 unless driving), with the operations in numpy's order (the same bits).
+
+    The powers and the arctangent are left to numpy's vectorised functions. [-].
+    """
     m = veh[I_MASS]
     weight = m * veh[I_G]
     half_rho = 0.5 * veh[I_RHO]
@@ -549,8 +556,10 @@ def _plane_residuals_into(v, ax, ay, veh, out):
 
 @njit(cache=True)
 def envelope_residuals(v, ax, ay, base, where, scale, x):
-    """Kernel of ``limitlap.envelope._plane_residuals``: radial distance of each point
-    from the envelope, r (1 - 1/max(rho, 1e-9)), with ``base[where] = x * scale``. [m/s²]"""
+    """Kernel of ``limitlap.envelope._plane_residuals``: radial distance of each point from the envelope, r (1 - 1/max(rho, 1e-9)), with ``base[where] = x * scale``.
+
+    [m/s²].
+    """
     veh = base.copy()
     for k in range(x.shape[0]):
         veh[where[k]] = x[k] * scale[k]
@@ -561,8 +570,10 @@ def envelope_residuals(v, ax, ay, base, where, scale, x):
 
 @njit(cache=True)
 def envelope_residuals_jacobian(v, ax, ay, base, where, scale, x, h):
-    """Forward-difference Jacobian of ``envelope_residuals`` in x: column k is
-    (f(x + h_k e_k) - f(x)) / h_k, every evaluation in this one call. [m/s² per unit x]"""
+    """Forward-difference Jacobian of ``envelope_residuals`` in x: column k is (f(x + h_k e_k) - f(x)) / h_k, every evaluation in this one call.
+
+    [m/s² per unit x].
+    """
     veh = base.copy()
     for k in range(x.shape[0]):
         veh[where[k]] = x[k] * scale[k]
@@ -643,12 +654,12 @@ def polygon_self_crosses(x, y):
     return False
 
 
-
 @njit(cache=True, nogil=True)
 def trapezoid_running(t, v):
-    """Kernel of ``limitlap.gnss.travelled_m``: the running trapezoidal integral of v
-    over t from 0, as ``concatenate(([0], cumsum(0.5 * (v[1:] + v[:-1]) * diff(t))))``
-    computes it, operation for operation. [m]"""
+    """Kernel of ``limitlap.gnss.travelled_m``: the running trapezoidal integral of v over t from 0, as ``concatenate(([0], cumsum(0.5 * (v[1:] + v[:-1]) * diff(t))))`` computes it, operation for operation.
+
+    [m].
+    """
     n = t.shape[0]
     out = np.empty(n)
     if n == 0:
@@ -663,9 +674,10 @@ def trapezoid_running(t, v):
 
 @njit(cache=True, nogil=True)
 def held_at_least(x, rows, reach, level):
-    """Kernel of ``limitlap.power_line.full_throttle_held``: for ascending ``rows``, True
-    where every x within ``reach`` rows either side is >= ``level`` (NaN is not). One scan
-    of x up to the last row's window, remembering the last row below the level."""
+    """Kernel of ``limitlap.power_line.full_throttle_held``: for ascending ``rows``, True where every x within ``reach`` rows either side is >= ``level`` (NaN is not).
+
+    One scan of x up to the last row's window, remembering the last row below the level.
+    """
     n = x.shape[0]
     out = np.empty(rows.shape[0], dtype=np.bool_)
     last_low = -reach - 1  # no row below the level seen yet

@@ -269,8 +269,7 @@ def _job(log, folder, vehicle, grip_scale, lap, gate, channels, track, figures, 
 
 
 def _finished(jobs, workers, scheduler):
-    """(index, row) pairs as the jobs finish: on a Dask cluster when given a scheduler,
-    else in a process pool, or one after the other in this process for one worker."""
+    """(index, row) pairs as the jobs finish: on a Dask cluster when given a scheduler, else in a process pool, or one after the other in this process for one worker."""
     if scheduler is not None:
         yield from _run_dask(jobs, scheduler)
         return

@@ -69,7 +69,6 @@ class BestOfLaps:
         }
 
 
-
 def segment_times(distance_m, length_m, elapsed_s, lap_time_s, corners, scale=1.0):
     """Time spent in each corner's segment, bounds scaled by ``scale`` (closed lap).
 
@@ -100,7 +99,6 @@ def segment_times(distance_m, length_m, elapsed_s, lap_time_s, corners, scale=1.
     wraps = np.array([c.end_m <= c.start_m for c in corners])
     out = np.interp(ends, s, t) - np.interp(starts, s, t)
     return out + np.where(wraps, lap_time_s, 0.0)
-
 
 
 def best_of_laps(

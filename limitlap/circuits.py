@@ -58,7 +58,6 @@ class CornerMark:
     label: str = ""
 
 
-
 @dataclass(frozen=True, eq=False)
 class Circuit:
     """A synthetic circuit: its line (stations from the gate) and where it is on Earth.
@@ -101,7 +100,6 @@ class Circuit:
         raise LimitlapError(f"circuit '{self.name}' has no corner '{name}'")
 
 
-
 def _corner(angle_deg, radius_m, ramp_in_m, ramp_out_m, name):
     """Clothoid in, arc, clothoid out: the arc length makes the turn ``angle_deg``."""
     kappa = math.copysign(1.0 / radius_m, angle_deg)
@@ -109,7 +107,6 @@ def _corner(angle_deg, radius_m, ramp_in_m, ramp_out_m, name):
     if hold <= 0.0:  # design error, not user input
         raise ValueError(f"corner {name}: transitions longer than the turn")
     return [("ramp", ramp_in_m, kappa), ("arc", hold, name), ("ramp", ramp_out_m, 0.0)]
-
 
 
 def _tarrowby_elements(lengths):
@@ -139,7 +136,6 @@ def _tarrowby_elements(lengths):
     return e
 
 
-
 def _knots(elements):
     """Piecewise-linear curvature as knots (s, kappa) and each element's span."""
     s_knots, k_knots, spans = [0.0], [0.0], []
@@ -159,7 +155,6 @@ def _knots(elements):
     return np.array(s_knots), np.array(k_knots), spans
 
 
-
 def _integrate(s_knots, k_knots, step_m):
     """Heading and position by the trapezoidal rule on a fine grid from the knots."""
     length = s_knots[-1]
@@ -171,7 +166,6 @@ def _integrate(s_knots, k_knots, step_m):
     x = np.concatenate([[0.0], np.cumsum(0.5 * (np.cos(psi[1:]) + np.cos(psi[:-1])) * ds)])
     y = np.concatenate([[0.0], np.cumsum(0.5 * (np.sin(psi[1:]) + np.sin(psi[:-1])) * ds)])
     return s, k, psi, x, y
-
 
 
 def _close(elements_of, lengths, hold_name, hold_kappa, straights, turn_rad, step_m):
@@ -194,7 +188,6 @@ def _close(elements_of, lengths, hold_name, hold_kappa, straights, turn_rad, ste
     if min(lengths.values()) <= 0.0:  # design error
         raise ValueError(f"circuit closure gave a non-positive length: {lengths}")
     return lengths
-
 
 
 def demo_circuit(spacing_m: float = 1.0, *, elevation: bool = True) -> Circuit:
@@ -266,7 +259,6 @@ def demo_circuit(spacing_m: float = 1.0, *, elevation: bool = True) -> Circuit:
         pit_exit_m=90.0,
         pit_entry_m=length - 120.0,
     )
-
 
 
 def circle_circuit(radius_m: float = 100.0, spacing_m: float = 1.0) -> Circuit:

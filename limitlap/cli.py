@@ -100,7 +100,9 @@ def _kmh(v_m_s: float) -> float:
 
 @app.command()
 def solve(
-    line: Path = typer.Argument(..., help="Line file: 'x [m], y [m]' or 'distance [m], curvature [1/m]'."),
+    line: Path = typer.Argument(
+        ..., help="Line file: 'x [m], y [m]' or 'distance [m], curvature [1/m]'."
+    ),
     vehicle: Path = typer.Option(..., "--vehicle", help="Vehicle TOML file with a [grip] table."),
     grip: str = typer.Option(None, "--grip", help="Grip scale k, 0.2-2.0 (wet < 1)."),
     as_json: bool = typer.Option(False, "--json", help="Print JSON on stdout."),
@@ -206,7 +208,9 @@ def _gate_option():
 def laps(
     log: Path = typer.Argument(..., help="Session log (CSV, optionally .csv.gz)."),
     gate: str = _gate_option(),
-    channels: Path = typer.Option(None, "--channels", help="Channel-map TOML for other column names."),
+    channels: Path = typer.Option(
+        None, "--channels", help="Channel-map TOML for other column names."
+    ),
     track: Path = typer.Option(None, "--track", help="Track TOML (gate, corner names)."),
     as_json: bool = typer.Option(False, "--json", help="Print JSON on stdout."),
 ) -> None:
@@ -248,8 +252,14 @@ def _analyse_one(log, vehicle, k, lap, gate, channels, track, out, quiet, figure
     bar = _Progress(quiet, log.name if hasattr(log, "name") else str(log))
     try:
         analysis = pipeline.analyse(
-            log, vehicle=vehicle, grip_scale=k, lap=lap, gate=gate, channels=channels,
-            track=track, progress=bar,
+            log,
+            vehicle=vehicle,
+            grip_scale=k,
+            lap=lap,
+            gate=gate,
+            channels=channels,
+            track=track,
+            progress=bar,
         )
         analysis = dataclasses.replace(analysis, warnings=[worded(w) for w in analysis.warnings])
         written = outputs.write_outputs(analysis, out, figures=figures, progress=bar)
@@ -266,14 +276,20 @@ def _analyse_batch(logs, out, quiet, scheduler, **options) -> None:
     bar = _Progress(quiet, "logs")
     try:
         rows = batch.run_batch(
-            found, out, scheduler=scheduler, on_done=lambda row, done, total: bar(done, total, Path(row.log).name),
-            wording=worded, **options,
+            found,
+            out,
+            scheduler=scheduler,
+            on_done=lambda row, done, total: bar(done, total, Path(row.log).name),
+            wording=worded,
+            **options,
         )
     finally:
         bar.close()
     for row in rows:
         for w in row.warnings:  # each line names its log
-            typer.echo(f"limitlap: warning: {w if w.startswith(row.log) else f'{row.log}: {w}'}", err=True)
+            typer.echo(
+                f"limitlap: warning: {w if w.startswith(row.log) else f'{row.log}: {w}'}", err=True
+            )
     typer.echo(batch.format_batch_table(rows))
     table = outputs.write_atomic(Path(out) / "batch.csv", batch.batch_csv_text(rows))
     typer.echo(f"\nwritten to {out}/: one folder per log, {table.name}")
@@ -284,18 +300,30 @@ def _analyse_batch(logs, out, quiet, scheduler, **options) -> None:
 
 @app.command()
 def analyse(
-    log: list[Path] = typer.Argument(..., help="Session log(s) (CSV, optionally .csv.gz), or folders of logs."),
-    vehicle: Path = typer.Option(None, "--vehicle", help="Vehicle TOML; without [grip] the envelope is fitted."),
+    log: list[Path] = typer.Argument(
+        ..., help="Session log(s) (CSV, optionally .csv.gz), or folders of logs."
+    ),
+    vehicle: Path = typer.Option(
+        None, "--vehicle", help="Vehicle TOML; without [grip] the envelope is fitted."
+    ),
     grip: str = typer.Option(None, "--grip", help="Grip scale k for the ideal, 0.2-2.0."),
     lap: int = typer.Option(None, "--lap", help="Lap number; default the fastest complete lap."),
     gate: str = _gate_option(),
-    channels: Path = typer.Option(None, "--channels", help="Channel-map TOML for other column names."),
+    channels: Path = typer.Option(
+        None, "--channels", help="Channel-map TOML for other column names."
+    ),
     track: Path = typer.Option(None, "--track", help="Track TOML (gate, corner names)."),
     out: Path = typer.Option(Path("limitlap-out"), "--out", help="Output folder."),
-    no_figures: bool = typer.Option(False, "--no-figures", help="Skip the PNG figures and their report panels."),
+    no_figures: bool = typer.Option(
+        False, "--no-figures", help="Skip the PNG figures and their report panels."
+    ),
     quiet: bool = typer.Option(False, "--quiet", help="No progress display."),
-    workers: int = typer.Option(None, "--workers", min=1, help="Several logs: worker processes (default one per core)."),
-    scheduler: str = typer.Option(None, "--scheduler", help="Several logs: Dask scheduler address (limitlap[dask])."),
+    workers: int = typer.Option(
+        None, "--workers", min=1, help="Several logs: worker processes (default one per core)."
+    ),
+    scheduler: str = typer.Option(
+        None, "--scheduler", help="Several logs: Dask scheduler address (limitlap[dask])."
+    ),
 ) -> None:
     """The whole job on one log: laps, line, envelope, ideal lap, corner comparison, report.
 
@@ -307,12 +335,24 @@ def analyse(
     k = _grip(grip)
     if len(log) > 1 or log[0].is_dir() or scheduler is not None:
         _analyse_batch(
-            log, out, quiet, scheduler, vehicle=vehicle, grip_scale=k, lap=lap, gate=gate,
-            channels=channels, track=track, figures=not no_figures, workers=workers,
+            log,
+            out,
+            quiet,
+            scheduler,
+            vehicle=vehicle,
+            grip_scale=k,
+            lap=lap,
+            gate=gate,
+            channels=channels,
+            track=track,
+            figures=not no_figures,
+            workers=workers,
         )
         return
     log = log[0]
-    analysis, written = _analyse_one(log, vehicle, k, lap, gate, channels, track, out, quiet, not no_figures)
+    analysis, written = _analyse_one(
+        log, vehicle, k, lap, gate, channels, track, out, quiet, not no_figures
+    )
     _warn(analysis.warnings)
     typer.echo(_corner_table(analysis))
     typer.echo(f"\nwritten to {out}/: " + ", ".join(sorted(Path(p).name for p in written.values())))
@@ -321,14 +361,22 @@ def analyse(
 
 @app.command()
 def targets(
-    source: Path = typer.Argument(..., help="Line file, or a log (its fastest complete lap's line)."),
-    vehicle: Path = typer.Option(..., "--vehicle", help="Vehicle TOML with [grip], or a fitted envelope.toml."),
-    grip: list[str] = typer.Option(..., "--grip", help="Grip scale 0.2-2.0 or dry/damp/wet; repeat for more."),
+    source: Path = typer.Argument(
+        ..., help="Line file, or a log (its fastest complete lap's line)."
+    ),
+    vehicle: Path = typer.Option(
+        ..., "--vehicle", help="Vehicle TOML with [grip], or a fitted envelope.toml."
+    ),
+    grip: list[str] = typer.Option(
+        ..., "--grip", help="Grip scale 0.2-2.0 or dry/damp/wet; repeat for more."
+    ),
     lap: int = typer.Option(None, "--lap", help="Lap of a log to take the line from."),
     gate: str = _gate_option(),
     channels: Path = typer.Option(None, "--channels", help="Channel-map TOML for a log."),
     track: Path = typer.Option(None, "--track", help="Track TOML (gate, corner names)."),
-    out: Path = typer.Option(None, "--out", help="Also write CSV and printable sheets (PDF, PNG) here."),
+    out: Path = typer.Option(
+        None, "--out", help="Also write CSV and printable sheets (PDF, PNG) here."
+    ),
     as_json: bool = typer.Option(False, "--json", help="Print JSON on stdout."),
 ) -> None:
     """Target sheet per corner for one or more grip scales (dry, damp, wet)."""
@@ -343,7 +391,9 @@ def targets(
             targets_mod.resolve_condition(g)
         except LimitlapError as err:
             raise InputError("--grip", str(err)) from None
-    line, where = pipeline.line_from_source(source, lap=lap, gate=gate, channels=channels, track=track)
+    line, where = pipeline.line_from_source(
+        source, lap=lap, gate=gate, channels=channels, track=track
+    )
     trk = ingest.read_track(track) if track is not None else None
     names = list(trk.corner_names) if trk is not None and trk.corner_names else None
     apexes = list(trk.corner_apexes_m) if names else None
@@ -380,7 +430,9 @@ def demo(
     _warn(analysis.warnings)
     typer.echo(_corner_table(analysis))
     corners = analysis.corners
-    conditions = targets_mod.target_tables(analysis.driven.line, analysis.vehicle, ["dry", "damp", "wet"], corners)
+    conditions = targets_mod.target_tables(
+        analysis.driven.line, analysis.vehicle, ["dry", "damp", "wet"], corners
+    )
     sheets.write_target_sheets(conditions, out, analysis.track_name or "demo circuit")
     for cond in conditions:
         typer.echo("")
@@ -428,8 +480,7 @@ def run() -> None:
 
 
 def format_laps_table(laps) -> str:
-    """The lap table as text: number, time m:ss.sss, distance, complete or why not; the
-    fastest marked."""
+    """The lap table as text: number, time m:ss.sss, distance, complete or why not; the fastest marked."""
     lines = [f"{'lap':>4}  {'time':>9}  {'distance':>10}  status"]
     from limitlap.formatting import lap_time
     from limitlap.laps import laps_table

@@ -296,8 +296,7 @@ def advice_line(name, time_left_s, brake_later_m, min_speed_gain_m_s, full_drive
 
 
 def _driven_channels(driven, line: Line):
-    """Speed, a_x, a_y of the real lap; a missing sample of a_x / a_y is filled from speed
-    and curvature (a_x = v dv/ds, a_y = kappa v^2)."""
+    """Speed, a_x, a_y of the real lap; a missing sample of a_x / a_y is filled from speed and curvature (a_x = v dv/ds, a_y = kappa v^2)."""
     v = np.asarray(driven.speed_m_s, dtype=np.float64)
     if not np.isfinite(v).any():
         raise LimitlapError("the real lap has no speed")
@@ -444,7 +443,7 @@ def compare_lap(
 
 
 def _brake_threshold(brake):
-    """Brake pressure that counts as braking: a share of the lap's 99th percentile. [Pa]"""
+    """Brake pressure that counts as braking: a share of the lap's 99th percentile. [Pa]."""
     if brake is None:
         return None
     p99 = float(np.nanquantile(brake, 0.99))
@@ -502,7 +501,7 @@ def _ideal_trace(ideal: Profile, line: Line, env: Vehicle, sin_grad) -> Trace:
 
 
 def _phase_cuts(c: Corner, mi, start_u: float, end_u: float, length: float, closed: bool):
-    """Where the ideal stops braking and where it reaches full drive (unwrapped). [m]"""
+    """Where the ideal stops braking and where it reaches full drive (unwrapped). [m]."""
     cut_a = mi.brake_end
     if not math.isfinite(cut_a):
         cut_a = unwrap_after(c.turn_in_m, start_u, length, closed)
@@ -614,10 +613,6 @@ def _grip_estimates(t, lap_time, v, ax, ay, vehicle: Vehicle, line: Line, corner
     except LimitlapError:
         overall = None
     seg = segment_index(dg, line.length_m, corners, line.closed)
-    per = grip.grip_estimate_by_segment(
-        vg, axg, ayg, vehicle, seg, sample_rate_hz=GRIP_RESAMPLE_HZ
-    )
+    per = grip.grip_estimate_by_segment(vg, axg, ayg, vehicle, seg, sample_rate_hz=GRIP_RESAMPLE_HZ)
     per = np.concatenate([per, np.full(max(0, len(corners) - per.shape[0]), np.nan)])
     return overall, [None if not math.isfinite(x) else float(x) for x in per[: len(corners)]]
-
-

@@ -29,20 +29,16 @@ from limitlap.line import Line
 SMOOTHING_M = 8.0
 
 
-
 #: A bend starts where |curvature| exceeds this (radius under 250 m)... [1/m]
 ENTER_CURVATURE_1_M = 1.0 / 250.0
-
 
 
 #: ... and lasts while |curvature| stays above this (radius under 500 m). [1/m]
 LEAVE_CURVATURE_1_M = 1.0 / 500.0
 
 
-
 #: A bend must change the heading by at least this much to count (15°). [rad]
 MIN_TURN_RAD = math.radians(15.0)
-
 
 
 #: A second apex inside one bend needs a dip of |curvature| before it of at least this
@@ -50,10 +46,8 @@ MIN_TURN_RAD = math.radians(15.0)
 APEX_PROMINENCE = 0.3
 
 
-
 #: Same-direction bends closer than this form one corner with two apexes. [m]
 MERGE_GAP_M = 50.0
-
 
 
 @dataclass(frozen=True)
@@ -91,7 +85,6 @@ class Corner:
     peak_curvature_1_m: float
 
 
-
 def smoothed_curvature(line: Line, smoothing_m: float = SMOOTHING_M) -> np.ndarray:
     """Curvature smoothed by a Gaussian of standard deviation ``smoothing_m``.
 
@@ -121,14 +114,12 @@ def smoothed_curvature(line: Line, smoothing_m: float = SMOOTHING_M) -> np.ndarr
     return gaussian_filter1d(kappa, sigma, mode="wrap" if line.closed else "nearest")
 
 
-
 def _runs(values: np.ndarray) -> list[tuple[int, int]]:
     """Inclusive index ranges of equal consecutive values."""
     change = np.flatnonzero(np.diff(values) != 0) + 1
     starts = np.concatenate([[0], change])
     ends = np.concatenate([change - 1, [values.shape[0] - 1]])
     return list(zip(starts.tolist(), ends.tolist(), strict=True))
-
 
 
 def plateau_middle(values: np.ndarray, i: int, tol: float) -> int:
@@ -141,7 +132,6 @@ def plateau_middle(values: np.ndarray, i: int, tol: float) -> int:
     while hi < values.shape[0] - 1 and near[hi + 1]:
         hi += 1
     return (lo + hi) // 2
-
 
 
 def peak_prominences(x):
@@ -193,7 +183,6 @@ def peak_prominences(x):
         hi = p + 1 + higher_right[0] if higher_right.size else n
         prom[k] = x[p] - max(x[lo : p + 1].min(), x[p:hi].min())
     return peaks, prom
-
 
 
 def find_corners(
@@ -356,7 +345,7 @@ def _merge_bends(zones: list, merge_gap_m: float, length: float, closed: bool) -
 
 
 def _segment_bounds(merged: list, length: float, closed: bool):
-    """Segment starts and ends, halfway along the straights between the bends. [m]"""
+    """Segment starts and ends, halfway along the straights between the bends. [m]."""
     m = len(merged)
     if closed:
         bounds = np.empty(m)
@@ -428,7 +417,6 @@ def _renamed(c: Corner, name: str) -> Corner:
     return replace(c, name=name)
 
 
-
 def _place_named_apexes(zones, named, u, idx, mag, ks, length, closed, slack_m=10.0, snap_m=15.0):
     """Attach (apex_m, name) pairs to curvature zones; make zones for unmatched apexes.
 
@@ -473,7 +461,6 @@ def _place_named_apexes(zones, named, u, idx, mag, ks, length, closed, slack_m=1
             mid = 0.5 * (q[0] + p[1])
             p[1], q[0] = mid, mid
     return zones
-
 
 
 def segment_index(distance_m, length_m: float, corners: Sequence[Corner], closed=True):

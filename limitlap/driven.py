@@ -119,7 +119,7 @@ class CurvatureCheck:
 
     @property
     def available(self) -> bool:
-        """Whether either channel gave a curvature anywhere. [-]"""
+        """Whether either channel gave a curvature anywhere. [-]."""
         return bool(
             np.isfinite(self.from_accel_lat_1_m).any() or np.isfinite(self.from_yaw_rate_1_m).any()
         )
@@ -249,10 +249,10 @@ def smooth_heading(dt_s, rate_rad_s, rate_var, fix_index, course_rad, course_var
 
 
 def smooth_track(dt_s, step_m, fix_index, fix_m, fix_var):
-    """Position along one axis at every row: dead reckoning steps fused with fixes (RTS).
+    r"""Position along one axis at every row: dead reckoning steps fused with fixes (RTS).
 
-    Minimises :math:`\\sum_k (p_{k+1}-p_k-\\delta_k)^2/(q_p\\Delta t_k) + \\sum_j
-    (p_{i_j}-z_j)^2/\\sigma_z^2` (tridiagonal normal equations).
+    Minimises :math:`\sum_k (p_{k+1}-p_k-\delta_k)^2/(q_p\Delta t_k) + \sum_j
+    (p_{i_j}-z_j)^2/\sigma_z^2` (tridiagonal normal equations).
 
     Parameters
     ----------
@@ -569,7 +569,7 @@ def _heading(rows: _LapRows, rate, rate_var, used):
 
 
 def _positions(rows: _LapRows, psi):
-    """Step 4: east and north by the smoother on the fixes, and distance per row. [m]"""
+    """Step 4: east and north by the smoother on the fixes, and distance per row. [m]."""
     dt, v = rows.dt, rows.v
     fi = np.flatnonzero(rows.fix)
     vm = 0.5 * (v[1:] + v[:-1]) * dt
@@ -632,8 +632,10 @@ def _closed_line(log, lap, rows, psi, px, py, s_row, spacing_m, used):
 
 
 def _closed_curvature(psi_c, turns, ds, length):
-    """Curvature of the closed heading: centred differences, periodic Gaussian smoothing,
-    then shifted so the lap turns a whole number of turns exactly. [1/m]"""
+    """Curvature of the closed heading: centred differences, periodic Gaussian smoothing, then shifted so the lap turns a whole number of turns exactly.
+
+    [1/m].
+    """
     loop = psi_c[:-1]
     ahead = np.append(loop[1:], psi_c[-1])
     behind = np.insert(loop[:-1], 0, psi_c[-2] - 2 * math.pi * turns)
@@ -702,7 +704,10 @@ def _curvature_check(speed, accel_lat, yaw_rate, ds) -> CurvatureCheck:
 def _agreement(log, lap, kappa, k_gnss, check: CurvatureCheck, warnings):
     """Step 8: how the line's and the GNSS path's curvature agree with each channel's."""
     agreement: dict = {}
-    for name, other in (("accel_lat", check.from_accel_lat_1_m), ("yaw_rate", check.from_yaw_rate_1_m)):
+    for name, other in (
+        ("accel_lat", check.from_accel_lat_1_m),
+        ("yaw_rate", check.from_yaw_rate_1_m),
+    ):
         if not log.has(name):
             continue
         for which, kap in (("line", kappa), ("gnss", k_gnss)):
@@ -745,7 +750,7 @@ def line_csv_text(line: Line) -> str:
 
 
 def elapsed_from_gate(driven):
-    """Elapsed time from the gate at each station, and the lap time. [s]"""
+    """Elapsed time from the gate at each station, and the lap time. [s]."""
     t = np.asarray(driven.time_s, dtype=np.float64)
     if not np.isfinite(t).all():
         raise LimitlapError("the real lap's time has gaps")

@@ -216,8 +216,15 @@ def _tyre_and_power_shares(v, ax, ay, veh, work=None):
     work = np.empty((5, v.shape[0])) if work is None else work
     tyre, tyre_y, sx, sy, power = work
     _kernels.tyre_plane_parts(
-        v, np.ascontiguousarray(ax, dtype=np.float64), np.ascontiguousarray(ay, dtype=np.float64),
-        vehicle_array(veh), tyre, tyre_y, sx, sy, power,
+        v,
+        np.ascontiguousarray(ax, dtype=np.float64),
+        np.ascontiguousarray(ay, dtype=np.float64),
+        vehicle_array(veh),
+        tyre,
+        tyre_y,
+        sx,
+        sy,
+        power,
     )
     n = veh.exponent
     np.power(tyre, n, out=tyre)
@@ -228,7 +235,7 @@ def _tyre_and_power_shares(v, ax, ay, veh, work=None):
 
 
 def _residuals(v, ax, ay, veh):
-    """Radial distance of points from the envelope in the tyre-force plane. [m/s²]
+    """Radial distance of points from the envelope in the tyre-force plane. [m/s²].
 
     Combined usage u is homogeneous of degree 1 along a ray from the tyre-force
     origin (F_x,max depends only on the sign of F_x), so the envelope crosses the ray
@@ -357,7 +364,7 @@ def fit_envelope(
     selection: Selection | None = None,
     remove_noise: bool = True,
 ) -> EnvelopeFit:
-    """Fit the g-g-V envelope of docs/formats.md, Vehicle files to the samples a driver demonstrated.
+    r"""Fit the g-g-V envelope of docs/formats.md, Vehicle files to the samples a driver demonstrated.
 
     Parameters
     ----------
@@ -539,7 +546,9 @@ class _FitProblem:
         self.n_angle_bins, self.min_bin_samples = n_angle_bins, min_bin_samples
         self.loss_scale_m_s2 = loss_scale_m_s2
         self.edges = np.arange(min_speed_m_s, v.max() + band_width_m_s, band_width_m_s)
-        self.band = np.clip(np.searchsorted(self.edges, v, side="right") - 1, 0, self.edges.size - 2)
+        self.band = np.clip(
+            np.searchsorted(self.edges, v, side="right") - 1, 0, self.edges.size - 2
+        )
         veh, start, p_demo = _provisional(v, ax, ay, base, quantile)
         names = list(_PARAMS[:4]) + [k for k in _PARAMS[4:] if getattr(base, k) is None]
         x0 = np.array([getattr(veh, k) if k not in start else start[k] for k in names])
@@ -709,8 +718,9 @@ _MIN_TAIL_SAMPLES = 100
 
 
 def _noise_offsets(v, ax, ay, veh, noise, quantile, tyre, power):
-    r"""How far the sensor noise lifts the boundary points above the tyre limit and above
-    the power line. [m/s²]
+    r"""How far the sensor noise lifts the boundary points above the tyre limit and above the power line.
+
+    [m/s²].
 
     Samples on a limit with noise of standard deviation :math:`\sigma` (the filtered
     noise, :attr:`Selection.noise_m_s2`) scatter about it as :math:`N(0, \sigma^2)`; an
@@ -742,13 +752,15 @@ def _noise_offsets(v, ax, ay, veh, noise, quantile, tyre, power):
     if math.isfinite(veh.power_w):
         beyond = np.flatnonzero(power > 1.0)
         if beyond.size >= _MIN_TAIL_SAMPLES:
-            excess = (power[beyond] - 1.0) * veh.power_w / (veh.mass_kg * np.maximum(v[beyond], 1e-3))
+            excess = (
+                (power[beyond] - 1.0) * veh.power_w / (veh.mass_kg * np.maximum(v[beyond], 1e-3))
+            )
             b_power = _lift_from_tail(excess, noise, quantile)
     return b_tyre, b_power
 
 
 def _lift_from_tail(r, noise, quantile):
-    """:func:`_noise_offsets`' lift b from the distances r > 0 beyond a limit. [m/s²]"""
+    """:func:`_noise_offsets`' lift b from the distances r > 0 beyond a limit. [m/s²]."""
     mean_out = float(np.mean(r))
     normal = NormalDist()
     top = normal.inv_cdf(quantile)
@@ -791,4 +803,3 @@ def _plausibility(veh, v, names, uncertainty):
                 f"{uncertainty[k]:.2g}); give it in the vehicle file if known"
             )
     return out
-

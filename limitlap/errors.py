@@ -105,6 +105,7 @@ class WarningLine(str):
     value: float | None
 
     def __new__(cls, fact: str, hint: str | None = None, value: float | None = None):
+        """The fact, with the library's own advice for ``hint`` appended."""
         text = fact if hint is None else fact + HINTS[hint].format(value=value)
         line = super().__new__(cls, text)
         line.fact, line.hint, line.value = fact, hint, value

@@ -142,12 +142,12 @@ _LABEL_PX = 22  # an 11 pt axis label and its 4 pt pad
 
 
 def _pt(points: float) -> float:
-    """Points as pixels at the figures' resolution. [px]"""
+    """Points as pixels at the figures' resolution. [px]."""
     return points * DPI / 72.0
 
 
 def _y_ticks(lo, hi, height_px):
-    """y tick values and labels for a panel of this height (matplotlib's default rule)."""
+    """Y tick values and labels for a panel of this height (matplotlib's default rule)."""
     from limitlap._canvas import auto_bins, nice_ticks, tick_labels
 
     values = nice_ticks(lo, hi, auto_bins(height_px, _FONT_PT, 2.0, DPI))
@@ -155,7 +155,7 @@ def _y_ticks(lo, hi, height_px):
 
 
 def _left_margin(c, labels, pad_px: float = 6.0) -> float:
-    """Left margin that holds the widest y tick label and the y axis label. [px]"""
+    """Left margin that holds the widest y tick label and the y axis label. [px]."""
     return c.text_width(labels, _FONT_PT) + _TICK_PX + _LABEL_PX + pad_px
 
 
@@ -198,8 +198,7 @@ def _corner_bands(p, corners) -> None:
 
 
 def _corner_names(p, corners, label_y) -> None:
-    """Each corner's name above its apex; a name that would touch the one before it on
-    its line goes up a line (measured in pixels, 4 px apart)."""
+    """Each corner's name above its apex; a name that would touch the one before it on its line goes up a line (measured in pixels, 4 px apart)."""
     ends = [-math.inf, -math.inf]  # right end of the last name on each line [px]
     for c in corners:
         x = float(p.px(c["apex_m"]))
@@ -220,8 +219,7 @@ def _corner_names(p, corners, label_y) -> None:
 
 
 def _lap_panel(c, s, ylim, *, right=22, top=30, bottom=52):
-    """A panel over the lap's distance, its left margin fitted to its y tick labels;
-    returns (panel, x ticks, y ticks)."""
+    """A panel over the lap's distance, its left margin fitted to its y tick labels; returns (panel, x ticks, y ticks)."""
     from limitlap._canvas import Panel
 
     height = c.height - top - bottom
@@ -419,7 +417,15 @@ def time_left_figure(corners) -> bytes:
     p.barh(y, values, colours, height=0.7)
     p.vline(0.0, EDGE, 0.8)
     for yi, v in zip(y, values, strict=True):
-        p.text(max(v, 0.0), yi, f"{hundredths(v):+.2f} s", dx=_pt(4), size_pt=9, colour=INK, va="center")
+        p.text(
+            max(v, 0.0),
+            yi,
+            f"{hundredths(v):+.2f} s",
+            dx=_pt(4),
+            size_pt=9,
+            colour=INK,
+            va="center",
+        )
     p.frame(colour=EDGE)
     below = p.xticks(xt, size_pt=_FONT_PT, colour=INK)
     p.yticks(y, names, size_pt=name_pt, colour=INK)
@@ -479,8 +485,7 @@ def _loss_colours():
 
 
 def _extent(k, lo, hi, anchors, half):
-    """(low edge, spread) [px] of the padded line extent [lo, hi] [m] and of the name
-    boxes (anchors [m] +- half [px]) at a scale of ``k`` px/m."""
+    """(low edge, spread) [px] of the padded line extent [lo, hi] [m] and of the name boxes (anchors [m] +- half [px]) at a scale of ``k`` px/m."""
     a = np.concatenate([[lo, hi], np.asarray(anchors, dtype=np.float64)])
     w = np.concatenate([[0.0, 0.0], np.asarray(half, dtype=np.float64)])
     low = float(np.min(k * a - w))
@@ -488,8 +493,7 @@ def _extent(k, lo, hi, anchors, half):
 
 
 def _fit_scale(lo, hi, anchors, half, length_px):
-    """Largest scale [px/m] at which the padded line extent and the name boxes fit in
-    ``length_px`` (see :func:`_extent`); their spread grows with the scale, so bisect."""
+    """Largest scale [px/m] at which the padded line extent and the name boxes fit in ``length_px`` (see :func:`_extent`); their spread grows with the scale, so bisect."""
     k_lo, k_hi = 0.0, length_px / max(hi - lo, 1e-9)
     if _extent(k_hi, lo, hi, anchors, half)[1] <= length_px:
         return k_hi
@@ -505,8 +509,7 @@ def _fit_scale(lo, hi, anchors, half, length_px):
 
 
 def _arrow(c, x0, y0, x1, y1, colour, lw_pt):
-    """An open arrow from (x0, y0) to (x1, y1) [px], ends 2 pt short, head 4.4 pt long
-    and 2.2 pt each side (matplotlib's "->" at 11 pt)."""
+    """An open arrow from (x0, y0) to (x1, y1) [px], ends 2 pt short, head 4.4 pt long and 2.2 pt each side (matplotlib's "->" at 11 pt)."""
     length = math.hypot(x1 - x0, y1 - y0)
     if length < 1e-9:
         return

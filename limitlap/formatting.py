@@ -53,7 +53,7 @@ def lap_time(time_s, decimals: int = 3) -> str:
 
 
 def hundredths(time_s: float) -> float:
-    """A time as shown to 0.01 s: exactly 0 when it rounds to 0.00, so no "-0.00". [s]
+    """A time as shown to 0.01 s: exactly 0 when it rounds to 0.00, so no "-0.00". [s].
 
     >>> hundredths(-0.004), hundredths(-0.012)
     (0.0, -0.012)

@@ -61,7 +61,9 @@ class GGBand:
     unused_share: float
 
 
-def gg_bands(speed_m_s, accel_lon_m_s2, accel_lat_m_s2, vehicle: Vehicle, grip_scale=1.0, bands=None):
+def gg_bands(
+    speed_m_s, accel_lon_m_s2, accel_lat_m_s2, vehicle: Vehicle, grip_scale=1.0, bands=None
+):
     """The lap's samples against the envelope in each speed band.
 
     Parameters
@@ -159,7 +161,6 @@ def ray_reach(poly_x, poly_y, angles):
     return out
 
 
-
 def convex_hull(points_x, points_y):
     """Convex hull polygon of the points, or None for fewer than 3 non-collinear points."""
     pts = np.column_stack([points_x, points_y])
@@ -174,7 +175,6 @@ def convex_hull(points_x, points_y):
         return None
     v = pts[hull.vertices]
     return v[:, 0], v[:, 1]
-
 
 
 def speed_bands_m_s(speed_m_s, n_bands: int = 3):

@@ -21,25 +21,20 @@ if TYPE_CHECKING:
 _DROPOUT_INTERVALS = 3.0
 
 
-
 #: Shortest gap reported as a dropout whatever the GPS rate. [s] Common practice.
 _DROPOUT_MIN_S = 0.5
-
 
 
 #: A gap over which the car moved less than this is not a dropout (parked car). [m]
 _DROPOUT_MIN_TRAVEL_M = 5.0
 
 
-
 #: Longest dropout bridged from speed and yaw rate (issue: "about 2 s"). [s]
 BRIDGE_MAX_S = 2.0
 
 
-
 #: Speed below which a_y / v is too noisy to use as a yaw rate. [m/s] Common practice.
 _YAW_FROM_AY_MIN_SPEED_M_S = 3.0
-
 
 
 @dataclass(frozen=True)
@@ -64,9 +59,8 @@ class Dropout:
 
     @property
     def duration_s(self) -> float:
-        """Length of the gap. [s]"""
+        """Length of the gap. [s]."""
         return self.end_time_s - self.start_time_s
-
 
 
 def to_enu(lat, lon, altitude, fix):
@@ -88,11 +82,9 @@ def to_enu(lat, lon, altitude, fix):
     return x, y, origin
 
 
-
 def fix_rows(log: Log) -> np.ndarray:
     """Rows with a new GPS fix (a value held from the previous fix is not new)."""
     return log.remembered("fix_rows", _compute_fix_rows)
-
 
 
 def _compute_fix_rows(log: Log) -> np.ndarray:
@@ -104,14 +96,12 @@ def _compute_fix_rows(log: Log) -> np.ndarray:
     return rows
 
 
-
 def travelled_m(log: Log) -> np.ndarray:
-    """Distance travelled since the first row, trapezoidal integral of ``speed``. [m]
+    """Distance travelled since the first row, trapezoidal integral of ``speed``. [m].
 
     Blank speed cells are filled by linear interpolation in time.
     """
     return log.remembered("travelled_m", _compute_travelled_m)
-
 
 
 def _compute_travelled_m(log: Log) -> np.ndarray:
@@ -124,8 +114,9 @@ def _compute_travelled_m(log: Log) -> np.ndarray:
     # same order as numpy's, so the same bits; tested) instead of four full-length arrays
     from limitlap import _kernels
 
-    return _kernels.trapezoid_running(np.ascontiguousarray(t), np.ascontiguousarray(v, dtype=np.float64))
-
+    return _kernels.trapezoid_running(
+        np.ascontiguousarray(t), np.ascontiguousarray(v, dtype=np.float64)
+    )
 
 
 def gps_dropouts(log: Log, bridge_s: float = BRIDGE_MAX_S) -> list[Dropout]:
@@ -147,8 +138,11 @@ def gps_dropouts(log: Log, bridge_s: float = BRIDGE_MAX_S) -> list[Dropout]:
     list of Dropout
         In time order.
     """
-    return list(log.remembered(("gps_dropouts", float(bridge_s)), lambda lg: _compute_dropouts(lg, bridge_s)))
-
+    return list(
+        log.remembered(
+            ("gps_dropouts", float(bridge_s)), lambda lg: _compute_dropouts(lg, bridge_s)
+        )
+    )
 
 
 def _compute_dropouts(log: Log, bridge_s: float) -> tuple[Dropout, ...]:
@@ -164,17 +158,20 @@ def _compute_dropouts(log: Log, bridge_s: float) -> tuple[Dropout, ...]:
         (gap > max(_DROPOUT_INTERVALS * nominal, _DROPOUT_MIN_S)) & (moved >= _DROPOUT_MIN_TRAVEL_M)
     )
     return tuple(
-        Dropout(int(rows[k]), int(rows[k + 1]), float(t[k]), float(t[k + 1]), bool(gap[k] <= bridge_s))
+        Dropout(
+            int(rows[k]), int(rows[k + 1]), float(t[k]), float(t[k + 1]), bool(gap[k] <= bridge_s)
+        )
         for k in idx
     )
 
 
-
 def dropout_warnings(log: Log, rows: np.ndarray) -> list[str]:
+    """One warning line per GPS dropout of the log, with its spreadsheet row."""
     out = []
     for d in gps_dropouts(log):
         what = (
-            "bridged from speed and yaw rate" if d.bridged
+            "bridged from speed and yaw rate"
+            if d.bridged
             else f"longer than {BRIDGE_MAX_S:g} s: the lap holding it is not complete"
         )
         out.append(
@@ -182,7 +179,6 @@ def dropout_warnings(log: Log, rows: np.ndarray) -> list[str]:
             f"{rows[d.end_index]} ({d.start_time_s:.2f}-{d.end_time_s:.2f} s); {what}"
         )
     return out
-
 
 
 def _yaw_rate_rad_s(log: Log) -> np.ndarray | None:
@@ -200,7 +196,6 @@ def _yaw_rate_rad_s(log: Log) -> np.ndarray | None:
             # Steady turning: a_y = v * r (Milliken & Milliken 1995, §5.3); no side slip rate.
             return np.interp(t, t[ok], ay[ok] / v[ok])
     return None
-
 
 
 def fill_position(log: Log, bridge_s: float = BRIDGE_MAX_S) -> tuple[np.ndarray, np.ndarray]:
@@ -226,8 +221,9 @@ def fill_position(log: Log, bridge_s: float = BRIDGE_MAX_S) -> tuple[np.ndarray,
     x_m, y_m : numpy.ndarray
         East and north at every row (read-only: kept for the next caller). [m]
     """
-    return log.remembered(("fill_position", float(bridge_s)), lambda lg: _compute_fill(lg, bridge_s))
-
+    return log.remembered(
+        ("fill_position", float(bridge_s)), lambda lg: _compute_fill(lg, bridge_s)
+    )
 
 
 def _compute_fill(log: Log, bridge_s: float) -> tuple[np.ndarray, np.ndarray]:
@@ -260,7 +256,9 @@ def _compute_fill(log: Log, bridge_s: float) -> tuple[np.ndarray, np.ndarray]:
         heading0 += 0.5 * (t[d.start_index] - t[prev]) * yaw[d.start_index]
         tt = t[span]
         r = yaw[span]
-        heading = heading0 + np.concatenate(([0.0], np.cumsum(0.5 * (r[1:] + r[:-1]) * np.diff(tt))))
+        heading = heading0 + np.concatenate(
+            ([0.0], np.cumsum(0.5 * (r[1:] + r[:-1]) * np.diff(tt)))
+        )
         ds = np.diff(s[span])
         mid = 0.5 * (heading[1:] + heading[:-1])
         ex = x[d.start_index] + np.concatenate(([0.0], np.cumsum(ds * np.cos(mid))))

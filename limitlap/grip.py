@@ -24,7 +24,7 @@ from limitlap.vehicle import Vehicle
 
 
 def _grip_demand(speed_m_s, accel_lon_m_s2, accel_lat_m_s2, vehicle: Vehicle, margin=0.0):
-    """Required grip scale per sample; ``inf`` beyond ``(1 - margin)`` of the power limit. [-]"""
+    """Required grip scale per sample; ``inf`` beyond ``(1 - margin)`` of the power limit. [-]."""
     vehicle.require_complete()
     v = np.asarray(speed_m_s, dtype=np.float64)
     fx = vehicle.mass_kg * np.asarray(accel_lon_m_s2, dtype=np.float64) + resistance_n(v, vehicle)
@@ -34,7 +34,6 @@ def _grip_demand(speed_m_s, accel_lon_m_s2, accel_lat_m_s2, vehicle: Vehicle, ma
     return np.where(fx > (1.0 - margin) * power_force, np.inf, k_grip)
 
 
-
 #: Samples driving within this share of the power limit P/v (or beyond it) show the
 #: engine's limit, not the tyres': through a flat-out bend the tyres are not asked for
 #: their grip, so such samples are left out of the grip estimates, and a corner with no
@@ -42,7 +41,6 @@ def _grip_demand(speed_m_s, accel_lon_m_s2, accel_lat_m_s2, vehicle: Vehicle, ma
 #: 5 % is a few times the filtered acceleration noise of a logger at speed; common
 #: practice, no published source. [-]
 POWER_LIMIT_MARGIN = 0.05
-
 
 
 def required_grip_scale(speed_m_s, accel_lon_m_s2, accel_lat_m_s2, vehicle: Vehicle):
@@ -72,7 +70,6 @@ def required_grip_scale(speed_m_s, accel_lon_m_s2, accel_lat_m_s2, vehicle: Vehi
     return _grip_demand(speed_m_s, accel_lon_m_s2, accel_lat_m_s2, vehicle)
 
 
-
 def _prepare(speed_m_s, accel_lon_m_s2, accel_lat_m_s2, mask, min_speed_m_s, sample_rate_hz):
     sel = select_samples(
         speed_m_s,
@@ -83,7 +80,6 @@ def _prepare(speed_m_s, accel_lon_m_s2, accel_lat_m_s2, mask, min_speed_m_s, sam
         min_speed_m_s=min_speed_m_s,
     )
     return sel.speed_m_s, sel.accel_lon_m_s2, sel.accel_lat_m_s2, sel.used
-
 
 
 def grip_estimate(
@@ -146,7 +142,6 @@ def grip_estimate(
     if k.size == 0:
         raise LimitlapError("no samples within the power limit to estimate the grip scale from")
     return float(np.quantile(k, quantile))
-
 
 
 def grip_estimate_by_segment(

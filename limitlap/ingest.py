@@ -91,7 +91,9 @@ def read_vehicle(path, *, require_complete: bool = True) -> Vehicle:
                 raise InputError(path, f"missing key 'grip.{key}'")
             fields[field_name] = _number(path, f"grip.{key}", grip[key], may_be_zero=False)
         if fields["exponent"] < 1.0:
-            raise InputError(path, f"key 'grip.exponent' must be at least 1, got {fields['exponent']:g}")
+            raise InputError(
+                path, f"key 'grip.exponent' must be at least 1, got {fields['exponent']:g}"
+            )
     elif require_complete:
         raise InputError(path, "missing table [grip] (lateral, braking, traction, exponent)")
     return Vehicle(**fields)
@@ -127,7 +129,9 @@ def _read_numeric_csv(path):
             try:
                 value = float(cell)
             except ValueError:
-                raise InputError(path, f"'{cell}' is not a number", row=r, column=header[c]) from None
+                raise InputError(
+                    path, f"'{cell}' is not a number", row=r, column=header[c]
+                ) from None
             if not math.isfinite(value):
                 raise InputError(path, f"'{cell}' is not a finite number", row=r, column=header[c])
             row.append(value)
@@ -141,8 +145,7 @@ def _column_name(header_cell: str) -> tuple[str, str]:
 
 
 def read_line(path, *, spacing_m: float = 1.0) -> Line:
-    """Read a line file (docs/formats.md, Line files): ``x [m], y [m] (, z [m])`` or
-    ``distance [m], curvature [1/m] (, gradient [-])``.
+    """Read a line file (docs/formats.md, Line files): ``x [m], y [m] (, z [m])`` or ``distance [m], curvature [1/m] (, gradient [-])``.
 
     Returns
     -------
@@ -153,9 +156,18 @@ def read_line(path, *, spacing_m: float = 1.0) -> Line:
     cols = {}
     for i, cell in enumerate(header):
         name, unit = _column_name(cell)
-        expected = {"x": "m", "y": "m", "z": "m", "distance": "m", "curvature": "1/m", "gradient": "-"}
+        expected = {
+            "x": "m",
+            "y": "m",
+            "z": "m",
+            "distance": "m",
+            "curvature": "1/m",
+            "gradient": "-",
+        }
         if name in expected and unit not in ("", expected[name]):
-            raise InputError(path, f"unit '{unit}' not accepted, expected '{expected[name]}'", column=cell)
+            raise InputError(
+                path, f"unit '{unit}' not accepted, expected '{expected[name]}'", column=cell
+            )
         cols[name] = data[:, i]
     try:
         if "x" in cols and "y" in cols:
@@ -163,7 +175,9 @@ def read_line(path, *, spacing_m: float = 1.0) -> Line:
             if n < 4:
                 raise InputError(path, f"a closed line needs at least 4 points, found {n}")
             if self_intersects(cols["x"], cols["y"]):
-                raise InputError(path, "the line crosses itself; points must follow the driven loop in order")
+                raise InputError(
+                    path, "the line crosses itself; points must follow the driven loop in order"
+                )
             return line_from_xy(cols["x"], cols["y"], cols.get("z"), spacing_m=spacing_m)
         if "distance" in cols and "curvature" in cols:
             return line_from_curvature(cols["distance"], cols["curvature"], cols.get("gradient"))
@@ -248,6 +262,7 @@ def unit_key(channel: str, unit: str) -> str | None:
 
 
 def accepted_units(channel: str) -> str:
+    """The units a channel's header may give, as a list for a message."""
     return ", ".join(k or "(none)" for k in CHANNEL_UNITS[channel])
 
 
@@ -292,7 +307,9 @@ def read_channel_map(path) -> ChannelMap:
     data = _open_toml(path, "channel-map file")
     extra = sorted(set(data) - {"channels"})
     if extra:
-        raise InputError(path, f"unknown key '{extra[0]}'; a channel map holds [channels.NAME] tables")
+        raise InputError(
+            path, f"unknown key '{extra[0]}'; a channel map holds [channels.NAME] tables"
+        )
     tables = data.get("channels")
     if not isinstance(tables, dict) or not tables:
         raise InputError(path, "no [channels.NAME] tables")
@@ -307,7 +324,9 @@ def read_channel_map(path) -> ChannelMap:
             raise InputError(path, f"[{key}] must be a table (column, unit, invert)")
         unknown = sorted(set(entry) - {"column", "unit", "invert"})
         if unknown:
-            raise InputError(path, f"unknown key '{key}.{unknown[0]}' (expected column, unit, invert)")
+            raise InputError(
+                path, f"unknown key '{key}.{unknown[0]}' (expected column, unit, invert)"
+            )
         column = entry.get("column", name)
         if not isinstance(column, str) or not column.strip():
             raise InputError(path, f"key '{key}.column' must be a non-empty text, got {column!r}")
@@ -318,7 +337,8 @@ def read_channel_map(path) -> ChannelMap:
             resolved = unit_key(name, unit)
             if resolved is None:
                 raise InputError(
-                    path, f"key '{key}.unit': unknown unit '{unit}' (accepted: {accepted_units(name)})"
+                    path,
+                    f"key '{key}.unit': unknown unit '{unit}' (accepted: {accepted_units(name)})",
                 )
             unit = resolved
         invert = entry.get("invert", False)
@@ -353,8 +373,7 @@ class Track:
 
 
 def read_track(path) -> Track:
-    """Read a track file: ``name``, ``[gate] latitude/longitude``, ``[[corners]] name,
-    label, apex_m``, ``line`` (a line file beside it)."""
+    """Read a track file: ``name``, ``[gate] latitude/longitude``, ``[[corners]] name, label, apex_m``, ``line`` (a line file beside it)."""
     path = Path(path)
     data = _open_toml(path, "track file")
     gate = data.get("gate")

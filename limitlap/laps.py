@@ -64,8 +64,7 @@ class Lap:
 
 @dataclass(frozen=True)
 class Gate:
-    """A start/finish gate: a point on the track; the gate is the line through it square
-    to the direction of travel there.
+    """A start/finish gate: a point on the track; the gate is the line through it square to the direction of travel there.
 
     Give either ``latitude_deg`` and ``longitude_deg`` (WGS84) or ``x_m`` and ``y_m``
     (the log's planar east/north frame); use :meth:`geodetic` or :meth:`planar`.
@@ -87,6 +86,7 @@ class Gate:
     half_width_m: float = GATE_HALF_WIDTH_M
 
     def __post_init__(self):
+        """Check that the gate is given one way: geodetic or planar."""
         geo = self.latitude_deg is not None and self.longitude_deg is not None
         flat = self.x_m is not None and self.y_m is not None
         if geo == flat:
@@ -98,12 +98,12 @@ class Gate:
 
     @classmethod
     def geodetic(cls, latitude_deg: float, longitude_deg: float, **kw) -> Gate:
-        """A gate at a WGS84 point. [deg]"""
+        """A gate at a WGS84 point. [deg]."""
         return cls(latitude_deg=float(latitude_deg), longitude_deg=float(longitude_deg), **kw)
 
     @classmethod
     def planar(cls, x_m: float, y_m: float, **kw) -> Gate:
-        """A gate at a point of the log's planar frame. [m]"""
+        """A gate at a point of the log's planar frame. [m]."""
         return cls(x_m=float(x_m), y_m=float(y_m), **kw)
 
     @property
@@ -112,17 +112,19 @@ class Gate:
         return self.latitude_deg is not None
 
     def __str__(self) -> str:
+        """The gate as a user would type it."""
         if self.is_geodetic:
             return f"{self.latitude_deg:.6f},{self.longitude_deg:.6f}"
         return f"x={self.x_m:.1f} m, y={self.y_m:.1f} m"
 
     def position_m(self, log: Log) -> tuple[float, float]:
-        """The gate point in the log's planar frame. [m]"""
+        """The gate point in the log's planar frame. [m]."""
         if not self.is_geodetic:
             return self.x_m, self.y_m
         if log.origin is None:
             raise InputError(
-                log.path, f"gate {self} is given as latitude,longitude but the log has planar x/y positions"
+                log.path,
+                f"gate {self} is given as latitude,longitude but the log has planar x/y positions",
             )
         import pymap3d
 
@@ -191,12 +193,18 @@ def auto_gate(log: Log, speed_share: float = 0.6) -> Gate:
         fast = np.percentile(v, 95.0)  # nanpercentile's value, without its NaN handling
     else:
         fast = np.nanpercentile(v, 95.0) if finite.any() else np.nan
-    i = int(_kernels.first_row_at_speed(
-        np.ascontiguousarray(x), np.ascontiguousarray(y), np.ascontiguousarray(v, dtype=np.float64),
-        float(speed_share * fast),
-    ))
+    i = int(
+        _kernels.first_row_at_speed(
+            np.ascontiguousarray(x),
+            np.ascontiguousarray(y),
+            np.ascontiguousarray(v, dtype=np.float64),
+            float(speed_share * fast),
+        )
+    )
     if i < 0:
-        raise InputError(log.path, "cannot place a gate: the car never reaches speed with a position fix")
+        raise InputError(
+            log.path, "cannot place a gate: the car never reaches speed with a position fix"
+        )
     if log.origin is None:
         return Gate.planar(x[i], y[i])
     import pymap3d
@@ -271,7 +279,7 @@ def _refine_crossings(log, gx, gy, nx, ny, s, at):
 
 
 def gate_crossings(log: Log, gate: Gate) -> np.ndarray:
-    """Times the car crosses the gate line in its direction of travel. [s]
+    """Times the car crosses the gate line in its direction of travel. [s].
 
     Positions are first filled at every row (:func:`limitlap.gnss.fill_position`), the
     signed distance to the gate line taken at every row, and the crossing time
@@ -284,7 +292,10 @@ def gate_crossings(log: Log, gate: Gate) -> np.ndarray:
     # Only row pairs near the gate can cross it within its half width (a row's step is a
     # metre or so; 100 m of margin): the signed distances are taken there alone.
     near, closest, pairs = _kernels.gate_approaches(
-        np.ascontiguousarray(x), np.ascontiguousarray(y), float(gx), float(gy),
+        np.ascontiguousarray(x),
+        np.ascontiguousarray(y),
+        float(gx),
+        float(gy),
         gate.half_width_m + 100.0,
     )
     if near < 0:
@@ -322,7 +333,9 @@ def gate_crossings(log: Log, gate: Gate) -> np.ndarray:
             counted.append(times[k])
             last = at[k]
     if not counted:
-        raise InputError(log.path, f"the car never crosses the gate at {gate} in its direction of travel")
+        raise InputError(
+            log.path, f"the car never crosses the gate at {gate} in its direction of travel"
+        )
     return np.asarray(counted)
 
 
@@ -344,9 +357,17 @@ def _make_laps(log: Log, bounds, numbers, complete, reasons) -> list[Lap]:
                 why.append(f"GPS dropout of {d.duration_s:.1f} s at {d.start_time_s:.1f} s")
         dist = float(s_at[k + 1] - s_at[k])
         laps.append(
-            Lap(number=int(number), start_time_s=t0, end_time_s=t1, time_s=t1 - t0,
-                distance_m=dist, complete=bool(complete[k]) and not why,
-                reason="; ".join(why), start_index=i0, end_index=i1)
+            Lap(
+                number=int(number),
+                start_time_s=t0,
+                end_time_s=t1,
+                time_s=t1 - t0,
+                distance_m=dist,
+                complete=bool(complete[k]) and not why,
+                reason="; ".join(why),
+                start_index=i0,
+                end_index=i1,
+            )
         )
     return laps
 
@@ -468,8 +489,7 @@ def laps_table(laps: list[Lap]) -> list[dict]:
 
 
 def laps_json(laps: list[Lap]) -> dict:
-    """docs/outputs.md, Target sheets form: ``{"laps": [{"number", "time_s", "distance_m", "complete"}, ...]}``
-    plus ``reason`` and ``fastest``; times to 1 ms, distances to 1 cm."""
+    """docs/outputs.md, Target sheets form: ``{"laps": [{"number", "time_s", "distance_m", "complete"}, ...]}`` plus ``reason`` and ``fastest``; times to 1 ms, distances to 1 cm."""
     return {
         "laps": [
             {

@@ -13,8 +13,7 @@ from scipy import optimize
 
 
 def soft_l1_least_squares(fun, jac, start, lo, hi, f_scale):
-    r"""Soft-L1 least squares within bounds: MINPACK's Levenberg-Marquardt on transformed
-    residuals, SciPy's bounded trust-region method where that leaves the bounds.
+    r"""Soft-L1 least squares within bounds: MINPACK's Levenberg-Marquardt on transformed residuals, SciPy's bounded trust-region method where that leaves the bounds.
 
     The soft-L1 cost :math:`\tfrac12\sum f^2\rho(r_i^2/f^2)`, :math:`\rho(z) =
     2(\sqrt{1+z}-1)`, is the plain sum of squares of :math:`\tilde r_i = f\,
@@ -58,7 +57,12 @@ def soft_l1_least_squares(fun, jac, start, lo, hi, f_scale):
         sol = None
     if sol is None or sol.status <= 0 or not np.all((sol.x > lo) & (sol.x < hi)):
         return optimize.least_squares(
-            fun, start, jac=jac, bounds=(lo, hi), loss="soft_l1", f_scale=f_scale,
+            fun,
+            start,
+            jac=jac,
+            bounds=(lo, hi),
+            loss="soft_l1",
+            f_scale=f_scale,
             x_scale="jac",
         )
     r = fun(sol.x)
@@ -67,7 +71,6 @@ def soft_l1_least_squares(fun, jac, start, lo, hi, f_scale):
     sol.fun = r
     sol.jac = np.sqrt(np.maximum(weight, np.finfo(np.float64).eps))[:, None] * jac(sol.x)
     return sol
-
 
 
 def standard_errors(sol, n_points):

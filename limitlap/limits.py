@@ -22,45 +22,47 @@ from limitlap.vehicle import Vehicle
 
 
 def normal_load_n(speed_m_s, vehicle: Vehicle):
-    """Normal load N = m g + ½ρv²·ClA. [N]"""
+    """Normal load N = m g + ½ρv²·ClA. [N]."""
     v = np.asarray(speed_m_s, dtype=np.float64)
     q = 0.5 * vehicle.air_density_kg_m3 * v * v
     return vehicle.mass_kg * G0_M_S2 + q * vehicle.downforce_area_m2
 
 
 def resistance_n(speed_m_s, vehicle: Vehicle):
-    """Drag plus rolling resistance, q·CdA + Crr·m·g. [N]"""
+    """Drag plus rolling resistance, q·CdA + Crr·m·g. [N]."""
     v = np.asarray(speed_m_s, dtype=np.float64)
     q = 0.5 * vehicle.air_density_kg_m3 * v * v
     return q * vehicle.drag_area_m2 + vehicle.rolling_coeff * vehicle.mass_kg * G0_M_S2
 
 
 def lateral_limit_m_s2(speed_m_s, vehicle: Vehicle):
-    """Lateral acceleration limit μ_y N / m. [m/s²]"""
+    """Lateral acceleration limit μ_y N / m. [m/s²]."""
     return vehicle.mu_lat * normal_load_n(speed_m_s, vehicle) / vehicle.mass_kg
 
 
 def braking_limit_m_s2(speed_m_s, vehicle: Vehicle):
-    """Deceleration limit (positive) μ_b N/m + resistance/m. [m/s²]"""
+    """Deceleration limit (positive) μ_b N/m + resistance/m. [m/s²]."""
     m = vehicle.mass_kg
-    return (vehicle.mu_brk * normal_load_n(speed_m_s, vehicle) + resistance_n(speed_m_s, vehicle)) / m
+    return (
+        vehicle.mu_brk * normal_load_n(speed_m_s, vehicle) + resistance_n(speed_m_s, vehicle)
+    ) / m
 
 
 def power_force_n(speed_m_s, vehicle: Vehicle):
-    """Driving force the power allows, P/v; infinite at standstill. [N]"""
+    """Driving force the power allows, P/v; infinite at standstill. [N]."""
     v = np.asarray(speed_m_s, dtype=np.float64)
     return np.where(v > 0, vehicle.power_w / np.where(v > 0, v, 1.0), np.inf)
 
 
 def drive_force_max_n(speed_m_s, vehicle: Vehicle):
-    """Largest tyre driving force min(μ_t N, P/v). [N]"""
+    """Largest tyre driving force min(μ_t N, P/v). [N]."""
     v = np.asarray(speed_m_s, dtype=np.float64)
     traction = vehicle.mu_trac * normal_load_n(v, vehicle)
     return np.minimum(traction, power_force_n(v, vehicle))
 
 
 def driving_limit_m_s2(speed_m_s, vehicle: Vehicle):
-    """Forward acceleration limit min(μ_t N/m, P/(m v)) - resistance/m. [m/s²]"""
+    """Forward acceleration limit min(μ_t N/m, P/(m v)) - resistance/m. [m/s²]."""
     m = vehicle.mass_kg
     return (drive_force_max_n(speed_m_s, vehicle) - resistance_n(speed_m_s, vehicle)) / m
 
@@ -95,7 +97,11 @@ def combined_usage(speed_m_s, accel_lon_m_s2, accel_lat_m_s2, vehicle: Vehicle, 
     """
     v = np.asarray(speed_m_s, dtype=np.float64)
     m = vehicle.mass_kg
-    fx = m * np.asarray(accel_lon_m_s2) + resistance_n(v, vehicle) + m * G0_M_S2 * np.asarray(sin_grad)
+    fx = (
+        m * np.asarray(accel_lon_m_s2)
+        + resistance_n(v, vehicle)
+        + m * G0_M_S2 * np.asarray(sin_grad)
+    )
     fy = m * np.abs(np.asarray(accel_lat_m_s2))
     normal = normal_load_n(v, vehicle)
     fx_max = np.where(fx >= 0, vehicle.mu_trac * normal, vehicle.mu_brk * normal)

@@ -48,7 +48,7 @@ class Line:
 
     @property
     def ds_m(self) -> np.ndarray:
-        """Step from each station to the next; closed lines wrap the last one. [m]"""
+        """Step from each station to the next; closed lines wrap the last one. [m]."""
         ends = np.append(self.distance_m[1:], self.length_m)
         return ends - self.distance_m
 
@@ -93,12 +93,12 @@ def line_from_curvature(distance_m, curvature_1_m, gradient=None, *, closed=True
 
 
 def line_from_xy(x_m, y_m, z_m=None, *, spacing_m=1.0, smoothing_m=0.005):
-    """Closed line through x/y points, resampled to a uniform spacing.
+    r"""Closed line through x/y points, resampled to a uniform spacing.
 
     A periodic cubic smoothing spline (FITPACK ``splprep`` with ``per=1``; P. Dierckx,
     *Curve and Surface Fitting with Splines*, Oxford, 1993) is fitted to the points in
     driving order; curvature comes from its derivatives,
-    :math:`\\kappa = (x'y'' - y'x'') / (x'^2 + y'^2)^{3/2}`.
+    :math:`\kappa = (x'y'' - y'x'') / (x'^2 + y'^2)^{3/2}`.
 
     Parameters
     ----------
@@ -154,9 +154,7 @@ def line_from_xy(x_m, y_m, z_m=None, *, spacing_m=1.0, smoothing_m=0.005):
     u_dense = np.linspace(0.0, u[-1], max(2000, int(10 * u[-1])) + 1)
     dx, dy = interpolate.splev(u_dense, tck, der=1)[:2]
     speed = np.hypot(dx, dy)
-    s_dense = np.concatenate(
-        [[0.0], np.cumsum(0.5 * (speed[1:] + speed[:-1]) * np.diff(u_dense))]
-    )
+    s_dense = np.concatenate([[0.0], np.cumsum(0.5 * (speed[1:] + speed[:-1]) * np.diff(u_dense))])
     length = float(s_dense[-1])
     n_st = max(4, round(length / spacing_m))
     s_st = np.arange(n_st) * (length / n_st)

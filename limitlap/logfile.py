@@ -58,8 +58,7 @@ class Log:
     warnings: list[str] = field(default_factory=list)
 
     def has(self, name: str) -> bool:
-        """True when the channel exists and has at least one value (a deferred channel,
-        see :func:`read_log`'s ``defer``: when its column exists)."""
+        """True when the channel exists and has at least one value (a deferred channel, see :func:`read_log`'s ``defer``: when its column exists)."""
         ch = self.channels.get(name)
         if ch is None:
             deferred = getattr(self.channels, "deferred", None)
@@ -97,8 +96,10 @@ class Log:
         memo = self.__dict__.setdefault("_remembered", {})
         basis = (self.time_s, *self.channels.values())
         hit = memo.get(key)
-        if hit is not None and len(hit[0]) == len(basis) and all(
-            a is b for a, b in zip(hit[0], basis, strict=True)
+        if (
+            hit is not None
+            and len(hit[0]) == len(basis)
+            and all(a is b for a, b in zip(hit[0], basis, strict=True))
         ):
             return hit[1]
         value = compute(self)
@@ -109,14 +110,11 @@ class Log:
         return value
 
 
-
 #: Start of the gzip format (RFC 1952 §2.3.1: ID1 = 0x1f, ID2 = 0x8b).
 _GZIP_MAGIC = b"\x1f\x8b"
 
 
-
 _DECIMAL_COMMA = re.compile(r"^\s*[-+]?\d+,\d+(?:[eE][-+]?\d+)?\s*$")
-
 
 
 @contextlib.contextmanager
@@ -130,7 +128,6 @@ def _reading(path: Path):
         raise InputError(path, "is a folder, not a log file") from None
     except OSError as err:
         raise InputError(path, f"cannot be read: {err.strerror}") from err
-
 
 
 def _read_log_bytes(path: Path) -> bytes:
@@ -148,10 +145,8 @@ def _read_log_bytes(path: Path) -> bytes:
     return raw
 
 
-
 #: Bytes read from the start of a plain log to find its header and separator. [B]
 _HEAD_BYTES = 65536
-
 
 
 def _log_source(path: Path) -> tuple[str | bytes, bytes, bool]:
@@ -181,13 +176,11 @@ def _log_source(path: Path) -> tuple[str | bytes, bytes, bool]:
     return str(path), head, whole
 
 
-
 def _split_header(cell: str) -> tuple[str, str | None]:
     """``'Speed [km/h]'`` -> (``'speed'``, ``'km/h'``); no bracket -> unit None."""
     name, bracket, unit = cell.partition("[")
     name = re.sub(r"\s+", "_", name.strip().lower())
     return name, (unit.rstrip().rstrip("]").strip() if bracket else None)
-
 
 
 def _detect_format(path: Path, raw: bytes) -> tuple[list[str], str, bool, str]:
@@ -222,7 +215,6 @@ def _detect_format(path: Path, raw: bytes) -> tuple[list[str], str, bool, str]:
     return header, sep, decimal_comma, encoding
 
 
-
 def _resolve_columns(path: Path, header: list[str], cmap: ChannelMap | None):
     """Channel -> (column index, factor to SI, sign) for the channels the log holds."""
     found: dict[str, tuple[int, float, float]] = {}
@@ -231,7 +223,8 @@ def _resolve_columns(path: Path, header: list[str], cmap: ChannelMap | None):
     for channel, spec in mapped.items():
         want = spec.column.lower()
         hits = [
-            i for i, cell in enumerate(header)
+            i
+            for i, cell in enumerate(header)
             if cell.lower() == want or cell.partition("[")[0].strip().lower() == want
         ]
         if not hits:
@@ -268,7 +261,8 @@ def _resolve_columns(path: Path, header: list[str], cmap: ChannelMap | None):
     for channel in ("time", "speed"):
         if channel not in found:
             raise InputError(
-                path, f"missing required channel '{channel}' (a column '{channel} [unit]' or a channel-map entry)"
+                path,
+                f"missing required channel '{channel}' (a column '{channel} [unit]' or a channel-map entry)",
             )
     has_geo = "latitude" in found and "longitude" in found
     has_xy = "x" in found and "y" in found
@@ -276,10 +270,10 @@ def _resolve_columns(path: Path, header: list[str], cmap: ChannelMap | None):
         half = [c for c in ("latitude", "longitude", "x", "y") if c in found]
         detail = f" (found only '{half[0]}')" if half else ""
         raise InputError(
-            path, f"missing position: needs columns 'latitude' and 'longitude', or 'x' and 'y'{detail}"
+            path,
+            f"missing position: needs columns 'latitude' and 'longitude', or 'x' and 'y'{detail}",
         )
     return found
-
 
 
 def _parse_numbers(path, raw, header, sep, decimal_comma, encoding, found):
@@ -289,9 +283,16 @@ def _parse_numbers(path, raw, header, sep, decimal_comma, encoding, found):
     names = [f"column_{i}" for i in range(len(header))]
     wanted = {names[i]: ch for ch, (i, _, _) in found.items()}
     options = dict(
-        has_header=False, skip_rows=1, separator=sep, columns=list(wanted),
-        encoding=encoding, truncate_ragged_lines=True, missing_columns="insert",
-        extra_columns="ignore", raise_if_empty=False, quote_char='"',
+        has_header=False,
+        skip_rows=1,
+        separator=sep,
+        columns=list(wanted),
+        encoding=encoding,
+        truncate_ragged_lines=True,
+        missing_columns="insert",
+        extra_columns="ignore",
+        raise_if_empty=False,
+        quote_char='"',
     )
     schema = {n: (pl.Float64 if n in wanted else pl.String) for n in names}
     try:
@@ -329,7 +330,6 @@ def _parse_numbers(path, raw, header, sep, decimal_comma, encoding, found):
     return {wanted[n]: table[:, j] for j, n in enumerate(wanted)}
 
 
-
 def _merge_duplicate_stamps(time_s, data, rows):
     """Drop rows whose time equals the previous row's, keeping the first value of each cell."""
     group = np.concatenate(([0], np.cumsum(np.diff(time_s) != 0)))
@@ -339,16 +339,13 @@ def _merge_duplicate_stamps(time_s, data, rows):
     return time_s[first], merged, rows[first]
 
 
-
 def _first_cell(values, group, n_groups):
-    """The first non-blank value of each group (rows in order, ``group`` their group
-    number, -1 for none), NaN for a group with none."""
+    """The first non-blank value of each group (rows in order, ``group`` their group number, -1 for none), NaN for a group with none."""
     out = np.full(n_groups, np.nan)
     ok = np.isfinite(values) & (group >= 0)
     groups, at = np.unique(group[ok], return_index=True)
     out[groups] = values[ok][at]
     return out
-
 
 
 def _check_finite(path, values, rows, column):
@@ -359,13 +356,11 @@ def _check_finite(path, values, rows, column):
         raise InputError(path, f"'{values[i]}' is not a finite number", row=row, column=column)
 
 
-
 #: Channels only the analysed lap's traces use (pedal and steering traces, gear): with
 #: ``read_log(defer=TRACE_CHANNELS)`` they are parsed for that lap's rows when asked
 #: (:meth:`Log.channel_rows`), not for the whole log: on a one-hour log, 16 ms of the
 #: reader's 100. [-]
 TRACE_CHANNELS = ("brake", "steer", "gear")
-
 
 
 class _Channels(dict):
@@ -379,7 +374,6 @@ class _Channels(dict):
         values = self.deferred.whole(key)
         self[key] = values
         return values
-
 
 
 @dataclass(eq=False)
@@ -408,7 +402,12 @@ class _Deferred:
     def whole(self, name):
         """The channel for every log row, from a parse of its whole column."""
         values = _parse_numbers(
-            self.path, self.source, self.header, self.sep, self.decimal_comma, self.encoding,
+            self.path,
+            self.source,
+            self.header,
+            self.sep,
+            self.decimal_comma,
+            self.encoding,
             {name: self.specs[name]},
         )[name]
         return self._merged(name, values, 0, self.group_start)
@@ -428,35 +427,44 @@ class _Deferred:
         return None if part is None else part.get(name)
 
     def _merged(self, name, values, first, starts):
-        """Parsed rows ``first``.. -> log rows whose first lines are ``starts``: units,
-        the reader's checks, and the first non-blank cell of merged duplicates."""
+        """Parsed rows ``first``..
+
+        -> log rows whose first lines are ``starts``: units, the reader's checks,
+        and the first non-blank cell of merged duplicates.
+        """
         rows = np.arange(values.shape[0]) + first + 2  # spreadsheet rows: header = 1
         _check_finite(self.path, values, rows, self.header[self.specs[name][0]])
         _, factor, sign = self.specs[name]
         if factor * sign != 1.0:
             values = values * (factor * sign)
         if self.dropped.size:  # a row the reader found blank must be blank here too
-            inside = self.dropped[(self.dropped >= first) & (self.dropped < first + values.shape[0])]
+            inside = self.dropped[
+                (self.dropped >= first) & (self.dropped < first + values.shape[0])
+            ]
             cell = np.isfinite(values[inside - first])
             if cell.any():
                 row = int(inside[np.argmax(cell)]) + 2
-                raise InputError(self.path, "time is blank", row=row,
-                                 column=self.header[self.time_spec[0]])
+                raise InputError(
+                    self.path, "time is blank", row=row, column=self.header[self.time_spec[0]]
+                )
         if starts.shape[0] == values.shape[0]:  # one line per log row: nothing merged
             return values
         group = np.searchsorted(starts - first, np.arange(values.shape[0]), side="right") - 1
         return _first_cell(values, group, starts.shape[0])  # as _merge_duplicate_stamps
 
     def _window(self, start, stop):
-        """Every deferred channel for log rows start..stop, or None when the stretch
-        cannot be found or does not parse to the same time stamps."""
+        """Every deferred channel for log rows start..stop, or None when the stretch cannot be found or does not parse to the same time stamps."""
         if not (0 <= start < stop <= self.time_s.shape[0]) or self.encoding != "utf8":
             return None
         first = int(self.group_start[start])
         last = int(self.group_start[stop]) if stop < self.time_s.shape[0] else self.n_parsed
         with _ByteSource(self.source) as src:
             begin = src.line_offset(first, float(self.time_s[start]), self)
-            end = src.size if last == self.n_parsed else src.line_offset(last, float(self.time_s[stop]), self)
+            end = (
+                src.size
+                if last == self.n_parsed
+                else src.line_offset(last, float(self.time_s[stop]), self)
+            )
             if begin is None or end is None or end <= begin:
                 return None
             text = src.read(begin, end - begin)
@@ -466,10 +474,17 @@ class _Deferred:
         wanted = {names[self.time_spec[0]]: "time"}
         wanted.update({names[spec[0]]: ch for ch, spec in self.specs.items()})
         frame = pl.read_csv(
-            text, has_header=False, separator=self.sep, columns=list(wanted),
+            text,
+            has_header=False,
+            separator=self.sep,
+            columns=list(wanted),
             schema={n: (pl.Float64 if n in wanted else pl.String) for n in names},
-            decimal_comma=self.decimal_comma, truncate_ragged_lines=True,
-            missing_columns="insert", extra_columns="ignore", raise_if_empty=False, quote_char='"',
+            decimal_comma=self.decimal_comma,
+            truncate_ragged_lines=True,
+            missing_columns="insert",
+            extra_columns="ignore",
+            raise_if_empty=False,
+            quote_char='"',
         )
         if frame.height != last - first:
             return None
@@ -482,7 +497,6 @@ class _Deferred:
         if not np.array_equal(t[starts - first], self.time_s[start:stop]):
             return None
         return {ch: self._merged(ch, values, first, starts) for ch, values in cols.items()}
-
 
 
 class _ByteSource:
@@ -522,10 +536,12 @@ class _ByteSource:
         return self.fh.read(length)
 
     def line_offset(self, row, time_s, deferred):
-        """Byte offset of parsed row ``row``, the first line whose time stamp is
-        ``time_s``, or None. From an offset estimated by the mean line length, small
-        chunks are read and their first and last time stamps move the estimate until the
-        chunk holds the stamp; only that chunk's lines are all read."""
+        """Byte offset of parsed row ``row``, the first line whose time stamp is ``time_s``, or None.
+
+        From an offset estimated by the mean line length, small chunks are read and
+        their first and last time stamps move the estimate until the chunk holds the
+        stamp; only that chunk's lines are all read.
+        """
         if self.data_start <= 0:
             return None
         per_row = (self.size - self.data_start) / max(deferred.n_parsed, 1)
@@ -542,12 +558,24 @@ class _ByteSource:
             if len(lines) < 2:
                 return None
             # the first and last stamps of the chunk (blank rows have none)
-            i_first = next((i for i, ln in enumerate(lines[:16]) if math.isfinite(self._time(ln, deferred))), None)
-            i_last = next((i for i in range(len(lines) - 1, max(len(lines) - 17, -1), -1)
-                           if math.isfinite(self._time(lines[i], deferred))), None)
+            i_first = next(
+                (i for i, ln in enumerate(lines[:16]) if math.isfinite(self._time(ln, deferred))),
+                None,
+            )
+            i_last = next(
+                (
+                    i
+                    for i in range(len(lines) - 1, max(len(lines) - 17, -1), -1)
+                    if math.isfinite(self._time(lines[i], deferred))
+                ),
+                None,
+            )
             if i_first is None or i_last is None or i_last <= i_first:
                 return None
-            t_first, t_last = self._time(lines[i_first], deferred), self._time(lines[i_last], deferred)
+            t_first, t_last = (
+                self._time(lines[i_first], deferred),
+                self._time(lines[i_last], deferred),
+            )
             if not t_last > t_first:
                 return None
             step = (t_last - t_first) / (i_last - i_first)
@@ -588,11 +616,9 @@ class _ByteSource:
             return math.nan
 
 
-
 def _first_bad(rows, mask):
     i = int(np.argmax(mask))
     return i, int(rows[i])
-
 
 
 def read_log(path, channel_map=None, *, on_channels=None, defer=()) -> Log:
@@ -771,7 +797,9 @@ def _local_positions(path, data, rows, column, warnings):
 def _require_a_fix(path, first, fix, first_name, second_name, column):
     if not fix.any():
         blank_one = first_name if not np.isfinite(first).any() else second_name
-        raise InputError(path, "no position: the column is blank in every row", column=column(blank_one))
+        raise InputError(
+            path, "no position: the column is blank in every row", column=column(blank_one)
+        )
 
 
 def _check_lap_column(path, lap, rows, column):
@@ -779,12 +807,18 @@ def _check_lap_column(path, lap, rows, column):
     not_int = ok & (np.abs(lap - np.round(lap)) > 1e-9)
     if not_int.any():
         i, row = _first_bad(rows, not_int)
-        raise InputError(path, f"lap number {lap[i]:g} is not a whole number", row=row, column=column)
+        raise InputError(
+            path, f"lap number {lap[i]:g} is not a whole number", row=row, column=column
+        )
     if ok.any():
         seen = lap[ok]
         back = np.diff(seen) < 0
         if back.any():
             i = int(np.argmax(back)) + 1
             row = int(rows[ok][i])
-            raise InputError(path, f"lap number goes down from {seen[i - 1]:g} to {seen[i]:g}",
-                             row=row, column=column)
+            raise InputError(
+                path,
+                f"lap number goes down from {seen[i - 1]:g} to {seen[i]:g}",
+                row=row,
+                column=column,
+            )

@@ -26,22 +26,18 @@ from limitlap.solve import Profile
 BRAKE_DECEL_M_S2 = 2.5
 
 
-
 #: Brake pressure above this share of the lap's 99th-percentile pressure counts as
 #: braking. [-]
 BRAKE_PRESSURE_SHARE = 0.05
-
 
 
 #: Braking interrupted for less than this still counts as one braking zone. [m]
 BRAKE_GAP_M = 5.0
 
 
-
 #: A corner's minimum speed must also be the lowest this far either side of its
 #: curvature zone; otherwise the speed there belongs to a neighbour's braking. [m]
 EDGE_M = 25.0
-
 
 
 #: A release of the brakes in which the speed rises by at most this (coasting, or
@@ -50,13 +46,8 @@ EDGE_M = 25.0
 COAST_RISE_M_S = 0.5
 
 
-
 #: A braking zone must take at least this off the speed to count as a brake point. [m/s]
 MIN_BRAKE_DROP_M_S = 1.0
-
-
-
-
 
 
 #: Without a throttle channel, full drive is a_x at or above this share of the driving
@@ -64,10 +55,8 @@ MIN_BRAKE_DROP_M_S = 1.0
 FULL_DRIVE_SHARE = 0.9
 
 
-
 #: ... counted only where the envelope leaves at least this forward acceleration. [m/s²]
 FULL_DRIVE_MIN_M_S2 = 0.5
-
 
 
 class Trace:
@@ -118,13 +107,13 @@ class Trace:
         self.dwell = tile(dwell)
 
     def time_at_mod(self, d):
-        """Elapsed time at a distance in [0, length]. [s]"""
+        """Elapsed time at a distance in [0, length]. [s]."""
         return float(
             np.interp(d, np.append(self.s_lap, self.length), np.append(self.t_lap, self.lap_time))
         )
 
     def time_at(self, u):
-        """Elapsed time at an unwrapped distance. [s]"""
+        """Elapsed time at an unwrapped distance. [s]."""
         return float(np.interp(u, *self.t_u))
 
     def window(self, lo, hi):
@@ -132,9 +121,8 @@ class Trace:
         return int(np.searchsorted(self.u, lo, "left")), int(np.searchsorted(self.u, hi, "left"))
 
 
-
 def station_accel(profile: Profile, closed: bool) -> np.ndarray:
-    """A profile's longitudinal acceleration at its stations. [m/s²]
+    """A profile's longitudinal acceleration at its stations. [m/s²].
 
     :attr:`Profile.accel_lon_m_s2` belongs to the step leaving each station (its value
     holds at the step's middle); the mean of the steps either side puts it on the
@@ -146,14 +134,12 @@ def station_accel(profile: Profile, closed: bool) -> np.ndarray:
     return 0.5 * (a + before)
 
 
-
 def _crossing(u, f, i):
     """Distance where f crosses 0 between stations i-1 and i (f[i-1] < 0 <= f[i])."""
     if i <= 0 or not (np.isfinite(f[i - 1]) and np.isfinite(f[i])) or f[i] == f[i - 1]:
         return float(u[i])
     w = -f[i - 1] / (f[i] - f[i - 1])
     return float(u[i - 1] + min(max(w, 0.0), 1.0) * (u[i] - u[i - 1]))
-
 
 
 def lowest_speed(tr: Trace, lo, hi):
@@ -167,13 +153,11 @@ def lowest_speed(tr: Trace, lo, hi):
     return float(v[j]), float(tr.u[i0 + j]), i0 + j
 
 
-
 def _braking_signal(tr: Trace, brake_threshold_pa):
     """Positive where braking: brake pressure over its threshold, else decel over its."""
     if tr.brake is not None and brake_threshold_pa is not None:
         return tr.brake - brake_threshold_pa
     return -tr.ax - BRAKE_DECEL_M_S2
-
 
 
 def _brake_zone(tr: Trace, f, lo, i_min, gap_m=BRAKE_GAP_M):
@@ -219,7 +203,6 @@ def _brake_zone(tr: Trace, f, lo, i_min, gap_m=BRAKE_GAP_M):
     return start, end
 
 
-
 def _profile_brake_start(tr: Trace, f, lo, i_min):
     """Brake point of a clean speed profile (the ideal): where its speed starts falling.
 
@@ -253,7 +236,6 @@ def _profile_brake_start(tr: Trace, f, lo, i_min):
     return _crossing(tr.u, f, first) if first > i_lo else float(tr.u[first])
 
 
-
 def _full_drive(tr: Trace, i_min, hi, use_throttle):
     """First point after the minimum where full drive is reached (unwrapped) or NaN."""
     if i_min is None:
@@ -273,9 +255,24 @@ def _full_drive(tr: Trace, i_min, hi, use_throttle):
     return _crossing(tr.u, g, i_min + int(hit[0]))
 
 
-
 @dataclass(frozen=True)
 class Markers:
+    """One corner's markers on one trace (unwrapped distances, SI; NaN where none).
+
+    Attributes
+    ----------
+    min_speed, min_at : float
+        Minimum speed [m/s] and where [m].
+    brake_start, brake_end : float
+        The braking zone that leads into the corner. [m]
+    full_drive : float
+        Where full drive begins after the minimum. [m]
+    peak_lat : float
+        Peak lateral acceleration in the segment. [m/s²]
+    i_min : int or None
+        Station of the minimum on the trace.
+    """
+
     min_speed: float
     min_at: float
     brake_start: float
@@ -285,9 +282,8 @@ class Markers:
     i_min: int | None
 
 
-
 def zone_u(corner: Corner, start_u: float, length: float, closed: bool):
-    """Turn-in and exit of the corner's curvature zone on the unwrapped axis. [m]"""
+    """Turn-in and exit of the corner's curvature zone on the unwrapped axis. [m]."""
     z0 = unwrap_after(corner.turn_in_m, start_u, length, closed)
     z1 = z0 + (
         float(np.mod(corner.exit_m - corner.turn_in_m, length))
@@ -295,7 +291,6 @@ def zone_u(corner: Corner, start_u: float, length: float, closed: bool):
         else corner.exit_m - corner.turn_in_m
     )
     return z0, z1
-
 
 
 def corner_markers(
@@ -310,6 +305,12 @@ def corner_markers(
     apex_u=None,
     profile_brake=False,
 ):
+    """Markers of one corner's segment on one trace (see :class:`Markers`).
+
+    ``lo_brake``/``hi_drive`` bound the search for the braking zone and for full drive,
+    ``start_u``/``end_u`` are the segment, ``zone`` the curvature zone (unwrapped, [m]);
+    ``profile_brake`` takes the brake point from the speed profile (the ideal's).
+    """
     # Minimum speed within the curvature zone (turn-in to exit, both included): a corner
     # taken flat or still accelerating has its "minimum" there, not at the segment start.
     v_min, at, i_min = lowest_speed(tr, zone[0], zone[1] + 1e-9)
@@ -334,7 +335,6 @@ def corner_markers(
     return Markers(v_min, at, b0, b1, fd, peak, i_min)
 
 
-
 def unwrapped_bounds(corners: Sequence[Corner], length: float, closed: bool):
     """Per corner: start, apex, end (unwrapped, end > start) and brake/drive search limits."""
     m = len(corners)
@@ -355,14 +355,13 @@ def unwrapped_bounds(corners: Sequence[Corner], length: float, closed: bool):
     return out
 
 
-
 def unwrap_after(d, start_u, length, closed):
-    """Distance d on the unwrapped axis, at or after ``start_u``. [m]"""
+    """Distance d on the unwrapped axis, at or after ``start_u``. [m]."""
     return float(start_u + np.mod(d - start_u, length)) if closed else float(d)
 
 
-
 def wrap_distance(u, length, closed):
+    """An unwrapped distance back on the lap, in [0, length) for a closed one [m]."""
     if not math.isfinite(u):
         return math.nan
     return float(np.mod(u, length)) if closed else float(u)

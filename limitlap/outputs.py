@@ -43,14 +43,14 @@ SUMMARY_SCHEMA = "limitlap.summary/1"
 
 
 def write_atomic(path, data: bytes | str) -> Path:
-    """Write ``data`` to ``path`` atomically: temp file in the same folder, fsync, replace.
+    r"""Write ``data`` to ``path`` atomically: temp file in the same folder, fsync, replace.
 
     Parameters
     ----------
     path : str or Path
         Destination file; its folder must exist.
     data : bytes or str
-        Content; text is written as UTF-8 with ``\\n`` line ends.
+        Content; text is written as UTF-8 with ``\n`` line ends.
 
     Returns
     -------
@@ -311,6 +311,7 @@ def envelope_toml_text(vehicle, fit_info=None) -> str:
 
 
 def csv_cell(text: str) -> str:
+    """A CSV cell, quoted when it holds a comma, a quote or a line end (RFC 4180)."""
     return f'"{text.replace(chr(34), chr(34) * 2)}"' if any(c in text for c in ',"\n') else text
 
 
@@ -380,8 +381,14 @@ def solve_profile_csv_text(profile, line=None) -> str:
         "time": profile.time_s,
         "speed_limit": np.asarray(profile.speed_limit_m_s) / KMH_TO_M_S,
     }
-    units = {"distance": "m", "speed": "km/h", "accel_lon": "m/s^2", "accel_lat": "m/s^2",
-             "time": "s", "speed_limit": "km/h"}
+    units = {
+        "distance": "m",
+        "speed": "km/h",
+        "accel_lon": "m/s^2",
+        "accel_lat": "m/s^2",
+        "time": "s",
+        "speed_limit": "km/h",
+    }
     if line is not None:
         columns["curvature"] = line.curvature_1_m
         units["curvature"] = "1/m"
@@ -389,7 +396,7 @@ def solve_profile_csv_text(profile, line=None) -> str:
 
 
 def float_or_nan(value) -> float:
-    """``value`` as a float; NaN for None. [unit of the value]"""
+    """``value`` as a float; NaN for None. [unit of the value]."""
     return float("nan") if value is None else float(value)
 
 
@@ -645,6 +652,7 @@ def _profile_columns(v: ReportView):
 
 
 def stepper(progress, total):
+    """A ``step(name)`` callback that counts the steps done and reports each."""
     state = {"done": 0}
 
     def step(name):
@@ -715,5 +723,3 @@ def write_outputs(
     written["report"] = write_atomic(out / "report.html", report_html(v, figure_list))
     step("report.html")
     return written
-
-

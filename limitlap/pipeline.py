@@ -221,7 +221,9 @@ def load_session(log_path, *, gate=None, channels=None, track=None):
 def _read_session(log_path, channels, track, on_channels=None):
     """The log (and its warnings) and the track of :func:`load_session`."""
     channel_map = ingest.read_channel_map(channels) if channels is not None else None
-    log = logfile.read_log(log_path, channel_map, on_channels=on_channels, defer=logfile.TRACE_CHANNELS)
+    log = logfile.read_log(
+        log_path, channel_map, on_channels=on_channels, defer=logfile.TRACE_CHANNELS
+    )
     trk = ingest.read_track(track) if isinstance(track, str | Path) else track
     return log, trk, list(log.warnings)
 
@@ -233,7 +235,9 @@ def _split_session(log_path, log, trk, gate, warnings) -> list[laps_mod.Lap]:
     if gate is None and trk is not None and trk.gate_latlon is not None:
         gate = laps_mod.Gate.geodetic(*trk.gate_latlon)
     if gate is not None and gate.is_geodetic and log.origin is None:
-        raise InputError(log_path, "a latitude/longitude gate needs a log with latitude and longitude")
+        raise InputError(
+            log_path, "a latitude/longitude gate needs a log with latitude and longitude"
+        )
     if gate is None and not log.has("lap"):
         gate = laps_mod.auto_gate(log)
         where = (
@@ -251,7 +255,7 @@ def _split_session(log_path, log, trk, gate, warnings) -> list[laps_mod.Lap]:
 
 
 def _sample_rate(log):
-    """The log's sample rate from its median time step, None for a single row. [Hz]"""
+    """The log's sample rate from its median time step, None for a single row. [Hz]."""
 
     def rate(lg):
         dt = np.diff(lg.time_s)
@@ -301,12 +305,20 @@ def _trace_samples(drivens):
 
 
 def _fit(log_path, samples, base, early):
-    """The envelope fitted to ``samples`` (see :func:`_imu_samples`); ``early`` is the
-    pending sample selection of the whole log, or None. Errors name the log."""
+    """The envelope fitted to ``samples`` (see :func:`_imu_samples`); ``early`` is the pending sample selection of the whole log, or None.
+
+    Errors name the log.
+    """
     v_s, ax_s, ay_s, mask_s, rate, thr_s = samples
     try:
         return envelope.fit_envelope(
-            v_s, ax_s, ay_s, base, mask=mask_s, sample_rate_hz=rate, throttle=thr_s,
+            v_s,
+            ax_s,
+            ay_s,
+            base,
+            mask=mask_s,
+            sample_rate_hz=rate,
+            throttle=thr_s,
             selection=None if early is None else early.result(),
         )
     except InputError:
@@ -451,21 +463,22 @@ class _EnvelopeBeside:
         self._pool.shutdown(wait=True)
 
     def select(self, time_s: np.ndarray, ch: dict) -> None:
-        """The reader's ``on_channels`` hook: start the sample selection of every row
-        when an envelope is to be fitted and the log has both accelerations."""
+        """The reader's ``on_channels`` hook: start the sample selection of every row when an envelope is to be fitted and the log has both accelerations."""
         if self.base.is_complete or time_s.shape[0] < 2:
             return
         if not all(c in ch and np.isfinite(ch[c]).any() for c in ("accel_lon", "accel_lat")):
             return
         rate = float(1.0 / np.median(np.diff(time_s)))  # as _sample_rate
         self._selection = self._pool.submit(
-            select_samples, ch["speed"], ch["accel_lon"], ch["accel_lat"],
+            select_samples,
+            ch["speed"],
+            ch["accel_lon"],
+            ch["accel_lat"],
             sample_rate_hz=rate,
         )
 
     def start_fit(self, log, laps, flying) -> None:
-        """Start the fit to the flying laps' IMU samples (it needs no line); a log without
-        IMU channels is fitted on the rebuilt lines instead (:func:`_grip_envelope`)."""
+        """Start the fit to the flying laps' IMU samples (it needs no line); a log without IMU channels is fitted on the rebuilt lines instead (:func:`_grip_envelope`)."""
         if self.base.is_complete:
             return
         samples = _imu_samples(log, laps, flying)
@@ -514,8 +527,10 @@ def _find_corners(the_lap, trk) -> list[corners_mod.Corner]:
 
 
 def _grip_envelope(log_path, log, laps, chosen, the_lap, flying, beside, vehicle, warnings):
-    """The envelope: the complete vehicle's, else the fit to the flying laps, with its
-    warnings added. Returns (Vehicle, envelope.EnvelopeFit or None)."""
+    """The envelope: the complete vehicle's, else the fit to the flying laps, with its warnings added.
+
+    Returns (Vehicle, envelope.EnvelopeFit or None).
+    """
     if beside.base.is_complete:
         return beside.base, None
     fit = beside.fitted()
@@ -543,8 +558,10 @@ def _grip_envelope(log_path, log, laps, chosen, the_lap, flying, beside, vehicle
 
 
 def _grip_estimate(log, laps, chosen, the_lap, car, k, fitted, warnings):
-    """Grip scale the analysed lap used, relative to ``car`` (None when its samples do
-    not tell); a warning when a given envelope was far from the grip found. [-]"""
+    """Grip scale the analysed lap used, relative to ``car`` (None when its samples do not tell); a warning when a given envelope was far from the grip found.
+
+    [-].
+    """
     lap_samples = _imu_samples(log, laps, [chosen], pad_s=2.0)
     if lap_samples is None:
         lap_samples = _trace_samples([the_lap])
@@ -564,8 +581,7 @@ def _grip_estimate(log, laps, chosen, the_lap, car, k, fitted, warnings):
 
 
 def _best_of_laps(laps, chosen, the_lap, timelines, corners, ideal):
-    """Every complete lap's timeline (the analysed lap's on its rebuilt line) and the
-    composite of each segment's best: (list of LapTimeline, best_laps.BestOfLaps)."""
+    """Every complete lap's timeline (the analysed lap's on its rebuilt line) and the composite of each segment's best: (list of LapTimeline, best_laps.BestOfLaps)."""
     complete = [lp for lp in laps if lp.complete]
     timelines = {**timelines, chosen.number: _timeline_of(the_lap, chosen)}
     complete_laps = [timelines[lp.number] for lp in complete]
@@ -621,6 +637,5 @@ def line_from_source(source, *, lap: int | None = None, gate=None, channels=None
 
 
 def require_vehicle_with_grip(path) -> Vehicle:
-    """A complete vehicle (or envelope.toml) for the targets command; the reader names
-    any missing key or [grip] table."""
+    """A complete vehicle (or envelope.toml) for the targets command; the reader names any missing key or [grip] table."""
     return ingest.read_vehicle(path, require_complete=True)

@@ -28,7 +28,6 @@ from limitlap.units import G0_M_S2
 FULL_THROTTLE = 0.98
 
 
-
 #: A full-throttle sample calibrates power and drag only when the pedal stayed at full
 #: throttle this long either side of it: the spike test's running median (half of 0.3 s)
 #: and the 3 Hz Gaussian low-pass (3 sigma = 0.13 s) carry the deceleration of a lift
@@ -38,15 +37,14 @@ FULL_THROTTLE = 0.98
 THROTTLE_HELD_S = 0.3
 
 
-
 def full_throttle_held(throttle, rows, reach):
-    """True where no row within ``reach`` rows of ``rows`` (ascending) is below full
-    throttle (a blank counts as below); one compiled scan (``_kernels.held_at_least``)."""
+    """True where no row within ``reach`` rows of ``rows`` (ascending) is below full throttle (a blank counts as below); one compiled scan (``_kernels.held_at_least``)."""
     return _kernels.held_at_least(
-        np.ascontiguousarray(throttle, dtype=np.float64), rows.astype(np.int64), int(reach),
+        np.ascontiguousarray(throttle, dtype=np.float64),
+        rows.astype(np.int64),
+        int(reach),
         FULL_THROTTLE,
     )
-
 
 
 def huber_line_fit(design, y, max_iter=50, rtol=1e-8):
@@ -89,10 +87,8 @@ def huber_line_fit(design, y, max_iter=50, rtol=1e-8):
     return x / norm, k
 
 
-
 #: Residuals the robust line fit's scale is taken from, at most. [-]
 _SCALE_SAMPLES = 2000
-
 
 
 def full_throttle_power_drag(v, ax, ay, rows, throttle, veh, names, sample_rate_hz=None):
@@ -114,7 +110,9 @@ def full_throttle_power_drag(v, ax, ay, rows, throttle, veh, names, sample_rate_
     thr = np.take(thr_rows, rows)  # only the samples in use are looked at
     m = veh.mass_kg
     with np.errstate(invalid="ignore", divide="ignore"):
-        power_limited = veh.power_w / np.maximum(v, 1e-3) < 0.9 * veh.mu_trac * normal_load_n(v, veh)
+        power_limited = veh.power_w / np.maximum(v, 1e-3) < 0.9 * veh.mu_trac * normal_load_n(
+            v, veh
+        )
         pick = (thr >= FULL_THROTTLE) & (np.abs(ay) < 2.0) & power_limited & np.isfinite(ax)
     if sample_rate_hz is not None and pick.any():
         reach = math.ceil(THROTTLE_HELD_S * float(sample_rate_hz))

@@ -151,7 +151,9 @@ def _figures(v: ReportView, step):
                 "Data check: the rebuilt line's curvature against lateral acceleration / v² "
                 "and yaw rate / v. They measure the same thing and should lie on one "
                 "another; where they part, the line and every result on it are less certain.",
-                fg.curvature_check_figure(v.distance_m, v.curvature_1_m, k_ay, k_yaw, corners, title),
+                fg.curvature_check_figure(
+                    v.distance_m, v.curvature_1_m, k_ay, k_yaw, corners, title
+                ),
             )
         )
     if math.isfinite(v.best_time_s) and corners:
@@ -173,8 +175,7 @@ def _figures(v: ReportView, step):
 
 
 def _curvature_check(v: ReportView):
-    """(title, κ from a_y/v², κ from r/v) for the data-check figure, from the line
-    rebuild's own cross-check; None without inertial channels."""
+    """(title, κ from a_y/v², κ from r/v) for the data-check figure, from the line rebuild's own cross-check; None without inertial channels."""
     check = v.curvature_check
     if check is None or not check.available:
         return None

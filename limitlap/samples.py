@@ -59,23 +59,24 @@ class Selection:
 
     @functools.cached_property
     def noise_m_s2(self) -> float:
-        """Standard deviation of the sensor noise left in the filtered accelerations (root
-        mean square of the two axes, :func:`filtered_noise` of their high-pass residuals,
-        estimated when first asked for); 0 without a sample rate. [m/s²]"""
+        """Standard deviation of the sensor noise left in the filtered accelerations (root mean square of the two axes, :func:`filtered_noise` of their high-pass residuals, estimated when first asked for); 0 without a sample rate.
+
+        [m/s²].
+        """
         if self.noise_parts is None:
             return 0.0
         res_x, res_y, sigma = self.noise_parts
-        return math.sqrt(0.5 * (filtered_noise(res_x, sigma) ** 2 + filtered_noise(res_y, sigma) ** 2))
+        return math.sqrt(
+            0.5 * (filtered_noise(res_x, sigma) ** 2 + filtered_noise(res_y, sigma) ** 2)
+        )
 
     def within(self, mask) -> Selection:
-        """The same selection restricted to the samples where ``mask`` is True (the
-        result of :func:`select_samples` given that mask: filtering does not look at it)."""
+        """The same selection restricted to the samples where ``mask`` is True (the result of :func:`select_samples` given that mask: filtering does not look at it)."""
         keep = np.asarray(mask, dtype=bool)
         if keep.shape != self.used.shape:
             raise LimitlapError(f"sample mask has shape {keep.shape}, expected {self.used.shape}")
         n_spikes = self.n_spikes if self.spike is None else int((self.spike & keep).sum())
         return replace(self, used=self.used & keep, n_spikes=n_spikes)
-
 
 
 def _as_1d(name, values, n=None):
@@ -85,7 +86,6 @@ def _as_1d(name, values, n=None):
     if n is not None and arr.shape[0] != n:
         raise LimitlapError(f"{name} has {arr.shape[0]} samples, expected {n}")
     return arr
-
 
 
 def _fill_gaps(values):
@@ -100,13 +100,11 @@ def _fill_gaps(values):
     return out
 
 
-
 def _runs(ok):
     """Start and end (exclusive) of the runs of True in a boolean array."""
     padded = np.concatenate(([False], ok, [False])).astype(np.int8)
     edges = np.flatnonzero(np.diff(padded))
     return edges[0::2], edges[1::2]
-
 
 
 def gaussian_sigma_samples(cutoff_hz, sample_rate_hz):
@@ -141,7 +139,6 @@ def gaussian_sigma_samples(cutoff_hz, sample_rate_hz):
     """
     sigma_t = math.sqrt(math.log(2.0) / 4.0) / (math.pi * cutoff_hz)
     return sigma_t * sample_rate_hz
-
 
 
 def select_samples(
@@ -229,12 +226,12 @@ def select_samples(
     return Selection(v, ax, ay, ok, n_spikes, spike, noise)
 
 
-
 def mad_scale(r) -> float:
-    """1.4826 times the median absolute deviation: the standard deviation of normal data,
-    robust to a few outliers (the factor is 1 / Phi^-1(3/4); from memory). [same as r]"""
-    return 1.4826 * float(np.median(np.abs(r - np.median(r))))
+    """1.4826 times the median absolute deviation: the standard deviation of normal data, robust to a few outliers (the factor is 1 / Phi^-1(3/4); from memory).
 
+    [same as r].
+    """
+    return 1.4826 * float(np.median(np.abs(r - np.median(r))))
 
 
 #: The noise of the accelerations is estimated from about this many samples (every
@@ -242,10 +239,8 @@ def mad_scale(r) -> float:
 _NOISE_SAMPLES = 10_000
 
 
-
 def filtered_noise(residual, sigma):
-    r"""Standard deviation of white sensor noise after the Gaussian low-pass, from the
-    high-pass residual (despiked samples minus their low-passed values).
+    r"""Standard deviation of white sensor noise after the Gaussian low-pass, from the high-pass residual (despiked samples minus their low-passed values).
 
     For white noise of standard deviation :math:`\sigma_n` through a kernel of weights
     :math:`w_j` (SciPy's ``gaussian_filter1d``: a Gaussian of ``sigma`` samples truncated
@@ -277,11 +272,9 @@ def filtered_noise(residual, sigma):
     return spread * math.sqrt(w2 / (1.0 - 2.0 * w0 + w2))
 
 
-
 #: Records at least this long have their two acceleration channels despiked and filtered
 #: in two threads (below it the thread costs more than it saves). [-]
 _THREADED_SAMPLES = 50_000
-
 
 
 def _despike_and_filter(values, starts, ends, width, sigma, threshold, stride=1):

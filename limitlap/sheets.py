@@ -50,10 +50,8 @@ def _condition(cond: TargetCondition, length_m=None) -> dict:
     }
 
 
-
 def _slug(text: str) -> str:
     return re.sub(r"[^a-z0-9]+", "_", text.lower()).strip("_") or "condition"
-
 
 
 def targets_csv_text(conditions, *, length_m: float | None = None) -> str:
@@ -99,7 +97,6 @@ def targets_csv_text(conditions, *, length_m: float | None = None) -> str:
                 )
             )
     return "\n".join(rows) + "\n"
-
 
 
 def write_target_sheets(

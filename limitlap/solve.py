@@ -141,7 +141,9 @@ def _line_arrays(line: Line):
     grad = np.ascontiguousarray(line.gradient, dtype=np.float64)
     if curvature.ndim != 1 or curvature.shape[0] < 3 or s.shape != curvature.shape:
         raise LimitlapError("a line needs at least 3 stations of distance and curvature")
-    ds, sin_grad, ok = _kernels.line_steps(s, grad, curvature, float(line.length_m), bool(line.closed))
+    ds, sin_grad, ok = _kernels.line_steps(
+        s, grad, curvature, float(line.length_m), bool(line.closed)
+    )
     if ok == 1:
         raise LimitlapError("line curvature and gradient must be finite")
     if ok == 2:
@@ -162,8 +164,18 @@ def _cannot_complete(distance_m, sin_grad, veh, grip_scale) -> str:
     if sin_grad.size:
         crr = veh[_kernels.I_CRR]
         for i, limit, what, verb in (
-            (int(np.argmax(sin_grad)), veh[_kernels.I_MU_TRAC] - crr, "climb", "driving grip can take"),
-            (int(np.argmin(sin_grad)), veh[_kernels.I_MU_BRK] + crr, "descent", "brakes can hold the car on"),
+            (
+                int(np.argmax(sin_grad)),
+                veh[_kernels.I_MU_TRAC] - crr,
+                "climb",
+                "driving grip can take",
+            ),
+            (
+                int(np.argmin(sin_grad)),
+                veh[_kernels.I_MU_BRK] + crr,
+                "descent",
+                "brakes can hold the car on",
+            ),
         ):
             sine = abs(float(sin_grad[i]))
             if (sin_grad[i] > 0.0) == (what == "climb") and sine > limit:

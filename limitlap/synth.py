@@ -221,9 +221,9 @@ def _window_cap(line: Line, v_ideal, apex_m, before_m, after_m, drop):
 
 
 def _gauss_markov(rng, n, sigma, tau_samples):
-    """First-order Gauss-Markov sequence, stationary from the first sample.
+    r"""First-order Gauss-Markov sequence, stationary from the first sample.
 
-    :math:`e_k = \\phi e_{k-1} + \\sigma\\sqrt{1-\\phi^2}\\, w_k`, :math:`\\phi = e^{-1/\\tau}`
+    :math:`e_k = \phi e_{k-1} + \sigma\sqrt{1-\phi^2}\, w_k`, :math:`\phi = e^{-1/\tau}`
     (A. Gelb, ed., *Applied Optimal Estimation*, MIT Press 1974, Table 3.8-1 [M]).
     """
     phi = math.exp(-1.0 / tau_samples)
@@ -270,7 +270,7 @@ class _LapPlan:
 
 @dataclass(frozen=True, eq=False)
 class _Caps:
-    """Speed caps on the closed line's stations (inf where free). [m/s]
+    """Speed caps on the closed line's stations (inf where free). [m/s].
 
     ``planted`` holds, per mistake, (mistake, apex [m], window mask, cap [m/s], ideal
     minimum speed in the window [m/s]); ``mistake_cap`` all mistakes together;
@@ -340,8 +340,7 @@ def _lap_plan(
 def _speed_caps(
     rng, circuit: Circuit, ideal: Profile, mistakes, plan: _LapPlan, lap_variation
 ) -> _Caps:
-    """Per-lap speed caps on the closed line: the planted mistakes and the lap-to-lap
-    variation (a random lift at every corner but the last and the flat-out kinks)."""
+    """Per-lap speed caps on the closed line: the planted mistakes and the lap-to-lap variation (a random lift at every corner but the last and the flat-out kinks)."""
     line = circuit.line
     inf = np.full(line.n, np.inf)
     planted_masks = []
@@ -376,8 +375,7 @@ def _speed_caps(
 def _drive_session(
     circuit: Circuit, car, ideal, caps: _Caps, plan: _LapPlan, out_lap_pace, in_lap_pace, idle_s
 ) -> _Drive:
-    """Out-lap, flying laps and in-lap as one open line from the pit exit to the pit entry,
-    solved from and to standstill under each lap's caps (and the slow out- and in-lap)."""
+    """Out-lap, flying laps and in-lap as one open line from the pit exit to the pit entry, solved from and to standstill under each lap's caps (and the slow out- and in-lap)."""
     line, n_laps = circuit.line, plan.n_laps
     idx, lap_of, dist, ds, _i0 = _tile(line, circuit.pit_exit_m, n_laps, circuit.pit_entry_m)
     last_apex = circuit.corners[-1].apex_m
@@ -405,8 +403,7 @@ def _drive_session(
 
 
 def _planted_mistakes(line: Line, car, ideal: Profile, caps: _Caps):
-    """Each planted mistake with its cost on its own (solver), and a flying lap with all
-    of them: (tuple of PlantedMistake, Profile)."""
+    """Each planted mistake with its cost on its own (solver), and a flying lap with all of them: (tuple of PlantedMistake, Profile)."""
     inf = np.full(line.n, np.inf)
     planted = []
     for m, apex, mask, vcap, v_min in caps.planted:
@@ -507,9 +504,7 @@ def _motion_channels(rng, car, vehicle, rows: _Rows, logger: _Logger) -> dict:
 
 
 def _gnss_channels(rng, origin, rows: _Rows, logger: _Logger, fix_step: int):
-    """GNSS fixes every ``fix_step`` rows with a correlated plus white error, blanks
-    between and in the dropouts: (latitude/longitude/altitude channels, error per row
-    east/north/up [m], NaN between fixes)."""
+    """GNSS fixes every ``fix_step`` rows with a correlated plus white error, blanks between and in the dropouts: (latitude/longitude/altitude channels, error per row east/north/up [m], NaN between fixes)."""
     t = rows.time_s
     n_rows = t.shape[0]
     fix = np.arange(0, n_rows, fix_step)
@@ -708,7 +703,7 @@ _CSV_COLUMNS = (
 
 
 def session_csv_text(session: Session, *, lap_column: bool = False, columns=None) -> str:
-    """The session as log CSV text, e.g. ``time [s],latitude [deg],...``.
+    r"""The session as log CSV text, e.g. ``time [s],latitude [deg],...``.
 
     Columns and units as docs/formats.md gives them (Log files); blank cells where a
     channel has no sample (GNSS between fixes).
@@ -724,7 +719,7 @@ def session_csv_text(session: Session, *, lap_column: bool = False, columns=None
     Returns
     -------
     str
-        The CSV text, header row first, ``\\n`` line ends.
+        The CSV text, header row first, ``\n`` line ends.
     """
     import polars as pl
 

@@ -334,5 +334,3 @@ def targets_json(conditions: Sequence[TargetCondition]) -> dict:
             for c in conditions
         ]
     }
-
-

@@ -121,7 +121,5 @@ def check_grip_scale(grip_scale: float) -> float:
     except (TypeError, ValueError):
         raise LimitlapError(f"grip scale '{grip_scale}' is not a number") from None
     if not (math.isfinite(k) and GRIP_SCALE_MIN <= k <= GRIP_SCALE_MAX):
-        raise LimitlapError(
-            f"grip scale {grip_scale} is outside {GRIP_SCALE_MIN}-{GRIP_SCALE_MAX}"
-        )
+        raise LimitlapError(f"grip scale {grip_scale} is outside {GRIP_SCALE_MIN}-{GRIP_SCALE_MAX}")
     return k

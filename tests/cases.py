@@ -13,16 +13,32 @@ from limitlap.vehicle import Vehicle
 def friction_car(mu=1.0, mu_brk=None, mu_trac=None, exponent=2.0, mass_kg=1000.0):
     """A car limited by tyre friction only: no power limit, drag, downforce or rolling."""
     return Vehicle(
-        "friction only", mass_kg, math.inf, 0.0, 0.0, 0.0,
-        mu_lat=mu, mu_brk=mu if mu_brk is None else mu_brk,
-        mu_trac=mu if mu_trac is None else mu_trac, exponent=exponent,
+        "friction only",
+        mass_kg,
+        math.inf,
+        0.0,
+        0.0,
+        0.0,
+        mu_lat=mu,
+        mu_brk=mu if mu_brk is None else mu_brk,
+        mu_trac=mu if mu_trac is None else mu_trac,
+        exponent=exponent,
     )
 
 
 #: The example car of docs/checks.md (the invented GT coupe of vehicles/gt_coupe.toml).
 EXAMPLE_CAR = Vehicle(
-    "example", 1300.0, 370e3, 0.75, 1.10, 0.012, 1.225,
-    mu_lat=1.45, mu_brk=1.55, mu_trac=1.30, exponent=2.0,
+    "example",
+    1300.0,
+    370e3,
+    0.75,
+    1.10,
+    0.012,
+    1.225,
+    mu_lat=1.45,
+    mu_brk=1.55,
+    mu_trac=1.30,
+    exponent=2.0,
 )
 
 
@@ -56,7 +72,12 @@ def random_smooth_loop(seed, n=1200, base_radius_m=180.0):
     t = np.linspace(0, 2 * math.pi, n, endpoint=False)
     r = np.full(n, base_radius_m)
     for h in range(2, 6):
-        r += base_radius_m * rng.uniform(-0.12, 0.12) / h * np.cos(h * t + rng.uniform(0, 2 * math.pi))
+        r += (
+            base_radius_m
+            * rng.uniform(-0.12, 0.12)
+            / h
+            * np.cos(h * t + rng.uniform(0, 2 * math.pi))
+        )
     return line_from_xy(r * np.cos(t), r * np.sin(t), spacing_m=1.0)
 
 

@@ -35,8 +35,19 @@ class Circle:
     Truth: arc length s(t) = v0 t + a t²/2, angle theta = theta0 + s / R.
     """
 
-    def __init__(self, radius_m=100.0, v0=25.0, accel=0.0, duration_s=90.0, imu_hz=100,
-                 gps_hz=10, gps_phase_s=0.03, theta0=-1.0, noise_m=0.0, seed=1):
+    def __init__(
+        self,
+        radius_m=100.0,
+        v0=25.0,
+        accel=0.0,
+        duration_s=90.0,
+        imu_hz=100,
+        gps_hz=10,
+        gps_phase_s=0.03,
+        theta0=-1.0,
+        noise_m=0.0,
+        seed=1,
+    ):
         self.radius_m, self.v0, self.accel, self.theta0 = radius_m, v0, accel, theta0
         n = round(duration_s * imu_hz) + 1
         self.t = np.arange(n) / imu_hz
@@ -51,7 +62,7 @@ class Circle:
         rng = np.random.default_rng(seed)
         step = round(imu_hz / gps_hz)
         fix = np.zeros(n, dtype=bool)
-        fix[round(gps_phase_s * imu_hz)::step] = True
+        fix[round(gps_phase_s * imu_hz) :: step] = True
         self.fix = fix
         self.x = np.where(fix, self.x_true + noise_m * rng.standard_normal(n), np.nan)
         self.y = np.where(fix, self.y_true + noise_m * rng.standard_normal(n), np.nan)
@@ -86,8 +97,12 @@ class Circle:
 
     def columns(self, planar=False, speed_unit="m/s"):
         factor = {"m/s": 1.0, "km/h": 3.6}[speed_unit]
-        cols = {"time [s]": self.t, f"speed [{speed_unit}]": self.speed * factor,
-                "yaw_rate [rad/s]": self.yaw_rate, "accel_lat [m/s^2]": self.accel_lat}
+        cols = {
+            "time [s]": self.t,
+            f"speed [{speed_unit}]": self.speed * factor,
+            "yaw_rate [rad/s]": self.yaw_rate,
+            "accel_lat [m/s^2]": self.accel_lat,
+        }
         if planar:
             cols["x [m]"], cols["y [m]"] = self.x, self.y
         else:

@@ -495,9 +495,13 @@ def test_full_throttle_calibration_removes_straight_line_bias(dry_session_fit):
     session, mask, fit_q = dry_session_fit
     ch, truth = session.channels, session.truth
     fit_c = envelope.fit_envelope(
-        ch["speed"], ch["accel_lon"], ch["accel_lat"],
+        ch["speed"],
+        ch["accel_lon"],
+        ch["accel_lat"],
         Vehicle("mass only", truth.vehicle.mass_kg),
-        mask=mask, sample_rate_hz=100.0, throttle=ch["throttle"],
+        mask=mask,
+        sample_rate_hz=100.0,
+        throttle=ch["throttle"],
     )
     t_true = truth.ideal_lap_time_s
     t_c = solve.solve_profile(truth.line, fit_c.vehicle).lap_time_s
@@ -527,14 +531,21 @@ def test_noise_taken_out_of_the_envelope_brings_the_ideal_to_the_truth(dry_sessi
     ch, truth = session.channels, session.truth
     fits = {
         remove: envelope.fit_envelope(
-            ch["speed"], ch["accel_lon"], ch["accel_lat"],
-            Vehicle("mass only", truth.vehicle.mass_kg), mask=mask, sample_rate_hz=100.0,
-            throttle=ch["throttle"], remove_noise=remove,
+            ch["speed"],
+            ch["accel_lon"],
+            ch["accel_lat"],
+            Vehicle("mass only", truth.vehicle.mass_kg),
+            mask=mask,
+            sample_rate_hz=100.0,
+            throttle=ch["throttle"],
+            remove_noise=remove,
         )
         for remove in (True, False)
     }
     t_true = truth.ideal_lap_time_s
-    err = {k: solve.solve_profile(truth.line, f.vehicle).lap_time_s - t_true for k, f in fits.items()}
+    err = {
+        k: solve.solve_profile(truth.line, f.vehicle).lap_time_s - t_true for k, f in fits.items()
+    }
     assert abs(err[True]) < 1e-3 * t_true
     assert abs(err[True]) < abs(err[False]) and err[False] < 0.0
     s = samples.gaussian_sigma_samples(3.0, 100.0)
@@ -546,8 +557,12 @@ def test_noise_taken_out_of_the_envelope_brings_the_ideal_to_the_truth(dry_sessi
     # Without a throttle channel the power line is a high quantile too and gets its own
     # lift: the ideal within 0.1 % as well (measured when written: -0.06 s).
     bare = envelope.fit_envelope(
-        ch["speed"], ch["accel_lon"], ch["accel_lat"], Vehicle("mass only", truth.vehicle.mass_kg),
-        mask=mask, sample_rate_hz=100.0,
+        ch["speed"],
+        ch["accel_lon"],
+        ch["accel_lat"],
+        Vehicle("mass only", truth.vehicle.mass_kg),
+        mask=mask,
+        sample_rate_hz=100.0,
     )
     assert bare.quality["noise_offset_power_m_s2"] > 0.0
     assert abs(solve.solve_profile(truth.line, bare.vehicle).lap_time_s - t_true) < 1e-3 * t_true
@@ -589,8 +604,14 @@ def test_huber_line_fit_is_the_huber_minimum_and_ignores_gear_change_cuts():
     # k is 1.345 times the residuals' MAD scale (from a subsample of them)
     assert k == pytest.approx(1.345 * 1.4826 * float(np.median(np.abs(r - np.median(r)))), rel=0.1)
     ref = optimize.least_squares(
-        lambda p: design @ p - y, np.linalg.lstsq(design, y, rcond=None)[0],
-        loss="huber", f_scale=k, x_scale=np.abs(x), xtol=1e-14, ftol=1e-14, gtol=1e-14,
+        lambda p: design @ p - y,
+        np.linalg.lstsq(design, y, rcond=None)[0],
+        loss="huber",
+        f_scale=k,
+        x_scale=np.abs(x),
+        xtol=1e-14,
+        ftol=1e-14,
+        gtol=1e-14,
     ).x
     assert x == pytest.approx(ref, rel=1e-6)  # the Huber minimum at that k
     assert x[0] == pytest.approx(car.power_w, rel=0.01)

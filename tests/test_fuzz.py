@@ -260,7 +260,6 @@ envelopes = st.builds(
 )
 
 
-
 #: Combined-usage tolerance on random lines. The 1e-2 of tests/test_solve.py (a Heun
 #: step averages the limits at its two ends) holds on smooth loops; this fuzzing found
 #: steps using up to 1.021 of the limit on splines through 4-15 points (bends tightening
@@ -281,8 +280,10 @@ SPARE_DRIVE_M_S2 = 0.05
 
 def _power_starved(car, profile):
     v = float(np.max(profile.speed_m_s))
-    spare = car.power_w / (car.mass_kg * v) - car.rolling_coeff * G0_M_S2 - (
-        0.5 * car.air_density_kg_m3 * car.drag_area_m2 * v * v / car.mass_kg
+    spare = (
+        car.power_w / (car.mass_kg * v)
+        - car.rolling_coeff * G0_M_S2
+        - (0.5 * car.air_density_kg_m3 * car.drag_area_m2 * v * v / car.mass_kg)
     )
     return spare < SPARE_DRIVE_M_S2
 

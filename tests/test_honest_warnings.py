@@ -140,11 +140,26 @@ def test_report_says_when_the_envelope_is_the_vehicle_files(tmp_path, capsys, mo
     car = bundled_path("vehicles", "gt_coupe.toml")
     log = bundled_path("demo_tracks", "tarrowby_dry.csv.gz")
     code, _, err = run_cli(
-        ["analyse", log, "--vehicle", car, "--gate", "-33.85736267,147.23744215", "--out", out,
-         "--no-figures", "--quiet"], capsys, monkeypatch,
+        [
+            "analyse",
+            log,
+            "--vehicle",
+            car,
+            "--gate",
+            "-33.85736267,147.23744215",
+            "--out",
+            out,
+            "--no-figures",
+            "--quiet",
+        ],
+        capsys,
+        monkeypatch,
     )
     assert code == 0, err
     page = html.unescape((out / "report.html").read_text())
     assert "The envelope is the vehicle file's ('GT coupe (invented example)')" in page
     assert "fitted to your own best samples" not in page
-    assert json.loads((out / "summary.json").read_text())["envelope"] == {"fitted": False, "laps": []}
+    assert json.loads((out / "summary.json").read_text())["envelope"] == {
+        "fitted": False,
+        "laps": [],
+    }

@@ -110,7 +110,9 @@ def test_mixed_rate_blanks_become_nan(tmp_path):
 
 def test_bom_and_crlf_read_the_same_as_plain(tmp_path):
     plain = read_log(write(tmp_path, PLAIN, "plain.csv"))
-    bom = read_log(write(tmp_path, b"\xef\xbb\xbf" + PLAIN.replace("\n", "\r\n").encode(), "bom.csv"))
+    bom = read_log(
+        write(tmp_path, b"\xef\xbb\xbf" + PLAIN.replace("\n", "\r\n").encode(), "bom.csv")
+    )
     assert_same_log(plain, bom)
 
 
@@ -155,11 +157,17 @@ def test_reads_a_long_session_in_about_polars_time(tmp_path):
     theta = 40.0 * t / 300.0
     fix = np.arange(n) % 10 == 3
     lat, lon, _ = pymap3d.enu2geodetic(300 * np.cos(theta), 300 * np.sin(theta), 0.0, *ORIGIN)
-    frame = pl.DataFrame({
-        "time [s]": t, "speed [km/h]": np.full(n, 144.0), "accel_lat [g]": np.full(n, 0.54),
-        "yaw_rate [deg/s]": np.full(n, 7.64), "throttle [%]": np.full(n, 80.0),
-        "latitude": np.where(fix, lat, np.nan), "longitude": np.where(fix, lon, np.nan),
-    }).with_columns(pl.col("latitude").fill_nan(None), pl.col("longitude").fill_nan(None))
+    frame = pl.DataFrame(
+        {
+            "time [s]": t,
+            "speed [km/h]": np.full(n, 144.0),
+            "accel_lat [g]": np.full(n, 0.54),
+            "yaw_rate [deg/s]": np.full(n, 7.64),
+            "throttle [%]": np.full(n, 80.0),
+            "latitude": np.where(fix, lat, np.nan),
+            "longitude": np.where(fix, lon, np.nan),
+        }
+    ).with_columns(pl.col("latitude").fill_nan(None), pl.col("longitude").fill_nan(None))
     path = tmp_path / "hour.csv"
     frame.write_csv(path, float_precision=8)
     pl.read_csv(path)  # warm-up: the first polars call pays thread-pool start-up
@@ -193,7 +201,9 @@ def test_channel_map_renames_converts_and_inverts(tmp_path):
         "GPS Speed [kph]": cols["speed [m/s]"] * 3.6,
         "Yaw": -np.degrees(cols["yaw_rate [rad/s]"]),
         "LatAcc": -cols["accel_lat [m/s^2]"] / 9.80665,
-        "Lat": cols["latitude [deg]"], "Lon": cols["longitude [deg]"], "Alt": cols["altitude [m]"],
+        "Lat": cols["latitude [deg]"],
+        "Lon": cols["longitude [deg]"],
+        "Alt": cols["altitude [m]"],
     }
     (tmp_path / "other.csv").write_text(csv_text(other, fmt="{:.17g}"))
     (tmp_path / "map.toml").write_text(
@@ -209,7 +219,9 @@ def test_channel_map_renames_converts_and_inverts(tmp_path):
     # Both files print 17 significant digits; the other file's values went through a unit
     # factor and back (x3.6 then /3.6, degrees, g): rtol=1e-14 is that double rounding.
     for name in ("speed", "yaw_rate", "accel_lat"):
-        np.testing.assert_allclose(mapped.channels[name], iso.channels[name], rtol=1e-14, err_msg=name)
+        np.testing.assert_allclose(
+            mapped.channels[name], iso.channels[name], rtol=1e-14, err_msg=name
+        )
     assert (mapped.channels["yaw_rate"] > 0).all() and (mapped.channels["accel_lat"] > 0).all()
     np.testing.assert_array_equal(mapped.channels["x"], iso.channels["x"])
     np.testing.assert_array_equal(mapped.time_s, iso.time_s)
@@ -227,7 +239,10 @@ def test_channel_map_invert_only_keeps_column_name(tmp_path):
     ("toml", "fragment"),
     [
         ("[channels.sped]\ncolumn = 'v'\n", "unknown channel 'sped'"),
-        ("[channels.speed]\ncolumn = 'v'\nunit = 'furlong/fortnight'\n", "unknown unit 'furlong/fortnight'"),
+        (
+            "[channels.speed]\ncolumn = 'v'\nunit = 'furlong/fortnight'\n",
+            "unknown unit 'furlong/fortnight'",
+        ),
         ("[channels.speed]\ncolumn = 'v'\ninvert = 'yes'\n", "must be true or false"),
         ("[channels.speed]\ncolum = 'v'\n", "unknown key 'channels.speed.colum'"),
         ("[channels.speed]\ncolumn = 'v'\n[channels.x]\ncolumn = 'V'\n", "mapped twice"),
@@ -258,22 +273,55 @@ BAD_LOGS = [
     ("time,speed,latitude,longitude\n\n", "no data rows (header only)"),
     ("time,latitude,longitude\n0,1,2\n", "missing required channel 'speed'"),
     ("speed,latitude,longitude\n0,1,2\n", "missing required channel 'time'"),
-    ("time,speed\n0,1\n", "missing position: needs columns 'latitude' and 'longitude', or 'x' and 'y'"),
+    (
+        "time,speed\n0,1\n",
+        "missing position: needs columns 'latitude' and 'longitude', or 'x' and 'y'",
+    ),
     ("time,speed,latitude\n0,1,2\n", "(found only 'latitude')"),
-    ("time,speed [km/h],x,y\n0,1,0,0\n0.1,n/a,0,0\n", "row 3, column 'speed [km/h]': 'n/a' is not a number"),
-    ("time;speed;x;y\n0;1,5;0;0\n0,1;1,5 km;x;0\n", "row 3, column 'speed': '1,5 km' is not a number"),
+    (
+        "time,speed [km/h],x,y\n0,1,0,0\n0.1,n/a,0,0\n",
+        "row 3, column 'speed [km/h]': 'n/a' is not a number",
+    ),
+    (
+        "time;speed;x;y\n0;1,5;0;0\n0,1;1,5 km;x;0\n",
+        "row 3, column 'speed': '1,5 km' is not a number",
+    ),
     ("time,speed,x,y\n0,1,0,0\n1,1,inf,0\n", "row 3, column 'x': 'inf' is not a finite number"),
-    ("time,speed [furlong/fortnight],x,y\n0,1,0,0\n", "column 'speed [furlong/fortnight]': unknown unit 'furlong/fortnight' for channel 'speed' (accepted: km/h, m/s, mph)"),
-    ("time,speed,latitude,longitude\n0,1,45,10\n1,1,95.5,10\n", "row 3, column 'latitude': latitude 95.5 is out of range -90..90 degrees"),
-    ("time,speed,latitude,longitude\n0,1,45,10\n1,1,45,-180.5\n", "row 3, column 'longitude': longitude -180.5 is out of range"),
-    ("time,speed,latitude,longitude\n0,1,,10\n1,1,,10\n", "column 'latitude': no position: the column is blank in every row"),
+    (
+        "time,speed [furlong/fortnight],x,y\n0,1,0,0\n",
+        "column 'speed [furlong/fortnight]': unknown unit 'furlong/fortnight' for channel 'speed' (accepted: km/h, m/s, mph)",
+    ),
+    (
+        "time,speed,latitude,longitude\n0,1,45,10\n1,1,95.5,10\n",
+        "row 3, column 'latitude': latitude 95.5 is out of range -90..90 degrees",
+    ),
+    (
+        "time,speed,latitude,longitude\n0,1,45,10\n1,1,45,-180.5\n",
+        "row 3, column 'longitude': longitude -180.5 is out of range",
+    ),
+    (
+        "time,speed,latitude,longitude\n0,1,,10\n1,1,,10\n",
+        "column 'latitude': no position: the column is blank in every row",
+    ),
     ("time,speed,x,y\n0,1,,\n1,1,,\n", "column 'x': no position"),
     ("time,speed,x,y\n0,,0,0\n1,,1,1\n", "column 'speed': no speed"),
-    ("time,speed,x,y\n0,1,0,0\n1,1,0,0\n0.5,1,0,0\n", "row 4, column 'time': time goes backwards: 0.5 s after 1 s"),
+    (
+        "time,speed,x,y\n0,1,0,0\n1,1,0,0\n0.5,1,0,0\n",
+        "row 4, column 'time': time goes backwards: 0.5 s after 1 s",
+    ),
     ("time,speed,x,y\n0,1,0,0\n,1,0,0\n", "row 3, column 'time': time is blank"),
-    ("time,speed,speed [m/s],x,y\n0,1,1,0,0\n", "column 'speed [m/s]': two columns for channel 'speed'"),
-    ("time,speed,x,y,lap\n0,1,0,0,1\n1,1,0,0,0\n", "row 3, column 'lap': lap number goes down from 1 to 0"),
-    ("time,speed,x,y,lap\n0,1,0,0,1.5\n", "row 2, column 'lap': lap number 1.5 is not a whole number"),
+    (
+        "time,speed,speed [m/s],x,y\n0,1,1,0,0\n",
+        "column 'speed [m/s]': two columns for channel 'speed'",
+    ),
+    (
+        "time,speed,x,y,lap\n0,1,0,0,1\n1,1,0,0,0\n",
+        "row 3, column 'lap': lap number goes down from 1 to 0",
+    ),
+    (
+        "time,speed,x,y,lap\n0,1,0,0,1.5\n",
+        "row 2, column 'lap': lap number 1.5 is not a whole number",
+    ),
 ]
 
 
@@ -330,8 +378,12 @@ def test_read_log_positions_match_geographiclib(tmp_path):
     log = read_log(write(tmp_path, text))
     for k, (lat, lon) in enumerate([(-35.2, 139.84), (-35.23, 139.8)], start=1):
         g = Geodesic.WGS84.Inverse(-35.2, 139.8, lat, lon)
-        assert math.hypot(log.channels["x"][k], log.channels["y"][k]) == pytest.approx(g["s12"], abs=1e-3)
-    assert log.channels["y"][1] == pytest.approx(0.0, abs=1.0)  # due east: ~0 north (parallel bends 0.3 m)
+        assert math.hypot(log.channels["x"][k], log.channels["y"][k]) == pytest.approx(
+            g["s12"], abs=1e-3
+        )
+    assert log.channels["y"][1] == pytest.approx(
+        0.0, abs=1.0
+    )  # due east: ~0 north (parallel bends 0.3 m)
     assert log.channels["x"][2] == pytest.approx(0.0, abs=1e-6)  # due south: no east
 
 
@@ -380,22 +432,49 @@ from hypothesis import HealthCheck, given, settings  # noqa: E402
 from hypothesis import strategies as st  # noqa: E402
 
 _CELLS = st.one_of(
-    st.just(""), st.just(" "), st.just("nan"), st.just("inf"), st.just("1,5"), st.just("abc"),
+    st.just(""),
+    st.just(" "),
+    st.just("nan"),
+    st.just("inf"),
+    st.just("1,5"),
+    st.just("abc"),
     st.floats(allow_nan=False, allow_infinity=False, width=32).map(lambda v: f"{v:g}"),
-    st.integers(-400, 400).map(str), st.text(alphabet=';,."\t x[]0123456789-eE', max_size=6),
+    st.integers(-400, 400).map(str),
+    st.text(alphabet=';,."\t x[]0123456789-eE', max_size=6),
 )
 _HEADERS = st.lists(
-    st.sampled_from([
-        "time", "time [ms]", "speed [km/h]", "speed [knots]", "latitude", "longitude", "x", "y",
-        "lap", "accel_lat [g]", "yaw_rate", "junk", "speed", "x [m]",
-    ]),
-    min_size=1, max_size=6,
+    st.sampled_from(
+        [
+            "time",
+            "time [ms]",
+            "speed [km/h]",
+            "speed [knots]",
+            "latitude",
+            "longitude",
+            "x",
+            "y",
+            "lap",
+            "accel_lat [g]",
+            "yaw_rate",
+            "junk",
+            "speed",
+            "x [m]",
+        ]
+    ),
+    min_size=1,
+    max_size=6,
 )
 
 
-@settings(max_examples=150, deadline=None, suppress_health_check=[HealthCheck.function_scoped_fixture])
-@given(header=_HEADERS, rows=st.lists(st.lists(_CELLS, max_size=7), max_size=6),
-       sep=st.sampled_from([",", ";"]), crlf=st.booleans())
+@settings(
+    max_examples=150, deadline=None, suppress_health_check=[HealthCheck.function_scoped_fixture]
+)
+@given(
+    header=_HEADERS,
+    rows=st.lists(st.lists(_CELLS, max_size=7), max_size=6),
+    sep=st.sampled_from([",", ";"]),
+    crlf=st.booleans(),
+)
 def test_reader_fuzz_only_input_errors(tmp_path, header, rows, sep, crlf):
     # Whatever the text, the reader returns a Log or raises InputError with the file's name.
     nl = "\r\n" if crlf else "\n"
@@ -494,8 +573,8 @@ def test_deferred_trace_cells_are_checked_where_they_are_read(tmp_path):
         lazy.channel_rows("brake", 2990, 3010)
     assert "row 3002" in str(err.value) and "brake [bar]" in str(err.value)
     np.testing.assert_array_equal(  # elsewhere the stretch reads as it should
-        lazy.channel_rows("steer", 100, 200), read_log(write(tmp_path, _trace_log(), "ok.csv"))
-        .channels["steer"][100:200]
+        lazy.channel_rows("steer", 100, 200),
+        read_log(write(tmp_path, _trace_log(), "ok.csv")).channels["steer"][100:200],
     )
     lines = _trace_log().splitlines()
     lines[12001] = ",,,,3.5,,"  # the blank row, but for a brake cell

@@ -125,7 +125,10 @@ def test_gate_never_crossed_names_log_and_gate(tmp_path):
     with pytest.raises(InputError) as err:
         split_laps(log, far)
     msg = str(err.value)
-    assert msg.startswith(str(tmp_path / "c.csv")) and "never crosses the gate at -35.190000,139.800000" in msg
+    assert (
+        msg.startswith(str(tmp_path / "c.csv"))
+        and "never crosses the gate at -35.190000,139.800000" in msg
+    )
     assert "closest pass" in msg
 
 
@@ -179,7 +182,9 @@ def test_lap_column_taken_as_it_is(tmp_path):
     t = np.round(np.arange(0, 30.0, 0.1), 10)
     lap = np.where(t < 5, 0, np.where(t < 15, 1, np.where(t < 25, 2, 3))).astype(float)
     lap[1::2] = np.nan  # logged at a lower rate
-    text = csv_text({"time": t, "speed [m/s]": np.full(t.size, 10.0), "x": t * 10, "y": 0 * t, "lap": lap})
+    text = csv_text(
+        {"time": t, "speed [m/s]": np.full(t.size, 10.0), "x": t * 10, "y": 0 * t, "lap": lap}
+    )
     (tmp_path / "l.csv").write_text(text)
     laps = split_laps(read_log(tmp_path / "l.csv"))
     assert [lap.number for lap in laps] == [0, 1, 2, 3]
@@ -284,4 +289,7 @@ def test_laps_command_json_and_error(tmp_path, capsys, monkeypatch):
         main()
     assert stop.value.code == 2
     err = capsys.readouterr().err.strip()
-    assert err == "limitlap: error: --gate: '-35.2;139.8' is not LAT,LON (two numbers separated by a comma)"
+    assert (
+        err
+        == "limitlap: error: --gate: '-35.2;139.8' is not LAT,LON (two numbers separated by a comma)"
+    )

@@ -318,7 +318,13 @@ def test_summary_json_byte_identical_on_two_runs(tmp_path):
 
 def test_summary_json_text_rounds_and_rejects_nothing_silently():
     text = outputs.summary_json_text(
-        {"x_s": np.float64(1 / 3), "y_m": 1 / 3, "n": np.int64(4), "bad_m": float("nan"), "v": [np.float32(0.5)]}
+        {
+            "x_s": np.float64(1 / 3),
+            "y_m": 1 / 3,
+            "n": np.int64(4),
+            "bad_m": float("nan"),
+            "v": [np.float32(0.5)],
+        }
     )
     # Times keep full precision (corner times must add up to the lap's, docs/outputs.md, summary.json);
     # distances are rounded to the millimetre.

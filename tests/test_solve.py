@@ -34,7 +34,10 @@ def test_standard_constants():
     assert RHO_ISA_KG_M3 == 1.225
 
 
-@pytest.mark.parametrize(("radius_m", "mu", "v_ref", "t_ref"), [(100.0, 1.0, 31.3156, 20.0641), (200.0, 1.0, 44.2869, 28.3749)])
+@pytest.mark.parametrize(
+    ("radius_m", "mu", "v_ref", "t_ref"),
+    [(100.0, 1.0, 31.3156, 20.0641), (200.0, 1.0, 44.2869, 28.3749)],
+)
 def test_constant_radius_circle(radius_m, mu, v_ref, t_ref):
     # Steady-state cornering v = sqrt(mu g R) (Milliken & Milliken 1995, steady-state
     # cornering); lap 2 pi R / v. Closed forms: 1e-9 is rounding; the 4-5 digit reference
@@ -99,7 +102,9 @@ def test_aero_corner_speed_and_critical_radius():
     assert r_c == pytest.approx(1330.7, abs=0.05)
     for radius, ref in ((50.0, 27.1798), (100.0, 39.2110), (500.0, 106.7206)):
         v = solve.cornering_speed_limit([1 / radius], car)[0]
-        formula = math.sqrt(car.mu_lat * G0_M_S2 * radius / (1 - car.mu_lat * radius * k_z / car.mass_kg))
+        formula = math.sqrt(
+            car.mu_lat * G0_M_S2 * radius / (1 - car.mu_lat * radius * k_z / car.mass_kg)
+        )
         assert v == pytest.approx(formula, rel=1e-9)
         assert v == pytest.approx(ref, abs=1e-4)
     assert solve.cornering_speed_limit([1 / 2000.0], car)[0] == V_CAP_M_S
@@ -108,7 +113,18 @@ def test_aero_corner_speed_and_critical_radius():
 def test_aero_circle_solver_matches_formula():
     # docs/checks.md, C1.5: the example car's downforce, no drag or power limit: speed equals the
     # closed form at every station (1e-9: rounding).
-    car = Vehicle("aero", 1300.0, math.inf, 0.0, 1.10, 0.0, mu_lat=1.45, mu_brk=1.55, mu_trac=1.30, exponent=2.0)
+    car = Vehicle(
+        "aero",
+        1300.0,
+        math.inf,
+        0.0,
+        1.10,
+        0.0,
+        mu_lat=1.45,
+        mu_brk=1.55,
+        mu_trac=1.30,
+        exponent=2.0,
+    )
     p = solve.solve_profile(circle(100.0), car)
     assert p.speed_m_s == pytest.approx(39.2110, abs=1e-4)
 
@@ -120,7 +136,10 @@ def test_beyond_critical_radius_settles_at_power_drag_top_speed():
     from scipy.optimize import brentq
 
     def excess(v):
-        return car.power_w - v * (0.5 * car.air_density_kg_m3 * car.drag_area_m2 * v**2 + car.rolling_coeff * car.mass_kg * G0_M_S2)
+        return car.power_w - v * (
+            0.5 * car.air_density_kg_m3 * car.drag_area_m2 * v**2
+            + car.rolling_coeff * car.mass_kg * G0_M_S2
+        )
 
     v_top = brentq(excess, 10, 200)
     assert v_top == pytest.approx(91.849, abs=1e-3)
@@ -134,7 +153,9 @@ def test_beyond_critical_radius_settles_at_power_drag_top_speed():
 def test_power_limited_acceleration_closed_form():
     # No drag or rolling, traction never binds: P = m v dv/dt -> v³ = v0³ + 3 P s / m
     # (docs/checks.md, S-i). Heun steps at 0.1 m: 1e-6 relative measured margin class.
-    car = Vehicle("power", 1300.0, 370e3, 0.0, 0.0, 0.0, mu_lat=5.0, mu_brk=5.0, mu_trac=50.0, exponent=2.0)
+    car = Vehicle(
+        "power", 1300.0, 370e3, 0.0, 0.0, 0.0, mu_lat=5.0, mu_brk=5.0, mu_trac=50.0, exponent=2.0
+    )
     line = straight(500.0, 0.1)
     p = solve.solve_profile(line, car, entry_speed_m_s=20.0)
     expected = np.cbrt(20.0**3 + 3 * car.power_w * line.distance_m / car.mass_kg)
@@ -152,7 +173,9 @@ def test_drive_with_drag_against_solve_ivp():
     def rhs(s, y):
         return [float(limits.driving_limit_m_s2(y[0], car)) / y[0]]
 
-    sol = solve_ivp(rhs, (0, 800.0), [20.0], method="DOP853", rtol=1e-10, atol=1e-10, dense_output=True)
+    sol = solve_ivp(
+        rhs, (0, 800.0), [20.0], method="DOP853", rtol=1e-10, atol=1e-10, dense_output=True
+    )
     assert p.speed_m_s == pytest.approx(sol.sol(line.distance_m)[0], rel=1e-5)
 
 
@@ -163,7 +186,9 @@ def test_braking_distance_with_drag_and_downforce():
     car = EXAMPLE_CAR
     rho = car.air_density_kg_m3
     a = car.mu_brk * G0_M_S2 + car.rolling_coeff * G0_M_S2
-    b = (car.mu_brk * 0.5 * rho * car.downforce_area_m2 + 0.5 * rho * car.drag_area_m2) / car.mass_kg
+    b = (
+        car.mu_brk * 0.5 * rho * car.downforce_area_m2 + 0.5 * rho * car.drag_area_m2
+    ) / car.mass_kg
     v0 = 250 / 3.6
     d = math.log(1 + b * v0**2 / a) / (2 * b)
     assert d == pytest.approx(134.236, abs=1e-3)
@@ -200,12 +225,16 @@ def test_periodic_rotation_and_mirror():
     line = random_smooth_loop(3)
     base = solve.solve_profile(line, EXAMPLE_CAR)
     shift = 377
-    rolled = line_from_curvature(line.distance_m, np.roll(line.curvature_1_m, -shift), length_m=line.length_m)
+    rolled = line_from_curvature(
+        line.distance_m, np.roll(line.curvature_1_m, -shift), length_m=line.length_m
+    )
     p = solve.solve_profile(rolled, EXAMPLE_CAR)
     assert p.lap_time_s == pytest.approx(base.lap_time_s, rel=1e-9)
     assert p.speed_m_s == pytest.approx(np.roll(base.speed_m_s, -shift), rel=1e-9)
     mirrored = line_from_curvature(line.distance_m, -line.curvature_1_m, length_m=line.length_m)
-    assert solve.solve_profile(mirrored, EXAMPLE_CAR).lap_time_s == pytest.approx(base.lap_time_s, rel=1e-12)
+    assert solve.solve_profile(mirrored, EXAMPLE_CAR).lap_time_s == pytest.approx(
+        base.lap_time_s, rel=1e-12
+    )
     # T1.9: a periodic lap has no standing start: v(0) and v(L) join smoothly — the first
     # step's acceleration is within the envelope like any other.
     assert base.speed_m_s.min() > 20.0
@@ -215,11 +244,18 @@ def test_direction_reversal_depends_on_asymmetric_limits():
     # docs/checks.md, C1.12: reversing the direction gives the same time only when braking and
     # traction limits are equal.
     line = random_smooth_loop(5)
-    rev = line_from_curvature(line.distance_m, -line.curvature_1_m[::-1].copy(), length_m=line.length_m)
+    rev = line_from_curvature(
+        line.distance_m, -line.curvature_1_m[::-1].copy(), length_m=line.length_m
+    )
     sym = friction_car(1.4)
     asym = friction_car(1.4, mu_brk=1.6, mu_trac=1.0)
-    assert solve.solve_profile(rev, sym).lap_time_s == pytest.approx(solve.solve_profile(line, sym).lap_time_s, rel=1e-3)
-    assert abs(solve.solve_profile(rev, asym).lap_time_s - solve.solve_profile(line, asym).lap_time_s) > 1e-3
+    assert solve.solve_profile(rev, sym).lap_time_s == pytest.approx(
+        solve.solve_profile(line, sym).lap_time_s, rel=1e-3
+    )
+    assert (
+        abs(solve.solve_profile(rev, asym).lap_time_s - solve.solve_profile(line, asym).lap_time_s)
+        > 1e-3
+    )
 
 
 def test_kernel_matches_plain_python_twin():
@@ -227,7 +263,19 @@ def test_kernel_matches_plain_python_twin():
     line = random_smooth_loop(11, n=400)
     car = EXAMPLE_CAR
     p = solve.solve_profile(line, car)
-    params = (car.mass_kg, car.power_w, car.drag_area_m2, car.downforce_area_m2, car.rolling_coeff, car.air_density_kg_m3, car.mu_lat, car.mu_brk, car.mu_trac, car.exponent, G0_M_S2)
+    params = (
+        car.mass_kg,
+        car.power_w,
+        car.drag_area_m2,
+        car.downforce_area_m2,
+        car.rolling_coeff,
+        car.air_density_kg_m3,
+        car.mu_lat,
+        car.mu_brk,
+        car.mu_trac,
+        car.exponent,
+        G0_M_S2,
+    )
     v, t = reference.solve_closed(list(line.curvature_1_m), list(line.ds_m), params, V_CAP_M_S)
     assert p.speed_m_s == pytest.approx(np.array(v), rel=1e-10)
     assert p.lap_time_s == pytest.approx(t, rel=1e-10)
@@ -240,7 +288,18 @@ def test_lipp_boyd_socp_optimum():
     # 0.1 % between the two lap times (different discretisations of the same optimum).
     cp = pytest.importorskip("cvxpy")
     line = random_smooth_loop(7, n=800, base_radius_m=150.0)
-    car = Vehicle("socp", 1300.0, math.inf, 0.75, 1.10, 0.012, mu_lat=1.45, mu_brk=1.40, mu_trac=1.40, exponent=2.0)
+    car = Vehicle(
+        "socp",
+        1300.0,
+        math.inf,
+        0.75,
+        1.10,
+        0.012,
+        mu_lat=1.45,
+        mu_brk=1.40,
+        mu_trac=1.40,
+        exponent=2.0,
+    )
     p = solve.solve_profile(line, car)
     n, ds, kap = line.n, line.ds_m, line.curvature_1_m
     m, rho = car.mass_kg, car.air_density_kg_m3
@@ -276,12 +335,25 @@ def test_lipp_boyd_socp_optimum():
     n=st.floats(1.5, 3.0),
     k=st.floats(0.2, 2.0),
 )
-def test_property_profile_stays_inside_envelope(seed, mass, power_kw, cda, cla, mu, brk, trac, n, k):
+def test_property_profile_stays_inside_envelope(
+    seed, mass, power_kw, cda, cla, mu, brk, trac, n, k
+):
     # Random lines and cars: positive finite speed, increasing time, lateral demand within
     # the grip limit at every station, and the longitudinal acceleration of each step within
     # the combined limit at one of its two ends (the Heun step averages the two ends).
     line = random_smooth_loop(seed, n=300, base_radius_m=120.0)
-    car = Vehicle("h", mass, power_kw * 1e3, cda, cla, 0.012, mu_lat=mu, mu_brk=mu * brk, mu_trac=mu * trac, exponent=n)
+    car = Vehicle(
+        "h",
+        mass,
+        power_kw * 1e3,
+        cda,
+        cla,
+        0.012,
+        mu_lat=mu,
+        mu_brk=mu * brk,
+        mu_trac=mu * trac,
+        exponent=n,
+    )
     p = solve.solve_profile(line, car, k)
     assert np.all(np.diff(p.time_s) > 0)
     # finite, positive speeds within the cap; lateral within the limit to 1e-9; each
@@ -325,8 +397,9 @@ def test_a_grade_the_car_cannot_take_is_named(what):
         k[1400:1420] = 1.0 / 15.0
         k[2000:2020] = -1.0 / 15.0  # the loop's total turn stays one revolution
     line = line_from_curvature(s, k, grad, closed=True)
-    car = Vehicle("weak", 1000.0, 150e3, 0.7, 0.0, 0.012, mu_lat=1.0, mu_brk=1.0, mu_trac=1.0,
-                  exponent=2.0)
+    car = Vehicle(
+        "weak", 1000.0, 150e3, 0.7, 0.0, 0.012, mu_lat=1.0, mu_brk=1.0, mu_trac=1.0, exponent=2.0
+    )
     with pytest.raises(LimitlapError) as err:
         solve.solve_profile(line, car, 0.3)
     text = str(err.value)

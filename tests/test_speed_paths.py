@@ -107,11 +107,18 @@ def test_best_of_laps_takes_timelines(session_and_log):
     timelines = list(pipeline.lap_timelines(log, laps).values())
     ref = timelines[0]
     seg = [(0.0, 0.3), (0.3, 0.7), (0.7, 1.0)]
-    corners = [_Segment(a * ref.length_m, b * ref.length_m, f"S{i}") for i, (a, b) in enumerate(seg)]
+    corners = [
+        _Segment(a * ref.length_m, b * ref.length_m, f"S{i}") for i, (a, b) in enumerate(seg)
+    ]
     best = best_laps.best_of_laps(timelines, corners, reference_length_m=ref.length_m)
     for row, tl in zip(best.segment_times_s, timelines, strict=True):
         expect = best_laps.segment_times(
-            tl.distance_m, tl.length_m, tl.time_s, tl.lap_time_s, corners, tl.length_m / ref.length_m
+            tl.distance_m,
+            tl.length_m,
+            tl.time_s,
+            tl.lap_time_s,
+            corners,
+            tl.length_m / ref.length_m,
         )
         assert np.array_equal(row, expect)
         # three segments tile the lap: they add up to its time (rounding only)
@@ -267,8 +274,10 @@ def _crosses_reference(x, y):
     hit = (o1 * o2 < 0) & (o3 * o4 < 0)
     hit |= (
         (o1 == 0)
-        & (np.minimum(x[i], bx[i]) <= x[j]) & (x[j] <= np.maximum(x[i], bx[i]))
-        & (np.minimum(y[i], by[i]) <= y[j]) & (y[j] <= np.maximum(y[i], by[i]))
+        & (np.minimum(x[i], bx[i]) <= x[j])
+        & (x[j] <= np.maximum(x[i], bx[i]))
+        & (np.minimum(y[i], by[i]) <= y[j])
+        & (y[j] <= np.maximum(y[i], by[i]))
     )
     near = (np.abs(i - j) <= 1) | (np.abs(i - j) == n - 1)
     return bool(np.any(hit & ~near))
@@ -355,7 +364,9 @@ def test_selection_made_beforehand_gives_the_same_fit(session_and_log):
     # must be the one made from the arrays and the mask directly.
     session, log = session_and_log
     laps = split_laps(log, Gate.geodetic(*session.truth.gate_latlon))
-    v, ax, ay, mask, rate, thr = pipeline._imu_samples(log, laps, [lp for lp in laps if lp.complete])
+    v, ax, ay, mask, rate, thr = pipeline._imu_samples(
+        log, laps, [lp for lp in laps if lp.complete]
+    )
     base = envelope.Vehicle("m", 1200.0)
     direct = envelope.fit_envelope(v, ax, ay, base, mask=mask, sample_rate_hz=rate, throttle=thr)
     early = samples.select_samples(v, ax, ay, sample_rate_hz=rate)
@@ -449,7 +460,10 @@ def test_vectorised_crossing_refinement_matches_one_fit_per_crossing(session_and
     s = travelled_m(log)
     rng = np.random.default_rng(3)
     near = np.flatnonzero(np.hypot(x - gx, y - gy) < 5.0)
-    at = np.sort(s[near][:: max(1, near.size // 40)] + rng.uniform(-3.0, 3.0, near[:: max(1, near.size // 40)].size))
+    at = np.sort(
+        s[near][:: max(1, near.size // 40)]
+        + rng.uniform(-3.0, 3.0, near[:: max(1, near.size // 40)].size)
+    )
     for nx, ny in ((1.0, 0.0), (0.6, 0.8), (-0.28, 0.96)):
         got = laps_mod._refine_crossings(log, gx, gy, nx, ny, s, at)
         want = _refine_reference(log, gx, gy, nx, ny, s, at)
@@ -482,8 +496,18 @@ def test_robust_least_squares_matches_scipy_soft_l1():
         (np.array([0.0, 0.0, -1.0]), np.array([10.0, 10.0, 1.0]), True),
         (np.array([0.0, 0.0, -1.0]), np.array([10.0, 10.0, 0.1]), False),  # x[2] held at 0.1
     ):
-        ref = scipy_least_squares(fun, start, jac=jac, bounds=(lo, hi), loss="soft_l1", f_scale=0.1,
-                            x_scale="jac", ftol=1e-12, xtol=1e-12, gtol=1e-12)
+        ref = scipy_least_squares(
+            fun,
+            start,
+            jac=jac,
+            bounds=(lo, hi),
+            loss="soft_l1",
+            f_scale=0.1,
+            x_scale="jac",
+            ftol=1e-12,
+            xtol=1e-12,
+            gtol=1e-12,
+        )
         got = least_squares.soft_l1_least_squares(fun, jac, start, lo, hi, 0.1)
         np.testing.assert_allclose(got.x, ref.x, rtol=1e-6, atol=1e-9)
         np.testing.assert_allclose(got.fun, fun(got.x), rtol=0, atol=0)
