@@ -145,7 +145,11 @@ def _drive_straight(st: Straight, car: Car, v_in, v_out):
     """Full drive from v_in, full braking into v_out, switching where they cross."""
     brk = solve_ivp(
         lambda s, y: [-car.brake_m_s2(y[0]) / y[0], -1.0 / y[0]],
-        (st.length_m, 0.0), [v_out, 0.0], method="DOP853", rtol=TOL, atol=TOL,
+        (st.length_m, 0.0),
+        [v_out, 0.0],
+        method="DOP853",
+        rtol=TOL,
+        atol=TOL,
         dense_output=True,
     )
 
@@ -156,8 +160,13 @@ def _drive_straight(st: Straight, car: Car, v_in, v_out):
     meets_braking.direction = 1.0
     fwd = solve_ivp(
         lambda s, y: [car.drive_m_s2(y[0]) / y[0], 1.0 / y[0]],
-        (0.0, st.length_m), [v_in, 0.0], method="DOP853", rtol=TOL, atol=TOL,
-        dense_output=True, events=meets_braking,
+        (0.0, st.length_m),
+        [v_in, 0.0],
+        method="DOP853",
+        rtol=TOL,
+        atol=TOL,
+        dense_output=True,
+        events=meets_braking,
     )
     assert brk.success and fwd.success and fwd.t_events[0].size == 1, "no brake point"
     st.fwd, st.brk = fwd, brk
@@ -230,8 +239,12 @@ def _straight_channels(st: Straight, car: Car, tau):
         v[driving] = st.fwd.sol(s[driving])[0]
     if not driving.all():
         v[~driving] = st.brk.sol(s[~driving])[0]
-    a_lon = np.array([car.drive_m_s2(x) if d else -car.brake_m_s2(x) for x, d in zip(v, driving, strict=True)])
-    xy = st.start_xy[:, None] + s * np.array([[math.cos(st.heading_rad)], [math.sin(st.heading_rad)]])
+    a_lon = np.array(
+        [car.drive_m_s2(x) if d else -car.brake_m_s2(x) for x, d in zip(v, driving, strict=True)]
+    )
+    xy = st.start_xy[:, None] + s * np.array(
+        [[math.cos(st.heading_rad)], [math.sin(st.heading_rad)]]
+    )
     zero = np.zeros_like(tau)
     return xy, v, a_lon, zero, zero, np.where(driving, 100.0, 0.0)
 
@@ -266,9 +279,19 @@ def sample(circuit: Circuit, t_s, t_offset_s=0.0) -> dict:
     return out
 
 
-def session_csv(circuit: Circuit, *, laps_before_s, n_laps, laps_after_s, seed,
-                rate_hz=100, gnss_every=10, accel_noise_g=0.025, gnss_noise_m=0.3,
-                yaw_noise_rad_s=0.005):
+def session_csv(
+    circuit: Circuit,
+    *,
+    laps_before_s,
+    n_laps,
+    laps_after_s,
+    seed,
+    rate_hz=100,
+    gnss_every=10,
+    accel_noise_g=0.025,
+    gnss_noise_m=0.3,
+    yaw_noise_rad_s=0.005,
+):
     """Log text (docs/formats.md, Log files) of ``n_laps`` laps at the limit, with
     ``laps_before_s``/``laps_after_s`` of driving either side. Log time 0 is that long
     before the middle of the first straight (the gate). Seeded Gaussian noise: on the
@@ -289,12 +312,17 @@ def session_csv(circuit: Circuit, *, laps_before_s, n_laps, laps_after_s, seed,
     fix = np.arange(n) % gnss_every == 0
     x = ch["x"] + rng.normal(0.0, gnss_noise_m, n)
     y = ch["y"] + rng.normal(0.0, gnss_noise_m, n)
-    lines = ["time [s],x [m],y [m],speed [km/h],accel_lon [m/s^2],accel_lat [m/s^2],"
-             "yaw_rate [rad/s],throttle [%]"]
+    lines = [
+        "time [s],x [m],y [m],speed [km/h],accel_lon [m/s^2],accel_lat [m/s^2],"
+        "yaw_rate [rad/s],throttle [%]"
+    ]
     kmh = ch["v"] * 3.6
     for i in range(n):
         pos = f"{x[i]:.3f},{y[i]:.3f}" if fix[i] else ","
-        lines.append(f"{t[i]:.2f},{pos},{kmh[i]:.4f},{ax[i]:.4f},{ay[i]:.4f},"
-                     f"{yaw[i]:.5f},{ch['thr'][i]:.2f}")
-    gate_xy = first.start_xy + gate_s * np.array([math.cos(first.heading_rad), math.sin(first.heading_rad)])
+        lines.append(
+            f"{t[i]:.2f},{pos},{kmh[i]:.4f},{ax[i]:.4f},{ay[i]:.4f},{yaw[i]:.5f},{ch['thr'][i]:.2f}"
+        )
+    gate_xy = first.start_xy + gate_s * np.array(
+        [math.cos(first.heading_rad), math.sin(first.heading_rad)]
+    )
     return "\n".join(lines) + "\n", gate_xy

@@ -23,6 +23,9 @@ import pytest
 from limitlap import best_laps, laps, outputs, pipeline, synth
 from limitlap import corners as corners_mod
 
+#: Whole-session and multi-process runs: the quick loop leaves them out.
+pytestmark = pytest.mark.slow
+
 SEED_DRY, SEED_WET, SEED_LIMIT = 3, 4, 5
 ENVELOPES = ["fitted", "true"]  # envelope fitted from the log (no vehicle file) / true car
 

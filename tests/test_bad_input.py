@@ -124,6 +124,7 @@ BAD_LOGS = [
 ]
 
 
+@pytest.mark.slow
 @pytest.mark.parametrize(("name", "text", "expected"), BAD_LOGS, ids=[c[0] for c in BAD_LOGS])
 @pytest.mark.parametrize("command", ["laps", "analyse"])
 def test_bad_log(tmp_path, cli, name, text, expected, command):
@@ -428,6 +429,7 @@ def run_process(*args, cwd):
     )
 
 
+@pytest.mark.slow
 def test_subprocess_error_is_one_line(tmp_path, line_file):
     # The installed entry point as a user runs it: exit status 2, one stderr line.
     car = write(
@@ -444,6 +446,7 @@ def test_subprocess_error_is_one_line(tmp_path, line_file):
     assert (digest(car), digest(line_file)) == before
 
 
+@pytest.mark.slow
 def test_subprocess_bom_crlf_log_analyses(tmp_path):
     text = demo_csv(2)
     log = write(tmp_path, "win.csv", b"\xef\xbb\xbf" + text.replace("\n", "\r\n").encode())

@@ -16,6 +16,9 @@ import pytest
 from limitlap import batch, pipeline, synth
 from tests.robust_data import run_cli
 
+#: Whole-session and multi-process runs: the quick loop leaves them out.
+pytestmark = pytest.mark.slow
+
 
 @pytest.fixture(scope="module")
 def logs(tmp_path_factory):

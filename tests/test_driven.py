@@ -57,6 +57,7 @@ def circle_session():
     return synth.generate_session(c, n_laps=2, mistakes=(), lap_variation=0.0, seed=21)
 
 
+@pytest.mark.slow
 def test_noisy_gnss_circle_curvature_t31():
     # docs/checks.md, C3.1: circle R = 100 m, 10 Hz, white noise σ = 0.3 m per coordinate,
     # GNSS only: median |Δκ|/κ < 0.10, 95th percentile < 0.35.
@@ -73,6 +74,7 @@ def test_noisy_gnss_circle_curvature_t31():
     assert np.percentile(rel, 95) < 0.35
 
 
+@pytest.mark.slow
 def test_fusion_beats_gnss_only_and_recovers_the_radius(circle_session):
     s = circle_session
     lap = truth_lap(s, 1)

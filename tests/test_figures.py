@@ -105,6 +105,7 @@ def test_fill_between_stops_where_the_curves_cross():
 # --------------------------------------------------------------------------- ticks
 
 
+@pytest.mark.slow
 @pytest.mark.parametrize(
     ("xlim", "ylim"),
     [
@@ -358,6 +359,7 @@ def test_every_figure_has_its_fixed_size_and_is_drawn():
         assert img.std() > 5.0, name  # not a blank image
 
 
+@pytest.mark.slow
 def test_figures_keep_their_colours():
     pngs = _every_figure()
 

@@ -13,6 +13,7 @@ from __future__ import annotations
 import math
 
 import numpy as np
+import pytest
 from hypothesis import HealthCheck, assume, given, settings
 from hypothesis import strategies as st
 
@@ -26,6 +27,9 @@ from limitlap.logfile import read_log
 from limitlap.units import G0_M_S2
 from limitlap.vehicle import Vehicle
 from tests.cases import assert_inside_envelope
+
+#: Whole-session, random-input and multi-process runs: the quick loop leaves them out.
+pytestmark = pytest.mark.slow
 
 FAST = settings(
     max_examples=50,

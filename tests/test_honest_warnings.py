@@ -10,6 +10,9 @@ import pytest
 
 from .robust_data import demo_csv, demo_gate, demo_session, run_cli
 
+#: Whole-session and multi-process runs: the quick loop leaves them out.
+pytestmark = pytest.mark.slow
+
 
 def analyse(tmp_path, capsys, monkeypatch, text, *extra):
     log = tmp_path / "session.csv"

@@ -67,6 +67,7 @@ def test_units_match_their_exact_definitions(tmp_path):
     assert ch["x"].tolist() == [0.0, 1.0]
 
 
+@pytest.mark.slow
 @pytest.mark.parametrize(
     ("header", "value", "expected"),
     [
@@ -150,6 +151,7 @@ def test_fully_blank_rows_are_skipped_and_unknown_columns_ignored(tmp_path):
     assert "driver_mood" not in log.channels
 
 
+@pytest.mark.slow
 def test_reads_a_long_session_in_about_polars_time(tmp_path):
     # One hour at 100 Hz (issue 3): 360,000 rows, 10 Hz GPS with blanks between.
     n = 360_000
@@ -475,6 +477,7 @@ _HEADERS = st.lists(
     sep=st.sampled_from([",", ";"]),
     crlf=st.booleans(),
 )
+@pytest.mark.slow
 def test_reader_fuzz_only_input_errors(tmp_path, header, rows, sep, crlf):
     # Whatever the text, the reader returns a Log or raises InputError with the file's name.
     nl = "\r\n" if crlf else "\n"
@@ -516,6 +519,7 @@ def _trace_log(n=20_000, seed=2):
     return "\n".join(lines) + "\n"
 
 
+@pytest.mark.slow
 @pytest.mark.parametrize("kind", ["plain", "gzip", "semicolon", "crlf_bom_ms"])
 def test_deferred_trace_channels_read_the_same_values(tmp_path, kind):
     # Deferred channels parsed for a stretch of rows (their bytes alone, found by the time
@@ -554,6 +558,7 @@ def test_deferred_trace_channels_read_the_same_values(tmp_path, kind):
     assert lazy.channel_rows("steer", 4999, 5000)[0] == eager.channels["steer"][4999]
 
 
+@pytest.mark.slow
 def test_deferred_trace_cells_are_checked_where_they_are_read(tmp_path):
     # A bad cell in a deferred channel is reported (file, row, column) when its rows are
     # read, as the eager reader reports it; a row blank but for a trace cell is the

@@ -38,9 +38,17 @@ def circuit():
 
 def _true_vehicle(car: arc_circuit.Car) -> Vehicle:
     return Vehicle(
-        "true", car.mass_kg, car.power_w, car.drag_area_m2, car.downforce_area_m2,
-        car.rolling_coeff, car.air_density_kg_m3,
-        mu_lat=car.mu_lat, mu_brk=car.mu_brk, mu_trac=car.mu_trac, exponent=2.0,
+        "true",
+        car.mass_kg,
+        car.power_w,
+        car.drag_area_m2,
+        car.downforce_area_m2,
+        car.rolling_coeff,
+        car.air_density_kg_m3,
+        mu_lat=car.mu_lat,
+        mu_brk=car.mu_brk,
+        mu_trac=car.mu_trac,
+        exponent=2.0,
     )
 
 

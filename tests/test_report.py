@@ -473,6 +473,7 @@ def test_progress_reports_every_step(written):
     assert any("figure" in s for _, _, s in steps) and steps[-1][2] == "report.html"
 
 
+@pytest.mark.slow
 def test_importing_report_does_not_import_matplotlib():
     code = "import sys, limitlap.report, limitlap.figures; print('matplotlib' in sys.modules)"
     res = subprocess.run(
@@ -516,6 +517,7 @@ def test_time_loss_rate_of_linear_delta_is_its_slope():
 # --------------------------------------------------------------------------- target sheets
 
 
+@pytest.mark.slow
 def test_target_sheets_pdf_png_and_csv(tmp_path):
     conds = _conditions()
     files = sheets.write_target_sheets(conds, tmp_path / "targets", "Invented Ring")
@@ -546,6 +548,7 @@ def test_target_sheets_pdf_png_and_csv(tmp_path):
     assert float(wet[0][2]) == pytest.approx(conds[1].lap_time_s, abs=5e-4)  # 3 decimals
 
 
+@pytest.mark.slow
 def test_target_sheet_pdf_is_deterministic():
     cond = sheets._condition(_conditions()[1])
     a = figures.target_sheet(cond, "Invented Ring", report.SAFETY_CAUTION, fmt="pdf")
@@ -619,6 +622,7 @@ def test_report_renders_in_headless_chromium(written, tmp_path):
     assert pixels[..., :3].std() > 0.05  # something was drawn, not a blank page
 
 
+@pytest.mark.slow
 def test_track_corner_labels_reach_summary_and_report(tmp_path):
     # A track file names its corners ("T4" -> "Kettle Hairpin" on the bundled invented
     # circuit): the labels must reach summary.json (an extra "label" key, docs/outputs.md, summary.json

@@ -87,6 +87,7 @@ def test_inputs_unchanged_by_every_command(tmp_path, cli, inputs):
     assert after == before
 
 
+@pytest.mark.slow
 def test_same_inputs_give_byte_identical_summary(tmp_path, cli, inputs):
     log, ch, trk = inputs["log"], inputs["channels"], inputs["track"]
     for out in ("first", "second"):
@@ -108,6 +109,7 @@ def test_same_inputs_give_byte_identical_summary(tmp_path, cli, inputs):
         assert (tmp_path / "first" / name).read_bytes() == (tmp_path / "second" / name).read_bytes()
 
 
+@pytest.mark.slow
 def test_interrupted_write_leaves_the_earlier_result_whole(
     tmp_path, cli, inputs, capsys, monkeypatch
 ):

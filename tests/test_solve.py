@@ -281,6 +281,7 @@ def test_kernel_matches_plain_python_twin():
     assert p.lap_time_s == pytest.approx(t, rel=1e-10)
 
 
+@pytest.mark.slow
 def test_lipp_boyd_socp_optimum():
     # Lipp & Boyd (Int. J. Control 2014, doi:10.1080/00207179.2013.875224): the minimum-time
     # speed problem over a fixed path is convex in b = v². Friction ellipse with drag and

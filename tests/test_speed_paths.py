@@ -185,6 +185,7 @@ def test_tyre_plane_fast_paths_match_the_numpy_functions(power_w):
     assert np.array_equal(phi_np, np.arctan2(sy, sx), equal_nan=True)
 
 
+@pytest.mark.slow
 def test_thinned_fit_keeps_the_envelope():
     # A 30-minute 100 Hz record (the kerb-strike series of test_envelope, longer): more
     # than FIT_MIN_SAMPLES samples, so the fit thins to FIT_RATE_HZ. After the 3 Hz
@@ -204,6 +205,7 @@ def test_thinned_fit_keeps_the_envelope():
         assert getattr(thin.vehicle, k) == pytest.approx(getattr(EXAMPLE_CAR, k), rel=0.03), k
 
 
+@pytest.mark.slow
 def test_short_records_are_not_thinned(session_and_log):
     # A three-lap session has fewer than FIT_MIN_SAMPLES samples: the same fit either way.
     _, log = session_and_log
@@ -358,6 +360,7 @@ def test_commands_hand_frozen_objects_back(monkeypatch, capsys):
     assert "lap_time_s" in capsys.readouterr().out
 
 
+@pytest.mark.slow
 def test_selection_made_beforehand_gives_the_same_fit(session_and_log):
     # The pipeline selects the envelope's samples (no mask) in a second thread while it
     # splits the laps, then fits with the laps' mask applied to that selection: the fit

@@ -187,6 +187,7 @@ def test_wet_session_is_the_scaled_vehicle(circuit):
     assert tr.ideal_lap_time_s > solve_profile(tr.line, tr.vehicle).lap_time_s
 
 
+@pytest.mark.slow
 def test_one_hour_session_is_fast_enough():
     import time
 
