@@ -385,18 +385,16 @@ def compare_lap(
     -----
     Segment times are elapsed-time differences at the segment bounds (linear in
     distance between stations), so they add up to the lap times and the corners' time
-    left to the lap's (docs/outputs.md, summary.json). Brake start is where brake pressure first exceeds
-    5 % of the lap's 99th-percentile pressure, or without pressure where a_x first falls
-    below -2.5 m/s², in the braking zone before the minimum speed, interpolated between
-    stations. Full drive is throttle ≥ 98 %, or without throttle (and always for the
-    ideal) a_x reaching 90 % of the forward acceleration the envelope leaves after the
-    lateral demand. The ideal's brake start is taken from its speed profile: the first
-    crossing of -2.5 m/s² after the last local maximum of speed before the minimum, so a
-    trail-braking dip of the deceleration does not split the zone. Grip used is the
+    left to the lap's (docs/outputs.md, summary.json). Minimum speed, brake point and
+    full drive are :func:`limitlap.markers.corner_markers` on each lap: braking is brake
+    pressure over 5 % of the lap's 99th-percentile pressure, else a_x below -2.5 m/s²;
+    full drive is throttle ≥ 98 %, else (and always for the ideal) a_x at 90 % of what
+    the envelope leaves after the lateral demand; the ideal's brake point is taken from
+    its speed profile, so a trail-braking dip does not split the zone. Grip used is the
     real lap's time-weighted mean of combined usage (:func:`limitlap.limits.combined_usage`)
-    over the ideal's, where the ideal is grip-limited (usage ≥ 0.95). The time-left phases are cut where the
-    ideal stops braking and where it reaches full drive. Thresholds and quantiles are
-    common practice, not published values.
+    over the ideal's where the ideal is grip-limited (usage ≥ 0.95). The time-left
+    phases are cut where the ideal stops braking and where it reaches full drive.
+    Thresholds are common practice (docs/methods.md, Corners and comparison).
     """
     line = driven.line
     if ideal.speed_m_s.shape[0] != line.n or not np.allclose(ideal.distance_m, line.distance_m):
@@ -404,29 +402,14 @@ def compare_lap(
     k = float(ideal.grip_scale if grip_scale is None else grip_scale)
     env = vehicle.scaled(k) if k != 1.0 else vehicle.require_complete()
     sin_grad = np.asarray(line.gradient) / np.sqrt(1.0 + np.asarray(line.gradient) ** 2)
-    t_act, lap_act = elapsed_from_gate(driven)
-    v_act, ax_act, ay_act = _driven_channels(driven, line)
-    actual, brake_thr, has_throttle = _actual_trace(
-        driven, env, sin_grad, (t_act, lap_act, v_act, ax_act, ay_act)
-    )
+    channels = (*elapsed_from_gate(driven), *_driven_channels(driven, line))
+    t_act, lap_act, v_act, _, _ = channels
+    actual, brake_thr, has_throttle = _actual_trace(driven, env, sin_grad, channels)
     best = _ideal_trace(ideal, line, env, sin_grad)
-
-    if grip_estimate is None or corner_grip_estimates is None:
-        est_all, est_seg = _grip_estimates(
-            t_act, lap_act, v_act, ax_act, ay_act, vehicle, line, corners
-        )
-        grip_estimate = est_all if grip_estimate is None else grip_estimate
-        if corner_grip_estimates is None:
-            corner_grip_estimates = est_seg
-    grips = _per_corner_values(corner_grip_estimates, corners, "corner grip estimates")
-    bounds = unwrapped_bounds(corners, actual.length, line.closed)
-    rows = [
-        _corner_row(c, bound, g, actual, best, brake_thr, has_throttle)
-        for c, bound, g in zip(corners, bounds, grips, strict=True)
-    ]
-    order = sorted(range(len(rows)), key=lambda i: -rows[i]["time_left_s"])
-    for r, i in enumerate(order):
-        rows[i]["rank"] = r + 1
+    grip_estimate, grips = _grip_values(
+        channels, vehicle, line, corners, grip_estimate, corner_grip_estimates
+    )
+    rows = _corner_rows(corners, grips, actual, best, brake_thr, has_throttle)
     return LapComparison(
         distance_m=np.asarray(line.distance_m, dtype=np.float64).copy(),
         length_m=actual.length,
@@ -440,6 +423,37 @@ def compare_lap(
         grip_estimate=None if grip_estimate is None else float(grip_estimate),
         corners=tuple(CornerComparison(**r) for r in rows),
     )
+
+
+def _grip_values(channels, vehicle: Vehicle, line: Line, corners, grip_estimate, per_corner):
+    """The lap's grip estimate as given, and one value per corner in corner order. [-].
+
+    Where either is not given, both are estimated from the real lap's stations
+    (:func:`_grip_estimates`; ``channels`` as for :func:`_actual_trace`) and the missing
+    one taken from there.
+    """
+    if grip_estimate is None or per_corner is None:
+        est_all, est_seg = _grip_estimates(*channels, vehicle, line, corners)
+        grip_estimate = est_all if grip_estimate is None else grip_estimate
+        if per_corner is None:
+            per_corner = est_seg
+    return grip_estimate, _per_corner_values(per_corner, corners, "corner grip estimates")
+
+
+def _corner_rows(corners, grips, actual: Trace, best: Trace, brake_thr, has_throttle):
+    """Every corner's :class:`CornerComparison` fields in driving order, ranked.
+
+    ``rank`` 1 is the corner with most time left; the rest as :func:`_corner_row`.
+    """
+    bounds = unwrapped_bounds(corners, actual.length, actual.closed)
+    rows = [
+        _corner_row(c, bound, g, actual, best, brake_thr, has_throttle)
+        for c, bound, g in zip(corners, bounds, grips, strict=True)
+    ]
+    order = sorted(range(len(rows)), key=lambda i: -rows[i]["time_left_s"])
+    for r, i in enumerate(order):
+        rows[i]["rank"] = r + 1
+    return rows
 
 
 def _brake_threshold(brake):
@@ -589,7 +603,7 @@ GRIP_RESAMPLE_HZ = 50.0
 
 
 def _grip_estimates(t, lap_time, v, ax, ay, vehicle: Vehicle, line: Line, corners):
-    """Grip scale the lap used, overall and per corner (limitlap.envelope), at grip 1.
+    """Grip scale the lap used, overall and per corner (limitlap.grip), at grip 1.
 
     The stations' channels carry the logger's noise unfiltered; resampled to a uniform
     time grid they get the despiking and low-pass of a raw log, the same filtering as

@@ -1,10 +1,11 @@
 r"""Targets before a session: per-corner speeds and brake points for a grip scale.
 
 For each condition (a grip scale k on the envelope's friction coefficients,
-docs/formats.md, Vehicle files) the ideal profile is solved on the line and read corner by corner: the speed where
-braking starts, the brake point (from the gate and before the apex), the minimum speed,
-the speed at the end of the corner's segment and the segment time. The corners are
-found once on the line and reused for every condition, so the tables line up.
+docs/formats.md, Vehicle files) the ideal profile is solved on the line and read corner
+by corner: the speed where braking starts, the brake point (from the gate and before the
+apex), the minimum speed, the speed at the end of the corner's segment and the segment
+time. The corners are found once on the line and reused for every condition, so the
+tables line up.
 
 Named conditions are defaults, overridable by the user (:data:`CONDITIONS`).
 """
@@ -199,13 +200,27 @@ def target_table(
     if corners is None:
         corners = find_corners(line)
     prof = solve_profile(line, vehicle, k)
-    env = vehicle.scaled(k)
-    length = float(line.length_m)
+    tr = _profile_trace(line, prof, vehicle.scaled(k))
+    bounds = unwrapped_bounds(corners, tr.length, tr.closed)
+    exits = _exit_speeds(line, prof, corners)
+    out = tuple(
+        _corner_target(c, bound, tr, v_exit)
+        for c, bound, v_exit in zip(corners, bounds, exits, strict=True)
+    )
+    return TargetCondition(k, float(prof.lap_time_s), out, label, prof)
+
+
+def _profile_trace(line: Line, prof: Profile, env: Vehicle) -> Trace:
+    """The ideal profile on ``line`` as a :class:`~limitlap.markers.Trace`.
+
+    ``env`` is the envelope at the profile's grip scale, for the drive it leaves after
+    the lateral demand (:func:`limitlap.limits.drive_accel_available_m_s2`).
+    """
     grad = np.asarray(line.gradient, dtype=np.float64)
     sin_grad = grad / np.sqrt(1.0 + grad * grad)
-    tr = Trace(
+    return Trace(
         line.distance_m,
-        length,
+        float(line.length_m),
         line.closed,
         prof.time_s,
         prof.lap_time_s,
@@ -214,46 +229,69 @@ def target_table(
         prof.accel_lat_m_s2,
         limits.drive_accel_available_m_s2(prof.speed_m_s, prof.accel_lat_m_s2, env, sin_grad),
     )
-    s_ext = np.append(line.distance_m, length)
+
+
+def _exit_speeds(line: Line, prof: Profile, corners: Sequence[Corner]) -> list[float]:
+    """The profile's speed at each corner's segment end, linear between stations. [m/s]."""
+    s_ext = np.append(line.distance_m, float(line.length_m))
     v_ext = np.append(prof.speed_m_s, prof.speed_m_s[0] if line.closed else prof.speed_m_s[-1])
-    out = []
-    for c, (start_u, apex_u, end_u, lo, hi) in zip(
-        corners, unwrapped_bounds(corners, length, line.closed), strict=True
-    ):
-        seg_time = tr.time_at_mod(c.end_m) - tr.time_at_mod(c.start_m)
-        if line.closed and c.end_m <= c.start_m:
-            seg_time += tr.lap_time
-        zone = zone_u(c, start_u, length, line.closed)
-        mk = corner_markers(
-            tr, lo, start_u, end_u, hi, None, False, zone, apex_u, profile_brake=True
-        )
-        braked = math.isfinite(mk.brake_start)
-        entry_u = mk.brake_start if braked else zone[0]
-        entry = float(np.interp(entry_u, tr.u, tr.v))
-        # The minimum from the entry point to the exit (turn-in included: a corner
-        # still accelerating has its minimum, equal to the entry speed, there).
-        v_min, min_u, _ = lowest_speed(tr, entry_u, max(zone[1], entry_u) + 1e-9)
-        if not v_min <= entry:  # the entry point lies between stations
-            v_min, min_u = entry, entry_u
-        # The apex of that minimum: the nearest apex not before the brake point.
-        apexes_u = [unwrap_after(a, start_u, length, line.closed) for a in c.apexes_m]
-        after = [a for a in apexes_u if a >= entry_u] or [min_u]
-        apex_at = min(after, key=lambda a: abs(a - min_u))
-        before = apex_at - mk.brake_start if braked else math.nan
-        out.append(
-            CornerTarget(
-                name=c.name,
-                apex_m=wrap_distance(apex_at, length, line.closed),
-                entry_speed_m_s=entry,
-                brake_start_m=wrap_distance(mk.brake_start, length, line.closed),
-                brake_before_apex_m=float(before),
-                min_speed_m_s=float(v_min),
-                min_speed_at_m=wrap_distance(min_u, length, line.closed),
-                exit_speed_m_s=float(np.interp(c.end_m, s_ext, v_ext)),
-                segment_time_s=float(seg_time),
-            )
-        )
-    return TargetCondition(k, float(prof.lap_time_s), tuple(out), label, prof)
+    return [float(np.interp(c.end_m, s_ext, v_ext)) for c in corners]
+
+
+def _corner_target(c: Corner, bound, tr: Trace, exit_speed_m_s: float) -> CornerTarget:
+    """One corner's targets on the ideal's trace.
+
+    ``bound`` is the corner's entry of :func:`limitlap.markers.unwrapped_bounds`
+    (unwrapped start, apex, end and search limits [m]); ``exit_speed_m_s`` the speed at
+    the segment end [m/s].
+    """
+    start_u, apex_u, end_u, lo, hi = bound
+    length, closed = tr.length, tr.closed
+    seg_time = tr.time_at_mod(c.end_m) - tr.time_at_mod(c.start_m)
+    if closed and c.end_m <= c.start_m:
+        seg_time += tr.lap_time
+    zone = zone_u(c, start_u, length, closed)
+    mk = corner_markers(tr, lo, start_u, end_u, hi, None, False, zone, apex_u, profile_brake=True)
+    braked = math.isfinite(mk.brake_start)
+    entry_u = mk.brake_start if braked else zone[0]
+    entry = float(np.interp(entry_u, tr.u, tr.v))
+    v_min, min_u = _minimum_after_entry(tr, entry_u, entry, zone[1])
+    apex_at = _apex_of_minimum(c, start_u, entry_u, min_u, length, closed)
+    before = apex_at - mk.brake_start if braked else math.nan
+    return CornerTarget(
+        name=c.name,
+        apex_m=wrap_distance(apex_at, length, closed),
+        entry_speed_m_s=entry,
+        brake_start_m=wrap_distance(mk.brake_start, length, closed),
+        brake_before_apex_m=float(before),
+        min_speed_m_s=float(v_min),
+        min_speed_at_m=wrap_distance(min_u, length, closed),
+        exit_speed_m_s=exit_speed_m_s,
+        segment_time_s=float(seg_time),
+    )
+
+
+def _minimum_after_entry(tr: Trace, entry_u: float, entry_speed: float, exit_u: float):
+    """Lowest speed [m/s] from the entry point to the zone's exit, and where [m] (unwrapped).
+
+    Turn-in is included: a corner still accelerating has its minimum, equal to the entry
+    speed, there. An entry point between stations is its own minimum when the stations
+    after it are faster.
+    """
+    v_min, min_u, _ = lowest_speed(tr, entry_u, max(exit_u, entry_u) + 1e-9)
+    if not v_min <= entry_speed:  # the entry point lies between stations
+        v_min, min_u = entry_speed, entry_u
+    return v_min, min_u
+
+
+def _apex_of_minimum(c: Corner, start_u, entry_u, min_u, length: float, closed: bool) -> float:
+    """The apex of the minimum: the corner's apex nearest it not before the entry point.
+
+    The minimum's own place when every apex is before the entry point. [m] (unwrapped)
+    """
+    apexes_u = [unwrap_after(a, start_u, length, closed) for a in c.apexes_m]
+    after = [a for a in apexes_u if a >= entry_u] or [min_u]
+    return min(after, key=lambda a: abs(a - min_u))
 
 
 def target_tables(
