@@ -10,6 +10,7 @@ reading.
 
 from __future__ import annotations
 
+import contextlib
 import math
 import tomllib
 from dataclasses import dataclass
@@ -102,17 +103,28 @@ def read_vehicle(path, *, require_complete: bool = True) -> Vehicle:
 # --------------------------------------------------------------------------- line files
 
 
+@contextlib.contextmanager
+def reading(path: Path, what: str = "file"):
+    """Turn the operating system's refusals to read ``path`` into one-line input errors.
+
+    ``what`` names the kind of file a folder was given for ("log file", "vehicle file").
+    """
+    try:
+        yield
+    except FileNotFoundError:
+        raise InputError(path, "file not found") from None
+    except IsADirectoryError:
+        raise InputError(path, f"is a folder, not a {what}") from None
+    except OSError as err:
+        raise InputError(path, f"cannot be read: {err.strerror}") from err
+
+
 def _read_numeric_csv(path):
     """Header names and a float array from a small numeric CSV (line files)."""
     path = Path(path)
     try:
-        text = path.read_text(encoding="utf-8-sig")
-    except FileNotFoundError:
-        raise InputError(path, "file not found") from None
-    except IsADirectoryError:
-        raise InputError(path, "is a folder, not a file") from None
-    except OSError as err:
-        raise InputError(path, f"cannot be read: {err.strerror}") from err
+        with reading(path):
+            text = path.read_text(encoding="utf-8-sig")
     except UnicodeDecodeError:
         raise InputError(path, "not UTF-8 text") from None
     lines = [ln for ln in text.splitlines() if ln.strip()]
@@ -268,14 +280,8 @@ def accepted_units(channel: str) -> str:
 
 def _open_toml(path: Path, what: str) -> dict:
     try:
-        with path.open("rb") as fh:
+        with reading(path, what), path.open("rb") as fh:
             return tomllib.load(fh)
-    except FileNotFoundError:
-        raise InputError(path, "file not found") from None
-    except IsADirectoryError:
-        raise InputError(path, f"is a folder, not a {what}") from None
-    except OSError as err:
-        raise InputError(path, f"cannot be read: {err.strerror}") from err
     except tomllib.TOMLDecodeError as err:
         raise InputError(path, f"not valid TOML: {err}") from err
     except UnicodeDecodeError as err:

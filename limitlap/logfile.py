@@ -12,7 +12,6 @@ Format: docs/formats.md, Log files.
 
 from __future__ import annotations
 
-import contextlib
 import csv
 import gzip
 import math
@@ -25,7 +24,7 @@ import numpy as np
 
 from limitlap.errors import InputError
 from limitlap.gnss import dropout_warnings, to_enu
-from limitlap.ingest import ChannelMap, accepted_units, read_channel_map, unit_key
+from limitlap.ingest import ChannelMap, accepted_units, read_channel_map, reading, unit_key
 from limitlap.units import CHANNEL_UNITS
 
 
@@ -117,21 +116,8 @@ _GZIP_MAGIC = b"\x1f\x8b"
 _DECIMAL_COMMA = re.compile(r"^\s*[-+]?\d+,\d+(?:[eE][-+]?\d+)?\s*$")
 
 
-@contextlib.contextmanager
-def _reading(path: Path):
-    """Turn the operating system's refusals to read ``path`` into one-line input errors."""
-    try:
-        yield
-    except FileNotFoundError:
-        raise InputError(path, "file not found") from None
-    except IsADirectoryError:
-        raise InputError(path, "is a folder, not a log file") from None
-    except OSError as err:
-        raise InputError(path, f"cannot be read: {err.strerror}") from err
-
-
 def _read_log_bytes(path: Path) -> bytes:
-    with _reading(path):
+    with reading(path, "log file"):
         raw = path.read_bytes()
     if raw[:2] == _GZIP_MAGIC:
         try:
@@ -157,7 +143,7 @@ def _log_source(path: Path) -> tuple[str | bytes, bytes, bool]:
     start (at least the header line, 64 KB or so) serves the format detection; a UTF-8
     byte-order mark is removed from it (the parser skips the header line anyway).
     """
-    with _reading(path), path.open("rb") as fh:
+    with reading(path, "log file"), path.open("rb") as fh:
         head = fh.read(_HEAD_BYTES)
         if head[:2] != _GZIP_MAGIC:
             while b"\n" not in head:  # a header line longer than the chunk
