@@ -85,6 +85,7 @@ class _Job:
     track: str | None
     figures: bool
     wording: Callable[[object], str] = str
+    check_units: bool = True
 
 
 def _log_name(path: Path) -> str:
@@ -169,6 +170,7 @@ def analyse_job(job: _Job) -> BatchRow:
             gate=job.gate,
             channels=job.channels,
             track=job.track,
+            check_units=job.check_units,
         )
         analysis = replace(analysis, warnings=[say(w) for w in analysis.warnings])
         Path(job.out_dir).parent.mkdir(parents=True, exist_ok=True)
@@ -207,6 +209,7 @@ def run_batch(
     scheduler=None,
     on_done: Callable[[BatchRow, int, int], None] | None = None,
     wording: Callable[[object], str] = str,
+    check_units: bool = True,
 ) -> list[BatchRow]:
     """Analyse every log into ``out_dir/<log name>/``, in parallel.
 
@@ -233,6 +236,9 @@ def run_batch(
         How a warning or an error becomes the line the rows and each log's files hold
         (a front end's own words for :mod:`limitlap.errors`' facts); default ``str``. It
         runs in the workers, so it must be picklable (a module-level function). [-]
+    check_units : bool
+        Stop a log whose channels disagree with its GPS path (see
+        :func:`limitlap.pipeline.analyse`). [-]
 
     Returns
     -------
@@ -242,7 +248,7 @@ def run_batch(
     paths = [Path(p) for p in logs]
     folders = output_folders(paths, out_dir)
     Path(out_dir).mkdir(parents=True, exist_ok=True)
-    common = (vehicle, grip_scale, lap, gate, channels, track, figures, wording)
+    common = (vehicle, grip_scale, lap, gate, channels, track, figures, wording, check_units)
     jobs = [_job(p, f, *common) for p, f in zip(paths, folders, strict=True)]
     rows: list[BatchRow | None] = [None] * len(jobs)
     for i, row in _finished(jobs, workers, scheduler):
@@ -252,7 +258,9 @@ def run_batch(
     return [r for r in rows if r is not None]
 
 
-def _job(log, folder, vehicle, grip_scale, lap, gate, channels, track, figures, wording) -> _Job:
+def _job(
+    log, folder, vehicle, grip_scale, lap, gate, channels, track, figures, wording, check_units
+) -> _Job:
     """One log's job in plain, picklable values (paths as text)."""
     return _Job(
         str(log),
@@ -265,6 +273,7 @@ def _job(log, folder, vehicle, grip_scale, lap, gate, channels, track, figures, 
         None if track is None else str(track),
         bool(figures),
         wording,
+        bool(check_units),
     )
 
 

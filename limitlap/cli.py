@@ -18,7 +18,14 @@ try:  # typer >= 0.29 carries its own copy of click
 except ImportError:  # older typer uses click itself
     from click.exceptions import ClickException
 
-from limitlap.errors import ArgumentError, ExtraNeeded, InputError, LimitlapError, WarningLine
+from limitlap.errors import (
+    ArgumentError,
+    ExtraNeeded,
+    InputError,
+    LimitlapError,
+    UnitMismatch,
+    WarningLine,
+)
 
 if TYPE_CHECKING:
     from limitlap.targets import TargetCondition
@@ -46,6 +53,7 @@ _OPTIONS = {"gate": "--gate", "grip_scale": "--grip", "scheduler": "--scheduler"
 _ADVICE = {
     "gate": " (give --gate LAT,LON for lap times from the real line)",
     "grip_scale": "; analyse with --grip {value:.2f} for the ideal at the grip found",
+    "check_units": "; fix the unit (header or --channels map), or give --accept-units to go on",
 }
 
 
@@ -68,6 +76,8 @@ def worded(said) -> str:
     if isinstance(said, ExtraNeeded):
         option = _OPTIONS.get(said.argument, said.argument)
         return f"a {option} needs {said.library}: pip install 'limitlap[{said.extra}]'"
+    if isinstance(said, UnitMismatch):
+        return f"{said.path}: {said.fact}{_ADVICE[said.hint]}"
     if isinstance(said, ArgumentError):
         return f"{_OPTIONS.get(said.argument, said.argument)}: {said.problem}"
     if isinstance(said, WarningLine) and said.hint is not None:
@@ -241,7 +251,9 @@ def _settle_imports() -> None:
     gc.freeze()
 
 
-def _analyse_one(log, vehicle, k, lap, gate, channels, track, out, quiet, figures=True):
+def _analyse_one(
+    log, vehicle, k, lap, gate, channels, track, out, quiet, figures=True, check_units=True
+):
     """One log analysed and its files written; the warnings as :func:`worded` says them."""
     import dataclasses
 
@@ -260,6 +272,7 @@ def _analyse_one(log, vehicle, k, lap, gate, channels, track, out, quiet, figure
             channels=channels,
             track=track,
             progress=bar,
+            check_units=check_units,
         )
         analysis = dataclasses.replace(analysis, warnings=[worded(w) for w in analysis.warnings])
         written = outputs.write_outputs(analysis, out, figures=figures, progress=bar)
@@ -324,6 +337,11 @@ def analyse(
     scheduler: str = typer.Option(
         None, "--scheduler", help="Several logs: Dask scheduler address (limitlap[dask])."
     ),
+    accept_units: bool = typer.Option(
+        False,
+        "--accept-units",
+        help="Go on when a channel disagrees with the GPS path (unit or sign); warn instead.",
+    ),
 ) -> None:
     """The whole job on one log: laps, line, envelope, ideal lap, corner comparison, report.
 
@@ -347,11 +365,12 @@ def analyse(
             track=track,
             figures=not no_figures,
             workers=workers,
+            check_units=not accept_units,
         )
         return
     log = log[0]
     analysis, written = _analyse_one(
-        log, vehicle, k, lap, gate, channels, track, out, quiet, not no_figures
+        log, vehicle, k, lap, gate, channels, track, out, quiet, not no_figures, not accept_units
     )
     _warn(analysis.warnings)
     typer.echo(_corner_table(analysis))

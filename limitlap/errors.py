@@ -80,7 +80,28 @@ class ExtraNeeded(LimitlapError):
 HINTS = {
     "gate": " (give the start/finish gate as LAT,LON for lap times from the real line)",
     "grip_scale": "; analyse at grip scale {value:.2f} for the ideal at the grip found",
+    "check_units": "; fix the unit (header or channel map), or analyse with "
+    "check_units=False to go on",
 }
+
+
+class UnitMismatch(InputError):
+    """Channels of a log that disagree with its GNSS path (a wrong unit or sign).
+
+    Parameters
+    ----------
+    path : str or os.PathLike
+        The log.
+    findings : list of limitlap.unit_checks.UnitFinding
+        What disagrees, each with the factor found. [-]
+    """
+
+    hint = "check_units"
+
+    def __init__(self, path, findings):
+        self.findings = list(findings)
+        self.fact = "; ".join(str(f) for f in self.findings)
+        super().__init__(path, self.fact + HINTS[self.hint])
 
 
 class WarningLine(str):

@@ -36,11 +36,12 @@ from limitlap import (
     ingest,
     logfile,
     solve,
+    unit_checks,
 )
 from limitlap import corners as corners_mod
 from limitlap import driven as driven_mod
 from limitlap import laps as laps_mod
-from limitlap.errors import InputError, LimitlapError, WarningLine
+from limitlap.errors import InputError, LimitlapError, UnitMismatch, WarningLine
 from limitlap.samples import select_samples
 from limitlap.vehicle import Vehicle, check_grip_scale
 
@@ -341,6 +342,7 @@ def analyse(
     channels=None,
     track=None,
     progress: Progress | None = None,
+    check_units: bool = True,
 ) -> Analysis:
     """The whole job on one log: laps, line, envelope, ideal lap, comparison.
 
@@ -360,6 +362,10 @@ def analyse(
         See :func:`load_session`. [-]
     progress : callable, optional
         ``progress(done, total, step)``. [-]
+    check_units : bool
+        Stop with :class:`limitlap.errors.UnitMismatch` when a channel disagrees with the
+        GPS path by a unit factor or a sign (:func:`limitlap.unit_checks.check_units`);
+        False turns that into a warning. [-]
 
     Returns
     -------
@@ -371,6 +377,7 @@ def analyse(
     _step(progress, 0, _STEPS, "reading the log")
     with _EnvelopeBeside(log_path, base) as beside:  # the envelope's work overlaps the line's
         log, trk, warnings = _read_session(log_path, channels, track, on_channels=beside.select)
+        _check_channel_units(log_path, log, check_units, warnings)
         laps = _split_session(log_path, log, trk, gate, warnings)
         chosen = _chosen_lap(log_path, laps, lap)
         flying = laps_mod.flying_laps(laps)  # the envelope's laps (out-laps left out)
@@ -415,6 +422,17 @@ def analyse(
             the_lap.speed_m_s, the_lap.accel_lon_m_s2, the_lap.accel_lat_m_s2, car, k
         ),
     )
+
+
+def _check_channel_units(log_path, log, strict: bool, warnings: list[str]) -> None:
+    """Each channel against the GPS path: a unit or sign mix-up stops the run or warns.
+
+    It stops (:class:`UnitMismatch`) when ``strict``, else becomes a warning.
+    """
+    findings = unit_checks.check_units(log)
+    if findings and strict:
+        raise UnitMismatch(log_path, findings)
+    warnings += [f"{log_path}: {f} (going on as asked)" for f in findings]
 
 
 def _base_vehicle(vehicle) -> Vehicle:

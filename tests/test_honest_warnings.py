@@ -62,19 +62,33 @@ def test_sparse_speed_band_is_reported(bridged):
 
 def test_poor_curvature_agreement_is_reported(tmp_path, capsys, monkeypatch):
     # accel_lat logged with the opposite sign convention (inverted through a channel
-    # map): a_y / v² disagrees with the GNSS path's curvature.
+    # map): a_y / v² disagrees with the GNSS path's curvature. The unit check stops such a
+    # run (tests/test_unit_checks.py); asked to go on, the rebuild's own warnings remain.
     cmap = tmp_path / "map.toml"
     cmap.write_text("[channels.accel_lat]\ninvert = true\n")
     log, warnings, page, err = analyse(
-        tmp_path, capsys, monkeypatch, demo_csv(2), "--channels", cmap
+        tmp_path, capsys, monkeypatch, demo_csv(2), "--channels", cmap, "--accept-units"
     )
+    flagged = [w for w in warnings if "accel lat looks like the sign inverted" in w]
+    assert flagged and "going on as asked" in flagged[0]
     poor = [w for w in warnings if "agrees poorly with the GNSS path" in w]
     assert poor and all(w.startswith(f"{log}: lap ") and "'accel_lat'" in w for w in poor)
     # ... with the figure that shows it (issue 7): the data-check panel is in the report
     assert "data-check figure" in poor[0]
     out = tmp_path / "with_figures"
     code, _, err_fig = run_cli(
-        ["analyse", log, "--gate", demo_gate(), "--out", out, "--quiet", "--channels", cmap],
+        [
+            "analyse",
+            log,
+            "--gate",
+            demo_gate(),
+            "--out",
+            out,
+            "--quiet",
+            "--channels",
+            cmap,
+            "--accept-units",
+        ],
         capsys,
         monkeypatch,
     )

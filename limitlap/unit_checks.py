@@ -1,0 +1,220 @@
+"""Cross-checks that catch a channel in the wrong unit or with the wrong sign.
+
+A log's channels describe one motion, so each can be checked against the GNSS path:
+
+- speed against the distance between GPS fixes (the ratio of the two distances over the
+  moving stretches);
+- longitudinal acceleration against the time derivative of speed;
+- lateral acceleration against speed times the GNSS course rate (a_y = v ψ̇);
+- yaw rate against the GNSS course rate.
+
+Each gives a factor ``k``, the reference over the channel (least squares through the
+origin, the channel as regressor so the reference's noise averages out). ``k`` near 1
+is a channel that agrees; ``k`` near a known unit factor or its inverse, or near -1,
+names the mix-up ("speed looks like mph labelled km/h: ×1.61 against the GPS"). The
+slip angle of a car on the limit is a few degrees, so the course rate equals the yaw
+rate to within a few percent in steady cornering (W. F. Milliken and D. L. Milliken,
+*Race Car Vehicle Dynamics*, SAE, 1995, ch. 5); tolerances here are wider than that.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+
+import numpy as np
+from scipy.ndimage import uniform_filter1d
+
+from limitlap.gnss import fix_rows, travelled_m
+from limitlap.units import DEG_TO_RAD, G0_M_S2, KMH_TO_M_S, MPH_TO_M_S
+
+#: A factor within this ratio of a candidate is taken as that candidate (15 %: wider
+#: than slip angle, GNSS chord shortening and sensor scale errors together; common
+#: practice, no published source). [-]
+MATCH_RATIO = 1.15
+#: A channel whose factor is outside this band and near no candidate is reported as
+#: disagreeing (common practice, no published source). [-]
+DISAGREE_RATIO = 1.4
+#: Slowest speed taken into the checks (GNSS course is noise when standing still). [m/s]
+MIN_SPEED_M_S = 8.0
+#: Averaging window of the derivatives (GNSS course and dv/dt are noisy sample to
+#: sample). [s]
+WINDOW_S = 1.0
+
+_SPEED = (
+    (MPH_TO_M_S / KMH_TO_M_S, "mph labelled km/h"),
+    (KMH_TO_M_S / MPH_TO_M_S, "km/h labelled mph"),
+    (1.0 / KMH_TO_M_S, "m/s labelled km/h"),
+    (KMH_TO_M_S, "km/h labelled m/s"),
+    (1.0 / MPH_TO_M_S, "m/s labelled mph"),
+    (MPH_TO_M_S, "mph labelled m/s"),
+)
+_ACCEL = (
+    (-1.0, "the sign inverted (ISO 8855: x forward, y left)"),
+    (G0_M_S2, "g labelled m/s^2"),
+    (1.0 / G0_M_S2, "m/s^2 labelled g"),
+    (-G0_M_S2, "g labelled m/s^2, sign inverted"),
+    (-1.0 / G0_M_S2, "m/s^2 labelled g, sign inverted"),
+)
+_YAW = (
+    (-1.0, "the sign inverted (ISO 8855: + counter-clockwise)"),
+    (1.0 / DEG_TO_RAD, "rad/s labelled deg/s"),
+    (DEG_TO_RAD, "deg/s labelled rad/s"),
+    (-1.0 / DEG_TO_RAD, "rad/s labelled deg/s, sign inverted"),
+    (-DEG_TO_RAD, "deg/s labelled rad/s, sign inverted"),
+)
+
+
+@dataclass(frozen=True)
+class UnitFinding:
+    """A channel that disagrees with the GNSS path.
+
+    Attributes
+    ----------
+    channel : str
+        The channel ("speed", "accel_lon", "accel_lat", "yaw_rate").
+    factor : float
+        Reference over channel (1 when it agrees). [-]
+    mix_up : str
+        The likely mix-up ("mph labelled km/h"), or "" when none fits.
+    against : str
+        What it was checked against.
+    """
+
+    channel: str
+    factor: float
+    mix_up: str
+    against: str
+
+    def __str__(self) -> str:
+        """One line for the user."""
+        if self.mix_up:
+            return (
+                f"{self.channel.replace('_', ' ')} looks like {self.mix_up}: "
+                f"×{self.factor:.3g} against {self.against}"
+            )
+        return (
+            f"{self.channel.replace('_', ' ')} disagrees with {self.against} by "
+            f"×{self.factor:.3g}; check its unit and sign"
+        )
+
+
+def check_units(log) -> list[UnitFinding]:
+    """Each channel of ``log`` checked against its GNSS path; the ones that disagree.
+
+    Parameters
+    ----------
+    log : limitlap.logfile.Log
+        A log with positions (``x``/``y``) and ``speed``; the other channels optional.
+
+    Returns
+    -------
+    list of UnitFinding
+        Empty when every channel agrees, or when the log moves too little to tell.
+    """
+    path = _gnss_path(log)
+    if path is None:
+        return []
+    out = []
+    k = _speed_factor(log, path)
+    out += _judge("speed", k, _SPEED, "the distance between GPS fixes", signed=False)
+    # The other checks use speed as the GPS measures it, so a wrong speed unit is not
+    # blamed on the accelerations as well.
+    speed_scale = k if math.isfinite(k) else 1.0
+    for name, against, cands in (
+        ("accel_lon", "the rate of change of speed", _ACCEL),
+        ("accel_lat", "speed times the GPS course rate", _ACCEL),
+        ("yaw_rate", "the GPS course rate", _YAW),
+    ):
+        if log.has(name):
+            k_ch = _channel_factor(log, path, name, speed_scale)
+            out += _judge(name, k_ch, cands, against, signed=True)
+    return out
+
+
+@dataclass(frozen=True)
+class _Path:
+    """GNSS fixes of the moving stretches and what derives from them (at the fixes)."""
+
+    rows: np.ndarray  # log rows of the fixes used
+    t: np.ndarray  # their time [s]
+    course_rate: np.ndarray  # ψ̇ from the fixes, averaged over WINDOW_S [rad/s]
+    moving: np.ndarray  # fix faster than MIN_SPEED_M_S with neighbours close in time
+
+
+def _gnss_path(log) -> _Path | None:
+    rows = fix_rows(log)
+    if rows.size < 20:
+        return None
+    t = log.time_s[rows]
+    x, y = log.channels["x"][rows], log.channels["y"][rows]
+    v = np.interp(t, log.time_s, _filled(log.time_s, log.channels["speed"]))  # for "moving"
+    heading = np.unwrap(np.arctan2(np.gradient(y), np.gradient(x)))
+    rate = np.gradient(heading, t)
+    dt = float(np.median(np.diff(t)))
+    n = max(1, round(WINDOW_S / dt))
+    rate = uniform_filter1d(rate, n, mode="nearest")
+    gaps = np.diff(t) > 3.0 * dt
+    near_gap = np.zeros(t.size, dtype=bool)
+    for shift in range(n + 1):  # fixes within a window of a gap are left out
+        near_gap[: t.size - 1 - shift] |= gaps[shift:]
+        near_gap[1 + shift :] |= gaps[: gaps.size - shift]
+    return _Path(rows, t, rate, (v > MIN_SPEED_M_S) & ~near_gap)
+
+
+def _filled(t, values):
+    ok = np.isfinite(values)
+    return values if ok.all() else np.interp(t, t[ok], values[ok])
+
+
+def _speed_factor(log, path: _Path) -> float:
+    """GPS distance over the distance the speed channel gives, between moving fixes."""
+    x, y = log.channels["x"][path.rows], log.channels["y"][path.rows]
+    step_gps = np.hypot(np.diff(x), np.diff(y))
+    step_speed = np.diff(travelled_m(log)[path.rows])
+    use = path.moving[1:] & path.moving[:-1]
+    if step_speed[use].sum() < 200.0:  # too little movement to tell
+        return math.nan
+    return float(step_gps[use].sum() / step_speed[use].sum())
+
+
+def _channel_factor(log, path: _Path, name: str, speed_scale: float = 1.0) -> float:
+    """Least-squares factor reference = k · channel at the moving fixes (NaN if weak).
+
+    ``speed_scale`` corrects the speed channel to the GPS's (see :func:`_speed_factor`).
+    """
+    t_all = log.time_s
+    ch = _filled(t_all, log.channels[name])
+    dt = float(np.median(np.diff(t_all)))
+    n = max(1, round(WINDOW_S / dt))
+    ch = uniform_filter1d(ch, n, mode="nearest")
+    v = _filled(t_all, log.channels["speed"]) * speed_scale
+    if name == "accel_lon":
+        ref_all = uniform_filter1d(np.gradient(v, t_all), n, mode="nearest")
+        ref = ref_all[path.rows]
+        floor = 0.5  # [m/s²] below this rms the straights hold no braking or drive to see
+    elif name == "accel_lat":
+        ref = v[path.rows] * path.course_rate
+        floor = 1.0  # [m/s²]
+    else:
+        ref = path.course_rate
+        floor = 0.05  # [rad/s]
+    c = ch[path.rows]
+    use = path.moving & np.isfinite(ref) & np.isfinite(c)
+    if use.sum() < 50 or np.sqrt(np.mean(ref[use] ** 2)) < floor:
+        return math.nan
+    return float(np.dot(c[use], ref[use]) / np.dot(c[use], c[use]))
+
+
+def _judge(channel, k, candidates, against, *, signed) -> list[UnitFinding]:
+    if not math.isfinite(k) or k == 0.0:
+        return []
+    if k > 0 and abs(math.log(k)) < math.log(MATCH_RATIO):
+        return []
+    for factor, mix_up in candidates:
+        same_sign = (k > 0) == (factor > 0) or not signed
+        if same_sign and abs(math.log(abs(k) / abs(factor))) < math.log(MATCH_RATIO):
+            return [UnitFinding(channel, k, mix_up, against)]
+    if k < 0 or abs(math.log(k)) > math.log(DISAGREE_RATIO):
+        return [UnitFinding(channel, k, "", against)]
+    return []
