@@ -37,6 +37,9 @@ MATCH_RATIO = 1.15
 DISAGREE_RATIO = 1.4
 #: Slowest speed taken into the checks (GNSS course is noise when standing still). [m/s]
 MIN_SPEED_M_S = 8.0
+#: The checks look at the first this many GNSS fixes (20 minutes at 10 Hz: several
+#: laps; a unit is the same all through a log). [-]
+MAX_FIXES = 12_000
 #: Averaging window of the derivatives (GNSS course and dv/dt are noisy sample to
 #: sample). [s]
 WINDOW_S = 1.0
@@ -134,37 +137,42 @@ def check_units(log) -> list[UnitFinding]:
 
 @dataclass(frozen=True)
 class _Path:
-    """GNSS fixes of the moving stretches and what derives from them (at the fixes)."""
+    """The GNSS fixes and the channels at them (the checks work at these alone).
 
-    rows: np.ndarray  # log rows of the fixes used
+    At most :data:`MAX_FIXES` fixes, 10-25 a second: the checks cost little beside
+    reading the log.
+    """
+
+    rows: np.ndarray  # log rows of the fixes
     t: np.ndarray  # their time [s]
+    speed: np.ndarray  # the speed channel at the fixes [m/s]
     course_rate: np.ndarray  # ψ̇ from the fixes, averaged over WINDOW_S [rad/s]
-    moving: np.ndarray  # fix faster than MIN_SPEED_M_S with neighbours close in time
+    moving: np.ndarray  # fix faster than MIN_SPEED_M_S and not near a gap
+    window: int  # WINDOW_S in fixes
 
 
 def _gnss_path(log) -> _Path | None:
-    rows = fix_rows(log)
+    rows = fix_rows(log)[:MAX_FIXES]
     if rows.size < 20:
         return None
     t = log.time_s[rows]
     x, y = log.channels["x"][rows], log.channels["y"][rows]
-    v = np.interp(t, log.time_s, _filled(log.time_s, log.channels["speed"]))  # for "moving"
+    v = _at_fixes(log, "speed", rows)
     heading = np.unwrap(np.arctan2(np.gradient(y), np.gradient(x)))
-    rate = np.gradient(heading, t)
     dt = float(np.median(np.diff(t)))
     n = max(1, round(WINDOW_S / dt))
-    rate = uniform_filter1d(rate, n, mode="nearest")
+    rate = uniform_filter1d(np.gradient(heading, t), n, mode="nearest")
     gaps = np.diff(t) > 3.0 * dt
     near_gap = np.zeros(t.size, dtype=bool)
     for shift in range(n + 1):  # fixes within a window of a gap are left out
         near_gap[: t.size - 1 - shift] |= gaps[shift:]
         near_gap[1 + shift :] |= gaps[: gaps.size - shift]
-    return _Path(rows, t, rate, (v > MIN_SPEED_M_S) & ~near_gap)
+    return _Path(rows, t, v, rate, (v > MIN_SPEED_M_S) & ~near_gap, n)
 
 
-def _filled(t, values):
-    ok = np.isfinite(values)
-    return values if ok.all() else np.interp(t, t[ok], values[ok])
+def _at_fixes(log, name, rows):
+    """A channel at the fix rows (NaN where blank: such fixes drop out of the checks)."""
+    return log.channels[name][rows]
 
 
 def _speed_factor(log, path: _Path) -> float:
@@ -182,28 +190,25 @@ def _channel_factor(log, path: _Path, name: str, speed_scale: float = 1.0) -> fl
     """Least-squares factor reference = k · channel at the moving fixes (NaN if weak).
 
     ``speed_scale`` corrects the speed channel to the GPS's (see :func:`_speed_factor`).
+    Channel and reference are averaged over the same window of fixes.
     """
-    t_all = log.time_s
-    ch = _filled(t_all, log.channels[name])
-    dt = float(np.median(np.diff(t_all)))
-    n = max(1, round(WINDOW_S / dt))
-    ch = uniform_filter1d(ch, n, mode="nearest")
-    v = _filled(t_all, log.channels["speed"]) * speed_scale
+    n = path.window
+    c = uniform_filter1d(_at_fixes(log, name, path.rows), n, mode="nearest")
+    v = path.speed * speed_scale
     if name == "accel_lon":
-        ref_all = uniform_filter1d(np.gradient(v, t_all), n, mode="nearest")
-        ref = ref_all[path.rows]
+        ref = uniform_filter1d(np.gradient(v, path.t), n, mode="nearest")
         floor = 0.5  # [m/s²] below this rms the straights hold no braking or drive to see
     elif name == "accel_lat":
-        ref = v[path.rows] * path.course_rate
+        ref = v * path.course_rate
         floor = 1.0  # [m/s²]
     else:
         ref = path.course_rate
         floor = 0.05  # [rad/s]
-    c = ch[path.rows]
     use = path.moving & np.isfinite(ref) & np.isfinite(c)
     if use.sum() < 50 or np.sqrt(np.mean(ref[use] ** 2)) < floor:
         return math.nan
-    return float(np.dot(c[use], ref[use]) / np.dot(c[use], c[use]))
+    cu, ru = c[use], ref[use]  # plain sums: BLAS dot threads cost ms on short vectors
+    return float((cu * ru).sum() / (cu * cu).sum())
 
 
 def _judge(channel, k, candidates, against, *, signed) -> list[UnitFinding]:
