@@ -339,6 +339,32 @@ def gate_crossings(log: Log, gate: Gate) -> np.ndarray:
     return np.asarray(counted)
 
 
+#: Slower than this, the car counts as stopped (common practice, no published source). [m/s]
+STOP_SPEED_M_S = 2.0
+#: A stop this long inside a lap (a pit stop, a stop on track) leaves the lap out of the
+#: complete laps: its time is not a lap time (common practice, no published source). [s]
+STOP_MIN_S = 5.0
+
+
+def _longest_stop(t, v):
+    """(duration [s], start time [s]) of the longest stretch slower than STOP_SPEED_M_S."""
+    slow = np.isfinite(v) & (v < STOP_SPEED_M_S)
+    if not slow.any():
+        return 0.0, math.nan
+    edges = np.diff(np.concatenate(([0], slow.view(np.int8), [0])))
+    starts, ends = np.flatnonzero(edges == 1), np.flatnonzero(edges == -1) - 1
+    spans = t[ends] - t[starts]
+    j = int(np.argmax(spans))
+    return float(spans[j]), float(t[starts[j]])
+
+
+def _ends_at_rest(log: Log, first: bool) -> bool:
+    """Whether the log starts (or ends) with the car slower than STOP_SPEED_M_S."""
+    v = log.channels["speed"]
+    finite = np.flatnonzero(np.isfinite(v))
+    return bool(finite.size) and v[finite[0] if first else finite[-1]] < STOP_SPEED_M_S
+
+
 def _make_laps(log: Log, bounds, numbers, complete, reasons) -> list[Lap]:
     t = log.time_s
     s = travelled_m(log)
@@ -355,6 +381,9 @@ def _make_laps(log: Log, bounds, numbers, complete, reasons) -> list[Lap]:
         for d in long_gaps:
             if d.start_time_s < t1 and d.end_time_s > t0:
                 why.append(f"GPS dropout of {d.duration_s:.1f} s at {d.start_time_s:.1f} s")
+        stop_s, stop_at = _longest_stop(t[i0:i1], log.channels["speed"][i0:i1])
+        if complete[k] and stop_s >= STOP_MIN_S:
+            why.append(f"stopped for {stop_s:.0f} s at {stop_at:.1f} s (pit stop or stop on track)")
         dist = float(s_at[k + 1] - s_at[k])
         laps.append(
             Lap(
@@ -419,8 +448,16 @@ def split_laps(log: Log, gate: Gate | tuple[float, float] | None = None) -> list
     numbers = list(range(count))
     complete = [0 < k < count - 1 for k in numbers]
     reasons = ["" for _ in numbers]
-    reasons[0] = "out-lap (start of log to first gate crossing)"
-    reasons[-1] = "after the last gate crossing (in-lap or end of log)"
+    reasons[0] = (
+        "out-lap (start of log to first gate crossing)"
+        if _ends_at_rest(log, first=True)
+        else "partial lap: the log starts on the move (start of log to first gate crossing)"
+    )
+    reasons[-1] = (
+        "in-lap (last gate crossing to the end of the log)"
+        if _ends_at_rest(log, first=False)
+        else "partial lap: the log ends on the move (after the last gate crossing)"
+    )
     return _make_laps(log, bounds, numbers, complete, reasons)
 
 

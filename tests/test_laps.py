@@ -68,7 +68,10 @@ def test_lap_numbering_times_and_distances(tmp_path):
     lap_time = 2 * math.pi * RADIUS_M / 25.0
     assert [lap.number for lap in laps] == [0, 1, 2, 3, 4]
     assert [lap.complete for lap in laps] == [False, True, True, True, False]
-    assert "out-lap" in laps[0].reason and "after the last gate crossing" in laps[-1].reason
+    # The circle log starts and ends at speed (v0 = 25 m/s): both ends are partial laps,
+    # not an out-lap or an in-lap (a log that starts at rest has an out-lap: tests below).
+    assert "partial lap: the log starts on the move" in laps[0].reason
+    assert "partial lap: the log ends on the move" in laps[-1].reason
     for lap in laps[1:4]:
         assert lap.reason == ""
         assert lap.time_s == pytest.approx(lap_time, abs=0.01)  # issue 3 target
@@ -254,12 +257,14 @@ def test_tables(tmp_path):
     assert set(doc) == {"laps"}
     for rec in doc["laps"]:
         assert {"number", "time_s", "distance_m", "complete"} <= set(rec)
-    assert doc["laps"][0]["complete"] is False and doc["laps"][0]["reason"].startswith("out-lap")
+    assert doc["laps"][0]["complete"] is False and doc["laps"][0]["reason"].startswith(
+        "partial lap"
+    )
     text = format_laps_table(laps)
     lines = text.splitlines()
     assert len(lines) == len(laps) + 1
     assert "<- fastest" in lines[best.number + 1]
-    assert "not complete: out-lap" in lines[1]
+    assert "not complete: partial lap" in lines[1]  # the circle log starts on the move
     minutes, seconds = divmod(round(best.time_s * 1000), 60000)
     assert f"{minutes}:{seconds / 1000:06.3f}" in lines[best.number + 1]
 
@@ -293,3 +298,26 @@ def test_laps_command_json_and_error(tmp_path, capsys, monkeypatch):
         err
         == "limitlap: error: --gate: '-35.2;139.8' is not LAT,LON (two numbers separated by a comma)"
     )
+
+
+def test_a_log_that_starts_and_ends_at_rest_has_an_out_lap_and_an_in_lap(tmp_path):
+    # Standing start (v0 = 0, 3 m/s²) on the circle: the stretch before the first gate
+    # crossing is an out-lap; the same log cut to end at rest (speed set to 0 over its
+    # last second) has an in-lap after the last crossing.
+    circle = Circle(radius_m=RADIUS_M, v0=0.0, accel=0.5, duration_s=60.0)
+    circle.speed[circle.t > circle.t[-1] - 1.0] = 0.0
+    laps = split_laps(read_log(circle.write(tmp_path / "c.csv")), gate_at(0.0))
+    assert laps[0].reason.startswith("out-lap") and not laps[0].complete
+    assert laps[-1].reason.startswith("in-lap") and not laps[-1].complete
+
+
+def test_a_lap_with_a_stop_is_not_a_complete_lap(tmp_path):
+    # A 10 s stop (speed channel at 0 from 30 to 40 s, inside lap 1 of the 25 m/s circle:
+    # crossings at 4 s + k 25.1 s) is a pit stop or a stop on track: that lap's
+    # time is no lap time, so it is not complete and never the fastest lap.
+    circle = Circle(radius_m=RADIUS_M, v0=25.0, duration_s=110.0)
+    circle.speed[(circle.t > 30.0) & (circle.t < 40.0)] = 0.0
+    laps = split_laps(read_log(circle.write(tmp_path / "c.csv")), gate_at(0.0))
+    stopped = [lap for lap in laps if "stopped for 10 s" in lap.reason]
+    assert [lap.number for lap in stopped] == [2] and not stopped[0].complete
+    assert [lap.number for lap in laps if lap.complete] == [1, 3, 4]
