@@ -25,6 +25,7 @@ import os
 import re
 import shutil
 import tempfile
+import time
 import uuid
 from collections.abc import Callable, Iterator, Mapping
 from pathlib import Path
@@ -150,20 +151,37 @@ def _foreign_entries(folder: Path) -> list[str]:
     ]
 
 
+def _refuse_foreign(foreign: list[str], shown) -> None:
+    if foreign:
+        raise InputError(
+            shown,
+            f"holds files limitlap did not write ({', '.join(foreign[:3])}); "
+            "name a new or empty output folder",
+        )
+
+
 def _check_target(target: Path, shown) -> None:
-    """Refuse a target that is a file or holds files limitlap did not write."""
+    """Refuse a target that is a file or holds files limitlap did not write.
+
+    Another run may be swapping the folder while it is read (its listing and its
+    manifest then come from two sets): only what every one of a few looks finds is
+    refused. The check that nothing foreign is removed is :func:`_swap_in`'s.
+    """
     if target.exists() and not target.is_dir():
         raise InputError(shown, "is a file, not an output folder")
     if not target.parent.is_dir():
         raise InputError(shown, "output folder cannot be made: its parent folder does not exist")
-    if target.is_dir():
-        foreign = _foreign_entries(target)
-        if foreign:
-            raise InputError(
-                shown,
-                f"holds files limitlap did not write ({', '.join(foreign[:3])}); "
-                "name a new or empty output folder",
-            )
+    foreign = None
+    for _ in range(20):
+        try:
+            seen = set(_foreign_entries(target))
+        except FileNotFoundError:  # missing, or between another run's renames
+            seen = set()
+        foreign = seen if foreign is None else foreign & seen
+        if not foreign:
+            return
+        time.sleep(0.005)
+    _refuse_foreign(sorted(foreign), shown)
 
 
 def _swap_in(folder: Path, target: Path) -> list[Path]:
@@ -187,6 +205,10 @@ def _swap_in(folder: Path, target: Path) -> list[Path]:
         except FileNotFoundError:
             continue  # another run is between its two renames
         aside.append(old)
+        foreign = _foreign_entries(old)  # aside, nobody else's to change now
+        if foreign:
+            _put_back(old, target, aside)
+            _refuse_foreign(foreign, target)
         try:
             os.rename(folder, target)
             return aside
@@ -255,9 +277,10 @@ def output_set(out_dir) -> Iterator[OutputSet]:
         files = sorted(p.name for p in folder.iterdir())
         manifest = {"schema": SET_SCHEMA, "run": uuid.uuid4().hex, "files": files}
         staged.write(SET_MANIFEST, json.dumps(manifest, indent=2) + "\n")
-        _check_target(target, out_dir)  # nothing foreign put there during the run
         try:
             aside = _swap_in(folder, target)
+        except InputError as err:
+            raise InputError(out_dir, err.problem) from None
         except OSError as err:
             raise InputError(
                 out_dir, f"cannot put the new files in place: {err.strerror or err}"

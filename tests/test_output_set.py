@@ -132,3 +132,21 @@ def test_new_folder_has_the_usual_mode(tmp_path, two_runs):
     umask = os.umask(0)
     os.umask(umask)
     assert out.stat().st_mode & 0o777 == 0o777 & ~umask
+
+
+def test_file_put_in_during_the_run_is_kept(tmp_path, two_runs):
+    # Someone saves a file into the folder while a run writes: the run is refused at the
+    # swap and the folder stays as it was, the new file with it.
+    a, b = two_runs
+    out = tmp_path / "out"
+    outputs.write_outputs(a, out, figures=False)
+    before = _contents(out)
+
+    def drop_a_file(done, total, step):
+        if step == "summary.json":
+            (out / "notes.txt").write_text("mine\n")
+
+    with pytest.raises(InputError, match=r"out: holds files limitlap did not write \(notes"):
+        outputs.write_outputs(b, out, figures=False, progress=drop_a_file)
+    assert _contents(out) == {**before, "notes.txt": b"mine\n"}
+    assert _leftovers(tmp_path, "out") == []
