@@ -439,20 +439,20 @@ def demo(
     quiet: bool = typer.Option(False, "--quiet", help="No progress display."),
 ) -> None:
     """The whole job on the bundled demo session: report, figures and target sheets."""
-    from limitlap import sheets
+    from limitlap import outputs, sheets
     from limitlap import targets as targets_mod
     from limitlap.resources import bundled_path
 
     log = bundled_path("demo_tracks", "tarrowby_dry.csv.gz")
     track = bundled_path("demo_tracks", "tarrowby_heath.toml")
-    analysis, _ = _analyse_one(log, None, 1.0, None, None, None, track, out, quiet)
+    with outputs.output_set(out) as folder:  # the report and the sheets: one set
+        analysis, _ = _analyse_one(log, None, 1.0, None, None, None, track, folder, quiet)
+        conditions = targets_mod.target_tables(
+            analysis.driven.line, analysis.vehicle, ["dry", "damp", "wet"], analysis.corners
+        )
+        sheets.write_target_sheets(conditions, folder, analysis.track_name or "demo circuit")
     _warn(analysis.warnings)
     typer.echo(_corner_table(analysis))
-    corners = analysis.corners
-    conditions = targets_mod.target_tables(
-        analysis.driven.line, analysis.vehicle, ["dry", "damp", "wet"], corners
-    )
-    sheets.write_target_sheets(conditions, out, analysis.track_name or "demo circuit")
     for cond in conditions:
         typer.echo("")
         typer.echo(format_targets_table(cond))

@@ -1,7 +1,7 @@
 """Target sheets before a session: targets.csv and a printable PDF and PNG per condition.
 
 The tables come from :func:`limitlap.targets.target_table`; every file is written
-atomically by :func:`limitlap.outputs.write_atomic`. Format: docs/outputs.md, Target
+into one set by :func:`limitlap.outputs.output_set`. Format: docs/outputs.md, Target
 sheets.
 """
 
@@ -12,7 +12,7 @@ import re
 from pathlib import Path
 from typing import TYPE_CHECKING
 
-from limitlap.outputs import Progress, csv_cell, float_or_nan, prepare_folder, stepper, write_atomic
+from limitlap.outputs import Progress, csv_cell, float_or_nan, output_set, stepper
 from limitlap.units import KMH_TO_M_S
 
 if TYPE_CHECKING:
@@ -114,8 +114,9 @@ def write_target_sheets(
     conditions : list
         Records of :func:`limitlap.targets.target_table` (docs/outputs.md, Target sheets fields; an optional
         ``condition``/``label`` names it, e.g. "wet").
-    out_dir : str or Path
-        Output folder; made when missing (its parent must exist).
+    out_dir : str, Path or OutputSet
+        Output folder, replaced whole by these files (:func:`limitlap.outputs.output_set`);
+        or a set open for more files of the same run.
     circuit_name : str
         Heading of each sheet.
     length_m : float, optional
@@ -132,21 +133,19 @@ def write_target_sheets(
     from limitlap import figures as fg
     from limitlap import report
 
-    out = prepare_folder(out_dir)
     conds = [_condition(c, length_m) for c in conditions]
     step = stepper(progress, 2 * len(conds) + 1)
     written, seen = [], set()
-    for c in conds:
-        slug = _slug(c["label"])
-        if slug in seen:
-            slug = f"{slug}_{c['grip_scale']:.2f}".replace(".", "_")
-        seen.add(slug)
-        for fmt in ("pdf", "png"):
-            data = fg.target_sheet(c, circuit_name, report.SAFETY_CAUTION, fmt=fmt)
-            written.append(write_atomic(out / f"targets_{slug}.{fmt}", data))
-            step(f"target sheet {c['label']} ({fmt})")
-    written.append(
-        write_atomic(out / "targets.csv", targets_csv_text(conditions, length_m=length_m))
-    )
-    step("targets.csv")
+    with output_set(out_dir) as out:
+        for c in conds:
+            slug = _slug(c["label"])
+            if slug in seen:
+                slug = f"{slug}_{c['grip_scale']:.2f}".replace(".", "_")
+            seen.add(slug)
+            for fmt in ("pdf", "png"):
+                data = fg.target_sheet(c, circuit_name, report.SAFETY_CAUTION, fmt=fmt)
+                written.append(out.write(f"targets_{slug}.{fmt}", data))
+                step(f"target sheet {c['label']} ({fmt})")
+        written.append(out.write("targets.csv", targets_csv_text(conditions, length_m=length_m)))
+        step("targets.csv")
     return written
