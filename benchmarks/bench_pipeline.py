@@ -18,7 +18,9 @@ above the level the same process had after imports and the warm-up, for one run;
 the ``tracemalloc`` peak of a separate run (numpy and Python allocations; polars' own
 buffers are not traced). Both as a ratio to the file's size.
 
-Then the cold start of the command line (fresh processes, numba cache warm) and an
+Then the time ``read_log`` takes to refuse a log whose header line is 10 MB of commas
+(target: well under a second; 7-10 s when the header was split field by field), the cold
+start of the command line (fresh processes, numba cache warm) and an
 ``-X importtime`` check that matplotlib is imported only by commands that draw figures.
 
 Run: ``python benchmarks/bench_pipeline.py [--repeats N]``. Targets (issue 6): analyse
@@ -140,6 +142,25 @@ def _imports(cmd: list[str]) -> set[str]:
     return names
 
 
+def _hostile_header_s(folder: Path) -> float:
+    """Seconds :func:`limitlap.logfile.read_log` takes to refuse a 10 MB header line."""
+    from limitlap import logfile
+    from limitlap.errors import InputError
+    from limitlap.resources import bundled_path
+
+    path = folder / "wide.csv"
+    path.write_text("," * 10_000_000 + "\n0\n", encoding="utf-8")
+    logfile.read_log(bundled_path("demo_tracks", "tarrowby_dry.csv.gz"))  # imports first
+    t0 = time.perf_counter()
+    try:
+        logfile.read_log(path)
+    except InputError:
+        pass
+    else:
+        raise RuntimeError("a 10 MB header line was read")
+    return time.perf_counter() - t0
+
+
 def main() -> None:
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     parser.add_argument("--child", nargs=2, metavar=("NAME", "FILE"), help=argparse.SUPPRESS)
@@ -193,6 +214,9 @@ def main() -> None:
             "peak RSS: growth of ru_maxrss over the process after imports and warm-up; "
             "traced: tracemalloc peak (numpy/Python, not polars' buffers)"
         )
+
+        wide = _hostile_header_s(Path(tmp))
+        print(f"\na 10 MB header line refused by read_log in {wide * 1000:.0f} ms")
 
         line = str(bundled_path("demo_tracks", "example_loop_line.csv"))
         car = str(bundled_path("vehicles", "gt_coupe.toml"))
@@ -271,6 +295,7 @@ def main() -> None:
             ),
             ("peak memory < 10x the file", f"{peak:.2f}x", peak < 10.0),
             ("cold start of solve --json < 1.5 s", f"{cold_solve:.2f} s", cold_solve < 1.5),
+            ("10 MB header refused in < 0.1 s", f"{wide:.3f} s", wide < 0.1),
         ]
         print("\nissue 6 targets:")
         for what, got, ok in checks:

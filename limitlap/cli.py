@@ -416,7 +416,9 @@ def targets(
     trk = ingest.read_track(track) if track is not None else None
     names = list(trk.corner_names) if trk is not None and trk.corner_names else None
     apexes = list(trk.corner_apexes_m) if names else None
-    corners = corners_mod.find_corners(line, names, apexes_m=apexes)
+    corners = corners_mod.find_corners(
+        line, names, apexes_m=apexes, apexes_from=trk.path if trk is not None else None
+    )
     conditions = targets_mod.target_tables(line, car, grip, corners)
     if out is not None:
         from limitlap import sheets
@@ -459,12 +461,25 @@ def demo(
     typer.echo(f"\nreport: {Path(out) / 'report.html'}  (open it in a browser)")
 
 
+def _warning_line(message, category, filename, lineno, file=None, line=None) -> None:
+    """A warning that a library raised, as one line on stderr (no source line)."""
+    text = " ".join(str(message).split())
+    typer.echo(f"limitlap: warning: {category.__name__}: {text}", err=True)
+
+
 def main() -> None:
-    """Console entry point: a user error becomes one line on stderr."""
+    """Console entry point: a user error becomes one line on stderr.
+
+    A warning raised by a library (numpy's RuntimeWarning and the like) is one line too,
+    ``limitlap: warning: RuntimeWarning: ...``, without the source line Python would show.
+    """
     import gc
+    import warnings
 
     try:
-        app(standalone_mode=False)
+        with warnings.catch_warnings():
+            warnings.showwarning = _warning_line
+            app(standalone_mode=False)
     except LimitlapError as err:
         typer.echo(f"limitlap: error: {worded(err)}", err=True)
         raise SystemExit(2) from None

@@ -21,7 +21,7 @@ from dataclasses import dataclass, replace
 import numpy as np
 from scipy.ndimage import gaussian_filter1d
 
-from limitlap.errors import LimitlapError
+from limitlap.errors import InputError, LimitlapError
 from limitlap.line import Line
 
 # --- Defaults of corner detection (common practice of the trade, no published source) ---
@@ -48,6 +48,11 @@ APEX_PROMINENCE = 0.3
 
 #: Same-direction bends closer than this form one corner with two apexes. [m]
 MERGE_GAP_M = 50.0
+
+#: How far past the end of the lap a named apex may lie, as a share of the lap, and
+#: still be taken as just past the gate: one driven line's length differs from another's
+#: (and from a track file's) by a few metres a lap. Common practice, no published source.
+APEX_OVERRUN = 0.01
 
 
 @dataclass(frozen=True)
@@ -195,6 +200,7 @@ def find_corners(
     min_turn_rad: float = MIN_TURN_RAD,
     merge_gap_m: float = MERGE_GAP_M,
     apexes_m: Sequence[float] | None = None,
+    apexes_from: str | None = None,
 ) -> list[Corner]:
     r"""Corners of a line from its curvature, with segments that tile the lap.
 
@@ -211,7 +217,12 @@ def find_corners(
         outside every zone found (a fast bend under the thresholds) makes a corner of
         its own, from where |curvature| falls to half its peak nearby; several names in
         one zone give one corner with the first name; a corner found with no name is
-        called after the corner before it with a "+" ("T8+").
+        called after the corner before it with a "+" ("T8+"). An apex that is negative
+        or beyond the lap (by more than :data:`APEX_OVERRUN` of it) is refused, naming
+        the corner.
+    apexes_from : str, optional
+        The file the names and apexes come from (a track file): a refused apex is an
+        :class:`~limitlap.errors.InputError` naming it. [-]
     smoothing_m : float
         Gaussian smoothing of curvature (standard deviation). [m]
     enter_curvature_1_m, leave_curvature_1_m : float
@@ -248,7 +259,7 @@ def find_corners(
     if frame is None:
         return []
     zones = _bends(line, ks, state, frame, enter_curvature_1_m, min_turn_rad)
-    named = _named_apexes(names, apexes_m)
+    named = _named_apexes(names, apexes_m, line, apexes_from)
     if not zones and named is None:
         return []
     merged = _merge_bends(zones, merge_gap_m, float(line.length_m), line.closed)
@@ -313,8 +324,12 @@ def _bends(line: Line, ks, state, frame, enter_curvature_1_m, min_turn_rad) -> l
     return zones
 
 
-def _named_apexes(names, apexes_m):
-    """``[(apex_m, name), ...]`` of a track file's corners, or ``None`` when not given."""
+def _named_apexes(names, apexes_m, line, source):
+    """``[(apex_m, name), ...]`` of a track file's corners, or ``None`` when not given.
+
+    Each apex is checked against the lap (``line``): not negative, not beyond its end by
+    more than :data:`APEX_OVERRUN` of it; the error names ``source`` when given.
+    """
     if names is None or apexes_m is None:
         return None
     ap = np.asarray(apexes_m, dtype=np.float64)
@@ -322,6 +337,14 @@ def _named_apexes(names, apexes_m):
         raise LimitlapError(f"{ap.size} corner apexes given for {len(names)} names")
     if not np.isfinite(ap).all():
         return None
+    length = float(line.length_m)
+    reach = length * (1.0 + APEX_OVERRUN) if line.closed else length
+    for a, name in zip(ap.tolist(), names, strict=True):
+        if 0.0 <= a <= reach:
+            continue
+        where = "negative" if a < 0 else f"beyond the lap ({length:.1f} m driven)"
+        problem = f"corner {name}: apex_m {a:g} m is {where}"
+        raise InputError(source, problem) if source is not None else LimitlapError(problem)
     return list(zip(ap.tolist(), [str(x) for x in names], strict=True))
 
 

@@ -54,7 +54,7 @@ from limitlap.power_line import full_throttle_power_drag
 from limitlap.samples import Selection, select_samples
 from limitlap.solve import vehicle_array
 from limitlap.units import G0_M_S2
-from limitlap.vehicle import Vehicle
+from limitlap.vehicle import EXPONENT_MAX, GRIP_COEFF_MAX, Vehicle
 
 #: Rolling-resistance coefficient used when the vehicle file gives none. It cannot be
 #: separated from the friction coefficients in the g-g data (it adds to braking and
@@ -84,10 +84,10 @@ _PARAMS = (
     "downforce_area_m2",
 )
 _BOUNDS = {
-    "mu_lat": (0.05, 8.0),
-    "mu_brk": (0.05, 8.0),
-    "mu_trac": (0.05, 8.0),
-    "exponent": (1.0, 10.0),
+    "mu_lat": (0.05, GRIP_COEFF_MAX),
+    "mu_brk": (0.05, GRIP_COEFF_MAX),
+    "mu_trac": (0.05, GRIP_COEFF_MAX),
+    "exponent": (1.0, EXPONENT_MAX),
     "power_w": (1.0e3, 5.0e6),
     "drag_area_m2": (0.0, 5.0),
     "downforce_area_m2": (-2.0, 20.0),

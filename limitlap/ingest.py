@@ -21,7 +21,7 @@ import numpy as np
 from limitlap.errors import InputError, LimitlapError
 from limitlap.line import Line, line_from_curvature, line_from_xy, self_intersects
 from limitlap.units import CHANNEL_UNITS, KW_TO_W, RHO_ISA_KG_M3
-from limitlap.vehicle import Vehicle
+from limitlap.vehicle import AIR_DENSITY_RANGE_KG_M3, EXPONENT_MAX, GRIP_COEFF_MAX, Vehicle
 
 # --------------------------------------------------------------------------- vehicles
 
@@ -71,6 +71,7 @@ def read_vehicle(path, *, require_complete: bool = True) -> Vehicle:
     """
     path = Path(path)
     data = _open_toml(path, "vehicle file")
+    _refuse_other_kind(path, data, "vehicle file")
     fields: dict = {}
     name = data.get("name", path.stem)
     if not isinstance(name, str):
@@ -97,7 +98,35 @@ def read_vehicle(path, *, require_complete: bool = True) -> Vehicle:
             )
     elif require_complete:
         raise InputError(path, "missing table [grip] (lateral, braking, traction, exponent)")
+    _check_meaning(path, fields)
     return Vehicle(**fields)
+
+
+def _check_meaning(path, fields) -> None:
+    """InputError for a vehicle value that no car can have (a typo, a unit slip)."""
+    for key, field_name in _GRIP_KEYS.items():
+        limit = EXPONENT_MAX if key == "exponent" else GRIP_COEFF_MAX
+        value = fields.get(field_name)
+        if value is not None and value > limit:
+            what = "combined-slip exponent" if key == "exponent" else "friction coefficient"
+            raise InputError(
+                path, f"key 'grip.{key}' = {value:g} is beyond any tyre ({what} at most {limit:g})"
+            )
+    crr = fields.get("rolling_coeff")
+    if crr is not None and crr >= 1.0:
+        raise InputError(
+            path,
+            f"key 'rolling_coeff' = {crr:g}: rolling resistance would be {crr:g} times the "
+            "car's weight (tyres: about 0.01)",
+        )
+    lo, hi = AIR_DENSITY_RANGE_KG_M3
+    rho = fields["air_density_kg_m3"]
+    if not lo <= rho <= hi:
+        raise InputError(
+            path,
+            f"key 'air_density_kg_m3' = {rho:g} is not air at any circuit "
+            f"(accepted {lo:g}-{hi:g} kg/m³; sea level 1.225)",
+        )
 
 
 # --------------------------------------------------------------------------- line files
@@ -278,6 +307,53 @@ def accepted_units(channel: str) -> str:
     return ", ".join(k or "(none)" for k in CHANNEL_UNITS[channel])
 
 
+#: What each kind of limitlap TOML file holds at its top level, as a message names it:
+#: (kind, {top-level key: how a message shows it}). docs/formats.md, Vehicle files,
+#: Track file, Channel map.
+_TOML_KINDS = (
+    (
+        "vehicle file",
+        {"mass_kg": "mass_kg", "power_kw": "power_kw", "grip": "[grip]"},
+    ),
+    (
+        "track file",
+        {"gate": "[gate]", "corners": "[[corners]]", "line": "line", "origin": "[origin]"},
+    ),
+    ("channel-map file", {"channels": "[channels.NAME]"}),
+)
+
+
+def toml_kind(data: dict) -> tuple[str, str] | None:
+    """Which kind of limitlap TOML file ``data`` is, by the keys it holds.
+
+    Parameters
+    ----------
+    data : dict
+        A TOML file's top-level table. [-]
+
+    Returns
+    -------
+    (str, str) or None
+        The kind (``"vehicle file"``, ``"track file"``, ``"channel-map file"``) and the
+        keys that show it (``"[gate]/[[corners]]"``); None when it holds none of them. [-]
+    """
+    for kind, marks in _TOML_KINDS:
+        shown = [text for key, text in marks.items() if key in data]
+        if shown:
+            return kind, "/".join(shown)
+    return None
+
+
+def _refuse_other_kind(path: Path, data: dict, what: str) -> None:
+    """InputError when ``data`` holds another kind's keys and none of ``what``'s own."""
+    own = dict(_TOML_KINDS)[what]
+    if any(key in data for key in own):
+        return
+    found = toml_kind(data)
+    if found is not None:
+        raise InputError(path, f"this is a {found[0]} (it has {found[1]}), not a {what}")
+
+
 def _open_toml(path: Path, what: str) -> dict:
     try:
         with reading(path, what), path.open("rb") as fh:
@@ -311,6 +387,7 @@ def read_channel_map(path) -> ChannelMap:
     """
     path = Path(path)
     data = _open_toml(path, "channel-map file")
+    _refuse_other_kind(path, data, "channel-map file")
     extra = sorted(set(data) - {"channels"})
     if extra:
         raise InputError(
@@ -379,9 +456,16 @@ class Track:
 
 
 def read_track(path) -> Track:
-    """Read a track file: ``name``, ``[gate] latitude/longitude``, ``[[corners]] name, label, apex_m``, ``line`` (a line file beside it)."""
+    """Read a track file: ``name``, ``[gate] latitude/longitude``, ``[[corners]] name, label, apex_m``, ``line`` (a line file beside it).
+
+    Each ``apex_m`` must be a distance along the lap: not negative, and below the file's
+    own ``length_m`` when it gives one (against the driven lap's length:
+    :func:`limitlap.corners.find_corners`). A vehicle or channel-map file is refused as
+    such.
+    """
     path = Path(path)
     data = _open_toml(path, "track file")
+    _refuse_other_kind(path, data, "track file")
     gate = data.get("gate")
     gate_latlon = None
     if gate is not None:
@@ -392,6 +476,9 @@ def read_track(path) -> Track:
         if not (-90 <= lat <= 90 and -180 <= lon <= 180):
             raise InputError(path, f"[gate] latitude/longitude out of range: {lat}, {lon}")
         gate_latlon = (lat, lon)
+    length = data.get("length_m")
+    if length is not None:
+        length = _number(path, "length_m", length, may_be_zero=False)
     corners = data.get("corners", [])
     if not isinstance(corners, list) or not all(isinstance(c, dict) for c in corners):
         raise InputError(path, "'corners' must be an array of tables [[corners]]")
@@ -399,10 +486,7 @@ def read_track(path) -> Track:
     for i, c in enumerate(corners, start=1):
         names.append(str(c.get("name", f"T{i}")))
         labels.append(str(c.get("label", "")))
-        apex = c.get("apex_m", float("nan"))
-        if isinstance(apex, bool) or not isinstance(apex, int | float):
-            raise InputError(path, f"corner {names[-1]}: 'apex_m' must be a number")
-        apexes.append(float(apex))
+        apexes.append(_apex(path, names[-1], c.get("apex_m", float("nan")), length))
     line = data.get("line")
     line_path = str(path.parent / line) if isinstance(line, str) else None
     return Track(
@@ -414,3 +498,21 @@ def read_track(path) -> Track:
         tuple(apexes),
         line_path,
     )
+
+
+def _apex(path, name, apex, length_m) -> float:
+    """A corner's ``apex_m`` checked as a distance from the gate along the lap. [m]."""
+    if isinstance(apex, bool) or not isinstance(apex, int | float):
+        raise InputError(path, f"corner {name}: 'apex_m' must be a number")
+    apex = float(apex)
+    if math.isinf(apex):
+        raise InputError(path, f"corner {name}: 'apex_m' must be finite, got {apex}")
+    if apex < 0:
+        raise InputError(
+            path, f"corner {name}: 'apex_m' {apex:g} m is negative (distances run from the gate)"
+        )
+    if length_m is not None and apex >= length_m:
+        raise InputError(
+            path, f"corner {name}: 'apex_m' {apex:g} m is beyond the lap (length_m {length_m:g} m)"
+        )
+    return apex

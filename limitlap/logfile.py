@@ -1,6 +1,7 @@
 """Reading a session log: CSV in, SI channels on the log's own time base out.
 
-:func:`read_log` detects the file's layout (gzip, delimiter, decimal comma, encoding),
+:func:`read_log` detects the file's layout (gzip, delimiter, decimal comma, encoding and
+line ends; what is not a text table is refused as such),
 maps column headers to channels (built-in names with units in brackets, or a channel
 map), parses the numbers with polars, merges duplicate time stamps and converts every
 channel to SI; latitude and longitude go to a local frame (:mod:`limitlap.gnss`). The
@@ -16,6 +17,7 @@ import csv
 import gzip
 import math
 import re
+import tomllib
 import zlib
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -24,7 +26,14 @@ import numpy as np
 
 from limitlap.errors import InputError
 from limitlap.gnss import dropout_warnings, to_enu
-from limitlap.ingest import ChannelMap, accepted_units, read_channel_map, reading, unit_key
+from limitlap.ingest import (
+    ChannelMap,
+    accepted_units,
+    read_channel_map,
+    reading,
+    toml_kind,
+    unit_key,
+)
 from limitlap.units import CHANNEL_UNITS
 
 
@@ -126,40 +135,130 @@ def _read_log_bytes(path: Path) -> bytes:
             raise InputError(path, f"damaged gzip file: {err}") from err
     elif path.suffix.lower() == ".gz" and raw:
         raise InputError(path, "named .gz but not gzip-compressed")
-    if raw.startswith(b"\xef\xbb\xbf"):  # UTF-8 byte order mark
-        raw = raw[3:]
     return raw
 
 
 #: Bytes read from the start of a plain log to find its header and separator. [B]
 _HEAD_BYTES = 65536
 
+#: Longest first line read as a header: a log's header names its columns on one line, a
+#: few hundred of them; a longer first line is refused unread. [B]
+#: Common practice, no published source.
+_MAX_HEADER_BYTES = 1 << 20
+
+#: Most columns a header may name (logger exports carry hundreds at most). [-]
+#: Common practice, no published source.
+_MAX_COLUMNS = 10_000
+
+#: Byte-order marks and the text encodings they start (The Unicode Standard, §23.8).
+_BOMS = ((b"\xef\xbb\xbf", "utf-8"), (b"\xff\xfe", "utf-16-le"), (b"\xfe\xff", "utf-16-be"))
+
+#: Control characters that text does not hold (all of C0 but tab, LF and CR; DEL).
+_NOT_TEXT = "[\x00-\x08\x0b\x0c\x0e-\x1f\x7f]"
+_NOT_TEXT_BYTES = re.compile(_NOT_TEXT.encode())
+_NOT_TEXT_CHARS = re.compile(_NOT_TEXT)
+#: Every byte but those: deleting them leaves the controls (a C loop, ten times the
+#: regular expression's speed on 64 KB of clean text).
+_TEXT_BYTES = bytes(b for b in range(256) if not _NOT_TEXT_BYTES.match(bytes([b])))
+
+
+def _first_line(fh) -> bytes:
+    """The start of an open file: 64 KB, or more up to the first line end (a cap past it)."""
+    parts = [fh.read(_HEAD_BYTES)]
+    size = len(parts[0])
+    while parts[-1] and b"\n" not in parts[-1] and b"\r" not in parts[-1]:
+        if size > _MAX_HEADER_BYTES:
+            break
+        parts.append(fh.read(_HEAD_BYTES))
+        size += len(parts[-1])
+    return b"".join(parts)
+
+
+def _text_form(path: Path, head: bytes) -> tuple[str, int, str]:
+    """Encoding, byte-order mark length and line end of a log from its first bytes.
+
+    UTF-8 (with or without a byte-order mark) and UTF-16 with one are told by the mark;
+    UTF-16 without one by its zero bytes beside ASCII. Line ends: LF, CRLF or CR (before
+    the first LF, a CR not followed by LF). Control characters that text never holds
+    refuse the file as not a text table, at their byte.
+    """
+    codec, bom = "utf-8", 0
+    for mark, name in _BOMS:
+        if head.startswith(mark):
+            codec, bom = name, len(mark)
+            break
+    else:
+        if len(head) >= 4 and head[1] == head[3] == 0 and head[0] and head[2]:
+            codec = "utf-16-le"
+        elif len(head) >= 4 and head[0] == head[2] == 0 and head[1] and head[3]:
+            codec = "utf-16-be"
+    if codec == "utf-8":
+        text, width = head, 1
+        clean = not head.translate(None, _TEXT_BYTES)
+        hit = None if clean else _NOT_TEXT_BYTES.search(head, bom)
+    else:  # the first characters (a cut-off last one replaced)
+        text, width = head[bom : len(head) - (len(head) - bom) % 2].decode(codec, "replace"), 2
+        hit = _NOT_TEXT_CHARS.search(text)
+    if hit is not None:
+        at = hit.start() if width == 1 else bom + width * hit.start()
+        raise InputError(path, f"not a text table (binary data at byte {at})")
+    lf, cr = text.find("\n" if width == 2 else b"\n"), text.find("\r" if width == 2 else b"\r")
+    if cr >= 0 and (lf < 0 or cr < lf - 1):
+        return codec, bom, "CR"
+    return codec, bom, ("CRLF" if cr >= 0 and cr == lf - 1 else "LF")
+
+
+def _as_plain_text(path: Path, raw: bytes, codec: str, bom: int, line_end: str) -> bytes:
+    """UTF-8 with LF (or CRLF) line ends from a UTF-16 or CR-only log's bytes."""
+    if codec != "utf-8":
+        try:
+            raw = raw[bom:].decode(codec).encode("utf-8")
+        except UnicodeDecodeError as err:
+            raise InputError(
+                path, f"not {codec.upper()} text: bytes at {bom + err.start} cannot be decoded"
+            ) from None
+    if line_end == "CR":
+        raw = raw.replace(b"\r\n", b"\n").replace(b"\r", b"\n")
+    return raw
+
 
 def _log_source(path: Path) -> tuple[str | bytes, bytes, bool]:
     """What the parser reads, the start of the text, and whether that start is all of it.
 
     A plain file is handed to polars by its path (it maps the file: measured 9 ms less
-    than reading 19 MB into memory first); a gzip file is decompressed into memory. The
-    start (at least the header line, 64 KB or so) serves the format detection; a UTF-8
-    byte-order mark is removed from it (the parser skips the header line anyway).
+    than reading 19 MB into memory first); a gzip file is decompressed into memory, and
+    so is a UTF-16 or CR-only one, converted to UTF-8 with LF line ends
+    (:func:`_text_form`). The start (at least the header line, 64 KB or so) serves the
+    format detection; a UTF-8 byte-order mark is removed from it (the parser skips the
+    header line anyway).
     """
     with reading(path, "log file"), path.open("rb") as fh:
-        head = fh.read(_HEAD_BYTES)
-        if head[:2] != _GZIP_MAGIC:
-            while b"\n" not in head:  # a header line longer than the chunk
-                more = fh.read(_HEAD_BYTES)
-                if not more:
-                    break
-                head += more
-            whole = not fh.read(1)
+        head = _first_line(fh)
+        whole = not fh.read(1)
+    raw = None
     if head[:2] == _GZIP_MAGIC:
         raw = _read_log_bytes(path)
-        return raw, raw[:_HEAD_BYTES], len(raw) <= _HEAD_BYTES
-    if path.suffix.lower() == ".gz" and head:
+        head = raw[:_HEAD_BYTES]
+    elif path.suffix.lower() == ".gz" and head:
         raise InputError(path, "named .gz but not gzip-compressed")
-    if head.startswith(b"\xef\xbb\xbf"):  # UTF-8 byte order mark
-        head = head[3:]
-    return str(path), head, whole
+    codec, bom, line_end = _text_form(path, head)
+    if codec != "utf-8" or line_end == "CR":
+        raw = _as_plain_text(
+            path, _read_log_bytes(path) if raw is None else raw, codec, bom, line_end
+        )
+        bom = 0
+    if raw is None:
+        return str(path), head[bom:], whole
+    if raw.startswith(b"\xef\xbb\xbf"):
+        raw = raw[3:]
+    head = _bytes_head(raw)
+    return raw, head, len(head) == len(raw)
+
+
+def _bytes_head(raw: bytes) -> bytes:
+    """The start of a log in memory: 64 KB, or up to the first line end (a cap past it)."""
+    end = raw.find(b"\n", 0, _MAX_HEADER_BYTES + 1)
+    return raw[: max(_HEAD_BYTES, end + 1 if end >= 0 else _MAX_HEADER_BYTES + 1)]
 
 
 def _split_header(cell: str) -> tuple[str, str | None]:
@@ -169,9 +268,21 @@ def _split_header(cell: str) -> tuple[str, str | None]:
     return name, (unit.rstrip().rstrip("]").strip() if bracket else None)
 
 
-def _detect_format(path: Path, raw: bytes) -> tuple[list[str], str, bool, str]:
-    """Header cells, separator, decimal comma, encoding for polars."""
+def _detect_format(path: Path, raw: bytes, whole: bool) -> tuple[list[str], str, bool, str]:
+    """Header cells, separator, decimal comma, encoding for polars.
+
+    ``raw`` is the start of the text (:func:`_log_source`), ``whole`` True when it is all
+    of it. A first line longer than :data:`_MAX_HEADER_BYTES`, a header of more than
+    :data:`_MAX_COLUMNS` columns and text without a separator are refused before any
+    cell is split.
+    """
     end = raw.find(b"\n")
+    if end < 0 and not whole:
+        raise InputError(
+            path, f"not a log's header: the first line is longer than {_MAX_HEADER_BYTES >> 20} MB"
+        )
+    if whole:  # a small file: perhaps a TOML file given where a log belongs
+        _refuse_toml(path, raw)
     head = raw if end < 0 else raw[:end]
     encoding = "utf8"
     try:
@@ -182,6 +293,12 @@ def _detect_format(path: Path, raw: bytes) -> tuple[list[str], str, bool, str]:
     header_line = header_line.rstrip("\r")
     counts = {sep: header_line.count(sep) for sep in (",", ";", "\t")}
     sep = max(counts, key=lambda s: (counts[s], s == ","))
+    if counts[sep] >= _MAX_COLUMNS:
+        raise InputError(
+            path, f"not a log's header: {counts[sep] + 1} columns (at most {_MAX_COLUMNS:,})"
+        )
+    if counts[sep] == 0:
+        _refuse_if_not_a_table(path, raw, whole)
     header = next(csv.reader([header_line], delimiter=sep))
     header = [h.strip() for h in header]
     decimal_comma = False
@@ -199,6 +316,30 @@ def _detect_format(path: Path, raw: bytes) -> tuple[list[str], str, bool, str]:
                 raise InputError(path, "the header names this column twice", column=h)
             seen.add(h)
     return header, sep, decimal_comma, encoding
+
+
+#: Lines looked at for a separator before a file is refused as not a table. [-]
+_TABLE_LINES = 20
+
+
+def _refuse_toml(path: Path, raw: bytes) -> None:
+    """InputError naming a limitlap TOML file (vehicle, track, channel map) given as a log."""
+    try:
+        kind = toml_kind(tomllib.loads(raw.decode("utf-8")))
+    except (tomllib.TOMLDecodeError, UnicodeDecodeError):
+        return
+    if kind is not None:
+        raise InputError(path, f"this is a {kind[0]} (it has {kind[1]}), not a log")
+
+
+def _refuse_if_not_a_table(path: Path, raw: bytes, whole: bool) -> None:
+    """InputError when no line of the start of the text has a separator."""
+    text = raw.decode("utf-8", errors="replace")
+    lines = [ln for ln in text.splitlines()[:_TABLE_LINES] if ln.strip()]
+    if any(sep in ln for ln in lines for sep in (",", ";", "\t")):
+        return
+    n = min(len(lines), _TABLE_LINES)
+    raise InputError(path, f"not a text table (no comma, semicolon or tab in its first {n} lines)")
 
 
 def _resolve_columns(path: Path, header: list[str], cmap: ChannelMap | None):
@@ -614,8 +755,8 @@ def read_log(path, channel_map=None, *, on_channels=None, defer=()) -> Log:
     ----------
     path : str or Path
         CSV file, optionally gzip-compressed (``.csv.gz``); comma, semicolon (with
-        decimal commas) or tab separated; a UTF-8 byte-order mark and CRLF line ends
-        are accepted.
+        decimal commas) or tab separated; UTF-8 (with or without a byte-order mark) or
+        UTF-16, LF, CRLF or CR line ends (:func:`_text_form`).
     channel_map : ChannelMap, str, Path or None
         Column names and units for a log that does not use the §1 names (a
         :class:`ChannelMap` or the path of its TOML file).
@@ -645,7 +786,10 @@ def read_log(path, channel_map=None, *, on_channels=None, defer=()) -> Log:
     Raises
     ------
     InputError
-        The file is missing, empty or header-only; a required channel is missing; a
+        The file is missing, empty or header-only; it is not a text table (binary
+        data, no separator, a first line over 1 MB or 10,000 columns, a limitlap TOML
+        file); its GPS position never changes while the car moves; a required channel
+        is missing; a
         cell is not a number (its row as a spreadsheet counts: header = row 1); a unit
         is unknown; a latitude/longitude is out of range; time goes backwards; no row
         has a position.
@@ -661,7 +805,7 @@ def read_log(path, channel_map=None, *, on_channels=None, defer=()) -> Log:
     source, head, whole = _log_source(path)
     if whole and (not head or head.isspace()):
         raise InputError(path, "file is empty")
-    fmt = _detect_format(path, head)
+    fmt = _detect_format(path, head, whole)
     header = fmt[0]
     found = _resolve_columns(path, header, channel_map)
     later = {ch: found[ch] for ch in defer if ch in found and ch != "time"}
@@ -682,7 +826,7 @@ def read_log(path, channel_map=None, *, on_channels=None, defer=()) -> Log:
         _check_lap_column(path, data["lap"], rows, column("lap"))
     if on_channels is not None:
         on_channels(time_s, data)
-    origin = _local_positions(path, data, rows, column, warnings)
+    origin = _local_positions(path, data, time_s, rows, column, warnings)
     channels = _Channels(data)
     if later:
         channels.deferred = _Deferred(
@@ -746,7 +890,7 @@ def _time_base(path, data, rows, column, warnings):
     return time_s, data, rows
 
 
-def _local_positions(path, data, rows, column, warnings):
+def _local_positions(path, data, time_s, rows, column, warnings):
     """Positions in the local frame, in place: ``x``/``y`` [m]; returns the WGS84 origin.
 
     Latitude/longitude go to east-north-up (:func:`limitlap.gnss.to_enu`); a planar
@@ -772,12 +916,49 @@ def _local_positions(path, data, rows, column, warnings):
         lat[~fix] = np.nan
         lon[~fix] = np.nan
         data["x"], data["y"], origin = to_enu(lat, lon, data.get("altitude"), fix)
+        where = f"{origin[0]:.6f},{origin[1]:.6f}"
+        _require_movement(path, data, time_s, fix, ("latitude", "longitude"), column, where)
         return origin
     fix = np.isfinite(data["x"]) & np.isfinite(data["y"])
     _require_a_fix(path, data["x"], fix, "x", "y", column)
     data["x"][~fix] = np.nan
     data["y"][~fix] = np.nan
+    first = int(np.argmax(fix))
+    where = f"x={data['x'][first]:.1f} m, y={data['y'][first]:.1f} m"
+    _require_movement(path, data, time_s, fix, ("x", "y"), column, where)
     return None
+
+
+#: Fixes that all lie within this span while the car moved (by its speed) more than
+#: :data:`_FROZEN_TRAVEL_M` are a frozen or absent GPS position. [m]
+#: Common practice, no published source.
+_FROZEN_SPAN_M = 1.0
+_FROZEN_TRAVEL_M = 50.0
+
+
+def _require_movement(path, data, time_s, fix, names, column, where):
+    """InputError naming the log when its position never changes while the car moves.
+
+    A quick look at every 997th row first (a moving car's fixes spread at once; the
+    stride is prime so it meets the fix rows of any GPS rate), then every fix.
+    """
+    x, y = data["x"], data["y"]
+    for a in (x, y):
+        probe = a[::997]
+        if np.fmax.reduce(probe) - np.fmin.reduce(probe) >= _FROZEN_SPAN_M:
+            return
+    span = max(float(np.ptp(x[fix])), float(np.ptp(y[fix])))
+    speed = data["speed"]
+    moved = float(np.nansum(0.5 * (speed[1:] + speed[:-1]) * np.diff(time_s)))
+    if span >= _FROZEN_SPAN_M or not moved > _FROZEN_TRAVEL_M:
+        return
+    cols = " and ".join(f"'{column(n)}'" for n in names)
+    raise InputError(
+        path,
+        f"columns {cols}: the position never changes (all {int(fix.sum())} fixes within "
+        f"{_FROZEN_SPAN_M:g} m of {where} while the speed covers {moved / 1000:.1f} km): "
+        "frozen or absent GPS",
+    )
 
 
 def _require_a_fix(path, first, fix, first_name, second_name, column):

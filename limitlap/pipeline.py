@@ -541,7 +541,9 @@ def _find_corners(the_lap, trk) -> list[corners_mod.Corner]:
     """The corners of the rebuilt line, named (and placed) as the track file says."""
     names = list(trk.corner_names) if trk is not None and trk.corner_names else None
     apexes = list(trk.corner_apexes_m) if names is not None else None
-    return corners_mod.find_corners(the_lap.line, names, apexes_m=apexes)
+    return corners_mod.find_corners(
+        the_lap.line, names, apexes_m=apexes, apexes_from=trk.path if trk is not None else None
+    )
 
 
 def _grip_envelope(log_path, log, laps, chosen, the_lap, flying, beside, vehicle, warnings):

@@ -12,6 +12,17 @@ from limitlap.units import RHO_ISA_KG_M3
 GRIP_SCALE_MIN = 0.2
 GRIP_SCALE_MAX = 2.0
 
+#: Largest friction coefficient and combined-slip exponent a vehicle may have: the
+#: envelope fit's own bounds (so every envelope.toml it writes reads back), far beyond
+#: any tyre (racing slicks about 1.5-2). Common practice, no published source. [-]
+GRIP_COEFF_MAX = 8.0
+EXPONENT_MAX = 10.0
+
+#: Air densities a circuit can have: ISO 2533's standard atmosphere gives 0.74 kg/m³ at
+#: 5,000 m and 1.23 at sea level; 0.5-1.6 leaves room for weather. [kg/m³]
+#: Common practice, no published source.
+AIR_DENSITY_RANGE_KG_M3 = (0.5, 1.6)
+
 
 @dataclass(frozen=True)
 class Vehicle:
