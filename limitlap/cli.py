@@ -128,9 +128,9 @@ def solve(
     the_line = ingest.read_line(line)
     profile = solver.solve_profile(the_line, car, k)
     if out is not None:
-        from limitlap import outputs
+        from limitlap import atomic, outputs
 
-        outputs.write_atomic(out, outputs.solve_profile_csv_text(profile, the_line))
+        atomic.write_atomic(out, outputs.solve_profile_csv_text(profile, the_line))
     result = {
         "lap_time_s": round(profile.lap_time_s, 3),
         "min_speed_kmh": round(_kmh(float(profile.speed_m_s.min())), 2),
@@ -283,7 +283,7 @@ def _analyse_one(
 
 def _analyse_batch(logs, out, quiet, scheduler, **options) -> None:
     """Several logs (or folders): one output folder each, a combined table, batch.csv."""
-    from limitlap import batch, outputs, report
+    from limitlap import atomic, batch, report
 
     found = batch.find_logs(logs)
     bar = _Progress(quiet, "logs")
@@ -304,7 +304,7 @@ def _analyse_batch(logs, out, quiet, scheduler, **options) -> None:
                 f"limitlap: warning: {w if w.startswith(row.log) else f'{row.log}: {w}'}", err=True
             )
     typer.echo(batch.format_batch_table(rows))
-    table = outputs.write_atomic(Path(out) / "batch.csv", batch.batch_csv_text(rows))
+    table = atomic.write_atomic(Path(out) / "batch.csv", batch.batch_csv_text(rows))
     typer.echo(f"\nwritten to {out}/: one folder per log, {table.name}")
     typer.echo(report.SAFETY_CAUTION)
     if not all(row.ok for row in rows):
@@ -441,13 +441,13 @@ def demo(
     quiet: bool = typer.Option(False, "--quiet", help="No progress display."),
 ) -> None:
     """The whole job on the bundled demo session: report, figures and target sheets."""
-    from limitlap import outputs, sheets
+    from limitlap import atomic, sheets
     from limitlap import targets as targets_mod
     from limitlap.resources import bundled_path
 
     log = bundled_path("demo_tracks", "tarrowby_dry.csv.gz")
     track = bundled_path("demo_tracks", "tarrowby_heath.toml")
-    with outputs.output_set(out) as folder:  # the report and the sheets: one set
+    with atomic.output_set(out) as folder:  # the report and the sheets: one set
         analysis, _ = _analyse_one(log, None, 1.0, None, None, None, track, folder, quiet)
         conditions = targets_mod.target_tables(
             analysis.driven.line, analysis.vehicle, ["dry", "damp", "wet"], analysis.corners

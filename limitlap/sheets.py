@@ -1,7 +1,7 @@
 """Target sheets before a session: targets.csv and a printable PDF and PNG per condition.
 
 The tables come from :func:`limitlap.targets.target_table`; every file is written
-into one set by :func:`limitlap.outputs.output_set`. Format: docs/outputs.md, Target
+into one set by :func:`limitlap.atomic.output_set`. Format: docs/outputs.md, Target
 sheets.
 """
 
@@ -12,7 +12,8 @@ import re
 from pathlib import Path
 from typing import TYPE_CHECKING
 
-from limitlap.outputs import Progress, csv_cell, float_or_nan, output_set, stepper
+from limitlap.atomic import output_set
+from limitlap.outputs import Progress, csv_cell, float_or_nan, stepper
 from limitlap.units import KMH_TO_M_S
 
 if TYPE_CHECKING:
@@ -115,7 +116,7 @@ def write_target_sheets(
         Records of :func:`limitlap.targets.target_table` (docs/outputs.md, Target sheets fields; an optional
         ``condition``/``label`` names it, e.g. "wet").
     out_dir : str, Path or OutputSet
-        Output folder, replaced whole by these files (:func:`limitlap.outputs.output_set`);
+        Output folder, replaced whole by these files (:func:`limitlap.atomic.output_set`);
         or a set open for more files of the same run.
     circuit_name : str
         Heading of each sheet.

@@ -9,7 +9,7 @@ import threading
 import numpy as np
 import pytest
 
-from limitlap import figures, outputs, sheets
+from limitlap import atomic, figures, outputs, sheets
 from limitlap.errors import InputError
 
 from . import test_report as tr
@@ -44,7 +44,7 @@ def references(two_runs, tmp_path_factory):
         folder = tmp_path_factory.mktemp("reference") / f"run{i}"
         outputs.write_outputs(analysis, folder, figures=False)
         files = _contents(folder)
-        files.pop(outputs.SET_MANIFEST)  # its run id differs on every run
+        files.pop(atomic.SET_MANIFEST)  # its run id differs on every run
         refs.append(files)
     a, b = refs
     assert a.keys() == b.keys()
@@ -77,7 +77,7 @@ def test_concurrent_runs_never_leave_a_mixed_set(tmp_path, two_runs, references)
             t.join()
         assert not errors, errors
         files = _contents(out)
-        files.pop(outputs.SET_MANIFEST)
+        files.pop(atomic.SET_MANIFEST)
         assert files in references, "the folder holds files of both runs"
         assert _leftovers(tmp_path, "out") == []  # no fresh or earlier folder left beside
 
@@ -104,15 +104,15 @@ def test_analysis_and_sheets_in_one_set(tmp_path, two_runs):
     out = tmp_path / "out"
     (out / "targets_old.pdf").parent.mkdir()
     (out / "targets_old.pdf").write_bytes(b"%PDF of an earlier version's run")
-    with outputs.output_set(out) as folder:
+    with atomic.output_set(out) as folder:
         outputs.write_outputs(two_runs[0], folder, figures=False)
         sheets.write_target_sheets(tr._conditions(), folder, "Invented Ring")
         assert not (out / "summary.json").exists()  # nothing shows before the swap
     names = set(_contents(out))
     assert {"summary.json", "report.html", "targets.csv", "targets_dry.pdf"} <= names
     assert "targets_old.pdf" not in names  # the earlier set went whole
-    listed = set(outputs.json.loads((out / outputs.SET_MANIFEST).read_text())["files"])
-    assert listed | {outputs.SET_MANIFEST} == names
+    listed = set(atomic.json.loads((out / atomic.SET_MANIFEST).read_text())["files"])
+    assert listed | {atomic.SET_MANIFEST} == names
 
 
 def test_folder_with_other_files_is_refused_untouched(tmp_path, two_runs):

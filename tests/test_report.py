@@ -23,7 +23,7 @@ from pathlib import Path
 import numpy as np
 import pytest
 
-from limitlap import best_laps, compare, figures, gg, outputs, report, sheets, targets
+from limitlap import atomic, best_laps, compare, figures, gg, outputs, report, sheets, targets
 from limitlap import corners as corners_mod
 from limitlap.driven import DrivenLap
 from limitlap.envelope import EnvelopeFit
@@ -210,8 +210,8 @@ class _TagChecker(html.parser.HTMLParser):
 
 def test_write_atomic_writes_and_replaces(tmp_path):
     p = tmp_path / "a.txt"
-    outputs.write_atomic(p, "one\n")
-    outputs.write_atomic(p, b"two\n")
+    atomic.write_atomic(p, "one\n")
+    atomic.write_atomic(p, b"two\n")
     assert p.read_bytes() == b"two\n"
     assert [q.name for q in tmp_path.iterdir()] == ["a.txt"]  # no temp file left
 
@@ -223,9 +223,9 @@ def test_failed_replace_leaves_previous_file_intact(tmp_path, monkeypatch):
     def boom(src, dst):
         raise OSError(28, "No space left on device")
 
-    monkeypatch.setattr(outputs.os, "replace", boom)
+    monkeypatch.setattr(atomic.os, "replace", boom)
     with pytest.raises(InputError, match="No space left"):
-        outputs.write_atomic(p, "new\n")
+        atomic.write_atomic(p, "new\n")
     assert p.read_text() == "previous\n"
     assert [q.name for q in tmp_path.iterdir()] == ["summary.json"]  # temp file removed
 
@@ -238,9 +238,9 @@ def test_interrupted_write_leaves_previous_file_intact(tmp_path, monkeypatch):
     def interrupt(fd):
         raise KeyboardInterrupt
 
-    monkeypatch.setattr(outputs.os, "fsync", interrupt)
+    monkeypatch.setattr(atomic.os, "fsync", interrupt)
     with pytest.raises(KeyboardInterrupt):
-        outputs.write_atomic(p, "new\n")
+        atomic.write_atomic(p, "new\n")
     assert p.read_text() == "previous\n"
     assert [q.name for q in tmp_path.iterdir()] == ["report.html"]
 
@@ -249,7 +249,7 @@ def test_unwritable_folder_is_one_clear_input_error(tmp_path, analysis):
     blocker = tmp_path / "not_a_folder"
     blocker.write_text("x")
     with pytest.raises(InputError) as err:
-        outputs.write_atomic(blocker / "summary.json", "{}")
+        atomic.write_atomic(blocker / "summary.json", "{}")
     assert str(blocker) in str(err.value) and "\n" not in str(err.value)
     with pytest.raises(InputError, match="parent folder does not exist"):
         outputs.write_outputs(analysis, tmp_path / "missing" / "out", figures=False)
@@ -266,7 +266,7 @@ def test_read_only_folder_is_input_error(tmp_path):
     ro.chmod(0o555)
     try:
         with pytest.raises(InputError, match="cannot be written"):
-            outputs.write_atomic(ro / "x.json", "{}")
+            atomic.write_atomic(ro / "x.json", "{}")
     finally:
         ro.chmod(0o755)
 
@@ -345,7 +345,7 @@ def test_envelope_toml_round_trips_through_read_vehicle(tmp_path):
         exponent=1.87654321,
     )
     text = outputs.envelope_toml_text(car, {"quality": {"rms_m_s2": 0.2, "bands": [1, 2]}, "n": 5})
-    p = outputs.write_atomic(tmp_path / "envelope.toml", text)
+    p = atomic.write_atomic(tmp_path / "envelope.toml", text)
     back = read_vehicle(p)
     for f in dataclasses.fields(Vehicle):
         a, b = getattr(car, f.name), getattr(back, f.name)

@@ -7,7 +7,7 @@ import os
 
 import pytest
 
-from limitlap import outputs
+from limitlap import atomic
 
 from .robust_data import (
     VEHICLE_TOML,
@@ -127,7 +127,7 @@ def test_interrupted_write_leaves_the_earlier_result_whole(
         calls.append(fd)
         raise OSError(28, "No space left on device")
 
-    monkeypatch.setattr(outputs.os, "fsync", failing_fsync)
+    monkeypatch.setattr(atomic.os, "fsync", failing_fsync)
     code, _, err = run_cli(
         [
             "analyse",
