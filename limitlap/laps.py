@@ -214,7 +214,11 @@ def auto_gate(log: Log, speed_share: float = 0.6) -> Gate:
 
 
 def _direction_at(x, y, s, i):
-    """Unit direction of travel at row ``i`` from the positions ±5 m of path around it."""
+    """Unit direction of travel at row ``i`` from the positions ±5 m of path around it.
+
+    At least the nearest position on either side is taken, so the direction is defined
+    at any rate.
+    """
     ok = np.isfinite(x) & np.isfinite(y)
     lo = int(np.searchsorted(s, s[i] - _DIRECTION_SPAN_M))
     hi = int(np.searchsorted(s, s[i] + _DIRECTION_SPAN_M, side="right")) - 1
@@ -222,6 +226,14 @@ def _direction_at(x, y, s, i):
         lo += 1
     while hi > i and not ok[hi]:
         hi -= 1
+    # At a low rate one step is longer than the span (10 Hz at 220 km/h: 6 m): take the
+    # nearest positions either side, whatever the rate.
+    if lo == i:
+        earlier = np.flatnonzero(ok[:i])
+        lo = int(earlier[-1]) if earlier.size else i
+    if hi == i:
+        later = np.flatnonzero(ok[i + 1 :])
+        hi = i + 1 + int(later[0]) if later.size else i
     dx, dy = x[hi] - x[lo], y[hi] - y[lo]
     norm = math.hypot(dx, dy)
     return (dx / norm, dy / norm) if norm > 0 else None

@@ -377,6 +377,7 @@ def analyse(
     _step(progress, 0, _STEPS, "reading the log")
     with _EnvelopeBeside(log_path, base) as beside:  # the envelope's work overlaps the line's
         log, trk, warnings = _read_session(log_path, channels, track, on_channels=beside.select)
+        _require_accelerations(log_path, log)
         _check_channel_units(log_path, log, check_units, warnings)
         laps = _split_session(log_path, log, trk, gate, warnings)
         chosen = _chosen_lap(log_path, laps, lap)
@@ -422,6 +423,23 @@ def analyse(
             the_lap.speed_m_s, the_lap.accel_lon_m_s2, the_lap.accel_lat_m_s2, car, k
         ),
     )
+
+
+def _require_accelerations(log_path, log) -> None:
+    """Refuse a log without acceleration channels, naming them (GPS-only logs).
+
+    The envelope and the grip estimate need a_x and a_y; deriving them from speed and the
+    rebuilt line is not built yet.
+    """
+    missing = [name for name in ("accel_lon", "accel_lat") if not log.has(name)]
+    if missing:
+        names = " and ".join(f"'{name}'" for name in missing)
+        raise InputError(
+            log_path,
+            f"no {names} channel{'s' if len(missing) > 1 else ''} (a GPS-only log?): the "
+            "envelope and the grip estimate need the accelerations; deriving them from "
+            "speed and the line is not supported yet",
+        )
 
 
 def _check_channel_units(log_path, log, strict: bool, warnings: list[str]) -> None:

@@ -321,3 +321,15 @@ def test_a_lap_with_a_stop_is_not_a_complete_lap(tmp_path):
     stopped = [lap for lap in laps if "stopped for 10 s" in lap.reason]
     assert [lap.number for lap in stopped] == [2] and not stopped[0].complete
     assert [lap.number for lap in laps if lap.complete] == [1, 3, 4]
+
+
+def test_gate_direction_at_a_low_rate(tmp_path):
+    # 10 Hz rows at 70 m/s are 7 m apart, more than the ±5 m the gate's direction is taken
+    # from: the nearest positions either side give it. Closed form: crossings 2πR/v apart.
+    circle = Circle(radius_m=300.0, v0=70.0, duration_s=90.0, imu_hz=10, gps_hz=10, gps_phase_s=0.0)
+    gate = Gate.planar(300.0, 0.0)
+    laps = split_laps(read_log(circle.write(tmp_path / "c.csv", planar=True)), gate)
+    complete = [lap for lap in laps if lap.complete]
+    assert complete
+    for lap in complete:  # crossing times interpolated between rows 0.1 s apart
+        assert lap.time_s == pytest.approx(2 * math.pi * 300.0 / 70.0, abs=0.01)
