@@ -31,6 +31,15 @@ I_TRAC_RATIO = 13  # mu_trac / mu_lat [-]
 I_BRK_RATIO = 14  # mu_brk / mu_lat [-]
 N_VEH = 15
 
+# Rows of a solved profile's block (``profile_outputs``'s ``out``).
+OUT_DISTANCE = 0  # [m]
+OUT_SPEED = 1  # [m/s]
+OUT_AX = 2  # [m/s²]
+OUT_AY = 3  # [m/s²]
+OUT_TIME = 4  # [s]
+OUT_LIMIT = 5  # grip-only cornering speed limit [m/s]
+N_OUT = 6
+
 
 @njit(cache=True, inline="always")
 def _tyre_share_force(mu_x, ratio, normal, fy, veh):
@@ -81,20 +90,26 @@ def brake_decel(kappa, b, sin_grad, veh):
 
 
 @njit(cache=True)
-def cornering_speed_limit(curvature_1_m, veh):
-    """Kernel of :func:`limitlap.solve.cornering_speed_limit`: v_lim² per point."""
+def _cornering_limit_into(curvature_1_m, veh, out):
+    """v_lim² per point into ``out`` (:func:`cornering_speed_limit`)."""
     m = veh[I_MASS]
     aero_gain_1_m = 0.5 * veh[I_RHO] * veh[I_LIFT_AREA] / m
     mu = veh[I_MU_LAT]
     g = veh[I_G]
     b_cap = veh[I_V_CAP] * veh[I_V_CAP]
-    out = np.empty_like(curvature_1_m)
     for i in range(curvature_1_m.shape[0]):
         denom = abs(curvature_1_m[i]) - mu * aero_gain_1_m
         if denom <= 0.0:  # straight, or downforce grows faster than the corner needs
             out[i] = b_cap
         else:
             out[i] = min(b_cap, mu * g / denom)
+
+
+@njit(cache=True)
+def cornering_speed_limit(curvature_1_m, veh):
+    """Kernel of :func:`limitlap.solve.cornering_speed_limit`: v_lim² per point."""
+    out = np.empty_like(curvature_1_m)
+    _cornering_limit_into(curvature_1_m, veh, out)
     return out
 
 
@@ -138,127 +153,240 @@ def _backward_step(b_j, d_j, k_i, s_i, h, b_lim_i, veh):
     return b_i, d_i
 
 
-@njit(cache=True)
-def _both_passes(k, sg, ds, veh, b_lim, fwd, bwd, fa, bd, f0, b0, steps):
-    """Forward pass from station f0 and backward pass from b0, ``steps`` each, in one loop: the two dependency chains are independent, so the processor overlaps them.
+#: Rows of the solver's scratch (``solve_speed_squared``'s ``work``): forward trace (v²
+#: on return), backward trace, the acceleration and deceleration each carries, the speed²
+#: limit of the passes (grip and cap), the grip-only limit.
+W_FWD = 0
+W_BWD = 1
+W_FA = 2
+W_BD = 3
+W_LIM = 4
+W_GRIP = 5
+N_WORK = 6
 
-    Indices wrap round the arrays (closed laps). ``fa``/``bd`` receive the acceleration
-    and deceleration carried at each station.
+#: Below this many stations each pass runs as one chain: the second chain and its
+#: fix-up cost more than they save.
+SPLIT_MIN_STATIONS = 2000
+
+
+@njit(cache=True)
+def _run_chains(k, sg, ds, veh, b_lim, work, f_start, f_steps, b_start, b_steps):
+    """Two forward and two backward passes, each from its own start station, in one loop.
+
+    Forward chain c starts at ``f_start[c]`` (its trace value there already set) and takes
+    ``f_steps[c]`` steps; backward chain c likewise from ``b_start[c]``. Indices wrap
+    round the arrays (closed laps). The four dependency chains are independent, so the
+    processor overlaps them; each pass step is a long chain of dependent floating-point
+    operations (a square root and a division among them), which one chain alone leaves
+    mostly idle. ``work[W_FA]``/``work[W_BD]`` receive the acceleration carried at each
+    station.
     """
     n = k.shape[0]
-    i = f0
-    j = b0
-    a = drive_accel(k[i], fwd[i], sg[i], veh)
-    d = brake_decel(k[j], bwd[j], sg[j], veh)
-    fa[i] = a
-    bd[j] = d
-    for _ in range(steps):
+    fwd, bwd, fa, bd = work[W_FWD], work[W_BWD], work[W_FA], work[W_BD]
+    # Chain states in locals (held in registers) and the step counts too: read back
+    # from the arrays, every step would wait for the store before it.
+    i0, i1, j0, j1 = f_start[0], f_start[1], b_start[0], b_start[1]
+    nf0, nf1, nb0, nb1 = f_steps[0], f_steps[1], b_steps[0], b_steps[1]
+    f0, f1, g0, g1 = fwd[i0], fwd[i1], bwd[j0], bwd[j1]
+    a0 = drive_accel(k[i0], f0, sg[i0], veh)
+    a1 = drive_accel(k[i1], f1, sg[i1], veh)
+    d0 = brake_decel(k[j0], g0, sg[j0], veh)
+    d1 = brake_decel(k[j1], g1, sg[j1], veh)
+    fa[i0], fa[i1], bd[j0], bd[j1] = a0, a1, d0, d1
+    for t in range(max(max(nf0, nf1), max(nb0, nb1))):
+        if t < nf0:
+            i = i0 + 1 if i0 + 1 < n else 0
+            f0, a0 = _forward_step(f0, a0, k[i], sg[i], ds[i0], b_lim[i], veh)
+            fwd[i] = f0
+            fa[i] = a0
+            i0 = i
+        if t < nf1:
+            i = i1 + 1 if i1 + 1 < n else 0
+            f1, a1 = _forward_step(f1, a1, k[i], sg[i], ds[i1], b_lim[i], veh)
+            fwd[i] = f1
+            fa[i] = a1
+            i1 = i
+        if t < nb0:
+            j = j0 - 1 if j0 > 0 else n - 1
+            g0, d0 = _backward_step(g0, d0, k[j], sg[j], ds[j], b_lim[j], veh)
+            bwd[j] = g0
+            bd[j] = d0
+            j0 = j
+        if t < nb1:
+            j = j1 - 1 if j1 > 0 else n - 1
+            g1, d1 = _backward_step(g1, d1, k[j], sg[j], ds[j], b_lim[j], veh)
+            bwd[j] = g1
+            bd[j] = d1
+            j1 = j
+
+
+@njit(cache=True)
+def _forward_rejoin(k, sg, ds, veh, b_lim, fwd, fa, i, steps):
+    """Forward steps from station i (its stored state taken as right), overwriting the trace, until a step lands on the stored state (the rest already follows from it) or ``steps`` steps are done. Returns the steps taken."""
+    n = k.shape[0]
+    b = fwd[i]
+    a = fa[i]
+    for m in range(steps):
         i1 = i + 1 if i + 1 < n else 0
-        fwd[i1], a = _forward_step(fwd[i], a, k[i1], sg[i1], ds[i], b_lim[i1], veh)
+        b, a = _forward_step(b, a, k[i1], sg[i1], ds[i], b_lim[i1], veh)
+        if b == fwd[i1] and a == fa[i1]:
+            return m + 1
+        fwd[i1] = b
         fa[i1] = a
         i = i1
+    return steps
+
+
+@njit(cache=True)
+def _backward_rejoin(k, sg, ds, veh, b_lim, bwd, bd, j, steps):
+    """Backward twin of :func:`_forward_rejoin`."""
+    n = k.shape[0]
+    b = bwd[j]
+    d = bd[j]
+    for m in range(steps):
         j1 = j - 1 if j > 0 else n - 1
-        bwd[j1], d = _backward_step(bwd[j], d, k[j1], sg[j1], ds[j1], b_lim[j1], veh)
+        b, d = _backward_step(b, d, k[j1], sg[j1], ds[j1], b_lim[j1], veh)
+        if b == bwd[j1] and d == bd[j1]:
+            return m + 1
+        bwd[j1] = b
         bd[j1] = d
         j = j1
+    return steps
 
 
 @njit(cache=True)
-def _repeat_forward(k, sg, ds, veh, b_lim, fwd, fa, i0):
-    """Forward lap from i0 (start speed already lowered) until the trace rejoins the previous lap's; returns the speed² it arrives back at i0 with."""
+def _steepest_drop(b_lim, first, offset_lo, offset_hi, direction):
+    """Offset (from station ``first``, counted in the pass's direction) in [lo, hi) of the station whose cornering limit lies furthest below the one before it in that direction: a corner entry for the forward pass, a corner exit for the backward one."""
+    n = b_lim.shape[0]
+    best = offset_lo
+    drop_best = -np.inf
+    s = (first + direction * offset_lo) % n
+    prev = (s - direction) % n
+    for off in range(offset_lo, offset_hi):
+        drop = b_lim[prev] - b_lim[s]
+        if drop > drop_best:
+            drop_best = drop
+            best = off
+        prev = s
+        s += direction  # stepped, not taken modulo n: a division per station is dear
+        if s == n:
+            s = 0
+        elif s < 0:
+            s = n - 1
+    return best
+
+
+@njit(cache=True)
+def _split_passes(k, sg, ds, veh, b_lim, work, f0, b0, split):
+    """Forward pass from station f0 and backward pass from b0, exactly as one sequential pass each.
+
+    Each takes n - 1 steps round the line; the start values are already in ``work``.
+
+    With ``split``, each pass runs as two chains (:func:`_run_chains`): the second starts
+    mid-lap at the cornering limit of the station where the limit drops most steeply in
+    the pass's direction (a corner entry forward, a corner exit backward), where the
+    sequential trace is almost always held at the limit in both the predictor and the
+    corrector, i.e. in the very state the chain starts from. The first chain's end is then
+    stepped on into the second's stretch until it lands on the stored state; from there on
+    the stored trace is what one sequential pass computes, value for value.
+    """
     n = k.shape[0]
-    i = i0
-    a = drive_accel(k[i0], fwd[i0], sg[i0], veh)
-    fa[i0] = a
-    for _ in range(n):
-        i1 = i + 1 if i + 1 < n else 0
-        b_new, a = _forward_step(fwd[i], a, k[i1], sg[i1], ds[i], b_lim[i1], veh)
-        if i1 == i0:
-            return b_new
-        if b_new == fwd[i1] and a == fa[i1]:
-            return fwd[i0]  # same state as last lap: the rest repeats
-        fwd[i1] = b_new
-        fa[i1] = a
-        i = i1
-    return fwd[i0]
+    lo, hi = (n // 3, (2 * n) // 3) if split else (n, n)
+    f_off = _steepest_drop(b_lim, f0, lo, hi, 1) if split else n
+    b_off = _steepest_drop(b_lim, b0, lo, hi, -1) if split else n
+    f_start = np.array([f0, (f0 + f_off) % n])
+    b_start = np.array([b0, (b0 - b_off) % n])
+    f_steps = np.array([f_off - 1, n - 1 - f_off])
+    b_steps = np.array([b_off - 1, n - 1 - b_off])
+    if split:
+        work[W_FWD, f_start[1]] = b_lim[f_start[1]]
+        work[W_BWD, b_start[1]] = b_lim[b_start[1]]
+    else:
+        f_steps[:] = (n - 1, 0)
+        b_steps[:] = (n - 1, 0)
+    _run_chains(k, sg, ds, veh, b_lim, work, f_start, f_steps, b_start, b_steps)
+    if split:
+        last = (f_start[1] - 1) % n
+        _forward_rejoin(k, sg, ds, veh, b_lim, work[W_FWD], work[W_FA], last, n - f_off)
+        last = (b_start[1] + 1) % n
+        _backward_rejoin(k, sg, ds, veh, b_lim, work[W_BWD], work[W_BD], last, n - b_off)
 
 
 @njit(cache=True)
-def _repeat_backward(k, sg, ds, veh, b_lim, bwd, bd, i0):
-    """Backward twin of :func:`_repeat_forward`."""
+def _close_forward(k, sg, ds, veh, b_lim, fwd, fa, i0):
+    """Periodic forward pass: where the lap arrives back at i0 slower than it started, restart from the arrival until it repeats."""
     n = k.shape[0]
-    j = i0
-    d = brake_decel(k[i0], bwd[i0], sg[i0], veh)
-    bd[i0] = d
-    for _ in range(n):
-        j1 = j - 1 if j > 0 else n - 1
-        b_new, d = _backward_step(bwd[j], d, k[j1], sg[j1], ds[j1], b_lim[j1], veh)
-        if j1 == i0:
-            return b_new
-        if b_new == bwd[j1] and d == bd[j1]:
-            return bwd[i0]
-        bwd[j1] = b_new
-        bd[j1] = d
-        j = j1
-    return bwd[i0]
+    i_last = i0 - 1 if i0 > 0 else n - 1
+    for _ in range(200):
+        arrival, _ = _forward_step(
+            fwd[i_last], fa[i_last], k[i0], sg[i0], ds[i_last], b_lim[i0], veh
+        )
+        if arrival >= fwd[i0] * (1.0 - 1e-13):
+            return
+        fwd[i0] = arrival
+        fa[i0] = drive_accel(k[i0], arrival, sg[i0], veh)
+        if _forward_rejoin(k, sg, ds, veh, b_lim, fwd, fa, i0, n - 1) < n - 1:
+            return  # the lap rejoined its previous trace: the rest repeats
 
 
 @njit(cache=True)
-def solve_speed_squared(curvature_1_m, sin_grad, ds_m, veh, closed, b_entry, b_exit, b_max):
+def _close_backward(k, sg, ds, veh, b_lim, bwd, bd, i0):
+    """Backward twin of :func:`_close_forward`."""
+    n = k.shape[0]
+    j_last = i0 + 1 if i0 + 1 < n else 0
+    for _ in range(200):
+        arrival, _ = _backward_step(bwd[j_last], bd[j_last], k[i0], sg[i0], ds[i0], b_lim[i0], veh)
+        if arrival >= bwd[i0] * (1.0 - 1e-13):
+            return
+        bwd[i0] = arrival
+        bd[i0] = brake_decel(k[i0], arrival, sg[i0], veh)
+        if _backward_rejoin(k, sg, ds, veh, b_lim, bwd, bd, i0, n - 1) < n - 1:
+            return
+
+
+@njit(cache=True)
+def solve_speed_squared(
+    curvature_1_m, sin_grad, ds_m, veh, closed, b_entry, b_exit, b_max, work, split
+):
     """Kernel of :func:`limitlap.solve.solve_profile`: the QSS speed² profile.
 
     ``ds_m[i]`` is the length of the step from station i to i+1; for a closed lap the
     last one runs back to station 0. Open lines start at ``b_entry`` and end no faster
     than ``b_exit``. ``b_max`` caps v² per station on top of the grip limit (a slower
-    driver, a pit-lane limit). Returns (b, b_grip) with b_grip the grip-only limit.
+    driver, a pit-lane limit); empty for none. ``work`` is scratch of shape (N_WORK, n)
+    that the caller keeps between calls (fresh arrays of this size cost more in page
+    faults than the passes take). ``split`` runs each pass as two chains
+    (:func:`_split_passes`; the same result). On return ``work[W_FWD]`` holds v² and
+    ``work[W_GRIP]`` the grip-only limit.
     """
     n = curvature_1_m.shape[0]
-    k = curvature_1_m
-    sg = sin_grad
-    b_grip = cornering_speed_limit(k, veh)
-    b_lim = np.minimum(b_grip, b_max)
-    fwd = np.empty(n)
-    bwd = np.empty(n)
-    fa = np.empty(n)
-    bd = np.empty(n)
+    b_grip = work[W_GRIP]
+    b_lim = work[W_LIM]
+    _cornering_limit_into(curvature_1_m, veh, b_grip)
+    for i in range(n):
+        b_lim[i] = min(b_grip[i], b_max[i]) if b_max.shape[0] else b_grip[i]
+    fwd = work[W_FWD]
+    bwd = work[W_BWD]
     if closed:
-        i0 = 0
-        for i in range(1, n):
-            if b_lim[i] < b_lim[i0]:
-                i0 = i
         # Periodic lap: both passes start at the slowest cornering limit. Where the car
         # cannot actually hold that speed there (drag at full lateral grip, power, a
         # downhill brake zone), the lap arrives back slower: restart from the arrival
         # until it repeats.
+        i0 = 0
+        for i in range(1, n):
+            if b_lim[i] < b_lim[i0]:
+                i0 = i
         fwd[i0] = b_lim[i0]
         bwd[i0] = b_lim[i0]
-        _both_passes(k, sg, ds_m, veh, b_lim, fwd, bwd, fa, bd, i0, i0, n - 1)
-        i_last = i0 - 1 if i0 > 0 else n - 1
-        arrival, _ = _forward_step(
-            fwd[i_last], fa[i_last], k[i0], sg[i0], ds_m[i_last], b_lim[i0], veh
-        )
-        for _ in range(200):
-            if arrival >= fwd[i0] * (1.0 - 1e-13):
-                break
-            fwd[i0] = arrival
-            arrival = _repeat_forward(k, sg, ds_m, veh, b_lim, fwd, fa, i0)
-        j_last = i0 + 1 if i0 + 1 < n else 0
-        arrival, _ = _backward_step(
-            bwd[j_last], bd[j_last], k[i0], sg[i0], ds_m[i0], b_lim[i0], veh
-        )
-        for _ in range(200):
-            if arrival >= bwd[i0] * (1.0 - 1e-13):
-                break
-            bwd[i0] = arrival
-            arrival = _repeat_backward(k, sg, ds_m, veh, b_lim, bwd, bd, i0)
+        _split_passes(curvature_1_m, sin_grad, ds_m, veh, b_lim, work, i0, i0, split)
+        _close_forward(curvature_1_m, sin_grad, ds_m, veh, b_lim, fwd, work[W_FA], i0)
+        _close_backward(curvature_1_m, sin_grad, ds_m, veh, b_lim, bwd, work[W_BD], i0)
     else:
         fwd[0] = min(b_entry, b_lim[0])
         bwd[n - 1] = min(b_exit, b_lim[n - 1])
-        _both_passes(k, sg, ds_m, veh, b_lim, fwd, bwd, fa, bd, 0, n - 1, n - 1)
-    b = np.empty(n)
+        _split_passes(curvature_1_m, sin_grad, ds_m, veh, b_lim, work, 0, n - 1, split)
     for i in range(n):
-        b[i] = min(fwd[i], bwd[i])
-    return b, b_grip
+        fwd[i] = min(fwd[i], bwd[i])
 
 
 @njit(cache=True)
@@ -268,25 +396,9 @@ def _step_time(ds, v_sum):
 
 
 @njit(cache=True)
-def elapsed_time(speed_m_s, ds_m, closed):
-    """Kernel of :func:`limitlap.solve.elapsed_time`: time at each station and lap time."""
-    n = speed_m_s.shape[0]
-    t = np.empty(n)
-    t[0] = 0.0
-    for i in range(n - 1):
-        t[i + 1] = t[i] + _step_time(ds_m[i], speed_m_s[i] + speed_m_s[i + 1])
-    total = t[n - 1]
-    if closed:
-        total += _step_time(ds_m[n - 1], speed_m_s[n - 1] + speed_m_s[0])
-    return t, total
-
-
-@njit(cache=True)
-def line_steps(distance_m, gradient, curvature_1_m, length_m, closed):
-    """Steps between stations, sin(theta) from dz/ds = tan(theta), and a check flag: 0 fine, 1 a non-finite curvature or gradient, 2 a step that is not positive."""
+def line_steps(distance_m, gradient, curvature_1_m, length_m, closed, ds, sin_grad):
+    """Steps between stations into ``ds``, sin(theta) from dz/ds = tan(theta) into ``sin_grad``; returns a check flag: 0 fine, 1 a non-finite curvature or gradient, 2 a step that is not positive."""
     n = distance_m.shape[0]
-    ds = np.empty(n)
-    sin_grad = np.empty(n)
     ok = 0
     for i in range(n):
         g = gradient[i]
@@ -300,58 +412,59 @@ def line_steps(distance_m, gradient, curvature_1_m, length_m, closed):
         for i in range(n):
             if not ds[i] > 0.0:
                 ok = 2
-    return ds, sin_grad, ok
+    return ok
 
 
 @njit(cache=True)
-def profile_outputs(b, curvature_1_m, ds_m, closed):
-    """Speed, step acceleration, lateral acceleration, elapsed time and lap time from v².
+def profile_outputs(b, b_grip, curvature_1_m, ds_m, closed, out):
+    """Speed, step acceleration, lateral acceleration, elapsed time and the grip-only speed limit from v² into rows 1-5 of ``out`` (``OUT_*``); returns the lap time.
 
     a_x[i] = (b[i+1] - b[i]) / (2 ds[i]) on the step leaving station i; the last station
     of an open line repeats the one before. Step times 2 ds / (v_i + v_{i+1}).
     """
     n = b.shape[0]
-    v = np.empty(n)
-    ax = np.empty(n)
-    ay = np.empty(n)
-    dt = np.empty(n)
+    v, ax, ay, t, v_lim = out[OUT_SPEED], out[OUT_AX], out[OUT_AY], out[OUT_TIME], out[OUT_LIMIT]
     for i in range(n):
         v[i] = np.sqrt(b[i])
         ay[i] = curvature_1_m[i] * b[i]
+        v_lim[i] = np.sqrt(b_grip[i])
     for i in range(n - 1):
         ax[i] = (b[i + 1] - b[i]) / (2.0 * ds_m[i])
-        dt[i] = _step_time(ds_m[i], v[i] + v[i + 1])
+    acc = 0.0
+    for i in range(n - 1):
+        t[i] = acc
+        acc += _step_time(ds_m[i], v[i] + v[i + 1])
+    t[n - 1] = acc
     if closed:
         ax[n - 1] = (b[0] - b[n - 1]) / (2.0 * ds_m[n - 1])
-        dt[n - 1] = _step_time(ds_m[n - 1], v[n - 1] + v[0])
+        acc += _step_time(ds_m[n - 1], v[n - 1] + v[0])
     else:
         ax[n - 1] = ax[n - 2]
-        dt[n - 1] = 0.0
-    t = np.empty(n)
-    acc = 0.0
-    for i in range(n):
-        t[i] = acc
-        acc += dt[i]
-    return v, ax, ay, t, acc
+    return acc
 
 
 @njit(cache=True)
 def lap_times_for_scales(
-    curvature_1_m, sin_grad, ds_m, veh, closed, b_entry, b_exit, b_max, scales
+    curvature_1_m, sin_grad, ds_m, veh, closed, b_entry, b_exit, b_max, scales, work, split
 ):
     """Lap time for each grip scale in ``scales`` (a sweep), same line and car."""
     out = np.empty(scales.shape[0])
     v2 = veh.copy()
-    for k in range(scales.shape[0]):
-        v2[I_MU_LAT] = veh[I_MU_LAT] * scales[k]
-        v2[I_MU_BRK] = veh[I_MU_BRK] * scales[k]
-        v2[I_MU_TRAC] = veh[I_MU_TRAC] * scales[k]
-        b, _ = solve_speed_squared(
-            curvature_1_m, sin_grad, ds_m, v2, closed, b_entry, b_exit, b_max
+    n = curvature_1_m.shape[0]
+    for s in range(scales.shape[0]):
+        v2[I_MU_LAT] = veh[I_MU_LAT] * scales[s]
+        v2[I_MU_BRK] = veh[I_MU_BRK] * scales[s]
+        v2[I_MU_TRAC] = veh[I_MU_TRAC] * scales[s]
+        solve_speed_squared(
+            curvature_1_m, sin_grad, ds_m, v2, closed, b_entry, b_exit, b_max, work, split
         )
-        v = np.sqrt(b)
-        _, total = elapsed_time(v, ds_m, closed)
-        out[k] = total
+        b = work[W_FWD]
+        total = 0.0
+        for i in range(n - 1):
+            total += _step_time(ds_m[i], np.sqrt(b[i]) + np.sqrt(b[i + 1]))
+        if closed:
+            total += _step_time(ds_m[n - 1], np.sqrt(b[n - 1]) + np.sqrt(b[0]))
+        out[s] = total
     return out
 
 

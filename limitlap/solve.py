@@ -25,6 +25,7 @@ References
 from __future__ import annotations
 
 import math
+import threading
 from dataclasses import dataclass
 
 import numpy as np
@@ -135,20 +136,52 @@ def cornering_speed_limit(curvature_1_m, vehicle: Vehicle, grip_scale: float = 1
     return np.sqrt(_kernels.cornering_speed_limit(curvature, veh))
 
 
+class _Scratch(threading.local):
+    """Per-thread scratch kept between solves: steps, sines and the passes' work rows.
+
+    A solve's temporaries are about ten arrays of n floats. Allocated fresh, arrays over
+    glibc's mmap threshold (128 kB, 16,000 stations) come as new pages each call and are
+    handed back to the system on release: at 20,000 stations their page faults cost more
+    than the passes (benchmarks/bench_solver.py). Kept here, they are faulted in once.
+    """
+
+    def __init__(self):
+        self.buffer = np.empty(0)
+
+    def arrays(self, n: int):
+        """(ds, sin_grad, work) for n stations; ``work`` is C-contiguous (N_WORK, n)."""
+        rows = _kernels.N_WORK + 2
+        if self.buffer.shape[0] < rows * n:
+            self.buffer = np.empty(rows * n)
+        block = self.buffer[: rows * n].reshape(rows, n)
+        return block[0], block[1], block[2:]
+
+
+_SCRATCH = _Scratch()
+
+
 def _line_arrays(line: Line):
     curvature = np.ascontiguousarray(line.curvature_1_m, dtype=np.float64)
     s = np.ascontiguousarray(line.distance_m, dtype=np.float64)
     grad = np.ascontiguousarray(line.gradient, dtype=np.float64)
     if curvature.ndim != 1 or curvature.shape[0] < 3 or s.shape != curvature.shape:
         raise LimitlapError("a line needs at least 3 stations of distance and curvature")
-    ds, sin_grad, ok = _kernels.line_steps(
-        s, grad, curvature, float(line.length_m), bool(line.closed)
+    if grad.shape != curvature.shape:
+        raise LimitlapError("line gradient must have one value per station")
+    ds, sin_grad, work = _SCRATCH.arrays(curvature.shape[0])
+    ok = _kernels.line_steps(
+        s, grad, curvature, float(line.length_m), bool(line.closed), ds, sin_grad
     )
     if ok == 1:
         raise LimitlapError("line curvature and gradient must be finite")
     if ok == 2:
         raise LimitlapError("line stations must be at increasing distance")
-    return curvature, sin_grad, ds
+    return curvature, sin_grad, ds, work
+
+
+def _split(n: int) -> bool:
+    """Whether the passes run as two chains each (the same result, sooner on long lines)."""
+    return n >= _kernels.SPLIT_MIN_STATIONS
 
 
 def _cannot_complete(distance_m, sin_grad, veh, grip_scale) -> str:
@@ -228,34 +261,55 @@ def solve_profile(
     :math:`-g\sin\theta` to the longitudinal balance; its (second-order) effect on the
     normal load is left out, as in docs/formats.md, Vehicle files.
     """
-    curvature, sin_grad, ds = _line_arrays(line)
+    curvature, sin_grad, ds, work = _line_arrays(line)
     veh = vehicle_array(vehicle, grip_scale)
+    b_entry, b_exit, b_max = _speed_bounds(
+        curvature.shape[0], entry_speed_m_s, exit_speed_m_s, speed_cap_m_s
+    )
+    closed = bool(line.closed)
+    _kernels.solve_speed_squared(
+        curvature,
+        sin_grad,
+        ds,
+        veh,
+        closed,
+        b_entry,
+        b_exit,
+        b_max,
+        work,
+        _split(curvature.shape[0]),
+    )
+    # One block for the profile's arrays: its pages are reused from call to call.
+    out = np.empty((_kernels.N_OUT, curvature.shape[0]))
+    total = _kernels.profile_outputs(
+        work[_kernels.W_FWD], work[_kernels.W_GRIP], curvature, ds, closed, out
+    )
+    if not math.isfinite(total):
+        raise LimitlapError(_cannot_complete(line.distance_m, sin_grad, veh, grip_scale))
+    out[_kernels.OUT_DISTANCE] = line.distance_m
+    return Profile(
+        distance_m=out[_kernels.OUT_DISTANCE],
+        speed_m_s=out[_kernels.OUT_SPEED],
+        accel_lon_m_s2=out[_kernels.OUT_AX],
+        accel_lat_m_s2=out[_kernels.OUT_AY],
+        time_s=out[_kernels.OUT_TIME],
+        lap_time_s=float(total),
+        speed_limit_m_s=out[_kernels.OUT_LIMIT],
+        grip_scale=float(grip_scale),
+    )
+
+
+def _speed_bounds(n, entry_speed_m_s, exit_speed_m_s, speed_cap_m_s):
+    """(b_entry, b_exit, b_max) for the kernel: squared speeds; b_max empty when no cap."""
     b_cap = V_CAP_M_S**2
     b_entry = b_cap if entry_speed_m_s is None else float(entry_speed_m_s) ** 2
     b_exit = b_cap if exit_speed_m_s is None else float(exit_speed_m_s) ** 2
     if speed_cap_m_s is None:
-        b_max = np.full(curvature.shape[0], b_cap)
-    else:
-        cap = np.asarray(speed_cap_m_s, dtype=np.float64)
-        if cap.shape != curvature.shape or np.any(~(cap > 0)):
-            raise LimitlapError("speed cap must be positive, one value per station")
-        b_max = np.minimum(cap * cap, b_cap)
-    b, b_lim = _kernels.solve_speed_squared(
-        curvature, sin_grad, ds, veh, bool(line.closed), b_entry, b_exit, b_max
-    )
-    v, a_x, a_y, t, total = _kernels.profile_outputs(b, curvature, ds, bool(line.closed))
-    if not math.isfinite(total):
-        raise LimitlapError(_cannot_complete(line.distance_m, sin_grad, veh, grip_scale))
-    return Profile(
-        distance_m=line.distance_m.copy(),
-        speed_m_s=v,
-        accel_lon_m_s2=a_x,
-        accel_lat_m_s2=a_y,
-        time_s=t,
-        lap_time_s=float(total),
-        speed_limit_m_s=np.sqrt(b_lim),
-        grip_scale=float(grip_scale),
-    )
+        return b_entry, b_exit, np.empty(0)
+    cap = np.asarray(speed_cap_m_s, dtype=np.float64)
+    if cap.shape != (n,) or np.any(~(cap > 0)):
+        raise LimitlapError("speed cap must be positive, one value per station")
+    return b_entry, b_exit, np.minimum(cap * cap, b_cap)
 
 
 def lap_times_for_scales(line: Line, vehicle: Vehicle, grip_scales) -> np.ndarray:
@@ -276,10 +330,19 @@ def lap_times_for_scales(line: Line, vehicle: Vehicle, grip_scales) -> np.ndarra
     scales = np.ascontiguousarray(grip_scales, dtype=np.float64)
     for k in scales:
         check_grip_scale(k)
-    curvature, sin_grad, ds = _line_arrays(line)
+    curvature, sin_grad, ds, work = _line_arrays(line)
     veh = vehicle_array(vehicle, 1.0)
     b_cap = V_CAP_M_S**2
-    b_max = np.full(curvature.shape[0], b_cap)
     return _kernels.lap_times_for_scales(
-        curvature, sin_grad, ds, veh, bool(line.closed), b_cap, b_cap, b_max, scales
+        curvature,
+        sin_grad,
+        ds,
+        veh,
+        bool(line.closed),
+        b_cap,
+        b_cap,
+        np.empty(0),
+        scales,
+        work,
+        _split(curvature.shape[0]),
     )

@@ -258,9 +258,23 @@ def test_direction_reversal_depends_on_asymmetric_limits():
     )
 
 
-def test_kernel_matches_plain_python_twin():
-    # tests/reference.py implements the same scheme from the formulas: 1e-10 is rounding.
-    line = random_smooth_loop(11, n=400)
+def _fourier_loop(seed, n, ds_m=0.5):
+    """A closed distance/curvature line of n stations: a few random Fourier terms."""
+    rng = np.random.default_rng(seed)
+    s = np.arange(n) * ds_m
+    phase = 2 * math.pi * s / (n * ds_m)
+    k = sum(rng.uniform(-0.02, 0.02) * np.sin(h * phase + rng.uniform(0, 6)) for h in range(2, 9))
+    k += (2 * math.pi - np.sum(k) * ds_m) / (n * ds_m)  # whole turn
+    return line_from_curvature(s, k, length_m=n * ds_m)
+
+
+@pytest.mark.parametrize("long_line", [False, True])
+def test_kernel_matches_plain_python_twin(long_line):
+    # tests/reference.py implements the same scheme from the formulas as one sequential
+    # loop per pass: 1e-10 is rounding. The long line (above SPLIT_MIN_STATIONS) runs each
+    # pass as two chains that must rejoin into the sequential result.
+    line = _fourier_loop(4, 2600) if long_line else random_smooth_loop(11, n=400)
+    assert solve._split(line.n) == long_line
     car = EXAMPLE_CAR
     p = solve.solve_profile(line, car)
     params = (
@@ -279,6 +293,31 @@ def test_kernel_matches_plain_python_twin():
     v, t = reference.solve_closed(list(line.curvature_1_m), list(line.ds_m), params, V_CAP_M_S)
     assert p.speed_m_s == pytest.approx(np.array(v), rel=1e-10)
     assert p.lap_time_s == pytest.approx(t, rel=1e-10)
+
+
+@pytest.mark.parametrize("closed", [True, False])
+def test_split_passes_equal_one_sequential_pass(closed):
+    # Splitting each pass into two chains is a speed measure only: the profile must be
+    # the sequential one value for value, on lines with grades, closed and open, at
+    # several grip scales (some laps need the periodic restart, some not).
+    from limitlap import _kernels
+
+    for seed in range(4):
+        base = _fourier_loop(seed, 3001)
+        grade = 0.04 * np.sin(2 * math.pi * 3 * base.distance_m / base.length_m)
+        line = line_from_curvature(
+            base.distance_m, base.curvature_1_m, grade, closed=closed, length_m=base.length_m
+        )
+        curvature, sin_grad, ds, work = solve._line_arrays(line)
+        b_cap = V_CAP_M_S**2
+        got = []
+        for split in (False, True):
+            veh = solve.vehicle_array(EXAMPLE_CAR, 0.7 + 0.2 * seed)
+            _kernels.solve_speed_squared(
+                curvature, sin_grad, ds, veh, closed, b_cap, 400.0, np.empty(0), work, split
+            )
+            got.append(work[_kernels.W_FWD].copy())
+        assert np.array_equal(got[0], got[1])
 
 
 @pytest.mark.slow
