@@ -721,8 +721,8 @@ def _touches(px, py, ax, ay, bx, by):
 
 
 @njit(cache=True)
-def polygon_self_crosses(x, y):
-    """Kernel of ``limitlap.line.self_intersects`` (closed polygon through x, y).
+def polygon_crossings(x, y, pairs):
+    """Segment pairs (i < j) of the closed polygon through x, y that meet, into ``pairs`` (at least one row); returns how many, the search stopping when ``pairs`` is full.
 
     Segment i runs from point i to point i+1 (the last back to the first). Two segments
     that are not neighbours count when they cross properly (orientation signs differ on
@@ -740,6 +740,7 @@ def polygon_self_crosses(x, y):
         by[i] = y[k]
         lo[i] = min(x[i], bx[i])
     order = np.argsort(lo, kind="mergesort")
+    found = 0
     for oi in range(n):
         i = order[oi]
         hi_i = max(x[i], bx[i])
@@ -758,13 +759,41 @@ def polygon_self_crosses(x, y):
             o2 = _orient(x[i], y[i], bx[i], by[i], bx[j], by[j])
             o3 = _orient(x[j], y[j], bx[j], by[j], x[i], y[i])
             o4 = _orient(x[j], y[j], bx[j], by[j], bx[i], by[i])
-            if o1 * o2 < 0 and o3 * o4 < 0:
-                return True
-            if _touches(x[j], y[j], x[i], y[i], bx[i], by[i]):
-                return True
-            if _touches(x[i], y[i], x[j], y[j], bx[j], by[j]):
-                return True
-    return False
+            if (
+                (o1 * o2 < 0 and o3 * o4 < 0)
+                or _touches(x[j], y[j], x[i], y[i], bx[i], by[i])
+                or _touches(x[i], y[i], x[j], y[j], bx[j], by[j])
+            ):
+                pairs[found, 0] = min(i, j)
+                pairs[found, 1] = max(i, j)
+                found += 1
+                if found == pairs.shape[0]:
+                    return found
+    return found
+
+
+@njit(cache=True)
+def polygon_self_crosses(x, y):
+    """Kernel of ``limitlap.line.self_intersects``: whether any two segments of the closed polygon meet (:func:`polygon_crossings`)."""
+    return polygon_crossings(x, y, np.empty((1, 2), dtype=np.int64)) > 0
+
+
+@njit(cache=True)
+def close_point_groups(x, y, reach):
+    """Group number of each point: consecutive points join the group of the first point of that group while they lie within ``reach`` of it (greedy, in order). [-]."""
+    n = x.shape[0]
+    group = np.empty(n, dtype=np.int64)
+    g = 0
+    first = 0
+    group[0] = 0
+    for i in range(1, n):
+        dx = x[i] - x[first]
+        dy = y[i] - y[first]
+        if dx * dx + dy * dy >= reach * reach:
+            g += 1
+            first = i
+        group[i] = g
+    return group
 
 
 @njit(cache=True, nogil=True)

@@ -126,6 +126,7 @@ def solve(
     k = _grip(grip)
     car = ingest.read_vehicle(vehicle)
     the_line = ingest.read_line(line)
+    _warn(the_line.meta.get("warnings", ()))
     profile = solver.solve_profile(the_line, car, k)
     if out is not None:
         from limitlap import atomic, outputs
@@ -413,6 +414,7 @@ def targets(
     line, where = pipeline.line_from_source(
         source, lap=lap, gate=gate, channels=channels, track=track
     )
+    _warn(line.meta.get("warnings", ()))
     trk = ingest.read_track(track) if track is not None else None
     names = list(trk.corner_names) if trk is not None and trk.corner_names else None
     apexes = list(trk.corner_apexes_m) if names else None

@@ -19,7 +19,7 @@ from pathlib import Path
 import numpy as np
 
 from limitlap.errors import InputError, LimitlapError
-from limitlap.line import Line, line_from_curvature, line_from_xy, self_intersects
+from limitlap.line import Line, line_from_curvature, line_from_xy
 from limitlap.units import CHANNEL_UNITS, KW_TO_W, RHO_ISA_KG_M3
 from limitlap.vehicle import AIR_DENSITY_RANGE_KG_M3, EXPONENT_MAX, GRIP_COEFF_MAX, Vehicle
 
@@ -186,12 +186,13 @@ def _column_name(header_cell: str) -> tuple[str, str]:
 
 
 def read_line(path, *, spacing_m: float = 1.0) -> Line:
-    """Read a line file (docs/formats.md, Line files): ``x [m], y [m] (, z [m])`` or ``distance [m], curvature [1/m] (, gradient [-])``.
+    """Read a line file (docs/formats.md, Line files): ``x [m], y [m] (, z [m]) (, level [-])`` or ``distance [m], curvature [1/m] (, gradient [-])``.
 
     Returns
     -------
     Line
-        Closed; x/y lines resampled to ``spacing_m`` with a periodic smoothing spline.
+        Closed; x/y lines resampled to ``spacing_m`` (:func:`limitlap.line.line_from_xy`),
+        their ``meta["warnings"]`` naming the file.
     """
     header, data = _read_numeric_csv(path)
     cols = {}
@@ -201,6 +202,7 @@ def read_line(path, *, spacing_m: float = 1.0) -> Line:
             "x": "m",
             "y": "m",
             "z": "m",
+            "level": "-",
             "distance": "m",
             "curvature": "1/m",
             "gradient": "-",
@@ -215,11 +217,11 @@ def read_line(path, *, spacing_m: float = 1.0) -> Line:
             n = data.shape[0]
             if n < 4:
                 raise InputError(path, f"a closed line needs at least 4 points, found {n}")
-            if self_intersects(cols["x"], cols["y"]):
-                raise InputError(
-                    path, "the line crosses itself; points must follow the driven loop in order"
-                )
-            return line_from_xy(cols["x"], cols["y"], cols.get("z"), spacing_m=spacing_m)
+            line = line_from_xy(
+                cols["x"], cols["y"], cols.get("z"), spacing_m=spacing_m, level=cols.get("level")
+            )
+            line.meta["warnings"] = [f"{path}: {w}" for w in line.meta["warnings"]]
+            return line
         if "distance" in cols and "curvature" in cols:
             return line_from_curvature(cols["distance"], cols["curvature"], cols.get("gradient"))
     except InputError:

@@ -350,7 +350,8 @@ BAD_LINES = [
     (
         "self-crossing",
         FIGURE_EIGHT,
-        ": the line crosses itself; points must follow the driven loop in order",
+        ": the line crosses itself at x 0.0 m, y 0.0 m; points must follow the driven loop "
+        "in order (where it passes over itself, give heights z or a level column)",
     ),
     (
         "curvature NaN",
