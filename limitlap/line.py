@@ -134,13 +134,18 @@ def line_from_xy(x_m, y_m, z_m=None, *, spacing_m=1.0, level=None, smoothing_m=N
 
     1. Points closer than :data:`MERGE_M`, or than :data:`MERGE_NOISE_FACTOR` times the
        noise found (:func:`point_noise_m`), are merged into their mean.
-    2. Each chord's direction is the heading at its middle (exact for an arc); between
-       chord middles the heading is taken linear, so the curvature of each point's stretch
-       is its turning angle over its length (the circle through three points).
-    3. That curvature is smoothed by a periodic Gaussian of width w (standard deviation,
-       metres): a positive kernel, so a step cannot overshoot and an arc keeps its
-       curvature exactly. w is the larger of the point spacing and the width at which the
-       noise found leaves :data:`CURVATURE_NOISE_1_M` of curvature scatter.
+    2. Each chord's direction is the heading at its middle (exact for an arc), so each
+       point's stretch, from one chord middle to the next, turns by the angle between
+       the chords: its mean curvature. Inside the stretch the curvature is that mean plus
+       a minmod-limited slope (van Leer 1979): a clothoid is reproduced, and no value
+       lies beyond its neighbours' (no overshoot).
+    3. That curvature is smoothed by periodic Gaussians (positive kernels: an arc keeps
+       its curvature exactly, a step cannot overshoot) of widths from a quarter of the
+       point spacing up to the width at which the noise found leaves
+       :data:`CURVATURE_NOISE_1_M` of scatter; each place takes the narrowest whose
+       scatter is within that or :data:`CURVATURE_NOISE_SHARE` of its curvature (a tight
+       corner is smoothed least). A transition that a step between two flat stretches
+       explains is made a step again (:func:`_sharpened`).
     4. Distances are the chords projected on the smoothed heading (scatter does not
        lengthen the lap) and lengthened to the arc, :math:`a = c\,(\phi/2)/\sin(\phi/2)`.
 
@@ -159,14 +164,14 @@ def line_from_xy(x_m, y_m, z_m=None, *, spacing_m=1.0, level=None, smoothing_m=N
         Declared deck of each point (0 on the ground, 1 on a bridge, ...): a crossing is
         accepted where the two passes are on different levels. [-]
     smoothing_m : float, optional
-        Width w of the smoothing; chosen from the points when not given. [m]
+        One width for the whole loop instead of the widths chosen from the points. [m]
 
     Returns
     -------
     Line
-        ``meta`` holds ``noise_m`` (the scatter found), ``smoothing_m`` (w),
-        ``point_spacing_m`` (mean chord) and ``warnings`` (points too noisy or too sparse
-        for the corners they describe).
+        ``meta`` holds ``noise_m`` (the scatter found, per axis), ``smoothing_m`` (the
+        narrowest and widest widths used), ``point_spacing_m`` (mean chord) and
+        ``warnings`` (points too noisy or too sparse for the corners they describe).
     """
     pts = _points(x_m, y_m, z_m, level)
     noise = point_noise_m(pts[0], pts[1])

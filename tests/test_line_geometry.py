@@ -128,6 +128,7 @@ def test_stadium_and_circle_points_against_closed_forms(spacing):
     # step falls between 1 m stations (up to 0.09 % on this stadium with the exact
     # curvature table, measured).
     t_ref, v_ref = stadium_closed_form()
+    assert (t_ref, v_ref) == pytest.approx((27.8948, 28.0095), abs=1e-4)  # docs/checks.md, C8.1
     line = line_from_xy(*stadium_points(spacing, start=0.37 * spacing))
     p = solve.solve_profile(line, CAR)
     assert p.lap_time_s == pytest.approx(t_ref, rel=1e-3)
