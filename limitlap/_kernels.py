@@ -389,7 +389,7 @@ def solve_speed_squared(
         fwd[i] = min(fwd[i], bwd[i])
 
 
-@njit(cache=True)
+@njit(cache=True, error_model="numpy")
 def _step_time(ds, v_sum):
     """2 ds / (v_i + v_j); inf when the car stands at both ends (no division by zero)."""
     return 2.0 * ds / v_sum if v_sum > 0.0 else np.inf
@@ -415,7 +415,7 @@ def line_steps(distance_m, gradient, curvature_1_m, length_m, closed, ds, sin_gr
     return ok
 
 
-@njit(cache=True)
+@njit(cache=True, error_model="numpy")  # no zero-division test per element: loops vectorise
 def profile_outputs(b, b_grip, curvature_1_m, ds_m, closed, out):
     """Speed, step acceleration, lateral acceleration, elapsed time and the grip-only speed limit from v² into rows 1-5 of ``out`` (``OUT_*``); returns the lap time.
 
