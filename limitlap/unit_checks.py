@@ -175,6 +175,29 @@ def _at_fixes(log, name, rows):
     return log.channels[name][rows]
 
 
+def _mean_between_fixes(log, name, rows):
+    """A channel's mean from the fix before each fix to the one after.
+
+    That is the span the GNSS references' centred differences see; the mean comes from
+    the channel's trapezoidal integral over every row (blank cells interpolated in
+    time). Like with like at any fix rate: at 1 Hz the references average 2 s of motion,
+    and so must the channel (its value at the fix alone carries its noise and the motion
+    faster than the fixes, which the least squares with the channel as regressor turns
+    into a factor below 1).
+    """
+    t = log.time_s
+    c = log.channels[name]
+    ok = np.isfinite(c)
+    if ok.sum() < 2:
+        return np.full(rows.shape, np.nan)
+    if not ok.all():
+        c = np.interp(t, t[ok], c[ok])
+    area = np.concatenate([[0.0], np.cumsum(0.5 * (c[1:] + c[:-1]) * np.diff(t))])
+    lo = np.concatenate([rows[:1], rows[:-2], rows[-2:-1]])
+    hi = np.concatenate([rows[1:2], rows[2:], rows[-1:]])
+    return (area[hi] - area[lo]) / (t[hi] - t[lo])
+
+
 def _speed_factor(log, path: _Path) -> float:
     """GPS distance over the distance the speed channel gives, between moving fixes."""
     x, y = log.channels["x"][path.rows], log.channels["y"][path.rows]
@@ -193,7 +216,7 @@ def _channel_factor(log, path: _Path, name: str, speed_scale: float = 1.0) -> fl
     Channel and reference are averaged over the same window of fixes.
     """
     n = path.window
-    c = uniform_filter1d(_at_fixes(log, name, path.rows), n, mode="nearest")
+    c = uniform_filter1d(_mean_between_fixes(log, name, path.rows), n, mode="nearest")
     v = path.speed * speed_scale
     if name == "accel_lon":
         ref = uniform_filter1d(np.gradient(v, path.t), n, mode="nearest")
