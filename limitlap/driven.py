@@ -85,10 +85,21 @@ MIN_BASELINE_M = 2.0
 COURSE_SPAN_S = 0.2
 #: Slowest speed at which course and curvature mean anything. [m/s]
 MIN_SPEED_M_S = 3.0
-#: Gaussian smoothing of curvature along the line (standard deviation). 1 m keeps the
-#: demo hairpin's peak (2 m cost 0.15 s of ideal lap time there, 1 m 0.05 s) while
-#: gyro noise stays near 1.5 % of the curvature (measured on the demo session). [m]
-CURVATURE_SMOOTHING_M = 1.0
+#: Gaussian smoothing of the inertial curvature along the line (standard deviation).
+#: Every metre of it is ideal-lap time the driver cannot find where the curvature rises
+#: fast: a 1 m Gaussian on the exact curvature of tests/arc_circuit.py (steps into its
+#: arcs) makes the ideal 0.38 % faster, 0.5 m 0.18 %. With the fixes' noise kept out of
+#: the curvature (SHAPE_CROSSOVER_M) only the gyro's is left to average: 0.5 m brought
+#: seeded generated sessions at 100 Hz from 0.02 s too fast to within 0.01 s on average
+#: and the demo session from 0.03 s too fast to 0.03 s slow. [m]
+CURVATURE_SMOOTHING_M = 0.5
+#: Crossover of the line's curvature between its two sources (standard deviation of the
+#: Gaussian low-pass in distance): detail shorter than about this comes from the
+#: inertial channels alone, longer from the heading the GNSS course corrects. Below
+#: 10 m the fixes' noise came through the course into the corners' peaks (the ideal
+#: lap 0.1 % slower on generated sessions at 5-10 Hz); 30 m and 100 m did as well as
+#: each other (measured with benchmarks/rates.py and seeded sessions, 5-200 Hz). [m]
+SHAPE_CROSSOVER_M = 30.0
 #: GNSS-path splines of the cross-check: period at which the smoothing spline's response
 #: falls to one half, whatever the fix rate. The spline minimises sum (y - f)² +
 #: lam int f''² dt; with fixes dt apart the sum is about int (y - f)² dt / dt, so it
@@ -340,7 +351,7 @@ def _gnss_course(t, x, y, fix, v, psi_dr):
         return none
     offset = np.unwrap(np.angle(chord[ok] / dr[ok]))
     base, b = base[ok], b[ok]
-    scale = _course_scale(offset, base, 2 * half)
+    scale = _course_scale(offset, base, 2 * half + 1)  # chords that share no fix
     return b, psi_dr[b] + offset, (scale / base) ** 2, scale
 
 
@@ -499,8 +510,7 @@ def reconstruct_lap(log, lap, spacing_m: float = 1.0) -> DrivenLap:
     rate, rate_var, used, gnss_kappa, like, measured = _heading_rate(log, lap, rows, warnings)
     psi, bias, course_scale = _heading(rows, rate, rate_var, used)
     px, py, s_row = _positions(rows, psi)
-    slope = _heading_slope(rows, rate - bias, psi, s_row)
-    line, st = _closed_line(log, lap, rows, (psi, slope), px, py, s_row, spacing_m, used)
+    line, st = _closed_line(log, lap, rows, (psi, rate - bias), px, py, s_row, spacing_m, used)
     ch = _StationChannels(log, rows, st)
     speed_st, ay_st, r_st = ch("speed"), ch("accel_lat"), ch("yaw_rate")
     check = _curvature_check(speed_st, ay_st, r_st, st.ds)
@@ -726,13 +736,16 @@ def _heading_slope(rows: _LapRows, rate, psi, s_row):
 def _closed_line(log, lap, rows, heading, px, py, s_row, spacing_m, used):
     """Step 5: stations at even spacing, closure correction, curvature, heights.
 
-    ``heading`` is (ψ [rad], dψ/ds [rad/m]) per row. The heading reaches the stations
-    by cubic Hermite interpolation with that slope: between sparse rows (a low rate at
-    speed, rows metres apart) the curvature then follows the rate the inertial channels
-    gave at each row instead of a chord's mean over the step, which shaves a corner's
-    peak; where rows are closer than the stations the two agree.
+    ``heading`` is the smoothed heading ψ [rad] and the bias-corrected heading rate
+    [rad/s] per row. The curvature's detail comes from the rate alone (its integral, the
+    inertial heading, reaches the stations by cubic Hermite interpolation with slope
+    rate / speed: between sparse rows, metres apart at a low rate, the curvature then
+    follows the rate at each row instead of a chord's mean over the step, which shaves
+    a corner's peak), its slow part from the smoothed heading (:func:`_closed_curvature`).
     """
-    psi, slope = heading
+    psi, rate = heading
+    shape = np.concatenate([[0.0], np.cumsum(0.5 * (rate[1:] + rate[:-1]) * rows.dt)])
+    slope = _heading_slope(rows, rate, shape, s_row)
     s_a = float(np.interp(lap.start_time_s, rows.t, s_row))
     s_b = float(np.interp(lap.end_time_s, rows.t, s_row))
     length = s_b - s_a
@@ -747,7 +760,8 @@ def _closed_line(log, lap, rows, heading, px, py, s_row, spacing_m, used):
     def at(values):
         return np.interp(s_st, s_k, values[keep])
 
-    psi_st = _hermite(s_k, psi[keep], slope[keep], s_st)
+    psi_st = at(psi)
+    shape_st = _hermite(s_k, shape[keep], slope[keep], s_st)
     turn = psi_st[-1] - psi_st[0]
     turns = round(turn / (2 * math.pi))
     heading_gap = turn - 2 * math.pi * turns
@@ -756,7 +770,7 @@ def _closed_line(log, lap, rows, heading, px, py, s_row, spacing_m, used):
     x_st, y_st = at(px), at(py)
     gap_x, gap_y = x_st[-1] - x_st[0], y_st[-1] - y_st[0]
     x_c, y_c = x_st - frac * gap_x, y_st - frac * gap_y
-    kappa = _closed_curvature(psi_c, turns, ds, length)
+    kappa = _closed_curvature(psi_c, shape_st, turns, ds, length)
     z, grad = _heights(log, rows, s_row, s_st, frac, ds, n_st)
     gap = float(math.hypot(gap_x, gap_y))
     meta = {
@@ -783,16 +797,25 @@ def _hermite(s_k, values, slope, s_out):
     return out
 
 
-def _closed_curvature(psi_c, turns, ds, length):
-    """Curvature of the closed heading: centred differences, periodic Gaussian smoothing, then shifted so the lap turns a whole number of turns exactly.
+def _closed_curvature(psi_c, shape_st, turns, ds, length):
+    r"""Curvature of the closed lap from the inertial shape and the smoothed heading. [1/m].
 
-    [1/m].
+    A complementary filter (W. T. Higgins, "A comparison of complementary and Kalman
+    filtering", IEEE Trans. Aerospace and Electronic Systems AES-11(3):321-325, 1975
+    [M]): the inertial heading's curvature (``shape_st``, centred differences) smoothed
+    by :data:`CURVATURE_SMOOTHING_M`, plus what the GNSS-corrected heading ``psi_c``
+    adds at scales longer than :data:`SHAPE_CROSSOVER_M` (the difference of the two
+    curvatures, low-passed): the gyro's bias and scale, a slow sideslip, never the fixes'
+    sample-to-sample noise, which the heading smoother lets through at the course
+    measurements' rate. Then shifted so the lap turns a whole number of turns exactly.
     """
     loop = psi_c[:-1]
     ahead = np.append(loop[1:], psi_c[-1])
     behind = np.insert(loop[:-1], 0, psi_c[-2] - 2 * math.pi * turns)
-    kappa = (ahead - behind) / (2 * ds)
-    kappa = gaussian_filter1d(kappa, CURVATURE_SMOOTHING_M / ds, mode="wrap")
+    from_heading = (ahead - behind) / (2 * ds)
+    from_shape = np.gradient(shape_st, ds)[:-1]
+    kappa = gaussian_filter1d(from_shape, CURVATURE_SMOOTHING_M / ds, mode="wrap")
+    kappa += gaussian_filter1d(from_heading - from_shape, SHAPE_CROSSOVER_M / ds, mode="wrap")
     kappa -= (kappa.sum() * ds - 2 * math.pi * turns) / length  # exact whole turn
     return kappa
 

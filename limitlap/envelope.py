@@ -39,7 +39,6 @@ from dataclasses import dataclass, field, replace
 from statistics import NormalDist
 
 import numpy as np
-from scipy import optimize
 
 from limitlap import _kernels
 from limitlap.errors import LimitlapError
@@ -104,6 +103,46 @@ FIT_RATE_HZ = 25.0
 #: (measured: a two-lap session thinned to 20 Hz moved its fitted exponent 2.0 -> 1.8,
 #: a one-hour session thinned to 25 Hz moved its ideal lap by 0.003 s). [-]
 FIT_MIN_SAMPLES = 60_000
+
+
+#: A direction bin gives a boundary point when it holds this much of the driver's time
+#: (20 samples at 100 Hz, the count the fit was built with); a speed band is sparse with
+#: less than :data:`NEAR_LIMIT_S` of samples near the limit (30 at 100 Hz). At 100 Hz
+#: after the 3 Hz low-pass, neighbouring samples share their noise (the kernel is
+#: 2 sqrt(pi) sigma = 0.16 s wide), so 20 of them are one or two independent values; at
+#: 10 Hz each is independent: counts in time keep what a bin stands for at every rate
+#: (measured: with 20 samples a bin, the demo session thinned to 5 Hz kept 41 boundary
+#: points and fitted a traction limit of 8 g; with the counts in time, 80 and 1.24 g).
+#: Common practice, no published source. [s]
+MIN_BIN_S = 0.2
+#: See :data:`MIN_BIN_S`. [s]
+NEAR_LIMIT_S = 0.3
+#: Fewest samples a bin's high quantile is taken from at any rate (the 0.99 quantile of
+#: fewer is their maximum), and fewest near the limit before a band is called sparse. [-]
+MIN_BIN_FLOOR = 8
+#: See :data:`MIN_BIN_FLOOR`. [-]
+NEAR_LIMIT_FLOOR = 10
+#: Bin counts of samples without a rate (on distance stations): as at 100 Hz. [-]
+_COUNTS_WITHOUT_RATE = (20, 30)
+
+
+def bin_counts(sample_rate_hz) -> tuple[int, int]:
+    """(fewest samples for a bin's boundary point, fewest near the limit for a band) at a rate.
+
+    From :data:`MIN_BIN_S` and :data:`NEAR_LIMIT_S` at the accelerations' own rate, never
+    below the floors; :data:`_COUNTS_WITHOUT_RATE` without a rate. [-]
+
+    Examples
+    --------
+    >>> bin_counts(100.0), bin_counts(10.0), bin_counts(None)
+    ((20, 30), (8, 10), (20, 30))
+    """
+    if sample_rate_hz is None:
+        return _COUNTS_WITHOUT_RATE
+    fs = float(sample_rate_hz)
+    return max(MIN_BIN_FLOOR, round(MIN_BIN_S * fs)), max(
+        NEAR_LIMIT_FLOOR, round(NEAR_LIMIT_S * fs)
+    )
 
 
 @dataclass(frozen=True, eq=False)
@@ -354,8 +393,8 @@ def fit_envelope(
     quantile=0.99,
     band_width_m_s=5.0,
     n_angle_bins=36,
-    min_bin_samples=20,
-    min_near_limit=30,
+    min_bin_samples=None,
+    min_near_limit=None,
     min_speed_m_s=10.0,
     loss_scale_m_s2=0.1,
     max_passes=5,
@@ -388,11 +427,13 @@ def fit_envelope(
         Width of the speed bands. [m/s]
     n_angle_bins : int, default 36
         Direction bins in the normalised g-g plane (10° each). [-]
-    min_bin_samples : int, default 20
+    min_bin_samples : int, optional
         A bin with fewer samples gives no boundary point (a high quantile of a handful of
-        samples is biased low). Common practice, no published source. [-]
-    min_near_limit : int, default 30
-        A band with fewer samples within 5 % of the limit gets a warning. [-]
+        samples is biased low). Default from the accelerations' own rate
+        (:func:`bin_counts`): 20 at 100 Hz, 8 at 20 Hz and below. [-]
+    min_near_limit : int, optional
+        A band with fewer samples within 5 % of the limit gets a warning. Default from
+        the rate (:func:`bin_counts`): 30 at 100 Hz, 10 at 33 Hz and below. [-]
     min_speed_m_s : float, default 10.0
         Slower samples are dropped. [m/s]
     loss_scale_m_s2 : float, default 0.1
@@ -472,8 +513,11 @@ def fit_envelope(
         )
     else:
         sel = selection if mask is None else selection.within(mask)
-    used = _thinned(sel.used, sample_rate_hz, fit_rate_hz)
+    used = _thinned(sel, sample_rate_hz, fit_rate_hz)
     rows = np.flatnonzero(used)  # the rows in use, found once
+    default_bin, default_near = bin_counts(sel.sample_rate_hz)
+    min_bin_samples = default_bin if min_bin_samples is None else min_bin_samples
+    min_near_limit = default_near if min_near_limit is None else min_near_limit
     v, ax, ay = (np.take(a, rows) for a in (sel.speed_m_s, sel.accel_lon_m_s2, sel.accel_lat_m_s2))
     if v.size < min_bin_samples * 4:
         raise LimitlapError(
@@ -516,15 +560,25 @@ def fit_envelope(
     )
 
 
-def _thinned(used, sample_rate_hz, fit_rate_hz):
-    """``used`` thinned to every step-th row, about ``fit_rate_hz`` (see FIT_MIN_SAMPLES)."""
-    if sample_rate_hz is None or fit_rate_hz is None:
+def _thinned(sel: Selection, sample_rate_hz, fit_rate_hz):
+    """The selection's ``used`` thinned to every step-th sample, about ``fit_rate_hz`` (see FIT_MIN_SAMPLES).
+
+    The step comes from the accelerations' own rate (:attr:`Selection.sample_rate_hz`):
+    when they are logged on every k-th row only, every step-th of those rows is kept.
+    """
+    used = sel.used
+    rate = sel.sample_rate_hz if sel.sample_rate_hz is not None else sample_rate_hz
+    if rate is None or fit_rate_hz is None:
         return used
-    step = min(int(float(sample_rate_hz) // float(fit_rate_hz)), int(used.sum()) // FIT_MIN_SAMPLES)
+    step = min(int(float(rate) // float(fit_rate_hz)), int(used.sum()) // FIT_MIN_SAMPLES)
     if step <= 1:
         return used
     every = np.zeros(used.shape[0], dtype=bool)  # thinning in time, not of the selection
-    every[::step] = True
+    if sample_rate_hz is None or rate == float(sample_rate_hz):
+        every[::step] = True
+    else:  # samples on some rows only: every step-th of the rows that carry one
+        carriers = np.flatnonzero(np.isfinite(sel.accel_lon_m_s2))
+        every[carriers[::step]] = True
     return used & every
 
 
@@ -712,9 +766,14 @@ def _bands_and_warnings(problem: _FitProblem, bp, min_near_limit):
     return tuple(bands), warnings
 
 
-#: A noise lift is estimated only from at least this many samples outside the envelope
-#: (a mean over fewer would move it by a tenth of the noise or more). [-]
-_MIN_TAIL_SAMPLES = 100
+#: A noise lift is estimated only from at least this many samples above the limit found
+#: (the mean of a half-normal over 30 samples scatters by a tenth of the noise). [-]
+_MIN_TAIL_SAMPLES = 30
+
+#: Samples of a share of the limit above this take part in the lift estimate (the peak
+#: of those on the limit and its upper half lie well above it at any noise level met:
+#: 4 sigma of 0.4 m/s², the noise of 5 Hz samples, is 0.1 of a 1.6 g limit). [-]
+_NEAR_LIMIT_SHARE = 0.8
 
 
 def _noise_offsets(v, ax, ay, veh, noise, quantile, tyre, power):
@@ -722,57 +781,73 @@ def _noise_offsets(v, ax, ay, veh, noise, quantile, tyre, power):
 
     [m/s²].
 
-    Samples on a limit with noise of standard deviation :math:`\sigma` (the filtered
-    noise, :attr:`Selection.noise_m_s2`) scatter about it as :math:`N(0, \sigma^2)`; an
-    envelope fitted through high-quantile points lies :math:`b` outside the limit, so
-    those samples lie at :math:`N(-b, \sigma^2)` from it and the ones beyond it have the
-    mean of a normal distribution truncated at 0: :math:`E[r \mid r > 0] = -b +
-    \sigma\,\varphi(b/\sigma) / (1 - \Phi(b/\sigma))` (N. L. Johnson, S. Kotz,
-    N. Balakrishnan, *Continuous Univariate Distributions*, vol. 1, 2nd ed., Wiley, 1994,
-    §13.10, from memory). That mean is decreasing in :math:`b`; solved for :math:`b` from
-    the samples' own mean (:func:`_lift_from_tail`) and kept within :math:`[0, z_q
-    \sigma]` (:math:`z_q` the normal quantile of ``quantile``: the lift when every sample
-    of a bin is on the limit), so the correction never widens the envelope and never
-    narrows it by more than the noise can have widened it.
+    Samples driven on a limit, with noise of standard deviation :math:`\sigma` (the
+    filtered noise, :attr:`Selection.noise_m_s2`), scatter about it as
+    :math:`N(0, \sigma^2)`; an envelope fitted through high-quantile points lies
+    :math:`b` outside the limit, so those samples lie at :math:`N(-b, \sigma^2)` from it.
+    Samples inside the limit (driven below it) lie lower still, so the upper half of
+    that peak is the samples' distribution above :math:`-b` and nothing else. The mean
+    excess of a normal distribution over its own mean is
+    :math:`\sigma\sqrt{2/\pi}` (the half-normal's mean; N. L. Johnson, S. Kotz,
+    N. Balakrishnan, *Continuous Univariate Distributions*, vol. 1, 2nd ed., Wiley,
+    1994, §13.10, from memory), while above the peak it is smaller and below it (the
+    lower half and the samples inside joining) larger: :math:`-b` is the highest level
+    whose samples above it have that mean excess (:func:`_lift_from_peak`). It is kept
+    within :math:`[0, z_q \sigma]` (:math:`z_q` the normal quantile of ``quantile``: the
+    lift when every sample of a bin is on the limit), so the correction never widens
+    the envelope and never narrows it by more than the noise can have widened it.
 
-    The tyre limit's samples beyond it (tyre share ``tyre`` > 1) give their radial
-    distance from it; the power line's (power share ``power`` > 1, driving at more than
-    P/v) their longitudinal excess :math:`(s_P - 1) P / (m v)`. A power line calibrated as
-    a central fit (throttle channel) has about half its samples above it: its lift comes
-    out 0. Each is 0 without noise or with fewer than :data:`_MIN_TAIL_SAMPLES` samples
-    beyond.
+    Why from the peak's whole upper half and not from the samples beyond the envelope
+    alone: how far the high quantile of a bin lies above the limit depends on how many
+    independent noise values the bin holds (the 3 Hz low-pass makes 100 Hz samples
+    neighbours in noise; a 10 Hz log's are all independent and few), and at low rates
+    only a few dozen samples lie beyond, too few to tell the lift apart from the bins'
+    scatter; the upper half of the peak holds hundreds at any rate.
+
+    The tyre limit's samples (tyre share ``tyre`` above :data:`_NEAR_LIMIT_SHARE`, not
+    power-limited) give their radial distance from it; the power line's (power share
+    ``power`` above it and above the tyre share) their longitudinal excess
+    :math:`(s_P - 1) P / (m v)`. A power line calibrated as a central fit (throttle
+    channel) has its peak on it: its lift comes out 0. Each is 0 without noise or with
+    fewer than :data:`_MIN_TAIL_SAMPLES` samples above the level found.
     """
     if not noise > 0.0:
         return 0.0, 0.0
     b_tyre = b_power = 0.0
-    out = np.flatnonzero(tyre > 1.0)
-    if out.size >= _MIN_TAIL_SAMPLES:
-        r = _residuals(v[out], ax[out], ay[out], replace(veh, power_w=math.inf))
-        b_tyre = _lift_from_tail(r, noise, quantile)
+    near = np.flatnonzero((tyre > _NEAR_LIMIT_SHARE) & (tyre > power))
+    if near.size >= _MIN_TAIL_SAMPLES:
+        r = _residuals(v[near], ax[near], ay[near], replace(veh, power_w=math.inf))
+        b_tyre = _lift_from_peak(r, noise, quantile)
     if math.isfinite(veh.power_w):
-        beyond = np.flatnonzero(power > 1.0)
-        if beyond.size >= _MIN_TAIL_SAMPLES:
-            excess = (
-                (power[beyond] - 1.0) * veh.power_w / (veh.mass_kg * np.maximum(v[beyond], 1e-3))
-            )
-            b_power = _lift_from_tail(excess, noise, quantile)
+        on = np.flatnonzero((power > _NEAR_LIMIT_SHARE) & (power >= tyre))
+        if on.size >= _MIN_TAIL_SAMPLES:
+            excess = (power[on] - 1.0) * veh.power_w / (veh.mass_kg * np.maximum(v[on], 1e-3))
+            b_power = _lift_from_peak(excess, noise, quantile)
     return b_tyre, b_power
 
 
-def _lift_from_tail(r, noise, quantile):
-    """:func:`_noise_offsets`' lift b from the distances r > 0 beyond a limit. [m/s²]."""
-    mean_out = float(np.mean(r))
-    normal = NormalDist()
-    top = normal.inv_cdf(quantile)
+def _lift_from_peak(r, noise, quantile):
+    r""":func:`_noise_offsets`' lift b from the distances r beyond a limit (+ outside). [m/s²].
 
-    def excess(z):  # E[r | r > 0] / sigma - mean / sigma for b = z sigma
-        return -z + normal.pdf(z) / (1.0 - normal.cdf(z)) - mean_out / noise
-
-    if excess(0.0) <= 0.0:
+    Going down from the largest, the first level :math:`\mu` (a sample's distance, after
+    at least :data:`_MIN_TAIL_SAMPLES`) where the samples above it reach a mean excess
+    of :math:`\sigma\sqrt{2/\pi}`; the lift is :math:`-\mu`, kept within
+    :math:`[0, z_q\sigma]`.
+    """
+    top = NormalDist().inv_cdf(quantile) * noise
+    r = np.sort(np.asarray(r, dtype=np.float64))[::-1]
+    r = r[: np.searchsorted(-r, top + 6.0 * noise, side="right")]  # r >= -(top + 6 sigma)
+    if r.size <= _MIN_TAIL_SAMPLES:
         return 0.0
-    if excess(top) >= 0.0:
-        return top * noise
-    return float(optimize.brentq(excess, 0.0, top, xtol=1e-6)) * noise
+    k = np.arange(1, r.size + 1)
+    mean_above = np.cumsum(r) / k  # mean of the k largest
+    # excess of the k largest over the (k+1)-th: reached when it is the half-normal's
+    gap = mean_above[:-1] - r[1:] - noise * math.sqrt(2.0 / math.pi)
+    reached = np.flatnonzero(gap[_MIN_TAIL_SAMPLES - 1 :] >= 0.0)
+    if reached.size == 0:
+        return top
+    mu = float(r[reached[0] + _MIN_TAIL_SAMPLES])
+    return min(max(-mu, 0.0), top)
 
 
 def _plausibility(veh, v, names, uncertainty):
