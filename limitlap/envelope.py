@@ -515,26 +515,29 @@ def fit_envelope(
         sel = selection if mask is None else selection.within(mask)
     used = _thinned(sel, sample_rate_hz, fit_rate_hz)
     rows = np.flatnonzero(used)  # the rows in use, found once
-    default_bin, default_near = bin_counts(sel.sample_rate_hz)
+    v, ax, ay = (np.take(a, rows) for a in (sel.speed_m_s, sel.accel_lon_m_s2, sel.accel_lat_m_s2))
+    dense = _densified(rows, v, ax, ay, sel.sample_rate_hz, sample_rate_hz)
+    default_bin, default_near = bin_counts(dense.rate_hz)
     min_bin_samples = default_bin if min_bin_samples is None else min_bin_samples
     min_near_limit = default_near if min_near_limit is None else min_near_limit
-    v, ax, ay = (np.take(a, rows) for a in (sel.speed_m_s, sel.accel_lon_m_s2, sel.accel_lat_m_s2))
-    if v.size < min_bin_samples * 4:
+    if dense.v.size < min_bin_samples * 4:
         raise LimitlapError(
             f"only {v.size} usable samples above {min_speed_m_s:g} m/s on complete laps; "
             "too few to fit a grip envelope"
         )
     problem = _FitProblem(
-        v, ax, ay, base, quantile, band_width_m_s, min_speed_m_s, n_angle_bins,
-        min_bin_samples, loss_scale_m_s2,
+        dense.v, dense.ax, dense.ay, base, quantile, band_width_m_s, min_speed_m_s,
+        n_angle_bins, min_bin_samples, loss_scale_m_s2,
     )  # fmt: skip
     veh, bp, passes = problem.passes(max_passes)
     calibrated = full_throttle_power_drag(
         v, ax, ay, rows, throttle, veh, problem.names, sample_rate_hz
     )
-    noise = sel.noise_m_s2 if remove_noise else 0.0
+    noise = sel.noise_m_s2 * dense.noise_factor if remove_noise else 0.0
     veh, bp, lifts, full_throttle = problem.calibrated_and_lifted(veh, bp, calibrated, noise)
     res, uncertainty = problem.uncertainty(veh, bp)
+    if full_throttle is not None:  # over the samples; the interpolated ones come after
+        full_throttle = np.concatenate([full_throttle, np.zeros(dense.v.size - v.size, bool)])
     quality = {
         "rms_residual_m_s2": float(np.sqrt(np.mean(res**2))),
         **_outside_shares(problem, veh, full_throttle),
@@ -544,6 +547,7 @@ def fit_envelope(
         "speed_max_m_s": float(v.max()),
         "quantile": float(quantile),
         "noise_m_s2": float(sel.noise_m_s2),
+        "fit_rate_hz": float(dense.rate_hz) if dense.rate_hz is not None else math.nan,
         "noise_offset_m_s2": float(lifts[0]),
         "noise_offset_power_m_s2": float(lifts[1]),
         "passes": int(passes),
@@ -558,6 +562,52 @@ def fit_envelope(
     return EnvelopeFit(
         veh.require_complete(), quality, uncertainty, bands, used, tuple(problem.names), warnings
     )
+
+
+#: Samples at a lower rate are interpolated up to this rate for the binning, so that the
+#: driver's path through the g-g plane is a line and not scattered points: the bins of
+#: a 10 Hz log then fill as those of a 100 Hz log (the rate the binning's counts and
+#: widths were set at) and the fit sees the same shape. Measured on two-lap generated
+#: sessions thinned to 10 Hz: without it 49 boundary points, the exponent and the
+#: traction limit ran to their bounds and the ideal came out 1.6-2.4 % fast (seeds 5,
+#: 8); with it within 0.3 %. [Hz]
+DENSE_RATE_HZ = 100.0
+
+
+@dataclass(frozen=True, eq=False)
+class _Dense:
+    """The fit's samples, interpolated up to :data:`DENSE_RATE_HZ` when slower."""
+
+    v: np.ndarray  # [m/s]
+    ax: np.ndarray  # [m/s²]
+    ay: np.ndarray  # [m/s²]
+    rate_hz: float | None  # rate of these samples (None: no rate) [Hz]
+    noise_factor: float  # their noise's standard deviation over the samples' [-]
+
+
+def _densified(rows, v, ax, ay, own_rate_hz, row_rate_hz) -> _Dense:
+    r"""The samples with k - 1 points interpolated linearly between neighbours, k = DENSE_RATE_HZ / rate.
+
+    Only between samples that follow one another in the log (one own sample interval
+    apart); order does not matter to the binning, so the new points are appended.
+    Linear interpolation keeps each new point on the segment between two samples, so
+    inside any convex envelope they both lie in (no overshoot, as for the low-pass).
+    White noise of standard deviation :math:`\sigma` becomes
+    :math:`\sigma\sqrt{(1-f)^2 + f^2}` at fraction f; ``noise_factor`` is the root mean
+    square of that over the samples, what :func:`_noise_offsets` is then given.
+    """
+    if own_rate_hz is None or own_rate_hz * 1.5 >= DENSE_RATE_HZ or rows.size < 2:
+        return _Dense(v, ax, ay, own_rate_hz, 1.0)
+    k = round(DENSE_RATE_HZ / own_rate_hz)
+    step = round(row_rate_hz / own_rate_hz) if row_rate_hz else 1
+    pairs = np.flatnonzero(np.diff(rows) == max(step, 1))
+    f = np.arange(1, k) / k
+    parts = [
+        np.concatenate([a, (a[pairs, None] * (1.0 - f) + a[pairs + 1, None] * f).ravel()])
+        for a in (v, ax, ay)
+    ]
+    share = (1.0 + np.sum((1.0 - f) ** 2 + f**2)) / k  # mean variance factor of a step
+    return _Dense(*parts, own_rate_hz * k, math.sqrt(share))
 
 
 def _thinned(sel: Selection, sample_rate_hz, fit_rate_hz):
@@ -767,7 +817,8 @@ def _bands_and_warnings(problem: _FitProblem, bp, min_near_limit):
 
 
 #: A noise lift is estimated only from at least this many samples above the limit found
-#: (the mean of a half-normal over 30 samples scatters by a tenth of the noise). [-]
+#: (the median of a half-normal over 30 samples scatters by about a seventh of the
+#: noise). [-]
 _MIN_TAIL_SAMPLES = 30
 
 #: Samples of a share of the limit above this take part in the lift estimate (the peak
@@ -790,9 +841,10 @@ def _noise_offsets(v, ax, ay, veh, noise, quantile, tyre, power):
     excess of a normal distribution over its own mean is
     :math:`\sigma\sqrt{2/\pi}` (the half-normal's mean; N. L. Johnson, S. Kotz,
     N. Balakrishnan, *Continuous Univariate Distributions*, vol. 1, 2nd ed., Wiley,
-    1994, §13.10, from memory), while above the peak it is smaller and below it (the
-    lower half and the samples inside joining) larger: :math:`-b` is the highest level
-    whose samples above it have that mean excess (:func:`_lift_from_peak`). It is kept
+    1994, §13.10, from memory), its median excess :math:`\sigma\,\Phi^{-1}(3/4)`;
+    above the peak they are smaller and below it (the lower half and the samples inside
+    joining) larger: :math:`-b` is the highest level whose samples above it have that
+    median excess (:func:`_lift_from_peak`). It is kept
     within :math:`[0, z_q \sigma]` (:math:`z_q` the normal quantile of ``quantile``: the
     lift when every sample of a bin is on the limit), so the correction never widens
     the envelope and never narrows it by more than the noise can have widened it.
@@ -830,23 +882,25 @@ def _lift_from_peak(r, noise, quantile):
     r""":func:`_noise_offsets`' lift b from the distances r beyond a limit (+ outside). [m/s²].
 
     Going down from the largest, the first level :math:`\mu` (a sample's distance, after
-    at least :data:`_MIN_TAIL_SAMPLES`) where the samples above it reach a mean excess
-    of :math:`\sigma\sqrt{2/\pi}`; the lift is :math:`-\mu`, kept within
-    :math:`[0, z_q\sigma]`.
+    at least :data:`_MIN_TAIL_SAMPLES`) where the samples above it reach a median excess
+    of :math:`\sigma\,\Phi^{-1}(3/4) = 0.674\,\sigma` (the half-normal's median); the
+    lift is :math:`-\mu`, kept within :math:`[0, z_q\sigma]`. The median, not the mean
+    (:math:`\sigma\sqrt{2/\pi}`), so that a few samples far outside (a kerb strike the
+    spike test let through, a bin the envelope fits badly) cannot stop the search early:
+    at 5 Hz a handful at 3-5 sigma did, leaving the noise in the envelope.
     """
     top = NormalDist().inv_cdf(quantile) * noise
     r = np.sort(np.asarray(r, dtype=np.float64))[::-1]
     r = r[: np.searchsorted(-r, top + 6.0 * noise, side="right")]  # r >= -(top + 6 sigma)
     if r.size <= _MIN_TAIL_SAMPLES:
         return 0.0
-    k = np.arange(1, r.size + 1)
-    mean_above = np.cumsum(r) / k  # mean of the k largest
-    # excess of the k largest over the (k+1)-th: reached when it is the half-normal's
-    gap = mean_above[:-1] - r[1:] - noise * math.sqrt(2.0 / math.pi)
-    reached = np.flatnonzero(gap[_MIN_TAIL_SAMPLES - 1 :] >= 0.0)
+    k = np.arange(_MIN_TAIL_SAMPLES, r.size)  # the k largest, above the (k+1)-th
+    # the median of the k largest is r[(k - 1) // 2] (an even k: the lower middle one)
+    gap = r[(k - 1) // 2] - r[k] - noise * NormalDist().inv_cdf(0.75)
+    reached = np.flatnonzero(gap >= 0.0)
     if reached.size == 0:
         return top
-    mu = float(r[reached[0] + _MIN_TAIL_SAMPLES])
+    mu = float(r[k[reached[0]]])
     return min(max(-mu, 0.0), top)
 
 
