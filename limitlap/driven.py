@@ -55,7 +55,7 @@ from scipy.ndimage import gaussian_filter1d
 from limitlap import noise
 from limitlap.errors import LimitlapError
 from limitlap.line import Line
-from limitlap.units import DEG_TO_RAD, G0_M_S2
+from limitlap.units import DEG_TO_RAD, G0_M_S2, KMH_TO_M_S
 
 # Noise levels. The yaw-rate gyro's, the lateral accelerometer's and the GNSS course's
 # are measured from each log (limitlap.noise: white noise from the channel's own second
@@ -119,6 +119,12 @@ MIN_CORRELATION = 0.9
 MAX_RELATIVE_RMS = 0.25
 
 
+#: Corners for the rate warning: curvature peaks tighter than this radius. [m]
+MIN_APEX_RADIUS_M = 400.0
+#: The rate warning is given when the corners' minimum speeds are uncertain by this much
+#: or more (median over the corners; a corner's time left moves by about its length
+#: over v times dv / v: 0.05 s for 1 km/h through a 100 m corner at 80 km/h). [km/h]
+MIN_SPEED_DOUBT_KMH = 1.0
 #: Slowest speed at which the curvature cross-check divides by speed. [m/s]
 CHECK_MIN_SPEED_M_S = 10.0
 
@@ -519,12 +525,15 @@ def reconstruct_lap(log, lap, spacing_m: float = 1.0) -> DrivenLap:
         log, lap, line.curvature_1_m, ch.along(gnss_kappa), like_st, check, warnings
     )
     measured["course_m"] = course_scale
+    limits = _rate_limits(rows, used, line, speed_st, measured, ch)
     agreement = {
         "fusion": list(used),
         "bias_rad_s": float(np.median(bias)),
         "noise": measured,
+        "rate_limits": limits,
         **agreement,
     }
+    warnings += _rate_warning(log, lap, used, limits)
     if st.closure_gap_m > 5.0:
         warnings.append(
             f"{log.path}: lap {lap.number}: the rebuilt lap missed its start by "
@@ -874,6 +883,88 @@ def _curvature_check(speed, accel_lat, yaw_rate, ds) -> CurvatureCheck:
         k = gaussian_filter1d(np.nan_to_num(k), CURVATURE_SMOOTHING_M / max(ds, 1e-6), mode="wrap")
         series.append(np.where(fast, k, np.nan))
     return CurvatureCheck(series[0], series[1], fast)
+
+
+def _apexes(line: Line) -> np.ndarray:
+    """Stations of the line's corners: peaks of |curvature| tighter than MIN_APEX_RADIUS_M, 30 m apart."""
+    from scipy.signal import find_peaks
+
+    k = np.abs(line.curvature_1_m)
+    ds = float(line.length_m / line.n)
+    peaks, _ = find_peaks(k, height=1.0 / MIN_APEX_RADIUS_M, distance=max(1, round(30.0 / ds)))
+    return peaks
+
+
+def _rate_limits(rows: _LapRows, used, line: Line, speed_st, measured, ch) -> dict:
+    r"""How far the log's rates leave each corner's minimum speed uncertain. [km/h] and [Hz].
+
+    Two parts, both from the data at each apex (:func:`_apexes`), turned into speed by
+    :math:`\delta v = \tfrac12 v\,\delta\kappa / \kappa` (:math:`v = \sqrt{a_y/\kappa}`
+    at a corner's limit):
+
+    - resolution: the line's shape comes from samples :math:`\Delta s = v / f` apart
+      (f the rate of the channels that give it: the inertial ones, or the GNSS fixes
+      without them); :math:`\delta\kappa` is what a running mean over one such step
+      takes off the apex's curvature, what a path sampled that coarsely can miss;
+    - noise, without inertial channels: half the difference of the curvatures of the
+      odd and of the even fixes (two independent halves; the whole set's error is about
+      that), through the cross-check's spline.
+
+    Returns ``shape_rate_hz``, ``source`` and ``min_speed_kmh`` (one per apex, largest
+    first); empty ``min_speed_kmh`` without apexes.
+    """
+    from scipy.ndimage import uniform_filter1d
+
+    gnss_only = used == ["gnss"]
+    if gnss_only:
+        f = np.flatnonzero(rows.fix)
+        rate = 1.0 / float(np.median(np.diff(rows.t[f]))) if f.size > 2 else math.nan
+    else:
+        rate = 1.0 / min(measured[name]["interval_s"] for name in used)
+    out = {"shape_rate_hz": rate, "source": "gnss" if gnss_only else "inertial"}
+    apex = _apexes(line)
+    if apex.size == 0 or not math.isfinite(rate):
+        return {**out, "min_speed_kmh": []}
+    k = np.abs(line.curvature_1_m)
+    ds = float(line.length_m / line.n)
+    v = np.nan_to_num(speed_st[apex])
+    dk = np.zeros(apex.size)
+    for i, (j, vj) in enumerate(zip(apex, v, strict=True)):
+        width = max(1, round(vj / rate / ds))
+        dk[i] = max(k[j] - float(uniform_filter1d(k, width, mode="wrap")[j]), 0.0)
+    if gnss_only:
+        dk += _odd_even_curvature(rows, ch)[apex]
+    dv = 0.5 * v * dk / k[apex] / KMH_TO_M_S
+    return {**out, "min_speed_kmh": sorted(dv.tolist(), reverse=True)}
+
+
+def _odd_even_curvature(rows: _LapRows, ch) -> np.ndarray:
+    """Half the difference of the odd and the even fixes' curvature at the stations. [1/m]."""
+    f = np.flatnonzero(rows.fix)
+    halves = []
+    for part in (f[0::2], f[1::2]):
+        fix = np.zeros(rows.fix.shape, bool)
+        fix[part] = True
+        halves.append(ch.along(_spline_path(rows.t, rows.x_raw, rows.y_raw, fix)[1]))
+    return 0.5 * np.abs(np.abs(halves[0]) - np.abs(halves[1]))
+
+
+def _rate_warning(log, lap, used, limits) -> list[str]:
+    """One line when the rates leave the corners' minimum speeds uncertain by MIN_SPEED_DOUBT_KMH or more."""
+    dv = limits.get("min_speed_kmh") or []
+    if not dv or float(np.median(dv)) < MIN_SPEED_DOUBT_KMH:
+        return []
+    rate = limits["shape_rate_hz"]
+    what = (
+        f"GPS at {rate:.3g} Hz with no yaw rate or lateral acceleration"
+        if used == ["gnss"]
+        else f"{' and '.join(n.replace('_', ' ') for n in used)} at {rate:.3g} Hz"
+    )
+    return [
+        f"{log.path}: lap {lap.number}: {what}: the corners' minimum speeds are uncertain by "
+        f"about {np.median(dv):.0f} km/h (up to {dv[0]:.0f} km/h) from the line's shape at "
+        "this rate; a faster log or a yaw-rate channel narrows it"
+    ]
 
 
 def _agreement(log, lap, kappa, k_gnss, like, check: CurvatureCheck, warnings):

@@ -554,6 +554,7 @@ def fit_envelope(
     }
     bands, warnings = _bands_and_warnings(problem, bp, min_near_limit)
     warnings.extend(_plausibility(veh, v, problem.names, uncertainty))
+    warnings.extend(_noise_warning(veh, v, sel, lifts[0] if remove_noise else None))
     if base.rolling_coeff is None:
         warnings.append(
             f"rolling resistance not given: {ROLLING_COEFF_DEFAULT} assumed "
@@ -902,6 +903,43 @@ def _lift_from_peak(r, noise, quantile):
         return top
     mu = float(r[k[reached[0]]])
     return min(max(-mu, 0.0), top)
+
+
+#: How well the noise lift is known, as a share of the filtered noise: measured on the
+#: demo session and seeded two-lap sessions thinned to 10 and 5 Hz, where the ideal lap
+#: stayed within 0.3 % of the 100 Hz one with noise of 2-3 % of the lateral limit
+#: (benchmarks/rates.py): about a quarter of the noise in grip. [-]
+LIFT_UNCERTAINTY = 0.25
+#: The noise warning is given when the ideal lap's share of that uncertainty (half the
+#: grip's: lap time goes about as the square root of grip) reaches this. [-]
+NOISE_WARNING_SHARE = 0.0025
+
+
+def _noise_warning(veh, v, sel: Selection, lift):
+    """One line when the accelerations' noise at their rate leaves the grip uncertain.
+
+    ``lift`` is the tyre limit's noise lift taken out [m/s²] (None when the noise was
+    left in).
+    """
+    noise = sel.noise_m_s2
+    if sel.sample_rate_hz is None or not noise > 0.0:
+        return []
+    lateral = veh.mu_lat * float(np.median(normal_load_n(v, veh))) / veh.mass_kg
+    grip_share = LIFT_UNCERTAINTY * noise / lateral
+    if 0.5 * grip_share < NOISE_WARNING_SHARE:
+        return []
+    taken = (
+        "left in (noise removal off)"
+        if lift is None
+        else f"{lift:.2f} m/s² of it taken out by estimate"
+    )
+    return [
+        f"accelerations at {sel.sample_rate_hz:.3g} Hz: their noise after the low-pass "
+        f"({noise:.2f} m/s², {noise / lateral:.1%} of the lateral limit) widens the "
+        f"envelope's high quantile ({taken}): the grip limits are uncertain by about "
+        f"±{grip_share:.1%} and the ideal lap by about ±{0.5 * grip_share:.1%}; a faster "
+        "log narrows it"
+    ]
 
 
 def _plausibility(veh, v, names, uncertainty):
