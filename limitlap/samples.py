@@ -364,6 +364,7 @@ def _despike_and_filter(values, starts, ends, width, sigma, threshold, stride=1)
         seg = values[a:b]
         spike[a:b] = _kernels.despike(seg, width, float(threshold))  # replaced in place
         if b - a > 8.0 * sigma and b - a >= 3:
-            second.append((seg[2:] - 2.0 * seg[1:-1] + seg[:-2])[::stride])
+            # strided views first: no full-length temporaries on a long record
+            second.append(seg[2::stride] - 2.0 * seg[1:-1:stride] + seg[:-2:stride])
             values[a:b] = gaussian_filter1d(seg, sigma, mode="nearest")
     return spike, np.concatenate(second) if second else np.empty(0)
