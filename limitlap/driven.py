@@ -9,8 +9,11 @@ closed and resampled by distance:
    every row; the process is :math:`\psi_{k+1} = \psi_k + (r_k - b_k)\,\Delta t_k`
    (+ noise) with a random-walk bias, where :math:`r` is the yaw rate, or the course rate
    :math:`a_y / v` from the lateral accelerometer, or both averaged with inverse-variance
-   weights; the measurements are the GNSS course over ground from fixes either side of
-   each fix. The maximum-likelihood estimate over the whole stretch is the
+   weights measured in the log (:func:`_inertial_sources`); the measurements are the
+   GNSS course over ground from the chord between the fixes either side of each fix,
+   read through the inertial heading's shape over the chord (:func:`_gnss_course`), so
+   a chord across a turn-in or a dropout does not pull the heading towards its mean
+   direction. The maximum-likelihood estimate over the whole stretch is the
    Rauch-Tung-Striebel fixed-interval smoother of this linear-Gaussian model (Rauch,
    Tung & Striebel 1965); here it is computed as the equivalent regularised least-squares
    problem, whose normal matrix is banded (bandwidth 2 with the states interleaved), in
@@ -20,14 +23,17 @@ closed and resampled by distance:
 3. **Closure** (Casanova et al. 2001, who make the reconstructed lap close without a
    jump at the start/finish line): the heading mismatch after one lap (minus a whole
    turn) and the position mismatch are spread linearly over the lap's distance.
-4. **Curvature** :math:`\kappa = d\psi/ds` on uniform stations, smoothed with a short
-   periodic Gaussian kernel; height is a periodic low-pass (Fourier) of the GNSS
-   altitude, gradient its derivative.
+4. **Curvature** on uniform stations: the inertial heading's (Hermite-interpolated
+   between rows, smoothed by a short Gaussian) plus the smoothed heading's beyond
+   :data:`SHAPE_CROSSOVER_M` (a complementary filter, :func:`_closed_curvature`); height
+   is a periodic low-pass (Fourier) of the GNSS altitude, gradient its derivative.
 
 Curvature is cross-checked against :math:`a_y/v^2` and :math:`r/v` (docs/methods.md, Driven line,
 :math:`\kappa = a_n / v^2 = \dot\chi / v`), and, independently of the fusion, the
-GNSS-only curvature of a smoothing spline (SciPy's ``make_smoothing_spline``) is
-compared with both channels; the figures go into :attr:`DrivenLap.agreement`.
+GNSS-only curvature of a smoothing spline is compared with each channel's own path
+through the same spline (like with like); the figures go into
+:attr:`DrivenLap.agreement`, with the noise measured and how far the rate leaves each
+corner's minimum speed uncertain (docs/methods.md, Rates and noise).
 
 Without yaw rate and lateral acceleration the course rate of the GNSS smoothing spline
 takes the gyro's place, its smoothing then chosen by generalised cross-validation

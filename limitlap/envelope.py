@@ -493,10 +493,10 @@ def fit_envelope(
     every sample of a bin is on the limit, less when most are inside. Left in, it widens
     the envelope by the sensor's noise (about 1 % of the grip for 0.03 g white noise at
     100 Hz after the 3 Hz low-pass) and the ideal lap gains time no driver can find. With
-    ``remove_noise``, that lift is estimated from the samples found outside the envelope,
-    for the tyre limit and the power line apart (:func:`_noise_offsets`: the noise level
-    is measured from the high-pass residual of the accelerations, :func:`filtered_noise`),
-    and each boundary point is fitted that far outside the limit it is on (one more pass,
+    ``remove_noise``, that lift is estimated from where the samples near the limit are
+    densest, for the tyre limit and the power line apart (:func:`_noise_offsets`: the
+    noise level is measured from the accelerations' second differences,
+    :func:`filtered_noise`), and each boundary point is fitted that far outside the limit it is on (one more pass,
     or the refit after the power calibration, whose central power line gets about none).
     """
     if base.mass_kg is None or not (base.mass_kg > 0):
