@@ -110,7 +110,7 @@ SHAPE_CROSSOVER_M = 30.0
 #: falls to one half, whatever the fix rate. The spline minimises sum (y - f)² +
 #: lam int f''² dt; with fixes dt apart the sum is about int (y - f)² dt / dt, so it
 #: acts like the filter 1 / (1 + lam dt w^4) (Craven & Wahba 1979 [M]; measured on sines
-#: at 1-25 Hz in tests/test_rates.py) and lam = (T / 2 pi)^4 / dt puts the half at
+#: at 5-25 Hz in tests/test_rates.py) and lam = (T / 2 pi)^4 / dt puts the half at
 #: period T. 2 s keeps a corner's shape (2-5 s long) and leaves the GNSS noise a tenth
 #: of the curvature or less at 5-25 Hz. [s]
 GNSS_CUTOFF_S = 2.0
