@@ -9,8 +9,11 @@ closed and resampled by distance:
    every row; the process is :math:`\psi_{k+1} = \psi_k + (r_k - b_k)\,\Delta t_k`
    (+ noise) with a random-walk bias, where :math:`r` is the yaw rate, or the course rate
    :math:`a_y / v` from the lateral accelerometer, or both averaged with inverse-variance
-   weights; the measurements are the GNSS course over ground from fixes either side of
-   each fix. The maximum-likelihood estimate over the whole stretch is the
+   weights measured in the log (:func:`_inertial_sources`); the measurements are the
+   GNSS course over ground from the chord between the fixes either side of each fix,
+   read through the inertial heading's shape over the chord (:func:`_gnss_course`), so
+   a chord across a turn-in or a dropout does not pull the heading towards its mean
+   direction. The maximum-likelihood estimate over the whole stretch is the
    Rauch-Tung-Striebel fixed-interval smoother of this linear-Gaussian model (Rauch,
    Tung & Striebel 1965); here it is computed as the equivalent regularised least-squares
    problem, whose normal matrix is banded (bandwidth 2 with the states interleaved), in
@@ -20,14 +23,17 @@ closed and resampled by distance:
 3. **Closure** (Casanova et al. 2001, who make the reconstructed lap close without a
    jump at the start/finish line): the heading mismatch after one lap (minus a whole
    turn) and the position mismatch are spread linearly over the lap's distance.
-4. **Curvature** :math:`\kappa = d\psi/ds` on uniform stations, smoothed with a short
-   periodic Gaussian kernel; height is a periodic low-pass (Fourier) of the GNSS
-   altitude, gradient its derivative.
+4. **Curvature** on uniform stations: the inertial heading's (Hermite-interpolated
+   between rows, smoothed by a short Gaussian) plus the smoothed heading's beyond
+   :data:`SHAPE_CROSSOVER_M` (a complementary filter, :func:`_closed_curvature`); height
+   is a periodic low-pass (Fourier) of the GNSS altitude, gradient its derivative.
 
 Curvature is cross-checked against :math:`a_y/v^2` and :math:`r/v` (docs/methods.md, Driven line,
 :math:`\kappa = a_n / v^2 = \dot\chi / v`), and, independently of the fusion, the
-GNSS-only curvature of a smoothing spline (SciPy's ``make_smoothing_spline``) is
-compared with both channels; the figures go into :attr:`DrivenLap.agreement`.
+GNSS-only curvature of a smoothing spline is compared with each channel's own path
+through the same spline (like with like); the figures go into
+:attr:`DrivenLap.agreement`, with the noise measured and how far the rate leaves each
+corner's minimum speed uncertain (docs/methods.md, Rates and noise).
 
 Without yaw rate and lateral acceleration the course rate of the GNSS smoothing spline
 takes the gyro's place, its smoothing then chosen by generalised cross-validation
@@ -52,21 +58,27 @@ import numpy as np
 from scipy import interpolate, linalg
 from scipy.ndimage import gaussian_filter1d
 
+from limitlap import noise
 from limitlap.errors import LimitlapError
 from limitlap.line import Line
-from limitlap.units import DEG_TO_RAD, G0_M_S2
+from limitlap.units import DEG_TO_RAD, G0_M_S2, KMH_TO_M_S
 
-# Noise levels the smoother assumes. Typical of a motorsport logger with an automotive
-# MEMS IMU and a single-band GNSS module: common practice, no published source [M].
-#: Yaw-rate gyro white noise per sample. [rad/s]
+# Noise levels. The yaw-rate gyro's, the lateral accelerometer's and the GNSS course's
+# are measured from each log (limitlap.noise: white noise from the channel's own second
+# differences; the course's from the scatter of successive course measurements); these
+# are the defaults when a lap holds too few samples to measure them, and a tenth of each
+# is the floor (a noiseless simulator log would otherwise get an infinite weight).
+# Typical of a motorsport logger with an automotive MEMS IMU and a single-band GNSS
+# module: common practice, no published source [M].
+#: Yaw-rate gyro white noise per sample (default). [rad/s]
 SIGMA_YAW_RAD_S = 0.5 * DEG_TO_RAD
-#: Lateral accelerometer white noise per sample. [m/s²]
+#: Lateral accelerometer white noise per sample (default). [m/s²]
 SIGMA_ACCEL_M_S2 = 0.05 * G0_M_S2
 #: Heading model error (sideslip changes, vibration), random walk. [rad²/s]
 Q_HEADING_RAD2_S = 1.0e-4
 #: Gyro bias random walk. [(rad/s)²/s]
 Q_BIAS = 1.0e-6
-#: Sample-to-sample (white) part of the GNSS position error, per axis. [m]
+#: Sample-to-sample (white) part of the GNSS position error, per axis (default). [m]
 SIGMA_FIX_WHITE_M = 0.15
 #: Whole GNSS position error, per axis. [m]
 SIGMA_FIX_M = 1.0
@@ -74,17 +86,34 @@ SIGMA_FIX_M = 1.0
 Q_POSITION_M2_S = 0.05
 #: Shortest baseline for a GNSS course measurement. [m]
 MIN_BASELINE_M = 2.0
+#: Time between the fixes either side of a course measurement, at least one fix
+#: interval each way. [s]
+COURSE_SPAN_S = 0.2
 #: Slowest speed at which course and curvature mean anything. [m/s]
 MIN_SPEED_M_S = 3.0
-#: Gaussian smoothing of curvature along the line (standard deviation). 1 m keeps the
-#: demo hairpin's peak (2 m cost 0.15 s of ideal lap time there, 1 m 0.05 s) while
-#: gyro noise stays near 1.5 % of the curvature (measured on the demo session). [m]
-CURVATURE_SMOOTHING_M = 1.0
-#: GNSS-only splines: period at which the smoothing spline's response falls to one half;
-#: the penalty is lam = dt (T / 2 pi)^4 for fixes dt apart (a spline smoother acts like
-#: the filter 1 / (1 + lam w^4 / dt); Craven & Wahba 1979 [M]). 3 s matched generalised
-#: cross-validation on a noisy circle here, at a hundredth of its cost. [s]
-GNSS_CUTOFF_S = 3.0
+#: Gaussian smoothing of the inertial curvature along the line (standard deviation).
+#: Every metre of it is ideal-lap time the driver cannot find where the curvature rises
+#: fast: a 1 m Gaussian on the exact curvature of tests/arc_circuit.py (steps into its
+#: arcs) makes the ideal 0.38 % faster, 0.5 m 0.18 %. With the fixes' noise kept out of
+#: the curvature (SHAPE_CROSSOVER_M) only the gyro's is left to average: 0.5 m brought
+#: seeded generated sessions at 100 Hz from 0.02 s too fast to within 0.01 s on average
+#: and the demo session from 0.03 s too fast to 0.03 s slow. [m]
+CURVATURE_SMOOTHING_M = 0.5
+#: Crossover of the line's curvature between its two sources (standard deviation of the
+#: Gaussian low-pass in distance): detail shorter than about this comes from the
+#: inertial channels alone, longer from the heading the GNSS course corrects. Below
+#: 10 m the fixes' noise came through the course into the corners' peaks (the ideal
+#: lap 0.1 % slower on generated sessions at 5-10 Hz); 30 m and 100 m did as well as
+#: each other (measured with benchmarks/rates.py and seeded sessions, 5-200 Hz). [m]
+SHAPE_CROSSOVER_M = 30.0
+#: GNSS-path splines of the cross-check: period at which the smoothing spline's response
+#: falls to one half, whatever the fix rate. The spline minimises sum (y - f)² +
+#: lam int f''² dt; with fixes dt apart the sum is about int (y - f)² dt / dt, so it
+#: acts like the filter 1 / (1 + lam dt w^4) (Craven & Wahba 1979 [M]; measured on sines
+#: at 5-25 Hz in tests/test_rates.py) and lam = (T / 2 pi)^4 / dt puts the half at
+#: period T. 2 s keeps a corner's shape (2-5 s long) and leaves the GNSS noise a tenth
+#: of the curvature or less at 5-25 Hz. [s]
+GNSS_CUTOFF_S = 2.0
 #: Height: shortest wavelength kept by the periodic low-pass. [m]
 HEIGHT_CUTOFF_M = 150.0
 #: Padding either side of the lap given to the smoothers (edge effects). [s]
@@ -96,6 +125,12 @@ MIN_CORRELATION = 0.9
 MAX_RELATIVE_RMS = 0.25
 
 
+#: Corners for the rate warning: curvature peaks tighter than this radius. [m]
+MIN_APEX_RADIUS_M = 400.0
+#: The rate warning is given when the corners' minimum speeds are uncertain by this much
+#: or more (median over the corners; a corner's time left moves by about its length
+#: over v times dv / v: 0.05 s for 1 km/h through a 100 m corner at 80 km/h). [km/h]
+MIN_SPEED_DOUBT_KMH = 1.0
 #: Slowest speed at which the curvature cross-check divides by speed. [m/s]
 CHECK_MIN_SPEED_M_S = 10.0
 
@@ -287,20 +322,65 @@ def smooth_track(dt_s, step_m, fix_index, fix_m, fix_var):
     return linalg.solveh_banded(np.vstack([up, diag]), rhs, lower=False, check_finite=False)
 
 
-def _gnss_course(t, x, y, fix):
-    """Course over ground at fixes from the fixes either side (about 0.2 s apart)."""
+def _dead_reckoned(t, v, psi):
+    """Path integrated from speed and heading, as complex east + i north per row. [m]."""
+    step = 0.5 * (v[1:] + v[:-1]) * np.diff(t) * np.exp(0.5j * (psi[1:] + psi[:-1]))
+    return np.concatenate([[0.0], np.cumsum(step)])
+
+
+def _gnss_course(t, x, y, fix, v, psi_dr):
+    r"""Course over ground at fixes, from the chord between the fixes either side.
+
+    The chord from fix a to fix c points along the path's mean direction between them,
+    not along the tangent at the fix b in between wherever the curvature changes (a
+    turn-in, or a long chord across a dropout). The heading's shape between a and c is
+    taken from the inertial channels instead: with :math:`D` the dead-reckoned
+    displacement a -> c from speed and the integrated heading rate :math:`\psi_{dr}`, and
+    :math:`C` the chord, :math:`\arg(C/D)` is the offset of :math:`\psi_{dr}` from the true
+    heading, so the course at b is :math:`\psi_{dr,b} + \arg(C/D)`: exact for any shape
+    the inertial channels follow, whatever the fix rate or the gap.
+
+    The variance is :math:`s^2/|C|^2`; :math:`s` (in metres) is measured from the scatter
+    of successive offsets :math:`\arg(C/D)` that share no fix (:func:`_course_scale`).
+    Returns the rows of the measurements (int), the course [rad], its variance [rad²]
+    and s [m] (NaN without measurements).
+    """
     f = np.flatnonzero(fix)
+    none = (f[:0], np.zeros(0), np.zeros(0), math.nan)
     if f.shape[0] < 3:
-        return f[:0], np.zeros(0), np.zeros(0)
+        return none
     dt_fix = float(np.median(np.diff(t[f])))
-    half = max(1, math.ceil(0.1 / max(dt_fix, 1e-6) - 1e-9))
+    half = max(1, math.ceil(0.5 * COURSE_SPAN_S / max(dt_fix, 1e-6) - 1e-9))
+    if f.shape[0] <= 2 * half:
+        return none
     a, b, c = f[: -2 * half], f[half:-half], f[2 * half :]
-    dx, dy = x[c] - x[a], y[c] - y[a]
-    base = np.hypot(dx, dy)
-    ok = base >= MIN_BASELINE_M
-    course = np.arctan2(dy, dx)
-    var = 2.0 * SIGMA_FIX_WHITE_M**2 / np.maximum(base, MIN_BASELINE_M) ** 2
-    return b[ok], course[ok], var[ok]
+    chord = (x[c] - x[a]) + 1j * (y[c] - y[a])
+    z = _dead_reckoned(t, v, psi_dr)
+    dr = z[c] - z[a]
+    base = np.abs(chord)
+    ok = (base >= MIN_BASELINE_M) & (np.abs(dr) >= MIN_BASELINE_M)
+    if not ok.any():
+        return none
+    offset = np.unwrap(np.angle(chord[ok] / dr[ok]))
+    base, b = base[ok], b[ok]
+    scale = _course_scale(offset, base, 2 * half + 1)  # chords that share no fix
+    return b, psi_dr[b] + offset, (scale / base) ** 2, scale
+
+
+def _course_scale(offset, base, apart):
+    """Noise of the course offsets in metres of chord: s with var(offset) = s² / base².
+
+    Offsets ``apart`` measurements apart share no fix; their difference, divided by
+    sqrt(1/b_j² + 1/b_k²), scatters as s (the heading's slow drift between them is left
+    out by the median). The default ``sqrt(2) SIGMA_FIX_WHITE_M`` (two fixes' white
+    error) when there are too few, a tenth of it the floor. [m]
+    """
+    default = math.sqrt(2.0) * SIGMA_FIX_WHITE_M
+    if offset.shape[0] <= apart + noise.MIN_DIFFERENCES:
+        return default
+    d = offset[apart:] - offset[:-apart]
+    z = d / np.sqrt(base[apart:] ** -2 + base[:-apart] ** -2)
+    return max(noise.mad_scale(z), 0.1 * default)
 
 
 def _divided_difference_weights(windows):
@@ -365,7 +445,7 @@ def _spline_path(t, x, y, fix, gcv=False):
         xd, yd = sx.derivative(1)(t), sy.derivative(1)(t)
         xdd, ydd = sx.derivative(2)(t), sy.derivative(2)(t)
     else:
-        lam = float(np.median(np.diff(t[f]))) * (GNSS_CUTOFF_S / (2 * math.pi)) ** 4
+        lam = (GNSS_CUTOFF_S / (2 * math.pi)) ** 4 / float(np.median(np.diff(t[f])))
         sxy = _smoothing_spline(t[f], np.column_stack([x[f], y[f]]), lam)
         d1, d2 = sxy.derivative(1)(t), sxy.derivative(2)(t)
         xd, yd, xdd, ydd = d1[:, 0], d1[:, 1], d2[:, 0], d2[:, 1]
@@ -439,15 +519,27 @@ def reconstruct_lap(log, lap, spacing_m: float = 1.0) -> DrivenLap:
         raise LimitlapError("station spacing must be positive")
     warnings: list[str] = []
     rows = _lap_rows(log, lap)
-    rate, rate_var, used, gnss_kappa = _heading_rate(log, lap, rows, warnings)
-    psi, bias = _heading(rows, rate, rate_var, used)
+    rate, rate_var, used, gnss_kappa, like, measured = _heading_rate(log, lap, rows, warnings)
+    psi, bias, course_scale = _heading(rows, rate, rate_var, used)
     px, py, s_row = _positions(rows, psi)
-    line, st = _closed_line(log, lap, rows, psi, px, py, s_row, spacing_m, used)
+    line, st = _closed_line(log, lap, rows, (psi, rate - bias), px, py, s_row, spacing_m, used)
     ch = _StationChannels(log, rows, st)
     speed_st, ay_st, r_st = ch("speed"), ch("accel_lat"), ch("yaw_rate")
     check = _curvature_check(speed_st, ay_st, r_st, st.ds)
-    agreement = _agreement(log, lap, line.curvature_1_m, ch.along(gnss_kappa), check, warnings)
-    agreement = {"fusion": list(used), "bias_rad_s": float(np.median(bias)), **agreement}
+    like_st = {name: ch.along(k) for name, k in like.items()}
+    agreement = _agreement(
+        log, lap, line.curvature_1_m, ch.along(gnss_kappa), like_st, check, warnings
+    )
+    measured["course_m"] = course_scale
+    limits = _rate_limits(rows, used, line, speed_st, measured, ch)
+    agreement = {
+        "fusion": list(used),
+        "bias_rad_s": float(np.median(bias)),
+        "noise": measured,
+        "rate_limits": limits,
+        **agreement,
+    }
+    warnings += _rate_warning(log, lap, used, limits)
     if st.closure_gap_m > 5.0:
         warnings.append(
             f"{log.path}: lap {lap.number}: the rebuilt lap missed its start by "
@@ -505,67 +597,117 @@ def _lap_rows(log, lap) -> _LapRows:
     return _LapRows(sl, t, x_raw, y_raw, fix, v, np.diff(t))
 
 
-def _heading_rate(log, lap, rows: _LapRows, warnings: list[str]):
-    """Step 2: heading rate from yaw rate and a_y/v, weighted by their noise.
+@dataclass(frozen=True, eq=False)
+class _Source:
+    """One inertial channel as a heading rate per row, weighted by its measured noise."""
 
-    A channel whose gain against the GNSS course rate is far from 1 (sign or scale wrong)
-    is left out with a warning. Without inertial channels the GNSS spline's course rate
-    stands in (smoothing by generalised cross-validation). Returns the rate [rad/s], its
-    variance [rad²/s²], the channels used and the GNSS-only curvature per row [1/m].
+    name: str
+    rate: np.ndarray  # heading rate per row [rad/s]
+    var: np.ndarray  # its variance as white noise per row step [(rad/s)²]
+    sigma: float  # the channel's white noise per own sample [rad/s] or [m/s²]
+    interval_s: float  # between the channel's own samples [s]
+
+
+def _measured_noise(t, raw, default, dt_row):
+    """(white noise per own sample, own interval) of a channel; default when too few. [-]."""
+    sigma = noise.difference_noise(raw)
+    sigma = default if not math.isfinite(sigma) else max(sigma, 0.1 * default)
+    own = noise.own_interval(t, raw)
+    return sigma, max(own, dt_row) if math.isfinite(own) else dt_row
+
+
+def _inertial_sources(log, rows: _LapRows) -> list[_Source]:
+    r"""Yaw rate and :math:`a_y/v` as heading rates, each with its measured noise.
+
+    A channel with white noise :math:`\sigma` per own sample, :math:`\Delta t_c` apart,
+    adds :math:`\sigma^2 \Delta t_c\,\Delta t` of heading variance over a row step
+    :math:`\Delta t` (the random walk of its integral); the smoother's per-step term is
+    ``var * dt**2``, so ``var`` is :math:`\sigma^2 \Delta t_c / \Delta t`: a channel at a
+    lower rate than the rows (blank cells, interpolated) counts for what it measured.
     """
     t, sl, v, ch = rows.t, rows.rows, rows.v, log.channels
+    dt_row = float(np.median(rows.dt))
+    out = []
+    if log.has("yaw_rate"):
+        raw = ch["yaw_rate"][sl]
+        sigma, own = _measured_noise(t, raw, SIGMA_YAW_RAD_S, dt_row)
+        var = np.full(t.shape, sigma**2 * own / dt_row)
+        out.append(_Source("yaw_rate", _fill(t, raw), var, sigma, own))
+    if log.has("accel_lat"):
+        raw = ch["accel_lat"][sl]
+        sigma, own = _measured_noise(t, raw, SIGMA_ACCEL_M_S2, dt_row)
+        vv = np.maximum(v, MIN_SPEED_M_S)
+        rate = np.where(v > MIN_SPEED_M_S, _fill(t, raw) / vv, 0.0)
+        out.append(_Source("accel_lat", rate, (sigma / vv) ** 2 * own / dt_row, sigma, own))
+    return out
+
+
+def _path_curvature_like_gnss(rows: _LapRows, rate):
+    """Course rate [rad/s] and curvature [1/m] per row of a heading rate's path, seen as the GNSS path is.
+
+    The path the heading rate and the speed describe, sampled at the fixes and through
+    the same smoothing spline (:func:`_spline_path`), so the two compare at one bandwidth.
+    """
+    psi = np.concatenate([[0.0], np.cumsum(0.5 * (rate[1:] + rate[:-1]) * rows.dt)])
+    z = _dead_reckoned(rows.t, rows.v, psi)
+    return _spline_path(rows.t, z.real, z.imag, rows.fix)
+
+
+def _heading_rate(log, lap, rows: _LapRows, warnings: list[str]):
+    """Step 2: heading rate from yaw rate and a_y/v, weighted by their measured noise.
+
+    A channel whose gain against the GNSS course rate is far from 1 (sign or scale wrong)
+    is left out with a warning; the gain compares the GNSS path with the channel's own
+    path through the same smoothing (:func:`_path_curvature_like_gnss`). Without inertial
+    channels the GNSS spline's course rate stands in (smoothing by generalised
+    cross-validation). Returns the rate [rad/s], its variance [rad²/s²], the channels
+    used, the GNSS-only curvature per row [1/m], each channel's curvature through the
+    GNSS path's smoothing [1/m] and the noise figures measured.
+    """
+    t, v = rows.t, rows.v
     gnss_rate, gnss_kappa = _spline_path(t, rows.x_raw, rows.y_raw, rows.fix)
     moving = v > MIN_SPEED_M_S
-    sources = []
-    if log.has("yaw_rate"):
-        sources.append(
-            ("yaw_rate", _fill(t, ch["yaw_rate"][sl]), np.full(t.shape, SIGMA_YAW_RAD_S**2))
-        )
-    if log.has("accel_lat"):
-        ay = _fill(t, ch["accel_lat"][sl])
-        vv = np.maximum(v, MIN_SPEED_M_S)
-        sources.append(("accel_lat", np.where(moving, ay / vv, 0.0), (SIGMA_ACCEL_M_S2 / vv) ** 2))
-    used = []
+    used, like, measured = [], {}, {}
     num = np.zeros(t.shape)
     den = np.zeros(t.shape)
-    for name, rate, var in sources:
+    g_ref = gnss_rate[moving]
+    for src in _inertial_sources(log, rows):
+        measured[src.name] = {"sigma": src.sigma, "interval_s": src.interval_s}
+        f_rate, like[src.name] = _path_curvature_like_gnss(rows, src.rate)
         # gain of the channel against the GNSS course rate (uncentred, so a steady
         # circle counts): about 1 when sign and scale are right
-        g_ref = gnss_rate[moving]
         ok_n = moving.sum()
-        gain = float(np.dot(rate[moving], g_ref) / np.dot(g_ref, g_ref)) if ok_n > 10 else 1.0
+        gain = float(np.dot(f_rate[moving], g_ref) / np.dot(g_ref, g_ref)) if ok_n > 10 else 1.0
         if not 0.5 < gain < 2.0:
             warnings.append(
-                f"{log.path}: lap {lap.number}: '{name}' does not follow the GNSS course "
+                f"{log.path}: lap {lap.number}: '{src.name}' does not follow the GNSS course "
                 f"(gain {gain:.2f}); left out of the line (sign convention? ISO 8855: + left)"
             )
             continue
-        used.append(name)
-        num += rate / var
-        den += 1.0 / var
+        used.append(src.name)
+        num += src.rate / src.var
+        den += 1.0 / src.var
     if used:
-        return num / den, 1.0 / den, used, gnss_kappa
+        return num / den, 1.0 / den, used, gnss_kappa, like, measured
     # GNSS alone: generalised cross-validation picks the smoothing. The spline's course
     # rate is smooth and already holds all the GNSS information: trust it like a gyro,
     # and let the course measurements only stop the drift.
     gnss_rate, gnss_kappa = _spline_path(t, rows.x_raw, rows.y_raw, rows.fix, gcv=True)
-    return gnss_rate, np.full(t.shape, SIGMA_YAW_RAD_S**2), ["gnss"], gnss_kappa
+    var = np.full(t.shape, SIGMA_YAW_RAD_S**2)
+    return gnss_rate, var, ["gnss"], gnss_kappa, like, measured
 
 
 def _heading(rows: _LapRows, rate, rate_var, used):
-    """Step 3: heading [rad] and gyro bias [rad/s] by the smoother on GNSS course."""
+    """Step 3: heading [rad], gyro bias [rad/s] and the course noise [m] (smoother on the GNSS course)."""
     t, dt = rows.t, rows.dt
-    moving = rows.v > MIN_SPEED_M_S
-    c_idx, course, c_var = _gnss_course(t, rows.x_raw, rows.y_raw, rows.fix)
-    c_ok = moving[c_idx]
+    psi_dr = np.concatenate([[0.0], np.cumsum(0.5 * (rate[1:] + rate[:-1]) * dt)])
+    c_idx, course, c_var, scale = _gnss_course(t, rows.x_raw, rows.y_raw, rows.fix, rows.v, psi_dr)
+    c_ok = rows.v[c_idx] > MIN_SPEED_M_S
     c_idx, course, c_var = c_idx[c_ok], course[c_ok], c_var[c_ok]
     if used == ["gnss"]:
         c_var = c_var * 100.0
-    psi_dr = np.concatenate([[0.0], np.cumsum(0.5 * (rate[1:] + rate[:-1]) * dt)])
-    if c_idx.shape[0]:
-        diff = np.unwrap(np.angle(np.exp(1j * (course - psi_dr[c_idx]))))
-        course = psi_dr[c_idx] + diff
-    return smooth_heading(dt, rate, rate_var, c_idx, course, c_var)
+    psi, bias = smooth_heading(dt, rate, rate_var, c_idx, course, c_var)
+    return psi, bias, scale
 
 
 def _positions(rows: _LapRows, psi):
@@ -592,8 +734,33 @@ class _Stations:
     closure_gap_m: float  # how far the rebuilt lap missed its start [m]
 
 
-def _closed_line(log, lap, rows, psi, px, py, s_row, spacing_m, used):
-    """Step 5: stations at even spacing, closure correction, curvature, heights."""
+def _heading_slope(rows: _LapRows, rate, psi, s_row):
+    """dψ/ds at each row. [rad/m].
+
+    The bias-corrected heading rate over the speed along the smoothed path (so it agrees
+    with the rows' distances), or the heading's own differences where the car is slow.
+    """
+    with np.errstate(divide="ignore", invalid="ignore"):
+        speed = np.gradient(s_row, rows.t)
+        from_rate = rate / speed
+        from_psi = np.gradient(psi, s_row)
+    fast = (rows.v > MIN_SPEED_M_S) & (speed > MIN_SPEED_M_S)
+    return np.where(fast, from_rate, from_psi)
+
+
+def _closed_line(log, lap, rows, heading, px, py, s_row, spacing_m, used):
+    """Step 5: stations at even spacing, closure correction, curvature, heights.
+
+    ``heading`` is the smoothed heading ψ [rad] and the bias-corrected heading rate
+    [rad/s] per row. The curvature's detail comes from the rate alone (its integral, the
+    inertial heading, reaches the stations by cubic Hermite interpolation with slope
+    rate / speed: between sparse rows, metres apart at a low rate, the curvature then
+    follows the rate at each row instead of a chord's mean over the step, which shaves
+    a corner's peak), its slow part from the smoothed heading (:func:`_closed_curvature`).
+    """
+    psi, rate = heading
+    shape = np.concatenate([[0.0], np.cumsum(0.5 * (rate[1:] + rate[:-1]) * rows.dt)])
+    slope = _heading_slope(rows, rate, shape, s_row)
     s_a = float(np.interp(lap.start_time_s, rows.t, s_row))
     s_b = float(np.interp(lap.end_time_s, rows.t, s_row))
     length = s_b - s_a
@@ -609,6 +776,7 @@ def _closed_line(log, lap, rows, psi, px, py, s_row, spacing_m, used):
         return np.interp(s_st, s_k, values[keep])
 
     psi_st = at(psi)
+    shape_st = _hermite(s_k, shape[keep], slope[keep], s_st)
     turn = psi_st[-1] - psi_st[0]
     turns = round(turn / (2 * math.pi))
     heading_gap = turn - 2 * math.pi * turns
@@ -617,7 +785,7 @@ def _closed_line(log, lap, rows, psi, px, py, s_row, spacing_m, used):
     x_st, y_st = at(px), at(py)
     gap_x, gap_y = x_st[-1] - x_st[0], y_st[-1] - y_st[0]
     x_c, y_c = x_st - frac * gap_x, y_st - frac * gap_y
-    kappa = _closed_curvature(psi_c, turns, ds, length)
+    kappa = _closed_curvature(psi_c, shape_st, turns, ds, length)
     z, grad = _heights(log, rows, s_row, s_st, frac, ds, n_st)
     gap = float(math.hypot(gap_x, gap_y))
     meta = {
@@ -631,16 +799,38 @@ def _closed_line(log, lap, rows, psi, px, py, s_row, spacing_m, used):
     return line, _Stations(s_st, s_k, keep, ds, gap)
 
 
-def _closed_curvature(psi_c, turns, ds, length):
-    """Curvature of the closed heading: centred differences, periodic Gaussian smoothing, then shifted so the lap turns a whole number of turns exactly.
+def _hermite(s_k, values, slope, s_out):
+    """Cubic Hermite interpolation of values with slopes at strictly increasing s_k.
 
-    [1/m].
+    Held beyond the ends; linear when fewer than two slopes are finite.
+    """
+    ok = np.isfinite(slope) & np.isfinite(values)
+    if ok.sum() < 2:
+        return np.interp(s_out, s_k, values)
+    spline = interpolate.CubicHermiteSpline(s_k[ok], values[ok], slope[ok], extrapolate=False)
+    out = spline(np.clip(s_out, s_k[ok][0], s_k[ok][-1]))
+    return out
+
+
+def _closed_curvature(psi_c, shape_st, turns, ds, length):
+    r"""Curvature of the closed lap from the inertial shape and the smoothed heading. [1/m].
+
+    A complementary filter (W. T. Higgins, "A comparison of complementary and Kalman
+    filtering", IEEE Trans. Aerospace and Electronic Systems AES-11(3):321-325, 1975
+    [M]): the inertial heading's curvature (``shape_st``, centred differences) smoothed
+    by :data:`CURVATURE_SMOOTHING_M`, plus what the GNSS-corrected heading ``psi_c``
+    adds at scales longer than :data:`SHAPE_CROSSOVER_M` (the difference of the two
+    curvatures, low-passed): the gyro's bias and scale, a slow sideslip, never the fixes'
+    sample-to-sample noise, which the heading smoother lets through at the course
+    measurements' rate. Then shifted so the lap turns a whole number of turns exactly.
     """
     loop = psi_c[:-1]
     ahead = np.append(loop[1:], psi_c[-1])
     behind = np.insert(loop[:-1], 0, psi_c[-2] - 2 * math.pi * turns)
-    kappa = (ahead - behind) / (2 * ds)
-    kappa = gaussian_filter1d(kappa, CURVATURE_SMOOTHING_M / ds, mode="wrap")
+    from_heading = (ahead - behind) / (2 * ds)
+    from_shape = np.gradient(shape_st, ds)[:-1]
+    kappa = gaussian_filter1d(from_shape, CURVATURE_SMOOTHING_M / ds, mode="wrap")
+    kappa += gaussian_filter1d(from_heading - from_shape, SHAPE_CROSSOVER_M / ds, mode="wrap")
     kappa -= (kappa.sum() * ds - 2 * math.pi * turns) / length  # exact whole turn
     return kappa
 
@@ -701,8 +891,97 @@ def _curvature_check(speed, accel_lat, yaw_rate, ds) -> CurvatureCheck:
     return CurvatureCheck(series[0], series[1], fast)
 
 
-def _agreement(log, lap, kappa, k_gnss, check: CurvatureCheck, warnings):
-    """Step 8: how the line's and the GNSS path's curvature agree with each channel's."""
+def _apexes(line: Line) -> np.ndarray:
+    """Stations of the line's corners: peaks of |curvature| tighter than MIN_APEX_RADIUS_M, 30 m apart."""
+    from scipy.signal import find_peaks
+
+    k = np.abs(line.curvature_1_m)
+    ds = float(line.length_m / line.n)
+    peaks, _ = find_peaks(k, height=1.0 / MIN_APEX_RADIUS_M, distance=max(1, round(30.0 / ds)))
+    return peaks
+
+
+def _rate_limits(rows: _LapRows, used, line: Line, speed_st, measured, ch) -> dict:
+    r"""How far the log's rates leave each corner's minimum speed uncertain. [km/h] and [Hz].
+
+    Two parts, both from the data at each apex (:func:`_apexes`), turned into speed by
+    :math:`\delta v = \tfrac12 v\,\delta\kappa / \kappa` (:math:`v = \sqrt{a_y/\kappa}`
+    at a corner's limit):
+
+    - resolution: the line's shape comes from samples :math:`\Delta s = v / f` apart
+      (f the rate of the channels that give it: the inertial ones, or the GNSS fixes
+      without them); :math:`\delta\kappa` is what a running mean over one such step
+      takes off the apex's curvature, what a path sampled that coarsely can miss;
+    - noise, without inertial channels: half the difference of the curvatures of the
+      odd and of the even fixes (two independent halves; the whole set's error is about
+      that), through the cross-check's spline.
+
+    Returns ``shape_rate_hz``, ``source`` and ``min_speed_kmh`` (one per apex, largest
+    first); empty ``min_speed_kmh`` without apexes.
+    """
+    from scipy.ndimage import uniform_filter1d
+
+    gnss_only = used == ["gnss"]
+    if gnss_only:
+        f = np.flatnonzero(rows.fix)
+        rate = 1.0 / float(np.median(np.diff(rows.t[f]))) if f.size > 2 else math.nan
+    else:
+        rate = 1.0 / min(measured[name]["interval_s"] for name in used)
+    out = {"shape_rate_hz": rate, "source": "gnss" if gnss_only else "inertial"}
+    apex = _apexes(line)
+    if apex.size == 0 or not math.isfinite(rate):
+        return {**out, "min_speed_kmh": []}
+    k = np.abs(line.curvature_1_m)
+    ds = float(line.length_m / line.n)
+    v = np.nan_to_num(speed_st[apex])
+    dk = np.zeros(apex.size)
+    for i, (j, vj) in enumerate(zip(apex, v, strict=True)):
+        width = max(1, round(vj / rate / ds))
+        dk[i] = max(k[j] - float(uniform_filter1d(k, width, mode="wrap")[j]), 0.0)
+    if gnss_only:
+        dk += _odd_even_curvature(rows, ch)[apex]
+    dv = 0.5 * v * dk / k[apex] / KMH_TO_M_S
+    return {**out, "min_speed_kmh": sorted(dv.tolist(), reverse=True)}
+
+
+def _odd_even_curvature(rows: _LapRows, ch) -> np.ndarray:
+    """Half the difference of the odd and the even fixes' curvature at the stations. [1/m]."""
+    f = np.flatnonzero(rows.fix)
+    halves = []
+    for part in (f[0::2], f[1::2]):
+        fix = np.zeros(rows.fix.shape, bool)
+        fix[part] = True
+        halves.append(ch.along(_spline_path(rows.t, rows.x_raw, rows.y_raw, fix)[1]))
+    return 0.5 * np.abs(np.abs(halves[0]) - np.abs(halves[1]))
+
+
+def _rate_warning(log, lap, used, limits) -> list[str]:
+    """One line when the rates leave the corners' minimum speeds uncertain by MIN_SPEED_DOUBT_KMH or more."""
+    dv = limits.get("min_speed_kmh") or []
+    if not dv or float(np.median(dv)) < MIN_SPEED_DOUBT_KMH:
+        return []
+    rate = limits["shape_rate_hz"]
+    what = (
+        f"GPS at {rate:.3g} Hz with no yaw rate or lateral acceleration"
+        if used == ["gnss"]
+        else f"{' and '.join(n.replace('_', ' ') for n in used)} at {rate:.3g} Hz"
+    )
+    return [
+        f"{log.path}: lap {lap.number}: {what}: the corners' minimum speeds are uncertain by "
+        f"about {np.median(dv):.0f} km/h (up to {dv[0]:.0f} km/h) from the line's shape at "
+        "this rate; a faster log or a yaw-rate channel narrows it"
+    ]
+
+
+def _agreement(log, lap, kappa, k_gnss, like, check: CurvatureCheck, warnings):
+    """Step 8: how the line's and the GNSS path's curvature agree with each channel's.
+
+    The line against :math:`a_y/v^2` and :math:`r/v` smoothed as the line is
+    (``check``); the GNSS path against each channel's own path through the GNSS path's
+    smoothing (``like``: the same fix times, the same spline), so that what differs is
+    what the two measure, not their bandwidths. Only the second warns: the line is built
+    from the channels, so it agrees with them by construction.
+    """
     agreement: dict = {}
     for name, other in (
         ("accel_lat", check.from_accel_lat_1_m),
@@ -710,19 +989,20 @@ def _agreement(log, lap, kappa, k_gnss, check: CurvatureCheck, warnings):
     ):
         if not log.has(name):
             continue
-        for which, kap in (("line", kappa), ("gnss", k_gnss)):
-            fig = _compare(kap, other, check.fast)
+        fig = _compare(kappa, other, check.fast)
+        if fig is not None:
+            agreement[f"line_vs_{name}"] = fig
+        if name in like:
+            fig = _compare(k_gnss, like[name], check.fast)
             if fig is not None:
-                agreement[f"{which}_vs_{name}"] = fig
+                agreement[f"gnss_vs_{name}"] = fig
         fig = agreement.get(f"gnss_vs_{name}")
-        if fig and (
-            fig["correlation"] < MIN_CORRELATION or fig["relative_rms"] > MAX_RELATIVE_RMS * 2
-        ):
+        if fig and (fig["correlation"] < MIN_CORRELATION or fig["relative_rms"] > MAX_RELATIVE_RMS):
             warnings.append(
                 f"{log.path}: lap {lap.number}: curvature from '{name}' agrees poorly with "
                 f"the GNSS path (correlation {fig['correlation']:.2f}, "
-                f"RMS {fig['relative_rms']:.0%} of the curvature; the report's data-check "
-                "figure shows where)"
+                f"RMS {fig['relative_rms']:.0%} of the curvature, both smoothed alike; the "
+                "report's data-check figure shows where)"
             )
     return agreement
 

@@ -3,7 +3,8 @@
 Latitude and longitude on the WGS84 ellipsoid go to a local east-north-up frame
 (pymap3d); a log's GPS fix rows and its dropouts (gaps while the car moved) are found,
 its distance travelled integrated from speed, and a dropout of up to
-:data:`BRIDGE_MAX_S` bridged by dead reckoning from speed and yaw rate.
+:data:`BRIDGE_INERTIAL_MAX_S` bridged by dead reckoning from speed and yaw rate (up to
+:data:`BRIDGE_MAX_S` along the chord when the log has no inertial channel).
 """
 
 from __future__ import annotations
@@ -29,8 +30,16 @@ _DROPOUT_MIN_S = 0.5
 _DROPOUT_MIN_TRAVEL_M = 5.0
 
 
-#: Longest dropout bridged from speed and yaw rate (issue: "about 2 s"). [s]
+#: Longest dropout bridged when the log has no yaw rate and no lateral acceleration (the
+#: chord between the fixes, by distance: good for timing, not for the line). [s]
 BRIDGE_MAX_S = 2.0
+
+#: Longest dropout bridged by dead reckoning from speed and yaw rate (or a_y / v). A
+#: heading error from a gyro bias b grows the cross-track error as v b T² / 2: 2.6 m at
+#: 60 m/s, 0.2 deg/s and 5 s, before the closure on the fix after the gap takes it out;
+#: the line's rebuild estimates the bias from the GNSS course around the gap. Common
+#: practice, no published source. [s]
+BRIDGE_INERTIAL_MAX_S = 5.0
 
 
 #: Speed below which a_y / v is too noisy to use as a yaw rate. [m/s] Common practice.
@@ -48,7 +57,7 @@ class Dropout:
     start_time_s, end_time_s : float
         Times of those fixes. [s]
     bridged : bool
-        True when short enough (``BRIDGE_MAX_S``) to be bridged by dead reckoning.
+        True when short enough to be bridged (:func:`bridge_limit_s`).
     """
 
     start_index: int
@@ -119,7 +128,13 @@ def _compute_travelled_m(log: Log) -> np.ndarray:
     )
 
 
-def gps_dropouts(log: Log, bridge_s: float = BRIDGE_MAX_S) -> list[Dropout]:
+def bridge_limit_s(log: Log) -> float:
+    """Longest GPS dropout the log's channels can bridge: :data:`BRIDGE_INERTIAL_MAX_S` with a yaw rate or lateral acceleration, else :data:`BRIDGE_MAX_S`. [s]."""
+    inertial = log.has("yaw_rate") or log.has("accel_lat")
+    return BRIDGE_INERTIAL_MAX_S if inertial else BRIDGE_MAX_S
+
+
+def gps_dropouts(log: Log, bridge_s: float | None = None) -> list[Dropout]:
     """Gaps between GPS fixes longer than the logger's own rate explains.
 
     A gap counts when it is longer than ``3`` nominal fix intervals (the median) and
@@ -130,14 +145,15 @@ def gps_dropouts(log: Log, bridge_s: float = BRIDGE_MAX_S) -> list[Dropout]:
     ----------
     log : Log
         A log as :func:`read_log` returns it.
-    bridge_s : float
-        Longest gap marked ``bridged``. [s]
+    bridge_s : float, optional
+        Longest gap marked ``bridged``; default :func:`bridge_limit_s`. [s]
 
     Returns
     -------
     list of Dropout
         In time order.
     """
+    bridge_s = bridge_limit_s(log) if bridge_s is None else bridge_s
     return list(
         log.remembered(
             ("gps_dropouts", float(bridge_s)), lambda lg: _compute_dropouts(lg, bridge_s)
@@ -168,12 +184,16 @@ def _compute_dropouts(log: Log, bridge_s: float) -> tuple[Dropout, ...]:
 def dropout_warnings(log: Log, rows: np.ndarray) -> list[str]:
     """One warning line per GPS dropout of the log, with its spreadsheet row."""
     out = []
+    limit = bridge_limit_s(log)
+    how = (
+        "bridged from speed and yaw rate"
+        if log.has("yaw_rate")
+        else "bridged from speed and lateral acceleration"
+        if log.has("accel_lat")
+        else "bridged along the chord (no yaw rate or lateral acceleration)"
+    )
     for d in gps_dropouts(log):
-        what = (
-            "bridged from speed and yaw rate"
-            if d.bridged
-            else f"longer than {BRIDGE_MAX_S:g} s: the lap holding it is not complete"
-        )
+        what = how if d.bridged else f"longer than {limit:g} s: the lap holding it is not complete"
         out.append(
             f"{log.path}: GPS dropout of {d.duration_s:.1f} s between rows {rows[d.start_index]} and "
             f"{rows[d.end_index]} ({d.start_time_s:.2f}-{d.end_time_s:.2f} s); {what}"
@@ -198,7 +218,7 @@ def _yaw_rate_rad_s(log: Log) -> np.ndarray | None:
     return None
 
 
-def fill_position(log: Log, bridge_s: float = BRIDGE_MAX_S) -> tuple[np.ndarray, np.ndarray]:
+def fill_position(log: Log, bridge_s: float | None = None) -> tuple[np.ndarray, np.ndarray]:
     """Position at every row of the log, for timing (gate crossings), not for curvature.
 
     Between two fixes the position moves along the chord in proportion to the distance
@@ -213,14 +233,15 @@ def fill_position(log: Log, bridge_s: float = BRIDGE_MAX_S) -> tuple[np.ndarray,
     ----------
     log : Log
         A log as :func:`read_log` returns it.
-    bridge_s : float
-        Longest dropout to bridge. [s]
+    bridge_s : float, optional
+        Longest dropout to bridge; default :func:`bridge_limit_s`. [s]
 
     Returns
     -------
     x_m, y_m : numpy.ndarray
         East and north at every row (read-only: kept for the next caller). [m]
     """
+    bridge_s = bridge_limit_s(log) if bridge_s is None else bridge_s
     return log.remembered(
         ("fill_position", float(bridge_s)), lambda lg: _compute_fill(lg, bridge_s)
     )

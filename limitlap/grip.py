@@ -43,6 +43,15 @@ def _grip_demand(speed_m_s, accel_lon_m_s2, accel_lat_m_s2, vehicle: Vehicle, ma
 POWER_LIMIT_MARGIN = 0.05
 
 
+#: A corner's grip estimate needs at least this much time of usable samples (5 at the
+#: 50 Hz the comparison resamples a lap to, as before; in time so a raw log at another
+#: rate asks for the same stretch of driving). [s]
+MIN_SEGMENT_S = 0.1
+#: ... and never fewer samples than this, at any rate. Common practice, no published
+#: source. [-]
+MIN_SEGMENT_SAMPLES = 5
+
+
 def required_grip_scale(speed_m_s, accel_lon_m_s2, accel_lat_m_s2, vehicle: Vehicle):
     r"""Smallest grip scale k at which each sample lies on or inside the envelope.
 
@@ -155,7 +164,7 @@ def grip_estimate_by_segment(
     mask=None,
     sample_rate_hz=None,
     min_speed_m_s=10.0,
-    min_samples=5,
+    min_samples=None,
 ) -> np.ndarray:
     """Grip scale per segment (corner), as :func:`grip_estimate` within each.
 
@@ -169,8 +178,10 @@ def grip_estimate_by_segment(
         Segment number 0..S-1 of each sample; negative = in no segment. [-]
     quantile, mask, sample_rate_hz, min_speed_m_s
         As in :func:`grip_estimate`.
-    min_samples : int, default 5
-        Segments with fewer usable samples get NaN. [-]
+    min_samples : int, optional
+        Segments with fewer usable samples get NaN; default :data:`MIN_SEGMENT_S` of
+        samples at ``sample_rate_hz`` (5 at the 50 Hz the comparison resamples to),
+        never fewer than :data:`MIN_SEGMENT_SAMPLES`, and that floor without a rate. [-]
 
     Returns
     -------
@@ -180,6 +191,9 @@ def grip_estimate_by_segment(
     v, ax, ay, ok = _prepare(
         speed_m_s, accel_lon_m_s2, accel_lat_m_s2, mask, min_speed_m_s, sample_rate_hz
     )
+    if min_samples is None:
+        rate = 0.0 if sample_rate_hz is None else float(sample_rate_hz)
+        min_samples = max(MIN_SEGMENT_SAMPLES, round(MIN_SEGMENT_S * rate))
     seg = np.asarray(segment_index)
     if seg.shape != v.shape or not np.issubdtype(seg.dtype, np.integer):
         raise LimitlapError("segment index must be one integer per sample")

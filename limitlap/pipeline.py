@@ -290,7 +290,8 @@ def _imu_samples(log, laps, rows_of, pad_s=None):
     v = log.channels["speed"][rows]
     ax = log.channels["accel_lon"][rows]
     ay = log.channels["accel_lat"][rows]
-    mask &= np.isfinite(v) & np.isfinite(ax) & np.isfinite(ay)
+    # no finite-cell test here: channels at their own rates leave blank cells, which
+    # select_samples fills (speed) or filters at the channel's own rate (accelerations)
     throttle = log.channels.get("throttle")
     return v, ax, ay, mask, rate, None if throttle is None else throttle[rows]
 

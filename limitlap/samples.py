@@ -3,8 +3,12 @@ r"""The envelope's samples: chosen, despiked and low-passed, and their noise.
 The driver's samples that the grip envelope (:mod:`limitlap.envelope`) and the grip
 estimates (:mod:`limitlap.grip`) are measured on: rows of the chosen laps at speed,
 spikes replaced by a running median, then a zero-phase Gaussian low-pass (3 Hz by
-default; docs/methods.md, Envelope fit). The filtered noise that is left is estimated
-from the high-pass residual, so the fit can take its lift of a high quantile out.
+default; docs/methods.md, Envelope fit). Every width is in seconds or hertz and becomes
+samples at the accelerations' own rate: a logger at 5 Hz or at 500 Hz, or accelerations
+logged at a lower rate than the rows (blank cells between), are filtered alike in time.
+The filtered noise that is left is estimated from the samples' white noise (their
+second differences) and the low-pass's kernel, so the fit can take its lift of a high
+quantile out.
 
 References
 ----------
@@ -25,6 +29,16 @@ from scipy.ndimage import gaussian_filter1d
 
 from limitlap import _kernels
 from limitlap.errors import LimitlapError
+from limitlap.noise import mad_scale
+
+__all__ = [
+    "Selection",
+    "filtered_noise",
+    "gaussian_sigma_samples",
+    "lowpassed_noise",
+    "mad_scale",
+    "select_samples",
+]
 
 
 @dataclass(frozen=True, eq=False)
@@ -45,8 +59,11 @@ class Selection:
     spike : numpy.ndarray or None
         True for the samples found to be spikes (None without a sample rate). [-]
     noise_parts : tuple or None
-        High-pass residuals of the two axes (a subsample) and the low-pass width in
-        samples, for :attr:`noise_m_s2`; None without a sample rate.
+        Second differences of the two despiked axes (a subsample) and the low-pass width
+        in samples, for :attr:`noise_m_s2`; None without a sample rate.
+    sample_rate_hz : float or None
+        Rate of the accelerations' own samples (the rows' rate, or lower when they are
+        logged on every k-th row only); None without a sample rate. [Hz]
     """
 
     speed_m_s: np.ndarray
@@ -56,18 +73,19 @@ class Selection:
     n_spikes: int = 0
     spike: np.ndarray | None = None
     noise_parts: tuple | None = None
+    sample_rate_hz: float | None = None
 
     @functools.cached_property
     def noise_m_s2(self) -> float:
-        """Standard deviation of the sensor noise left in the filtered accelerations (root mean square of the two axes, :func:`filtered_noise` of their high-pass residuals, estimated when first asked for); 0 without a sample rate.
+        """Standard deviation of the sensor noise left in the filtered accelerations (root mean square of the two axes, :func:`filtered_noise` of their second differences, estimated when first asked for); 0 without a sample rate.
 
         [m/s²].
         """
         if self.noise_parts is None:
             return 0.0
-        res_x, res_y, sigma = self.noise_parts
+        d2_x, d2_y, sigma = self.noise_parts
         return math.sqrt(
-            0.5 * (filtered_noise(res_x, sigma) ** 2 + filtered_noise(res_y, sigma) ** 2)
+            0.5 * (filtered_noise(d2_x, sigma) ** 2 + filtered_noise(d2_y, sigma) ** 2)
         )
 
     def within(self, mask) -> Selection:
@@ -173,7 +191,9 @@ def select_samples(
         is common practice, no published source (docs/methods.md, Envelope fit). [Hz]
     persistence_s : float, default 0.3
         Width of the running median: a value must last about half of it to count as
-        sustained grip (0.2-0.5 s is common practice, no published source). [s]
+        sustained grip (0.2-0.5 s is common practice, no published source); at least
+        three samples, and no spike test at all when three samples span more than twice
+        this (below about 5 Hz). [s]
     spike_threshold_m_s2 : float, default 2.0
         A sample further than this from the running median (in either axis) is a spike
         or short transient (kerb strike) and is dropped. Common practice. [m/s²]
@@ -199,7 +219,15 @@ def select_samples(
             raise LimitlapError(f"sample rate {sample_rate_hz} Hz is not a positive number")
         v = _fill_gaps(v)
         finite = np.isfinite(ax) & np.isfinite(ay)
+        step = _own_step(finite)
+        if step > 1:  # accelerations on every step-th row only: filtered at their own rate
+            widths = (cutoff_hz, persistence_s, spike_threshold_m_s2, min_speed_m_s)
+            return _on_own_samples(v, ax, ay, keep, finite, fs / step, widths)
         width = max(3, round(persistence_s * fs) | 1)  # odd window
+        if width / fs > 2.0 * persistence_s:
+            # below about 5 Hz three samples span more than twice the persistence: a
+            # sample apart from its neighbours is then the motion, not a kerb strike
+            spike_threshold_m_s2 = math.inf
         sigma = gaussian_sigma_samples(cutoff_hz, fs)
         starts, ends = _runs(finite)
         stride = max(1, n // _NOISE_SAMPLES)
@@ -214,6 +242,7 @@ def select_samples(
             spike_y, res_y = _despike_and_filter(ay, *args)
         spike = spike_x | spike_y
         noise = (res_x, res_y, sigma)
+        rate = fs
         for a, b in zip(starts, ends, strict=True):
             if not b - a > 8.0 * sigma:
                 finite[a:b] = False  # too short to filter: leave out
@@ -222,16 +251,46 @@ def select_samples(
     else:
         spike = None
         noise = None
+        rate = None
     ok = keep & np.isfinite(v) & np.isfinite(ax) & np.isfinite(ay) & (v >= min_speed_m_s)
-    return Selection(v, ax, ay, ok, n_spikes, spike, noise)
+    return Selection(v, ax, ay, ok, n_spikes, spike, noise, rate)
 
 
-def mad_scale(r) -> float:
-    """1.4826 times the median absolute deviation: the standard deviation of normal data, robust to a few outliers (the factor is 1 / Phi^-1(3/4); from memory).
+def _own_step(finite) -> int:
+    """Rows between the accelerations' own samples (1 when they fill the rows). [-]."""
+    idx = np.flatnonzero(finite)
+    if idx.size < 3:
+        return 1
+    step = float(np.median(np.diff(idx)))
+    return round(step) if step >= 1.5 else 1
 
-    [same as r].
+
+def _on_own_samples(v, ax, ay, keep, finite, rate_hz, widths) -> Selection:
+    """:func:`select_samples` of the rows that carry accelerations, at their own rate.
+
+    The filtered values sit on those rows; the rows between are blank (NaN, unused).
     """
-    return 1.4826 * float(np.median(np.abs(r - np.median(r))))
+    idx = np.flatnonzero(finite)
+    cutoff_hz, persistence_s, threshold, min_speed = widths
+    sub = select_samples(
+        v[idx],
+        ax[idx],
+        ay[idx],
+        keep[idx],
+        sample_rate_hz=rate_hz,
+        cutoff_hz=cutoff_hz,
+        persistence_s=persistence_s,
+        spike_threshold_m_s2=threshold,
+        min_speed_m_s=min_speed,
+    )
+    n = v.shape[0]
+    out_x, out_y = np.full(n, np.nan), np.full(n, np.nan)
+    used, spike = np.zeros(n, bool), np.zeros(n, bool)
+    out_x[idx], out_y[idx] = sub.accel_lon_m_s2, sub.accel_lat_m_s2
+    used[idx], spike[idx] = sub.used, sub.spike
+    return Selection(
+        v, out_x, out_y, used, sub.n_spikes, spike, sub.noise_parts, sub.sample_rate_hz
+    )
 
 
 #: The noise of the accelerations is estimated from about this many samples (every
@@ -239,37 +298,49 @@ def mad_scale(r) -> float:
 _NOISE_SAMPLES = 10_000
 
 
-def filtered_noise(residual, sigma):
-    r"""Standard deviation of white sensor noise after the Gaussian low-pass, from the high-pass residual (despiked samples minus their low-passed values).
+def lowpassed_noise(raw_sigma, sigma) -> float:
+    r"""Standard deviation of white noise after the Gaussian low-pass of ``sigma`` samples.
 
     For white noise of standard deviation :math:`\sigma_n` through a kernel of weights
     :math:`w_j` (SciPy's ``gaussian_filter1d``: a Gaussian of ``sigma`` samples truncated
-    at 4 sigma, normalised), the residual :math:`n_0 - \sum_j w_j n_j` has variance
-    :math:`\sigma_n^2 (1 - 2 w_0 + \sum_j w_j^2)` and the low-passed noise
-    :math:`\sigma_n^2 \sum_j w_j^2`. The residual's spread is taken as
-    :math:`1.4826\,\mathrm{MAD}` (the normal distribution's consistent scale, robust to
-    the few samples where the driver's own inputs change faster than the cut-off).
-    Returns 0 for an empty residual. [m/s²]
+    at 4 sigma, normalised) the low-passed noise has variance
+    :math:`\sigma_n^2 \sum_j w_j^2`: about :math:`\sigma_n^2 / (2\sqrt\pi\,s)` for a
+    kernel s samples wide, and :math:`\sigma_n^2` when the kernel is narrower than a
+    sample (a low rate: nothing left to average). [same as raw_sigma]
+    """
+    radius = int(4.0 * float(sigma) + 0.5)
+    j = np.arange(-radius, radius + 1, dtype=np.float64)
+    w = np.exp(-0.5 * (j / max(float(sigma), 1e-12)) ** 2)
+    w /= w.sum()
+    return float(raw_sigma) * math.sqrt(float(np.sum(w * w)))
+
+
+def filtered_noise(second_differences, sigma):
+    r"""Standard deviation of white sensor noise after the Gaussian low-pass, from the despiked samples' second differences.
+
+    White noise of standard deviation :math:`\sigma_n` has second differences of
+    variance :math:`6\sigma_n^2`, while a signal slower than the sample rate has small
+    ones; their spread is taken as :math:`1.4826\,\mathrm{MAD}` (robust to the few
+    samples where the driver's inputs change within a sample or two), which gives
+    :math:`\sigma_n` (:func:`limitlap.noise.difference_noise`), and
+    :func:`lowpassed_noise` what the low-pass leaves of it. The same at any rate: at
+    5 Hz, where the 3 Hz low-pass is narrower than a sample, the noise is all left.
+    Returns 0 for no differences. [m/s²]
 
     Examples
     --------
     >>> rng = np.random.default_rng(1)
     >>> noise = rng.standard_normal(200_000)
     >>> low = gaussian_filter1d(noise, 4.417)
-    >>> round(filtered_noise(noise - low, 4.417) / float(np.std(low)), 2)
-    1.0
+    >>> ratio = filtered_noise(np.diff(noise, n=2), 4.417) / float(np.std(low))
+    >>> bool(abs(ratio - 1.0) < 0.02)
+    True
     """
-    r = np.asarray(residual, dtype=np.float64)
-    r = r[np.isfinite(r)]
-    if r.size == 0:
+    d = np.asarray(second_differences, dtype=np.float64)
+    d = d[np.isfinite(d)]
+    if d.size == 0:
         return 0.0
-    spread = mad_scale(r)
-    radius = int(4.0 * float(sigma) + 0.5)
-    j = np.arange(-radius, radius + 1, dtype=np.float64)
-    w = np.exp(-0.5 * (j / float(sigma)) ** 2)
-    w /= w.sum()
-    w0, w2 = float(w[radius]), float(np.sum(w * w))
-    return spread * math.sqrt(w2 / (1.0 - 2.0 * w0 + w2))
+    return lowpassed_noise(mad_scale(d) / math.sqrt(6.0), sigma)
 
 
 #: Records at least this long have their two acceleration channels despiked and filtered
@@ -284,19 +355,16 @@ def _despike_and_filter(values, starts, ends, width, sigma, threshold, stride=1)
     spike: it is replaced by that median before the zero-phase Gaussian low-pass of
     standard deviation ``sigma`` samples; stretches of ``8 sigma`` samples or fewer are
     not filtered (the caller leaves them out). Returns the spike mask and, for the noise
-    estimate (:func:`filtered_noise`), the high-pass residual at every ``stride``-th
-    sample of the filtered stretches (away from their ends, where the filter's edge
-    handling is not the kernel's).
+    estimate (:func:`filtered_noise`), the despiked samples' second differences at every
+    ``stride``-th sample of the filtered stretches.
     """
     spike = np.zeros(values.shape[0], bool)
-    residual = []
-    edge = int(4.0 * sigma + 0.5)
+    second = []
     for a, b in zip(starts, ends, strict=True):  # one pass per unbroken stretch
         seg = values[a:b]
         spike[a:b] = _kernels.despike(seg, width, float(threshold))  # replaced in place
-        if b - a > 8.0 * sigma:
-            low = gaussian_filter1d(seg, sigma, mode="nearest")
-            inner = slice(edge, b - a - edge, stride)
-            residual.append(seg[inner] - low[inner])
-            values[a:b] = low
-    return spike, np.concatenate(residual) if residual else np.empty(0)
+        if b - a > 8.0 * sigma and b - a >= 3:
+            # strided views first: no full-length temporaries on a long record
+            second.append(seg[2::stride] - 2.0 * seg[1:-1:stride] + seg[:-2:stride])
+            values[a:b] = gaussian_filter1d(seg, sigma, mode="nearest")
+    return spike, np.concatenate(second) if second else np.empty(0)

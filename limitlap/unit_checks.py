@@ -175,6 +175,33 @@ def _at_fixes(log, name, rows):
     return log.channels[name][rows]
 
 
+def _mean_between_fixes(log, name, rows):
+    """A channel's mean from the fix before each fix to the one after.
+
+    That is the span the GNSS references' centred differences see; the mean comes from
+    the channel's trapezoidal integral over every row (blank cells interpolated in
+    time). Like with like at any fix rate: at 1 Hz the references average 2 s of motion,
+    and so must the channel (its value at the fix alone carries its noise and the motion
+    faster than the fixes, which the least squares with the channel as regressor turns
+    into a factor below 1).
+    """
+    from limitlap import _kernels
+
+    span = slice(int(rows[0]), int(rows[-1]) + 1)  # the checked fixes' rows only
+    t = np.ascontiguousarray(log.time_s[span])
+    c = log.channels[name][span]
+    ok = np.isfinite(c)
+    if ok.sum() < 2:
+        return np.full(rows.shape, np.nan)
+    if not ok.all():
+        c = np.interp(t, t[ok], c[ok])
+    area = _kernels.trapezoid_running(t, np.ascontiguousarray(c, dtype=np.float64))
+    at = rows - span.start
+    lo = np.concatenate([at[:1], at[:-2], at[-2:-1]])
+    hi = np.concatenate([at[1:2], at[2:], at[-1:]])
+    return (area[hi] - area[lo]) / (t[hi] - t[lo])
+
+
 def _speed_factor(log, path: _Path) -> float:
     """GPS distance over the distance the speed channel gives, between moving fixes."""
     x, y = log.channels["x"][path.rows], log.channels["y"][path.rows]
@@ -193,7 +220,7 @@ def _channel_factor(log, path: _Path, name: str, speed_scale: float = 1.0) -> fl
     Channel and reference are averaged over the same window of fixes.
     """
     n = path.window
-    c = uniform_filter1d(_at_fixes(log, name, path.rows), n, mode="nearest")
+    c = uniform_filter1d(_mean_between_fixes(log, name, path.rows), n, mode="nearest")
     v = path.speed * speed_scale
     if name == "accel_lon":
         ref = uniform_filter1d(np.gradient(v, path.t), n, mode="nearest")

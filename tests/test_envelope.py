@@ -489,7 +489,11 @@ def test_full_throttle_calibration_removes_straight_line_bias(dry_session_fit):
     # Measure on the lap time: the ideal on the true line with the fitted envelope against
     # the generator's ideal (same line, true envelope). 0.2 %: our margin for the friction
     # parameters' own 1 % scatter. Measured when written: 82.633 s calibrated, 82.330 s
-    # from the quantile alone, 82.676 s true.
+    # from the quantile alone, 82.676 s true. Since the noise lift is taken from the
+    # densest level of the samples (the power line's too), the quantile alone comes close
+    # on lap time as well (82.645 s against 82.722 s calibrated, both within 0.1 %); the
+    # calibration's gain is then on what it fits, power and drag (P +0.18 % and CdA
+    # -3.4 % from the quantile, +0.07 % and -0.2 % calibrated).
     from limitlap import solve
 
     session, mask, fit_q = dry_session_fit
@@ -507,7 +511,15 @@ def test_full_throttle_calibration_removes_straight_line_bias(dry_session_fit):
     t_c = solve.solve_profile(truth.line, fit_c.vehicle).lap_time_s
     t_q = solve.solve_profile(truth.line, fit_q.vehicle).lap_time_s
     assert t_c == pytest.approx(t_true, rel=2e-3)
-    assert abs(t_c - t_true) < abs(t_q - t_true)
+    assert t_q == pytest.approx(t_true, rel=2e-3)
+
+    def straight_line_error(fit):
+        true = truth.vehicle
+        return abs(fit.vehicle.power_w / true.power_w - 1.0) + abs(
+            fit.vehicle.drag_area_m2 / true.drag_area_m2 - 1.0
+        )
+
+    assert straight_line_error(fit_c) < straight_line_error(fit_q)
     assert fit_c.vehicle.power_w == pytest.approx(truth.vehicle.power_w, rel=0.02)
     # Only samples with the pedal held flat for 0.3 s either side count: the low-passed
     # deceleration at the end of each straight would otherwise pull the line down at the
@@ -646,10 +658,11 @@ def test_flat_out_bend_gets_no_grip_estimate():
 
 def test_filtered_noise_is_the_noise_left_after_the_low_pass():
     # White noise (sigma 0.3 m/s²) on a slow manoeuvre (0.25 Hz, 8 m/s²): the estimate
-    # from the high-pass residual must match the standard deviation of the low-passed
-    # noise alone (scipy.ndimage.gaussian_filter1d) and the closed form for a Gaussian
-    # kernel, sigma_n / sqrt(2 sqrt(pi) s) with s the kernel's width in samples (the
-    # integral of a squared unit Gaussian; from memory, discretisation error < 0.1 % here).
+    # from the samples' second differences must match the standard deviation of the
+    # low-passed noise alone (scipy.ndimage.gaussian_filter1d) and the closed form for a
+    # Gaussian kernel, sigma_n / sqrt(2 sqrt(pi) s) with s the kernel's width in samples
+    # (the integral of a squared unit Gaussian; from memory, discretisation error < 0.1 %
+    # here).
     from scipy.ndimage import gaussian_filter1d
 
     rng = np.random.default_rng(21)
@@ -657,8 +670,7 @@ def test_filtered_noise_is_the_noise_left_after_the_low_pass():
     t = np.arange(200_000) / fs
     noise = 0.3 * rng.standard_normal(t.size)
     raw = 8.0 * np.sin(2.0 * np.pi * 0.25 * t) + noise
-    residual = raw - gaussian_filter1d(raw, s, mode="nearest")
-    got = samples.filtered_noise(residual, s)
+    got = samples.filtered_noise(np.diff(raw, n=2), s)
     assert got == pytest.approx(float(np.std(gaussian_filter1d(noise, s))), rel=0.02)
     assert got == pytest.approx(0.3 / math.sqrt(2.0 * math.sqrt(math.pi) * s), rel=0.02)
     assert samples.filtered_noise(np.empty(0), s) == 0.0

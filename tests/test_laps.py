@@ -148,12 +148,13 @@ def test_log_shorter_than_one_lap_has_no_complete_lap(tmp_path):
 
 def test_long_dropout_marks_its_lap_incomplete(tmp_path):
     circle = Circle(radius_m=RADIUS_M, duration_s=90.0)
-    circle.drop_gps(35.0, 38.0)  # inside lap 2 (29.1 s - 54.3 s)
+    # inside lap 2 (29.1 s - 54.3 s), longer than the 5 s a log with a yaw rate bridges
+    circle.drop_gps(35.0, 41.0)
     log = read_log(circle.write(tmp_path / "c.csv"))
     laps = split_laps(log, gate_at(0.0))
     assert [lap.complete for lap in laps] == [False, True, False, True, False]
-    assert laps[2].reason == "GPS dropout of 3.1 s at 34.9 s"
-    assert any("GPS dropout of 3.1 s" in w for w in log.warnings)
+    assert laps[2].reason == "GPS dropout of 6.1 s at 34.9 s"
+    assert any("GPS dropout of 6.1 s" in w for w in log.warnings)
     assert laps[2].time_s == pytest.approx(2 * math.pi * RADIUS_M / 25.0, abs=0.01)
 
 
