@@ -233,12 +233,17 @@ def _split_session(log_path, log, trk, gate, warnings) -> list[laps_mod.Lap]:
     """The laps of :func:`load_session` (a warning added when the gate was placed)."""
     if isinstance(gate, str):
         gate = laps_mod.parse_gate(gate)
-    if gate is None and trk is not None and trk.gate_latlon is not None:
-        gate = laps_mod.Gate.geodetic(*trk.gate_latlon)
+    track_gate = None
+    if trk is not None and trk.gate_latlon is not None:
+        track_gate = laps_mod.Gate.geodetic(*trk.gate_latlon)
     if gate is not None and gate.is_geodetic and log.origin is None:
         raise InputError(
             log_path, "a latitude/longitude gate needs a log with latitude and longitude"
         )
+    if gate is None:
+        gate = track_gate
+    elif track_gate is not None:
+        laps_mod.check_gates_agree(log, gate, track_gate, trk.path)
     if gate is None and not log.has("lap"):
         gate = laps_mod.auto_gate(log)
         where = (
