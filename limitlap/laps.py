@@ -28,6 +28,9 @@ MIN_LAP_DISTANCE_M = 100.0
 FIT_SPAN_M = 30.0
 #: Span of positions either side of the gate point used for the direction of travel. [m]
 _DIRECTION_SPAN_M = 5.0
+#: Most rounds of turning the gate line square to the mean direction of travel at its
+#: crossings (each round stops early once the line turns by less than 0.1 mrad). [-]
+_DIRECTION_ROUNDS = 8
 
 
 @dataclass(frozen=True)
@@ -382,14 +385,148 @@ def _refine_crossings(log, gx, gy, nx, ny, s, at):
     return out
 
 
+def _yaw_rate_rad_s(log: Log) -> np.ndarray | None:
+    """Yaw rate at every row, None without a yaw-rate or lateral-acceleration channel. [rad/s].
+
+    The ``yaw_rate`` channel, else a_y / v above 3 m/s (steady turning, Milliken &
+    Milliken 1995, §5.3); blanks filled linearly.
+    """
+    t = log.time_s
+    if log.has("yaw_rate"):
+        r = log.channels["yaw_rate"]
+        ok = np.isfinite(r)
+    elif log.has("accel_lat"):
+        v = log.channels["speed"]
+        with np.errstate(invalid="ignore", divide="ignore"):
+            r = log.channels["accel_lat"] / v
+        ok = np.isfinite(r) & (v > 3.0)
+    else:
+        return None
+    if not ok.any():
+        return None
+    return r if ok.all() else np.interp(t, t[ok], r[ok])
+
+
+class _FusedPath:
+    """The path around a crossing from speed and yaw rate, placed on the GNSS fixes.
+
+    Between fixes the car's path is dead reckoned: heading the integral of the yaw rate,
+    position the integral of the travelled distance (speed) along it (trapezoid, mid-step
+    heading). Over a window of travelled distance around a crossing that shape is laid on
+    the window's fixes by the rotation and shift that fit them best in least squares (the
+    orthogonal Procrustes solution: Schönemann, Psychometrika 31(1), 1966), so the
+    fixes' white noise averages out and the shape between them is the inertial one, not
+    the chords. The GNSS error that is the same over the window (a slowly wandering
+    offset) stays: no processing of one log can tell it from the car's position.
+    """
+
+    def __init__(self, log: Log, yaw):
+        from limitlap.gnss import fix_rows
+
+        self.t = log.time_s
+        self.s = travelled_m(log)
+        self.yaw = yaw
+        self.fixes = fix_rows(log)
+        self.fx = log.channels["x"][self.fixes]
+        self.fy = log.channels["y"][self.fixes]
+        self.s_fix = self.s[self.fixes]
+
+    def cross(self, s_c, gate_xy, normal):
+        """(time [s], travelled distance [m], unit tangent) of the crossing near ``s_c``, or None."""
+        s, t = self.s, self.t
+        # FIT_SPAN_M either side, and at least two fixes either side at any GNSS rate
+        k = int(np.searchsorted(self.s_fix, s_c))
+        if k < 2 or k + 1 >= self.s_fix.size:
+            return None
+        lo = int(np.searchsorted(s, min(s_c - FIT_SPAN_M, self.s_fix[k - 2])))
+        hi = int(np.searchsorted(s, max(s_c + FIT_SPAN_M, self.s_fix[k + 1]), side="right"))
+        k0, k1 = np.searchsorted(self.fixes, [lo, hi])
+        f = self.fixes[k0:k1] - lo
+        if f.size < 3 or s[lo + f[0]] > s_c or s[lo + f[-1]] < s_c:
+            return None
+        if s[lo + f[-1]] - s[lo + f[0]] < 10.0:
+            return None
+        ss, tt, rr = s[lo:hi], t[lo:hi], self.yaw[lo:hi]
+        psi = np.concatenate(([0.0], np.cumsum(0.5 * (rr[1:] + rr[:-1]) * np.diff(tt))))
+        mid = 0.5 * (psi[1:] + psi[:-1])
+        ds = np.diff(ss)
+        q = np.stack(
+            [
+                np.concatenate(([0.0], np.cumsum(ds * np.cos(mid)))),
+                np.concatenate(([0.0], np.cumsum(ds * np.sin(mid)))),
+            ],
+            axis=1,
+        )
+        fixes = np.stack([self.fx[k0:k1], self.fy[k0:k1]], axis=1)
+        qc, pc = q[f].mean(axis=0), fixes.mean(axis=0)
+        a, b = q[f] - qc, fixes - pc
+        theta = math.atan2(
+            float(np.sum(a[:, 0] * b[:, 1] - a[:, 1] * b[:, 0])), float(np.sum(a * b))
+        )
+        c, sn = math.cos(theta), math.sin(theta)
+        px = c * (q[:, 0] - qc[0]) - sn * (q[:, 1] - qc[1]) + pc[0]
+        py = sn * (q[:, 0] - qc[0]) + c * (q[:, 1] - qc[1]) + pc[1]
+        past = (px - gate_xy[0]) * normal[0] + (py - gate_xy[1]) * normal[1]
+        j = np.flatnonzero((past[:-1] < 0) & (past[1:] >= 0))
+        if j.size == 0:
+            return None
+        j = int(j[np.argmin(np.abs(ss[j] - s_c))])
+        frac = -past[j] / (past[j + 1] - past[j])
+        heading = theta + psi[j] + frac * (psi[j + 1] - psi[j])
+        return (
+            float(tt[j] + frac * (tt[j + 1] - tt[j])),
+            float(ss[j] + frac * (ss[j + 1] - ss[j])),
+            (math.cos(heading), math.sin(heading)),
+        )
+
+
+def _row_crossings(x, y, s, pairs, gate_xy, direction, half_width_m):
+    """Travelled distance of each crossing of the gate line between rows (linear), in the direction of travel and within the half width. [m]."""
+    nx, ny = direction
+
+    def signed(rows):  # distance past the gate line, and offset along it
+        dx, dy = x[rows] - gate_xy[0], y[rows] - gate_xy[1]
+        return dx * nx + dy * ny, -dx * ny + dy * nx
+
+    a0, c0 = signed(pairs)
+    a1, c1 = signed(pairs + 1)
+    cross = (a0 < 0) & (a1 >= 0)
+    i = pairs[cross]
+    a0, a1, c0, c1 = a0[cross], a1[cross], c0[cross], c1[cross]
+    frac = -a0 / (a1 - a0)
+    keep = np.abs(c0 + frac * (c1 - c0)) <= half_width_m
+    i, frac = i[keep], frac[keep]
+    return s[i] + frac * (s[i + 1] - s[i])
+
+
+def _fused_crossings(log, fused, at, gate_xy, direction):
+    """Times [s], distances [m] and unit tangents of the crossings on the fused path.
+
+    A crossing whose window lacks fixes keeps the fit of :func:`_refine_crossings`.
+    """
+    fallback = _refine_crossings(log, *gate_xy, *direction, fused.s, at)
+    times = np.interp(fallback, fused.s, fused.t)
+    tangents = []
+    for k, s_c in enumerate(at):
+        found = fused.cross(s_c, gate_xy, direction)
+        if found is not None:
+            times[k], fallback[k], tangent = found
+            tangents.append(tangent)
+    return times, fallback, tangents
+
+
 def gate_crossings(log: Log, gate: Gate) -> np.ndarray:
     """Times the car crosses the gate line in its direction of travel. [s].
 
-    Positions are first filled at every row (:func:`limitlap.gnss.fill_position`), the
-    signed distance to the gate line taken at every row, and the crossing time
-    interpolated linearly between the two rows either side of it.
+    Positions are first filled at every row (:func:`limitlap.gnss.fill_position`) and
+    the crossings found between rows. With a yaw rate (or lateral acceleration) each
+    crossing is then placed on the path dead reckoned from speed and yaw rate and laid on
+    the fixes around it (:class:`_FusedPath`), and the gate line turned square to the
+    mean direction of travel over all crossings (one pass, not the nearest alone), then
+    the crossings found again; without one, by the least-squares fit of
+    :func:`_refine_crossings`.
     """
-    gx, gy = gate.position_m(log)
+    gate_xy = gate.position_m(log)
     x, y = fill_position(log)
     s = travelled_m(log)
     t = log.time_s
@@ -398,8 +535,8 @@ def gate_crossings(log: Log, gate: Gate) -> np.ndarray:
     near, closest, pairs = _kernels.gate_approaches(
         np.ascontiguousarray(x),
         np.ascontiguousarray(y),
-        float(gx),
-        float(gy),
+        float(gate_xy[0]),
+        float(gate_xy[1]),
         gate.half_width_m + 100.0,
     )
     if near < 0:
@@ -412,24 +549,36 @@ def gate_crossings(log: Log, gate: Gate) -> np.ndarray:
     direction = _direction_at(x, y, s, near)
     if direction is None:
         raise InputError(log.path, f"the car does not move at the gate at {gate}")
-    nx, ny = direction
-
-    def signed(rows):  # distance past the gate line, and offset along it
-        dx, dy = x[rows] - gx, y[rows] - gy
-        return dx * nx + dy * ny, -dx * ny + dy * nx
-
-    a0, c0 = signed(pairs)
-    a1, c1 = signed(pairs + 1)
-    cross = (a0 < 0) & (a1 >= 0)
-    i = pairs[cross]
-    a0, a1, c0, c1 = a0[cross], a1[cross], c0[cross], c1[cross]
-    frac = -a0 / (a1 - a0)
-    offset = c0 + frac * (c1 - c0)
-    keep = np.abs(offset) <= gate.half_width_m
-    i, frac = i[keep], frac[keep]
-    at = s[i] + frac * (s[i + 1] - s[i])
-    at = _refine_crossings(log, gx, gy, nx, ny, s, at)
-    times = np.interp(at, s, t)
+    at = _row_crossings(x, y, s, pairs, gate_xy, direction, gate.half_width_m)
+    yaw = _yaw_rate_rad_s(log)
+    if yaw is None:
+        at = _refine_crossings(log, *gate_xy, *direction, s, at)
+        times = np.interp(at, s, t)
+    else:
+        fused = _FusedPath(log, yaw)
+        found = at
+        times, at, tangents = _fused_crossings(log, fused, found, gate_xy, direction)
+        # Turning the line moves the crossings along the path, which turns the direction
+        # there by (offset of the gate point from the path) / radius per radian: a few
+        # rounds settle it wherever the point is closer to the path than its radius.
+        for _ in range(_DIRECTION_ROUNDS):
+            mean = np.sum(tangents, axis=0) if tangents else np.zeros(2)
+            norm = math.hypot(*mean)
+            if norm <= 0.5 * len(tangents):  # the passes do not agree on a direction
+                break
+            turn = abs(
+                math.asin(
+                    max(
+                        -1.0,
+                        min(1.0, direction[0] * mean[1] / norm - direction[1] * mean[0] / norm),
+                    )
+                )
+            )
+            direction = (mean[0] / norm, mean[1] / norm)
+            found = _row_crossings(x, y, s, pairs, gate_xy, direction, gate.half_width_m)
+            times, at, tangents = _fused_crossings(log, fused, found, gate_xy, direction)
+            if turn < 1e-4:
+                break
     counted = []
     last = -np.inf
     for k in range(times.size):  # a handful of crossings, not samples
