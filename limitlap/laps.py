@@ -407,6 +407,13 @@ def _yaw_rate_rad_s(log: Log) -> np.ndarray | None:
     return r if ok.all() else np.interp(t, t[ok], r[ok])
 
 
+#: The dead-reckoned path around a crossing is used only when it lies this close to the
+#: fixes (root mean square): GNSS noise is a few decimetres; a yaw rate in the wrong unit
+#: or sign bends the path by metres within the window. Common practice, no published
+#: source. [m]
+_FUSED_MAX_RMS_M = 1.5
+
+
 class _FusedPath:
     """The path around a crossing from speed and yaw rate, placed on the GNSS fixes.
 
@@ -464,6 +471,10 @@ class _FusedPath:
             float(np.sum(a[:, 0] * b[:, 1] - a[:, 1] * b[:, 0])), float(np.sum(a * b))
         )
         c, sn = math.cos(theta), math.sin(theta)
+        res_x = b[:, 0] - (c * a[:, 0] - sn * a[:, 1])
+        res_y = b[:, 1] - (sn * a[:, 0] + c * a[:, 1])
+        if math.sqrt(float(np.mean(res_x * res_x + res_y * res_y))) > _FUSED_MAX_RMS_M:
+            return None  # the shape does not fit the fixes: a yaw rate that is not the car's
         px = c * (q[:, 0] - qc[0]) - sn * (q[:, 1] - qc[1]) + pc[0]
         py = sn * (q[:, 0] - qc[0]) + c * (q[:, 1] - qc[1]) + pc[1]
         past = (px - gate_xy[0]) * normal[0] + (py - gate_xy[1]) * normal[1]
@@ -504,15 +515,19 @@ def _fused_crossings(log, fused, at, gate_xy, direction):
 
     A crossing whose window lacks fixes keeps the fit of :func:`_refine_crossings`.
     """
-    fallback = _refine_crossings(log, *gate_xy, *direction, fused.s, at)
-    times = np.interp(fallback, fused.s, fused.t)
+    at = np.array(at, dtype=np.float64)
+    times = np.full(at.size, np.nan)
     tangents = []
-    for k, s_c in enumerate(at):
+    for k, s_c in enumerate(at.tolist()):
         found = fused.cross(s_c, gate_xy, direction)
         if found is not None:
-            times[k], fallback[k], tangent = found
+            times[k], at[k], tangent = found
             tangents.append(tangent)
-    return times, fallback, tangents
+    left = np.isnan(times)
+    if left.any():
+        at[left] = _refine_crossings(log, *gate_xy, *direction, fused.s, at[left])
+        times[left] = np.interp(at[left], fused.s, fused.t)
+    return times, at, tangents
 
 
 def gate_crossings(log: Log, gate: Gate) -> np.ndarray:

@@ -253,7 +253,8 @@ def _split_session(log_path, log, trk, gate, warnings) -> list[laps_mod.Lap]:
         )
         warnings.append(
             WarningLine(
-                f"{log_path}: no start/finish gate given and no lap column; gate placed at {where}",
+                f"{log_path}: no start/finish gate given and no lap column; gate placed at "
+                f"{where}, the middle of the longest fast straight",
                 hint="gate",
             )
         )
@@ -536,7 +537,12 @@ class _EnvelopeBeside:
 def _chosen_lap(log_path, laps, lap: int | None) -> laps_mod.Lap:
     """Lap ``lap``, or the fastest complete lap; it must be complete."""
     if not any(lp.complete for lp in laps):
-        raise InputError(log_path, "no complete lap in the log (a lap needs two gate crossings)")
+        if len(laps) < 3:
+            raise InputError(
+                log_path, "no complete lap in the log (a lap needs two gate crossings)"
+            )
+        kinds = ", ".join(f"lap {lp.number} {lp.kind}" for lp in laps)
+        raise InputError(log_path, f"no complete flying lap in the log ({kinds})")
     if lap is None:
         return laps_mod.fastest_lap(laps)
     matches = [lp for lp in laps if lp.number == lap]

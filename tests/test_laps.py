@@ -60,6 +60,19 @@ def test_gate_crossing_times_match_closed_form(tmp_path, accel, noise_m, tol_s):
         np.testing.assert_allclose(found, truth, atol=tol_s)
 
 
+def test_a_yaw_rate_that_is_not_the_cars_leaves_the_crossings_to_the_fixes(tmp_path):
+    # Yaw rate 57.3 times too large (deg/s written as rad/s): the path dead reckoned from
+    # it does not fit the fixes (metres off), so the crossings come from the fixes alone:
+    # within 0.002 s of the closed form with the gate point 10 m outside the circle
+    # (noise-free 10 Hz fixes; measured 0.0005 s; with that path laid on the fixes
+    # regardless, 0.07 s).
+    circle = Circle(radius_m=RADIUS_M, v0=25.0, duration_s=60.0)
+    circle.yaw_rate = circle.yaw_rate * 180.0 / math.pi
+    log = read_log(circle.write(tmp_path / "c.csv", planar=True))
+    found = gate_crossings(log, Gate.planar(RADIUS_M + 10.0, 0.0))
+    np.testing.assert_allclose(found, circle.crossing_times(0.0), atol=0.002)
+
+
 def test_lap_numbering_times_and_distances(tmp_path):
     # 25 m/s on R = 100 m, start 1 rad before the gate: crossings at 4 s + k·2πR/v.
     circle = Circle(radius_m=RADIUS_M, v0=25.0, duration_s=90.0)
