@@ -1,8 +1,11 @@
 """Laps of a session: from the log's ``lap`` column or from crossings of a start/finish gate.
 
-Numbering follows docs/formats.md, Log files: lap 0 runs from the start of the log to the first gate
-crossing (out-lap, not complete), lap 1 is the first complete lap, and the stretch after
-the last crossing is not complete. Times and distances are SI (s, m).
+Numbering follows docs/formats.md, Lap numbering: lap 0 runs from the start of the log to
+the first gate crossing, laps 1, 2, ... between crossings, and the stretch after the last
+crossing comes last. Each lap has a kind (out, flying, in, pit, partial); only flying
+laps are complete, the fastest lap or the envelope's. The crossings are placed on the
+path fused from speed, yaw rate and the GNSS fixes around them; without a gate, one is
+put on the main straight (:func:`auto_gate`). Times and distances are SI (s, m).
 """
 
 from __future__ import annotations
@@ -530,6 +533,15 @@ def _fused_crossings(log, fused, at, gate_xy, direction):
     return times, at, tangents
 
 
+def _mean_direction(tangents):
+    """The unit mean of the crossings' directions of travel; None when they disagree (mean shorter than half). [-]."""
+    if not tangents:
+        return None
+    mean = np.sum(tangents, axis=0)
+    norm = math.hypot(*mean)
+    return (mean[0] / norm, mean[1] / norm) if norm > 0.5 * len(tangents) else None
+
+
 def gate_crossings(log: Log, gate: Gate) -> np.ndarray:
     """Times the car crosses the gate line in its direction of travel. [s].
 
@@ -564,35 +576,29 @@ def gate_crossings(log: Log, gate: Gate) -> np.ndarray:
     direction = _direction_at(x, y, s, near)
     if direction is None:
         raise InputError(log.path, f"the car does not move at the gate at {gate}")
-    at = _row_crossings(x, y, s, pairs, gate_xy, direction, gate.half_width_m)
+    found = _row_crossings(x, y, s, pairs, gate_xy, direction, gate.half_width_m)
     yaw = _yaw_rate_rad_s(log)
     if yaw is None:
-        at = _refine_crossings(log, *gate_xy, *direction, s, at)
+        at = _refine_crossings(log, *gate_xy, *direction, s, found)
         times = np.interp(at, s, t)
     else:
         fused = _FusedPath(log, yaw)
-        found = at
         times, at, tangents = _fused_crossings(log, fused, found, gate_xy, direction)
         # Turning the line moves the crossings along the path, which turns the direction
         # there by (offset of the gate point from the path) / radius per radian: a few
         # rounds settle it wherever the point is closer to the path than its radius.
         for _ in range(_DIRECTION_ROUNDS):
-            mean = np.sum(tangents, axis=0) if tangents else np.zeros(2)
-            norm = math.hypot(*mean)
-            if norm <= 0.5 * len(tangents):  # the passes do not agree on a direction
+            mean = _mean_direction(tangents)
+            if mean is None:
                 break
-            turn = abs(
-                math.asin(
-                    max(
-                        -1.0,
-                        min(1.0, direction[0] * mean[1] / norm - direction[1] * mean[0] / norm),
-                    )
-                )
+            turn = math.atan2(
+                direction[0] * mean[1] - direction[1] * mean[0],
+                direction[0] * mean[0] + direction[1] * mean[1],
             )
-            direction = (mean[0] / norm, mean[1] / norm)
+            direction = mean
             found = _row_crossings(x, y, s, pairs, gate_xy, direction, gate.half_width_m)
             times, at, tangents = _fused_crossings(log, fused, found, gate_xy, direction)
-            if turn < 1e-4:
+            if abs(turn) < 1e-4:
                 break
     counted = []
     last = -np.inf
@@ -715,6 +721,29 @@ def _log_end_kind(pace: _Pace, s_b, whole, first: bool):
     return "partial", f"partial lap: the log {where} on the move ({stretch})"
 
 
+def _whole_lap_kind(stop, starts, ends, usual_leave, usual_reach) -> tuple[str, str]:
+    """Kind and reason of a lap between two boundaries: pit, else out, else in, else flying.
+
+    ``stop`` is its longest stop (duration [s], start [s]); ``starts`` and ``ends`` its
+    mean speeds over its first and last PACE_SPAN_M, ``usual_*`` the session's. [m/s]
+    """
+    stop_s, stop_at = stop
+    span = f"{PACE_SPAN_M:.0f} m"
+    if stop_s >= STOP_MIN_S:
+        return "pit", f"stopped for {stop_s:.0f} s at {stop_at:.1f} s (pit stop or stop on track)"
+    if starts < SLOW_SHARE * usual_leave:
+        return "out", (
+            f"out-lap: starts slowly, {_kmh(starts)} over its first {span} where laps "
+            f"leave the gate at {_kmh(usual_leave)}"
+        )
+    if ends < SLOW_SHARE * usual_reach:
+        return "in", (
+            f"in-lap: ends slowly, {_kmh(ends)} over its last {span} where laps reach "
+            f"the gate at {_kmh(usual_reach)}"
+        )
+    return "flying", ""
+
+
 def _lap_kinds(log: Log, bounds, s_b, first_open: bool) -> list[tuple[str, str]]:
     """(kind, reason) of each lap between consecutive ``bounds``, docs/formats.md, Lap numbering.
 
@@ -739,36 +768,10 @@ def _lap_kinds(log: Log, bounds, s_b, first_open: bool) -> list[tuple[str, str]]
         if k not in stops:
             kinds.append(_log_end_kind(pace, s_b, whole, first=(k == 0 and first_open)))
             continue
-        stop_s, stop_at = stops[k]
         starts = leave[k - 1] if k > 0 else math.nan  # a boundary's pace, none at log start
         if k == 0 and pace.first_v < STOP_SPEED_M_S:
             starts = 0.0
-        ends = reach[k]
-        if stop_s >= STOP_MIN_S:
-            kinds.append(
-                (
-                    "pit",
-                    f"stopped for {stop_s:.0f} s at {stop_at:.1f} s (pit stop or stop on track)",
-                )
-            )
-        elif starts < SLOW_SHARE * usual_leave:
-            kinds.append(
-                (
-                    "out",
-                    f"out-lap: starts slowly, {_kmh(starts)} over its first "
-                    f"{PACE_SPAN_M:.0f} m where laps leave the gate at {_kmh(usual_leave)}",
-                )
-            )
-        elif ends < SLOW_SHARE * usual_reach:
-            kinds.append(
-                (
-                    "in",
-                    f"in-lap: ends slowly, {_kmh(ends)} over its last "
-                    f"{PACE_SPAN_M:.0f} m where laps reach the gate at {_kmh(usual_reach)}",
-                )
-            )
-        else:
-            kinds.append(("flying", ""))
+        kinds.append(_whole_lap_kind(stops[k], starts, reach[k], usual_leave, usual_reach))
     return kinds
 
 
