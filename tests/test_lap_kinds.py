@@ -156,6 +156,36 @@ def test_a_log_that_starts_in_the_pit_lane_on_the_move_has_an_out_lap(sessions):
     assert laps[0].reason.startswith("out-lap: the log starts slowly")
 
 
+def test_a_log_without_a_flying_lap_has_no_lap_to_analyse(tmp_path, capsys, monkeypatch):
+    # Out of the box, round once past the gate and into the pit lane (crossing the gate
+    # slowly), a stop, out again, past the gate, and a stop on the straight where the
+    # log ends: by construction lap 0 out (from rest), 1 in (ends in the pit lane), 2 pit
+    # (the stop), 3 in (the log ends at rest). None is a lap time, so analyse has no lap
+    # to take and says what each lap was.
+    plan = [
+        ("box", BOX_AFTER_GATE, 20.0),
+        ("pit", pls.PIT_OUT_X),
+        ("track", 2, pls.PIT_IN_X),
+        ("pit", BOX_AFTER_GATE),
+        ("box", BOX_AFTER_GATE, 20.0),
+        ("pit", pls.PIT_OUT_X),
+        ("track", 0, 600.0),
+    ]
+    path = tmp_path / "no_flying.csv"
+    path.write_text(csv_text(pls.generate(plan).columns(), fmt="{:.10g}"))
+    laps = split_laps(read_log(path), GATE)
+    assert [lap.kind for lap in laps] == ["out", "in", "pit", "in"]
+    code, _, err = run_cli(
+        ("analyse", path, "--gate", str(GATE), "--out", tmp_path / "out", "--quiet"),
+        capsys,
+        monkeypatch,
+    )
+    assert one_error_line(code, err, path) == (
+        f"{path}: no complete flying lap in the log (lap 0 out, lap 1 in, lap 2 pit, lap 3 in)"
+    )
+    assert not (tmp_path / "out").exists()
+
+
 def test_kinds_in_laps_json_the_table_and_summary(sessions, capsys, monkeypatch):
     _, path = sessions[BOX_AFTER_GATE]
     code, out, err = run_cli(("laps", path, "--gate", str(GATE), "--json"), capsys, monkeypatch)
