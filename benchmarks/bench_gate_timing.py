@@ -13,7 +13,9 @@ rows' true lap distance, 100 Hz, interpolated). Printed per case: the largest cr
 error, and the largest error left after taking out the part the GNSS error itself
 explains, minus the along-track component of the generator's GNSS error at the fixes
 within 0.5 s of the crossing divided by the speed (a car whose fixes are 1 m ahead
-crosses 1 m / v early, whatever the processing).
+crosses 1 m / v early, whatever the processing). That second figure is meant for the
+slowly wandering error; with white noise alone, or fixes 1 s apart, read the first: the
+mean noise of the fixes within 0.5 s is not what the fit averages.
 
 Run: ``python benchmarks/bench_gate_timing.py [--seeds N]``.
 """
