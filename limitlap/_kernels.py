@@ -469,18 +469,6 @@ def lap_times_for_scales(
 
 
 @njit(cache=True)
-def first_row_at_speed(x, y, v, threshold):
-    """Kernel of ``limitlap.laps.auto_gate``: the first row with a position whose speed is at least ``threshold`` and above zero, -1 when none (NaN never counts).
-
-    [-].
-    """
-    for i in range(v.shape[0]):
-        if v[i] >= threshold and v[i] > 0.0 and np.isfinite(x[i]) and np.isfinite(y[i]):
-            return i
-    return -1
-
-
-@njit(cache=True)
 def gate_approaches(x, y, gx, gy, reach):
     """Kernel of ``limitlap.laps.gate_crossings``' search: the row nearest the gate point (the first of equals; -1 when no row has a position), its distance, and the rows i whose step to i + 1 stays within ``reach`` of the point at both ends.
 

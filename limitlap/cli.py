@@ -225,7 +225,7 @@ def laps(
     track: Path = typer.Option(None, "--track", help="Track TOML (gate, corner names)."),
     as_json: bool = typer.Option(False, "--json", help="Print JSON on stdout."),
 ) -> None:
-    """The laps of a log: number, time, distance, complete or why not."""
+    """The laps of a log: number, kind (out, flying, in, pit, partial), time, distance, complete or why not."""
     from limitlap import laps as laps_mod
     from limitlap import pipeline
 
@@ -516,8 +516,8 @@ def run() -> None:
 
 
 def format_laps_table(laps) -> str:
-    """The lap table as text: number, time m:ss.sss, distance, complete or why not; the fastest marked."""
-    lines = [f"{'lap':>4}  {'time':>9}  {'distance':>10}  status"]
+    """The lap table as text: number, kind, time m:ss.sss, distance, complete or why not; the fastest marked."""
+    lines = [f"{'lap':>4}  {'kind':<7}  {'time':>9}  {'distance':>10}  status"]
     from limitlap.formatting import lap_time
     from limitlap.laps import laps_table
 
@@ -525,7 +525,7 @@ def format_laps_table(laps) -> str:
         status = "complete" if rec["complete"] else f"not complete: {rec['reason']}"
         mark = "  <- fastest" if rec["fastest"] else ""
         lines.append(
-            f"{rec['number']:>4}  {lap_time(rec['time_s']):>9}  "
+            f"{rec['number']:>4}  {rec['kind']:<7}  {lap_time(rec['time_s']):>9}  "
             f"{rec['distance_m']:>8.1f} m  {status}{mark}"
         )
     return "\n".join(lines)

@@ -12,6 +12,7 @@ from __future__ import annotations
 
 import contextlib
 import math
+import re
 import tomllib
 from dataclasses import dataclass
 from pathlib import Path
@@ -360,10 +361,41 @@ def _open_toml(path: Path, what: str) -> dict:
     try:
         with reading(path, what), path.open("rb") as fh:
             return tomllib.load(fh)
-    except tomllib.TOMLDecodeError as err:
+    except (tomllib.TOMLDecodeError, UnicodeDecodeError) as err:
+        looks = _table_kind(path)
+        if looks is not None:
+            raise InputError(path, f"this is {looks}, not a {what}") from err
+        if isinstance(err, UnicodeDecodeError):
+            raise InputError(path, "not valid TOML: not UTF-8 text") from err
         raise InputError(path, f"not valid TOML: {err}") from err
-    except UnicodeDecodeError as err:
-        raise InputError(path, "not valid TOML: not UTF-8 text") from err
+
+
+def _table_kind(path: Path) -> str | None:
+    """What a file that is not TOML holds, by its first lines: gzip data, a log, a line file, a CSV table; None when none of them."""
+    try:
+        with path.open("rb") as fh:
+            head = fh.read(1 << 16)
+    except OSError:
+        return None
+    if head[:2] == b"\x1f\x8b":
+        return "gzip-compressed data (a compressed log?)"
+    bom16 = head[:2] in (b"\xff\xfe", b"\xfe\xff")
+    if b"\x00" in head and not bom16:
+        return None
+    text = head.decode("utf-16" if bom16 else "utf-8-sig", errors="replace")
+    for line in text.splitlines()[:40]:  # a few metadata lines may come before the header
+        cells = [c.strip().strip('"') for c in re.split(r"[,;\t]", line)]
+        if len(cells) < 2:
+            continue
+        names = {c.split("[")[0].strip().lower() for c in cells}
+        shown = ", ".join(cells[:3]) + (", ..." if len(cells) > 3 else "")
+        if "time" in names:
+            return f"a log (a table with columns {shown})"
+        if {"x", "y"} <= names or {"distance", "curvature"} <= names:
+            return f"a line file (a table with columns {shown})"
+    if text.count(",") + text.count(";") + text.count("\t") >= 2 and "=" not in text:
+        return "a table of values"
+    return None
 
 
 def read_channel_map(path) -> ChannelMap:

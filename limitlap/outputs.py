@@ -480,6 +480,23 @@ def report_view(analysis) -> ReportView:
     )
 
 
+def laps_summary(laps) -> list[dict]:
+    """summary.json's ``laps``: one record per lap of the log, in order (docs/outputs.md, summary.json).
+
+    Parameters
+    ----------
+    laps : list of laps.Lap
+        Every lap of the log. [-]
+
+    Returns
+    -------
+    list of dict
+        ``number`` [-], ``kind`` (``out``, ``flying``, ``in``, ``pit``, ``partial``) and
+        ``time_s`` [s] of each lap. [-]
+    """
+    return [{"number": int(lp.number), "kind": lp.kind, "time_s": float(lp.time_s)} for lp in laps]
+
+
 def build_summary(analysis) -> dict:
     """The docs/outputs.md, summary.json summary of an Analysis, plus corner extras and the warnings.
 
@@ -535,6 +552,7 @@ def build_summary(analysis) -> dict:
         "time_left_s": v.time_left_s,
         "grip_estimate": v.grip_estimate,
         "corners": corners,
+        "laps": laps_summary(analysis.laps),
         "best_of_laps": best_rec,
         "envelope": {
             "fitted": v.fit is not None,

@@ -233,12 +233,17 @@ def _split_session(log_path, log, trk, gate, warnings) -> list[laps_mod.Lap]:
     """The laps of :func:`load_session` (a warning added when the gate was placed)."""
     if isinstance(gate, str):
         gate = laps_mod.parse_gate(gate)
-    if gate is None and trk is not None and trk.gate_latlon is not None:
-        gate = laps_mod.Gate.geodetic(*trk.gate_latlon)
+    track_gate = None
+    if trk is not None and trk.gate_latlon is not None:
+        track_gate = laps_mod.Gate.geodetic(*trk.gate_latlon)
     if gate is not None and gate.is_geodetic and log.origin is None:
         raise InputError(
             log_path, "a latitude/longitude gate needs a log with latitude and longitude"
         )
+    if gate is None:
+        gate = track_gate
+    elif track_gate is not None:
+        laps_mod.check_gates_agree(log, gate, track_gate, trk.path)
     if gate is None and not log.has("lap"):
         gate = laps_mod.auto_gate(log)
         where = (
@@ -248,7 +253,8 @@ def _split_session(log_path, log, trk, gate, warnings) -> list[laps_mod.Lap]:
         )
         warnings.append(
             WarningLine(
-                f"{log_path}: no start/finish gate given and no lap column; gate placed at {where}",
+                f"{log_path}: no start/finish gate given and no lap column; gate placed at "
+                f"{where}, the middle of the longest fast straight",
                 hint="gate",
             )
         )
@@ -532,7 +538,12 @@ class _EnvelopeBeside:
 def _chosen_lap(log_path, laps, lap: int | None) -> laps_mod.Lap:
     """Lap ``lap``, or the fastest complete lap; it must be complete."""
     if not any(lp.complete for lp in laps):
-        raise InputError(log_path, "no complete lap in the log (a lap needs two gate crossings)")
+        if len(laps) < 3:
+            raise InputError(
+                log_path, "no complete lap in the log (a lap needs two gate crossings)"
+            )
+        kinds = ", ".join(f"lap {lp.number} {lp.kind}" for lp in laps)
+        raise InputError(log_path, f"no complete flying lap in the log ({kinds})")
     if lap is None:
         return laps_mod.fastest_lap(laps)
     matches = [lp for lp in laps if lp.number == lap]

@@ -110,12 +110,14 @@ def test_clean_data_has_no_such_warnings(tmp_path, capsys, monkeypatch):
 
 
 def test_out_lap_left_out_of_the_envelope_is_reported(tmp_path, capsys, monkeypatch):
-    # The bundled dry session without a track file: the automatic gate lies 90 m after
-    # the start of the log, so the out-lap from the pits (1:53 against 1:24) counts as a
-    # complete lap. Its cold-tyre samples, well inside the limit, must not go into the
-    # envelope: the fit must be that of the flying laps with the real gate (before the
-    # flying-lap rule, the out-lap pulled the traction limit down by 6 %), the report
-    # must say which lap was left out and summary.json list the laps used.
+    # The bundled dry session without a track file: the automatic gate goes on the main
+    # straight about 100 m after the gate of the generator (docs/formats.md, Laps), 9 m
+    # after the pit exit where the log starts, so lap 0 is the few seconds before it and
+    # lap 1 the out-lap from the pits (1:55 against 1:24), which starts slowly: it is an
+    # out-lap (summary.json's laps say so), not a complete lap. Its cold-tyre samples,
+    # well inside the limit, must not go into the envelope: the fit must be that of the
+    # flying laps with the real gate (when the out-lap counted, it pulled the traction
+    # limit down by 6 %), and summary.json must list the laps used.
     from limitlap.resources import bundled_path
 
     demo = bundled_path("demo_tracks", "tarrowby_dry.csv.gz")
@@ -125,18 +127,18 @@ def test_out_lap_left_out_of_the_envelope_is_reported(tmp_path, capsys, monkeypa
             ["analyse", demo, "--out", out, "--no-figures", "--quiet", *extra], capsys, monkeypatch
         )
         assert code == 0, err
-        if out is out_auto:
-            err_auto = err
     summary = json.loads((out_auto / "summary.json").read_text())
     page = (out_auto / "report.html").read_text()
-    left_out = [w for w in summary["warnings"] if "left out of the grip envelope" in w]
-    assert len(left_out) == 1 and "lap 1 (1:53.038)" in left_out[0]
-    shown_everywhere(left_out[0], page, err_auto)
+    kinds = [lap["kind"] for lap in summary["laps"]]
+    assert kinds == ["out", "out"] + ["flying"] * 7 + ["in"]
+    assert [lap["number"] for lap in summary["laps"]] == list(range(10))
     assert summary["envelope"] == {"fitted": True, "laps": [2, 3, 4, 5, 6, 7, 8]}
     assert "fitted to your own best samples of laps 2-8, the flying laps" in page
     gated = json.loads((out_gate / "summary.json").read_text())
     assert gated["envelope"]["laps"] == [1, 2, 3, 4, 5, 6, 7]
-    assert not any("left out of the grip envelope" in w for w in gated["warnings"])
+    assert [lap["kind"] for lap in gated["laps"]] == ["out"] + ["flying"] * 7 + ["in"]
+    for summ in (summary, gated):
+        assert not any("left out of the grip envelope" in w for w in summ["warnings"])
 
     def grip(out):
         import tomllib

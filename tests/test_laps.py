@@ -60,6 +60,19 @@ def test_gate_crossing_times_match_closed_form(tmp_path, accel, noise_m, tol_s):
         np.testing.assert_allclose(found, truth, atol=tol_s)
 
 
+def test_a_yaw_rate_that_is_not_the_cars_leaves_the_crossings_to_the_fixes(tmp_path):
+    # Yaw rate 57.3 times too large (deg/s written as rad/s): the path dead reckoned from
+    # it does not fit the fixes (metres off), so the crossings come from the fixes alone:
+    # within 0.002 s of the closed form with the gate point 10 m outside the circle
+    # (noise-free 10 Hz fixes; measured 0.0005 s; with that path laid on the fixes
+    # regardless, 0.07 s).
+    circle = Circle(radius_m=RADIUS_M, v0=25.0, duration_s=60.0)
+    circle.yaw_rate = circle.yaw_rate * 180.0 / math.pi
+    log = read_log(circle.write(tmp_path / "c.csv", planar=True))
+    found = gate_crossings(log, Gate.planar(RADIUS_M + 10.0, 0.0))
+    np.testing.assert_allclose(found, circle.crossing_times(0.0), atol=0.002)
+
+
 def test_lap_numbering_times_and_distances(tmp_path):
     # 25 m/s on R = 100 m, start 1 rad before the gate: crossings at 4 s + k·2πR/v.
     circle = Circle(radius_m=RADIUS_M, v0=25.0, duration_s=90.0)
@@ -205,18 +218,20 @@ def test_no_gate_no_lap_column(tmp_path):
         split_laps(read_log(circle.write(tmp_path / "c.csv")))
 
 
-def test_auto_gate_is_first_fast_position(tmp_path):
-    # Accelerate from 5 m/s at 1 m/s²: 95th percentile of speed over 60 s is 62 m/s, the
-    # car reaches 60 % of it (37.2 m/s) at t = 32.2 s; the gate is where it is then.
-    circle = Circle(radius_m=RADIUS_M, v0=5.0, accel=1.0, duration_s=60.0)
+def test_auto_gate_on_a_circle_is_on_the_path(tmp_path):
+    # A circle has no straight: every point is as fast and as curved as the next, so the
+    # gate goes on the longest fast run; wherever it is, it must lie on the path (radius
+    # R, fixes exact) and time laps of the closed form 2 pi R / v.
+    circle = Circle(radius_m=RADIUS_M, v0=25.0, duration_s=90.0)
     log = read_log(circle.write(tmp_path / "c.csv", planar=True))
     gate = auto_gate(log)
     assert not gate.is_geodetic
-    v95 = np.percentile(circle.speed, 95)
-    t_gate = (0.6 * v95 - 5.0) / 1.0
-    crossings = gate_crossings(log, gate)  # earlier, slower passes of that point count too
-    # The gate is the first 100 Hz row at speed: within one row (0.01 s) of t_gate.
-    assert np.min(np.abs(crossings - t_gate)) < 0.02
+    # chord interpolation between fixes 2.5 m apart sags 2.5²/(8 R) = 8 mm inside
+    assert math.hypot(gate.x_m, gate.y_m) == pytest.approx(RADIUS_M, abs=0.01)
+    complete = [lap for lap in split_laps(log, gate) if lap.complete]
+    assert len(complete) >= 2
+    for lap in complete:
+        assert lap.time_s == pytest.approx(2 * math.pi * RADIUS_M / 25.0, abs=0.01)
     geo = auto_gate(read_log(circle.write(tmp_path / "g.csv")))
     assert geo.is_geodetic
 
