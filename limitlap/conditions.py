@@ -10,7 +10,7 @@ from __future__ import annotations
 from collections.abc import Mapping
 
 from limitlap.errors import LimitlapError
-from limitlap.vehicle import check_grip_scale
+from limitlap.vehicle import GRIP_SCALE_MAX, GRIP_SCALE_MIN, check_grip_scale
 
 #: Default grip scales of the named conditions. Common practice, no published source:
 #: a damp track and intermediate tyres are usually put at 0.8-0.9 of dry grip, rain
@@ -50,12 +50,14 @@ def resolve_condition(
         if key in table:
             return key, check_grip_scale(table[key])
         try:
-            return None, check_grip_scale(float(key))
+            float(key)
         except ValueError:
-            names = ", ".join(sorted(table))
+            names = ", ".join(table)
             raise LimitlapError(
-                f"unknown condition '{condition}' (use a grip scale or one of {names})"
+                f"unknown condition '{condition}' (use {names} or a grip scale "
+                f"{GRIP_SCALE_MIN}-{GRIP_SCALE_MAX})"
             ) from None
+        return None, check_grip_scale(key)
     return None, check_grip_scale(condition)
 
 
