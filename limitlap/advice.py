@@ -95,14 +95,22 @@ def _beyond(x: float, resolution: float) -> bool:
     return math.isfinite(x) and abs(x) >= resolution
 
 
+def _arrives_slower(d: CornerDifferences) -> bool:
+    """The real lap starts the segment slower than the ideal by more than the resolution."""
+    return _beyond(d.arrival_deficit_m_s, SPEED_RESOLUTION_M_S) and d.arrival_deficit_m_s > 0
+
+
 def _parts(d: CornerDifferences) -> list[str]:
-    """The differences worth naming, in driving order, each as a clause."""
+    """The differences worth naming, in driving order, each as a clause.
+
+    A clause about the driver ("you ...") is followed by clauses that name the ideal
+    again.
+    """
     parts = []
     if (
         d.approach_s >= TIME_RESOLUTION_S
         and d.approach_s >= 0.5 * d.time_left_s
-        and _beyond(d.arrival_deficit_m_s, SPEED_RESOLUTION_M_S)
-        and d.arrival_deficit_m_s > 0
+        and _arrives_slower(d)
     ):
         where = f"{d.previous}'s exit" if d.previous else "the corner before"
         parts.append(
@@ -115,14 +123,20 @@ def _parts(d: CornerDifferences) -> list[str]:
             f"the ideal takes it without slowing; you slow from {d.real_brake_m:.0f} m "
             f"to {speed_kmh(d.real_min_speed_m_s)} km/h"
         )
-        return parts + _drive_part(d)
-    if _beyond(d.brake_later_m, d.brake_resolution_m) and d.braking_s >= TIME_RESOLUTION_S:
+        return _with_subject(parts + _drive_part(d))
+    # Braking later because the lap arrived slower is no instruction: left out.
+    later = d.brake_later_m > 0 or not _arrives_slower(d)
+    if (
+        _beyond(d.brake_later_m, d.brake_resolution_m)
+        and d.braking_s >= TIME_RESOLUTION_S
+        and later
+    ):
         word = "later" if d.brake_later_m > 0 else "earlier"
         parts.append(f"the ideal brakes {metres(d.brake_later_m)} {word}")
     if _beyond(d.min_speed_gain_m_s, SPEED_RESOLUTION_M_S) and turning >= TIME_RESOLUTION_S:
         word = "more" if d.min_speed_gain_m_s > 0 else "less"
         parts.append(f"carries {speed_kmh(abs(d.min_speed_gain_m_s))} km/h {word} at the minimum")
-    return parts + _drive_part(d)
+    return _with_subject(parts + _drive_part(d))
 
 
 def _drive_part(d: CornerDifferences) -> list[str]:
@@ -130,6 +144,19 @@ def _drive_part(d: CornerDifferences) -> list[str]:
         word = "sooner" if d.full_drive_sooner_m > 0 else "later"
         return [f"is at full drive {metres(d.full_drive_sooner_m)} {word}"]
     return []
+
+
+def _with_subject(parts: list[str]) -> list[str]:
+    """Clauses without a subject get "the ideal" when the clause before is not the ideal's."""
+    out = []
+    for i, p in enumerate(parts):
+        before = out[i - 1] if i else ""
+        if p.startswith(("carries", "is at")) and not before.startswith(
+            ("the ideal brakes", "the ideal carries", "carries")
+        ):
+            p = "the ideal " + p
+        out.append(p)
+    return out
 
 
 def advice_line(d: CornerDifferences) -> str:
@@ -170,7 +197,5 @@ def advice_line(d: CornerDifferences) -> str:
             f"{head} — spread through the corner: no brake point, minimum speed or drive "
             "point apart by more than the data resolves"
         )
-    if parts[0].startswith(("carries", "is at")):
-        parts[0] = "the ideal " + parts[0]
     text = parts[0] if len(parts) == 1 else ", ".join(parts[:-1]) + ", and " + parts[-1]
     return f"{head} — {text}"

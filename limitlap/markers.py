@@ -218,22 +218,6 @@ def _band_middle(tr: Trace, i: int, band: float) -> float:
     return 0.5 * float(tr.u[lo] + tr.u[hi])
 
 
-def _start_of_fall(tr: Trace, i: int) -> float:
-    """Where the speed starts falling at peak station i. [m].
-
-    Where the trace's longitudinal acceleration changes sign next to the peak (between
-    i - 1 and i + 1, interpolated between stations), else at the peak station.
-    """
-    u, ax = tr.u, tr.ax
-    for j in (i, i - 1):
-        if ax is None or j < 0 or j + 1 >= u.shape[0]:
-            continue
-        a0, a1 = ax[j], ax[j + 1]
-        if np.isfinite(a0) and np.isfinite(a1) and a0 >= 0.0 > a1:
-            return float(u[j] + a0 / (a0 - a1) * (u[j + 1] - u[j]))
-    return float(u[i])
-
-
 def _full_drive(tr: Trace, u0: float, u1: float) -> float:
     """First point in [u0, u1) where full drive begins (docs/methods.md, Corner record). [m].
 
@@ -338,8 +322,8 @@ def corner_marks(tr: Trace, corner: Corner, bound) -> Marks:
     points = []
     for i in mins.tolist():  # the peak before each minimum (they alternate)
         before = tr.peaks[tr.peaks < i]
-        if before.size:
-            points.append(_start_of_fall(tr, int(before[-1])))
+        if before.size:  # its last station: never after the speed starts falling
+            points.append(float(tr.u[before[-1]]))
     if mins.size:
         i_min = int(mins[np.argmin(tr.v[mins])])
         v_min, at = float(tr.v[i_min]), _band_middle(tr, i_min, MIN_SPEED_BAND_M_S)
