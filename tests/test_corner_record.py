@@ -305,6 +305,42 @@ def test_targets_against_the_convex_minimum_time_optimum():
             assert gap <= 5.0, corner.name
 
 
+def _extrema_every_station(v, drop=markers.MIN_SPEED_DROP_M_S):
+    """The turning-point pass of docs/methods.md (Corner record) written plainly: every
+    station visited (limitlap visits only where the speed turns)."""
+    peaks, valleys = [], []
+    good = np.flatnonzero(np.isfinite(v))
+    hi = lo = int(good[0])
+    first, state = v[hi], 0
+    for i in good[1:].tolist():
+        x = v[i]
+        rose, fell = v[hi] > first, v[lo] < first
+        hi = i if x >= v[hi] else hi
+        lo = i if x < v[lo] else lo
+        if state >= 0 and x < v[hi] - drop:
+            peaks += [hi] if state == 1 or rose else []
+            state, lo = -1, i
+        elif state <= 0 and x > v[lo] + drop:
+            valleys += [lo] if state == -1 or fell else []
+            state, hi = 1, i
+    return peaks, valleys
+
+
+def test_turning_points_visit_only_where_the_speed_turns():
+    # Running highs and lows change only where the speed turns or is level, so visiting
+    # those stations alone gives the plain pass's turning points: random walks with
+    # level runs (0.1 rounding, repeats) and blanks.
+    rng = np.random.default_rng(0)
+    for k in range(400):
+        v = np.round(np.cumsum(rng.normal(0.0, 0.7, rng.integers(3, 300))), 1)
+        if k % 3 == 0:
+            v[rng.integers(0, v.size, size=v.size // 10)] = np.nan
+        if k % 5 == 0:
+            v = np.repeat(v, 3)
+        peaks, valleys = markers.speed_extrema(v)
+        assert (peaks.tolist(), valleys.tolist()) == _extrema_every_station(v)
+
+
 # ----------------------------------------------------- comparison: advice and pedals
 
 
