@@ -226,7 +226,7 @@ def _points(points) -> str:
 
 def _corner_table(analysis) -> str:
     """The ranked corner table and headline, for the terminal."""
-    from limitlap.formatting import distance, grip, lap_time, percent, speed_kmh, time_left
+    from limitlap.formatting import distance, grip, grip_used, lap_time, speed_kmh, time_left
 
     cmp_ = analysis.comparison
     lines = [
@@ -258,7 +258,7 @@ def _corner_table(analysis) -> str:
             f"{speed_kmh(c.min_speed_actual_m_s)} / {speed_kmh(c.min_speed_ideal_m_s)}",
             _points(c.brake_points_actual_m),
             _points(c.brake_points_ideal_m),
-            percent(c.grip_used),
+            grip_used(c.grip_used, c.grip_used_raw),
         )
         for c in cmp_.ranked()
     ]

@@ -132,6 +132,20 @@ def percent(share) -> str:
     return number(None if not _known(share) else 100.0 * share, ".0f", " %")
 
 
+def grip_used(share, raw=None) -> str:
+    """A corner's grip used for people: whole percent; "over" when the lap went outside.
+
+    ``raw`` is the value before clipping: above 1 it is shown, marked "over". "—" if
+    unknown.
+
+    >>> grip_used(0.954), grip_used(1.0, 1.26)
+    ('95 %', '126 % over')
+    """
+    if _known(raw) and raw > 1.005:
+        return f"{percent(raw)} over"
+    return percent(share)
+
+
 def grip(scale) -> str:
     """A grip scale or estimate for people: two decimals. "—" if unknown.
 

@@ -20,8 +20,8 @@ from limitlap.formatting import (
     NOT_AVAILABLE,
     distance,
     grip,
+    grip_used,
     lap_time,
-    percent,
     seconds,
     speed_kmh,
     time_left,
@@ -338,7 +338,7 @@ def _corner_cells(i: int, c: dict) -> list[str]:
         seconds(c["ideal_s"]),
         f"{speed_kmh(c['min_speed_actual_m_s'])} / {speed_kmh(c['min_speed_ideal_m_s'])}",
         f"{_points(s['brake_points_actual_m'])} / {_points(s['brake_points_ideal_m'])}",
-        percent(c["grip_used"]),
+        grip_used(c["grip_used"], c.get("grip_used_raw")),
         grip(c.get("grip_estimate")),
         c["plain"],
     ]
@@ -385,7 +385,8 @@ def _corner_table(v: ReportView, out: list[str]) -> None:
         "per braking zone, in metres from the start/finish gate. Minimum speed: the "
         "lowest in the corner, or the speed at the apex where a lap takes it without "
         "slowing. Grip used: the share of the available combined grip this lap used in "
-        "the corner. Grip found: the grip scale the corner showed against the envelope "
+        "the corner (above 100 %, marked over: it used more than the envelope allows at "
+        "this grip scale). Grip found: the grip scale the corner showed against the envelope "
         "(below 1 = less grip there than at its best, e.g. a damp patch; "
         f"{NOT_AVAILABLE} where the corner is taken flat out, on the engine's limit, so it "
         "does not show the tyres'). Definitions: docs/methods.md, Corner record.</p>"
