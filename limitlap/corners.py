@@ -47,6 +47,12 @@ MIN_TURN_RAD = math.radians(8.0)
 APEX_PROMINENCE = 0.3
 
 
+#: An apex sits in the middle of the stretch where |curvature| stays within this share of
+#: its peak: the middle of a constant-radius arc, not wherever the noise of a rebuilt
+#: line (a few %) puts its highest point. [-]
+APEX_BAND = 0.03
+
+
 #: Same-direction bends closer than this form one corner with two apexes. [m]
 MERGE_GAP_M = 50.0
 
@@ -374,12 +380,14 @@ def _bends(line: Line, ks, state, frame, enter_curvature_1_m, min_turn_rad) -> l
         zm = mag[seg]
         if zm.max() <= enter_curvature_1_m or float(np.sum(zm * ds[seg])) < min_turn_rad:
             continue
-        tol = 1e-9 * zm.max()
         peaks, prominences = peak_prominences(np.concatenate([[0.0], zm, [0.0]]))
         keep = prominences >= APEX_PROMINENCE * zm[peaks - 1]
-        apex_js = {plateau_middle(zm, int(p) - 1, tol) for p in peaks[keep]}
-        apex_js.add(plateau_middle(zm, int(np.argmax(zm)), tol))
-        apexes = [(u[i0 + j], zm[j], ks[seg[j]]) for j in sorted(apex_js)]
+        tops = [int(p) - 1 for p in peaks[keep]] + [int(np.argmax(zm))]
+        apex_at = {}  # station of each apex -> the |curvature| of its peak
+        for top in tops:
+            j = plateau_middle(zm, top, APEX_BAND * zm[top])
+            apex_at[j] = max(apex_at.get(j, 0.0), float(zm[top]))
+        apexes = [(u[i0 + j], apex_at[j], ks[seg[j]]) for j in sorted(apex_at)]
         zones.append([u[i0], u[i1], int(st[i0]), apexes, [], []])
     return zones
 
