@@ -78,7 +78,8 @@ class Corner:
         for the segment through the gate, ``start_m == end_m`` for one segment
         covering the whole lap. [m]
     apex_m : float
-        Main apex: the point of largest |curvature| (lowest cornering speed limit). [m]
+        Main apex: the apex of largest |curvature| (lowest cornering speed limit), in the
+        middle of the stretch within 3 % of that peak. [m]
     apexes_m : tuple of float
         Every apex in driving order (two or more for a compound corner). [m]
     turn_in_m, exit_m : float
@@ -266,9 +267,10 @@ def find_corners(
 
     Notes
     -----
-    The apexes of a bend are the stations of locally largest smoothed |curvature|
-    whose peak stands out by at least 30 % of its height (the middle of the run when
-    the value is a plateau, as on a constant-radius arc); the main apex is the largest. For
+    The apexes of a bend are the peaks of smoothed |curvature| that stand out by at
+    least 30 % of their height, each in the middle of the stretch within
+    :data:`APEX_BAND` of its peak (the middle of a constant-radius arc); the main apex
+    is the one of largest |curvature|. For
     every vehicle of docs/formats.md, Vehicle files the cornering speed limit
     :math:`v^2 = \mu g / (|\kappa| - \mu k_z/m)` is strictly decreasing in
     :math:`|\kappa|` where grip limits at all, so these are the local minima of the
