@@ -193,9 +193,15 @@ def advice_line(d: CornerDifferences) -> str:
     if not parts:
         if d.time_left_s < TIME_RESOLUTION_S:
             return f"{head} — on the ideal here: same brake point, minimum speed and drive point"
+        phases = zip(
+            ("approach", "braking", "mid-corner", "exit"),
+            (d.approach_s, d.braking_s, d.mid_s, d.exit_s),
+            strict=True,
+        )
+        where = ", ".join(f"{w} {time_left(x)} s" for w, x in phases if abs(x) >= 0.005)
         return (
-            f"{head} — spread through the corner: no brake point, minimum speed or drive "
-            "point apart by more than the data resolves"
+            f"{head} — spread through the corner ({where}): no brake point, minimum speed "
+            "or drive point apart by more than the data resolves"
         )
     text = parts[0] if len(parts) == 1 else ", ".join(parts[:-1]) + ", and " + parts[-1]
     return f"{head} — {text}"

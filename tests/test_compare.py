@@ -343,6 +343,13 @@ def test_advice_line_wording():
     # A brake point 3 m apart at 62 m/s: one 20 Hz sample is 3.1 m, not resolved.
     d = _differences(brake_later_m=3.0, brake_resolution_m=advice.distance_resolution_m(62.0))
     assert "brakes" not in advice.advice_line(d)
+    # Nothing the data resolves, but time left: where it is, phase by phase.
+    d = _differences(brake_later_m=1.0, min_speed_gain_m_s=0.1, full_drive_sooner_m=0.5)
+    assert advice.advice_line(d) == (
+        "T6: 0.21 s — spread through the corner (braking 0.08 s, mid-corner 0.07 s, exit "
+        "0.06 s): no brake point, minimum speed or drive point apart by more than the data "
+        "resolves"
+    )
     # Time carried from the corner before: said so, with the speed it arrives short by.
     d = _differences(
         name="T10",
