@@ -370,11 +370,8 @@ def batch_csv_text(rows: Sequence[BatchRow]) -> str:
 
 
 def format_batch_table(rows: Sequence[BatchRow]) -> str:
-    """The combined table for the terminal (lap times as m:ss.sss)."""
-    from limitlap.formatting import lap_time
-
-    def lt(x):
-        return "-" if not math.isfinite(x) else lap_time(x)
+    """The combined table for the terminal (lap times as m:ss.sss; limitlap.formatting)."""
+    from limitlap.formatting import grip, lap_time, time_left
 
     names = [Path(r.log).name for r in rows]
     w = max([len("log"), *map(len, names)])
@@ -385,10 +382,9 @@ def format_batch_table(rows: Sequence[BatchRow]) -> str:
         if r.error:
             lines.append(f"{name:<{w}}  error: {r.error}")
             continue
-        grip = "-" if r.grip_estimate is None else f"{r.grip_estimate:.2f}"
         lines.append(
-            f"{name:<{w}}  {r.lap:>4}{lt(r.lap_time_s):>11}{lt(r.ideal_lap_time_s):>11}"
-            f"{r.time_left_s:>9.2f} s{grip:>10}"
+            f"{name:<{w}}  {r.lap:>4}{lap_time(r.lap_time_s):>11}{lap_time(r.ideal_lap_time_s):>11}"
+            f"{time_left(r.time_left_s):>9} s{grip(r.grip_estimate):>10}"
         )
     n_bad = sum(1 for r in rows if r.error)
     lines.append("")

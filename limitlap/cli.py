@@ -91,15 +91,30 @@ def _warn(warnings) -> None:
         typer.echo(f"limitlap: warning: {worded(w)}", err=True)
 
 
-def _grip(value: str | None, default: float = 1.0) -> float:
-    from limitlap.vehicle import check_grip_scale
+def _condition(value: str) -> float:
+    """One ``--grip`` value, ``dry``/``damp``/``wet`` or a number, as its grip scale. [-]."""
+    from limitlap.conditions import resolve_condition
 
-    if value is None:
-        return default
     try:
-        return check_grip_scale(value)
+        return resolve_condition(value)[1]
     except LimitlapError as err:  # name the option, as a file's message names the file
         raise InputError("--grip", str(err)) from None
+
+
+def _grip_scale(value: str | None) -> float | None:
+    """``--grip`` of a command that takes one: checked while the options are parsed. [-]."""
+    return None if value is None else _condition(value)
+
+
+def _grip_list(values: list[str] | None) -> list[str] | None:
+    """``--grip`` repeated: every value checked while the options are parsed, kept as given."""
+    for value in values or []:
+        _condition(value)
+    return values
+
+
+#: Help of every ``--grip``.
+_GRIP_HELP = "Grip scale: dry (1.0), damp (0.85), wet (0.70) or a number 0.2-2.0."
 
 
 def _kmh(v_m_s: float) -> float:
@@ -114,16 +129,18 @@ def solve(
         ..., help="Line file: 'x [m], y [m]' or 'distance [m], curvature [1/m]'."
     ),
     vehicle: Path = typer.Option(..., "--vehicle", help="Vehicle TOML file with a [grip] table."),
-    grip: str = typer.Option(None, "--grip", help="Grip scale k, 0.2-2.0 (wet < 1)."),
+    grip: str = typer.Option(None, "--grip", help=_GRIP_HELP, callback=_grip_scale),
     as_json: bool = typer.Option(False, "--json", help="Print JSON on stdout."),
     out: Path = typer.Option(None, "--out", help="Write the speed profile as CSV here."),
 ) -> None:
     """Ideal speed profile and lap time on a given line."""
+    import numpy as np
+
     from limitlap import ingest
     from limitlap import solve as solver
 
     _settle_imports()
-    k = _grip(grip)
+    k = 1.0 if grip is None else float(grip)
     car = ingest.read_vehicle(vehicle)
     the_line = ingest.read_line(line)
     _warn(the_line.meta.get("warnings", ()))
@@ -132,21 +149,29 @@ def solve(
         from limitlap import atomic, outputs
 
         atomic.write_atomic(out, outputs.solve_profile_csv_text(profile, the_line))
+    i_min = int(np.argmin(profile.speed_m_s))
     result = {
         "lap_time_s": round(profile.lap_time_s, 3),
-        "min_speed_kmh": round(_kmh(float(profile.speed_m_s.min())), 2),
+        "min_speed_kmh": round(_kmh(float(profile.speed_m_s[i_min])), 2),
         "max_speed_kmh": round(_kmh(float(profile.speed_m_s.max())), 2),
+        "min_speed_at_m": round(float(profile.distance_m[i_min]), 1),
+        "grip_scale": k,
     }
+    if out is not None:
+        result["profile_csv"] = str(out)
     if as_json:
         typer.echo(json.dumps(result))
         return
-    from limitlap.formatting import lap_time
+    from limitlap.formatting import distance, lap_time, speed_kmh
 
-    typer.echo(f"{car.name} on {line.name}, grip scale {k:g}")
+    typer.echo(f"{car.name} on {line.name}, grip scale {k:.2f}")
     typer.echo(f"  lap time   {lap_time(profile.lap_time_s)}  ({profile.lap_time_s:.3f} s)")
-    typer.echo(f"  min speed  {result['min_speed_kmh']:.1f} km/h")
-    typer.echo(f"  max speed  {result['max_speed_kmh']:.1f} km/h")
-    typer.echo(f"  length     {the_line.length_m:.1f} m, {the_line.n} stations")
+    typer.echo(
+        f"  min speed  {speed_kmh(profile.speed_m_s[i_min])} km/h at "
+        f"{distance(result['min_speed_at_m'])} m"
+    )
+    typer.echo(f"  max speed  {speed_kmh(profile.speed_m_s.max())} km/h")
+    typer.echo(f"  length     {distance(the_line.length_m)} m, {the_line.n} stations")
     if out is not None:
         typer.echo(f"  profile    {out}")
 
@@ -178,35 +203,68 @@ class _Progress:
             self.bar = None
 
 
+def _text_table(heads, rows, left=1) -> list[str]:
+    """Fixed-width text table: the first ``left`` columns to the left, the rest right."""
+    widths = [
+        max(len(h), *(len(r[i]) for r in rows)) if rows else len(h) for i, h in enumerate(heads)
+    ]
+
+    def line(cells):
+        return "  ".join(
+            c.ljust(w) if i < left else c.rjust(w)
+            for i, (c, w) in enumerate(zip(cells, widths, strict=True))
+        ).rstrip()
+
+    return [line(heads)] + [line(r) for r in rows]
+
+
+def _points(points) -> str:
+    """Brake points to the metre, joined by "+"; the one blank without one."""
+    from limitlap.formatting import NOT_AVAILABLE, distance
+
+    return " + ".join(distance(x) for x in points) if points else NOT_AVAILABLE
+
+
 def _corner_table(analysis) -> str:
     """The ranked corner table and headline, for the terminal."""
-    from limitlap.formatting import hundredths, lap_time, number
-    from limitlap.units import KMH_TO_M_S
+    from limitlap.formatting import distance, grip, grip_used, lap_time, speed_kmh, time_left
 
     cmp_ = analysis.comparison
     lines = [
         f"lap {analysis.lap.number}: {lap_time(cmp_.lap_time_s)}   ideal "
-        f"{lap_time(cmp_.ideal_lap_time_s)} at grip scale {analysis.grip_scale:g}   "
-        f"time left {cmp_.time_left_s:.2f} s   grip estimate "
-        + ("-" if analysis.grip_estimate is None else f"{analysis.grip_estimate:.2f}"),
-        "",
-        f"{'rank':>4}  {'corner':<7}{'time left':>10}{'min real':>10}{'min ideal':>10}"
-        f"{'brake real':>11}{'brake ideal':>12}{'grip used':>10}",
-        f"{'':>4}  {'':<7}{'[s]':>10}{'[km/h]':>10}{'[km/h]':>10}{'[m]':>11}{'[m]':>12}{'[%]':>10}",
+        f"{lap_time(cmp_.ideal_lap_time_s)} at grip scale {grip(analysis.grip_scale)}   "
+        f"time left {time_left(cmp_.time_left_s)} s   grip estimate "
+        f"{grip(analysis.grip_estimate)}",
     ]
-
-    def num(x, spec, scale=1.0):
-        blank = "-".rjust(int(spec.split(".")[0]))
-        return number(None if x is None else x * scale, spec, blank=blank)
-
-    for c in cmp_.ranked():
-        lines.append(
-            f"{c.rank:>4}  {c.name:<7}{num(hundredths(c.time_left_s), '10.2f')}"
-            f"{num(c.min_speed_actual_m_s, '10.1f', 1 / KMH_TO_M_S)}{num(c.min_speed_ideal_m_s, '10.1f', 1 / KMH_TO_M_S)}"
-            f"{num(c.brake_start_actual_m, '11.0f')}{num(c.brake_start_ideal_m, '12.0f')}"
-            f"{num(c.grip_used, '10.0f', 100.0)}"
+    if cmp_.time_left_words():
+        lines.append(f"time left below zero: {cmp_.time_left_words()}")
+    heads = (
+        "rank",
+        "corner",
+        "",
+        "apex [m]",
+        "time left [s]",
+        "min you/ideal [km/h]",
+        "brake you [m]",
+        "brake ideal [m]",
+        "grip used",
+    )
+    rows = [
+        (
+            f"{c.rank:>4}",
+            c.name,
+            c.label,
+            distance(c.apex_m),
+            time_left(c.time_left_s),
+            f"{speed_kmh(c.min_speed_actual_m_s)} / {speed_kmh(c.min_speed_ideal_m_s)}",
+            _points(c.brake_points_actual_m),
+            _points(c.brake_points_ideal_m),
+            grip_used(c.grip_used, c.grip_used_raw),
         )
-    lines.append("")
+        for c in cmp_.ranked()
+    ]
+    lines += ["", *_text_table(heads, [tuple(r) for r in rows], left=3), ""]
+    lines += [f"{c.name}: {c.note}" for c in cmp_.corners if c.note]
     lines += [c.advice for c in cmp_.ranked()[:3] if c.advice]
     return "\n".join(lines)
 
@@ -320,7 +378,7 @@ def analyse(
     vehicle: Path = typer.Option(
         None, "--vehicle", help="Vehicle TOML; without [grip] the envelope is fitted."
     ),
-    grip: str = typer.Option(None, "--grip", help="Grip scale k for the ideal, 0.2-2.0."),
+    grip: str = typer.Option(None, "--grip", help=_GRIP_HELP, callback=_grip_scale),
     lap: int = typer.Option(None, "--lap", help="Lap number; default the fastest complete lap."),
     gate: str = _gate_option(),
     channels: Path = typer.Option(
@@ -351,7 +409,7 @@ def analyse(
     """
     from limitlap import report
 
-    k = _grip(grip)
+    k = 1.0 if grip is None else float(grip)
     if len(log) > 1 or log[0].is_dir() or scheduler is not None:
         _analyse_batch(
             log,
@@ -388,7 +446,7 @@ def targets(
         ..., "--vehicle", help="Vehicle TOML with [grip], or a fitted envelope.toml."
     ),
     grip: list[str] = typer.Option(
-        ..., "--grip", help="Grip scale 0.2-2.0 or dry/damp/wet; repeat for more."
+        ..., "--grip", help=_GRIP_HELP + " Repeat for more.", callback=_grip_list
     ),
     lap: int = typer.Option(None, "--lap", help="Lap of a log to take the line from."),
     gate: str = _gate_option(),
@@ -406,26 +464,19 @@ def targets(
 
     _settle_imports()
     car = pipeline.require_vehicle_with_grip(vehicle)
-    for g in grip:  # check every scale before any work
-        try:
-            targets_mod.resolve_condition(g)
-        except LimitlapError as err:
-            raise InputError("--grip", str(err)) from None
     line, where = pipeline.line_from_source(
         source, lap=lap, gate=gate, channels=channels, track=track
     )
     _warn(line.meta.get("warnings", ()))
     trk = ingest.read_track(track) if track is not None else None
-    names = list(trk.corner_names) if trk is not None and trk.corner_names else None
-    apexes = list(trk.corner_apexes_m) if names else None
-    corners = corners_mod.find_corners(
-        line, names, apexes_m=apexes, apexes_from=trk.path if trk is not None else None
-    )
+    corners = corners_mod.track_corners(line, trk)
     conditions = targets_mod.target_tables(line, car, grip, corners)
     if out is not None:
         from limitlap import sheets
 
-        sheets.write_target_sheets(conditions, out, trk.name if trk else where)
+        sheets.write_target_sheets(
+            conditions, out, trk.name if trk else where, car=car.name, date=_sheet_date()
+        )
     if as_json:
         typer.echo(json.dumps(targets_mod.targets_json(conditions)))
         return
@@ -454,13 +505,29 @@ def demo(
         conditions = targets_mod.target_tables(
             analysis.driven.line, analysis.vehicle, ["dry", "damp", "wet"], analysis.corners
         )
-        sheets.write_target_sheets(conditions, folder, analysis.track_name or "demo circuit")
+        car = analysis.vehicle.name
+        if analysis.fit is not None:
+            car = f"envelope fitted to {Path(log).name}"
+        sheets.write_target_sheets(
+            conditions,
+            folder,
+            analysis.track_name or "demo circuit",
+            car=car,
+            date=_sheet_date(),
+        )
     _warn(analysis.warnings)
     typer.echo(_corner_table(analysis))
     for cond in conditions:
         typer.echo("")
         typer.echo(format_targets_table(cond))
     typer.echo(f"\nreport: {Path(out) / 'report.html'}  (open it in a browser)")
+
+
+def _sheet_date() -> str:
+    """The date printed on target sheets: the day they are made (ISO 8601)."""
+    import datetime
+
+    return datetime.date.today().isoformat()
 
 
 def _warning_line(message, category, filename, lineno, file=None, line=None) -> None:
@@ -543,61 +610,37 @@ def format_targets_table(condition: TargetCondition) -> str:
     str
         Heading, one row per corner (km/h, m, s), and the caution.
     """
-    from limitlap.formatting import NO_POINT, lap_time, number
+    from limitlap.formatting import distance, grip, lap_time, seconds, speed_kmh
     from limitlap.targets import CAUTION
-    from limitlap.units import KMH_TO_M_S
 
-    k = 1.0 / KMH_TO_M_S
     name = f"{condition.label} " if condition.label else ""
     head = (
-        f"Targets {name}(grip scale {condition.grip_scale:.2f}) — "
+        f"Targets {name}(grip scale {grip(condition.grip_scale)}) — "
         f"ideal lap {lap_time(condition.lap_time_s)}"
     )
-    cols = (
+    heads = (
         "corner",
-        "apex m",
-        "brake at m",
-        "before apex m",
-        "entry km/h",
-        "min km/h",
-        "exit km/h",
-        "segment s",
+        "",
+        "apex [m]",
+        "brake at [m]",
+        "before apex [m]",
+        "entry [km/h]",
+        "min [km/h]",
+        "exit [km/h]",
+        "segment [s]",
     )
-    rows = []
-    for t in condition.corners:
-
-        def f(x, nd=0):
-            return number(x, f".{nd}f", blank=NO_POINT)
-
-        rows.append(
-            (
-                t.name,
-                f(t.apex_m),
-                f(t.brake_start_m),
-                f(t.brake_before_apex_m),
-                f(t.entry_speed_m_s * k),
-                f(t.min_speed_m_s * k),
-                f(t.exit_speed_m_s * k),
-                f(t.segment_time_s, 2),
-            )
+    rows = [
+        (
+            t.name,
+            t.label,
+            distance(t.apex_m),
+            _points(t.brake_points_m),
+            distance(t.brake_before_apex_m),
+            speed_kmh(t.entry_speed_m_s),
+            speed_kmh(t.min_speed_m_s),
+            speed_kmh(t.exit_speed_m_s),
+            seconds(t.segment_time_s),
         )
-    widths = [
-        max(len(cols[i]), *(len(r[i]) for r in rows)) if rows else len(cols[i])
-        for i in range(len(cols))
+        for t in condition.corners
     ]
-    lines = [head, ""]
-    lines.append(
-        "  ".join(
-            c.ljust(w) if i == 0 else c.rjust(w)
-            for i, (c, w) in enumerate(zip(cols, widths, strict=True))
-        )
-    )
-    for r in rows:
-        lines.append(
-            "  ".join(
-                c.ljust(w) if i == 0 else c.rjust(w)
-                for i, (c, w) in enumerate(zip(r, widths, strict=True))
-            )
-        )
-    lines += ["", CAUTION]
-    return "\n".join(lines)
+    return "\n".join([head, "", *_text_table(heads, rows, left=2), "", CAUTION])

@@ -2,9 +2,11 @@ r"""The real lap against the ideal one, corner by corner.
 
 :func:`compare_lap` puts the real lap and the ideal :class:`~limitlap.solve.Profile` on
 the same distance axis, on the corners of :mod:`limitlap.corners`: time delta along the
-lap, and per corner the time left, minimum speeds, brake points, where full drive begins,
-peak lateral acceleration, the share of grip used, the time left split into braking,
-mid-corner and exit phases, and one plain-language line for the driver.
+lap, and per corner the time left, the corner record of each lap (brake points, entry,
+minimum and exit speeds, full drive: :func:`limitlap.markers.corner_marks`), peak
+lateral acceleration, the share of grip used, the time left split into approach,
+braking, mid-corner and exit phases, and one plain-language line for the driver
+(:mod:`limitlap.advice`). The pedal traces the report draws come from here too.
 
 Segment times are differences of elapsed time interpolated at the segment boundaries,
 so the corners' times telescope to the lap time: the corners' time left adds up to the
@@ -14,6 +16,8 @@ lap's (docs/outputs.md, summary.json). Distances are metres from the gate, in
 
 from __future__ import annotations
 
+import dataclasses
+import itertools
 import math
 from collections.abc import Mapping, Sequence
 from dataclasses import dataclass
@@ -21,17 +25,22 @@ from dataclasses import dataclass
 import numpy as np
 
 from limitlap import limits
+from limitlap.advice import (
+    TIME_RESOLUTION_S,
+    CornerDifferences,
+    advice_line,
+    distance_resolution_m,
+)
 from limitlap.corners import Corner, segment_index
 from limitlap.driven import elapsed_from_gate
-from limitlap.errors import LimitlapError
-from limitlap.formatting import hundredths, metres
+from limitlap.errors import LimitlapError, WarningLine
 from limitlap.line import Line
 from limitlap.markers import (
-    BRAKE_PRESSURE_SHARE,
+    Marks,
     Trace,
-    corner_markers,
-    station_accel,
-    unwrap_after,
+    actual_pedal_shares,
+    corner_marks,
+    ideal_trace,
     unwrapped_bounds,
     wrap_distance,
     zone_u,
@@ -43,6 +52,10 @@ from limitlap.vehicle import Vehicle
 #: Stations where the ideal's combined usage is at least this count as grip-limited; a
 #: corner's grip used is measured there only (common practice, no published source). [-]
 GRIP_LIMITED_USAGE = 0.95
+
+#: A lap quicker than the ideal in at least this share of its corners beats the grip
+#: scale "everywhere": the scale is too low (common practice, no published source). [-]
+BEATEN_SHARE = 0.75
 
 
 # ----------------------------------------------------------------------------------
@@ -57,35 +70,58 @@ def _none_if_nan(x):
     return None if not math.isfinite(x) else x
 
 
+def _kmh(x):
+    return _none_if_nan(x / KMH_TO_M_S)
+
+
+def _metres(points):
+    return [float(x) for x in points]
+
+
 @dataclass(frozen=True)
 class CornerComparison:
     """One corner of the real lap against the ideal (SI; NaN where not found).
 
+    The corner's record (docs/methods.md, Corner record) for both laps, and what
+    tells them apart.
+
     Attributes
     ----------
-    name, direction : str
-        Corner name; 'left' or 'right'.
+    name, direction, label, note : str
+        Corner name; 'left' or 'right'; the track file's label and note (:class:`Corner`).
     start_m, apex_m, end_m, turn_in_m, exit_m : float
         As :class:`Corner` (from the gate). [m]
     apexes_m : tuple of float
         Every apex of the corner. [m]
+    apex_names : tuple of str
+        The track file's name of each apex. [-]
     actual_s, ideal_s, time_left_s : float
         Segment time of the real lap and of the ideal, and their difference
         (+ = the real lap is slower). [s]
-    time_left_braking_s, time_left_mid_s, time_left_exit_s : float
-        Time left from the segment start to where the ideal stops braking, from there to
-        where the ideal is at full drive, and from there to the segment end; they add up
-        to ``time_left_s``. [s]
+    time_left_approach_s, time_left_braking_s, time_left_mid_s, time_left_exit_s : float
+        Time left from the segment start to the first brake point of either lap (the
+        approach, where time carried from the corner before shows), from there to where
+        the ideal's last minimum is, from there to where the ideal is at full drive,
+        and from there to the segment end; they add up to ``time_left_s``. [s]
+    brake_points_actual_m, brake_points_ideal_m : tuple of float
+        Start of every deceleration into the corner (a lift counts). [m]
+    brake_start_actual_m, brake_start_ideal_m : float
+        The first of them; NaN without braking. [m]
+    entry_speed_actual_m_s, entry_speed_ideal_m_s : float
+        Speed at the first brake point; NaN without one. [m/s]
     min_speed_actual_m_s, min_speed_ideal_m_s : float
-        Lowest speed from turn-in to exit (the curvature zone). [m/s]
+        The corner's lowest minimum of speed, or the speed at the apex for a corner
+        taken without slowing. [m/s]
     min_speed_actual_at_m, min_speed_ideal_at_m : float
         Where it is. [m]
-    brake_start_actual_m, brake_start_ideal_m : float
-        Where the braking that leads into the corner starts; NaN without braking. [m]
+    own_minimum_actual, own_minimum_ideal : bool
+        The lap slows in the corner (has a minimum of its own there).
+    exit_speed_actual_m_s, exit_speed_ideal_m_s : float
+        Speed where the curvature zone ends. [m/s]
     brake_later_m : float
-        How much later the ideal brakes (+ = later). [m]
+        How much later the ideal's first brake point is (+ = later). [m]
     full_drive_actual_m, full_drive_ideal_m : float
-        Where full drive begins after the minimum speed. [m]
+        Where full drive begins after the corner's last minimum. [m]
     full_drive_sooner_m : float
         How much sooner the ideal is at full drive (+ = sooner). [m]
     peak_accel_lat_actual_m_s2, peak_accel_lat_ideal_m_s2 : float
@@ -95,9 +131,7 @@ class CornerComparison:
         the limit: over the segment's stations where the ideal's combined usage
         (:func:`limitlap.limits.combined_usage`) is at least 0.95, the mean of real
         usage over ideal usage, weighted by the real lap's time there; clipped to 0-1.
-        About 1 in a corner driven at the limit, lower where grip was left unused
-        (early braking, a lift, late throttle). NaN where the ideal is nowhere
-        grip-limited in the segment (a flat-out kink). [-]
+        NaN where the ideal is nowhere grip-limited in the segment (a flat-out kink). [-]
     grip_used_raw : float
         The same before clipping (above 1 where the lap went outside the envelope). [-]
     grip_estimate : float or None
@@ -110,24 +144,36 @@ class CornerComparison:
 
     name: str
     direction: str
+    label: str
+    note: str
     start_m: float
     apex_m: float
     apexes_m: tuple[float, ...]
+    apex_names: tuple[str, ...]
     end_m: float
     turn_in_m: float
     exit_m: float
     actual_s: float
     ideal_s: float
     time_left_s: float
+    time_left_approach_s: float
     time_left_braking_s: float
     time_left_mid_s: float
     time_left_exit_s: float
+    brake_points_actual_m: tuple[float, ...]
+    brake_points_ideal_m: tuple[float, ...]
+    brake_start_actual_m: float
+    brake_start_ideal_m: float
+    entry_speed_actual_m_s: float
+    entry_speed_ideal_m_s: float
     min_speed_actual_m_s: float
     min_speed_actual_at_m: float
     min_speed_ideal_m_s: float
     min_speed_ideal_at_m: float
-    brake_start_actual_m: float
-    brake_start_ideal_m: float
+    own_minimum_actual: bool
+    own_minimum_ideal: bool
+    exit_speed_actual_m_s: float
+    exit_speed_ideal_m_s: float
     brake_later_m: float
     full_drive_actual_m: float
     full_drive_ideal_m: float
@@ -145,7 +191,6 @@ class CornerComparison:
 
         NaN becomes ``None`` (JSON null); values are not rounded.
         """
-        k = 1.0 / KMH_TO_M_S
         d = {
             "name": self.name,
             "start_m": self.start_m,
@@ -154,23 +199,40 @@ class CornerComparison:
             "actual_s": self.actual_s,
             "ideal_s": self.ideal_s,
             "time_left_s": self.time_left_s,
-            "min_speed_actual_kmh": _none_if_nan(self.min_speed_actual_m_s * k),
-            "min_speed_ideal_kmh": _none_if_nan(self.min_speed_ideal_m_s * k),
+            "min_speed_actual_kmh": _kmh(self.min_speed_actual_m_s),
+            "min_speed_ideal_kmh": _kmh(self.min_speed_ideal_m_s),
             "brake_start_actual_m": _none_if_nan(self.brake_start_actual_m),
             "brake_start_ideal_m": _none_if_nan(self.brake_start_ideal_m),
             "grip_used": _none_if_nan(self.grip_used),
         }
-        extras = {
+        d.update(self._extras())
+        return d
+
+    def _extras(self) -> dict:
+        """The keys after the interface's twelve (docs/outputs.md, summary.json)."""
+        return {
             "rank": self.rank,
+            "label": self.label,
             "direction": self.direction,
             "apexes_m": list(self.apexes_m),
+            "apex_names": list(self.apex_names),
+            "note": self.note,
             "turn_in_m": self.turn_in_m,
             "exit_m": self.exit_m,
+            "time_left_approach_s": self.time_left_approach_s,
             "time_left_braking_s": self.time_left_braking_s,
             "time_left_mid_s": self.time_left_mid_s,
             "time_left_exit_s": self.time_left_exit_s,
+            "brake_points_actual_m": _metres(self.brake_points_actual_m),
+            "brake_points_ideal_m": _metres(self.brake_points_ideal_m),
+            "entry_speed_actual_kmh": _kmh(self.entry_speed_actual_m_s),
+            "entry_speed_ideal_kmh": _kmh(self.entry_speed_ideal_m_s),
             "min_speed_actual_at_m": _none_if_nan(self.min_speed_actual_at_m),
             "min_speed_ideal_at_m": _none_if_nan(self.min_speed_ideal_at_m),
+            "own_minimum_actual": self.own_minimum_actual,
+            "own_minimum_ideal": self.own_minimum_ideal,
+            "exit_speed_actual_kmh": _kmh(self.exit_speed_actual_m_s),
+            "exit_speed_ideal_kmh": _kmh(self.exit_speed_ideal_m_s),
             "brake_later_m": _none_if_nan(self.brake_later_m),
             "full_drive_actual_m": _none_if_nan(self.full_drive_actual_m),
             "full_drive_ideal_m": _none_if_nan(self.full_drive_ideal_m),
@@ -181,8 +243,6 @@ class CornerComparison:
             "grip_estimate": _none_if_nan(self.grip_estimate),
             "advice": self.advice,
         }
-        d.update(extras)
-        return d
 
 
 @dataclass(frozen=True, eq=False)
@@ -207,6 +267,14 @@ class LapComparison:
         Grip scale the lap actually used (from the envelope module), when given. [-]
     corners : tuple of CornerComparison
         In driving order; :meth:`ranked` sorts them by time left.
+    brake_share_actual, drive_share_actual, brake_share_ideal, drive_share_ideal : numpy.ndarray
+        The pedal traces at the stations, 0-1: the real lap's pedals where logged (else
+        its acceleration's share of the limits), the ideal's drawn phase by phase
+        (:func:`limitlap.markers.ideal_pedal_shares`). [-]
+    throttle_logged, brake_logged : bool
+        The real lap's drive and brake traces are its pedals.
+    warnings : tuple of str
+        What the comparison found about the grip scale itself.
     """
 
     distance_m: np.ndarray
@@ -220,6 +288,13 @@ class LapComparison:
     grip_scale: float
     grip_estimate: float | None
     corners: tuple[CornerComparison, ...]
+    brake_share_actual: np.ndarray | None = None
+    drive_share_actual: np.ndarray | None = None
+    brake_share_ideal: np.ndarray | None = None
+    drive_share_ideal: np.ndarray | None = None
+    throttle_logged: bool = False
+    brake_logged: bool = False
+    warnings: tuple[str, ...] = ()
 
     def ranked(self) -> list[CornerComparison]:
         """Corners from most to least time left."""
@@ -229,70 +304,21 @@ class LapComparison:
         """:meth:`CornerComparison.summary_dict` of every corner (driving order or ranked)."""
         return [c.summary_dict() for c in (self.ranked() if ranked else self.corners)]
 
+    def time_left_words(self) -> str:
+        """The lap's time left in words when it is negative; empty otherwise.
 
-#: A corner driven this much quicker than the ideal (and no marker apart) is called out:
-#: a corner's time is good to about a hundredth of a second (100 Hz rows, interpolated
-#: along distance), so less than two hundredths is the ideal's time within the
-#: measurement. Common practice, no published source. [s]
-QUICKER_THAN_IDEAL_S = 0.02
-
-
-def advice_line(name, time_left_s, brake_later_m, min_speed_gain_m_s, full_drive_sooner_m):
-    """One line a driver understands, e.g. "T6: 0.21 s — the ideal brakes 12 m later, ...".
-
-    Parameters
-    ----------
-    name : str
-        Corner name.
-    time_left_s : float
-        Time left in the corner. [s]
-    brake_later_m : float
-        How much later the ideal brakes; NaN when unknown. [m]
-    min_speed_gain_m_s : float
-        Ideal minus real minimum speed. [m/s]
-    full_drive_sooner_m : float
-        How much sooner the ideal is at full drive; NaN when unknown. [m]
-
-    Returns
-    -------
-    str
-        Speeds in km/h, distances in m. Differences under 2 m or 1 km/h are left out
-        (common practice: engineers discuss brake points to a few metres and apex speeds
-        to 1-2 km/h, docs/methods.md, Rules of thumb).
-
-    Examples
-    --------
-    >>> advice_line("T6", 0.21, 12.0, 6 / 3.6, 15.0)
-    'T6: 0.21 s — the ideal brakes 12 m later, carries 6 km/h more at the minimum, and is at full drive 15 m sooner'
-    """
-    parts = []
-    if math.isfinite(brake_later_m) and abs(brake_later_m) >= 2.0:
-        parts.append(
-            f"the ideal brakes {metres(brake_later_m)} "
-            f"{'later' if brake_later_m > 0 else 'earlier'}"
+        >>> import numpy as np
+        >>> c = LapComparison(np.zeros(1), 1.0, np.zeros(1), np.zeros(1), np.zeros(1),
+        ...                   80.0, 82.5, -2.5, 0.8, None, ())
+        >>> c.time_left_words()
+        'the lap is 2.50 s quicker than the ideal at grip scale 0.80: it used more grip than that scale allows'
+        """
+        if not self.time_left_s <= -TIME_RESOLUTION_S:
+            return ""
+        return (
+            f"the lap is {-self.time_left_s:.2f} s quicker than the ideal at grip scale "
+            f"{self.grip_scale:.2f}: it used more grip than that scale allows"
         )
-    dv_kmh = min_speed_gain_m_s / KMH_TO_M_S
-    if math.isfinite(dv_kmh) and abs(dv_kmh) >= 1.0:
-        parts.append(
-            f"carries {abs(dv_kmh):.0f} km/h {'more' if dv_kmh > 0 else 'less'} at the minimum"
-        )
-    if math.isfinite(full_drive_sooner_m) and abs(full_drive_sooner_m) >= 2.0:
-        parts.append(
-            f"is at full drive {metres(full_drive_sooner_m)} "
-            f"{'sooner' if full_drive_sooner_m > 0 else 'later'}"
-        )
-    head = f"{name}: {hundredths(time_left_s):.2f} s"
-    if not parts:
-        if time_left_s <= -QUICKER_THAN_IDEAL_S:
-            return f"{head} — quicker than the ideal here; the envelope may be set too low"
-        return f"{head} — same brake point, minimum speed and drive point as the ideal"
-    if parts[0].startswith("carries") or parts[0].startswith("is at"):
-        parts[0] = "the ideal " + parts[0]
-    if len(parts) == 1:
-        text = parts[0]
-    else:
-        text = ", ".join(parts[:-1]) + ", and " + parts[-1]
-    return f"{head} — {text}"
 
 
 def _driven_channels(driven, line: Line):
@@ -320,14 +346,6 @@ def _driven_channels(driven, line: Line):
         return np.where(np.isfinite(a), a, fallback)
 
     return v, pick("accel_lon_m_s2", ax_from_v), pick("accel_lat_m_s2", ay_from_k)
-
-
-def _optional_channel(driven, name):
-    a = getattr(driven, name, None)
-    if a is None:
-        return None
-    a = np.asarray(a, dtype=np.float64)
-    return a if np.isfinite(a).any() else None
 
 
 def _per_corner_values(values, corners, what):
@@ -366,7 +384,7 @@ def compare_lap(
     vehicle : Vehicle
         Complete envelope at grip scale 1.
     corners : sequence of Corner
-        From :func:`find_corners` on ``driven.line``.
+        From :func:`limitlap.corners.find_corners` on ``driven.line``.
     grip_scale : float, optional
         Grip scale of the envelope the lap is measured against; default the ideal's. [-]
     grip_estimate : float, optional
@@ -385,16 +403,13 @@ def compare_lap(
     -----
     Segment times are elapsed-time differences at the segment bounds (linear in
     distance between stations), so they add up to the lap times and the corners' time
-    left to the lap's (docs/outputs.md, summary.json). Minimum speed, brake point and
-    full drive are :func:`limitlap.markers.corner_markers` on each lap: braking is brake
-    pressure over 5 % of the lap's 99th-percentile pressure, else a_x below -2.5 m/s²;
-    full drive is throttle ≥ 98 %, else (and always for the ideal) a_x at 90 % of what
-    the envelope leaves after the lateral demand; the ideal's brake point is taken from
-    its speed profile, so a trail-braking dip does not split the zone. Grip used is the
-    real lap's time-weighted mean of combined usage (:func:`limitlap.limits.combined_usage`)
-    over the ideal's where the ideal is grip-limited (usage ≥ 0.95). The time-left
-    phases are cut where the ideal stops braking and where it reaches full drive.
-    Thresholds are common practice (docs/methods.md, Corners and comparison).
+    left to the lap's (docs/outputs.md, summary.json). Each lap's corner record is
+    :func:`limitlap.markers.corner_marks` on its trace; the ideal's trace is
+    :func:`limitlap.markers.ideal_trace`, the one the target tables read. Grip used is
+    the real lap's time-weighted mean of combined usage
+    (:func:`limitlap.limits.combined_usage`) over the ideal's where the ideal is
+    grip-limited (usage ≥ 0.95). Thresholds are common practice (docs/methods.md,
+    Corners and comparison).
     """
     line = driven.line
     if ideal.speed_m_s.shape[0] != line.n or not np.allclose(ideal.distance_m, line.distance_m):
@@ -404,13 +419,13 @@ def compare_lap(
     sin_grad = np.asarray(line.gradient) / np.sqrt(1.0 + np.asarray(line.gradient) ** 2)
     channels = (*elapsed_from_gate(driven), *_driven_channels(driven, line))
     t_act, lap_act, v_act, _, _ = channels
-    actual, brake_thr, has_throttle = _actual_trace(driven, env, sin_grad, channels)
-    best = _ideal_trace(ideal, line, env, sin_grad)
+    actual, logged = _actual_trace(driven, env, sin_grad, channels)
+    best = ideal_trace(ideal, line, env)
     grip_estimate, grips = _grip_values(
         channels, vehicle, line, corners, grip_estimate, corner_grip_estimates
     )
-    rows = _corner_rows(corners, grips, actual, best, brake_thr, has_throttle)
-    return LapComparison(
+    rows = _corner_rows(corners, grips, actual, best)
+    cmp_ = LapComparison(
         distance_m=np.asarray(line.distance_m, dtype=np.float64).copy(),
         length_m=actual.length,
         speed_actual_m_s=v_act,
@@ -422,7 +437,35 @@ def compare_lap(
         grip_scale=k,
         grip_estimate=None if grip_estimate is None else float(grip_estimate),
         corners=tuple(CornerComparison(**r) for r in rows),
+        brake_share_actual=actual.lap_part(actual.brake_share),
+        drive_share_actual=actual.lap_part(actual.drive_share),
+        brake_share_ideal=best.lap_part(best.brake_share),
+        drive_share_ideal=best.lap_part(best.drive_share),
+        throttle_logged=logged[0],
+        brake_logged=logged[1],
     )
+    return dataclasses.replace(cmp_, warnings=scale_warnings(cmp_))
+
+
+def scale_warnings(cmp_: LapComparison) -> tuple[str, ...]:
+    """A warning when the lap beats the ideal nearly everywhere: the grip scale is too low.
+
+    The lap must be quicker than the ideal by more than :data:`TIME_RESOLUTION_S` and in
+    at least :data:`BEATEN_SHARE` of its corners; the warning suggests the grip the lap
+    showed when it is known.
+    """
+    corners = cmp_.corners
+    quicker = sum(c.time_left_s < 0.0 for c in corners)
+    if not (cmp_.time_left_s <= -TIME_RESOLUTION_S and quicker >= BEATEN_SHARE * len(corners)):
+        return ()
+    fact = (
+        "this lap used more grip than the scale allows: the scale is too low (the lap is "
+        f"{-cmp_.time_left_s:.2f} s quicker than the ideal at grip scale "
+        f"{cmp_.grip_scale:.2f}, and quicker in {quicker} of {len(corners)} corners)"
+    )
+    if cmp_.grip_estimate is not None and cmp_.grip_estimate > cmp_.grip_scale:
+        return (WarningLine(fact, hint="grip_scale", value=cmp_.grip_estimate),)
+    return (fact,)
 
 
 def _grip_values(channels, vehicle: Vehicle, line: Line, corners, grip_estimate, per_corner):
@@ -440,15 +483,16 @@ def _grip_values(channels, vehicle: Vehicle, line: Line, corners, grip_estimate,
     return grip_estimate, _per_corner_values(per_corner, corners, "corner grip estimates")
 
 
-def _corner_rows(corners, grips, actual: Trace, best: Trace, brake_thr, has_throttle):
+def _corner_rows(corners, grips, actual: Trace, best: Trace):
     """Every corner's :class:`CornerComparison` fields in driving order, ranked.
 
     ``rank`` 1 is the corner with most time left; the rest as :func:`_corner_row`.
     """
     bounds = unwrapped_bounds(corners, actual.length, actual.closed)
+    m = len(corners)
     rows = [
-        _corner_row(c, bound, g, actual, best, brake_thr, has_throttle)
-        for c, bound, g in zip(corners, bounds, grips, strict=True)
+        _corner_row(c, corners[j - 1].name if m > 1 else "", bound, g, actual, best)
+        for j, (c, bound, g) in enumerate(zip(corners, bounds, grips, strict=True))
     ]
     order = sorted(range(len(rows)), key=lambda i: -rows[i]["time_left_s"])
     for r, i in enumerate(order):
@@ -456,18 +500,16 @@ def _corner_rows(corners, grips, actual: Trace, best: Trace, brake_thr, has_thro
     return rows
 
 
-def _brake_threshold(brake):
-    """Brake pressure that counts as braking: a share of the lap's 99th percentile. [Pa]."""
-    if brake is None:
+def _optional_channel(driven, name):
+    a = getattr(driven, name, None)
+    if a is None:
         return None
-    p99 = float(np.nanquantile(brake, 0.99))
-    if not p99 > 0:  # braking on under 1 % of the lap: take the highest pressure
-        p99 = float(np.nanmax(brake))
-    return BRAKE_PRESSURE_SHARE * p99 if p99 > 0 else None
+    a = np.asarray(a, dtype=np.float64)
+    return a if np.isfinite(a).any() else None
 
 
 def _actual_trace(driven, env: Vehicle, sin_grad, channels):
-    """The real lap as a :class:`Trace`, its brake threshold [Pa] and whether it has throttle.
+    """The real lap as a :class:`Trace`, and whether its throttle and brake are logged.
 
     ``channels`` are the elapsed time from the gate per station and the lap time
     (:func:`limitlap.driven.elapsed_from_gate`) [s], then speed [m/s] and longitudinal
@@ -477,7 +519,9 @@ def _actual_trace(driven, env: Vehicle, sin_grad, channels):
     t_act, lap_act, v_act, ax_act, ay_act = channels
     brake = _optional_channel(driven, "brake_pa")
     throttle = _optional_channel(driven, "throttle")
-    brake_thr = _brake_threshold(brake)
+    if brake is not None and not np.nanmax(brake) > 0:
+        brake = None
+    brake_share, drive_share = actual_pedal_shares(v_act, ax_act, env, throttle, brake)
     trace = Trace(
         line.distance_m,
         float(line.length_m),
@@ -487,96 +531,119 @@ def _actual_trace(driven, env: Vehicle, sin_grad, channels):
         v_act,
         ax_act,
         ay_act,
-        limits.drive_accel_available_m_s2(v_act, ay_act, env, sin_grad),
-        brake=brake if brake_thr is not None else None,
-        throttle=throttle,
+        brake_share,
+        drive_share,
+        pedal=throttle is not None,
         usage=limits.combined_usage(v_act, ax_act, ay_act, env, sin_grad),
         dwell=np.asarray(line.ds_m, dtype=np.float64) / np.maximum(v_act, 0.1),
     )
-    return trace, brake_thr, throttle is not None
+    return trace, (throttle is not None, brake is not None)
 
 
-def _ideal_trace(ideal: Profile, line: Line, env: Vehicle, sin_grad) -> Trace:
-    """The ideal profile as a :class:`Trace` on the real lap's stations."""
-    v_id = ideal.speed_m_s
-    ax_id = station_accel(ideal, line.closed)
-    return Trace(
-        line.distance_m,
-        float(line.length_m),
-        line.closed,
-        ideal.time_s,
-        ideal.lap_time_s,
-        v_id,
-        ax_id,
-        ideal.accel_lat_m_s2,
-        limits.drive_accel_available_m_s2(v_id, ideal.accel_lat_m_s2, env, sin_grad),
-        usage=limits.combined_usage(v_id, ax_id, ideal.accel_lat_m_s2, env, sin_grad),
-    )
+def _phase_cuts(c: Corner, ma: Marks, mi: Marks, start_u, end_u, length, closed):
+    """Where the approach, braking, mid-corner and exit phases meet (unwrapped). [m].
+
+    The approach ends at the first brake point of either lap (turn-in when neither
+    brakes); braking ends at the ideal's last minimum (turn-in when it does not slow);
+    mid-corner ends where the ideal is at full drive (the zone's exit when it is not).
+    """
+    z0, z1 = zone_u(c, start_u, length, closed)
+    firsts = [x for x in (ma.brake_start, mi.brake_start) if math.isfinite(x)]
+    cuts = [
+        min(firsts) if firsts else z0,
+        mi.last_min_at if mi.own_minimum else z0,
+        mi.full_drive if math.isfinite(mi.full_drive) else z1,
+    ]
+    out, low = [], start_u
+    for x in cuts:
+        low = min(max(x, low), end_u)
+        out.append(low)
+    return out
 
 
-def _phase_cuts(c: Corner, mi, start_u: float, end_u: float, length: float, closed: bool):
-    """Where the ideal stops braking and where it reaches full drive (unwrapped). [m]."""
-    cut_a = mi.brake_end
-    if not math.isfinite(cut_a):
-        cut_a = unwrap_after(c.turn_in_m, start_u, length, closed)
-    cut_b = mi.full_drive
-    if not math.isfinite(cut_b):
-        cut_b = unwrap_after(c.exit_m, start_u, length, closed)
-    cut_a = min(max(cut_a, start_u), end_u)
-    return cut_a, min(max(cut_b, cut_a), end_u)
-
-
-def _corner_row(c: Corner, bound, g, actual: Trace, best: Trace, brake_thr, has_throttle):
+def _corner_row(c: Corner, previous: str, bound, g, actual: Trace, best: Trace):
     """One corner's comparison as the fields of :class:`CornerComparison` (rank aside)."""
-    start_u, apex_u, end_u, lo, hi = bound
+    start_u, _, end_u, _, _ = bound
     length, closed = actual.length, actual.closed
     a_s = actual.time_at_mod(c.end_m) - actual.time_at_mod(c.start_m)
     i_s = best.time_at_mod(c.end_m) - best.time_at_mod(c.start_m)
     if closed and c.end_m <= c.start_m:
         a_s += actual.lap_time
         i_s += best.lap_time
-    zone = zone_u(c, start_u, length, closed)
-    ma = corner_markers(actual, lo, start_u, end_u, hi, brake_thr, has_throttle, zone, apex_u)
-    mi = corner_markers(best, lo, start_u, end_u, hi, None, False, zone, apex_u, profile_brake=True)
-    cut_a, cut_b = _phase_cuts(c, mi, start_u, end_u, length, closed)
-
-    def left(u0, u1):
-        return (actual.time_at(u1) - actual.time_at(u0)) - (best.time_at(u1) - best.time_at(u0))
-
+    ma, mi = corner_marks(actual, c, bound), corner_marks(best, c, bound)
+    cuts = [start_u, *_phase_cuts(c, ma, mi, start_u, end_u, length, closed), end_u]
+    phases = [
+        (actual.time_at(b) - actual.time_at(a)) - (best.time_at(b) - best.time_at(a))
+        for a, b in itertools.pairwise(cuts)
+    ]
     raw = _grip_used(actual, best, start_u, end_u)
-    later = mi.brake_start - ma.brake_start
-    sooner = ma.full_drive - mi.full_drive
+
+    def wrap(u):
+        return wrap_distance(u, length, closed)
+
+    diff = CornerDifferences(
+        name=c.name,
+        time_left_s=a_s - i_s,
+        approach_s=phases[0],
+        braking_s=phases[1],
+        mid_s=phases[2],
+        exit_s=phases[3],
+        brake_later_m=mi.brake_start - ma.brake_start,
+        min_speed_gain_m_s=mi.min_speed - ma.min_speed,
+        full_drive_sooner_m=ma.full_drive - mi.full_drive,
+        brake_resolution_m=distance_resolution_m(mi.entry_speed),
+        drive_resolution_m=distance_resolution_m(best.speed_at(mi.full_drive))
+        if math.isfinite(mi.full_drive)
+        else distance_resolution_m(math.nan),
+        previous=previous,
+        arrival_deficit_m_s=best.speed_at(start_u) - actual.speed_at(start_u),
+        ideal_without_slowing=not mi.own_minimum,
+        real_brake_m=wrap(ma.brake_start),
+        real_min_speed_m_s=ma.min_speed,
+    )
     return dict(
         name=c.name,
         direction=c.direction,
+        label=c.label,
+        note=c.note,
         start_m=c.start_m,
         apex_m=c.apex_m,
         apexes_m=c.apexes_m,
+        apex_names=c.apex_names,
         end_m=c.end_m,
         turn_in_m=c.turn_in_m,
         exit_m=c.exit_m,
         actual_s=a_s,
         ideal_s=i_s,
         time_left_s=a_s - i_s,
-        time_left_braking_s=left(start_u, cut_a),
-        time_left_mid_s=left(cut_a, cut_b),
-        time_left_exit_s=left(cut_b, end_u),
+        time_left_approach_s=phases[0],
+        time_left_braking_s=phases[1],
+        time_left_mid_s=phases[2],
+        time_left_exit_s=phases[3],
+        brake_points_actual_m=tuple(wrap(u) for u in ma.brake_points),
+        brake_points_ideal_m=tuple(wrap(u) for u in mi.brake_points),
+        brake_start_actual_m=wrap(ma.brake_start),
+        brake_start_ideal_m=wrap(mi.brake_start),
+        entry_speed_actual_m_s=ma.entry_speed,
+        entry_speed_ideal_m_s=mi.entry_speed,
         min_speed_actual_m_s=ma.min_speed,
-        min_speed_actual_at_m=wrap_distance(ma.min_at, length, closed),
+        min_speed_actual_at_m=wrap(ma.min_at),
         min_speed_ideal_m_s=mi.min_speed,
-        min_speed_ideal_at_m=wrap_distance(mi.min_at, length, closed),
-        brake_start_actual_m=wrap_distance(ma.brake_start, length, closed),
-        brake_start_ideal_m=wrap_distance(mi.brake_start, length, closed),
-        brake_later_m=later,
-        full_drive_actual_m=wrap_distance(ma.full_drive, length, closed),
-        full_drive_ideal_m=wrap_distance(mi.full_drive, length, closed),
-        full_drive_sooner_m=sooner,
+        min_speed_ideal_at_m=wrap(mi.min_at),
+        own_minimum_actual=ma.own_minimum,
+        own_minimum_ideal=mi.own_minimum,
+        exit_speed_actual_m_s=ma.exit_speed,
+        exit_speed_ideal_m_s=mi.exit_speed,
+        brake_later_m=diff.brake_later_m,
+        full_drive_actual_m=wrap(ma.full_drive),
+        full_drive_ideal_m=wrap(mi.full_drive),
+        full_drive_sooner_m=diff.full_drive_sooner_m,
         peak_accel_lat_actual_m_s2=ma.peak_lat,
         peak_accel_lat_ideal_m_s2=mi.peak_lat,
         grip_used=min(max(raw, 0.0), 1.0) if math.isfinite(raw) else math.nan,
         grip_used_raw=raw,
         grip_estimate=g,
-        advice=advice_line(c.name, a_s - i_s, later, mi.min_speed - ma.min_speed, sooner),
+        advice=advice_line(diff),
     )
 
 

@@ -29,21 +29,28 @@ from limitlap.line import Line
 SMOOTHING_M = 8.0
 
 
-#: A bend starts where |curvature| exceeds this (radius under 250 m)... [1/m]
-ENTER_CURVATURE_1_M = 1.0 / 250.0
+#: A bend starts where |curvature| exceeds this (radius under 600 m: a fast kink of
+#: 10° at a 500 m radius is a corner, taken at 0.8 g at 230 km/h)... [1/m]
+ENTER_CURVATURE_1_M = 1.0 / 600.0
 
 
-#: ... and lasts while |curvature| stays above this (radius under 500 m). [1/m]
-LEAVE_CURVATURE_1_M = 1.0 / 500.0
+#: ... and lasts while |curvature| stays above this (radius under 1200 m). [1/m]
+LEAVE_CURVATURE_1_M = 1.0 / 1200.0
 
 
-#: A bend must change the heading by at least this much to count (15°). [rad]
-MIN_TURN_RAD = math.radians(15.0)
+#: A bend must change the heading by at least this much to count (8°). [rad]
+MIN_TURN_RAD = math.radians(8.0)
 
 
 #: A second apex inside one bend needs a dip of |curvature| before it of at least this
 #: share of its own peak (peak prominence, as ``scipy.signal.find_peaks``). [-]
 APEX_PROMINENCE = 0.3
+
+
+#: An apex sits in the middle of the stretch where |curvature| stays within this share of
+#: its peak: the middle of a constant-radius arc, not wherever the noise of a rebuilt
+#: line (a few %) puts its highest point. [-]
+APEX_BAND = 0.03
 
 
 #: Same-direction bends closer than this form one corner with two apexes. [m]
@@ -59,16 +66,20 @@ APEX_OVERRUN = 0.01
 class Corner:
     """One corner and its segment of the lap (distances from the gate, SI).
 
+    The one corner record of docs/methods.md, Corner record: found once on a line and
+    used by every output (terminal, report, summary.json, target tables and sheets).
+
     Attributes
     ----------
     name : str
-        "T1", "T2", ... in driving order from the gate, or a given name.
+        "T1", "T2", ... in driving order from the gate, or the track file's name.
     start_m, end_m : float
         Segment bounds, in the middle of the straights either side; ``start_m > end_m``
         for the segment through the gate, ``start_m == end_m`` for one segment
         covering the whole lap. [m]
     apex_m : float
-        Main apex: the point of largest |curvature| (lowest cornering speed limit). [m]
+        Main apex: the apex of largest |curvature| (lowest cornering speed limit), in the
+        middle of the stretch within 3 % of that peak. [m]
     apexes_m : tuple of float
         Every apex in driving order (two or more for a compound corner). [m]
     turn_in_m, exit_m : float
@@ -77,6 +88,14 @@ class Corner:
         'left' (+ curvature, ISO 8855) or 'right'.
     peak_curvature_1_m : float
         Smoothed curvature at the main apex, signed. [1/m]
+    label : str
+        The track file's longer name ("Kettle Hairpin"); empty without one.
+    apex_names : tuple of str
+        The track file's name of each apex of ``apexes_m`` ("T11", "T11b"), empty where
+        it names none (or without a track file).
+    note : str
+        What the data says about the track file's corners here: a named corner kept as
+        a further apex of this one, or one the line shows no bend for. Empty otherwise.
     """
 
     name: str
@@ -88,6 +107,9 @@ class Corner:
     exit_m: float
     direction: str
     peak_curvature_1_m: float
+    label: str = ""
+    apex_names: tuple[str, ...] = ()
+    note: str = ""
 
 
 def smoothed_curvature(line: Line, smoothing_m: float = SMOOTHING_M) -> np.ndarray:
@@ -201,6 +223,7 @@ def find_corners(
     merge_gap_m: float = MERGE_GAP_M,
     apexes_m: Sequence[float] | None = None,
     apexes_from: str | None = None,
+    labels: Sequence[str] | None = None,
 ) -> list[Corner]:
     r"""Corners of a line from its curvature, with segments that tile the lap.
 
@@ -223,6 +246,9 @@ def find_corners(
     apexes_from : str, optional
         The file the names and apexes come from (a track file): a refused apex is an
         :class:`~limitlap.errors.InputError` naming it. [-]
+    labels : sequence of str, optional
+        The longer name of each of ``names`` ("" for none), carried as the corners'
+        ``label``. [-]
     smoothing_m : float
         Gaussian smoothing of curvature (standard deviation). [m]
     enter_curvature_1_m, leave_curvature_1_m : float
@@ -241,9 +267,10 @@ def find_corners(
 
     Notes
     -----
-    The apexes of a bend are the stations of locally largest smoothed |curvature|
-    whose peak stands out by at least 30 % of its height (the middle of the run when
-    the value is a plateau, as on a constant-radius arc); the main apex is the largest. For
+    The apexes of a bend are the peaks of smoothed |curvature| that stand out by at
+    least 30 % of their height, each in the middle of the stretch within
+    :data:`APEX_BAND` of its peak (the middle of a constant-radius arc); the main apex
+    is the one of largest |curvature|. For
     every vehicle of docs/formats.md, Vehicle files the cornering speed limit
     :math:`v^2 = \mu g / (|\kappa| - \mu k_z/m)` is strictly decreasing in
     :math:`|\kappa|` where grip limits at all, so these are the local minima of the
@@ -266,12 +293,53 @@ def find_corners(
     if named is not None:
         idx, u = frame
         merged = _place_named_apexes(
-            merged, named, u, idx, np.abs(ks), ks, float(line.length_m), line.closed
+            merged,
+            named,
+            u,
+            idx,
+            np.abs(ks),
+            ks,
+            float(line.length_m),
+            line.closed,
+            leave_curvature_1_m,
         )
     out = _corner_records(merged, float(line.length_m), line.closed)
     if named is not None:
-        return _names_from_track(out, merged)
-    return _names_in_order(out, names)
+        found = _names_from_track(out, merged, float(line.length_m), line.closed)
+    else:
+        found = _names_in_order(out, names)
+    if names is not None and labels is not None:
+        by_name = {str(n): str(lb) for n, lb in zip(names, labels, strict=True) if lb}
+        found = [replace(c, label=by_name.get(c.name, "")) for c in found]
+    return found
+
+
+def track_corners(line: Line, track=None) -> list[Corner]:
+    """The corners of ``line``, named, labelled and placed as a track file says.
+
+    The one way every command finds its corners (docs/methods.md, Corner record).
+
+    Parameters
+    ----------
+    line : Line
+        The lap's line.
+    track : ingest.Track, optional
+        Its ``corner_names``, ``corner_labels``, ``corner_apexes_m`` and ``path``; None
+        (or a track without corners): T1, T2, ... in driving order. [-]
+
+    Returns
+    -------
+    list of Corner
+    """
+    if track is None or not track.corner_names:
+        return find_corners(line)
+    return find_corners(
+        line,
+        list(track.corner_names),
+        apexes_m=list(track.corner_apexes_m),
+        apexes_from=track.path,
+        labels=list(track.corner_labels),
+    )
 
 
 def _run_aligned_frame(line: Line, state: np.ndarray):
@@ -314,13 +382,15 @@ def _bends(line: Line, ks, state, frame, enter_curvature_1_m, min_turn_rad) -> l
         zm = mag[seg]
         if zm.max() <= enter_curvature_1_m or float(np.sum(zm * ds[seg])) < min_turn_rad:
             continue
-        tol = 1e-9 * zm.max()
         peaks, prominences = peak_prominences(np.concatenate([[0.0], zm, [0.0]]))
         keep = prominences >= APEX_PROMINENCE * zm[peaks - 1]
-        apex_js = {plateau_middle(zm, int(p) - 1, tol) for p in peaks[keep]}
-        apex_js.add(plateau_middle(zm, int(np.argmax(zm)), tol))
-        apexes = [(u[i0 + j], zm[j], ks[seg[j]]) for j in sorted(apex_js)]
-        zones.append([u[i0], u[i1], int(st[i0]), apexes, []])
+        tops = [int(p) - 1 for p in peaks[keep]] + [int(np.argmax(zm))]
+        apex_at = {}  # station of each apex -> the |curvature| of its peak
+        for top in tops:
+            j = plateau_middle(zm, top, APEX_BAND * zm[top])
+            apex_at[j] = max(apex_at.get(j, 0.0), float(zm[top]))
+        apexes = [(u[i0 + j], apex_at[j], ks[seg[j]]) for j in sorted(apex_at)]
+        zones.append([u[i0], u[i1], int(st[i0]), apexes, [], []])
     return zones
 
 
@@ -356,6 +426,7 @@ def _merge_bends(zones: list, merge_gap_m: float, length: float, closed: bool) -
         if z[2] == last[2] and z[0] - last[1] < merge_gap_m:
             last[1] = z[1]
             last[3].extend(z[3])
+            last[5].extend(z[5])
         else:
             merged.append(z)
     if closed and len(merged) > 1:
@@ -363,6 +434,7 @@ def _merge_bends(zones: list, merge_gap_m: float, length: float, closed: bool) -
         if first[2] == last[2] and first[0] + length - last[1] < merge_gap_m:
             last[1] = first[1] + length
             last[3].extend((a + length, m, k) for a, m, k in first[3])
+            last[5].extend(first[5])
             merged.pop(0)
     return merged
 
@@ -408,21 +480,41 @@ def _corner_records(merged: list, length: float, closed: bool) -> list[Corner]:
     return out
 
 
-def _names_from_track(out: list[Corner], merged: list) -> list[Corner]:
-    """Corners named by the track file's apexes placed in them; unnamed ones get a "+"."""
+def _names_from_track(out: list[Corner], merged: list, length: float, closed: bool):
+    """Corners named by the track file's apexes placed in them; unnamed ones get a "+".
+
+    The first name placed in a zone names the corner; every name is given to the apex
+    nearest its own ``apex_m`` (``apex_names``), and a further name in the same zone is
+    said in the corner's ``note``, as is a named apex where the line shows no bend.
+    """
     order = sorted(range(len(out)), key=lambda j: out[j].apex_m)
     final, prev = [], None
     for j in order:
-        nm = merged[j][4][0][1] if merged[j][4] else None
+        zone = merged[j]
+        nm = zone[4][0][1] if zone[4] else None
         if nm is None:  # a bend found that the track file does not name
             nm = f"{prev}+" if prev is not None else "start+"
         else:
             prev = nm
-        final.append((out[j], nm))
+        final.append((j, nm))
     if final and final[0][1] == "start+":  # name it after the last named corner
         last_named = next((nm for _, nm in reversed(final) if not nm.endswith("+")), "T")
         final[0] = (final[0][0], f"{last_named}+")
-    return [_renamed(c, nm) for c, nm in final]
+    result = []
+    for j, nm in final:
+        zone, c = merged[j], out[j]
+        apexes_u = sorted(a[0] for a in zone[3])
+        given = [""] * len(apexes_u)
+        for ua, name in zone[4]:
+            k = int(np.argmin([abs(x - ua) for x in apexes_u]))
+            given[k] = given[k] or name
+        notes = list(zone[5])
+        for ua, name in zone[4][1:]:
+            k = int(np.argmin([abs(x - ua) for x in apexes_u]))
+            at = float(np.mod(apexes_u[k], length)) if closed else apexes_u[k]
+            notes.append(f"{name} is a further apex of {nm} at {at:.0f} m (one bend in the line)")
+        result.append(replace(c, name=nm, apex_names=tuple(given), note="; ".join(notes)))
+    return result
 
 
 def _names_in_order(out: list[Corner], names) -> list[Corner]:
@@ -440,11 +532,15 @@ def _renamed(c: Corner, name: str) -> Corner:
     return replace(c, name=name)
 
 
-def _place_named_apexes(zones, named, u, idx, mag, ks, length, closed, slack_m=10.0, snap_m=15.0):
+def _place_named_apexes(
+    zones, named, u, idx, mag, ks, length, closed, bend_1_m, slack_m=10.0, snap_m=15.0
+):
     """Attach (apex_m, name) pairs to curvature zones; make zones for unmatched apexes.
 
     ``u`` is the unwrapped station distance of the work arrays (``idx`` maps to
-    stations), zones are [turn_in, exit, direction, apexes, names] on that axis.
+    stations), zones are [turn_in, exit, direction, apexes, names, notes] on that axis.
+    A named apex outside every zone whose |curvature| nearby stays under ``bend_1_m``
+    [1/m] is kept as a corner with a note that the line shows no bend there.
     """
     u0 = float(u[0])
     n = u.shape[0]
@@ -475,7 +571,16 @@ def _place_named_apexes(zones, named, u, idx, mag, ks, length, closed, slack_m=1
             lo -= 1
         while hi < n - 1 and mag[idx[hi + 1]] >= 0.5 * peak and np.sign(ks[idx[hi + 1]]) == sign:
             hi += 1
-        zones.append([float(u[lo]), float(u[hi]), int(sign) if sign else 1, [apex], [(ua, name)]])
+        note = []
+        if peak < bend_1_m:
+            note.append(
+                f"the line shows no bend at {name}'s apex_m ({a:.0f} m): its largest "
+                f"curvature nearby is a radius of {1.0 / max(peak, 1e-9):.0f} m; kept, "
+                "and read where the track file puts it"
+            )
+        zones.append(
+            [float(u[lo]), float(u[hi]), int(sign) if sign else 1, [apex], [(ua, name)], note]
+        )
     zones.sort(key=lambda z: z[0])
     for z in zones:
         z[4].sort()

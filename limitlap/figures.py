@@ -37,7 +37,7 @@ import threading
 
 import numpy as np
 
-from limitlap.formatting import lap_time
+from limitlap.formatting import NOT_AVAILABLE, distance, lap_time, seconds, speed_kmh
 from limitlap.units import G0_M_S2, KMH_TO_M_S
 
 # Okabe-Ito colours [1].
@@ -792,7 +792,8 @@ def detail_figure(corner, distance_m, length_m, real, ideal, caption="") -> byte
     ----------
     corner : dict
         ``name``, ``start_m``, ``apex_m``, ``end_m``, and where known
-        ``brake_start_actual_m``, ``brake_start_ideal_m`` [m].
+        ``brake_points_actual_m``, ``brake_points_ideal_m`` (lists; or the first only,
+        ``brake_start_actual_m``, ``brake_start_ideal_m``) [m].
     distance_m : array-like
         Stations of the lap. [m]
     length_m : float
@@ -844,12 +845,15 @@ def detail_figure(corner, distance_m, length_m, real, ideal, caption="") -> byte
     xt = panels[0].auto_xticks(_FONT_PT)
     brakes = []
     for key, colour, word, y_frac, va in (
-        ("brake_start_ideal_m", IDEAL, "ideal brakes", 0.98, "top"),
-        ("brake_start_actual_m", REAL, "you brake", 0.02, "bottom"),
+        ("ideal", IDEAL, "ideal brakes", 0.98, "top"),
+        ("actual", REAL, "you brake", 0.02, "bottom"),
     ):
-        b = corner.get(key)
-        if b is not None and np.isfinite(b):
-            brakes.append((unwrap(b), colour, word, y_frac, va))
+        points = corner.get(f"brake_points_{key}_m")
+        if points is None:  # a record with the first brake point only
+            points = [corner.get(f"brake_start_{key}_m")]
+        for b in points:
+            if b is not None and np.isfinite(b):
+                brakes.append((unwrap(b), colour, word, y_frac, va))
     apex = unwrap(corner["apex_m"])
     rows = [
         ("speed [km/h]", v_ideal, v_real, (1.8, 1.3), None),
@@ -993,7 +997,7 @@ def best_figure(corners, lap_time_s, best_time_s, ideal_time_s, lap_label="this 
     left.barh(y, np.nan_to_num(above), [REAL, BEST, IDEAL], height=0.6)
     for yi, v, a in zip(y, values, above, strict=True):
         text = (
-            "n/a"
+            NOT_AVAILABLE
             if not np.isfinite(a)
             else f"{lap_time(v, decimals=2)}  (+{a:.2f} s)"
             if a > 0
@@ -1061,6 +1065,29 @@ def best_figure(corners, lap_time_s, best_time_s, ideal_time_s, lap_label="this 
 # --------------------------------------------------------------------------- target sheet
 
 
+def _sheet_rows(condition) -> list[list[str]]:
+    """The sheet's table cells, in the one rounding of every output (limitlap.formatting)."""
+    rows = []
+    for c in condition["corners"]:
+        points = [p for p in c.get("brake_points_m", []) if np.isfinite(p)]
+        if not points and np.isfinite(c.get("brake_start_m", np.nan)):
+            points = [c["brake_start_m"]]
+        rows.append(
+            [
+                str(c["name"]),
+                str(c.get("label", "")),
+                distance(c["apex_m"]),
+                " + ".join(distance(p) for p in points) if points else "no braking",
+                distance(c.get("before_apex_m")),
+                speed_kmh(c.get("entry_speed_m_s")),
+                speed_kmh(c["min_speed_m_s"]),
+                speed_kmh(c["exit_speed_m_s"]),
+                seconds(c["segment_time_s"]),
+            ]
+        )
+    return rows
+
+
 @_styled
 def target_sheet(condition, circuit_name: str, caution: str, fmt: str = "png") -> bytes:
     """One printable A4 page of targets for one condition, to take to the car.
@@ -1069,9 +1096,10 @@ def target_sheet(condition, circuit_name: str, caution: str, fmt: str = "png") -
     ----------
     condition : dict
         ``label`` (e.g. "wet"), ``grip_scale`` [-], ``lap_time_s`` [s], optionally
-        ``length_m`` [m], and ``corners``: records with ``name``, ``apex_m``,
-        ``brake_start_m`` and optionally ``before_apex_m`` [m], ``entry_speed_kmh``,
-        ``min_speed_kmh``, ``exit_speed_kmh`` [km/h] and ``segment_time_s`` [s].
+        ``car`` and ``date`` (printed under the heading), and ``corners``: records with
+        ``name``, ``label``, ``apex_m``, ``brake_points_m`` (or ``brake_start_m``),
+        ``before_apex_m`` [m], ``entry_speed_m_s``, ``min_speed_m_s``,
+        ``exit_speed_m_s`` [m/s] and ``segment_time_s`` [s].
     circuit_name : str
         Printed in the heading.
     caution : str
@@ -1090,7 +1118,6 @@ def target_sheet(condition, circuit_name: str, caution: str, fmt: str = "png") -
     from matplotlib.lines import Line2D
     from matplotlib.patches import Rectangle
 
-    corners = list(condition["corners"])
     fig.text(0.06, 0.965, f"{circuit_name}", fontsize=20, fontweight="bold", va="top")
     label = condition.get("label") or f"grip {condition['grip_scale']:.2f}"
     fig.text(
@@ -1100,6 +1127,9 @@ def target_sheet(condition, circuit_name: str, caution: str, fmt: str = "png") -
         fontsize=15,
         va="top",
     )
+    about = [x for x in (condition.get("car"), condition.get("date")) if x]
+    if about:
+        fig.text(0.06, 0.905, "  ·  ".join(about), fontsize=11, va="top", color="#444444")
     fig.text(0.94, 0.965, "target lap", fontsize=12, ha="right", va="top", color="#555555")
     fig.text(
         0.94,
@@ -1113,44 +1143,26 @@ def target_sheet(condition, circuit_name: str, caution: str, fmt: str = "png") -
     )
     header = [
         "corner",
-        "brake at\n[m from gate]",
-        "brake\n[m before apex]",
+        "",
+        "apex\n[m]",
+        "brake at\n[m]",
+        "before\napex [m]",
         "entry\n[km/h]",
-        "minimum\n[km/h]",
+        "min\n[km/h]",
         "exit\n[km/h]",
         "segment\n[s]",
     ]
-    rows = []
-    for c in corners:
-        brake = c.get("brake_start_m")
-        has_brake = brake is not None and np.isfinite(brake)
-        before = c.get("before_apex_m", c["apex_m"] - brake) if has_brake else None
-        length = condition.get("length_m")
-        if before is not None and before < 0 and length and np.isfinite(length):
-            before += length  # braking starts before the gate, the apex is after it
-        if before is not None and not (np.isfinite(before) and before >= 0):
-            before = None
-        rows.append(
-            [
-                str(c["name"]),
-                f"{brake:.0f}" if has_brake else "no braking",
-                f"{before:.0f}" if before is not None else "-",
-                f"{c['entry_speed_kmh']:.0f}",
-                f"{c['min_speed_kmh']:.0f}",
-                f"{c['exit_speed_kmh']:.0f}",
-                f"{c['segment_time_s']:.2f}",
-            ]
-        )
+    rows = _sheet_rows(condition)
     n = max(len(rows), 1)
-    top, bottom = 0.89, 0.19
+    top, bottom = 0.875, 0.215
     header_h = 0.04
     row_h = min(0.055, (top - header_h - bottom) / n)
-    font = max(7.0, min(18.0, row_h * 11.69 * 72 * 0.42))
-    cols_x = [0.06, 0.24, 0.40, 0.56, 0.68, 0.81, 0.94]
-    aligns = ["left"] + ["right"] * 6
+    font = max(7.0, min(13.0, row_h * 11.69 * 72 * 0.34))
+    cols_x = [0.06, 0.115, 0.38, 0.55, 0.645, 0.725, 0.8, 0.865, 0.95]
+    aligns = ["left", "left"] + ["right"] * 7
     y = top
     for x, h, al in zip(cols_x, header, aligns, strict=True):
-        fig.text(x, y, h, fontsize=11, ha=al, va="top", color="#444444", linespacing=1.1)
+        fig.text(x, y, h, fontsize=10, ha=al, va="top", color="#444444", linespacing=1.1)
     y -= header_h
     fig.add_artist(Line2D([0.05, 0.95], [y, y], color=INK, lw=1.2))
     y -= 0.2 * row_h
@@ -1160,8 +1172,8 @@ def target_sheet(condition, circuit_name: str, caution: str, fmt: str = "png") -
                 Rectangle((0.05, y - row_h), 0.90, row_h, color="#eef3f8", lw=0, zorder=0)
             )
         for j, (x, cell, al) in enumerate(zip(cols_x, row, aligns, strict=True)):
-            weight = "bold" if j in (0, 4) else "normal"
-            size = font * (0.7 if cell == "no braking" else 1.0)
+            weight = "bold" if j in (0, 6) else "normal"
+            size = font * (0.75 if cell == "no braking" or j == 1 or "+" in cell else 1.0)
             fig.text(
                 x,
                 y - row_h * 0.5,
@@ -1174,10 +1186,13 @@ def target_sheet(condition, circuit_name: str, caution: str, fmt: str = "png") -
             )
         y -= row_h
     note = (
-        "Brake points are where the ideal starts braking, from the start/finish gate and "
-        "before the apex; speeds are the ideal's at the segment's entry, minimum and exit."
+        "Brake at: where the ideal's speed starts falling into the corner (a lift counts), "
+        "from the start/finish gate, one per braking zone; before apex: from the first "
+        "brake point to the apex. Entry: speed at the first brake point; minimum: the "
+        "lowest in the corner (at the apex where it is taken without slowing); exit: "
+        f"where the corner's curve ends. {NOT_AVAILABLE}: none."
     )
-    fig.text(0.06, 0.17, textwrap.fill(note, 100), fontsize=9, va="top", color="#444444")
+    fig.text(0.06, 0.2, textwrap.fill(note, 105), fontsize=9, va="top", color="#444444")
     fig.add_artist(
         Rectangle((0.05, 0.025), 0.90, 0.115, facecolor="#fff4e0", edgecolor=ACCENT, lw=1.5)
     )

@@ -10,10 +10,12 @@ from __future__ import annotations
 
 import math
 
-#: What a table cell shows for a value that is not known. [-]
-NOT_AVAILABLE = "n/a"
-#: What a target table shows where a corner has no such point (e.g. no braking). [-]
-NO_POINT = "—"
+#: What every output for people shows for a value that is not known or has no such
+#: point (a corner taken without braking): one blank everywhere. CSV cells stay empty
+#: and JSON has null. [-]
+NOT_AVAILABLE = "—"
+#: The same blank, under the name the target tables used. [-]
+NO_POINT = NOT_AVAILABLE
 
 
 def _known(x) -> bool:
@@ -40,7 +42,7 @@ def lap_time(time_s, decimals: int = 3) -> str:
     >>> lap_time(92.4056), lap_time(59.9996), lap_time(119.9996), lap_time(45.1234)
     ('1:32.406', '1:00.000', '2:00.000', '0:45.123')
     >>> lap_time(119.996, decimals=2), lap_time(float("nan"))
-    ('2:00.00', 'n/a')
+    ('2:00.00', '—')
     """
     if not _known(time_s):
         return NOT_AVAILABLE
@@ -65,7 +67,7 @@ def time_left(time_s) -> str:
     """A time left (or gained) to 0.01 s; never ``-0.00``; :data:`NOT_AVAILABLE` if unknown.
 
     >>> time_left(-0.004), time_left(-0.012), time_left(0.4849), time_left(None)
-    ('0.00', '-0.01', '0.48', 'n/a')
+    ('0.00', '-0.01', '0.48', '—')
     """
     if not _known(time_s):
         return NOT_AVAILABLE
@@ -75,8 +77,8 @@ def time_left(time_s) -> str:
 def number(x, spec: str, unit: str = "", blank: str = NOT_AVAILABLE) -> str:
     """``x`` in the format ``spec`` followed by ``unit``; ``blank`` when unknown.
 
-    >>> number(88.76, ".1f", " km/h"), number(None, ".0f"), number(float("nan"), ".0f", blank="—")
-    ('88.8 km/h', 'n/a', '—')
+    >>> number(88.76, ".1f", " km/h"), number(None, ".0f"), number(float("nan"), ".0f", blank="-")
+    ('88.8 km/h', '—', '-')
     """
     return blank if not _known(x) else f"{x:{spec}}{unit}"
 
@@ -88,3 +90,67 @@ def metres(distance_m: float) -> str:
     '12 m'
     """
     return f"{abs(distance_m):.0f} m"
+
+
+#: Km/h per m/s (3.6, exact): kept here so that formatting imports nothing heavy. [-]
+_KMH_PER_M_S = 3.6
+
+
+def speed_kmh(v_m_s) -> str:
+    """A speed for people: whole km/h, the one rounding of every output. "—" if unknown.
+
+    >>> speed_kmh(24.69), speed_kmh(None)
+    ('89', '—')
+    """
+    return number(None if not _known(v_m_s) else v_m_s * _KMH_PER_M_S, ".0f")
+
+
+def distance(distance_m) -> str:
+    """A distance along the lap for people: whole metres, no unit. "—" if unknown.
+
+    >>> distance(359.44), distance(float("nan"))
+    ('359', '—')
+    """
+    return number(distance_m, ".0f")
+
+
+def seconds(time_s) -> str:
+    """A segment time for people: 0.01 s, no unit. "—" if unknown.
+
+    >>> seconds(11.1114)
+    '11.11'
+    """
+    return number(time_s, ".2f")
+
+
+def percent(share) -> str:
+    """A share 0-1 for people: whole percent with its sign. "—" if unknown.
+
+    >>> percent(0.954)
+    '95 %'
+    """
+    return number(None if not _known(share) else 100.0 * share, ".0f", " %")
+
+
+def grip_used(share, raw=None) -> str:
+    """A corner's grip used for people: whole percent; "over" when the lap went outside.
+
+    ``raw`` is the value before clipping: more than 2 % above 1 (beyond the scatter of a
+    corner's usage under logger noise of about 0.03 g on 1.4 g) it is shown, marked
+    "over". "—" if unknown.
+
+    >>> grip_used(0.954), grip_used(1.0, 1.26)
+    ('95 %', '126 % over')
+    """
+    if _known(raw) and raw > 1.02:
+        return f"{percent(raw)} over"
+    return percent(share)
+
+
+def grip(scale) -> str:
+    """A grip scale or estimate for people: two decimals. "—" if unknown.
+
+    >>> grip(0.85)
+    '0.85'
+    """
+    return number(scale, ".2f")

@@ -1,11 +1,19 @@
-r"""Per-corner markers on one lap's trace: minimum speed, brake point, full drive.
+r"""Per-corner markers on one lap's trace: brake points, entry, minimum and exit speed, full drive.
 
 A :class:`Trace` holds one lap's channels (real or ideal) on an unwrapped distance axis
-(three copies of a closed lap, so a corner's zone never wraps round the gate);
-:func:`corner_markers` finds on it, for one corner's segment, the minimum speed and
-where, the start and end of the braking that leads into it, where full drive begins,
-and the peak lateral acceleration. The comparison (:mod:`limitlap.compare`) and the
-target sheets (:mod:`limitlap.targets`) both take their markers from here.
+(three copies of a closed lap, so a corner's zone never wraps round the gate), with the
+pedal shares (brake and drive, 0-1) drawn in the report. :func:`corner_marks` reads one
+corner's record of docs/methods.md (Corner record) off it: every brake point that
+leads into the corner, the entry speed, the minimum speed and where, the exit speed,
+where full drive begins, and the peak lateral acceleration. The comparison
+(:mod:`limitlap.compare`) and the target tables (:mod:`limitlap.targets`) both take
+their numbers from here, from the same trace of the ideal (:func:`ideal_trace`), so a
+corner reads the same in every output.
+
+The speed's turning points come from one pass with hysteresis (:func:`speed_extrema`):
+a peak is confirmed once the speed has fallen :data:`MIN_SPEED_DROP_M_S` below it, a
+minimum once it has risen that much above it, so ripples smaller than that (curvature
+noise of a measured line, logger noise) make no brake point and no minimum.
 """
 
 from __future__ import annotations
@@ -16,51 +24,54 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from limitlap.corners import Corner, plateau_middle
+from limitlap import limits
+from limitlap.corners import Corner
 from limitlap.power_line import FULL_THROTTLE
 from limitlap.solve import Profile
+from limitlap.units import G0_M_S2, KMH_TO_M_S
+from limitlap.vehicle import Vehicle
 
 # --- Defaults of the per-corner markers (common practice, no published source) ---
-#: Deceleration beyond which a car without a brake-pressure channel counts as braking
-#: (about 0.25 g: above lift-off drag of road and GT cars). [m/s²]
-BRAKE_DECEL_M_S2 = 2.5
+#: Hysteresis of the speed's turning points: a braking zone takes at least this off the
+#: speed, and a minimum ends where the speed has risen this much above it. [m/s]
+MIN_SPEED_DROP_M_S = 1.0
 
 
-#: Brake pressure above this share of the lap's 99th-percentile pressure counts as
-#: braking. [-]
-BRAKE_PRESSURE_SHARE = 0.05
-
-
-#: Braking interrupted for less than this still counts as one braking zone. [m]
-BRAKE_GAP_M = 5.0
-
-
-#: A corner's minimum speed must also be the lowest this far either side of its
-#: curvature zone; otherwise the speed there belongs to a neighbour's braking. [m]
+#: A minimum of speed this far outside the corner's curvature zone (and inside its
+#: segment) is still the corner's. [m]
 EDGE_M = 25.0
 
 
-#: A release of the brakes in which the speed rises by at most this (coasting, or
-#: holding speed on the lateral limit between two applications) is still one braking
-#: zone, however long: the speed has not stopped falling into the corner. [m/s]
-COAST_RISE_M_S = 0.5
+#: Where the minimum speed is: the middle of the stretch round it within this of the
+#: minimum (1 km/h, the resolution of the speeds shown). [m/s]
+MIN_SPEED_BAND_M_S = 1.0 * KMH_TO_M_S
 
 
-#: A braking zone must take at least this off the speed to count as a brake point. [m/s]
-MIN_BRAKE_DROP_M_S = 1.0
+#: Full drive from a share of the drive limit (the ideal's, or a real lap's without a
+#: throttle channel) begins where the share reaches this... [-]
+FULL_DRIVE_ON = 0.95
 
 
-#: Without a throttle channel, full drive is a_x at or above this share of the driving
-#: limit left after the lateral demand. [-]
-FULL_DRIVE_SHARE = 0.9
+#: ... and counts once it stays above this for :data:`FULL_DRIVE_HOLD_S`. [-]
+FULL_DRIVE_OFF = 0.85
 
 
-#: ... counted only where the envelope leaves at least this forward acceleration. [m/s²]
-FULL_DRIVE_MIN_M_S2 = 0.5
+#: With a throttle channel: full throttle is :data:`limitlap.power_line.FULL_THROTTLE`
+#: (98 %), ended by a fall below this. [-]
+FULL_THROTTLE_OFF = 0.90
+
+
+#: Full drive must last this long to count (a pedal blip or noise does not). [s]
+FULL_DRIVE_HOLD_S = 0.3
 
 
 class Trace:
-    """One lap's channels on an unwrapped axis (three copies of a closed lap)."""
+    """One lap's channels on an unwrapped axis (three copies of a closed lap).
+
+    ``brake_share`` and ``drive_share`` are the pedal traces of the report, 0-1: a real
+    lap's pedals (or its acceleration's share of the limits), the ideal's from
+    :func:`ideal_pedal_shares`; ``pedal`` says the drive share is a throttle pedal.
+    """
 
     def __init__(
         self,
@@ -72,19 +83,22 @@ class Trace:
         speed,
         ax,
         ay,
-        drive_avail,
-        brake=None,
-        throttle=None,
+        brake_share,
+        drive_share,
+        *,
+        pedal=False,
         usage=None,
         dwell=None,
     ):
         self.length = float(length_m)
         self.closed = bool(closed)
         self.lap_time = float(lap_time_s)
+        self.pedal = bool(pedal)
         s = np.asarray(distance_m, dtype=np.float64)
         t = np.asarray(elapsed_s, dtype=np.float64)
         self.s_lap = s
         self.t_lap = t
+        self.n = s.shape[0]
         reps = 3 if closed else 1
         shift = np.arange(reps) - (1 if closed else 0)
         self.u = (s[None, :] + shift[:, None] * self.length).ravel()
@@ -100,11 +114,15 @@ class Trace:
         self.v = tile(speed)
         self.ax = tile(ax)
         self.ay = tile(ay)
-        self.drive_avail = tile(drive_avail)
-        self.brake = tile(brake)
-        self.throttle = tile(throttle)
+        self.brake_share = tile(brake_share)
+        self.drive_share = tile(drive_share)
         self.usage = tile(usage)
         self.dwell = tile(dwell)
+        self.peaks, self.valleys = speed_extrema(self.v)
+
+    def lap_part(self, a):
+        """The lap's own stations of a tiled array (the middle copy of a closed lap)."""
+        return a[self.n : 2 * self.n] if self.closed else a
 
     def time_at_mod(self, d):
         """Elapsed time at a distance in [0, length]. [s]."""
@@ -115,6 +133,10 @@ class Trace:
     def time_at(self, u):
         """Elapsed time at an unwrapped distance. [s]."""
         return float(np.interp(u, *self.t_u))
+
+    def speed_at(self, u):
+        """Speed at an unwrapped distance, linear between stations. [m/s]."""
+        return float(np.interp(u, self.u, self.v))
 
     def window(self, lo, hi):
         """Index range [i0, i1) of stations with lo <= u < hi."""
@@ -134,152 +156,142 @@ def station_accel(profile: Profile, closed: bool) -> np.ndarray:
     return 0.5 * (a + before)
 
 
-def _crossing(u, f, i):
-    """Distance where f crosses 0 between stations i-1 and i (f[i-1] < 0 <= f[i])."""
-    if i <= 0 or not (np.isfinite(f[i - 1]) and np.isfinite(f[i])) or f[i] == f[i - 1]:
-        return float(u[i])
-    w = -f[i - 1] / (f[i] - f[i - 1])
-    return float(u[i - 1] + min(max(w, 0.0), 1.0) * (u[i] - u[i - 1]))
+def speed_extrema(v, drop_m_s: float = MIN_SPEED_DROP_M_S):
+    """The speed's turning points, with hysteresis: peaks and minima, alternating.
 
+    One pass (the "zigzag" of a turning-point filter): a peak is confirmed when the
+    speed falls ``drop_m_s`` below the highest speed since the last minimum, a minimum
+    when it rises ``drop_m_s`` above the lowest since the last peak. A peak is placed at
+    the last station of its top (where the speed starts falling), a minimum at its
+    lowest station. Blanks (NaN) are passed over.
 
-def lowest_speed(tr: Trace, lo, hi):
-    """Lowest speed in [lo, hi) and where (middle of a flat minimum). [m/s], [m] (unwrapped)."""
-    i0, i1 = tr.window(lo, hi)
-    v = tr.v[i0:i1]
-    if v.size == 0 or not np.isfinite(v).any():
-        return math.nan, math.nan, None
-    j = int(np.nanargmin(v))
-    j = plateau_middle(np.where(np.isfinite(v), v, np.inf), j, 1e-9)
-    return float(v[j]), float(tr.u[i0 + j]), i0 + j
+    Parameters
+    ----------
+    v : array-like
+        Speed along the trace. [m/s]
+    drop_m_s : float
+        Hysteresis. [m/s]
 
+    Returns
+    -------
+    peaks, valleys : numpy.ndarray of int
+        Station indices, increasing. [-]
 
-def _braking_signal(tr: Trace, brake_threshold_pa):
-    """Positive where braking: brake pressure over its threshold, else decel over its."""
-    if tr.brake is not None and brake_threshold_pa is not None:
-        return tr.brake - brake_threshold_pa
-    return -tr.ax - BRAKE_DECEL_M_S2
-
-
-def _brake_zone(tr: Trace, f, lo, i_min, gap_m=BRAKE_GAP_M):
-    """Start and end of the braking zone that leads to station i_min.
-
-    Walks back from ``i_min`` to the last braking station after ``lo``, then back over
-    the zone (gaps under ``gap_m`` bridged, and gaps of any length in which the speed
-    rises by at most ``COAST_RISE_M_S``, so the braking starts where the speed starts
-    falling into the corner, as for the ideal in :func:`_profile_brake_start`).
-    Returns unwrapped (start, end) or NaNs, also when the zone
-    takes off less than ``MIN_BRAKE_DROP_M_S``.
+    Examples
+    --------
+    >>> p, m = speed_extrema([10.0, 20.0, 20.0, 12.0, 12.5, 12.2, 30.0, 25.0])
+    >>> p.tolist(), m.tolist()
+    ([2, 6], [3])
     """
-    i_lo = int(np.searchsorted(tr.u, lo, "left"))
-    if i_min is None or i_min <= i_lo:
-        return math.nan, math.nan
-    on = f[i_lo : i_min + 1] > 0.0  # False where blank (NaN)
-    if not on.any():
-        return math.nan, math.nan
-    last = i_lo + int(np.flatnonzero(on)[-1])
-    first = last
-    u = tr.u
-    while first > i_lo:
-        if f[first - 1] > 0.0:
-            first -= 1
-            continue
-        prev_on = np.flatnonzero(f[i_lo:first] > 0.0)
-        if prev_on.size:
-            j = i_lo + int(prev_on[-1])
-            gap = u[first] - u[j]
-            # A short release, or a longer one without getting back on the power (the
-            # speed does not rise), is still the same braking into the corner.
-            rise = np.nanmax(tr.v[j : first + 1]) - tr.v[j]
-            if gap <= gap_m or rise <= COAST_RISE_M_S:
-                first = j
-                continue
-        break
-    # Braking that takes off less than this is a brush of the brakes, not a brake point.
-    if np.nanmax(tr.v[first : i_min + 1]) - tr.v[i_min] < MIN_BRAKE_DROP_M_S:
-        return math.nan, math.nan
-    start = _crossing(u, f, first) if first > i_lo else float(u[first])
-    end_i = last + 1
-    end = _crossing(u, -f, end_i) if end_i < u.shape[0] else float(u[last])
-    return start, end
+    v = np.asarray(v, dtype=np.float64)
+    peaks, valleys = [], []
+    good = np.flatnonzero(np.isfinite(v))
+    if good.size < 2:
+        return np.zeros(0, np.int64), np.zeros(0, np.int64)
+    # Running highs and lows change only where the speed turns (or is level), so the
+    # pass visits those stations alone: the same result, a fraction of the steps.
+    d = np.diff(v[good])
+    turns = np.flatnonzero(d[1:] * d[:-1] <= 0.0) + 1
+    visit = good[np.concatenate([turns, [good.size - 1]])]
+    hi = lo = int(good[0])
+    first = v[hi]
+    state = 0  # 0: undecided, 1: rising (looking for a peak), -1: falling (for a minimum)
+    for i in visit.tolist():
+        x = v[i]
+        rose, fell = v[hi] > first, v[lo] < first  # so far: the start is no extremum
+        if x >= v[hi]:
+            hi = i
+        if x < v[lo]:
+            lo = i
+        if state >= 0 and x < v[hi] - drop_m_s:
+            if state == 1 or rose:
+                peaks.append(hi)
+            state, lo = -1, i
+        elif state <= 0 and x > v[lo] + drop_m_s:
+            if state == -1 or fell:
+                valleys.append(lo)
+            state, hi = 1, i
+    return np.asarray(peaks, dtype=np.int64), np.asarray(valleys, dtype=np.int64)
 
 
-def _profile_brake_start(tr: Trace, f, lo, i_min):
-    """Brake point of a clean speed profile (the ideal): where its speed starts falling.
-
-    Walks back from the minimum at ``i_min`` while the speed does not fall going
-    forward (ripples under ``COAST_RISE_M_S``, from curvature noise of a measured line,
-    do not stop it), to the last local maximum of speed after ``lo``; the brake point is the
-    first crossing of the braking signal ``f`` (deceleration over its threshold) at or
-    after that maximum, interpolated as in :func:`_brake_zone`. Deceleration that dips
-    under the threshold while the speed keeps falling (trail braking) therefore does not
-    split the zone. NaN when the fall has no braking in it (a lift, drag in a flat-out
-    kink) or takes off less than ``MIN_BRAKE_DROP_M_S``. [m] (unwrapped)
-    """
-    i_lo = int(np.searchsorted(tr.u, lo, "left"))
-    if i_min is None or i_min <= i_lo:
-        return math.nan
+def _band_middle(tr: Trace, i: int, band: float) -> float:
+    """Middle of the stretch round station i where the speed stays within ``band`` of v[i]. [m]."""
     v = tr.v
-    j = top = i_min
-    while j > i_lo and v[j - 1] >= v[top] - COAST_RISE_M_S:
-        j -= 1
-        if v[j] > v[top]:
-            top = j
-    # The highest speed walked over, the last station of a flat top.
-    seg = v[top : i_min + 1]
-    j = top + int(np.flatnonzero(seg >= v[top] - 1e-9 * max(v[top], 1.0))[-1])
-    if v[j] - v[i_min] < MIN_BRAKE_DROP_M_S:
-        return math.nan
-    on = np.flatnonzero(f[j : i_min + 1] > 0.0)
-    if on.size == 0:
-        return math.nan
-    first = j + int(on[0])
-    return _crossing(tr.u, f, first) if first > i_lo else float(tr.u[first])
+    lo = hi = i
+    while lo > 0 and np.isfinite(v[lo - 1]) and v[lo - 1] <= v[i] + band:
+        lo -= 1
+    while hi < v.shape[0] - 1 and np.isfinite(v[hi + 1]) and v[hi + 1] <= v[i] + band:
+        hi += 1
+    return 0.5 * float(tr.u[lo] + tr.u[hi])
 
 
-def _full_drive(tr: Trace, i_min, hi, use_throttle):
-    """First point after the minimum where full drive is reached (unwrapped) or NaN."""
-    if i_min is None:
-        return math.nan
-    i1 = int(np.searchsorted(tr.u, hi, "left"))
-    if use_throttle:
-        g = tr.throttle - FULL_THROTTLE
-    else:
-        # Only where the envelope leaves real drive: at the lateral limit of a steady
-        # arc the drive left is negative (drag) and "a share of it" means nothing.
-        g = np.where(
-            tr.drive_avail > FULL_DRIVE_MIN_M_S2, tr.ax - FULL_DRIVE_SHARE * tr.drive_avail, -1.0
-        )
-    hit = np.flatnonzero(g[i_min:i1] >= 0.0)  # False where blank (NaN)
-    if hit.size == 0:
-        return math.nan
-    return _crossing(tr.u, g, i_min + int(hit[0]))
+def _full_drive(tr: Trace, u0: float, u1: float) -> float:
+    """First point in [u0, u1) where full drive begins (docs/methods.md, Corner record). [m].
+
+    The drive share must reach the on-threshold and not fall below the off-threshold
+    for :data:`FULL_DRIVE_HOLD_S` (or until ``u1``); NaN when it never does.
+    """
+    i0, i1 = tr.window(u0, u1)
+    share = tr.drive_share[i0:i1]
+    on, off = (FULL_THROTTLE, FULL_THROTTLE_OFF) if tr.pedal else (FULL_DRIVE_ON, FULL_DRIVE_OFF)
+    above = share >= on  # False where blank
+    starts = np.flatnonzero(above & ~np.concatenate([[False], above[:-1]]))
+    below = np.flatnonzero(~(share >= off))
+    for k in starts.tolist():
+        after = below[below > k]
+        if after.size:
+            held = tr.time_at(tr.u[i0 + after[0]]) - tr.time_at(tr.u[i0 + k])
+            if held < FULL_DRIVE_HOLD_S:
+                continue
+        j = i0 + k
+        if j == i0 or not np.isfinite(share[k - 1]):
+            return float(tr.u[j])
+        g0, g1 = share[k - 1] - on, share[k] - on
+        return float(tr.u[j - 1] + (-g0 / (g1 - g0)) * (tr.u[j] - tr.u[j - 1]))
+    return math.nan
 
 
 @dataclass(frozen=True)
-class Markers:
-    """One corner's markers on one trace (unwrapped distances, SI; NaN where none).
+class Marks:
+    """One corner's record on one trace (unwrapped distances, SI; NaN where none).
 
     Attributes
     ----------
+    brake_points : tuple of float
+        Start of every deceleration into the corner (a lift counts), in driving order:
+        one per braking zone that reaches it. [m]
+    entry_speed : float
+        Speed at the first brake point; NaN when the corner is taken without slowing. [m/s]
     min_speed, min_at : float
-        Minimum speed [m/s] and where [m].
-    brake_start, brake_end : float
-        The braking zone that leads into the corner. [m]
+        The lowest minimum of speed in the corner [m/s] and where it is [m]; for a
+        corner without a minimum of its own (taken without slowing), the speed at its
+        main apex and the apex.
+    own_minimum : bool
+        The speed has a minimum of its own in the corner.
+    exit_speed : float
+        Speed at the end of the curvature zone. [m/s]
     full_drive : float
-        Where full drive begins after the minimum. [m]
+        Where full drive begins after the corner's last minimum (or its apex). [m]
     peak_lat : float
         Peak lateral acceleration in the segment. [m/s²]
-    i_min : int or None
-        Station of the minimum on the trace.
+    last_min_at : float
+        Where the corner's last minimum is (its apex without one). [m]
     """
 
+    brake_points: tuple[float, ...]
+    entry_speed: float
     min_speed: float
     min_at: float
-    brake_start: float
-    brake_end: float
+    own_minimum: bool
+    exit_speed: float
     full_drive: float
     peak_lat: float
-    i_min: int | None
+    last_min_at: float
+
+    @property
+    def brake_start(self) -> float:
+        """The first brake point; NaN without one. [m]."""
+        return self.brake_points[0] if self.brake_points else math.nan
 
 
 def zone_u(corner: Corner, start_u: float, length: float, closed: bool):
@@ -293,46 +305,183 @@ def zone_u(corner: Corner, start_u: float, length: float, closed: bool):
     return z0, z1
 
 
-def corner_markers(
-    tr,
-    lo_brake,
-    start_u,
-    end_u,
-    hi_drive,
-    brake_threshold_pa,
-    use_throttle,
-    zone,
-    apex_u=None,
-    profile_brake=False,
-):
-    """Markers of one corner's segment on one trace (see :class:`Markers`).
+def corner_marks(tr: Trace, corner: Corner, bound) -> Marks:
+    """One corner's record on one trace (see :class:`Marks`, docs/methods.md, Corner record).
 
-    ``lo_brake``/``hi_drive`` bound the search for the braking zone and for full drive,
-    ``start_u``/``end_u`` are the segment, ``zone`` the curvature zone (unwrapped, [m]);
-    ``profile_brake`` takes the brake point from the speed profile (the ideal's).
+    Parameters
+    ----------
+    tr : Trace
+        The lap (real or ideal).
+    corner : Corner
+        The corner.
+    bound : tuple of float
+        Its entry of :func:`unwrapped_bounds`: unwrapped segment start, main apex,
+        segment end and the search limits before and after. [m]
+
+    Returns
+    -------
+    Marks
     """
-    # Minimum speed within the curvature zone (turn-in to exit, both included): a corner
-    # taken flat or still accelerating has its "minimum" there, not at the segment start.
-    v_min, at, i_min = lowest_speed(tr, zone[0], zone[1] + 1e-9)
-    # Still slowing at the zone's edge (braking for the next corner, or still
-    # accelerating from the last): no minimum of its own; take the speed at the apex.
-    v_ext, _, _ = lowest_speed(tr, max(lo_brake, zone[0] - EDGE_M), min(hi_drive, zone[1] + EDGE_M))
-    if i_min is not None and v_ext < v_min - 1e-9 and apex_u is not None:
-        i_min = int(np.argmin(np.abs(tr.u - apex_u)))
-        v_min, at = float(tr.v[i_min]), float(tr.u[i_min])
-    f = _braking_signal(tr, brake_threshold_pa)
-    b0, b1 = _brake_zone(tr, f, lo_brake, i_min)
-    if profile_brake:  # the ideal: its brake point from the speed profile itself
-        b0 = _profile_brake_start(tr, f, lo_brake, i_min)
-        if math.isfinite(b0) and not math.isfinite(b1):
-            b1 = float(tr.u[i_min])
-        elif not math.isfinite(b0):
-            b1 = math.nan
-    fd = _full_drive(tr, i_min, hi_drive, use_throttle)
+    start_u, apex_u, end_u, _, hi = bound
+    z0, z1 = zone_u(corner, start_u, tr.length, tr.closed)
+    w0, w1 = max(start_u, z0 - EDGE_M), min(end_u, z1 + EDGE_M)
+    mins = tr.valleys[(tr.u[tr.valleys] >= w0) & (tr.u[tr.valleys] <= w1)]
+    points = []
+    for i in mins.tolist():  # the peak before each minimum (they alternate)
+        before = tr.peaks[tr.peaks < i]
+        if before.size:  # its last station: never after the speed starts falling
+            points.append(float(tr.u[before[-1]]))
+    if mins.size:
+        i_min = int(mins[np.argmin(tr.v[mins])])
+        v_min, at = float(tr.v[i_min]), _band_middle(tr, i_min, MIN_SPEED_BAND_M_S)
+        last = _band_middle(tr, int(mins[-1]), MIN_SPEED_BAND_M_S)
+    else:
+        v_min, at, last = tr.speed_at(apex_u), apex_u, apex_u
+    later = tr.peaks[tr.u[tr.peaks] > last]
+    drive_end = min(hi, float(tr.u[later[0]])) if later.size else hi
     i0, i1 = tr.window(start_u, end_u)
     ay = np.abs(tr.ay[i0:i1])
-    peak = float(np.nanmax(ay)) if np.isfinite(ay).any() else math.nan
-    return Markers(v_min, at, b0, b1, fd, peak, i_min)
+    return Marks(
+        brake_points=tuple(points),
+        entry_speed=tr.speed_at(points[0]) if points else math.nan,
+        min_speed=v_min,
+        min_at=at,
+        own_minimum=bool(mins.size),
+        exit_speed=tr.speed_at(z1),
+        full_drive=_full_drive(tr, last, drive_end),
+        peak_lat=float(np.nanmax(ay)) if np.isfinite(ay).any() else math.nan,
+        last_min_at=last,
+    )
+
+
+# ----------------------------------------------------------------------------- pedals
+
+
+def _tyre_force_shares(speed, ax_tyre, env: Vehicle):
+    r"""Brake and drive shares of the tyre force a longitudinal acceleration needs.
+
+    ``ax_tyre`` is the acceleration the tyres give (gravity along a grade included, as
+    an accelerometer measures it) [m/s²]; the force :math:`F_x = m a + R` against
+    :math:`\mu_b N` or :math:`\min(\mu_t N, P/v)` (:func:`limitlap.limits.longitudinal_shares`).
+    """
+    brake, drive = limits.longitudinal_shares(speed, ax_tyre, env)
+    return np.clip(brake, 0.0, 1.0), np.clip(drive, 0.0, 1.0)
+
+
+def ideal_pedal_shares(v, ax, sin_grad, env: Vehicle, closed: bool):
+    r"""The ideal's brake and drive shares, drawn phase by phase from its speed.
+
+    The ideal's speed is cut at its turning points (:func:`speed_extrema`) into falling
+    and rising phases. In a falling phase the drive share is 0 and the brake share the
+    least-squares fit that rises to its peak and then only falls; in a rising phase the
+    brake share is 0 and the drive share the least-squares fit that only rises
+    (isotonic regression by pool-adjacent-violators, ``scipy.optimize.isotonic_regression``;
+    Barlow, Bartholomew, Bremner & Brunk, *Statistical inference under order
+    restrictions*, Wiley, 1972). The raw shares are those of the tyre force the speed
+    profile needs (:math:`a_x + g\sin\theta`, :func:`limitlap.limits.longitudinal_shares`);
+    the fit keeps their level and takes out the back-and-forth that curvature noise of a
+    measured line puts into a profile held on the lateral limit, which a driver would
+    otherwise read as pedal instructions.
+
+    Parameters
+    ----------
+    v, ax : array-like
+        The ideal's speed [m/s] and longitudinal acceleration at the stations [m/s²].
+    sin_grad : array-like or float
+        Sine of the grade at the stations (+ uphill). [-]
+    env : Vehicle
+        The envelope at the ideal's grip scale.
+    closed : bool
+        A lap: phases run round the gate.
+
+    Returns
+    -------
+    brake, drive : numpy.ndarray
+        Shares 0-1 at the stations. [-]
+    """
+    from scipy.optimize import isotonic_regression
+
+    v = np.asarray(v, dtype=np.float64)
+    n = v.shape[0]
+    raw_b, raw_d = _tyre_force_shares(
+        v, np.asarray(ax, dtype=np.float64) + G0_M_S2 * np.asarray(sin_grad), env
+    )
+    reps = 3 if closed else 1
+    vt, bt, dt = (np.tile(a, reps) for a in (v, raw_b, raw_d))
+    peaks, valleys = speed_extrema(vt)
+    cuts = np.unique(np.concatenate([[0], peaks, valleys, [vt.shape[0] - 1]]))
+    brake, drive = np.zeros(vt.shape[0]), np.zeros(vt.shape[0])
+    for a, b in zip(cuts[:-1].tolist(), cuts[1:].tolist(), strict=True):
+        if b <= a:
+            continue
+        seg = slice(a, b + 1)
+        if vt[b] < vt[a]:  # falling: brake rises to its peak, then only falls
+            x = np.nan_to_num(bt[seg])
+            k = int(np.argmax(x))
+            up = isotonic_regression(x[: k + 1]).x
+            down = isotonic_regression(x[k:], increasing=False).x
+            brake[seg] = np.concatenate([up[:-1], [max(up[-1], down[0])], down[1:]])
+        else:  # rising: drive only rises
+            drive[seg] = isotonic_regression(np.nan_to_num(dt[seg])).x
+    part = slice(n, 2 * n) if closed else slice(0, n)
+    return np.clip(brake[part], 0.0, 1.0), np.clip(drive[part], 0.0, 1.0)
+
+
+def actual_pedal_shares(v, ax, env: Vehicle, throttle=None, brake_pa=None):
+    """A real lap's pedal traces, 0-1: its pedals where logged, else its acceleration's share.
+
+    Parameters
+    ----------
+    v, ax : array-like
+        Speed [m/s] and longitudinal acceleration (as measured: gravity along a grade
+        included) [m/s²] at the stations.
+    env : Vehicle
+        The envelope at the ideal's grip scale.
+    throttle : array-like, optional
+        Pedal position 0-1. [-]
+    brake_pa : array-like, optional
+        Brake pressure; shown as a share of the lap's highest. [Pa]
+
+    Returns
+    -------
+    brake, drive : numpy.ndarray
+        Shares 0-1 at the stations. [-]
+    """
+    brake, drive = _tyre_force_shares(v, ax, env)
+    if throttle is not None:
+        drive = np.clip(np.asarray(throttle, dtype=np.float64), 0.0, 1.0)
+    if brake_pa is not None:
+        p = np.asarray(brake_pa, dtype=np.float64)
+        top = float(np.nanmax(p)) if np.isfinite(p).any() else 0.0
+        if top > 0.0:
+            brake = np.clip(p / top, 0.0, 1.0)
+    return brake, drive
+
+
+def ideal_trace(profile: Profile, line, env: Vehicle) -> Trace:
+    """The ideal profile on ``line`` as a :class:`Trace`: the one every output reads.
+
+    ``env`` is the envelope at the profile's grip scale.
+    """
+    grad = np.asarray(line.gradient, dtype=np.float64)
+    sin_grad = grad / np.sqrt(1.0 + grad * grad)
+    v = np.asarray(profile.speed_m_s, dtype=np.float64)
+    ax = station_accel(profile, line.closed)
+    ay = np.asarray(profile.accel_lat_m_s2, dtype=np.float64)
+    brake, drive = ideal_pedal_shares(v, ax, sin_grad, env, line.closed)
+    return Trace(
+        line.distance_m,
+        float(line.length_m),
+        line.closed,
+        profile.time_s,
+        profile.lap_time_s,
+        v,
+        ax,
+        ay,
+        brake,
+        drive,
+        usage=limits.combined_usage(v, ax, ay, env, sin_grad),
+    )
 
 
 def unwrapped_bounds(corners: Sequence[Corner], length: float, closed: bool):

@@ -354,6 +354,8 @@ def corner_rows(comparison: LapComparison) -> list[dict]:
             "brake_start_actual_m": float_or_nan(c.brake_start_actual_m),
             "brake_start_ideal_m": float_or_nan(c.brake_start_ideal_m),
             "grip_used": float_or_nan(c.grip_used),
+            "brake_points_actual_m": [float(x) for x in c.brake_points_actual_m],
+            "brake_points_ideal_m": [float(x) for x in c.brake_points_ideal_m],
             "plain": c.advice.strip(),
             "_summary": c.summary_dict(),
         }
@@ -408,6 +410,9 @@ class ReportView:
     fit_laps: list = dataclasses.field(default_factory=list)
     curvature_check: CurvatureCheck | None = None
     gg_bands: list = dataclasses.field(default_factory=list)
+    pedals_real: dict = dataclasses.field(default_factory=dict)
+    pedals_ideal: dict = dataclasses.field(default_factory=dict)
+    time_left_words: str = ""
 
 
 def _best_of_laps(best: BestOfLaps | None, corners) -> float:
@@ -433,9 +438,6 @@ def report_view(analysis) -> ReportView:
     t_real = np.asarray(driven.time_s, dtype=np.float64)
     t_ideal = np.asarray(ideal.time_s, dtype=np.float64)
     corners = corner_rows(comparison)
-    for c in corners:  # the track file's names for its corners ("Sentry"), where given
-        if analysis.corner_labels.get(c["name"]):
-            c["label"] = str(analysis.corner_labels[c["name"]])
     warnings = [str(w) for w in analysis.warnings]
     fit_warnings = analysis.fit.warnings if analysis.fit is not None else []
     for extra in (driven.warnings, fit_warnings):
@@ -477,6 +479,9 @@ def report_view(analysis) -> ReportView:
         fit_laps=[int(n) for n in analysis.fit_laps],
         curvature_check=driven.curvature_check,
         gg_bands=analysis.gg_bands,
+        pedals_real=_pedals(comparison, "actual"),
+        pedals_ideal=_pedals(comparison, "ideal"),
+        time_left_words=comparison.time_left_words(),
     )
 
 
@@ -495,6 +500,32 @@ def laps_summary(laps) -> list[dict]:
         ``time_s`` [s] of each lap. [-]
     """
     return [{"number": int(lp.number), "kind": lp.kind, "time_s": float(lp.time_s)} for lp in laps]
+
+
+def _pedals(comparison: LapComparison, which: str) -> dict:
+    """The pedal traces of one lap as the comparison drew them (shares 0-1), and what they are.
+
+    ``brake`` and ``drive`` arrays [-], ``brake_source`` and ``drive_source``: 'pedal',
+    'pressure' (share of the lap's highest), 'acceleration' (share of the limit the
+    lap's acceleration needs) or 'ideal' (the ideal's, drawn phase by phase).
+    """
+    brake = getattr(comparison, f"brake_share_{which}")
+    drive = getattr(comparison, f"drive_share_{which}")
+    if brake is None or drive is None:
+        return {}
+    if which == "ideal":
+        sources = ("ideal", "ideal")
+    else:
+        sources = (
+            "pressure" if comparison.brake_logged else "acceleration",
+            "pedal" if comparison.throttle_logged else "acceleration",
+        )
+    return {
+        "brake": np.asarray(brake, dtype=np.float64),
+        "drive": np.asarray(drive, dtype=np.float64),
+        "brake_source": sources[0],
+        "drive_source": sources[1],
+    }
 
 
 def build_summary(analysis) -> dict:

@@ -405,6 +405,7 @@ def analyse(
     comparison = compare.compare_lap(
         the_lap, ideal, car, corners, grip_scale=k, grip_estimate=grip_est
     )
+    warnings += [w for w in comparison.warnings if w not in warnings]
     _step(progress, 5, _STEPS, "best of the session's own laps")
     complete_laps, best = _best_of_laps(laps, chosen, the_lap, timelines, corners, ideal)
     _step(progress, 6, _STEPS, "done")
@@ -569,11 +570,7 @@ def _rebuild_line(log, chosen, warnings) -> driven_mod.DrivenLap:
 
 def _find_corners(the_lap, trk) -> list[corners_mod.Corner]:
     """The corners of the rebuilt line, named (and placed) as the track file says."""
-    names = list(trk.corner_names) if trk is not None and trk.corner_names else None
-    apexes = list(trk.corner_apexes_m) if names is not None else None
-    return corners_mod.find_corners(
-        the_lap.line, names, apexes_m=apexes, apexes_from=trk.path if trk is not None else None
-    )
+    return corners_mod.track_corners(the_lap.line, trk)
 
 
 def _grip_envelope(log_path, log, laps, chosen, the_lap, flying, beside, vehicle, warnings):

@@ -16,7 +16,16 @@ from pathlib import Path
 
 import numpy as np
 
-from limitlap.formatting import lap_time, number, time_left
+from limitlap.formatting import (
+    NOT_AVAILABLE,
+    distance,
+    grip,
+    grip_used,
+    lap_time,
+    seconds,
+    speed_kmh,
+    time_left,
+)
 from limitlap.outputs import ReportView
 
 #: The safety caution every report and target sheet carries.
@@ -33,43 +42,35 @@ Progress = Callable[[int, int, str], None]
 # --------------------------------------------------------------------------- figures
 
 
-def _usage_traces(speed, ax, ay, vehicle, grip_scale):
-    """Brake and drive shares 0-1 of the tyre limits that an acceleration trace needs."""
-    from limitlap import limits
+#: How the detail figure names each pedal trace's source (outputs._pedals).
+_PEDAL_WORDS = {
+    "ideal": ("ideal: share of braking grip", "ideal: share of drive limit"),
+    "pedal": (None, "you: pedal"),
+    "pressure": ("you: pressure, share of lap peak", None),
+    "acceleration": ("you: from deceleration", "you: from acceleration"),
+}
 
-    veh = vehicle.scaled(grip_scale) if grip_scale != 1.0 else vehicle
-    brake, drive = limits.longitudinal_shares(speed, ax, veh)
-    return np.clip(brake, 0.0, 1.0), np.clip(drive, 0.0, 1.0)
+
+def _pedal_trace(speed_m_s, pedals: dict) -> dict:
+    """One lap's traces for the detail figure: speed and the pedals the comparison drew."""
+    n = np.asarray(speed_m_s).shape[0]
+    blank = np.full(n, np.nan)
+    brake_src, drive_src = pedals.get("brake_source"), pedals.get("drive_source")
+    return {
+        "speed_m_s": speed_m_s,
+        "brake": pedals.get("brake", blank),
+        "throttle": pedals.get("drive", blank),
+        "brake_label": _PEDAL_WORDS.get(brake_src, ("", ""))[0] or "",
+        "throttle_label": _PEDAL_WORDS.get(drive_src, ("", ""))[1] or "",
+    }
 
 
 def _detail_traces(v: ReportView):
-    ideal_brake, ideal_drive = _usage_traces(
-        v.speed_ideal_m_s, v.ax_ideal_m_s2, v.ay_ideal_m_s2, v.vehicle, v.grip_scale
+    """The real and the ideal lap's traces for the corner detail figures."""
+    return (
+        _pedal_trace(v.speed_real_m_s, v.pedals_real),
+        _pedal_trace(v.speed_ideal_m_s, v.pedals_ideal),
     )
-    ideal = {
-        "speed_m_s": v.speed_ideal_m_s,
-        "brake": ideal_brake,
-        "throttle": ideal_drive,
-        "brake_label": "ideal: share of braking grip",
-        "throttle_label": "ideal: share of drive limit",
-    }
-    real_brake, real_drive = _usage_traces(
-        v.speed_real_m_s, v.ax_real_m_s2, v.ay_real_m_s2, v.vehicle, v.grip_scale
-    )
-    real = {
-        "speed_m_s": v.speed_real_m_s,
-        "brake": real_brake,
-        "throttle": real_drive,
-        "brake_label": "you: from deceleration",
-        "throttle_label": "you: from acceleration",
-    }
-    if np.isfinite(v.throttle).any():
-        real["throttle"] = np.clip(v.throttle, 0.0, 1.0)
-        real["throttle_label"] = "you: pedal"
-    if np.isfinite(v.brake_pa).any() and np.nanmax(v.brake_pa) > 0:
-        real["brake"] = np.clip(v.brake_pa / np.nanmax(v.brake_pa), 0.0, 1.0)
-        real["brake_label"] = "you: pressure, share of lap peak"
-    return real, ideal
 
 
 def _fit_points(fit):
@@ -296,8 +297,8 @@ def _head_and_cards(v: ReportView, out: list[str]) -> None:
     cards = [
         ("", "lap time", lap_time(v.lap_time_s)),
         ("ideal", f"ideal at grip {v.grip_scale:.2f}", lap_time(v.ideal_time_s)),
-        ("left", "time left", number(v.time_left_s, ".2f", " s")),
-        ("", "grip estimate", number(v.grip_estimate, ".2f")),
+        ("left", "time left", f"{time_left(v.time_left_s)} s"),
+        ("", "grip estimate", grip(v.grip_estimate)),
         ("", "best of your laps", lap_time(v.best_time_s)),
     ]
     for cls, k, val in cards:
@@ -305,6 +306,8 @@ def _head_and_cards(v: ReportView, out: list[str]) -> None:
             f'<div class="card {cls}"><div class="k">{e(k)}</div><div class="v">{e(val)}</div></div>'
         )
     out.append("</div>")
+    if v.time_left_words:
+        out.append(f'<p class="warn">Time left below zero: {e(v.time_left_words)}.</p>')
 
 
 def _warnings(v: ReportView, out: list[str]) -> None:
@@ -317,6 +320,30 @@ def _warnings(v: ReportView, out: list[str]) -> None:
         out.append('<p class="ok">None: the data passed every check this report makes.</p>')
 
 
+def _points(points) -> str:
+    """Brake points for people: each to the metre, "—" without one."""
+    pts = [distance(x) for x in (points or [])]
+    return " + ".join(pts) if pts else distance(None)
+
+
+def _corner_cells(i: int, c: dict) -> list[str]:
+    """One row of the corner table, in the one rounding of every output (formatting)."""
+    s = c["_summary"]
+    return [
+        str(i),
+        f"{c['name']} {c['label']}" if c.get("label") else c["name"],
+        distance(c["apex_m"]),
+        time_left(c["time_left_s"]),
+        seconds(c["actual_s"]),
+        seconds(c["ideal_s"]),
+        f"{speed_kmh(c['min_speed_actual_m_s'])} / {speed_kmh(c['min_speed_ideal_m_s'])}",
+        f"{_points(s['brake_points_actual_m'])} / {_points(s['brake_points_ideal_m'])}",
+        grip_used(c["grip_used"], c.get("grip_used_raw")),
+        grip(c.get("grip_estimate")),
+        c["plain"],
+    ]
+
+
 def _corner_table(v: ReportView, out: list[str]) -> None:
     """The corners ranked by time left, with the numbers a driver acts on."""
     e = html.escape
@@ -325,6 +352,7 @@ def _corner_table(v: ReportView, out: list[str]) -> None:
     heads = [
         "rank",
         "corner",
+        "apex [m]",
         "time left [s]",
         "yours [s]",
         "ideal [s]",
@@ -340,30 +368,28 @@ def _corner_table(v: ReportView, out: list[str]) -> None:
     ]
     out.append("</tr></thead><tbody>")
     ranked = sorted(v.corners, key=lambda c: -c["time_left_s"])
+    last = len(heads) - 1
     for i, c in enumerate(ranked, start=1):
         cls = ' class="top"' if i <= 3 else ""
-        cells = [
-            str(i),
-            f"{c['name']} {c['label']}" if c.get("label") else c["name"],
-            time_left(c["time_left_s"]),
-            number(c["actual_s"], ".2f"),
-            number(c["ideal_s"], ".2f"),
-            f"{number(c['min_speed_actual_kmh'], '.0f')} / {number(c['min_speed_ideal_kmh'], '.0f')}",
-            f"{number(c['brake_start_actual_m'], '.0f')} / {number(c['brake_start_ideal_m'], '.0f')}",
-            number(100 * c["grip_used"], ".0f", " %"),
-            number(c.get("grip_estimate"), ".2f"),
-            c["plain"],
+        tds = [
+            f'<td class="{"t" if j in (1, last) else ""}">{e(x)}</td>'
+            for j, x in enumerate(_corner_cells(i, c))
         ]
-        tds = [f'<td class="{"t" if j in (1, 9) else ""}">{e(x)}</td>' for j, x in enumerate(cells)]
         out.append(f"<tr{cls}>{''.join(tds)}</tr>")
     out.append("</tbody></table>")
+    notes = [f"{c['name']}: {c['note']}" for c in v.corners if c.get("note")]
+    out += [f'<p class="sub">{e(n)}</p>' for n in notes]
     out.append(
         '<p class="sub">Time left: your segment time minus the ideal\'s on the same line. '
-        "Grip used: the share of the available combined grip this lap used in the corner. "
-        "Grip found: the grip scale the corner showed against the envelope (below 1 = "
-        "less grip there than at its best, e.g. a damp patch; n/a where the corner is "
-        "taken flat out, on the engine's limit, so it does not show the tyres'). Brake "
-        "points in metres from the start/finish gate.</p>"
+        "Brake points: where the speed starts falling into the corner (a lift counts), one "
+        "per braking zone, in metres from the start/finish gate. Minimum speed: the "
+        "lowest in the corner, or the speed at the apex where a lap takes it without "
+        "slowing. Grip used: the share of the available combined grip this lap used in "
+        "the corner (above 100 %, marked over: it used more than the envelope allows at "
+        "this grip scale). Grip found: the grip scale the corner showed against the envelope "
+        "(below 1 = less grip there than at its best, e.g. a damp patch; "
+        f"{NOT_AVAILABLE} where the corner is taken flat out, on the engine's limit, so it "
+        "does not show the tyres'). Definitions: docs/methods.md, Corner record.</p>"
     )
 
 

@@ -20,39 +20,57 @@ if TYPE_CHECKING:
     from limitlap.targets import TargetCondition
 
 
-def _condition(cond: TargetCondition, length_m=None) -> dict:
-    """A target table as a plain dict (km/h); ``before_apex_m`` wraps across the gate."""
+def _condition(cond: TargetCondition, length_m=None, *, car: str = "", date: str = "") -> dict:
+    """A target table as a plain dict for the sheet and the CSV (distances m, speeds m/s).
+
+    ``car`` and ``date`` are printed on the sheet ("" leaves them out).
+    """
     k = float(cond.grip_scale)
-    length = float_or_nan(length_m)
-    kmh = 1.0 / KMH_TO_M_S
-    corners = []
-    for r in cond.corners:
-        before = float_or_nan(r.brake_before_apex_m)
-        if before < 0 and math.isfinite(length):  # braking starts before the gate
-            before += length
-        corners.append(
-            {
-                "name": str(r.name),
-                "apex_m": float_or_nan(r.apex_m),
-                "brake_start_m": float_or_nan(r.brake_start_m),
-                "before_apex_m": before if before >= 0 else float("nan"),
-                "entry_speed_kmh": float_or_nan(r.entry_speed_m_s) * kmh,
-                "min_speed_kmh": float_or_nan(r.min_speed_m_s) * kmh,
-                "exit_speed_kmh": float_or_nan(r.exit_speed_m_s) * kmh,
-                "segment_time_s": float_or_nan(r.segment_time_s),
-            }
-        )
+    length = float_or_nan(length_m if length_m is not None else getattr(cond, "length_m", None))
+    corners = [
+        {
+            "name": str(r.name),
+            "label": str(getattr(r, "label", "") or ""),
+            "apex_m": float_or_nan(r.apex_m),
+            "brake_points_m": [float(x) for x in getattr(r, "brake_points_m", ())],
+            "brake_start_m": float_or_nan(r.brake_start_m),
+            "before_apex_m": float_or_nan(r.brake_before_apex_m),
+            "entry_speed_m_s": float_or_nan(r.entry_speed_m_s),
+            "min_speed_m_s": float_or_nan(r.min_speed_m_s),
+            "min_speed_at_m": float_or_nan(getattr(r, "min_speed_at_m", None)),
+            "exit_speed_m_s": float_or_nan(r.exit_speed_m_s),
+            "segment_time_s": float_or_nan(r.segment_time_s),
+        }
+        for r in cond.corners
+    ]
+    text = getattr(cond, "condition", "") or (cond.label or f"{k:g}")
     return {
         "label": str(cond.label) if cond.label else f"grip {k:.2f}",
+        "condition": text,
         "grip_scale": k,
         "lap_time_s": float(cond.lap_time_s),
         "length_m": length,
+        "car": car,
+        "date": date,
         "corners": corners,
     }
 
 
 def _slug(text: str) -> str:
     return re.sub(r"[^a-z0-9]+", "_", text.lower()).strip("_") or "condition"
+
+
+#: Header of targets.csv (docs/outputs.md, Target sheets).
+CSV_HEADER = (
+    "condition,grip_scale [-],lap_time [s],corner,label,apex [m],brake_start [m],"
+    "brake_before_apex [m],entry_speed [km/h],min_speed [km/h],exit_speed [km/h],"
+    "segment_time [s],brake_points [m],min_speed_at [m]"
+)
+
+
+def _num(x, nd):
+    """A CSV number: ``nd`` decimals, the rounding of ``targets --json``; empty if unknown."""
+    return "" if not math.isfinite(x) else f"{round(x, nd) + 0.0:.{nd}f}"
 
 
 def targets_csv_text(conditions, *, length_m: float | None = None) -> str:
@@ -62,41 +80,36 @@ def targets_csv_text(conditions, *, length_m: float | None = None) -> str:
     ----------
     conditions : list
         Records of :func:`limitlap.targets.target_table` (docs/outputs.md, Target sheets fields).
+    length_m : float, optional
+        Lap length (records carry their own). [m]
 
     Returns
     -------
     str
+        Distances and speeds to 0.1, times and grip scales to 0.001, as ``targets
+        --json``; ``brake_points`` lists every brake point, separated by spaces.
     """
-    conds = [_condition(c, length_m) for c in conditions]
-    header = (
-        "condition,grip_scale [-],lap_time [s],corner,apex [m],brake_start [m],"
-        "brake_before_apex [m],entry_speed [km/h],min_speed [km/h],exit_speed [km/h],"
-        "segment_time [s]"
-    )
-    rows = [header]
-
-    def num(x, nd):
-        return "" if not math.isfinite(x) else f"{round(x, nd) + 0.0:.{nd}f}"
-
-    for c in conds:
+    kmh = 1.0 / KMH_TO_M_S
+    rows = [CSV_HEADER]
+    for c in (_condition(x, length_m) for x in conditions):
         for r in c["corners"]:
-            rows.append(
-                ",".join(
-                    [
-                        csv_cell(c["label"]),
-                        num(c["grip_scale"], 3),
-                        num(c["lap_time_s"], 3),
-                        csv_cell(r["name"]),
-                        num(r["apex_m"], 1),
-                        num(r["brake_start_m"], 1),
-                        num(r["before_apex_m"], 1),
-                        num(r["entry_speed_kmh"], 1),
-                        num(r["min_speed_kmh"], 1),
-                        num(r["exit_speed_kmh"], 1),
-                        num(r["segment_time_s"], 3),
-                    ]
-                )
-            )
+            cells = [
+                csv_cell(c["condition"]),
+                _num(c["grip_scale"], 3),
+                _num(c["lap_time_s"], 3),
+                csv_cell(r["name"]),
+                csv_cell(r["label"]),
+                _num(r["apex_m"], 1),
+                _num(r["brake_start_m"], 1),
+                _num(r["before_apex_m"], 1),
+                _num(r["entry_speed_m_s"] * kmh, 1),
+                _num(r["min_speed_m_s"] * kmh, 1),
+                _num(r["exit_speed_m_s"] * kmh, 1),
+                _num(r["segment_time_s"], 3),
+                " ".join(_num(x, 1) for x in r["brake_points_m"]),
+                _num(r["min_speed_at_m"], 1),
+            ]
+            rows.append(",".join(cells))
     return "\n".join(rows) + "\n"
 
 
@@ -106,6 +119,8 @@ def write_target_sheets(
     circuit_name: str,
     *,
     length_m: float | None = None,
+    car: str = "",
+    date: str = "",
     progress: Progress | None = None,
 ) -> list[Path]:
     """Write a printable one-page sheet per condition (PDF and PNG) and targets.csv.
@@ -121,8 +136,11 @@ def write_target_sheets(
     circuit_name : str
         Heading of each sheet.
     length_m : float, optional
-        Lap length, so a brake point before the gate gives its distance before an apex
-        after it (records may carry ``length_m`` themselves). [m]
+        Lap length (records carry their own). [m]
+    car : str
+        The car (the vehicle file's or envelope's name), printed on each sheet.
+    date : str
+        The date the sheets are for (ISO 8601, e.g. the session's), printed on each sheet.
     progress : callable, optional
         ``progress(done, total, step)``; None = silent.
 
@@ -134,7 +152,7 @@ def write_target_sheets(
     from limitlap import figures as fg
     from limitlap import report
 
-    conds = [_condition(c, length_m) for c in conditions]
+    conds = [_condition(c, length_m, car=car, date=date) for c in conditions]
     step = stepper(progress, 2 * len(conds) + 1)
     written, seen = [], set()
     with output_set(out_dir) as out:

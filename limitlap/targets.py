@@ -1,13 +1,15 @@
 r"""Targets before a session: per-corner speeds and brake points for a grip scale.
 
 For each condition (a grip scale k on the envelope's friction coefficients,
-docs/formats.md, Vehicle files) the ideal profile is solved on the line and read corner
-by corner: the speed where braking starts, the brake point (from the gate and before the
-apex), the minimum speed, the speed at the end of the corner's segment and the segment
-time. The corners are found once on the line and reused for every condition, so the
-tables line up.
+docs/formats.md, Vehicle files) the ideal profile is solved on the line and each corner
+read off it with :func:`limitlap.markers.corner_marks`, the same reading the comparison
+gives the ideal (docs/methods.md, Corner record): every brake point, the entry speed,
+the minimum speed and where, the exit speed, and the segment time. The corners are
+found once on the line and reused for every condition, so the tables line up; for the
+same line, envelope and grip scale the numbers are those of summary.json's ideal.
 
-Named conditions are defaults, overridable by the user (:data:`CONDITIONS`).
+Named conditions are defaults, overridable by the user
+(:data:`limitlap.conditions.CONDITIONS`).
 """
 
 from __future__ import annotations
@@ -18,30 +20,24 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from limitlap import limits
+from limitlap.conditions import CONDITIONS, condition_text, resolve_condition
 from limitlap.corners import Corner, find_corners
-from limitlap.errors import LimitlapError
 from limitlap.line import Line
-from limitlap.markers import (
-    Trace,
-    corner_markers,
-    lowest_speed,
-    station_accel,
-    unwrap_after,
-    unwrapped_bounds,
-    wrap_distance,
-    zone_u,
-)
+from limitlap.markers import corner_marks, ideal_trace, unwrapped_bounds, wrap_distance
 from limitlap.solve import Profile, solve_profile
 from limitlap.units import KMH_TO_M_S
 from limitlap.vehicle import Vehicle, check_grip_scale
 
-#: Default grip scales of the named conditions. Common practice, no published source:
-#: a damp track and intermediate tyres are usually put at 0.8-0.9 of dry grip, rain
-#: tyres on a wet track at 0.6-0.75. For comparison, a road-tyre handbook table (Bosch
-#: Automotive Handbook, new tyre, about 0.2 mm of water) gives wet/dry friction of about
-#: 0.73-0.76; racing wets on a flooded track can be much lower. Override with your own.
-CONDITIONS: dict[str, float] = {"dry": 1.0, "damp": 0.85, "wet": 0.70}
+__all__ = [
+    "CAUTION",
+    "CONDITIONS",
+    "CornerTarget",
+    "TargetCondition",
+    "resolve_condition",
+    "target_table",
+    "target_tables",
+    "targets_json",
+]
 
 #: One-line caution carried by every target table.
 CAUTION = (
@@ -53,44 +49,50 @@ CAUTION = (
 
 @dataclass(frozen=True)
 class CornerTarget:
-    """Targets for one corner at one grip scale (SI; NaN where there is no braking).
+    """Targets for one corner at one grip scale (SI; NaN where there is none).
+
+    The fields are the corner record of docs/methods.md (Corner record), read off the
+    ideal profile.
 
     Attributes
     ----------
-    name : str
-        Corner name.
+    name, label : str
+        Corner name and the track file's label ("" without one).
     apex_m : float
-        The corner's minimum-speed apex, from the gate: of the corner's apexes, the one
-        nearest the minimum speed that is not before the brake point (the main apex
-        unless a compound corner's slowest part is another one). [m]
-    entry_speed_m_s : float
-        Speed at the entry point: the brake point, or turn-in for a corner taken
-        without braking. [m/s]
+        The corner's main apex, from the gate (the same at every grip scale). [m]
+    brake_points_m : tuple of float
+        Start of every deceleration into the corner (a lift counts), in driving order:
+        one per braking zone that reaches it (two for a double apex braked twice). [m]
     brake_start_m : float
-        Where braking into the minimum starts, from the gate; NaN without braking. For
-        a compound corner braked twice, the braking into the minimum-speed apex. [m]
+        The first of them; NaN when the corner is taken without slowing. [m]
     brake_before_apex_m : float
-        Distance from the brake point to ``apex_m`` (≥ 0); NaN without braking. [m]
+        Distance from ``brake_start_m`` to ``apex_m`` along the lap; NaN without
+        braking. [m]
+    entry_speed_m_s : float
+        Speed at ``brake_start_m``; NaN without braking. [m/s]
     min_speed_m_s : float
-        Lowest speed from the entry point to the corner's exit (end of the curvature
-        zone), so never above the entry speed. A corner taken still accelerating
-        (a flat-out kink after a slower corner) has no minimum of its own: its minimum
-        is then the speed at turn-in, equal to its entry speed. [m/s]
+        The profile's lowest minimum of speed in the corner; for a corner taken without
+        slowing (no minimum of its own), the speed at its apex. [m/s]
     min_speed_at_m : float
         Where it is, from the gate. [m]
+    own_minimum : bool
+        The ideal slows in this corner.
     exit_speed_m_s : float
-        Speed at the segment end. [m/s]
+        Speed where the corner's curvature zone ends. [m/s]
     segment_time_s : float
         Time through the segment. [s]
     """
 
     name: str
+    label: str
     apex_m: float
-    entry_speed_m_s: float
+    brake_points_m: tuple[float, ...]
     brake_start_m: float
     brake_before_apex_m: float
+    entry_speed_m_s: float
     min_speed_m_s: float
     min_speed_at_m: float
+    own_minimum: bool
     exit_speed_m_s: float
     segment_time_s: float
 
@@ -111,6 +113,10 @@ class TargetCondition:
         Condition name ('dry', 'wet', ...) when it came from one.
     profile : Profile
         The ideal profile the table was read from.
+    condition : str
+        The condition as outputs name it: its name, or the number as given. [-]
+    length_m : float
+        Lap length of the line. [m]
     """
 
     grip_scale: float
@@ -118,45 +124,8 @@ class TargetCondition:
     corners: tuple[CornerTarget, ...]
     label: str | None
     profile: Profile
-
-
-def resolve_condition(
-    condition: str | float, conditions: Mapping[str, float] | None = None
-) -> tuple[str | None, float]:
-    """A condition name or a number as (label, grip scale).
-
-    Parameters
-    ----------
-    condition : str or float
-        'dry', 'damp', 'wet' (or a name of ``conditions``), or a grip scale. [-]
-    conditions : mapping, optional
-        Names to grip scales, overriding :data:`CONDITIONS`. [-]
-
-    Returns
-    -------
-    tuple
-        (name or None, grip scale checked to 0.2-2.0).
-
-    Examples
-    --------
-    >>> resolve_condition("wet")
-    ('wet', 0.7)
-    >>> resolve_condition(0.9)
-    (None, 0.9)
-    """
-    table = dict(CONDITIONS if conditions is None else conditions)
-    if isinstance(condition, str):
-        key = condition.strip().lower()
-        if key in table:
-            return key, check_grip_scale(table[key])
-        try:
-            return None, check_grip_scale(float(key))
-        except ValueError:
-            names = ", ".join(sorted(table))
-            raise LimitlapError(
-                f"unknown condition '{condition}' (use a grip scale or one of {names})"
-            ) from None
-    return None, check_grip_scale(condition)
+    condition: str = ""
+    length_m: float = math.nan
 
 
 def target_table(
@@ -166,6 +135,7 @@ def target_table(
     corners: Sequence[Corner] | None = None,
     *,
     label: str | None = None,
+    condition: str | None = None,
 ) -> TargetCondition:
     r"""Per-corner targets on ``line`` at one grip scale.
 
@@ -182,6 +152,8 @@ def target_table(
         to every condition so the tables line up.
     label : str, optional
         Condition name to carry.
+    condition : str, optional
+        The condition as given (default the label, else the grip scale).
 
     Returns
     -------
@@ -190,108 +162,49 @@ def target_table(
     Notes
     -----
     The profile is :func:`limitlap.solve.solve_profile` (quasi-steady-state point mass,
-    Lenzo & Rossi 2020). Brake start is where the ideal's speed starts falling into
-    the corner's minimum (its last local maximum before it), at the first crossing of
-    2.5 m/s² deceleration after it, interpolated between stations, as for the ideal in
-    :func:`limitlap.compare.compare_lap`. Apex, brake point and minimum are those of
-    the corner's minimum speed (see :class:`CornerTarget`).
+    Lenzo & Rossi 2020), read by :func:`limitlap.markers.corner_marks` on
+    :func:`limitlap.markers.ideal_trace`, as the comparison reads the ideal.
     """
     k = check_grip_scale(grip_scale)
     if corners is None:
         corners = find_corners(line)
     prof = solve_profile(line, vehicle, k)
-    tr = _profile_trace(line, prof, vehicle.scaled(k))
+    tr = ideal_trace(prof, line, vehicle.scaled(k) if k != 1.0 else vehicle.require_complete())
     bounds = unwrapped_bounds(corners, tr.length, tr.closed)
-    exits = _exit_speeds(line, prof, corners)
-    out = tuple(
-        _corner_target(c, bound, tr, v_exit)
-        for c, bound, v_exit in zip(corners, bounds, exits, strict=True)
-    )
-    return TargetCondition(k, float(prof.lap_time_s), out, label, prof)
+    out = tuple(_corner_target(c, bound, tr) for c, bound in zip(corners, bounds, strict=True))
+    text = condition or label or condition_text(k)
+    return TargetCondition(k, float(prof.lap_time_s), out, label, prof, text, tr.length)
 
 
-def _profile_trace(line: Line, prof: Profile, env: Vehicle) -> Trace:
-    """The ideal profile on ``line`` as a :class:`~limitlap.markers.Trace`.
-
-    ``env`` is the envelope at the profile's grip scale, for the drive it leaves after
-    the lateral demand (:func:`limitlap.limits.drive_accel_available_m_s2`).
-    """
-    grad = np.asarray(line.gradient, dtype=np.float64)
-    sin_grad = grad / np.sqrt(1.0 + grad * grad)
-    return Trace(
-        line.distance_m,
-        float(line.length_m),
-        line.closed,
-        prof.time_s,
-        prof.lap_time_s,
-        prof.speed_m_s,
-        station_accel(prof, line.closed),
-        prof.accel_lat_m_s2,
-        limits.drive_accel_available_m_s2(prof.speed_m_s, prof.accel_lat_m_s2, env, sin_grad),
-    )
-
-
-def _exit_speeds(line: Line, prof: Profile, corners: Sequence[Corner]) -> list[float]:
-    """The profile's speed at each corner's segment end, linear between stations. [m/s]."""
-    s_ext = np.append(line.distance_m, float(line.length_m))
-    v_ext = np.append(prof.speed_m_s, prof.speed_m_s[0] if line.closed else prof.speed_m_s[-1])
-    return [float(np.interp(c.end_m, s_ext, v_ext)) for c in corners]
-
-
-def _corner_target(c: Corner, bound, tr: Trace, exit_speed_m_s: float) -> CornerTarget:
+def _corner_target(c: Corner, bound, tr) -> CornerTarget:
     """One corner's targets on the ideal's trace.
 
     ``bound`` is the corner's entry of :func:`limitlap.markers.unwrapped_bounds`
-    (unwrapped start, apex, end and search limits [m]); ``exit_speed_m_s`` the speed at
-    the segment end [m/s].
+    (unwrapped start, apex, end and search limits [m]).
     """
-    start_u, apex_u, end_u, lo, hi = bound
+    apex_u = bound[1]
     length, closed = tr.length, tr.closed
     seg_time = tr.time_at_mod(c.end_m) - tr.time_at_mod(c.start_m)
     if closed and c.end_m <= c.start_m:
         seg_time += tr.lap_time
-    zone = zone_u(c, start_u, length, closed)
-    mk = corner_markers(tr, lo, start_u, end_u, hi, None, False, zone, apex_u, profile_brake=True)
-    braked = math.isfinite(mk.brake_start)
-    entry_u = mk.brake_start if braked else zone[0]
-    entry = float(np.interp(entry_u, tr.u, tr.v))
-    v_min, min_u = _minimum_after_entry(tr, entry_u, entry, zone[1])
-    apex_at = _apex_of_minimum(c, start_u, entry_u, min_u, length, closed)
-    before = apex_at - mk.brake_start if braked else math.nan
+    mk = corner_marks(tr, c, bound)
+    before = apex_u - mk.brake_start
+    if closed and math.isfinite(before):
+        before = float(np.mod(before, length))
     return CornerTarget(
         name=c.name,
-        apex_m=wrap_distance(apex_at, length, closed),
-        entry_speed_m_s=entry,
+        label=c.label,
+        apex_m=c.apex_m,
+        brake_points_m=tuple(wrap_distance(u, length, closed) for u in mk.brake_points),
         brake_start_m=wrap_distance(mk.brake_start, length, closed),
         brake_before_apex_m=float(before),
-        min_speed_m_s=float(v_min),
-        min_speed_at_m=wrap_distance(min_u, length, closed),
-        exit_speed_m_s=exit_speed_m_s,
+        entry_speed_m_s=mk.entry_speed,
+        min_speed_m_s=mk.min_speed,
+        min_speed_at_m=wrap_distance(mk.min_at, length, closed),
+        own_minimum=mk.own_minimum,
+        exit_speed_m_s=mk.exit_speed,
         segment_time_s=float(seg_time),
     )
-
-
-def _minimum_after_entry(tr: Trace, entry_u: float, entry_speed: float, exit_u: float):
-    """Lowest speed [m/s] from the entry point to the zone's exit, and where [m] (unwrapped).
-
-    Turn-in is included: a corner still accelerating has its minimum, equal to the entry
-    speed, there. An entry point between stations is its own minimum when the stations
-    after it are faster.
-    """
-    v_min, min_u, _ = lowest_speed(tr, entry_u, max(exit_u, entry_u) + 1e-9)
-    if not v_min <= entry_speed:  # the entry point lies between stations
-        v_min, min_u = entry_speed, entry_u
-    return v_min, min_u
-
-
-def _apex_of_minimum(c: Corner, start_u, entry_u, min_u, length: float, closed: bool) -> float:
-    """The apex of the minimum: the corner's apex nearest it not before the entry point.
-
-    The minimum's own place when every apex is before the entry point. [m] (unwrapped)
-    """
-    apexes_u = [unwrap_after(a, start_u, length, closed) for a in c.apexes_m]
-    after = [a for a in apexes_u if a >= entry_u] or [min_u]
-    return min(after, key=lambda a: abs(a - min_u))
 
 
 def target_tables(
@@ -325,7 +238,8 @@ def target_tables(
     out = []
     for cond in conditions:
         label, k = resolve_condition(cond, named)
-        out.append(target_table(line, vehicle, k, corners, label=label))
+        text = condition_text(cond)
+        out.append(target_table(line, vehicle, k, corners, label=label, condition=text))
     return out
 
 
@@ -333,11 +247,30 @@ def _r(x, nd):
     return None if x is None or not math.isfinite(x) else round(float(x), nd)
 
 
+def _corner_json(t: CornerTarget) -> dict:
+    """One corner of ``targets --json``: the interface's keys, then the added ones."""
+    k = 1.0 / KMH_TO_M_S
+    return {
+        "name": t.name,
+        "apex_m": _r(t.apex_m, 1),
+        "entry_speed_kmh": _r(t.entry_speed_m_s * k, 1),
+        "brake_start_m": _r(t.brake_start_m, 1),
+        "min_speed_kmh": _r(t.min_speed_m_s * k, 1),
+        "exit_speed_kmh": _r(t.exit_speed_m_s * k, 1),
+        "segment_time_s": _r(t.segment_time_s, 3),
+        "label": t.label,
+        "brake_points_m": [_r(x, 1) for x in t.brake_points_m],
+        "brake_before_apex_m": _r(t.brake_before_apex_m, 1),
+        "min_speed_at_m": _r(t.min_speed_at_m, 1),
+        "own_minimum": bool(t.own_minimum),
+    }
+
+
 def targets_json(conditions: Sequence[TargetCondition]) -> dict:
     """The ``targets --json`` form of docs/outputs.md, Target sheets (km/h, m, s).
 
-    Distances and speeds are rounded to 0.1, times to 0.001; a corner taken without
-    braking has ``brake_start_m`` null.
+    Distances and speeds are rounded to 0.1, times to 0.001; a value that does not
+    exist (no braking: brake point, entry speed) is null.
 
     Parameters
     ----------
@@ -346,28 +279,19 @@ def targets_json(conditions: Sequence[TargetCondition]) -> dict:
     Returns
     -------
     dict
-        ``{"conditions": [{"grip_scale", "lap_time_s", "corners": [{"name", "apex_m",
-        "entry_speed_kmh", "brake_start_m", "min_speed_kmh", "exit_speed_kmh",
-        "segment_time_s"}]}]}``.
+        ``{"conditions": [{"grip_scale", "lap_time_s", "corners": [...], "condition"}]}``;
+        each corner has the interface's keys (``name``, ``apex_m``, ``entry_speed_kmh``,
+        ``brake_start_m``, ``min_speed_kmh``, ``exit_speed_kmh``, ``segment_time_s``)
+        then ``label``, ``brake_points_m``, ``brake_before_apex_m``, ``min_speed_at_m``
+        and ``own_minimum``.
     """
-    k = 1.0 / KMH_TO_M_S
     return {
         "conditions": [
             {
                 "grip_scale": float(c.grip_scale),
                 "lap_time_s": _r(c.lap_time_s, 3),
-                "corners": [
-                    {
-                        "name": t.name,
-                        "apex_m": _r(t.apex_m, 1),
-                        "entry_speed_kmh": _r(t.entry_speed_m_s * k, 1),
-                        "brake_start_m": _r(t.brake_start_m, 1),
-                        "min_speed_kmh": _r(t.min_speed_m_s * k, 1),
-                        "exit_speed_kmh": _r(t.exit_speed_m_s * k, 1),
-                        "segment_time_s": _r(t.segment_time_s, 3),
-                    }
-                    for t in c.corners
-                ],
+                "corners": [_corner_json(t) for t in c.corners],
+                "condition": c.condition or condition_text(c.grip_scale),
             }
             for c in conditions
         ]

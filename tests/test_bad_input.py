@@ -299,38 +299,46 @@ def test_bad_vehicle_for_analyse(tmp_path, cli):
 
 # ----------------------------------------------------------------------------- grip scales
 
-BAD_GRIPS = [  # (value, message of solve and analyse, message of targets)
-    ("0", "--grip: grip scale 0 is outside 0.2-2.0", "--grip: grip scale 0.0 is outside 0.2-2.0"),
-    (
-        "-1",
-        "--grip: grip scale -1 is outside 0.2-2.0",
-        "--grip: grip scale -1.0 is outside 0.2-2.0",
-    ),
-    ("5", "--grip: grip scale 5 is outside 0.2-2.0", "--grip: grip scale 5.0 is outside 0.2-2.0"),
-    (
-        "abc",
-        "--grip: grip scale 'abc' is not a number",
-        "--grip: unknown condition 'abc' (use a grip scale or one of damp, dry, wet)",
-    ),
+BAD_GRIPS = [  # (value, the one message of every command)
+    ("0", "--grip: grip scale 0 is outside 0.2-2.0"),
+    ("-1", "--grip: grip scale -1 is outside 0.2-2.0"),
+    ("5", "--grip: grip scale 5 is outside 0.2-2.0"),
+    ("abc", "--grip: unknown condition 'abc' (use dry, damp, wet or a grip scale 0.2-2.0)"),
 ]
 
 
-@pytest.mark.parametrize(
-    ("value", "expected", "expected_targets"), BAD_GRIPS, ids=[c[0] for c in BAD_GRIPS]
-)
+@pytest.mark.parametrize(("value", "expected"), BAD_GRIPS, ids=[c[0] for c in BAD_GRIPS])
 @pytest.mark.parametrize("command", ["solve", "targets", "analyse"])
-def test_bad_grip_scale(
-    tmp_path, cli, line_file, vehicle_file, value, expected, expected_targets, command
-):
-    # Checked before any file is read (analyse's log does not even exist).
+def test_bad_grip_scale(tmp_path, cli, vehicle_file, value, expected, command):
+    # Checked while the options are parsed, before any file is read: the log or line
+    # file does not even exist. Every command says it the same way.
+    missing = tmp_path / "unread.csv"
     if command == "analyse":
-        args = ["analyse", tmp_path / "unread.csv", "--grip", value, "--out", tmp_path / "out"]
+        args = ["analyse", missing, "--grip", value, "--out", tmp_path / "out"]
     else:
-        args = [command, line_file, "--vehicle", vehicle_file, "--grip", value]
+        args = [command, missing, "--vehicle", vehicle_file, "--grip", value]
     code, out, err = cli(*args)
-    message = one_error_line(code, err)
-    assert message == (expected_targets if command == "targets" else expected)
+    assert one_error_line(code, err) == expected
     assert out == ""
+
+
+@pytest.mark.parametrize("command", ["solve", "targets"])
+def test_grip_takes_condition_names_in_every_command(cli, line_file, vehicle_file, command):
+    # docs/formats.md, Vehicle files: dry 1.0, damp 0.85, wet 0.70 or a number, in every
+    # command that has --grip; the named scale is the number's.
+    runs = {}
+    for value in ("damp", "0.85"):
+        code, out, err = cli(
+            command, line_file, "--vehicle", vehicle_file, "--grip", value, "--json"
+        )
+        assert code == 0, err
+        runs[value] = json.loads(out)
+    if command == "solve":
+        assert runs["damp"] == runs["0.85"] and runs["damp"]["grip_scale"] == 0.85
+    else:
+        named, number = runs["damp"]["conditions"][0], runs["0.85"]["conditions"][0]
+        assert (named["condition"], number["condition"]) == ("damp", "0.85")
+        assert named["lap_time_s"] == number["lap_time_s"] and named["grip_scale"] == 0.85
 
 
 # ----------------------------------------------------------------------------- line files

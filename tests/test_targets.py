@@ -4,6 +4,7 @@ import itertools
 import json
 import math
 
+import numpy as np
 import pytest
 
 from limitlap import cli, solve, targets
@@ -133,8 +134,9 @@ def test_json_form_matches_the_interface(line, corners):
     json.dumps(doc, allow_nan=False)  # plain JSON, no NaN
     assert list(doc) == ["conditions"]
     cond = doc["conditions"][1]
-    # docs/outputs.md, Target sheets `targets --json` keys, exactly.
-    assert list(cond) == ["grip_scale", "lap_time_s", "corners"]
+    # docs/outputs.md, Target sheets `targets --json` keys, exactly: the interface's
+    # first, in its order, then the added ones.
+    assert list(cond) == ["grip_scale", "lap_time_s", "corners", "condition"]
     assert list(cond["corners"][0]) == [
         "name",
         "apex_m",
@@ -143,8 +145,16 @@ def test_json_form_matches_the_interface(line, corners):
         "min_speed_kmh",
         "exit_speed_kmh",
         "segment_time_s",
+        "label",
+        "brake_points_m",
+        "brake_before_apex_m",
+        "min_speed_at_m",
+        "own_minimum",
     ]
-    assert cond["grip_scale"] == 0.70
+    assert cond["grip_scale"] == 0.70 and cond["condition"] == "wet"
+    assert doc["conditions"][0]["condition"] == "dry"
+    for c in cond["corners"]:  # brake_start_m is the first of every brake point
+        assert c["brake_start_m"] == (c["brake_points_m"][0] if c["brake_points_m"] else None)
     # km/h by the exact factor 3.6, rounded to 0.1; seconds to 0.001.
     t = tables[1].corners[0]
     assert cond["corners"][0]["min_speed_kmh"] == pytest.approx(
@@ -170,22 +180,30 @@ def test_terminal_table_and_conditions(line, corners):
 
 @pytest.mark.parametrize("car", [EXAMPLE_CAR, friction_car(mu=1.2, mu_brk=1.3, mu_trac=1.1)])
 def test_apex_brake_point_and_minimum_are_consistent(line, corners, car):
-    # Definitions of CornerTarget (no published source): the apex shown is one of the
-    # corner's apexes, the brake point lies before it by brake_before_apex_m (exactly:
-    # same numbers), the minimum lies between the entry point and the corner's exit
-    # and is never above the entry speed (1e-9: interpolation rounding).
+    # The corner record of docs/methods.md (no published source): the apex shown is the
+    # corner's main apex at every grip scale; the brake points are in driving order and
+    # the first is brake_start_m, brake_before_apex_m from the apex (exactly: same
+    # numbers); the entry speed is the speed at the first brake point and never below
+    # the minimum (1e-9: interpolation rounding); without braking both are blank.
     length = line.length_m
     for k in SCALES:
         table = targets.target_table(line, car, k, corners)
         for t, c in zip(table.corners, corners, strict=True):
-            assert t.apex_m in c.apexes_m
-            assert t.min_speed_m_s <= t.entry_speed_m_s + 1e-9
-            if math.isfinite(t.brake_start_m):
-                assert t.brake_before_apex_m >= 0.0
+            assert t.apex_m == c.apex_m
+            if t.brake_points_m:
+                assert t.brake_start_m == t.brake_points_m[0]
                 ahead = (t.apex_m - t.brake_start_m) % length
                 assert ahead == pytest.approx(t.brake_before_apex_m, abs=1e-9)
-                assert (t.min_speed_at_m - t.brake_start_m) % length < length / 2
+                assert t.min_speed_m_s <= t.entry_speed_m_s + 1e-9
+                v_at = float(np.interp(t.brake_start_m, line.distance_m, table.profile.speed_m_s))
+                assert t.entry_speed_m_s == pytest.approx(v_at, rel=1e-3)
             else:
+                assert math.isnan(t.brake_start_m) and math.isnan(t.entry_speed_m_s)
                 assert math.isnan(t.brake_before_apex_m)
-                # No braking: the entry is turn-in, the minimum at or after it.
-                assert (t.min_speed_at_m - c.turn_in_m) % length < length / 2
+            if t.own_minimum:  # the profile's own minimum, no lower station near it
+                near = np.abs(
+                    (line.distance_m - t.min_speed_at_m + length / 2) % length - length / 2
+                )
+                assert t.min_speed_m_s == pytest.approx(
+                    table.profile.speed_m_s[near <= 25.0].min(), rel=1e-9
+                )
