@@ -26,6 +26,7 @@ from pathlib import Path
 import numpy as np
 
 from limitlap import (
+    bands,
     best_laps,
     compare,
     envelope,
@@ -41,6 +42,7 @@ from limitlap import (
 from limitlap import corners as corners_mod
 from limitlap import driven as driven_mod
 from limitlap import laps as laps_mod
+from limitlap import session as session_mod
 from limitlap.errors import InputError, LimitlapError, UnitMismatch, WarningLine
 from limitlap.samples import select_samples
 from limitlap.vehicle import Vehicle, check_grip_scale
@@ -125,6 +127,12 @@ class Analysis:
         One line each; those with advice are :class:`limitlap.errors.WarningLine`.
     gg_bands : list of gg.GGBand
         The analysed lap's samples against the envelope in the g-g diagram, by speed band.
+    session : session.SessionTable or None
+        Every lap of the log: kind, time, ideal on its own line, time left, grip found,
+        corner times; and each corner's consistency over the flying laps.
+    bands : bands.Bands or None
+        Intervals of the ideal lap time and each corner's time left (None with fewer
+        than :data:`limitlap.bands.MIN_LAPS` flying laps, or when not asked for).
     """
 
     log_path: str
@@ -145,6 +153,8 @@ class Analysis:
     corner_labels: dict[str, str] = field(default_factory=dict)
     warnings: list[str] = field(default_factory=list)
     gg_bands: list[gg.GGBand] = field(default_factory=list)
+    session: session_mod.SessionTable | None = None
+    bands: bands.Bands | None = None
 
 
 def lap_timelines(log: logfile.Log, laps) -> dict[int, LapTimeline]:
@@ -343,6 +353,8 @@ def analyse(
     track=None,
     progress: Progress | None = None,
     check_units: bool = True,
+    every_lap: bool = True,
+    intervals: bool = True,
 ) -> Analysis:
     """The whole job on one log: laps, line, envelope, ideal lap, comparison.
 
@@ -366,6 +378,10 @@ def analyse(
         Stop with :class:`limitlap.errors.UnitMismatch` when a channel disagrees with the
         GPS path by a unit factor or a sign (:func:`limitlap.unit_checks.check_units`);
         False turns that into a warning. [-]
+    every_lap : bool
+        Build the table of every lap (:mod:`limitlap.session`). [-]
+    intervals : bool
+        Work out the bands (:mod:`limitlap.bands`; needs ``every_lap``). [-]
 
     Returns
     -------
@@ -400,6 +416,15 @@ def analyse(
     )
     _step(progress, 5, _STEPS, "best of the session's own laps")
     complete_laps, best = _best_of_laps(laps, chosen, the_lap, timelines, corners, ideal)
+    table = band = None
+    if every_lap:
+        table = _session_table(
+            log, laps, chosen, the_lap, ideal, car, k, corners, best, grip_est, beside
+        )
+        if intervals:
+            band = _bands(
+                log, laps, chosen, table, the_lap, ideal, car, k, corners, comparison, fit, beside
+            )
     _step(progress, 6, _STEPS, "done")
     return Analysis(
         log_path=str(log_path),
@@ -422,6 +447,82 @@ def analyse(
         gg_bands=gg.gg_bands(
             the_lap.speed_m_s, the_lap.accel_lon_m_s2, the_lap.accel_lat_m_s2, car, k
         ),
+        session=table,
+        bands=band,
+    )
+
+
+def _line_draws(log, laps, chosen, records, the_lap, ideal, car, k, corners):
+    """The ideal lap and corner times on the analysed lap's line and on the rebuilt lines of up to :data:`limitlap.bands.LINE_LAPS` other flying laps (those nearest it in the session), corners mapped by distance fraction."""
+    by_number = {lp.number: lp for lp in laps}
+    ref = the_lap.line
+    others = [r.number for r in records if r.number != chosen.number]
+    near = sorted(others, key=lambda n: (abs(n - chosen.number), n))[: bands.LINE_LAPS]
+    lap_times = [ideal.lap_time_s]
+    corner_times = [bands.corner_ideal(ref, ideal, corners)]
+    for n in near:
+        line = driven_mod.reconstruct_lap(log, by_number[n]).line
+        prof = solve.solve_profile(line, car, k)
+        lap_times.append(prof.lap_time_s)
+        corner_times.append(bands.corner_ideal(line, prof, corners, line.length_m / ref.length_m))
+    return np.array(lap_times), np.vstack(corner_times)
+
+
+def _bands(log, laps, chosen, table, the_lap, ideal, car, k, corners, comparison, fit, beside):
+    """The analysed lap's bands (:func:`limitlap.bands.session_bands`) over the envelope's laps (the timed flying laps when the envelope was given)."""
+    fit_laps = {lp.number for lp in laps_mod.flying_laps(laps)} if fit is not None else None
+    records = [
+        r
+        for r in table.flying()
+        if r.ideal_corner_times_s is not None and (fit_laps is None or r.number in fit_laps)
+    ]
+    if not records:
+        return None
+    line_draws = _line_draws(log, laps, chosen, records, the_lap, ideal, car, k, corners)
+    level_data = None
+    sel = beside.selection()
+    if fit is not None and sel is not None:
+        by_number = {lp.number: lp for lp in laps}
+        lap_index = np.full(sel.used.shape[0], -1, dtype=np.int64)
+        for i, r in enumerate(records):
+            lp = by_number[r.number]
+            lap_index[lp.start_index : lp.end_index] = i
+        rows = np.flatnonzero(fit.used & (lap_index >= 0))
+        level_data = (
+            *bands.level_samples(
+                sel.speed_m_s[rows],
+                sel.accel_lon_m_s2[rows],
+                sel.accel_lat_m_s2[rows],
+                lap_index[rows],
+                car,
+            ),
+            len(records),
+        )
+    corners_cmp = comparison.corners
+    return bands.session_bands(
+        the_lap.line,
+        ideal,
+        car,
+        corners,
+        [c.actual_s for c in corners_cmp],
+        comparison.lap_time_s,
+        line_draws,
+        level_data,
+        grip_scale=k,
+        quantile=fit.quality["quantile"] if fit is not None else 0.99,
+        ranks=[c.rank for c in corners_cmp],
+    )
+
+
+def _session_table(log, laps, chosen, the_lap, ideal, car, k, corners, best, grip_est, beside):
+    """Every lap's figures (:func:`limitlap.session.session_table`); the analysed lap's grip is the headline's, the others' read from the envelope's filtered samples when there are some."""
+    timed = [lp for lp in laps if lp.complete and lp is not chosen]
+    grips = session_mod.lap_grip_estimates(
+        log, timed, car, selection=beside.selection(), rate_hz=_sample_rate(log)
+    )
+    grips[chosen.number] = grip_est
+    return session_mod.session_table(
+        log, laps, chosen, the_lap.line, ideal, car, corners, best, grip_scale=k, grips=grips
     )
 
 
@@ -491,6 +592,7 @@ class _EnvelopeBeside:
         self._pool = ThreadPoolExecutor(max_workers=1)
         self._selection: Future | None = None
         self._fitting: Future | None = None
+        self._rows = -1
 
     def __enter__(self) -> _EnvelopeBeside:
         return self
@@ -505,6 +607,7 @@ class _EnvelopeBeside:
         if not all(c in ch and np.isfinite(ch[c]).any() for c in ("accel_lon", "accel_lat")):
             return
         rate = float(1.0 / np.median(np.diff(time_s)))  # as _sample_rate
+        self._rows = time_s.shape[0]
         self._selection = self._pool.submit(
             select_samples,
             ch["speed"],
@@ -522,6 +625,13 @@ class _EnvelopeBeside:
             self._fitting = self._pool.submit(
                 _fit, self._log_path, samples, self.base, self._selection
             )
+
+    def selection(self):
+        """The whole log's filtered samples (:func:`limitlap.samples.select_samples`) the fit used, None when none were made."""
+        if self._selection is None:
+            return None
+        sel = self._selection.result()
+        return sel if sel.used.shape[0] == self._rows else None
 
     def fitted(self) -> envelope.EnvelopeFit | None:
         """The fit :meth:`start_fit` started (waiting for it), None when it started none."""

@@ -1,0 +1,434 @@
+r"""Every lap of a session: its kind, time, ideal on its own line, time left, grip, corners.
+
+:func:`session_table` puts every lap of a log in one table (docs/outputs.md,
+summary.json, ``laps``): the lap's kind (out, flying, in, pit, partial), its time, and for
+each lap timed gate to gate the ideal on that lap's own line at the session's envelope,
+the time left against it, the grip scale the lap showed against the envelope and each
+corner's time; and, per corner, how consistent the flying laps were (the spread of their
+corner times).
+
+Each lap's own line without a second rebuild
+---------------------------------------------
+Rebuilding a lap's line (:func:`limitlap.driven.reconstruct_lap`: two smoothers over the
+lap's rows) costs about 17 ms; on a one-hour session that is more than the whole
+analysis. The analysed lap's line is already rebuilt, and the laps of one session are
+driven on nearly the same path, so every other lap's line is that line plus the lap's
+own differences of curvature (docs/methods.md, Every lap):
+
+.. math:: \kappa_j(s) = \kappa_{ref}(s) + G_\sigma * \big[\hat\kappa_j(s) - \hat\kappa_{ref}(s)\big],
+
+where :math:`\hat\kappa = \dot\psi / v` is the course rate over speed from the lap's own
+inertial channels (yaw rate and :math:`a_y/v`, weighted by their noise as the rebuild
+weights them), put on the analysed lap's stations by the fraction of the lap's
+distance travelled (:func:`limitlap.gnss.travelled_m`), and :math:`G_\sigma` a Gaussian
+of :data:`LINE_DIFFERENCE_SMOOTHING_M`. A gyro bias common to both laps cancels in the
+difference; the GNSS-corrected shape of the rebuilt line is kept. The lap's length is
+the analysed line's times the ratio of the two laps' travelled distances, and the
+curvature is shifted by a constant so the lap turns a whole number of turns (as the
+rebuild does). For the analysed lap the difference is zero, so its row holds the
+headline ideal exactly.
+"""
+
+from __future__ import annotations
+
+import math
+from collections.abc import Mapping, Sequence
+from dataclasses import dataclass
+
+import numpy as np
+from scipy.ndimage import gaussian_filter1d
+
+from limitlap import gnss, grip, solve
+from limitlap.best_laps import segment_times
+from limitlap.driven import MIN_SPEED_M_S, SIGMA_ACCEL_M_S2, SIGMA_YAW_RAD_S
+from limitlap.envelope import FIT_RATE_HZ
+from limitlap.errors import LimitlapError
+from limitlap.laps import Lap
+from limitlap.line import Line
+from limitlap.samples import Selection
+from limitlap.vehicle import Vehicle
+
+#: The kinds a lap can be (docs/outputs.md, summary.json, ``laps``). [-]
+KINDS = ("out", "flying", "in", "pit", "partial")
+
+#: Gaussian smoothing (standard deviation) of a lap's curvature difference from the
+#: analysed lap. On generated sessions whose laps all follow one line, 1 m (the rebuild's
+#: own smoothing) left enough gyro noise in the difference to make the other laps' ideals
+#: 0.04-0.10 s slower than the analysed lap's; 5 m brought them to the rebuild's own
+#: scatter (each lap rebuilt: 0.02-0.04 s standard deviation about the generator's
+#: ideal) while keeping 82 % of a line difference 50 m long (Gaussian response
+#: :math:`e^{-2\pi^2\sigma^2/\lambda^2}`). Measured here, no published source. [m]
+LINE_DIFFERENCE_SMOOTHING_M = 5.0
+
+
+def lap_kind(lap: Lap, laps: Sequence[Lap]) -> str:
+    """The kind of a lap: ``out``, ``flying``, ``in``, ``pit`` or ``partial``.
+
+    The one place the kind is read: the lap's own ``kind`` where the lap split gives one;
+    otherwise from what the split says: a complete lap is flying; the stretch before the
+    first gate crossing that starts at rest is the out-lap, the one after the last that
+    ends at rest the in-lap; a lap with a stop is a pit lap; the rest partial.
+
+    Parameters
+    ----------
+    lap : laps.Lap
+        The lap. [-]
+    laps : sequence of laps.Lap
+        Every lap of its log, in order. [-]
+
+    Returns
+    -------
+    str
+        One of :data:`KINDS`. [-]
+    """
+    kind = getattr(lap, "kind", None)
+    if kind:
+        return str(kind)
+    if lap.complete:
+        return "flying"
+    reason = lap.reason.lower()
+    if "stop" in reason:
+        return "pit"
+    if "partial" in reason:
+        return "partial"
+    if lap is laps[0] or lap.number == 0:
+        return "out"
+    if lap is laps[-1]:
+        return "in"
+    return "partial"
+
+
+@dataclass(frozen=True, eq=False)
+class LapRecord:
+    """One lap of the session table (SI; None where the lap is not timed gate to gate).
+
+    Attributes
+    ----------
+    number : int
+        Lap number (docs/formats.md, Log files). [-]
+    kind : str
+        One of :data:`KINDS`. [-]
+    time_s : float
+        Lap time (gate to gate, or the stretch's duration). [s]
+    ideal_time_s : float or None
+        The ideal on this lap's own line at the session's envelope and grip scale. [s]
+    time_left_s : float or None
+        ``time_s - ideal_time_s``. [s]
+    grip_estimate : float or None
+        Grip scale the lap used against the envelope (:func:`limitlap.grip.grip_estimate`). [-]
+    corner_times_s : numpy.ndarray or None
+        Time in each corner's segment, corners mapped onto the lap by distance from the
+        gate (:func:`limitlap.best_laps.segment_times`), in corner order. [s]
+    ideal_corner_times_s : numpy.ndarray or None
+        The ideal's time in each segment on this lap's own line. [s]
+    """
+
+    number: int
+    kind: str
+    time_s: float
+    ideal_time_s: float | None = None
+    time_left_s: float | None = None
+    grip_estimate: float | None = None
+    corner_times_s: np.ndarray | None = None
+    ideal_corner_times_s: np.ndarray | None = None
+
+    @property
+    def timed(self) -> bool:
+        """True when the lap has the per-lap figures (timed gate to gate)."""
+        return self.ideal_time_s is not None
+
+
+@dataclass(frozen=True)
+class CornerConsistency:
+    """How alike one corner's times were over the flying laps (SI).
+
+    Attributes
+    ----------
+    name : str
+        Corner name. [-]
+    n_laps : int
+        Flying laps counted. [-]
+    best_s, mean_s : float
+        Best and mean segment time. [s]
+    spread_s : float
+        Sample standard deviation of the segment times (NaN with one lap). [s]
+    range_s : float
+        Slowest minus best. [s]
+    """
+
+    name: str
+    n_laps: int
+    best_s: float
+    mean_s: float
+    spread_s: float
+    range_s: float
+
+
+@dataclass(frozen=True, eq=False)
+class SessionTable:
+    """Every lap of a session and each corner's consistency.
+
+    Attributes
+    ----------
+    laps : tuple of LapRecord
+        Every lap of the log, in order.
+    corner_names : tuple of str
+        The corners of ``corner_times_s``, in driving order.
+    consistency : tuple of CornerConsistency
+        One per corner, over the flying laps.
+    """
+
+    laps: tuple[LapRecord, ...]
+    corner_names: tuple[str, ...]
+    consistency: tuple[CornerConsistency, ...]
+
+    def timed(self) -> list[LapRecord]:
+        """The laps with per-lap figures, in order."""
+        return [r for r in self.laps if r.timed]
+
+    def flying(self) -> list[LapRecord]:
+        """The timed laps whose kind is flying."""
+        return [r for r in self.laps if r.timed and r.kind == "flying"]
+
+
+def _fraction_rows(log, lap: Lap):
+    """The lap's rows and their fraction of its travelled distance (0 at the gate, 1 at the next); and the lap's travelled distance [m].
+
+    The gate crossings are interpolated between the rows either side of the lap's own
+    (as :func:`limitlap.pipeline.lap_timelines` does on the whole log).
+    """
+    rows = slice(lap.start_index, lap.end_index)
+    s = gnss.travelled_m(log)
+    lo, hi = max(lap.start_index - 1, 0), min(lap.end_index + 1, s.shape[0])
+    s0, s1 = np.interp([lap.start_time_s, lap.end_time_s], log.time_s[lo:hi], s[lo:hi])
+    length = float(s1 - s0)
+    return rows, (s[rows] - s0) / length, length
+
+
+def course_curvature(log, rows: slice) -> np.ndarray | None:
+    r"""Course rate over speed, :math:`\dot\psi/v`, on rows of a log.
+
+    Yaw rate and :math:`a_y/v` weighted by the inverse of their noise variance as the
+    line rebuild weights them (:mod:`limitlap.driven`); NaN where both cells are blank.
+    None when the log has neither channel.
+
+    Parameters
+    ----------
+    log : logfile.Log
+        The session. [-]
+    rows : slice
+        The rows. [-]
+
+    Returns
+    -------
+    numpy.ndarray or None
+        Curvature per row. [1/m]
+    """
+    has_yaw, has_ay = log.has("yaw_rate"), log.has("accel_lat")
+    if not (has_yaw or has_ay):
+        return None
+    vv = np.maximum(np.asarray(log.channels["speed"][rows], dtype=np.float64), MIN_SPEED_M_S)
+    num = np.zeros(vv.shape)
+    den = np.zeros(vv.shape)
+    if has_yaw:
+        r = log.channels["yaw_rate"][rows]
+        ok = np.isfinite(r)
+        num += np.where(ok, r, 0.0) / SIGMA_YAW_RAD_S**2
+        den += ok / SIGMA_YAW_RAD_S**2
+    if has_ay:
+        ay = log.channels["accel_lat"][rows]
+        ok = np.isfinite(ay)
+        var = (SIGMA_ACCEL_M_S2 / vv) ** 2
+        num += np.where(ok, ay / vv, 0.0) / var
+        den += ok / var
+    with np.errstate(invalid="ignore", divide="ignore"):
+        return num / den / vv
+
+
+def _on_stations(kappa_rows, offset: int, lap: Lap, frac, fraction):
+    """A lap's per-row curvature (rows from ``offset``) at fractions of its distance; None without."""
+    if kappa_rows is None:
+        return None
+    k = kappa_rows[lap.start_index - offset : lap.end_index - offset]
+    keep = np.isfinite(k) & np.concatenate(([True], np.diff(frac) > 0))
+    if keep.sum() < 2:
+        return None
+    return np.interp(fraction, frac[keep], k[keep])
+
+
+def own_line(ref: Line, ref_course, course, length_ratio: float) -> Line:
+    """A lap's own line: the analysed lap's line plus the lap's curvature differences.
+
+    See the module text. ``ref_course`` and ``course`` are :func:`course_curvature` of
+    the analysed lap and of this lap on ``ref``'s stations (None: no inertial channels,
+    the shape is kept); ``length_ratio`` the ratio of their travelled distances. [1/m], [-]
+    """
+    ds = float(ref.length_m) / ref.n
+    kappa = np.asarray(ref.curvature_1_m, dtype=np.float64)
+    if ref_course is not None and course is not None:
+        diff = gaussian_filter1d(course - ref_course, LINE_DIFFERENCE_SMOOTHING_M / ds, mode="wrap")
+        kappa = kappa + diff
+    length = float(ref.length_m) * length_ratio
+    turns = round(float(np.sum(ref.curvature_1_m)) * ds / (2.0 * math.pi))
+    kappa = kappa - (kappa.sum() * ds * length_ratio - 2.0 * math.pi * turns) / length
+    return Line(ref.distance_m * length_ratio, kappa, ref.gradient, length, True)
+
+
+def lap_grip_estimates(
+    log, laps: Sequence[Lap], vehicle: Vehicle, *, selection: Selection | None, rate_hz
+) -> dict[int, float | None]:
+    """Grip scale each lap used against ``vehicle`` (:func:`limitlap.grip.grip_estimate`).
+
+    With ``selection`` (the whole log's filtered samples, :func:`limitlap.samples.select_samples`
+    as the envelope fit made them) every lap is estimated in one pass over its rows,
+    thinned to about the envelope fit's rate (:data:`limitlap.envelope.FIT_RATE_HZ`: after
+    the 3 Hz low-pass nothing above it is left; :func:`limitlap.grip.grip_estimates_of_stretches`);
+    without, each lap's rows with 2 s either side are filtered on their own, as the
+    analysed lap's estimate is (the filters reach well under a second, so both give the
+    same values inside the lap). None for a lap without usable samples or without
+    acceleration channels.
+    """
+    if not (log.has("accel_lon") and log.has("accel_lat")) or not laps:
+        return {lp.number: None for lp in laps}
+    if selection is not None:
+        step = max(int(rate_hz // FIT_RATE_HZ), 1) if rate_hz else 1
+        k = grip.grip_estimates_of_stretches(
+            selection.speed_m_s,
+            selection.accel_lon_m_s2,
+            selection.accel_lat_m_s2,
+            vehicle,
+            [(lp.start_index, lp.end_index) for lp in laps],
+            mask=selection.used,
+            step=step,
+        )
+        return {
+            lp.number: float(x) if math.isfinite(x) else None for lp, x in zip(laps, k, strict=True)
+        }
+    out = {}
+    for lp in laps:
+        v, ax, ay, mask = _padded_rows(log, lp, rate_hz)
+        try:
+            out[lp.number] = grip.grip_estimate(
+                v, ax, ay, vehicle, mask=mask, sample_rate_hz=rate_hz
+            )
+        except LimitlapError:
+            out[lp.number] = None
+    return out
+
+
+def _padded_rows(log, lap: Lap, rate_hz, pad_s: float = 2.0):
+    """Speed, a_x, a_y of the lap's rows with ``pad_s`` either side, and the mask of its own rows."""
+    n = log.time_s.shape[0]
+    pad = math.ceil(pad_s * rate_hz) if rate_hz else 0
+    lo, hi = max(lap.start_index - pad, 0), min(lap.end_index + pad, n)
+    mask = np.zeros(hi - lo, dtype=bool)
+    mask[lap.start_index - lo : lap.end_index - lo] = True
+    v, ax, ay = (log.channels[c][lo:hi] for c in ("speed", "accel_lon", "accel_lat"))
+    return v, ax, ay, mask & np.isfinite(v) & np.isfinite(ax) & np.isfinite(ay)
+
+
+def session_table(
+    log,
+    laps: Sequence[Lap],
+    analysed: Lap,
+    ref: Line,
+    ideal: solve.Profile,
+    vehicle: Vehicle,
+    corners,
+    segment_table,
+    *,
+    grip_scale: float = 1.0,
+    grips: Mapping[int, float | None] | None = None,
+) -> SessionTable:
+    """Every lap of the session with its figures (see the module text).
+
+    Parameters
+    ----------
+    log : logfile.Log
+        The session. [-]
+    laps : sequence of laps.Lap
+        Every lap of the log. [-]
+    analysed : laps.Lap
+        The analysed lap, whose line ``ref`` is. [-]
+    ref : line.Line
+        The analysed lap's rebuilt line. [-]
+    ideal : solve.Profile
+        The ideal on ``ref`` (the analysed lap's row uses it as it is). [-]
+    vehicle : Vehicle
+        The session's envelope at grip scale 1. [-]
+    corners : sequence of corners.Corner
+        The corners found on ``ref``. [-]
+    segment_table : best_laps.BestOfLaps or None
+        Each complete lap's segment times (its ``lap_numbers`` and ``segment_times_s``). [-]
+    grip_scale : float
+        Grip scale the ideals are solved at. [-]
+    grips : mapping lap number -> float or None, optional
+        Each lap's grip estimate (:func:`lap_grip_estimates`). [-]
+
+    Returns
+    -------
+    SessionTable
+    """
+    grips = grips or {}
+    seg_rows = {}
+    if segment_table is not None:
+        seg_rows = dict(zip(segment_table.lap_numbers, segment_table.segment_times_s, strict=True))
+    u = np.asarray(ref.distance_m, dtype=np.float64) / float(ref.length_m)
+    complete = [lp for lp in laps if lp.complete]
+    lo = min(lp.start_index for lp in complete)
+    kappa_rows = course_curvature(log, slice(lo, max(lp.end_index for lp in complete)))
+    _, ref_frac, ref_length = _fraction_rows(log, analysed)
+    ref_course = _on_stations(kappa_rows, lo, analysed, ref_frac, u)
+    records = []
+    for lp in laps:
+        kind = lap_kind(lp, laps)
+        if not lp.complete:
+            records.append(LapRecord(lp.number, kind, float(lp.time_s)))
+            continue
+        if lp is analysed:
+            prof, ratio = ideal, 1.0
+        else:
+            _, frac, length = _fraction_rows(log, lp)
+            ratio = length / ref_length
+            line = own_line(ref, ref_course, _on_stations(kappa_rows, lo, lp, frac, u), ratio)
+            prof = solve.solve_profile(line, vehicle, grip_scale)
+        ideal_corners = segment_times(
+            prof.distance_m, ref.length_m * ratio, prof.time_s, prof.lap_time_s, corners, ratio
+        )
+        records.append(
+            LapRecord(
+                number=lp.number,
+                kind=kind,
+                time_s=float(lp.time_s),
+                ideal_time_s=float(prof.lap_time_s),
+                time_left_s=float(lp.time_s) - float(prof.lap_time_s),
+                grip_estimate=grips.get(lp.number),
+                corner_times_s=seg_rows.get(lp.number),
+                ideal_corner_times_s=ideal_corners,
+            )
+        )
+    names = tuple(c.name for c in corners)
+    return SessionTable(tuple(records), names, _consistency(records, names))
+
+
+def _consistency(records: Sequence[LapRecord], names) -> tuple[CornerConsistency, ...]:
+    """Each corner's best, mean, standard deviation and range over the flying laps."""
+    rows = [
+        r.corner_times_s for r in records if r.kind == "flying" and r.corner_times_s is not None
+    ]
+    if not rows:
+        return ()
+    table = np.vstack(rows)
+    n = table.shape[0]
+    spread = table.std(axis=0, ddof=1) if n > 1 else np.full(table.shape[1], np.nan)
+    return tuple(
+        CornerConsistency(
+            name=name,
+            n_laps=n,
+            best_s=float(table[:, j].min()),
+            mean_s=float(table[:, j].mean()),
+            spread_s=float(spread[j]),
+            range_s=float(table[:, j].max() - table[:, j].min()),
+        )
+        for j, name in enumerate(names)
+    )
