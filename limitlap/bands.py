@@ -41,6 +41,7 @@ import numpy as np
 
 from limitlap import solve
 from limitlap.best_laps import segment_times
+from limitlap.formatting import with_band
 from limitlap.grip import POWER_LIMIT_MARGIN
 from limitlap.limits import normal_load_n, power_force_n, resistance_n
 from limitlap.vehicle import Vehicle
@@ -326,3 +327,27 @@ def half_width(band) -> float:
     """Half the width of a band (the "± x" of its display). [s]."""
     lo, hi = band
     return 0.5 * (hi - lo) if math.isfinite(lo) and math.isfinite(hi) else math.nan
+
+
+def advice_shown(name: str, time_left_s: float, band, advice: str) -> str:
+    """The advice line to show for a corner: none when its band includes zero, a note instead.
+
+    Parameters
+    ----------
+    name : str
+        Corner name. [-]
+    time_left_s : float
+        Its time left. [s]
+    band : tuple of float or None
+        Its time-left band; None: no band, the advice as it is. [s]
+    advice : str
+        The comparison's advice line. [-]
+
+    Returns
+    -------
+    str
+        ``advice``, or ``"T10: 0.01 ± 0.02 s — within the uncertainty, no advice"``. [-]
+    """
+    if band is None or not (band[0] <= 0.0 <= band[1]):
+        return advice
+    return f"{name}: {with_band(time_left_s, band)} — within the uncertainty, no advice"

@@ -408,6 +408,8 @@ class ReportView:
     fit_laps: list = dataclasses.field(default_factory=list)
     curvature_check: CurvatureCheck | None = None
     gg_bands: list = dataclasses.field(default_factory=list)
+    session: object = None
+    bands: object = None
 
 
 def _best_of_laps(best: BestOfLaps | None, corners) -> float:
@@ -436,6 +438,7 @@ def report_view(analysis) -> ReportView:
     for c in corners:  # the track file's names for its corners ("Sentry"), where given
         if analysis.corner_labels.get(c["name"]):
             c["label"] = str(analysis.corner_labels[c["name"]])
+    _with_bands(corners, getattr(analysis, "bands", None))
     warnings = [str(w) for w in analysis.warnings]
     fit_warnings = analysis.fit.warnings if analysis.fit is not None else []
     for extra in (driven.warnings, fit_warnings):
@@ -477,7 +480,64 @@ def report_view(analysis) -> ReportView:
         fit_laps=[int(n) for n in analysis.fit_laps],
         curvature_check=driven.curvature_check,
         gg_bands=analysis.gg_bands,
+        session=getattr(analysis, "session", None),
+        bands=getattr(analysis, "bands", None),
     )
+
+
+def _with_bands(corners, bands) -> None:
+    """Each corner row gets its time-left band and rank group; a corner whose band includes zero gets a note in place of its advice (:func:`limitlap.bands.advice_shown`)."""
+    if bands is None:
+        return
+    from limitlap.bands import advice_shown
+
+    for i, c in enumerate(corners):
+        band = tuple(bands.corner_bands_s[i])
+        c["time_left_band_s"] = band
+        c["rank_group"] = int(bands.rank_group[i])
+        c["plain"] = advice_shown(c["name"], c["time_left_s"], band, c["plain"])
+        if "_summary" in c:
+            c["_summary"] = {**c["_summary"], "advice": c["plain"]}
+
+
+def session_laps(table) -> list[dict]:
+    """summary.json ``laps`` (docs/outputs.md): one record per lap of the log, in order.
+
+    ``number``, ``kind``, ``time_s``; for each lap timed gate to gate also
+    ``ideal_time_s``, ``time_left_s``, ``grip_estimate`` and ``corner_times_s`` (corner
+    order), plus ``ideal_corner_times_s``.
+    """
+    out = []
+    for r in table.laps:
+        rec = {"number": r.number, "kind": r.kind, "time_s": r.time_s}
+        if r.timed:
+            rec["ideal_time_s"] = r.ideal_time_s
+            rec["time_left_s"] = r.time_left_s
+            rec["grip_estimate"] = r.grip_estimate
+            rec["corner_times_s"] = None if r.corner_times_s is None else list(r.corner_times_s)
+            rec["ideal_corner_times_s"] = list(r.ideal_corner_times_s)
+        out.append(rec)
+    return out
+
+
+def _band_keys(v: ReportView, ideal: dict) -> dict:
+    """The bands' summary.json keys: ``ideal.time_band_s`` and ``band_coverage`` added to ``ideal``; the top-level extras returned."""
+    b = v.bands
+    if b is None:
+        return {}
+    ideal["time_band_s"] = list(b.ideal_time_band_s)
+    ideal["band_coverage"] = b.coverage
+    return {
+        "time_left_band_s": list(b.time_left_band_s),
+        "bands": {
+            "method": "bootstrap over the flying laps (docs/methods.md, How sure)",
+            "coverage": b.coverage,
+            "resamples": b.n_resamples,
+            "laps": b.n_laps,
+            "envelope_sd_s": b.envelope_sd_s,
+            "line_sd_s": b.line_sd_s,
+        },
+    }
 
 
 def build_summary(analysis) -> dict:
@@ -498,7 +558,7 @@ def build_summary(analysis) -> dict:
         if "_summary" in c:
             rec = dict(c["_summary"])
             rec.setdefault("plain", c["plain"])
-            for key in ("best_s", "best_lap", "label"):
+            for key in ("best_s", "best_lap", "label", "time_left_band_s", "rank_group"):
                 if key in c:
                     rec[key] = c[key]
             corners.append(rec)
@@ -521,20 +581,30 @@ def build_summary(analysis) -> dict:
             )
         }
         rec["plain"] = c["plain"]
-        for key in ("best_s", "best_lap", "label"):
+        for key in ("best_s", "best_lap", "label", "time_left_band_s", "rank_group"):
             if key in c:
                 rec[key] = c[key]
         corners.append(rec)
     best_rec = {"time_s": v.best_time_s, "complete_laps": v.n_laps}
     if analysis.best_of_laps is not None:
         best_rec.update(analysis.best_of_laps.summary_dict())
+    ideal = {"time_s": v.ideal_time_s, "grip_scale": v.grip_scale}
+    extras = _band_keys(v, ideal)
+    session = {}
+    if v.session is not None:
+        session = {
+            "laps": session_laps(v.session),
+            "consistency": [dataclasses.asdict(c) for c in v.session.consistency],
+        }
     return {
         "schema": SUMMARY_SCHEMA,
         "lap": {"number": v.lap_number, "time_s": v.lap_time_s, "distance_m": v.lap_distance_m},
-        "ideal": {"time_s": v.ideal_time_s, "grip_scale": v.grip_scale},
+        "ideal": ideal,
         "time_left_s": v.time_left_s,
+        **extras,
         "grip_estimate": v.grip_estimate,
         "corners": corners,
+        **session,
         "best_of_laps": best_rec,
         "envelope": {
             "fitted": v.fit is not None,
@@ -623,6 +693,7 @@ def write_outputs(
             + min(3, len(v.corners))
             + (math.isfinite(v.best_time_s) and bool(v.corners))
             + (_curvature_check(v) is not None)
+            + (v.session is not None and bool(v.session.timed()))
         )
         if figures
         else 0
@@ -646,4 +717,77 @@ def write_outputs(
         step("figures written")
         written["report"] = out.write("report.html", report_html(v, figure_list))
         step("report.html")
+    return written
+
+
+#: Schema string of versus.json (docs/outputs.md, Lap against lap).
+VERSUS_SCHEMA = "limitlap.versus/1"
+
+
+def versus_summary(result) -> dict:
+    """versus.json (docs/outputs.md, Lap against lap) of a :class:`limitlap.versus.Versus`."""
+
+    def side(s):
+        return {
+            "label": s.label,
+            "log": s.log_path,
+            "lap": s.lap.number,
+            "time_s": float(s.lap.time_s),
+            "ideal_time_s": float(s.ideal.lap_time_s),
+            "time_left_s": float(s.comparison.time_left_s),
+            "distance_m": float(s.driven.line.length_m),
+        }
+
+    return {
+        "schema": VERSUS_SCHEMA,
+        "a": side(result.a),
+        "b": side(result.b),
+        "lap_delta_s": result.lap_delta_s,
+        "envelope": {
+            "fitted": result.fit is not None,
+            "logs": list(result.envelope_logs),
+            "grip_scale": result.grip_scale,
+        },
+        "corners": [
+            {
+                "name": c.name,
+                "start_m": c.start_m,
+                "apex_m": c.apex_m,
+                "end_m": c.end_m,
+                "time_a_s": c.time_a_s,
+                "time_b_s": c.time_b_s,
+                "delta_s": c.delta_s,
+                "time_left_a_s": c.time_left_a_s,
+                "time_left_b_s": c.time_left_b_s,
+                "sentence": c.sentence,
+            }
+            for c in result.corners
+        ],
+        "warnings": list(result.warnings),
+    }
+
+
+def write_versus(result, out_dir, *, figures: bool = True) -> dict:
+    """Write what ``limitlap versus`` leaves in its folder: versus.json, the common envelope.toml, the figures and report.html (one set, :func:`output_set`).
+
+    Returns
+    -------
+    dict
+        File kind -> path written.
+    """
+    from limitlap.report import versus_figures, versus_html
+
+    written = {}
+    with output_set(out_dir) as out:
+        written["summary"] = out.write("versus.json", summary_json_text(versus_summary(result)))
+        fit_info = None
+        if result.fit is not None:
+            fit_info = {"quality": result.fit.quality, "uncertainty": result.fit.uncertainty}
+        written["envelope"] = out.write(
+            "envelope.toml", envelope_toml_text(result.vehicle, fit_info)
+        )
+        figure_list = versus_figures(result) if figures else []
+        for name, _caption, png in figure_list:
+            written[name] = out.write(name, png)
+        written["report"] = out.write("report.html", versus_html(result, figure_list))
     return written

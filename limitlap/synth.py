@@ -81,6 +81,14 @@ DEMO_MISTAKES = (
     Mistake("T9", 0.08, before_m=5.0, after_m=35.0),  # late on the throttle
 )
 
+#: A second invented driver's mistakes on Tarrowby Heath (the bundled second session):
+#: other corners than :data:`DEMO_MISTAKES`.
+SECOND_DRIVER_MISTAKES = (
+    Mistake("T2", 0.10, before_m=12.0, after_m=12.0),  # mid-corner lift
+    Mistake("T4", 0.05, before_m=30.0, after_m=5.0),  # brakes early into the hairpin
+    Mistake("T11", 0.08, before_m=5.0, after_m=35.0),  # late on the throttle
+)
+
 
 @dataclass(frozen=True)
 class PlantedMistake:
