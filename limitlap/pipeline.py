@@ -419,7 +419,7 @@ def analyse(
     table = band = None
     if every_lap:
         table = _session_table(
-            log, laps, chosen, the_lap, ideal, car, k, corners, best, grip_est, beside
+            log, laps, chosen, the_lap, ideal, car, k, corners, comparison, grip_est, beside
         )
         if intervals:
             band = _bands(
@@ -514,7 +514,7 @@ def _bands(log, laps, chosen, table, the_lap, ideal, car, k, corners, comparison
     )
 
 
-def _session_table(log, laps, chosen, the_lap, ideal, car, k, corners, best, grip_est, beside):
+def _session_table(log, laps, chosen, the_lap, ideal, car, k, corners, comparison, grip_est, beside):
     """Every lap's figures (:func:`limitlap.session.session_table`); the analysed lap's grip is the headline's, the others' read from the envelope's filtered samples when there are some."""
     timed = [lp for lp in laps if lp.complete and lp is not chosen]
     grips = session_mod.lap_grip_estimates(
@@ -522,7 +522,16 @@ def _session_table(log, laps, chosen, the_lap, ideal, car, k, corners, best, gri
     )
     grips[chosen.number] = grip_est
     return session_mod.session_table(
-        log, laps, chosen, the_lap.line, ideal, car, corners, best, grip_scale=k, grips=grips
+        log,
+        laps,
+        chosen,
+        the_lap,
+        ideal,
+        car,
+        corners,
+        [c.actual_s for c in comparison.corners],
+        grip_scale=k,
+        grips=grips,
     )
 
 

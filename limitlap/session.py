@@ -7,6 +7,13 @@ the time left against it, the grip scale the lap showed against the envelope and
 corner's time; and, per corner, how consistent the flying laps were (the spread of their
 corner times).
 
+Each lap's corners
+-----------------
+The corners are found on the analysed lap's line; each other lap's time in them is read
+where it had travelled the same share of its lap as the analysed lap had at each bound
+(:func:`travelled_share`), the speed channel's distance, free of the GNSS error of a
+rebuilt line's own distances.
+
 Each lap's own line without a second rebuild
 ---------------------------------------------
 Rebuilding a lap's line (:func:`limitlap.driven.reconstruct_lap`: two smoothers over the
@@ -327,15 +334,61 @@ def _padded_rows(log, lap: Lap, rate_hz, pad_s: float = 2.0):
     return v, ax, ay, mask & np.isfinite(v) & np.isfinite(ax) & np.isfinite(ay)
 
 
+def travelled_share(log, lap: Lap, time_from_gate_s) -> np.ndarray:
+    """The share of a lap's travelled distance (the speed channel's integral from the gate, :func:`limitlap.gnss.travelled_m`) at times from its gate crossing. [-].
+
+    Laps are put on one another by this share (:func:`corner_times`,
+    :mod:`limitlap.versus`): it is free of the GNSS error that moves a rebuilt line's
+    own distances by half a metre here and there, and the speed's scale error is one
+    factor over the lap that cancels in the share.
+    """
+    rows, frac, _ = _fraction_rows(log, lap)
+    t = log.time_s[rows] - lap.start_time_s
+    keep = np.concatenate(([True], np.diff(frac) > 0))
+    t_ext = np.concatenate(([0.0], t[keep], [lap.time_s]))
+    f_ext = np.concatenate(([0.0], frac[keep], [1.0]))
+    inside = (t_ext >= 0.0) & (t_ext <= lap.time_s)
+    return np.interp(time_from_gate_s, t_ext[inside], f_ext[inside])
+
+
+def _times_at_shares(log, lap: Lap, shares) -> np.ndarray:
+    """Time from the gate at which the lap had travelled each share of its distance. [s]."""
+    rows, frac, _ = _fraction_rows(log, lap)
+    t = log.time_s[rows] - lap.start_time_s
+    keep = np.concatenate(([True], np.diff(frac) > 0))
+    f_ext = np.concatenate(([0.0], frac[keep], [1.0]))
+    t_ext = np.concatenate(([0.0], t[keep], [lap.time_s]))
+    inside = (f_ext >= 0.0) & (f_ext <= 1.0)
+    return np.interp(shares, f_ext[inside], t_ext[inside])
+
+
+def corner_shares(log, analysed: Lap, driven, corners) -> tuple[np.ndarray, np.ndarray]:
+    """Each corner's start and end as shares of the analysed lap's travelled distance (its rebuilt line's bounds, at the times the lap passed them). [-]."""
+    t_st = np.asarray(driven.time_s, dtype=np.float64) - float(driven.time_s[0])
+    s_st = np.asarray(driven.line.distance_m, dtype=np.float64)
+    length = float(driven.line.length_m)
+    s_ext, t_ext = np.append(s_st, length), np.append(t_st, float(analysed.time_s))
+    starts = np.interp([c.start_m for c in corners], s_ext, t_ext)
+    ends = np.interp([c.end_m for c in corners], s_ext, t_ext)
+    return travelled_share(log, analysed, starts), travelled_share(log, analysed, ends)
+
+
+def corner_times(log, lap: Lap, shares) -> np.ndarray:
+    """A lap's time in each corner, the corners placed by share of travelled distance (:func:`corner_shares`); they add up to the lap time. [s]."""
+    starts, ends = shares
+    t0, t1 = _times_at_shares(log, lap, starts), _times_at_shares(log, lap, ends)
+    return t1 - t0 + np.where(ends <= starts, float(lap.time_s), 0.0)
+
+
 def session_table(
     log,
     laps: Sequence[Lap],
     analysed: Lap,
-    ref: Line,
+    driven,
     ideal: solve.Profile,
     vehicle: Vehicle,
     corners,
-    segment_table,
+    analysed_corner_s=None,
     *,
     grip_scale: float = 1.0,
     grips: Mapping[int, float | None] | None = None,
@@ -350,16 +403,17 @@ def session_table(
         Every lap of the log. [-]
     analysed : laps.Lap
         The analysed lap, whose line ``ref`` is. [-]
-    ref : line.Line
-        The analysed lap's rebuilt line. [-]
+    driven : driven.DrivenLap
+        The analysed lap's rebuilt line and traces. [-]
     ideal : solve.Profile
-        The ideal on ``ref`` (the analysed lap's row uses it as it is). [-]
+        The ideal on its line (the analysed lap's row uses it as it is). [-]
     vehicle : Vehicle
         The session's envelope at grip scale 1. [-]
     corners : sequence of corners.Corner
-        The corners found on ``ref``. [-]
-    segment_table : best_laps.BestOfLaps or None
-        Each complete lap's segment times (its ``lap_numbers`` and ``segment_times_s``). [-]
+        The corners found on the analysed lap's line. [-]
+    analysed_corner_s : array-like, optional
+        The analysed lap's time in each corner as its comparison measured it; default by
+        share of travelled distance as for the other laps. [s]
     grip_scale : float
         Grip scale the ideals are solved at. [-]
     grips : mapping lap number -> float or None, optional
@@ -370,9 +424,8 @@ def session_table(
     SessionTable
     """
     grips = grips or {}
-    seg_rows = {}
-    if segment_table is not None:
-        seg_rows = dict(zip(segment_table.lap_numbers, segment_table.segment_times_s, strict=True))
+    ref = driven.line
+    shares = corner_shares(log, analysed, driven, corners) if corners else None
     u = np.asarray(ref.distance_m, dtype=np.float64) / float(ref.length_m)
     complete = [lp for lp in laps if lp.complete]
     lo = min(lp.start_index for lp in complete)
@@ -392,6 +445,9 @@ def session_table(
             ratio = length / ref_length
             line = own_line(ref, ref_course, _on_stations(kappa_rows, lo, lp, frac, u), ratio)
             prof = solve.solve_profile(line, vehicle, grip_scale)
+        times = None if shares is None else corner_times(log, lp, shares)
+        if lp is analysed and analysed_corner_s is not None:
+            times = np.asarray(analysed_corner_s, dtype=np.float64)
         ideal_corners = segment_times(
             prof.distance_m, ref.length_m * ratio, prof.time_s, prof.lap_time_s, corners, ratio
         )
@@ -403,7 +459,7 @@ def session_table(
                 ideal_time_s=float(prof.lap_time_s),
                 time_left_s=float(lp.time_s) - float(prof.lap_time_s),
                 grip_estimate=grips.get(lp.number),
-                corner_times_s=seg_rows.get(lp.number),
+                corner_times_s=times,
                 ideal_corner_times_s=ideal_corners,
             )
         )

@@ -2,9 +2,9 @@ r"""Lap against lap: two laps of one log, or laps of two logs, on one common lin
 
 :func:`compare_laps` puts lap B beside lap A (two drivers in one car, two sessions, a
 reference lap beside a client's): both lines rebuilt (:func:`limitlap.driven.reconstruct_lap`),
-checked to be one circuit driven one way (:func:`same_circuit`), B's distances mapped
-onto A's line by the fraction of the lap (the corners are found on A's line and placed on
-B's by distance from the gate, as :mod:`limitlap.best_laps` maps laps), the time delta
+checked to be one circuit driven one way (:func:`same_circuit`), B put on A's line (the
+common line) where it had travelled the same share of its lap (:func:`_mapping`), the
+corners found on A's line and placed on B's the same way, the time delta
 along the lap and corner by corner, and each lap against its own ideal (on its own line)
 at one common envelope: the vehicle file's, or one fitted to the flying laps of both logs
 together (:func:`common_envelope`). Each corner gets one sentence
@@ -22,7 +22,7 @@ from pathlib import Path
 import numpy as np
 from scipy.ndimage import gaussian_filter1d
 
-from limitlap import compare, envelope, ingest, solve
+from limitlap import compare, envelope, ingest, session, solve
 from limitlap import corners as corners_mod
 from limitlap import driven as driven_mod
 from limitlap import laps as laps_mod
@@ -349,19 +349,19 @@ def common_envelope(sessions: Sequence, base: Vehicle) -> envelope.EnvelopeFit:
 # ---------------------------------------------------------------------------- corners
 
 
-def mapped_corners(corners, scale: float):
-    """A's corners placed on another lap's line: every distance times ``scale`` (its length over A's)."""
+def mapped_corners(corners, to_b):
+    """A's corners placed on another lap's line: each distance through ``to_b`` (A's distance -> B's) [m]."""
     out = []
     for c in corners:
         out.append(
             dataclasses.replace(
                 c,
-                start_m=c.start_m * scale,
-                apex_m=c.apex_m * scale,
-                apexes_m=tuple(a * scale for a in c.apexes_m),
-                end_m=c.end_m * scale,
-                turn_in_m=c.turn_in_m * scale,
-                exit_m=c.exit_m * scale,
+                start_m=to_b(c.start_m),
+                apex_m=to_b(c.apex_m),
+                apexes_m=tuple(to_b(a) for a in c.apexes_m),
+                end_m=to_b(c.end_m),
+                turn_in_m=to_b(c.turn_in_m),
+                exit_m=to_b(c.exit_m),
             )
         )
     return out
@@ -424,10 +424,44 @@ def corner_sentence(name, delta_s, ca: compare.CornerComparison, cb: compare.Cor
 # ---------------------------------------------------------------------------- the comparison
 
 
-def _side(label, path, log, lap, driven, car, k, corners, scale) -> LapSide:
+def _side(label, path, lap, driven, car, k, corners, to_own, scale) -> LapSide:
     ideal = solve.solve_profile(driven.line, car, k)
-    cmp_ = compare.compare_lap(driven, ideal, car, mapped_corners(corners, scale), grip_scale=k)
+    cmp_ = compare.compare_lap(driven, ideal, car, mapped_corners(corners, to_own), grip_scale=k)
     return LapSide(label, str(path), lap, driven, ideal, cmp_, scale)
+
+
+def _share(log, lap, drv) -> np.ndarray:
+    """The share of the lap's travelled distance at each station of its rebuilt line (:func:`limitlap.session.travelled_share`). [-]."""
+    t_st, _ = driven_mod.elapsed_from_gate(drv)
+    return np.maximum.accumulate(session.travelled_share(log, lap, t_st))
+
+
+def _mapping(side_a, side_b):
+    """(B's stations' distance along A's line, A's distance -> B's), by the share of the lap's travelled distance.
+
+    ``side_a``, ``side_b`` are (log, lap, driven lap). A place on A's line is where A had
+    travelled a share of its lap (its speed channel's integral from the gate); B is put
+    there when it had travelled the same share of its own. The speed channel's distance
+    is free of the GNSS error that moves a rebuilt line's own distances by half a metre
+    here and there (0.025 s at 20 m/s); its scale error is one factor over the lap and
+    cancels in the share. Tried and not kept: the share of the rebuilt lines' lengths
+    (corner deltas off by up to 0.025 s on generated sessions) and projecting B's
+    positions on A's line (up to 0.08 s: the GNSS error along the track).
+    """
+    share_a = _share(*side_a)
+    share_b = _share(*side_b)
+    s_a = np.asarray(side_a[2].line.distance_m, dtype=np.float64)
+    s_b = np.asarray(side_b[2].line.distance_m, dtype=np.float64)
+    len_a, len_b = float(side_a[2].line.length_m), float(side_b[2].line.length_m)
+    ring_sa = np.concatenate((s_a - len_a, s_a, s_a + len_a))
+    ring_fa = np.concatenate((share_a - 1.0, share_a, share_a + 1.0))
+    ring_sb = np.concatenate((s_b - len_b, s_b, s_b + len_b))
+    ring_fb = np.concatenate((share_b - 1.0, share_b, share_b + 1.0))
+
+    def to_b(x: float) -> float:
+        return float(np.interp(np.interp(x, ring_sa, ring_fa), ring_fb, ring_sb)) % len_b
+
+    return np.interp(share_b, ring_fa, ring_sa), to_b
 
 
 def _pick(path, laps, number, avoid=None) -> laps_mod.Lap:
@@ -511,16 +545,17 @@ def compare_laps(
         apexes_from=track.path if track is not None else None,
     )
     scale = db.line.length_m / da.line.length_m
+    on_a, to_b = _mapping((log_a, la, da), (log_b, lb, db))
     side_a = _side(
-        _label(path_a, la, same_log), path_a, log_a, la, da, car, grip_scale, corners, 1.0
+        _label(path_a, la, same_log), path_a, la, da, car, grip_scale, corners, float, 1.0
     )
     side_b = _side(
-        _label(path_b, lb, same_log), path_b, log_b, lb, db, car, grip_scale, corners, scale
+        _label(path_b, lb, same_log), path_b, lb, db, car, grip_scale, corners, to_b, scale
     )
     s = np.asarray(da.line.distance_m, dtype=np.float64)
     t_a, _ = driven_mod.elapsed_from_gate(da)
     t_b, _ = driven_mod.elapsed_from_gate(db)
-    delta = np.interp(s * scale, db.line.distance_m, t_b) - t_a
+    delta = np.interp(s, on_a, t_b) - t_a
     rows = []
     for c, ca, cb in zip(
         corners, side_a.comparison.corners, side_b.comparison.corners, strict=True

@@ -14,12 +14,13 @@ import math
 import numpy as np
 import pytest
 
-from limitlap import best_laps, laps, outputs, pipeline, synth
+from limitlap import laps, outputs, pipeline, synth
 from limitlap.laps import Gate, split_laps
 from limitlap.logfile import read_log
 from limitlap.resources import bundled_path
 from limitlap.session import lap_kind
 
+from .generated_truth import physical_corners, true_corner_times
 from .robust_data import run_cli
 from .synthetic_logs import ORIGIN, Circle
 
@@ -86,34 +87,19 @@ def one_slip(tmp_path_factory):
     return session, analysis
 
 
-def _true_corner_times(session, lap_number, corners, length_m):
-    """The generator's own time in each corner of a lap, from the motion it sampled."""
-    tr = session.truth
-    rows = tr.lap_number == lap_number
-    t = session.time_s[rows] - tr.gate_times_s[lap_number - 1]
-    d = tr.lap_distance_m[rows]
-    inside = (t > 0.0) & (t < tr.lap_times_s[lap_number - 1])
-    t, d = t[inside], d[inside]
-    keep = np.concatenate(([True], np.diff(d) > 0))
-    scale = tr.line.length_m / length_m  # corners found on the rebuilt line: by fraction
-    return best_laps.segment_times(
-        d[keep], tr.line.length_m, t[keep], tr.lap_times_s[lap_number - 1], corners, scale
-    )
-
-
 def test_corner_times_of_every_lap_match_the_generator(one_slip):
-    # Source: the generator's sampled motion (time against distance on the true line).
-    # The corners are found on the rebuilt line and placed on the truth by distance
-    # fraction: the rebuild's local distance error (half a metre) moves a bound by that.
-    # Most bounds sit mid-straight (0.01 s at 50 m/s); the one between T5 and T6 is in the
-    # slow complex at 21 m/s: 0.025 s. Tolerance 0.03 s.
+    # Source: the generator's sampled motion (time against true distance), timed between
+    # the physical places of the corner bounds (tests/generated_truth.py). The gate
+    # crossings are interpolated between GNSS fixes (a few milliseconds: 0.2 m at
+    # 60 m/s), which moves a slow bound (T5/T6 at 21 m/s) by up to 0.01 s; tolerance
+    # 0.02 s, the task's for corner times.
     session, analysis = one_slip
     table = analysis.session
     assert table.corner_names == tuple(c.name for c in analysis.corners)
-    length = analysis.driven.line.length_m
+    places = physical_corners(analysis.corners, analysis.driven, session, analysis.lap.number)
     for r in table.timed():
-        truth = _true_corner_times(session, r.number, analysis.corners, length)
-        np.testing.assert_allclose(r.corner_times_s, truth, atol=0.03)
+        truth = true_corner_times(session, r.number, places)
+        np.testing.assert_allclose(r.corner_times_s, truth, atol=0.02)
         assert float(np.sum(r.corner_times_s)) == pytest.approx(r.time_s, abs=1e-6)
 
 
