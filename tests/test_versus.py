@@ -227,4 +227,8 @@ def test_versus_on_the_bundled_sessions(tmp_path, capsys, monkeypatch):
     for name in planted_b:
         assert by[name]["delta_s"] > 0.1 and by[name]["sentence"].startswith("A is")
     page = (out / "report.html").read_text(encoding="utf-8")
-    assert html.escape(by["T1"]["sentence"]) in page and "<script" not in page and 'src="http' not in page
+    assert (
+        html.escape(by["T1"]["sentence"]) in page
+        and "<script" not in page
+        and 'src="http' not in page
+    )
