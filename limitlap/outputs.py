@@ -505,7 +505,7 @@ def session_laps(table) -> list[dict]:
 
     ``number``, ``kind``, ``time_s``; for each lap timed gate to gate also
     ``ideal_time_s``, ``time_left_s``, ``grip_estimate`` and ``corner_times_s`` (corner
-    order), plus ``ideal_corner_times_s``.
+    order).
     """
     out = []
     for r in table.laps:
@@ -515,7 +515,6 @@ def session_laps(table) -> list[dict]:
             rec["time_left_s"] = r.time_left_s
             rec["grip_estimate"] = r.grip_estimate
             rec["corner_times_s"] = None if r.corner_times_s is None else list(r.corner_times_s)
-            rec["ideal_corner_times_s"] = list(r.ideal_corner_times_s)
         out.append(rec)
     return out
 

@@ -408,23 +408,16 @@ def analyse(
             log_path, log, laps, chosen, the_lap, flying, beside, vehicle, warnings
         )
     _step(progress, 3, _STEPS, "solving the ideal lap")
-    ideal = solve.solve_profile(the_lap.line, car, k)
-    _step(progress, 4, _STEPS, "comparing corner by corner")
-    grip_est = _grip_estimate(log, laps, chosen, the_lap, car, k, fit is not None, warnings)
-    comparison = compare.compare_lap(
-        the_lap, ideal, car, corners, grip_scale=k, grip_estimate=grip_est
-    )
-    _step(progress, 5, _STEPS, "best of the session's own laps")
-    complete_laps, best = _best_of_laps(laps, chosen, the_lap, timelines, corners, ideal)
-    table = band = None
-    if every_lap:
-        table = _session_table(
-            log, laps, chosen, the_lap, ideal, car, k, corners, comparison, grip_est, beside
+    with _LapsBeside(log, laps, chosen, car, fit, beside.selection(), every_lap, intervals) as more:
+        ideal = solve.solve_profile(the_lap.line, car, k)
+        _step(progress, 4, _STEPS, "comparing corner by corner")
+        grip_est = _grip_estimate(log, laps, chosen, the_lap, car, k, fit is not None, warnings)
+        comparison = compare.compare_lap(
+            the_lap, ideal, car, corners, grip_scale=k, grip_estimate=grip_est
         )
-        if intervals:
-            band = _bands(
-                log, laps, chosen, table, the_lap, ideal, car, k, corners, comparison, fit, beside
-            )
+        _step(progress, 5, _STEPS, "best of the session's own laps")
+        complete_laps, best = _best_of_laps(laps, chosen, the_lap, timelines, corners, ideal)
+        table, band = more.finish(the_lap, ideal, k, corners, comparison, grip_est)
     _step(progress, 6, _STEPS, "done")
     return Analysis(
         log_path=str(log_path),
@@ -452,87 +445,153 @@ def analyse(
     )
 
 
-def _line_draws(log, laps, chosen, records, the_lap, ideal, car, k, corners):
-    """The ideal lap and corner times on the analysed lap's line and on the rebuilt lines of up to :data:`limitlap.bands.LINE_LAPS` other flying laps (those nearest it in the session), corners mapped by distance fraction."""
-    by_number = {lp.number: lp for lp in laps}
-    ref = the_lap.line
-    others = [r.number for r in records if r.number != chosen.number]
-    near = sorted(others, key=lambda n: (abs(n - chosen.number), n))[: bands.LINE_LAPS]
-    lap_times = [ideal.lap_time_s]
-    corner_times = [bands.corner_ideal(ref, ideal, corners)]
-    for n in near:
-        line = driven_mod.reconstruct_lap(log, by_number[n]).line
-        prof = solve.solve_profile(line, car, k)
-        lap_times.append(prof.lap_time_s)
-        corner_times.append(bands.corner_ideal(line, prof, corners, line.length_m / ref.length_m))
-    return np.array(lap_times), np.vstack(corner_times)
+class _LapsBeside:
+    """The table of every lap and the bands, their slow parts in a second thread.
 
+    Why a thread: the grip found on every lap (:func:`limitlap.session.lap_grip_estimates`)
+    and the rebuilt lines of the bands' neighbouring laps (:func:`limitlap.driven.reconstruct_lap`,
+    about 17 ms each) need neither the ideal nor the comparison, so they run beside the
+    ideal's solve, the comparison and the best of laps in the calling thread; :meth:`finish`
+    then waits for them (benchmarks/bench_session.py counts on this overlap). Meanwhile
+    only the second thread reads the log's deferred trace channels (the rebuild does; the
+    calling thread's work uses the parsed ones): their one-stretch cache
+    (``Log.channel_rows``) is not shared between threads.
 
-def _bands(log, laps, chosen, table, the_lap, ideal, car, k, corners, comparison, fit, beside):
-    """The analysed lap's bands (:func:`limitlap.bands.session_bands`) over the envelope's laps (the timed flying laps when the envelope was given)."""
-    fit_laps = {lp.number for lp in laps_mod.flying_laps(laps)} if fit is not None else None
-    records = [
-        r
-        for r in table.flying()
-        if r.ideal_corner_times_s is not None and (fit_laps is None or r.number in fit_laps)
-    ]
-    if not records:
-        return None
-    line_draws = _line_draws(log, laps, chosen, records, the_lap, ideal, car, k, corners)
-    level_data = None
-    sel = beside.selection()
-    if fit is not None and sel is not None:
+    Parameters
+    ----------
+    log, laps, chosen
+        The session, its laps, the analysed lap. [-]
+    car : Vehicle
+        The envelope at grip scale 1. [-]
+    fit : envelope.EnvelopeFit or None
+        Its fit (None: given by a vehicle file). [-]
+    selection : samples.Selection or None
+        The whole log's filtered samples, when the fit made them. [-]
+    every_lap, intervals : bool
+        What to build (see :func:`analyse`). [-]
+    """
+
+    def __init__(self, log, laps, chosen, car, fit, selection, every_lap, intervals):
+        self.log, self.laps, self.chosen, self.car, self.fit = log, laps, chosen, car, fit
+        self.selection = selection
+        self.every_lap, self.intervals = every_lap, intervals and every_lap
+        self._pool = ThreadPoolExecutor(max_workers=1)
+        self.band_laps = self._band_laps()
+        timed = [lp for lp in laps if lp.complete and lp is not chosen]
+        self._grips = (
+            self._pool.submit(
+                session_mod.lap_grip_estimates,
+                log,
+                timed,
+                car,
+                selection=selection,
+                rate_hz=_sample_rate(log),
+            )
+            if self.every_lap
+            else None
+        )
         by_number = {lp.number: lp for lp in laps}
+        near = sorted(
+            (n for n in self.band_laps if n != chosen.number),
+            key=lambda n: (abs(n - chosen.number), n),
+        )[: bands.LINE_LAPS]
+        self._lines = (
+            self._pool.submit(
+                lambda: [driven_mod.reconstruct_lap(log, by_number[n]).line for n in near]
+            )
+            if self.intervals
+            else None
+        )
+
+    def __enter__(self) -> _LapsBeside:
+        return self
+
+    def __exit__(self, *exc) -> None:
+        self._pool.shutdown(wait=True)
+
+    def _band_laps(self) -> list[int]:
+        """The laps the bands resample: the envelope's (flying within 107 %) when it was fitted, else every flying lap timed gate to gate."""
+        if self.fit is not None:
+            return [lp.number for lp in laps_mod.flying_laps(self.laps)]
+        return [
+            lp.number
+            for lp in self.laps
+            if lp.complete and session_mod.lap_kind(lp, self.laps) == "flying"
+        ]
+
+    def finish(self, the_lap, ideal, k, corners, comparison, grip_est):
+        """(session.SessionTable or None, bands.Bands or None)."""
+        if not self.every_lap:
+            return None, None
+        grips = {**self._grips.result(), self.chosen.number: grip_est}
+        table = session_mod.session_table(
+            self.log,
+            self.laps,
+            self.chosen,
+            the_lap,
+            ideal,
+            self.car,
+            corners,
+            [c.actual_s for c in comparison.corners],
+            grip_scale=k,
+            grips=grips,
+        )
+        if not self.intervals:
+            return table, None
+        return table, self._bands(table, the_lap, ideal, k, corners, comparison)
+
+    def _line_draws(self, the_lap, ideal, k, corners):
+        """The ideal lap and corner times on the analysed lap's line and on the neighbours' rebuilt lines, corners mapped by the share of the line's length."""
+        ref = the_lap.line
+        lap_times = [ideal.lap_time_s]
+        corner_times = [bands.corner_ideal(ref, ideal, corners)]
+        for line in self._lines.result():
+            prof = solve.solve_profile(line, self.car, k)
+            lap_times.append(prof.lap_time_s)
+            corner_times.append(
+                bands.corner_ideal(line, prof, corners, line.length_m / ref.length_m)
+            )
+        return np.array(lap_times), np.vstack(corner_times)
+
+    def _level_data(self, records):
+        """:func:`limitlap.bands.level_samples` of the fit's samples on ``records``' laps, and their number; None without a fit."""
+        sel, fit = self.selection, self.fit
+        if fit is None or sel is None:
+            return None
+        by_number = {lp.number: lp for lp in self.laps}
         lap_index = np.full(sel.used.shape[0], -1, dtype=np.int64)
         for i, r in enumerate(records):
             lp = by_number[r.number]
             lap_index[lp.start_index : lp.end_index] = i
         rows = np.flatnonzero(fit.used & (lap_index >= 0))
-        level_data = (
-            *bands.level_samples(
-                sel.speed_m_s[rows],
-                sel.accel_lon_m_s2[rows],
-                sel.accel_lat_m_s2[rows],
-                lap_index[rows],
-                car,
-            ),
-            len(records),
+        found = bands.level_samples(
+            sel.speed_m_s[rows],
+            sel.accel_lon_m_s2[rows],
+            sel.accel_lat_m_s2[rows],
+            lap_index[rows],
+            self.car,
         )
-    corners_cmp = comparison.corners
-    return bands.session_bands(
-        the_lap.line,
-        ideal,
-        car,
-        corners,
-        [c.actual_s for c in corners_cmp],
-        comparison.lap_time_s,
-        line_draws,
-        level_data,
-        grip_scale=k,
-        quantile=fit.quality["quantile"] if fit is not None else 0.99,
-        ranks=[c.rank for c in corners_cmp],
-    )
+        return (*found, len(records))
 
-
-def _session_table(log, laps, chosen, the_lap, ideal, car, k, corners, comparison, grip_est, beside):
-    """Every lap's figures (:func:`limitlap.session.session_table`); the analysed lap's grip is the headline's, the others' read from the envelope's filtered samples when there are some."""
-    timed = [lp for lp in laps if lp.complete and lp is not chosen]
-    grips = session_mod.lap_grip_estimates(
-        log, timed, car, selection=beside.selection(), rate_hz=_sample_rate(log)
-    )
-    grips[chosen.number] = grip_est
-    return session_mod.session_table(
-        log,
-        laps,
-        chosen,
-        the_lap,
-        ideal,
-        car,
-        corners,
-        [c.actual_s for c in comparison.corners],
-        grip_scale=k,
-        grips=grips,
-    )
+    def _bands(self, table, the_lap, ideal, k, corners, comparison):
+        """The analysed lap's bands (:func:`limitlap.bands.session_bands`) over :meth:`_band_laps`."""
+        wanted = set(self.band_laps)
+        records = [r for r in table.flying() if r.number in wanted]
+        if not records:
+            return None
+        return bands.session_bands(
+            the_lap.line,
+            ideal,
+            self.car,
+            corners,
+            [c.actual_s for c in comparison.corners],
+            comparison.lap_time_s,
+            self._line_draws(the_lap, ideal, k, corners),
+            self._level_data(records),
+            grip_scale=k,
+            quantile=self.fit.quality["quantile"] if self.fit is not None else 0.99,
+            ranks=[c.rank for c in comparison.corners],
+        )
 
 
 def _require_accelerations(log_path, log) -> None:

@@ -198,18 +198,35 @@ class SessionTable:
         return [r for r in self.laps if r.timed and r.kind == "flying"]
 
 
-def _fraction_rows(log, lap: Lap):
-    """The lap's rows and their fraction of its travelled distance (0 at the gate, 1 at the next); and the lap's travelled distance [m].
+@dataclass(frozen=True, eq=False)
+class _Travel:
+    """One lap's rows against the share of its travelled distance (the speed channel's integral from the gate crossing to the next, :func:`limitlap.gnss.travelled_m`).
 
-    The gate crossings are interpolated between the rows either side of the lap's own
-    (as :func:`limitlap.pipeline.lap_timelines` does on the whole log).
+    ``rows`` the lap's rows; ``share`` per row [-]; ``length_m`` the lap's travelled
+    distance [m]; ``time_at``/``share_at`` the same as a non-decreasing map from time
+    from the gate [s] to share [-], from 0 to 1 at the two crossings.
     """
+
+    rows: slice
+    share: np.ndarray
+    length_m: float
+    time_at: np.ndarray
+    share_at: np.ndarray
+
+
+def _travel(log, lap: Lap) -> _Travel:
+    """:class:`_Travel` of a lap (the crossings interpolated between the rows either side, as :func:`limitlap.pipeline.lap_timelines` does)."""
     rows = slice(lap.start_index, lap.end_index)
     s = gnss.travelled_m(log)
     lo, hi = max(lap.start_index - 1, 0), min(lap.end_index + 1, s.shape[0])
     s0, s1 = np.interp([lap.start_time_s, lap.end_time_s], log.time_s[lo:hi], s[lo:hi])
     length = float(s1 - s0)
-    return rows, (s[rows] - s0) / length, length
+    share = (s[rows] - s0) / length
+    t = log.time_s[rows] - lap.start_time_s
+    keep = (t > 0.0) & (t < lap.time_s) & (share > 0.0) & (share < 1.0)
+    t_ext = np.concatenate(([0.0], t[keep], [float(lap.time_s)]))
+    f_ext = np.maximum.accumulate(np.concatenate(([0.0], share[keep], [1.0])))
+    return _Travel(rows, share, length, t_ext, f_ext)
 
 
 def course_curvature(log, rows: slice) -> np.ndarray | None:
@@ -224,7 +241,7 @@ def course_curvature(log, rows: slice) -> np.ndarray | None:
     log : logfile.Log
         The session. [-]
     rows : slice
-        The rows. [-]
+        The rows (a step takes every so many). [-]
 
     Returns
     -------
@@ -252,11 +269,19 @@ def course_curvature(log, rows: slice) -> np.ndarray | None:
         return num / den / vv
 
 
-def _on_stations(kappa_rows, offset: int, lap: Lap, frac, fraction):
-    """A lap's per-row curvature (rows from ``offset``) at fractions of its distance; None without."""
-    if kappa_rows is None:
+#: Rows a lap's course curvature is read from, at most this rate: enough for the
+#: stations 1 m apart (0.5-1.5 m between rows at 50 Hz and 25-75 m/s) before the 5 m
+#: smoothing of the difference (:data:`LINE_DIFFERENCE_SMOOTHING_M`). [Hz]
+COURSE_RATE_HZ = 50.0
+
+
+def _course_on_stations(log, travel: _Travel, fraction, step: int):
+    """A lap's course curvature (:func:`course_curvature`, every ``step``-th row) at fractions of its distance; None without. [1/m]."""
+    rows = travel.rows
+    k = course_curvature(log, slice(rows.start, rows.stop, step))
+    if k is None:
         return None
-    k = kappa_rows[lap.start_index - offset : lap.end_index - offset]
+    frac = travel.share[::step]
     keep = np.isfinite(k) & np.concatenate(([True], np.diff(frac) > 0))
     if keep.sum() < 2:
         return None
@@ -334,7 +359,7 @@ def _padded_rows(log, lap: Lap, rate_hz, pad_s: float = 2.0):
     return v, ax, ay, mask & np.isfinite(v) & np.isfinite(ax) & np.isfinite(ay)
 
 
-def travelled_share(log, lap: Lap, time_from_gate_s) -> np.ndarray:
+def travelled_share(log, lap: Lap, time_from_gate_s, travel: _Travel | None = None):
     """The share of a lap's travelled distance (the speed channel's integral from the gate, :func:`limitlap.gnss.travelled_m`) at times from its gate crossing. [-].
 
     Laps are put on one another by this share (:func:`corner_times`,
@@ -342,41 +367,30 @@ def travelled_share(log, lap: Lap, time_from_gate_s) -> np.ndarray:
     own distances by half a metre here and there, and the speed's scale error is one
     factor over the lap that cancels in the share.
     """
-    rows, frac, _ = _fraction_rows(log, lap)
-    t = log.time_s[rows] - lap.start_time_s
-    keep = np.concatenate(([True], np.diff(frac) > 0))
-    t_ext = np.concatenate(([0.0], t[keep], [lap.time_s]))
-    f_ext = np.concatenate(([0.0], frac[keep], [1.0]))
-    inside = (t_ext >= 0.0) & (t_ext <= lap.time_s)
-    return np.interp(time_from_gate_s, t_ext[inside], f_ext[inside])
+    travel = _travel(log, lap) if travel is None else travel
+    return np.interp(time_from_gate_s, travel.time_at, travel.share_at)
 
 
-def _times_at_shares(log, lap: Lap, shares) -> np.ndarray:
-    """Time from the gate at which the lap had travelled each share of its distance. [s]."""
-    rows, frac, _ = _fraction_rows(log, lap)
-    t = log.time_s[rows] - lap.start_time_s
-    keep = np.concatenate(([True], np.diff(frac) > 0))
-    f_ext = np.concatenate(([0.0], frac[keep], [1.0]))
-    t_ext = np.concatenate(([0.0], t[keep], [lap.time_s]))
-    inside = (f_ext >= 0.0) & (f_ext <= 1.0)
-    return np.interp(shares, f_ext[inside], t_ext[inside])
-
-
-def corner_shares(log, analysed: Lap, driven, corners) -> tuple[np.ndarray, np.ndarray]:
-    """Each corner's start and end as shares of the analysed lap's travelled distance (its rebuilt line's bounds, at the times the lap passed them). [-]."""
+def corner_shares(log, analysed: Lap, driven, corners, travel=None):
+    """Each corner's start and end as shares of the analysed lap's travelled distance (its rebuilt line's bounds, at the times the lap passed them): (starts, ends). [-]."""
     t_st = np.asarray(driven.time_s, dtype=np.float64) - float(driven.time_s[0])
     s_st = np.asarray(driven.line.distance_m, dtype=np.float64)
     length = float(driven.line.length_m)
     s_ext, t_ext = np.append(s_st, length), np.append(t_st, float(analysed.time_s))
     starts = np.interp([c.start_m for c in corners], s_ext, t_ext)
     ends = np.interp([c.end_m for c in corners], s_ext, t_ext)
-    return travelled_share(log, analysed, starts), travelled_share(log, analysed, ends)
+    return (
+        travelled_share(log, analysed, starts, travel),
+        travelled_share(log, analysed, ends, travel),
+    )
 
 
-def corner_times(log, lap: Lap, shares) -> np.ndarray:
+def corner_times(log, lap: Lap, shares, travel: _Travel | None = None) -> np.ndarray:
     """A lap's time in each corner, the corners placed by share of travelled distance (:func:`corner_shares`); they add up to the lap time. [s]."""
+    travel = _travel(log, lap) if travel is None else travel
     starts, ends = shares
-    t0, t1 = _times_at_shares(log, lap, starts), _times_at_shares(log, lap, ends)
+    t0 = np.interp(starts, travel.share_at, travel.time_at)
+    t1 = np.interp(ends, travel.share_at, travel.time_at)
     return t1 - t0 + np.where(ends <= starts, float(lap.time_s), 0.0)
 
 
@@ -425,27 +439,29 @@ def session_table(
     """
     grips = grips or {}
     ref = driven.line
-    shares = corner_shares(log, analysed, driven, corners) if corners else None
+    travels = {lp.number: _travel(log, lp) for lp in laps if lp.complete}
+    ref_travel = travels[analysed.number]
+    shares = corner_shares(log, analysed, driven, corners, ref_travel) if corners else None
     u = np.asarray(ref.distance_m, dtype=np.float64) / float(ref.length_m)
-    complete = [lp for lp in laps if lp.complete]
-    lo = min(lp.start_index for lp in complete)
-    kappa_rows = course_curvature(log, slice(lo, max(lp.end_index for lp in complete)))
-    _, ref_frac, ref_length = _fraction_rows(log, analysed)
-    ref_course = _on_stations(kappa_rows, lo, analysed, ref_frac, u)
+    dt = np.diff(log.time_s[: min(1001, log.time_s.shape[0])])
+    rate = 1.0 / float(np.median(dt)) if dt.size else COURSE_RATE_HZ
+    step = max(int(rate // COURSE_RATE_HZ), 1)
+    ref_course = _course_on_stations(log, ref_travel, u, step)
     records = []
     for lp in laps:
         kind = lap_kind(lp, laps)
         if not lp.complete:
             records.append(LapRecord(lp.number, kind, float(lp.time_s)))
             continue
+        travel = travels[lp.number]
         if lp is analysed:
             prof, ratio = ideal, 1.0
         else:
-            _, frac, length = _fraction_rows(log, lp)
-            ratio = length / ref_length
-            line = own_line(ref, ref_course, _on_stations(kappa_rows, lo, lp, frac, u), ratio)
+            ratio = travel.length_m / ref_travel.length_m
+            course = _course_on_stations(log, travel, u, step)
+            line = own_line(ref, ref_course, course, ratio)
             prof = solve.solve_profile(line, vehicle, grip_scale)
-        times = None if shares is None else corner_times(log, lp, shares)
+        times = None if shares is None else corner_times(log, lp, shares, travel)
         if lp is analysed and analysed_corner_s is not None:
             times = np.asarray(analysed_corner_s, dtype=np.float64)
         ideal_corners = segment_times(

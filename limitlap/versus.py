@@ -433,7 +433,7 @@ def _side(label, path, lap, driven, car, k, corners, to_own, scale) -> LapSide:
 def _share(log, lap, drv) -> np.ndarray:
     """The share of the lap's travelled distance at each station of its rebuilt line (:func:`limitlap.session.travelled_share`). [-]."""
     t_st, _ = driven_mod.elapsed_from_gate(drv)
-    return np.maximum.accumulate(session.travelled_share(log, lap, t_st))
+    return session.travelled_share(log, lap, t_st)
 
 
 def _mapping(side_a, side_b):
