@@ -446,16 +446,14 @@ def analyse(
 
 
 class _LapsBeside:
-    """The table of every lap and the bands, their slow parts in a second thread.
+    """The table of every lap and the bands; the grip of every lap in a second thread.
 
     Why a thread: the grip found on every lap (:func:`limitlap.session.lap_grip_estimates`)
-    and the rebuilt lines of the bands' neighbouring laps (:func:`limitlap.driven.reconstruct_lap`,
-    about 17 ms each) need neither the ideal nor the comparison, so they run beside the
-    ideal's solve, the comparison and the best of laps in the calling thread; :meth:`finish`
-    then waits for them (benchmarks/bench_session.py counts on this overlap). Meanwhile
-    only the second thread reads the log's deferred trace channels (the rebuild does; the
-    calling thread's work uses the parsed ones): their one-stretch cache
-    (``Log.channel_rows``) is not shared between threads.
+    needs neither the ideal nor the comparison, so it runs beside the ideal's solve, the
+    comparison and the best of laps in the calling thread; :meth:`finish` then waits for
+    it (benchmarks/bench_session.py counts on this overlap). Measured and not kept:
+    rebuilding the bands' neighbouring lines in that thread too (the table, built meanwhile
+    in the calling thread, slowed by as much as the overlap saved on two shared cores).
 
     Parameters
     ----------
@@ -491,17 +489,13 @@ class _LapsBeside:
             else None
         )
         by_number = {lp.number: lp for lp in laps}
-        near = sorted(
-            (n for n in self.band_laps if n != chosen.number),
-            key=lambda n: (abs(n - chosen.number), n),
-        )[: bands.LINE_LAPS]
-        self._lines = (
-            self._pool.submit(
-                lambda: [driven_mod.reconstruct_lap(log, by_number[n]).line for n in near]
-            )
-            if self.intervals
-            else None
-        )
+        self._near = [
+            by_number[n]
+            for n in sorted(
+                (n for n in self.band_laps if n != chosen.number),
+                key=lambda n: (abs(n - chosen.number), n),
+            )[: bands.LINE_LAPS]
+        ]
 
     def __enter__(self) -> _LapsBeside:
         return self
@@ -545,7 +539,7 @@ class _LapsBeside:
         ref = the_lap.line
         lap_times = [ideal.lap_time_s]
         corner_times = [bands.corner_ideal(ref, ideal, corners)]
-        for line in self._lines.result():
+        for line in (driven_mod.reconstruct_lap(self.log, lp).line for lp in self._near):
             prof = solve.solve_profile(line, self.car, k)
             lap_times.append(prof.lap_time_s)
             corner_times.append(
