@@ -232,3 +232,17 @@ def test_versus_on_the_bundled_sessions(tmp_path, capsys, monkeypatch):
         and "<script" not in page
         and 'src="http' not in page
     )
+
+
+def test_logs_timed_from_different_gates_are_refused(capsys, monkeypatch, tmp_path):
+    # The bundled dry and wet sessions without a gate: each log's gate is placed on its own
+    # (10 m apart), so every corner bound of B would be 10 m off A's; with the track
+    # file's gate they compare. Common practice, no published source: 5 m at most.
+    dry = bundled_path("demo_tracks", "tarrowby_dry.csv.gz")
+    wet = bundled_path("demo_tracks", "tarrowby_wet.csv.gz")
+    code, _, err = run_cli(["versus", dry, wet, "--out", tmp_path / "a"], capsys, monkeypatch)
+    assert code == 2 and f"{dry} and {wet}: the laps start 10 m apart" in err
+    code, _, _ = run_cli(
+        ["versus", dry, wet, "--track", TRACK, "--out", tmp_path / "b"], capsys, monkeypatch
+    )
+    assert code == 0
