@@ -187,3 +187,21 @@ def test_laps_command_with_a_vehicle_prints_every_lap(capsys, monkeypatch):
     records = json.loads(out)["laps"]
     assert [r["kind"] for r in records] == ["out"] + ["flying"] * 7 + ["in"]
     assert all(len(r["corner_times_s"]) == n - 6 for r in records[1:-1])
+
+
+@pytest.mark.slow
+def test_report_opens_with_the_session_and_its_figure(one_slip, tmp_path):
+    # The report's first section is the session lap by lap, with the grip-by-lap figure
+    # (PNG at its fixed size, read back by matplotlib's own PNG reader).
+    from matplotlib import image
+
+    from limitlap.figures import FIGURE_SIZE_PX
+
+    _, analysis = one_slip
+    written = outputs.write_outputs(analysis, tmp_path / "out")
+    png = image.imread(written["session.png"])
+    assert png.shape[:2] == FIGURE_SIZE_PX["session"][::-1]
+    page = (tmp_path / "out" / "report.html").read_text(encoding="utf-8")
+    first = page.index("<h2>")
+    assert page[first:].startswith("<h2>The session, lap by lap</h2>")
+    assert page.index('data-file="session.png"') < page.index("<h2>Warnings</h2>")
