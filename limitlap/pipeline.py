@@ -535,16 +535,16 @@ class _LapsBeside:
         return table, self._bands(table, the_lap, ideal, k, corners, comparison)
 
     def _line_draws(self, the_lap, ideal, k, corners):
-        """The ideal lap and corner times on the analysed lap's line and on the neighbours' rebuilt lines, corners mapped by the share of the line's length."""
-        ref = the_lap.line
+        """The ideal lap and corner times on the analysed lap's line and on the neighbours' rebuilt lines, the corners placed on each where that lap had travelled the same share of its lap (:func:`limitlap.session.corners_on`)."""
         lap_times = [ideal.lap_time_s]
-        corner_times = [bands.corner_ideal(ref, ideal, corners)]
-        for line in (driven_mod.reconstruct_lap(self.log, lp).line for lp in self._near):
-            prof = solve.solve_profile(line, self.car, k)
+        corner_times = [bands.corner_ideal(the_lap.line, ideal, corners)]
+        shares = session_mod.corner_shares(self.log, self.chosen, the_lap, corners)
+        for lp in self._near:
+            drv = driven_mod.reconstruct_lap(self.log, lp)
+            prof = solve.solve_profile(drv.line, self.car, k)
             lap_times.append(prof.lap_time_s)
-            corner_times.append(
-                bands.corner_ideal(line, prof, corners, line.length_m / ref.length_m)
-            )
+            placed = session_mod.corners_on(self.log, lp, drv, corners, shares)
+            corner_times.append(bands.corner_ideal(drv.line, prof, placed))
         return np.array(lap_times), np.vstack(corner_times)
 
     def _level_data(self, records):

@@ -394,6 +394,22 @@ def corner_times(log, lap: Lap, shares, travel: _Travel | None = None) -> np.nda
     return t1 - t0 + np.where(ends <= starts, float(lap.time_s), 0.0)
 
 
+def corners_on(log, lap: Lap, driven, corners, shares):
+    """The corners placed on another lap's rebuilt line where it had travelled each bound's share (:func:`corner_shares`); only the bounds move. [m]."""
+    import dataclasses
+
+    t_st = np.asarray(driven.time_s, dtype=np.float64) - float(driven.time_s[0])
+    s_st = np.asarray(driven.line.distance_m, dtype=np.float64)
+    travel = _travel(log, lap)
+    starts, ends = (np.interp(x, travel.share_at, travel.time_at) for x in shares)
+    s0 = np.interp(starts, t_st, s_st)
+    s1 = np.interp(ends, t_st, s_st)
+    return [
+        dataclasses.replace(c, start_m=float(a), end_m=float(b))
+        for c, a, b in zip(corners, s0, s1, strict=True)
+    ]
+
+
 def session_table(
     log,
     laps: Sequence[Lap],
