@@ -73,6 +73,8 @@ def _plain(value, key: str = ""):
     if dataclasses.is_dataclass(value) and not isinstance(value, type):
         return {f.name: _plain(getattr(value, f.name), f.name) for f in dataclasses.fields(value)}
     if isinstance(value, np.ndarray):
+        if value.dtype.kind == "f" and _decimals(key) is None and np.isfinite(value).all():
+            return (value + 0.0).tolist()  # unrounded keys: the floats as they are (no -0.0)
         return [_plain(v, key) for v in value.tolist()]
     if isinstance(value, list | tuple):
         return [_plain(v, key) for v in value]
