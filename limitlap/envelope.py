@@ -163,10 +163,6 @@ class EnvelopeFit:
         Names of the vehicle fields taken from the fit.
     warnings : list[str]
         Plain one-line notes for the user.
-    covariance : numpy.ndarray or None
-        Gauss-Newton covariance of the fitted parameters, in the order of ``fitted`` and
-        their SI units (``uncertainty`` is the square root of its diagonal); what the
-        intervals of :mod:`limitlap.bands` propagate.
     """
 
     vehicle: Vehicle
@@ -176,7 +172,6 @@ class EnvelopeFit:
     used: np.ndarray
     fitted: tuple
     warnings: list = field(default_factory=list)
-    covariance: np.ndarray | None = None
 
 
 def _vehicle_from(x, names, base):
@@ -495,7 +490,7 @@ def fit_envelope(
     )
     noise = sel.noise_m_s2 if remove_noise else 0.0
     veh, bp, lifts, full_throttle = problem.calibrated_and_lifted(veh, bp, calibrated, noise)
-    res, uncertainty, covariance = problem.uncertainty(veh, bp)
+    res, uncertainty = problem.uncertainty(veh, bp)
     quality = {
         "rms_residual_m_s2": float(np.sqrt(np.mean(res**2))),
         **_outside_shares(problem, veh, full_throttle),
@@ -517,14 +512,7 @@ def fit_envelope(
             "(it cannot be told apart from grip in the g-g data)"
         )
     return EnvelopeFit(
-        veh.require_complete(),
-        quality,
-        uncertainty,
-        bands,
-        used,
-        tuple(problem.names),
-        warnings,
-        covariance,
+        veh.require_complete(), quality, uncertainty, bands, used, tuple(problem.names), warnings
     )
 
 
@@ -669,7 +657,7 @@ class _FitProblem:
         return veh, bp, lifts, full_throttle
 
     def uncertainty(self, veh, bp):
-        """Residuals of the boundary points [m/s²], the parameters' standard errors and their covariance [SI].
+        """Residuals of the boundary points [m/s²] and the parameters' standard errors [SI].
 
         Gauss-Newton covariance :math:`s^2 (J^T J)^{-1}` at the solution.
         """
@@ -679,9 +667,7 @@ class _FitProblem:
         s2 = float(np.sum(res**2) / dof)
         cov = np.linalg.pinv(sol.jac.T @ sol.jac) * s2
         sigma = np.sqrt(np.clip(np.diag(cov), 0.0, None))
-        scale = np.array([_SCALE.get(k, 1.0) for k in self.names])
-        named = {k: float(sigma[i] * scale[i]) for i, k in enumerate(self.names)}
-        return res, named, cov * np.outer(scale, scale)
+        return res, {k: float(sigma[i] * _SCALE.get(k, 1.0)) for i, k in enumerate(self.names)}
 
 
 def _outside_shares(problem: _FitProblem, veh, full_throttle) -> dict:
