@@ -10,6 +10,9 @@ Writes, next to this script:
                                the origin's ENU frame)
 - ``tarrowby_dry.csv.gz``      dry session: out-lap, 7 flying laps, in-lap; 100 Hz, 10 Hz GNSS
 - ``tarrowby_wet.csv.gz``      wet session (grip scale 0.75): out-lap, 4 laps, in-lap
+- ``tarrowby_second.csv.gz``   a second invented driver's dry session in the same car, with
+                               other mistakes (``synth.SECOND_DRIVER_MISTAKES``): out-lap,
+                               6 laps, in-lap (for ``limitlap versus``)
 - ``tarrowby_truth.json``      what the generator planted (lap times, mistakes, ideal laps)
 """
 
@@ -25,6 +28,9 @@ from limitlap.driven import line_csv_text
 HERE = Path(__file__).resolve().parent
 DRY = {"n_laps": 7, "grip_scale": 1.0, "seed": 20240611}
 WET = {"n_laps": 4, "grip_scale": 0.75, "seed": 20240612}
+SECOND = {"n_laps": 6, "grip_scale": 1.0, "seed": 20240613}
+#: Each session's planted mistakes (the dry and wet ones: the generator's default).
+MISTAKES = {"second": synth.SECOND_DRIVER_MISTAKES}
 
 
 def track_toml(circuit: circuits.Circuit) -> str:
@@ -87,8 +93,9 @@ def main() -> None:
     (HERE / "tarrowby_heath.toml").write_text(track_toml(circuit), encoding="utf-8")
     (HERE / "tarrowby_heath_line.csv").write_text(line_csv_text(circuit.line), encoding="utf-8")
     truth = {}
-    for name, settings in (("dry", DRY), ("wet", WET)):
-        session = synth.generate_session(circuit, **settings)
+    for name, settings in (("dry", DRY), ("wet", WET), ("second", SECOND)):
+        extra = {"mistakes": MISTAKES[name]} if name in MISTAKES else {}
+        session = synth.generate_session(circuit, **settings, **extra)
         text = synth.session_csv_text(session).encode("utf-8")
         (HERE / f"tarrowby_{name}.csv.gz").write_bytes(gzip.compress(text, 9, mtime=0))
         truth[name] = truth_record(session, settings)

@@ -226,20 +226,39 @@ def _points(points) -> str:
 
 
 def _corner_table(analysis) -> str:
-    """The ranked corner table and headline, for the terminal."""
-    from limitlap.formatting import distance, grip, grip_used, lap_time, speed_kmh, time_left
+    """The ranked corner table and headline, for the terminal (with the bands when there are some)."""
+    from limitlap.bands import advice_shown
+    from limitlap.formatting import (
+        distance,
+        grip,
+        grip_used,
+        lap_time,
+        speed_kmh,
+        time_left,
+        with_band,
+    )
 
     cmp_ = analysis.comparison
+    b = analysis.bands
+    band_of = {c.name: b.corner_bands_s[i] for i, c in enumerate(cmp_.corners)} if b else {}
+    group_of = {c.name: b.rank_group[i] for i, c in enumerate(cmp_.corners)} if b else {}
     lines = [
         f"lap {analysis.lap.number}: {lap_time(cmp_.lap_time_s)}   ideal "
         f"{lap_time(cmp_.ideal_lap_time_s)} at grip scale {grip(analysis.grip_scale)}   "
-        f"time left {time_left(cmp_.time_left_s)} s   grip estimate "
-        f"{grip(analysis.grip_estimate)}",
+        f"time left {with_band(cmp_.time_left_s, b.time_left_band_s if b else None)}   "
+        f"grip estimate {grip(analysis.grip_estimate)}",
     ]
     if cmp_.time_left_words():
         lines.append(f"time left below zero: {cmp_.time_left_words()}")
+    if b is not None:
+        lo, hi = b.ideal_time_band_s
+        lines.append(
+            f"ideal lap {lap_time(lo)} to {lap_time(hi)} ({b.coverage:.0%} band, bootstrap "
+            f"over {b.n_laps} flying laps); corners in one group cannot be told apart"
+        )
     heads = (
         "rank",
+        "group",
         "corner",
         "",
         "apex [m]",
@@ -252,10 +271,13 @@ def _corner_table(analysis) -> str:
     rows = [
         (
             f"{c.rank:>4}",
+            str(group_of[c.name]) if c.name in group_of else "-",
             c.name,
             c.label,
             distance(c.apex_m),
-            time_left(c.time_left_s),
+            with_band(c.time_left_s, band_of.get(c.name), unit="")
+            if c.name in band_of
+            else time_left(c.time_left_s),
             f"{speed_kmh(c.min_speed_actual_m_s)} / {speed_kmh(c.min_speed_ideal_m_s)}",
             _points(c.brake_points_actual_m),
             _points(c.brake_points_ideal_m),
@@ -263,9 +285,13 @@ def _corner_table(analysis) -> str:
         )
         for c in cmp_.ranked()
     ]
-    lines += ["", *_text_table(heads, [tuple(r) for r in rows], left=3), ""]
+    lines += ["", *_text_table(heads, rows, left=4), ""]
     lines += [f"{c.name}: {c.note}" for c in cmp_.corners if c.note]
-    lines += [c.advice for c in cmp_.ranked()[:3] if c.advice]
+    shown = [
+        advice_shown(c.name, c.time_left_s, band_of.get(c.name), c.advice)
+        for c in cmp_.ranked()[:3]
+    ]
+    lines += [a for a in shown if a]
     return "\n".join(lines)
 
 
@@ -281,18 +307,50 @@ def laps(
         None, "--channels", help="Channel-map TOML for other column names."
     ),
     track: Path = typer.Option(None, "--track", help="Track TOML (gate, corner names)."),
+    vehicle: Path = typer.Option(
+        None,
+        "--vehicle",
+        help="Vehicle TOML or envelope.toml: adds each lap's ideal, time left, grip and corners.",
+    ),
+    grip: str = typer.Option(None, "--grip", help=_GRIP_HELP, callback=_grip_scale),
     as_json: bool = typer.Option(False, "--json", help="Print JSON on stdout."),
 ) -> None:
-    """The laps of a log: number, kind (out, flying, in, pit, partial), time, distance, complete or why not."""
+    """The laps of a log: number, kind (out, flying, in, pit, partial), time, distance, complete or why not.
+
+    With --vehicle, every lap of the session against the ideal on its own line: ideal,
+    time left, grip found and each corner's time, and each corner's spread over the
+    flying laps.
+    """
     from limitlap import laps as laps_mod
     from limitlap import pipeline
 
-    _, found, _, warnings = pipeline.load_session(log, gate=gate, channels=channels, track=track)
-    _warn(warnings)
+    if vehicle is None:
+        _, found, _, warnings = pipeline.load_session(
+            log, gate=gate, channels=channels, track=track
+        )
+        _warn(warnings)
+        if as_json:
+            typer.echo(json.dumps(laps_mod.laps_json(found)))
+        else:
+            typer.echo(format_laps_table(found))
+        return
+    _settle_imports()
+    analysis = pipeline.analyse(
+        log,
+        vehicle=vehicle,
+        grip_scale=grip,
+        gate=gate,
+        channels=channels,
+        track=track,
+        intervals=False,
+    )
+    _warn(analysis.warnings)
     if as_json:
-        typer.echo(json.dumps(laps_mod.laps_json(found)))
+        from limitlap.outputs import session_laps, summary_json_text
+
+        typer.echo(summary_json_text({"laps": session_laps(analysis.session)}), nl=False)
     else:
-        typer.echo(format_laps_table(found))
+        typer.echo(format_session_table(analysis.session, analysis.lap.number))
 
 
 def _settle_imports() -> None:
@@ -489,6 +547,108 @@ def targets(
 
 
 @app.command()
+def versus(
+    log_a: Path = typer.Argument(..., help="Log of lap A (CSV, optionally .csv.gz)."),
+    log_b: Path = typer.Argument(None, help="Log of lap B; default the same log as A."),
+    lap_a: int = typer.Option(None, "--lap-a", help="Lap A; default the fastest of its log."),
+    lap_b: int = typer.Option(
+        None, "--lap-b", help="Lap B; default the fastest of its log (of one log: the next)."
+    ),
+    vehicle: Path = typer.Option(
+        None,
+        "--vehicle",
+        help="Common envelope (vehicle TOML with [grip] or envelope.toml); default fitted to both logs.",
+    ),
+    grip: str = typer.Option(None, "--grip", help=_GRIP_HELP, callback=_grip_scale),
+    gate: str = _gate_option(),
+    channels: Path = typer.Option(
+        None, "--channels", help="Channel-map TOML for other column names."
+    ),
+    track: Path = typer.Option(None, "--track", help="Track TOML (gate, corner names)."),
+    out: Path = typer.Option(Path("limitlap-versus"), "--out", help="Output folder."),
+    no_figures: bool = typer.Option(False, "--no-figures", help="Skip the PNG figures."),
+) -> None:
+    """Lap against lap: two laps of one log, or of two logs of one circuit, corner by corner."""
+    from limitlap import ingest, pipeline, report
+    from limitlap import versus as versus_mod
+    from limitlap.outputs import write_versus
+
+    _settle_imports()
+    k = grip
+    car = ingest.read_vehicle(vehicle, require_complete=False) if vehicle is not None else None
+    trk = ingest.read_track(track) if track is not None else None
+    sessions = []
+    for path in [log_a] + ([log_b] if log_b is not None else []):
+        log, found, _, warnings = pipeline.load_session(
+            path, gate=gate, channels=channels, track=trk
+        )
+        _warn(warnings)
+        sessions.append((path, log, found))
+    result = versus_mod.compare_laps(
+        sessions[0],
+        sessions[1] if len(sessions) > 1 else None,
+        lap_a=lap_a,
+        lap_b=lap_b,
+        vehicle=car,
+        grip_scale=k,
+        track=trk,
+    )
+    written = write_versus(result, out, figures=not no_figures)
+    _warn(result.warnings)
+    typer.echo(format_versus_table(result))
+    typer.echo(f"\nwritten to {out}/: " + ", ".join(sorted(Path(p).name for p in written.values())))
+    typer.echo(report.SAFETY_CAUTION)
+
+
+@app.command()
+def envelope(
+    logs: list[Path] = typer.Argument(
+        ..., help="Session logs of one car (CSV, optionally .csv.gz)."
+    ),
+    out: Path = typer.Option(..., "--out", help="Envelope file to write (TOML)."),
+    vehicle: Path = typer.Option(
+        None, "--vehicle", help="Vehicle TOML with what is known (mass at least)."
+    ),
+    gate: str = _gate_option(),
+    channels: Path = typer.Option(
+        None, "--channels", help="Channel-map TOML for other column names."
+    ),
+    track: Path = typer.Option(None, "--track", help="Track TOML (gate)."),
+) -> None:
+    """One grip envelope fitted to the flying laps of several logs at once, as an envelope file."""
+    from limitlap import atomic, ingest, pipeline
+    from limitlap import versus as versus_mod
+    from limitlap.outputs import envelope_toml_text
+    from limitlap.vehicle import Vehicle
+
+    _settle_imports()
+    base = (
+        ingest.read_vehicle(vehicle, require_complete=False)
+        if vehicle is not None
+        else Vehicle("fitted from the logs", pipeline.NOMINAL_MASS_KG)
+    )
+    trk = ingest.read_track(track) if track is not None else None
+    sessions = []
+    for path in logs:
+        log, found, _, warnings = pipeline.load_session(
+            path, gate=gate, channels=channels, track=trk
+        )
+        _warn(warnings)
+        sessions.append((path, log, found))
+    fit = versus_mod.common_envelope(sessions, base)
+    _warn(fit.warnings)
+    info = {"quality": fit.quality, "uncertainty": fit.uncertainty}
+    atomic.write_atomic(out, envelope_toml_text(fit.vehicle, info))
+    car = fit.vehicle
+    typer.echo(
+        f"envelope of {len(logs)} log{'s' if len(logs) > 1 else ''}: lateral {car.mu_lat:.3f}, "
+        f"braking {car.mu_brk:.3f}, traction {car.mu_trac:.3f}, exponent {car.exponent:.2f}, "
+        f"power {car.power_w / 1000:.0f} kW"
+    )
+    typer.echo(f"written to {out} (use it with --vehicle)")
+
+
+@app.command()
 def demo(
     out: Path = typer.Option(Path("limitlap-demo"), "--out", help="Output folder."),
     quiet: bool = typer.Option(False, "--quiet", help="No progress display."),
@@ -644,3 +804,57 @@ def format_targets_table(condition: TargetCondition) -> str:
         for t in condition.corners
     ]
     return "\n".join([head, "", *_text_table(heads, rows, left=2), "", CAUTION])
+
+
+def format_session_table(table, analysed: int | None = None) -> str:
+    """Every lap of a session as fixed-width text: kind, time, ideal on its own line, time left, grip found, each corner's time; the corners' spread over the flying laps below."""
+    from limitlap.formatting import lap_time, number, time_left
+
+    names = list(table.corner_names)
+    head = f"{'lap':>4}  {'kind':<8}{'time':>10}{'ideal':>10}{'left':>7}{'grip':>6}"
+    lines = [head + "".join(f"{n:>7}" for n in names)]
+    lines.append(
+        f"{'':>4}  {'':<8}{'':>10}{'':>10}{'[s]':>7}{'[-]':>6}"
+        + "".join(f"{'[s]':>7}" for _ in names)
+    )
+    for r in table.laps:
+        times = [None] * len(names) if r.corner_times_s is None else list(r.corner_times_s)
+        mark = "  <- analysed" if r.number == analysed else ""
+        lines.append(
+            f"{r.number:>4}  {r.kind:<8}{lap_time(r.time_s):>10}"
+            f"{lap_time(r.ideal_time_s) if r.timed else '-':>10}"
+            f"{time_left(r.time_left_s) if r.timed else '-':>7}"
+            f"{number(r.grip_estimate, '.2f', blank='-'):>6}"
+            + "".join(f"{number(t, '.2f', blank='-'):>7}" for t in times)
+            + mark
+        )
+    if table.consistency:
+        n = table.consistency[0].n_laps
+        lines.append(
+            f"{'':>4}  {'spread':<8}{f'{n} flying':>10}{'':>10}{'':>7}{'':>6}"
+            + "".join(f"{number(c.spread_s, '.3f', blank='-'):>7}" for c in table.consistency)
+        )
+    return "\n".join(lines)
+
+
+def format_versus_table(result) -> str:
+    """Lap against lap as text: the two laps, then each corner's times, delta, time left and sentence."""
+    from limitlap.formatting import lap_time, number, time_left
+
+    a, b = result.a, result.b
+    lines = [
+        f"A: {a.label}  {lap_time(a.lap.time_s)}   ideal on its line {lap_time(a.ideal.lap_time_s)}",
+        f"B: {b.label}  {lap_time(b.lap.time_s)}   ideal on its line {lap_time(b.ideal.lap_time_s)}",
+        f"B minus A: {number(result.lap_delta_s, '+.2f', ' s')}",
+        "",
+        f"{'corner':<7}{'A':>8}{'B':>8}{'B-A':>8}{'A left':>8}{'B left':>8}",
+        f"{'':<7}{'[s]':>8}{'[s]':>8}{'[s]':>8}{'[s]':>8}{'[s]':>8}",
+    ]
+    for c in result.corners:
+        lines.append(
+            f"{c.name:<7}{c.time_a_s:>8.2f}{c.time_b_s:>8.2f}{number(c.delta_s, '+.2f'):>8}"
+            f"{time_left(c.time_left_a_s):>8}{time_left(c.time_left_b_s):>8}"
+        )
+    lines.append("")
+    lines += [c.sentence for c in result.corners]
+    return "\n".join(lines)

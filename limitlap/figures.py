@@ -63,6 +63,9 @@ FIGURE_SIZE_PX = {
     "detail": (1200, 640),
     "best": (1200, 520),
     "check": (1200, 420),
+    "session": (1200, 560),
+    "versus_delta": (1200, 380),
+    "versus_corners": (1200, 520),
     "target_sheet": (1240, 1754),  # A4 portrait at 150 dpi (the sheet is drawn at 150 dpi)
 }
 #: Resolution of the printable target sheet: A4 = 8.27 x 11.69 in. [dots per inch]
@@ -1214,3 +1217,191 @@ def target_sheet(condition, circuit_name: str, caution: str, fmt: str = "png") -
     )
     fig.savefig(buf, format=fmt, dpi=SHEET_DPI, metadata=meta)
     return buf.getvalue()
+
+
+# --------------------------------------------------------------------------- the session
+
+
+def _number_ticks(lo: int, hi: int, width_px: float) -> np.ndarray:
+    """Whole-number ticks for lap numbers, as many as fit the width."""
+    from limitlap._canvas import auto_bins, nice_ticks
+
+    ticks = nice_ticks(lo, hi, auto_bins(width_px, _FONT_PT, 3.0, DPI))
+    ticks = ticks[(ticks == np.round(ticks)) & (ticks >= lo) & (ticks <= hi)]
+    return ticks if ticks.size else np.array([lo])
+
+
+def session_figure(lap_numbers, grip_estimates, time_left_s, analysed: int) -> bytes:
+    """Grip found and time left against lap number, every lap timed gate to gate.
+
+    Parameters
+    ----------
+    lap_numbers : array-like of int
+        The laps. [-]
+    grip_estimates : array-like
+        Grip scale each lap showed against the envelope (NaN where unknown). [-]
+    time_left_s : array-like
+        Each lap's time left to the ideal on its own line. [s]
+    analysed : int
+        The analysed lap (drawn darker). [-]
+
+    Returns
+    -------
+    bytes
+        PNG image, ``FIGURE_SIZE_PX["session"]`` pixels.
+    """
+    from limitlap._canvas import Panel
+
+    c = _canvas("session")
+    n = np.asarray(lap_numbers, dtype=np.float64)
+    k = np.asarray(grip_estimates, dtype=np.float64)
+    left_s = np.asarray(time_left_s, dtype=np.float64)
+    xlim = (float(n.min()) - 0.6, float(n.max()) + 0.6) if n.size else (0.0, 1.0)
+    kf = k[np.isfinite(k)]
+    k_lo, k_hi = (float(kf.min()), float(kf.max())) if kf.size else (0.9, 1.1)
+    k_pad = max(0.1 * (k_hi - k_lo), 0.05 - 0.5 * (k_hi - k_lo))  # 0.1 at least: noise stays small
+    lf = np.concatenate([left_s[np.isfinite(left_s)], [0.0]])
+    l_span = max(float(lf.max() - lf.min()), 1e-3)
+    limits = (
+        (k_lo - k_pad, k_hi + k_pad),
+        (min(float(lf.min()), 0.0) - 0.05 * l_span, float(lf.max()) + 0.12 * l_span),
+    )
+    top, gap, bottom, right = 30, 58, 52, 22
+    height = (c.height - top - gap - bottom) / 2
+    ticks = [_y_ticks(lo, hi, height) for lo, hi in limits]
+    left = max(_left_margin(c, labels) for _, labels in ticks)
+    width = c.width - left - right
+    xt = _number_ticks(int(n.min()) if n.size else 0, int(n.max()) if n.size else 1, width)
+    grip_p = Panel(c, left, top, width, height, xlim, limits[0])
+    time_p = Panel(c, left, top + height + gap, width, height, xlim, limits[1])
+    for p, (yt, _) in zip((grip_p, time_p), ticks, strict=True):
+        p.grid(xt, yt, GRID, 0.6)
+    ok = np.isfinite(k)
+    grip_p.line(n[ok], k[ok], ACCENT, 1.2)
+    grip_p.scatter(n[ok], k[ok], "o", 7.0, ACCENT)
+    mine = n == analysed
+    grip_p.scatter(n[mine & ok], k[mine & ok], "o", 10.0, REAL)
+    time_p.bar(n[~mine], np.nan_to_num(left_s[~mine]), "#e8a27a", width=0.6)
+    time_p.bar(n[mine], np.nan_to_num(left_s[mine]), REAL, width=0.6)
+    time_p.hline(0.0, IDEAL, 1.2)
+    for p, (yt, ylabels), label, title in (
+        (grip_p, ticks[0], "grip found [-]", "Grip found on each lap (the envelope's grip = 1)"),
+        (
+            time_p,
+            ticks[1],
+            "time left [s]",
+            f"Time left to the ideal on each lap's own line (lap {analysed} darker)",
+        ),
+    ):
+        below = p.xticks(xt, [f"{int(x)}" for x in xt], size_pt=_FONT_PT, colour=INK)
+        p.frame(colour=EDGE)
+        p.ylabel(label, p.yticks(yt, ylabels, size_pt=_FONT_PT, colour=INK), size_pt=_FONT_PT)
+        p.title(title, size_pt=_TITLE_PT)
+    time_p.xlabel("lap number", below, size_pt=_FONT_PT)
+    return _png(c, "session")
+
+
+# --------------------------------------------------------------------------- lap against lap
+
+
+def versus_delta_figure(distance_m, delta_s, corners, label_a: str, label_b: str) -> bytes:
+    """Time delta of lap B against lap A along the common line (rising = B losing time).
+
+    Parameters
+    ----------
+    distance_m : array-like
+        Stations of the common line. [m]
+    delta_s : array-like
+        B's elapsed time minus A's at each station. [s]
+    corners : list of dict
+        Corner segments (``name``, ``start_m``, ``apex_m``, ``end_m``) on the common line. [m]
+    label_a, label_b : str
+        What A and B are ("lap 3 of dry.csv").
+
+    Returns
+    -------
+    bytes
+        PNG image, ``FIGURE_SIZE_PX["versus_delta"]`` pixels.
+    """
+    c = _canvas("versus_delta")
+    s = np.asarray(distance_m, dtype=np.float64)
+    d = np.asarray(delta_s, dtype=np.float64)
+    fin = np.concatenate([d[np.isfinite(d)], [0.0]])
+    lo, hi = float(fin.min()), float(fin.max())
+    span = max(hi - lo, 1e-3)
+    p, xt, yt = _lap_panel(c, s, (lo - 0.05 * span, hi + 0.2 * span))
+    _corner_bands(p, corners)
+    with np.errstate(invalid="ignore"):
+        p.fill_between(s, 0.0, d, REAL, alpha=0.18, where=d >= 0)
+        p.fill_between(s, 0.0, d, IDEAL, alpha=0.18, where=d < 0)
+    p.grid(xt, yt, GRID, 0.6)
+    p.line(s, d, INK, 1.5)
+    p.hline(0.0, EDGE, 1.0)
+    _axes(
+        p,
+        xt,
+        yt,
+        "distance along the common line from the start/finish gate [m]",
+        "B minus A [s]",
+        f"Time delta: B ({label_b}) minus A ({label_a}); rising = B losing time",
+    )
+    _corner_names(p, corners, hi + 0.08 * span)
+    return _png(c, "versus_delta")
+
+
+def versus_corner_figure(names, delta_s, left_a_s, left_b_s, label_a: str, label_b: str) -> bytes:
+    """Per corner: B minus A, and each lap's time left to its ideal at the common envelope.
+
+    Parameters
+    ----------
+    names : sequence of str
+        Corner names in driving order.
+    delta_s : array-like
+        B's corner time minus A's. [s]
+    left_a_s, left_b_s : array-like
+        Each lap's time left in the corner. [s]
+    label_a, label_b : str
+        What A and B are.
+
+    Returns
+    -------
+    bytes
+        PNG image, ``FIGURE_SIZE_PX["versus_corners"]`` pixels.
+    """
+    from limitlap._canvas import Entry, Panel
+
+    c = _canvas("versus_corners")
+    x = np.arange(len(names), dtype=np.float64)
+    series = [np.asarray(a, dtype=np.float64) for a in (delta_s, left_a_s, left_b_s)]
+    allv = np.concatenate([np.nan_to_num(a) for a in series] + [[0.0]])
+    lo, hi = float(allv.min()), float(allv.max())
+    span = max(hi - lo, 1e-3)
+    ylim = (lo - 0.05 * span, hi + 0.25 * span)
+    top, bottom, right = 30, 52, 22
+    height = c.height - top - bottom
+    yt, ylabels = _y_ticks(ylim[0], ylim[1], height)
+    left = _left_margin(c, ylabels)
+    w = 0.27
+    p = Panel(c, left, top, c.width - left - right, height, (-0.6, len(names) - 0.4), ylim)
+    p.grid(yticks=yt, colour=GRID, lw_pt=0.6)
+    colours = (INK, ACCENT, BEST)
+    for off, values, colour in zip((-w, 0.0, w), series, colours, strict=True):
+        p.bar(x + off, np.nan_to_num(values), colour, width=w)
+    p.hline(0.0, EDGE, 1.0)
+    p.frame(colour=EDGE)
+    name_pt = 10 if len(names) <= 16 else 8
+    below = p.xticks(x, list(names), size_pt=name_pt, colour=INK)
+    p.xlabel("corner", below, size_pt=_FONT_PT)
+    p.ylabel("[s]", p.yticks(yt, ylabels, size_pt=_FONT_PT, colour=INK), size_pt=_FONT_PT)
+    p.title("Per corner: B minus A, and each lap's time left to its ideal", size_pt=_TITLE_PT)
+    c.legend(
+        [
+            Entry("B minus A (+ = B slower)", "patch", INK),
+            Entry(f"A ({label_a}): time left", "patch", ACCENT),
+            Entry(f"B ({label_b}): time left", "patch", BEST),
+        ],
+        loc="upper right",
+        within=p.box,
+        size_pt=9,
+    )
+    return _png(c, "versus_corners")

@@ -154,3 +154,34 @@ def grip(scale) -> str:
     '0.85'
     """
     return number(scale, ".2f")
+
+
+def with_band(value, band, unit: str = " s", decimals: int = 2) -> str:
+    """A value with its band as ``0.48 ± 0.05 s``: the ± is the larger of the band's two sides rounded up, so the range shown holds the whole band (a bootstrap band need not be centred on the value).
+
+    Without a band (None) the value alone; :data:`NOT_AVAILABLE` when the value is unknown.
+
+    >>> with_band(0.4849, (0.44, 0.51)), with_band(-0.004, (-0.02, 0.011)), with_band(0.2, None)
+    ('0.48 ± 0.05 s', '0.00 ± 0.02 s', '0.20 s')
+    """
+    if not _known(value):
+        return NOT_AVAILABLE
+    shown = f"{hundredths(value) if decimals == 2 else value:.{decimals}f}"
+    if band is None or not all(_known(b) for b in band):
+        return f"{shown}{unit}"
+    half = max(value - band[0], band[1] - value, 0.0)
+    step = 10.0**-decimals
+    half = math.ceil(half / step - 1e-9) * step  # rounded up: the range shown holds the band
+    return f"{shown} ± {half:.{decimals}f}{unit}"
+
+
+def band_range(band, unit: str = " s", decimals: int = 2) -> str:
+    """A band as ``0.44 to 0.51 s``; :data:`NOT_AVAILABLE` when unknown.
+
+    >>> band_range((0.4412, 0.5149)), band_range(None)
+    ('0.44 to 0.51 s', 'n/a')
+    """
+    if band is None or not all(_known(b) for b in band):
+        return NOT_AVAILABLE
+    lo, hi = (hundredths(b) if decimals == 2 else b for b in band)
+    return f"{lo:.{decimals}f} to {hi:.{decimals}f}{unit}"

@@ -215,3 +215,68 @@ def grip_estimate_by_segment(
     val = kk[order][lo] * (1.0 - frac) + kk[order][hi] * frac
     out[keys[enough]] = val[enough]
     return out
+
+
+def grip_estimates_of_stretches(
+    speed_m_s,
+    accel_lon_m_s2,
+    accel_lat_m_s2,
+    vehicle: Vehicle,
+    bounds,
+    *,
+    mask=None,
+    quantile=0.99,
+    step: int = 1,
+    min_speed_m_s=10.0,
+    min_samples=5,
+) -> np.ndarray:
+    """Grip scale of each stretch of already filtered samples, as :func:`grip_estimate` of each.
+
+    The required grip scale is found once over the rows from the first stretch's start
+    to the last one's end (every ``step``-th row), then each stretch's quantile taken on
+    its own rows; no sort of the whole.
+
+    Parameters
+    ----------
+    speed_m_s, accel_lon_m_s2, accel_lat_m_s2 : array-like
+        Filtered per-sample speed [m/s] and accelerations [m/s²] (e.g. a whole log's
+        :func:`limitlap.samples.select_samples`).
+    vehicle : Vehicle
+        Complete vehicle at grip 1.
+    bounds : sequence of (int, int)
+        Each stretch's first row and the row after its last. [-]
+    mask : array-like of bool, optional
+        Samples to consider. [-]
+    quantile, min_speed_m_s
+        As in :func:`grip_estimate`.
+    step : int
+        Every ``step``-th row only (a rate the low-pass leaves nothing above). [-]
+    min_samples : int
+        A stretch with fewer usable samples gets NaN. [-]
+
+    Returns
+    -------
+    numpy.ndarray
+        k per stretch; NaN where too few samples. [-]
+    """
+    if not bounds:
+        return np.empty(0)
+    lo = min(b[0] for b in bounds)
+    hi = max(b[1] for b in bounds)
+    rows = slice(lo, hi, max(int(step), 1))
+    v = np.asarray(speed_m_s, dtype=np.float64)[rows]
+    ax = np.asarray(accel_lon_m_s2, dtype=np.float64)[rows]
+    ay = np.asarray(accel_lat_m_s2, dtype=np.float64)[rows]
+    ok = np.isfinite(v) & np.isfinite(ax) & np.isfinite(ay) & (v >= min_speed_m_s)
+    if mask is not None:
+        ok &= np.asarray(mask, dtype=bool)[rows]
+    k = np.full(v.shape, np.inf)
+    k[ok] = _grip_demand(v[ok], ax[ok], ay[ok], vehicle, POWER_LIMIT_MARGIN)
+    out = np.full(len(bounds), np.nan)
+    stride = rows.step
+    for i, (a, b) in enumerate(bounds):
+        part = k[-(-(a - lo) // stride) : -(-(b - lo) // stride)]
+        part = part[np.isfinite(part)]
+        if part.size >= min_samples:
+            out[i] = float(np.quantile(part, quantile))
+    return out

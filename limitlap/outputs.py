@@ -73,6 +73,8 @@ def _plain(value, key: str = ""):
     if dataclasses.is_dataclass(value) and not isinstance(value, type):
         return {f.name: _plain(getattr(value, f.name), f.name) for f in dataclasses.fields(value)}
     if isinstance(value, np.ndarray):
+        if value.dtype.kind == "f" and _decimals(key) is None and np.isfinite(value).all():
+            return (value + 0.0).tolist()  # unrounded keys: the floats as they are (no -0.0)
         return [_plain(v, key) for v in value.tolist()]
     if isinstance(value, list | tuple):
         return [_plain(v, key) for v in value]
@@ -413,6 +415,8 @@ class ReportView:
     pedals_real: dict = dataclasses.field(default_factory=dict)
     pedals_ideal: dict = dataclasses.field(default_factory=dict)
     time_left_words: str = ""
+    session: object = None
+    bands: object = None
 
 
 def _best_of_laps(best: BestOfLaps | None, corners) -> float:
@@ -438,6 +442,7 @@ def report_view(analysis) -> ReportView:
     t_real = np.asarray(driven.time_s, dtype=np.float64)
     t_ideal = np.asarray(ideal.time_s, dtype=np.float64)
     corners = corner_rows(comparison)
+    _with_bands(corners, getattr(analysis, "bands", None))
     warnings = [str(w) for w in analysis.warnings]
     fit_warnings = analysis.fit.warnings if analysis.fit is not None else []
     for extra in (driven.warnings, fit_warnings):
@@ -482,6 +487,8 @@ def report_view(analysis) -> ReportView:
         pedals_real=_pedals(comparison, "actual"),
         pedals_ideal=_pedals(comparison, "ideal"),
         time_left_words=comparison.time_left_words(),
+        session=getattr(analysis, "session", None),
+        bands=getattr(analysis, "bands", None),
     )
 
 
@@ -528,6 +535,60 @@ def _pedals(comparison: LapComparison, which: str) -> dict:
     }
 
 
+def _with_bands(corners, bands) -> None:
+    """Each corner row gets its time-left band and rank group; a corner whose band includes zero gets a note in place of its advice (:func:`limitlap.bands.advice_shown`)."""
+    if bands is None:
+        return
+    from limitlap.bands import advice_shown
+
+    for i, c in enumerate(corners):
+        band = tuple(bands.corner_bands_s[i])
+        c["time_left_band_s"] = band
+        c["rank_group"] = int(bands.rank_group[i])
+        c["plain"] = advice_shown(c["name"], c["time_left_s"], band, c["plain"])
+        if "_summary" in c:
+            c["_summary"] = {**c["_summary"], "advice": c["plain"]}
+
+
+def session_laps(table) -> list[dict]:
+    """summary.json ``laps`` (docs/outputs.md): one record per lap of the log, in order.
+
+    ``number``, ``kind``, ``time_s``; for each lap timed gate to gate also
+    ``ideal_time_s``, ``time_left_s``, ``grip_estimate`` and ``corner_times_s`` (corner
+    order).
+    """
+    out = []
+    for r in table.laps:
+        rec = {"number": r.number, "kind": r.kind, "time_s": r.time_s}
+        if r.timed:
+            rec["ideal_time_s"] = r.ideal_time_s
+            rec["time_left_s"] = r.time_left_s
+            rec["grip_estimate"] = r.grip_estimate
+            rec["corner_times_s"] = None if r.corner_times_s is None else list(r.corner_times_s)
+        out.append(rec)
+    return out
+
+
+def _band_keys(v: ReportView, ideal: dict) -> dict:
+    """The bands' summary.json keys: ``ideal.time_band_s`` and ``band_coverage`` added to ``ideal``; the top-level extras returned."""
+    b = v.bands
+    if b is None:
+        return {}
+    ideal["time_band_s"] = list(b.ideal_time_band_s)
+    ideal["band_coverage"] = b.coverage
+    return {
+        "time_left_band_s": list(b.time_left_band_s),
+        "bands": {
+            "method": "bootstrap over the flying laps (docs/methods.md, How sure)",
+            "coverage": b.coverage,
+            "resamples": b.n_resamples,
+            "laps": b.n_laps,
+            "envelope_sd_s": b.envelope_sd_s,
+            "line_sd_s": b.line_sd_s,
+        },
+    }
+
+
 def build_summary(analysis) -> dict:
     """The docs/outputs.md, summary.json summary of an Analysis, plus corner extras and the warnings.
 
@@ -546,7 +607,7 @@ def build_summary(analysis) -> dict:
         if "_summary" in c:
             rec = dict(c["_summary"])
             rec.setdefault("plain", c["plain"])
-            for key in ("best_s", "best_lap", "label"):
+            for key in ("best_s", "best_lap", "label", "time_left_band_s", "rank_group"):
                 if key in c:
                     rec[key] = c[key]
             corners.append(rec)
@@ -569,21 +630,31 @@ def build_summary(analysis) -> dict:
             )
         }
         rec["plain"] = c["plain"]
-        for key in ("best_s", "best_lap", "label"):
+        for key in ("best_s", "best_lap", "label", "time_left_band_s", "rank_group"):
             if key in c:
                 rec[key] = c[key]
         corners.append(rec)
     best_rec = {"time_s": v.best_time_s, "complete_laps": v.n_laps}
     if analysis.best_of_laps is not None:
         best_rec.update(analysis.best_of_laps.summary_dict())
+    ideal = {"time_s": v.ideal_time_s, "grip_scale": v.grip_scale}
+    extras = _band_keys(v, ideal)
+    session = {}
+    if v.session is not None:
+        session = {
+            "laps": session_laps(v.session),
+            "consistency": [dataclasses.asdict(c) for c in v.session.consistency],
+        }
     return {
         "schema": SUMMARY_SCHEMA,
         "lap": {"number": v.lap_number, "time_s": v.lap_time_s, "distance_m": v.lap_distance_m},
-        "ideal": {"time_s": v.ideal_time_s, "grip_scale": v.grip_scale},
+        "ideal": ideal,
         "time_left_s": v.time_left_s,
+        **extras,
         "grip_estimate": v.grip_estimate,
         "corners": corners,
         "laps": laps_summary(analysis.laps),
+        **session,
         "best_of_laps": best_rec,
         "envelope": {
             "fitted": v.fit is not None,
@@ -672,6 +743,7 @@ def write_outputs(
             + min(3, len(v.corners))
             + (math.isfinite(v.best_time_s) and bool(v.corners))
             + (_curvature_check(v) is not None)
+            + (v.session is not None and bool(v.session.timed()))
         )
         if figures
         else 0
@@ -695,4 +767,77 @@ def write_outputs(
         step("figures written")
         written["report"] = out.write("report.html", report_html(v, figure_list))
         step("report.html")
+    return written
+
+
+#: Schema string of versus.json (docs/outputs.md, Lap against lap).
+VERSUS_SCHEMA = "limitlap.versus/1"
+
+
+def versus_summary(result) -> dict:
+    """versus.json (docs/outputs.md, Lap against lap) of a :class:`limitlap.versus.Versus`."""
+
+    def side(s):
+        return {
+            "label": s.label,
+            "log": s.log_path,
+            "lap": s.lap.number,
+            "time_s": float(s.lap.time_s),
+            "ideal_time_s": float(s.ideal.lap_time_s),
+            "time_left_s": float(s.comparison.time_left_s),
+            "distance_m": float(s.driven.line.length_m),
+        }
+
+    return {
+        "schema": VERSUS_SCHEMA,
+        "a": side(result.a),
+        "b": side(result.b),
+        "lap_delta_s": result.lap_delta_s,
+        "envelope": {
+            "fitted": result.fit is not None,
+            "logs": list(result.envelope_logs),
+            "grip_scale": result.grip_scale,
+        },
+        "corners": [
+            {
+                "name": c.name,
+                "start_m": c.start_m,
+                "apex_m": c.apex_m,
+                "end_m": c.end_m,
+                "time_a_s": c.time_a_s,
+                "time_b_s": c.time_b_s,
+                "delta_s": c.delta_s,
+                "time_left_a_s": c.time_left_a_s,
+                "time_left_b_s": c.time_left_b_s,
+                "sentence": c.sentence,
+            }
+            for c in result.corners
+        ],
+        "warnings": list(result.warnings),
+    }
+
+
+def write_versus(result, out_dir, *, figures: bool = True) -> dict:
+    """Write what ``limitlap versus`` leaves in its folder: versus.json, the common envelope.toml, the figures and report.html (one set, :func:`output_set`).
+
+    Returns
+    -------
+    dict
+        File kind -> path written.
+    """
+    from limitlap.report import versus_figures, versus_html
+
+    written = {}
+    with output_set(out_dir) as out:
+        written["summary"] = out.write("versus.json", summary_json_text(versus_summary(result)))
+        fit_info = None
+        if result.fit is not None:
+            fit_info = {"quality": result.fit.quality, "uncertainty": result.fit.uncertainty}
+        written["envelope"] = out.write(
+            "envelope.toml", envelope_toml_text(result.vehicle, fit_info)
+        )
+        figure_list = versus_figures(result) if figures else []
+        for name, _caption, png in figure_list:
+            written[name] = out.write(name, png)
+        written["report"] = out.write("report.html", versus_html(result, figure_list))
     return written

@@ -26,6 +26,7 @@ from pathlib import Path
 import numpy as np
 
 from limitlap import (
+    bands,
     best_laps,
     compare,
     envelope,
@@ -41,6 +42,7 @@ from limitlap import (
 from limitlap import corners as corners_mod
 from limitlap import driven as driven_mod
 from limitlap import laps as laps_mod
+from limitlap import session as session_mod
 from limitlap.errors import InputError, LimitlapError, UnitMismatch, WarningLine
 from limitlap.samples import select_samples
 from limitlap.vehicle import Vehicle, check_grip_scale
@@ -125,6 +127,12 @@ class Analysis:
         One line each; those with advice are :class:`limitlap.errors.WarningLine`.
     gg_bands : list of gg.GGBand
         The analysed lap's samples against the envelope in the g-g diagram, by speed band.
+    session : session.SessionTable or None
+        Every lap of the log: kind, time, ideal on its own line, time left, grip found,
+        corner times; and each corner's consistency over the flying laps.
+    bands : bands.Bands or None
+        Intervals of the ideal lap time and each corner's time left (None with fewer
+        than :data:`limitlap.bands.MIN_LAPS` flying laps, or when not asked for).
     """
 
     log_path: str
@@ -145,6 +153,8 @@ class Analysis:
     corner_labels: dict[str, str] = field(default_factory=dict)
     warnings: list[str] = field(default_factory=list)
     gg_bands: list[gg.GGBand] = field(default_factory=list)
+    session: session_mod.SessionTable | None = None
+    bands: bands.Bands | None = None
 
 
 def lap_timelines(log: logfile.Log, laps) -> dict[int, LapTimeline]:
@@ -350,6 +360,8 @@ def analyse(
     track=None,
     progress: Progress | None = None,
     check_units: bool = True,
+    every_lap: bool = True,
+    intervals: bool = True,
 ) -> Analysis:
     """The whole job on one log: laps, line, envelope, ideal lap, comparison.
 
@@ -373,6 +385,10 @@ def analyse(
         Stop with :class:`limitlap.errors.UnitMismatch` when a channel disagrees with the
         GPS path by a unit factor or a sign (:func:`limitlap.unit_checks.check_units`);
         False turns that into a warning. [-]
+    every_lap : bool
+        Build the table of every lap (:mod:`limitlap.session`). [-]
+    intervals : bool
+        Work out the bands (:mod:`limitlap.bands`; needs ``every_lap``). [-]
 
     Returns
     -------
@@ -399,15 +415,17 @@ def analyse(
             log_path, log, laps, chosen, the_lap, flying, beside, vehicle, warnings
         )
     _step(progress, 3, _STEPS, "solving the ideal lap")
-    ideal = solve.solve_profile(the_lap.line, car, k)
-    _step(progress, 4, _STEPS, "comparing corner by corner")
-    grip_est = _grip_estimate(log, laps, chosen, the_lap, car, k, fit is not None, warnings)
-    comparison = compare.compare_lap(
-        the_lap, ideal, car, corners, grip_scale=k, grip_estimate=grip_est
-    )
-    warnings += [w for w in comparison.warnings if w not in warnings]
-    _step(progress, 5, _STEPS, "best of the session's own laps")
-    complete_laps, best = _best_of_laps(laps, chosen, the_lap, timelines, corners, ideal)
+    with _LapsBeside(log, laps, chosen, car, fit, beside.selection(), every_lap, intervals) as more:
+        ideal = solve.solve_profile(the_lap.line, car, k)
+        _step(progress, 4, _STEPS, "comparing corner by corner")
+        grip_est = _grip_estimate(log, laps, chosen, the_lap, car, k, fit is not None, warnings)
+        comparison = compare.compare_lap(
+            the_lap, ideal, car, corners, grip_scale=k, grip_estimate=grip_est
+        )
+        warnings += [w for w in comparison.warnings if w not in warnings]
+        _step(progress, 5, _STEPS, "best of the session's own laps")
+        complete_laps, best = _best_of_laps(laps, chosen, the_lap, timelines, corners, ideal)
+        table, band = more.finish(the_lap, ideal, k, corners, comparison, grip_est)
     _step(progress, 6, _STEPS, "done")
     return Analysis(
         log_path=str(log_path),
@@ -430,7 +448,152 @@ def analyse(
         gg_bands=gg.gg_bands(
             the_lap.speed_m_s, the_lap.accel_lon_m_s2, the_lap.accel_lat_m_s2, car, k
         ),
+        session=table,
+        bands=band,
     )
+
+
+class _LapsBeside:
+    """The table of every lap and the bands; the grip of every lap in a second thread.
+
+    Why a thread: the grip found on every lap (:func:`limitlap.session.lap_grip_estimates`)
+    needs neither the ideal nor the comparison, so it runs beside the ideal's solve, the
+    comparison and the best of laps in the calling thread; :meth:`finish` then waits for
+    it (benchmarks/bench_session.py counts on this overlap). Measured and not kept:
+    rebuilding the bands' neighbouring lines in that thread too (the table, built meanwhile
+    in the calling thread, slowed by as much as the overlap saved on two shared cores).
+
+    Parameters
+    ----------
+    log, laps, chosen
+        The session, its laps, the analysed lap. [-]
+    car : Vehicle
+        The envelope at grip scale 1. [-]
+    fit : envelope.EnvelopeFit or None
+        Its fit (None: given by a vehicle file). [-]
+    selection : samples.Selection or None
+        The whole log's filtered samples, when the fit made them. [-]
+    every_lap, intervals : bool
+        What to build (see :func:`analyse`). [-]
+    """
+
+    def __init__(self, log, laps, chosen, car, fit, selection, every_lap, intervals):
+        self.log, self.laps, self.chosen, self.car, self.fit = log, laps, chosen, car, fit
+        self.selection = selection
+        self.every_lap, self.intervals = every_lap, intervals and every_lap
+        self._pool = ThreadPoolExecutor(max_workers=1)
+        self.band_laps = self._band_laps()
+        timed = [lp for lp in laps if lp.complete and lp is not chosen]
+        self._grips = (
+            self._pool.submit(
+                session_mod.lap_grip_estimates,
+                log,
+                timed,
+                car,
+                selection=selection,
+                rate_hz=_sample_rate(log),
+            )
+            if self.every_lap
+            else None
+        )
+        by_number = {lp.number: lp for lp in laps}
+        self._near = [
+            by_number[n]
+            for n in sorted(
+                (n for n in self.band_laps if n != chosen.number),
+                key=lambda n: (abs(n - chosen.number), n),
+            )[: bands.LINE_LAPS]
+        ]
+
+    def __enter__(self) -> _LapsBeside:
+        return self
+
+    def __exit__(self, *exc) -> None:
+        self._pool.shutdown(wait=True)
+
+    def _band_laps(self) -> list[int]:
+        """The laps the bands resample: the envelope's (flying within 107 %) when it was fitted, else every flying lap timed gate to gate."""
+        if self.fit is not None:
+            return [lp.number for lp in laps_mod.flying_laps(self.laps)]
+        return [
+            lp.number
+            for lp in self.laps
+            if lp.complete and session_mod.lap_kind(lp, self.laps) == "flying"
+        ]
+
+    def finish(self, the_lap, ideal, k, corners, comparison, grip_est):
+        """(session.SessionTable or None, bands.Bands or None)."""
+        if not self.every_lap:
+            return None, None
+        grips = {**self._grips.result(), self.chosen.number: grip_est}
+        table = session_mod.session_table(
+            self.log,
+            self.laps,
+            self.chosen,
+            the_lap,
+            ideal,
+            self.car,
+            corners,
+            [c.actual_s for c in comparison.corners],
+            grip_scale=k,
+            grips=grips,
+        )
+        if not self.intervals:
+            return table, None
+        return table, self._bands(table, the_lap, ideal, k, corners, comparison)
+
+    def _line_draws(self, the_lap, ideal, k, corners):
+        """The ideal lap and corner times on the analysed lap's line and on the neighbours' rebuilt lines, the corners placed on each where that lap had travelled the same share of its lap (:func:`limitlap.session.corners_on`)."""
+        lap_times = [ideal.lap_time_s]
+        corner_times = [bands.corner_ideal(the_lap.line, ideal, corners)]
+        shares = session_mod.corner_shares(self.log, self.chosen, the_lap, corners)
+        for lp in self._near:
+            drv = driven_mod.reconstruct_lap(self.log, lp)
+            prof = solve.solve_profile(drv.line, self.car, k)
+            lap_times.append(prof.lap_time_s)
+            placed = session_mod.corners_on(self.log, lp, drv, corners, shares)
+            corner_times.append(bands.corner_ideal(drv.line, prof, placed))
+        return np.array(lap_times), np.vstack(corner_times)
+
+    def _level_data(self, records):
+        """:func:`limitlap.bands.level_samples` of the fit's samples on ``records``' laps, and their number; None without a fit."""
+        sel, fit = self.selection, self.fit
+        if fit is None or sel is None:
+            return None
+        by_number = {lp.number: lp for lp in self.laps}
+        lap_index = np.full(sel.used.shape[0], -1, dtype=np.int64)
+        for i, r in enumerate(records):
+            lp = by_number[r.number]
+            lap_index[lp.start_index : lp.end_index] = i
+        rows = np.flatnonzero(fit.used & (lap_index >= 0))
+        found = bands.level_samples(
+            sel.speed_m_s[rows],
+            sel.accel_lon_m_s2[rows],
+            sel.accel_lat_m_s2[rows],
+            lap_index[rows],
+            self.car,
+        )
+        return (*found, len(records))
+
+    def _bands(self, table, the_lap, ideal, k, corners, comparison):
+        """The analysed lap's bands (:func:`limitlap.bands.session_bands`) over :meth:`_band_laps`."""
+        wanted = set(self.band_laps)
+        records = [r for r in table.flying() if r.number in wanted]
+        if not records:
+            return None
+        return bands.session_bands(
+            the_lap.line,
+            ideal,
+            self.car,
+            corners,
+            [c.actual_s for c in comparison.corners],
+            comparison.lap_time_s,
+            self._line_draws(the_lap, ideal, k, corners),
+            self._level_data(records),
+            grip_scale=k,
+            quantile=self.fit.quality["quantile"] if self.fit is not None else 0.99,
+            ranks=[c.rank for c in comparison.corners],
+        )
 
 
 def _require_accelerations(log_path, log) -> None:
@@ -499,6 +662,7 @@ class _EnvelopeBeside:
         self._pool = ThreadPoolExecutor(max_workers=1)
         self._selection: Future | None = None
         self._fitting: Future | None = None
+        self._rows = -1
 
     def __enter__(self) -> _EnvelopeBeside:
         return self
@@ -513,6 +677,7 @@ class _EnvelopeBeside:
         if not all(c in ch and np.isfinite(ch[c]).any() for c in ("accel_lon", "accel_lat")):
             return
         rate = float(1.0 / np.median(np.diff(time_s)))  # as _sample_rate
+        self._rows = time_s.shape[0]
         self._selection = self._pool.submit(
             select_samples,
             ch["speed"],
@@ -530,6 +695,13 @@ class _EnvelopeBeside:
             self._fitting = self._pool.submit(
                 _fit, self._log_path, samples, self.base, self._selection
             )
+
+    def selection(self):
+        """The whole log's filtered samples (:func:`limitlap.samples.select_samples`) the fit used, None when none were made."""
+        if self._selection is None:
+            return None
+        sel = self._selection.result()
+        return sel if sel.used.shape[0] == self._rows else None
 
     def fitted(self) -> envelope.EnvelopeFit | None:
         """The fit :meth:`start_fit` started (waiting for it), None when it started none."""

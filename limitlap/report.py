@@ -22,9 +22,11 @@ from limitlap.formatting import (
     grip,
     grip_used,
     lap_time,
+    number,
     seconds,
     speed_kmh,
     time_left,
+    with_band,
 )
 from limitlap.outputs import ReportView
 
@@ -93,6 +95,22 @@ def _figures(v: ReportView, step):
 
     corners = v.corners
     out = []
+    timed = v.session.timed() if v.session is not None else []
+    if timed:
+        step("session figure")
+        out.append(
+            (
+                "session.png",
+                "Grip found and time left lap by lap: a drying or rubbering-in track shows as "
+                "grip rising; time left is to the ideal on each lap's own line.",
+                fg.session_figure(
+                    [r.number for r in timed],
+                    [np.nan if r.grip_estimate is None else r.grip_estimate for r in timed],
+                    [r.time_left_s for r in timed],
+                    v.lap_number,
+                ),
+            )
+        )
     step("speed figure")
     out.append(
         (
@@ -269,9 +287,11 @@ def report_html(v: ReportView, figure_list) -> str:
     """report.html text: self-contained, figures inline as data URIs, no scripts."""
     out: list[str] = []
     _head_and_cards(v, out)
+    session_figures = [f for f in figure_list if f[0] == "session.png"]
+    _session_section(v, session_figures, out)
     _warnings(v, out)
     _corner_table(v, out)
-    _figure_section(figure_list, out)
+    _figure_section([f for f in figure_list if f[0] != "session.png"], out)
     _method_and_caution(v, out)
     return "\n".join(out) + "\n"
 
@@ -294,10 +314,11 @@ def _head_and_cards(v: ReportView, out: list[str]) -> None:
         f"{v.lap_distance_m:.0f} m lap &middot; {v.n_laps} complete laps in the session</p>",
         '<div class="cards">',
     ]
+    band = v.bands.time_left_band_s if v.bands is not None else None
     cards = [
         ("", "lap time", lap_time(v.lap_time_s)),
         ("ideal", f"ideal at grip {v.grip_scale:.2f}", lap_time(v.ideal_time_s)),
-        ("left", "time left", f"{time_left(v.time_left_s)} s"),
+        ("left", "time left", with_band(v.time_left_s, band)),
         ("", "grip estimate", grip(v.grip_estimate)),
         ("", "best of your laps", lap_time(v.best_time_s)),
     ]
@@ -308,6 +329,48 @@ def _head_and_cards(v: ReportView, out: list[str]) -> None:
     out.append("</div>")
     if v.time_left_words:
         out.append(f'<p class="warn">Time left below zero: {e(v.time_left_words)}.</p>')
+
+
+def _session_section(v: ReportView, figures, out: list[str]) -> None:
+    """Every lap of the session: kind, time, ideal on its own line, time left, grip found, corner times; the grip-by-lap figure; each corner's consistency."""
+    if v.session is None:
+        return
+    e = html.escape
+    names = list(v.session.corner_names)
+    out.append("<h2>The session, lap by lap</h2>")
+    out.append("<table><thead><tr>")
+    heads = ["lap", "kind", "time", "ideal on its line", "time left [s]", "grip found"]
+    out += [f'<th class="{"t" if h == "kind" else ""}">{e(h)}</th>' for h in heads + names]
+    out.append("</tr></thead><tbody>")
+    for r in v.session.laps:
+        cls = ' class="top"' if r.number == v.lap_number else ""
+        cells = [
+            str(r.number),
+            r.kind,
+            lap_time(r.time_s),
+            lap_time(r.ideal_time_s),
+            time_left(r.time_left_s),
+            number(r.grip_estimate, ".2f"),
+        ]
+        times = [None] * len(names) if r.corner_times_s is None else list(r.corner_times_s)
+        cells += [number(t, ".2f") for t in times]
+        tds = [f'<td class="{"t" if j == 1 else ""}">{e(x)}</td>' for j, x in enumerate(cells)]
+        out.append(f"<tr{cls}>{''.join(tds)}</tr>")
+    if v.session.consistency:
+        cons = v.session.consistency
+        n = cons[0].n_laps
+        row = ["spread", f"{n} flying", "", "", "", ""] + [number(c.spread_s, ".3f") for c in cons]
+        tds = [f'<td class="{"t" if j == 1 else ""}">{e(x)}</td>' for j, x in enumerate(row)]
+        out.append(f"<tr>{''.join(tds)}</tr>")
+    out.append("</tbody></table>")
+    out.append(
+        '<p class="sub">Each lap timed gate to gate is measured against the ideal on its '
+        "own line at the session's envelope; grip found is the grip scale the lap showed "
+        "against that envelope (1 = the envelope's). Corner times in seconds; the last "
+        "row is each corner's spread (standard deviation) over the flying laps: how "
+        f"consistent the driver was there. Lap {v.lap_number} (bold) is analysed below.</p>"
+    )
+    _figure_section(figures, out, heading=False)
 
 
 def _warnings(v: ReportView, out: list[str]) -> None:
@@ -331,9 +394,12 @@ def _corner_cells(i: int, c: dict) -> list[str]:
     s = c["_summary"]
     return [
         str(i),
+        str(c["rank_group"]) if "rank_group" in c else "",
         f"{c['name']} {c['label']}" if c.get("label") else c["name"],
         distance(c["apex_m"]),
-        time_left(c["time_left_s"]),
+        with_band(c["time_left_s"], c.get("time_left_band_s"), unit="")
+        if c.get("time_left_band_s")
+        else time_left(c["time_left_s"]),
         seconds(c["actual_s"]),
         seconds(c["ideal_s"]),
         f"{speed_kmh(c['min_speed_actual_m_s'])} / {speed_kmh(c['min_speed_ideal_m_s'])}",
@@ -351,6 +417,7 @@ def _corner_table(v: ReportView, out: list[str]) -> None:
     out.append("<table><thead><tr>")
     heads = [
         "rank",
+        "group",
         "corner",
         "apex [m]",
         "time left [s]",
@@ -372,7 +439,7 @@ def _corner_table(v: ReportView, out: list[str]) -> None:
     for i, c in enumerate(ranked, start=1):
         cls = ' class="top"' if i <= 3 else ""
         tds = [
-            f'<td class="{"t" if j in (1, last) else ""}">{e(x)}</td>'
+            f'<td class="{"t" if j in (2, last) else ""}">{e(x)}</td>'
             for j, x in enumerate(_corner_cells(i, c))
         ]
         out.append(f"<tr{cls}>{''.join(tds)}</tr>")
@@ -389,20 +456,50 @@ def _corner_table(v: ReportView, out: list[str]) -> None:
         "this grip scale). Grip found: the grip scale the corner showed against the envelope "
         "(below 1 = less grip there than at its best, e.g. a damp patch; "
         f"{NOT_AVAILABLE} where the corner is taken flat out, on the engine's limit, so it "
-        "does not show the tyres'). Definitions: docs/methods.md, Corner record.</p>"
+        "does not show the tyres'). Definitions: docs/methods.md, Corner record."
+        + _band_note(v)
+        + "</p>"
     )
 
 
-def _figure_section(figure_list, out: list[str]) -> None:
+def _band_note(v: ReportView) -> str:
+    """What the ± and the rank groups mean, for the corner table's note."""
+    b = v.bands
+    if b is None:
+        return ""
+    return (
+        f" Time left ± : an interval holding the true value {b.coverage:.0%} of the time, "
+        f"from a bootstrap over the {b.n_laps} flying laps (the envelope's samples and "
+        "the rebuilt lines; docs/methods.md, How sure); where it includes zero no advice "
+        "is given. Corners sharing a group number cannot be told apart: their order "
+        f"holds in fewer than {b.coverage:.0%} of the resamples."
+    )
+
+
+def _figure_section(figure_list, out: list[str], heading: bool = True) -> None:
     """The figures, inline as PNG data URIs."""
     e = html.escape
-    out.append("<h2>Figures</h2>")
+    if heading:
+        out.append("<h2>Figures</h2>")
     for name, caption, png in figure_list:
         data = base64.b64encode(png).decode("ascii")
         out.append(
             f'<figure><img src="data:image/png;base64,{data}" alt="{e(caption)}" data-file="{e(name)}">'
             f"<figcaption>{e(caption)}</figcaption></figure>"
         )
+
+
+def _ideal_band_sentence(v: ReportView) -> str:
+    """The ideal lap's interval and where its width comes from, one sentence."""
+    b = v.bands
+    if b is None:
+        return ""
+    lo, hi = b.ideal_time_band_s
+    return html.escape(
+        f" The ideal lap time lies between {lap_time(lo)} and {lap_time(hi)} "
+        f"({b.coverage:.0%}): the envelope's samples move it by {b.envelope_sd_s:.3f} s "
+        f"(one standard deviation) and the line rebuild by {b.line_sd_s:.3f} s."
+    )
 
 
 def _method_and_caution(v: ReportView, out: list[str]) -> None:
@@ -416,7 +513,7 @@ def _method_and_caution(v: ReportView, out: list[str]) -> None:
         "backward passes of the classic quasi-steady-state method; Lenzo &amp; Rossi 2020). "
         f"{e(_envelope_source(v))} "
         "Corners are cut from the line's curvature with boundaries in the middle of the "
-        "straights, so their time left adds up to the lap's.</p>"
+        "straights, so their time left adds up to the lap's." + _ideal_band_sentence(v) + "</p>"
     )
     out.append(
         "<p>Assumptions: the car is a point mass (no load transfer, yaw or tyre "
@@ -427,3 +524,120 @@ def _method_and_caution(v: ReportView, out: list[str]) -> None:
     out.append("<h2>Caution</h2>")
     out.append(f'<p class="caution">{e(SAFETY_CAUTION)}</p>')
     out += ["</body>", "</html>"]
+
+
+# --------------------------------------------------------------------------- lap against lap
+
+
+def versus_figures(result):
+    """(file name, caption, PNG bytes) of the lap-against-lap page's figures."""
+    from limitlap import figures as fg
+
+    corners = [
+        {"name": c.name, "start_m": c.start_m, "apex_m": c.apex_m, "end_m": c.end_m}
+        for c in result.corners
+    ]
+    a, b = result.a.label, result.b.label
+    return [
+        (
+            "versus_delta.png",
+            f"Time delta along the lap: B ({b}) minus A ({a}) on A's line; rising = B losing time.",
+            fg.versus_delta_figure(result.distance_m, result.delta_s, corners, a, b),
+        ),
+        (
+            "versus_corners.png",
+            "Per corner: B minus A, and each lap's time left to its own ideal at the "
+            "common envelope.",
+            fg.versus_corner_figure(
+                [c.name for c in result.corners],
+                [c.delta_s for c in result.corners],
+                [c.time_left_a_s for c in result.corners],
+                [c.time_left_b_s for c in result.corners],
+                a,
+                b,
+            ),
+        ),
+    ]
+
+
+def versus_html(result, figure_list) -> str:
+    """The lap-against-lap page: self-contained, in the style of the analysis report."""
+    e = html.escape
+    a, b = result.a, result.b
+    out = [
+        "<!DOCTYPE html>",
+        '<html lang="en">',
+        "<head>",
+        '<meta charset="utf-8">',
+        '<meta name="viewport" content="width=device-width, initial-scale=1">',
+        f"<title>limitlap: {e(b.label)} against {e(a.label)}</title>",
+        f"<style>{_CSS}</style>",
+        "</head>",
+        "<body>",
+        f"<h1>B ({e(b.label)}) against A ({e(a.label)})</h1>",
+        f'<p class="sub">{e(Path(a.log_path).name)}'
+        + ("" if a.log_path == b.log_path else f" &middot; {e(Path(b.log_path).name)}")
+        + f" &middot; distances along A's line ({a.driven.line.length_m:.0f} m)</p>",
+        '<div class="cards">',
+    ]
+    cards = [
+        ("", f"A: {a.label}", lap_time(a.lap.time_s)),
+        ("", f"B: {b.label}", lap_time(b.lap.time_s)),
+        ("left", "B minus A", number(result.lap_delta_s, "+.2f", " s")),
+        ("ideal", "A's ideal (its line)", lap_time(a.ideal.lap_time_s)),
+        ("ideal", "B's ideal (its line)", lap_time(b.ideal.lap_time_s)),
+    ]
+    for cls, k, val in cards:
+        out.append(
+            f'<div class="card {cls}"><div class="k">{e(k)}</div><div class="v">{e(val)}</div></div>'
+        )
+    out.append("</div>")
+    out.append("<h2>Warnings</h2>")
+    if result.warnings:
+        out += [f'<p class="warn">{e(w)}</p>' for w in result.warnings]
+    else:
+        out.append('<p class="ok">None.</p>')
+    out.append("<h2>Corner by corner</h2>")
+    heads = [
+        "corner",
+        "A [s]",
+        "B [s]",
+        "B minus A [s]",
+        "A left [s]",
+        "B left [s]",
+        "in a sentence",
+    ]
+    out.append("<table><thead><tr>")
+    out += [
+        f'<th class="{"t" if h in ("corner", "in a sentence") else ""}">{e(h)}</th>' for h in heads
+    ]
+    out.append("</tr></thead><tbody>")
+    for c in result.corners:
+        cells = [
+            c.name,
+            number(c.time_a_s, ".2f"),
+            number(c.time_b_s, ".2f"),
+            number(c.delta_s, "+.2f"),
+            time_left(c.time_left_a_s),
+            time_left(c.time_left_b_s),
+            c.sentence,
+        ]
+        tds = [f'<td class="{"t" if j in (0, 6) else ""}">{e(x)}</td>' for j, x in enumerate(cells)]
+        out.append(f"<tr>{''.join(tds)}</tr>")
+    out.append("</tbody></table>")
+    env = (
+        "fitted to the flying laps of " + ", ".join(Path(p).name for p in result.envelope_logs)
+        if result.fit is not None
+        else f"the vehicle file's ('{result.vehicle.name}')"
+    )
+    out.append(
+        "<p class=\"sub\">Corner times on each lap's own line, the corners found on A's line "
+        "and placed on B's by distance from the gate (as a share of the lap). Time left: "
+        "each lap against the ideal on its own line at one common envelope, "
+        f"{e(env)}, grip scale {result.grip_scale:.2f}.</p>"
+    )
+    _figure_section(figure_list, out)
+    out.append("<h2>Caution</h2>")
+    out.append(f'<p class="caution">{e(SAFETY_CAUTION)}</p>')
+    out += ["</body>", "</html>"]
+    return "\n".join(out) + "\n"

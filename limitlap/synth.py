@@ -81,6 +81,14 @@ DEMO_MISTAKES = (
     Mistake("T9", 0.08, before_m=5.0, after_m=35.0),  # late on the throttle
 )
 
+#: A second invented driver's mistakes on Tarrowby Heath (the bundled second session):
+#: other corners than :data:`DEMO_MISTAKES`.
+SECOND_DRIVER_MISTAKES = (
+    Mistake("T2", 0.10, before_m=12.0, after_m=12.0),  # mid-corner lift
+    Mistake("T4", 0.05, before_m=30.0, after_m=5.0),  # brakes early into the hairpin
+    Mistake("T11", 0.08, before_m=5.0, after_m=35.0),  # late on the throttle
+)
+
 
 @dataclass(frozen=True)
 class PlantedMistake:
@@ -151,6 +159,9 @@ class SessionTruth:
         Per row: true ENU position. [m]
     gps_error_m : numpy.ndarray
         Per row (NaN between fixes): GNSS error east, north, up, shape (n, 3). [m]
+    lap_grip_scales : tuple of float
+        Grip scale of each flying lap (laps 1, 2, ...): all ``grip_scale`` unless a grip
+        per lap was asked for (a drying track). [-]
     """
 
     circuit: Circuit
@@ -174,6 +185,7 @@ class SessionTruth:
     y_m: np.ndarray
     z_m: np.ndarray
     gps_error_m: np.ndarray
+    lap_grip_scales: tuple[float, ...] = ()
 
 
 @dataclass(frozen=True, eq=False)
@@ -372,6 +384,37 @@ def _speed_caps(
     return _Caps(planted_masks, mistake_cap, lap_caps)
 
 
+def _lap_grips(grip_scale, n_laps: int, duration_s) -> tuple[float, ...]:
+    """One grip scale per flying lap: a single value for every lap, or one given per lap."""
+    if np.ndim(grip_scale) == 0:
+        return (float(grip_scale),) * n_laps
+    grips = tuple(float(g) for g in grip_scale)
+    if duration_s is not None or len(grips) != n_laps:
+        raise LimitlapError("a grip scale per lap needs n_laps equal to the number of scales")
+    return grips
+
+
+def _caps_at_lap_grips(line: Line, vehicle: Vehicle, ideal: Profile, caps: _Caps, grips):
+    """Each lap's caps held to the closed-lap profile at that lap's own grip.
+
+    ``ideal`` is the profile at the highest of ``grips``, the car the session is solved
+    with. A lap at a lower grip k is capped at its own ideal :math:`v_k(s)` (the solver's
+    closed lap with the vehicle at k), and its planted mistakes and variation are scaled
+    by :math:`v_k/v` so they take the same share off its speed: the capped profile is
+    feasible for the weaker car, so the stronger one follows it exactly, braking and
+    turning as the weaker car would (a drying track, lap by lap).
+    """
+    top = max(grips)
+    lap_caps = []
+    for cap, g in zip(caps.lap_caps, grips, strict=True):
+        if g == top:
+            lap_caps.append(cap)
+            continue
+        v_k = solve_profile(line, vehicle.scaled(g)).speed_m_s
+        lap_caps.append(np.minimum(cap * (v_k / ideal.speed_m_s), v_k))
+    return _Caps(caps.planted, caps.mistake_cap, lap_caps)
+
+
 def _drive_session(
     circuit: Circuit, car, ideal, caps: _Caps, plan: _LapPlan, out_lap_pace, in_lap_pace, idle_s
 ) -> _Drive:
@@ -538,7 +581,7 @@ def generate_session(
     *,
     n_laps: int = 6,
     duration_s: float | None = None,
-    grip_scale: float = 1.0,
+    grip_scale=1.0,
     mistakes=DEMO_MISTAKES,
     mistake_laps=None,
     limit_laps=(),
@@ -573,8 +616,13 @@ def generate_session(
     duration_s : float, optional
         Instead of ``n_laps``: as many flying laps as fill about this long a session
         (e.g. 3600 for the one-hour benchmark). [s]
-    grip_scale : float
-        Grip scale of the track (wet session < 1). [-]
+    grip_scale : float or sequence of float
+        Grip scale of the track (wet session < 1). [-] A sequence gives one scale per
+        flying lap (``n_laps`` of them; a drying track): the session is solved with the
+        vehicle at the highest and each lap held to its own closed-lap profile at its
+        scale (:func:`_caps_at_lap_grips`); the out- and in-lap paces stay shares of the
+        ideal at the highest. The throttle channel is then the share of the highest
+        grip's drive limit.
     mistakes : sequence of Mistake
         Planted on every lap of ``mistake_laps``.
     mistake_laps : sequence of int, optional
@@ -643,12 +691,16 @@ def generate_session(
     )
     fix_step = _rows_per_fix(logger)
     rng = np.random.default_rng(seed)
-    car = vehicle.scaled(grip_scale) if grip_scale != 1.0 else vehicle
+    top = float(grip_scale) if np.ndim(grip_scale) == 0 else max(float(g) for g in grip_scale)
+    car = vehicle.scaled(top) if top != 1.0 else vehicle
     ideal = solve_profile(circuit.line, car)
     plan = _lap_plan(
         n_laps, duration_s, ideal, idle_s, out_lap_pace, in_lap_pace, mistake_laps, limit_laps
     )
+    grips = _lap_grips(grip_scale, plan.n_laps, duration_s)
     caps = _speed_caps(rng, circuit, ideal, mistakes, plan, lap_variation)
+    if min(grips) != top:
+        caps = _caps_at_lap_grips(circuit.line, vehicle, ideal, caps, grips)
     drive = _drive_session(circuit, car, ideal, caps, plan, out_lap_pace, in_lap_pace, idle_s)
     planted, mistake_profile = _planted_mistakes(circuit.line, car, ideal, caps)
     rows = _sample_rows(circuit.line, drive, plan.n_laps, idle_s, sample_rate_hz)
@@ -658,7 +710,7 @@ def generate_session(
         circuit=circuit,
         line=circuit.line,
         vehicle=vehicle,
-        grip_scale=float(grip_scale),
+        grip_scale=top,
         gate_latlon=circuit.gate_latlon,
         gate_times_s=drive.gate_times_s,
         lap_times_s=np.diff(drive.gate_times_s),
@@ -678,6 +730,7 @@ def generate_session(
         y_m=rows.y_m,
         z_m=rows.z_m,
         gps_error_m=gps_err,
+        lap_grip_scales=grips,
     )
     return Session(rows.time_s, {**gnss, **motion}, truth)
 
