@@ -338,7 +338,7 @@ def laps(
     analysis = pipeline.analyse(
         log,
         vehicle=vehicle,
-        grip_scale=grip,
+        grip_scale=1.0 if grip is None else grip,
         gate=gate,
         channels=channels,
         track=track,
@@ -574,7 +574,7 @@ def versus(
     from limitlap.outputs import write_versus
 
     _settle_imports()
-    k = grip
+    k = 1.0 if grip is None else grip
     car = ingest.read_vehicle(vehicle, require_complete=False) if vehicle is not None else None
     trk = ingest.read_track(track) if track is not None else None
     sessions = []

@@ -179,7 +179,7 @@ def band_range(band, unit: str = " s", decimals: int = 2) -> str:
     """A band as ``0.44 to 0.51 s``; :data:`NOT_AVAILABLE` when unknown.
 
     >>> band_range((0.4412, 0.5149)), band_range(None)
-    ('0.44 to 0.51 s', 'n/a')
+    ('0.44 to 0.51 s', '—')
     """
     if band is None or not all(_known(b) for b in band):
         return NOT_AVAILABLE

@@ -22,7 +22,7 @@ from pathlib import Path
 import numpy as np
 from scipy.ndimage import gaussian_filter1d
 
-from limitlap import compare, envelope, ingest, session, solve
+from limitlap import advice, compare, envelope, ingest, session, solve
 from limitlap import corners as corners_mod
 from limitlap import driven as driven_mod
 from limitlap import laps as laps_mod
@@ -52,8 +52,8 @@ SHAPE_SMOOTHING_M = 20.0
 MAX_GATE_SHIFT_M = 5.0
 #: A corner where the laps' times differ by less than this is called level (the corner
 #: times are good to about a hundredth of a second, see
-#: :data:`limitlap.compare.QUICKER_THAN_IDEAL_S`). [s]
-LEVEL_S = compare.QUICKER_THAN_IDEAL_S
+#: :data:`limitlap.advice.TIME_RESOLUTION_S`). [s]
+LEVEL_S = advice.TIME_RESOLUTION_S
 #: Time left under this is "at the limit" in the sentences. [s]
 AT_LIMIT_S = 0.005
 
