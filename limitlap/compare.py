@@ -24,7 +24,7 @@ from limitlap import limits
 from limitlap.corners import Corner, segment_index
 from limitlap.driven import elapsed_from_gate
 from limitlap.errors import LimitlapError
-from limitlap.formatting import hundredths, metres
+from limitlap.formatting import METRIC, hundredths
 from limitlap.line import Line
 from limitlap.markers import (
     BRAKE_PRESSURE_SHARE,
@@ -237,7 +237,9 @@ class LapComparison:
 QUICKER_THAN_IDEAL_S = 0.02
 
 
-def advice_line(name, time_left_s, brake_later_m, min_speed_gain_m_s, full_drive_sooner_m):
+def advice_line(
+    name, time_left_s, brake_later_m, min_speed_gain_m_s, full_drive_sooner_m, units=METRIC
+):
     """One line a driver understands, e.g. "T6: 0.21 s — the ideal brakes 12 m later, ...".
 
     Parameters
@@ -252,11 +254,13 @@ def advice_line(name, time_left_s, brake_later_m, min_speed_gain_m_s, full_drive
         Ideal minus real minimum speed. [m/s]
     full_drive_sooner_m : float
         How much sooner the ideal is at full drive; NaN when unknown. [m]
+    units : formatting.Units
+        How speeds and distances are written (km/h and m by default).
 
     Returns
     -------
     str
-        Speeds in km/h, distances in m. Differences under 2 m or 1 km/h are left out
+        Speeds and distances in ``units``. Differences under 2 m or 1 km/h are left out
         (common practice: engineers discuss brake points to a few metres and apex speeds
         to 1-2 km/h, docs/methods.md, Rules of thumb).
 
@@ -268,17 +272,18 @@ def advice_line(name, time_left_s, brake_later_m, min_speed_gain_m_s, full_drive
     parts = []
     if math.isfinite(brake_later_m) and abs(brake_later_m) >= 2.0:
         parts.append(
-            f"the ideal brakes {metres(brake_later_m)} "
+            f"the ideal brakes {units.distance_text(abs(brake_later_m))} "
             f"{'later' if brake_later_m > 0 else 'earlier'}"
         )
     dv_kmh = min_speed_gain_m_s / KMH_TO_M_S
     if math.isfinite(dv_kmh) and abs(dv_kmh) >= 1.0:
         parts.append(
-            f"carries {abs(dv_kmh):.0f} km/h {'more' if dv_kmh > 0 else 'less'} at the minimum"
+            f"carries {units.speed_text(abs(min_speed_gain_m_s))} "
+            f"{'more' if dv_kmh > 0 else 'less'} at the minimum"
         )
     if math.isfinite(full_drive_sooner_m) and abs(full_drive_sooner_m) >= 2.0:
         parts.append(
-            f"is at full drive {metres(full_drive_sooner_m)} "
+            f"is at full drive {units.distance_text(abs(full_drive_sooner_m))} "
             f"{'sooner' if full_drive_sooner_m > 0 else 'later'}"
         )
     head = f"{name}: {hundredths(time_left_s):.2f} s"
