@@ -119,6 +119,11 @@ def picture(spec: FigureSpec, cols: Columns, width_px: int = PICTURE_WIDTH_PX) -
     _shapes(axes, layout.get("shapes", []))
     _annotations(fig, frame, axes, layout.get("annotations", []))
     _legend(fig, frame, layout, handles)
+    return _save(fig)
+
+
+def _save(fig) -> bytes:
+    """The drawn figure as PNG bytes (no software name in the file: same input, same bytes)."""
     buf = io.BytesIO()
     fig.savefig(buf, format="png", dpi=DPI, metadata={"Software": None})
     return buf.getvalue()
@@ -155,7 +160,7 @@ def _make_axes(fig, frame, subplots, layout) -> dict:
             ax.tick_params(axis="x", labelbottom=False)
             ax.set_xlabel("")
         if ya.get("scaleanchor"):
-            ax.set_aspect("equal", adjustable="datalim")
+            ax.set_aspect("equal", adjustable="box")
         axes[_key(sub)] = ax
     return axes
 
@@ -366,12 +371,16 @@ def _legend(fig, frame, layout, handles) -> None:
     below = leg.get("y", 1.0) < 0
     x = frame.left + leg.get("x", 0.0) * (frame.right - frame.left)
     y = 0.005 if below else frame.top + 0.005
+    # columns as wide as the longest name (8.5 pt type: about 6.5 px a character, and the
+    # handle and gaps 50 px), as many as fit in the width left of the legend's start
+    width_px = fig.bbox.width * (1.0 - x) - 10
+    column_px = 6.5 * max(len(n) for _, n in handles) + 50
     fig.legend(
         [h for h, _ in handles],
         [n for _, n in handles],
         loc="lower left",
         bbox_to_anchor=(x, y),
-        ncol=min(len(handles), 4),
+        ncol=max(1, min(len(handles), 4, int(width_px // column_px))),
         fontsize=8.5,
         frameon=False,
         handlelength=1.8,

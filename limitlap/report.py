@@ -766,11 +766,36 @@ _SCRIPT = r"""
   function setRange(a, b, src) {
     current = [a, b];
     busy = true;
-    var done = linked.filter(function (l) { return l.div !== src && isDrawn(l.div); }).map(function (l) {
-      return Plotly.relayout(l.div, { "xaxis.range": [a, b] });
+    var whole = same([a, b], [0, D.length]);
+    var done = linked.filter(function (l) { return isDrawn(l.div); }).map(function (l) {
+      var update = {};
+      if (l.div !== src) update["xaxis.range"] = [a, b];
+      if (FIT_Y[l.f.key]) {
+        var y = whole ? null : fitY(l.div, a, b);
+        if (y) update["yaxis.range"] = y; else update["yaxis.autorange"] = true;
+      }
+      return Plotly.relayout(l.div, update);
     });
     showStretch(a, b);
     return Promise.all(done).then(function () { busy = false; });
+  }
+  // Views whose vertical scale follows the stretch shown (the pedals keep 0-100 %).
+  var FIT_Y = { speed: true, time_delta: true, data_check: true };
+  function fitY(div, a, b) {
+    var lo = Infinity, hi = -Infinity;
+    div.data.forEach(function (t) {
+      if (t.visible === "legendonly" || t.visible === false || !t.x || !t.y) return;
+      for (var i = 0; i < t.x.length; i++) {
+        var x = t.x[i], y = t.y[i];
+        if (x >= a && x <= b && y !== null && isFinite(y)) {
+          if (y < lo) lo = y;
+          if (y > hi) hi = y;
+        }
+      }
+    });
+    if (!(hi >= lo)) return null;
+    var pad = 0.08 * (hi - lo) + 0.01;
+    return [lo - pad, hi + 2 * pad];
   }
   function stretchIndex(a, b) {
     var L = D.length, idx = [];
