@@ -108,6 +108,24 @@ def _kmh(v_m_s: float) -> float:
     return v_m_s / KMH_TO_M_S
 
 
+def _units_option():
+    return typer.Option(
+        "metric",
+        "--units",
+        help="How speeds and distances are shown: metric (km/h, m) or imperial (mph, ft). "
+        "JSON and the files for programs keep their documented units.",
+    )
+
+
+def _units(value: str):
+    from limitlap.formatting import units_named
+
+    try:
+        return units_named(value)
+    except ValueError as err:
+        raise InputError("--units", str(err)) from None
+
+
 @app.command()
 def solve(
     line: Path = typer.Argument(
@@ -117,6 +135,7 @@ def solve(
     grip: str = typer.Option(None, "--grip", help="Grip scale k, 0.2-2.0 (wet < 1)."),
     as_json: bool = typer.Option(False, "--json", help="Print JSON on stdout."),
     out: Path = typer.Option(None, "--out", help="Write the speed profile as CSV here."),
+    units: str = _units_option(),
 ) -> None:
     """Ideal speed profile and lap time on a given line."""
     from limitlap import ingest
@@ -124,6 +143,7 @@ def solve(
 
     _settle_imports()
     k = _grip(grip)
+    shown = _units(units)
     car = ingest.read_vehicle(vehicle)
     the_line = ingest.read_line(line)
     profile = solver.solve_profile(the_line, car, k)
@@ -143,9 +163,11 @@ def solve(
 
     typer.echo(f"{car.name} on {line.name}, grip scale {k:g}")
     typer.echo(f"  lap time   {lap_time(profile.lap_time_s)}  ({profile.lap_time_s:.3f} s)")
-    typer.echo(f"  min speed  {result['min_speed_kmh']:.1f} km/h")
-    typer.echo(f"  max speed  {result['max_speed_kmh']:.1f} km/h")
-    typer.echo(f"  length     {the_line.length_m:.1f} m, {the_line.n} stations")
+    typer.echo(f"  min speed  {shown.speed_text(float(profile.speed_m_s.min()), '.1f')}")
+    typer.echo(f"  max speed  {shown.speed_text(float(profile.speed_m_s.max()), '.1f')}")
+    typer.echo(
+        f"  length     {shown.distance_text(the_line.length_m, '.1f')}, {the_line.n} stations"
+    )
     if out is not None:
         typer.echo(f"  profile    {out}")
 
@@ -177,10 +199,11 @@ class _Progress:
             self.bar = None
 
 
-def _corner_table(analysis) -> str:
-    """The ranked corner table and headline, for the terminal."""
-    from limitlap.formatting import hundredths, lap_time, number
-    from limitlap.units import KMH_TO_M_S
+def _corner_table(analysis, shown=None) -> str:
+    """The ranked corner table and headline, for the terminal (speeds and distances in ``shown``)."""
+    from limitlap.formatting import METRIC, hundredths, lap_time, number
+
+    shown = shown or METRIC
 
     cmp_ = analysis.comparison
     lines = [
@@ -191,7 +214,8 @@ def _corner_table(analysis) -> str:
         "",
         f"{'rank':>4}  {'corner':<7}{'time left':>10}{'min real':>10}{'min ideal':>10}"
         f"{'brake real':>11}{'brake ideal':>12}{'grip used':>10}",
-        f"{'':>4}  {'':<7}{'[s]':>10}{'[km/h]':>10}{'[km/h]':>10}{'[m]':>11}{'[m]':>12}{'[%]':>10}",
+        f"{'':>4}  {'':<7}{'[s]':>10}{f'[{shown.speed}]':>10}{f'[{shown.speed}]':>10}"
+        f"{f'[{shown.distance}]':>11}{f'[{shown.distance}]':>12}{'[%]':>10}",
     ]
 
     def num(x, spec, scale=1.0):
@@ -201,13 +225,32 @@ def _corner_table(analysis) -> str:
     for c in cmp_.ranked():
         lines.append(
             f"{c.rank:>4}  {c.name:<7}{num(hundredths(c.time_left_s), '10.2f')}"
-            f"{num(c.min_speed_actual_m_s, '10.1f', 1 / KMH_TO_M_S)}{num(c.min_speed_ideal_m_s, '10.1f', 1 / KMH_TO_M_S)}"
-            f"{num(c.brake_start_actual_m, '11.0f')}{num(c.brake_start_ideal_m, '12.0f')}"
+            f"{num(c.min_speed_actual_m_s, '10.1f', 1 / shown.m_s_per_speed)}"
+            f"{num(c.min_speed_ideal_m_s, '10.1f', 1 / shown.m_s_per_speed)}"
+            f"{num(c.brake_start_actual_m, '11.0f', 1 / shown.m_per_distance)}"
+            f"{num(c.brake_start_ideal_m, '12.0f', 1 / shown.m_per_distance)}"
             f"{num(c.grip_used, '10.0f', 100.0)}"
         )
     lines.append("")
-    lines += [c.advice for c in cmp_.ranked()[:3] if c.advice]
+    lines += [_advice(c, shown) for c in cmp_.ranked()[:3] if c.advice]
     return "\n".join(lines)
+
+
+def _advice(c, shown) -> str:
+    """A corner's advice line in the units shown (the comparison words it in km/h and m)."""
+    from limitlap.compare import advice_line
+    from limitlap.formatting import METRIC
+
+    if shown is METRIC:
+        return c.advice
+    return advice_line(
+        c.name,
+        c.time_left_s,
+        c.brake_later_m,
+        c.min_speed_ideal_m_s - c.min_speed_actual_m_s,
+        c.full_drive_sooner_m,
+        units=shown,
+    )
 
 
 def _gate_option():
@@ -223,6 +266,7 @@ def laps(
     ),
     track: Path = typer.Option(None, "--track", help="Track TOML (gate, corner names)."),
     as_json: bool = typer.Option(False, "--json", help="Print JSON on stdout."),
+    units: str = _units_option(),
 ) -> None:
     """The laps of a log: number, time, distance, complete or why not."""
     from limitlap import laps as laps_mod
@@ -233,7 +277,7 @@ def laps(
     if as_json:
         typer.echo(json.dumps(laps_mod.laps_json(found)))
     else:
-        typer.echo(format_laps_table(found))
+        typer.echo(format_laps_table(found, _units(units)))
 
 
 def _settle_imports() -> None:
@@ -252,7 +296,18 @@ def _settle_imports() -> None:
 
 
 def _analyse_one(
-    log, vehicle, k, lap, gate, channels, track, out, quiet, figures=True, check_units=True
+    log,
+    vehicle,
+    k,
+    lap,
+    gate,
+    channels,
+    track,
+    out,
+    quiet,
+    figures=True,
+    check_units=True,
+    shown=None,
 ):
     """One log analysed and its files written; the warnings as :func:`worded` says them."""
     import dataclasses
@@ -275,7 +330,11 @@ def _analyse_one(
             check_units=check_units,
         )
         analysis = dataclasses.replace(analysis, warnings=[worded(w) for w in analysis.warnings])
-        written = outputs.write_outputs(analysis, out, figures=figures, progress=bar)
+        from limitlap.formatting import METRIC
+
+        written = outputs.write_outputs(
+            analysis, out, figures=figures, units=shown or METRIC, progress=bar
+        )
     finally:
         bar.close()
     return analysis, written
@@ -328,7 +387,9 @@ def analyse(
     track: Path = typer.Option(None, "--track", help="Track TOML (gate, corner names)."),
     out: Path = typer.Option(Path("limitlap-out"), "--out", help="Output folder."),
     no_figures: bool = typer.Option(
-        False, "--no-figures", help="Skip the PNG figures and their report panels."
+        False,
+        "--no-figures",
+        help="Skip the PNG pictures of the figures (report.html keeps its interactive figures).",
     ),
     quiet: bool = typer.Option(False, "--quiet", help="No progress display."),
     workers: int = typer.Option(
@@ -342,6 +403,7 @@ def analyse(
         "--accept-units",
         help="Go on when a channel disagrees with the GPS path (unit or sign); warn instead.",
     ),
+    units: str = _units_option(),
 ) -> None:
     """The whole job on one log: laps, line, envelope, ideal lap, corner comparison, report.
 
@@ -351,6 +413,7 @@ def analyse(
     from limitlap import report
 
     k = _grip(grip)
+    shown = _units(units)
     if len(log) > 1 or log[0].is_dir() or scheduler is not None:
         _analyse_batch(
             log,
@@ -366,14 +429,26 @@ def analyse(
             figures=not no_figures,
             workers=workers,
             check_units=not accept_units,
+            units=shown.name,
         )
         return
     log = log[0]
     analysis, written = _analyse_one(
-        log, vehicle, k, lap, gate, channels, track, out, quiet, not no_figures, not accept_units
+        log,
+        vehicle,
+        k,
+        lap,
+        gate,
+        channels,
+        track,
+        out,
+        quiet,
+        not no_figures,
+        not accept_units,
+        shown,
     )
     _warn(analysis.warnings)
-    typer.echo(_corner_table(analysis))
+    typer.echo(_corner_table(analysis, shown))
     typer.echo(f"\nwritten to {out}/: " + ", ".join(sorted(Path(p).name for p in written.values())))
     typer.echo(report.SAFETY_CAUTION)
 
@@ -397,6 +472,7 @@ def targets(
         None, "--out", help="Also write CSV and printable sheets (PDF, PNG) here."
     ),
     as_json: bool = typer.Option(False, "--json", help="Print JSON on stdout."),
+    units: str = _units_option(),
 ) -> None:
     """Target sheet per corner for one or more grip scales (dry, damp, wet)."""
     from limitlap import corners as corners_mod
@@ -404,6 +480,7 @@ def targets(
     from limitlap import targets as targets_mod
 
     _settle_imports()
+    shown = _units(units)
     car = pipeline.require_vehicle_with_grip(vehicle)
     for g in grip:  # check every scale before any work
         try:
@@ -423,14 +500,14 @@ def targets(
     if out is not None:
         from limitlap import sheets
 
-        sheets.write_target_sheets(conditions, out, trk.name if trk else where)
+        sheets.write_target_sheets(conditions, out, trk.name if trk else where, units=shown)
     if as_json:
         typer.echo(json.dumps(targets_mod.targets_json(conditions)))
         return
     typer.echo(f"{car.name} on {where}")
     for cond in conditions:
         typer.echo("")
-        typer.echo(format_targets_table(cond))
+        typer.echo(format_targets_table(cond, shown))
     if out is not None:
         typer.echo(f"\nsheets written to {out}/")
 
@@ -439,25 +516,31 @@ def targets(
 def demo(
     out: Path = typer.Option(Path("limitlap-demo"), "--out", help="Output folder."),
     quiet: bool = typer.Option(False, "--quiet", help="No progress display."),
+    units: str = _units_option(),
 ) -> None:
     """The whole job on the bundled demo session: report, figures and target sheets."""
     from limitlap import atomic, sheets
     from limitlap import targets as targets_mod
     from limitlap.resources import bundled_path
 
+    shown = _units(units)
     log = bundled_path("demo_tracks", "tarrowby_dry.csv.gz")
     track = bundled_path("demo_tracks", "tarrowby_heath.toml")
     with atomic.output_set(out) as folder:  # the report and the sheets: one set
-        analysis, _ = _analyse_one(log, None, 1.0, None, None, None, track, folder, quiet)
+        analysis, _ = _analyse_one(
+            log, None, 1.0, None, None, None, track, folder, quiet, shown=shown
+        )
         conditions = targets_mod.target_tables(
             analysis.driven.line, analysis.vehicle, ["dry", "damp", "wet"], analysis.corners
         )
-        sheets.write_target_sheets(conditions, folder, analysis.track_name or "demo circuit")
+        sheets.write_target_sheets(
+            conditions, folder, analysis.track_name or "demo circuit", units=shown
+        )
     _warn(analysis.warnings)
-    typer.echo(_corner_table(analysis))
+    typer.echo(_corner_table(analysis, shown))
     for cond in conditions:
         typer.echo("")
-        typer.echo(format_targets_table(cond))
+        typer.echo(format_targets_table(cond, shown))
     typer.echo(f"\nreport: {Path(out) / 'report.html'}  (open it in a browser)")
 
 
@@ -513,10 +596,10 @@ def run() -> None:
         gc.freeze()
 
 
-def format_laps_table(laps) -> str:
+def format_laps_table(laps, shown=None) -> str:
     """The lap table as text: number, time m:ss.sss, distance, complete or why not; the fastest marked."""
     lines = [f"{'lap':>4}  {'time':>9}  {'distance':>10}  status"]
-    from limitlap.formatting import lap_time
+    from limitlap.formatting import METRIC, lap_time
     from limitlap.laps import laps_table
 
     for rec in laps_table(laps):
@@ -524,41 +607,50 @@ def format_laps_table(laps) -> str:
         mark = "  <- fastest" if rec["fastest"] else ""
         lines.append(
             f"{rec['number']:>4}  {lap_time(rec['time_s']):>9}  "
-            f"{rec['distance_m']:>8.1f} m  {status}{mark}"
+            f"{(shown or METRIC).distance_text(rec['distance_m'], '.1f'):>10}  {status}{mark}"
         )
     return "\n".join(lines)
 
 
-def format_targets_table(condition: TargetCondition) -> str:
+def _times(x, factor):
+    """``x * factor``; None stays None (a corner without that point)."""
+    return None if x is None else x * factor
+
+
+def format_targets_table(condition: TargetCondition, shown=None) -> str:
     """The target table of one condition as fixed-width text for the terminal.
 
     Parameters
     ----------
     condition : TargetCondition
+    shown : formatting.Units, optional
+        How speeds and distances are shown; km/h and m by default.
 
     Returns
     -------
     str
-        Heading, one row per corner (km/h, m, s), and the caution.
+        Heading, one row per corner (speeds, distances, s), and the caution.
     """
-    from limitlap.formatting import NO_POINT, lap_time, number
+    from limitlap.formatting import METRIC, NO_POINT, lap_time, number
     from limitlap.targets import CAUTION
-    from limitlap.units import KMH_TO_M_S
 
-    k = 1.0 / KMH_TO_M_S
+    shown = shown or METRIC
+    k = 1.0 / shown.m_s_per_speed
+    m = 1.0 / shown.m_per_distance
     name = f"{condition.label} " if condition.label else ""
     head = (
         f"Targets {name}(grip scale {condition.grip_scale:.2f}) — "
         f"ideal lap {lap_time(condition.lap_time_s)}"
     )
+    d, v = shown.distance, shown.speed
     cols = (
         "corner",
-        "apex m",
-        "brake at m",
-        "before apex m",
-        "entry km/h",
-        "min km/h",
-        "exit km/h",
+        f"apex {d}",
+        f"brake at {d}",
+        f"before apex {d}",
+        f"entry {v}",
+        f"min {v}",
+        f"exit {v}",
         "segment s",
     )
     rows = []
@@ -570,9 +662,9 @@ def format_targets_table(condition: TargetCondition) -> str:
         rows.append(
             (
                 t.name,
-                f(t.apex_m),
-                f(t.brake_start_m),
-                f(t.brake_before_apex_m),
+                f(_times(t.apex_m, m)),
+                f(_times(t.brake_start_m, m)),
+                f(_times(t.brake_before_apex_m, m)),
                 f(t.entry_speed_m_s * k),
                 f(t.min_speed_m_s * k),
                 f(t.exit_speed_m_s * k),
