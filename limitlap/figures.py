@@ -154,16 +154,21 @@ class FigureSpec:
     layout: dict
     linked: bool = False  # x is the distance along the lap (zoomed with the others)
     subplots: list = field(default_factory=lambda: ["xy"])
+    #: Layout keys replaced on a narrow screen (under 700 px), e.g. panels one above another.
+    narrow: dict | None = None
 
     def as_json(self) -> dict:
         """What the page's script reads."""
-        return {
+        out = {
             "key": self.key,
             "data": self.data,
             "layout": self.layout,
             "linked": self.linked,
             "subplots": self.subplots,
         }
+        if self.narrow:
+            out["narrow"] = self.narrow
+        return out
 
 
 # --------------------------------------------------------------------------- along the lap
@@ -238,7 +243,7 @@ def _layout(height: int, **kw) -> dict:
 
 
 def _distance_title(units: Units) -> str:
-    return f"distance from the start/finish gate [{units.distance}] (negative: before it)"
+    return f"distance from the gate [{units.distance}]"
 
 
 def _corner_marks(axis: LapAxis, corners, units: Units, *, yref: str = "paper"):
@@ -630,8 +635,7 @@ def map_figure(cols: Columns, v, units: Units) -> FigureSpec:
                     "tickvals": ticks,
                     "ticktext": [f"{t:+g}" if t else "0" for t in ticks],
                     "title": {
-                        "text": f"time lost per {units.distance} [{unit}]: red losing, "
-                        "blue gaining, white even",
+                        "text": f"time lost [{unit}]: red losing, blue gaining",
                         "side": "top",
                     },
                 },
@@ -977,6 +981,7 @@ def gg_figure(bands, units: Units, fit_points=None) -> FigureSpec:
         **layout_axes,
     )
     layout["height"] = HEIGHT_PX["gg"] + 60
+    narrow = _gg_narrow(layout, n)
     return FigureSpec(
         "gg",
         "g-g diagram by speed band",
@@ -990,7 +995,32 @@ def gg_figure(bands, units: Units, fit_points=None) -> FigureSpec:
         data,
         layout,
         subplots=[("xy" if i == 0 else f"x{i + 1}y{i + 1}") for i in range(n)],
+        narrow=narrow,
     )
+
+
+def _gg_narrow(layout: dict, n: int) -> dict:
+    """The g-g layout on a narrow screen: one speed band a row, the legend below."""
+    row_px, legend_px = 330, 150
+    height = n * row_px + legend_px
+    plot = 1.0 - legend_px / height  # the rows' share of the paper, legend below
+    out = {"height": height, "margin": {"l": 56, "r": 10, "t": 40, "b": legend_px}}
+    notes = []
+    for i in range(n):
+        sx = "" if i == 0 else str(i + 1)
+        top = 1.0 - i / n
+        bottom = top - 1.0 / n + 0.12 / n
+        out[f"xaxis{sx}"] = {**layout[f"xaxis{sx}"], "domain": [0.0, 1.0]}
+        out[f"yaxis{sx}"] = {
+            **layout[f"yaxis{sx}"],
+            "domain": [bottom, top - 0.1 / n],
+            "showticklabels": True,
+            "title": {"text": "longitudinal [g]", "standoff": 6},
+        }
+        notes.append({**layout["annotations"][i], "x": 0.5, "y": top - 0.1 / n})
+    out["annotations"] = notes
+    out["legend"] = {**layout["legend"], "y": -0.02 * plot, "yanchor": "top"}
+    return out
 
 
 # --------------------------------------------------------------------------- best of laps

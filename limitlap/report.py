@@ -690,6 +690,9 @@ button.corner { font: inherit; font-weight: 600; color: #0b4f8a; background: non
   #corner-table td { border: 0; text-align: right; padding: 2px 0; min-width: 0; }
   #corner-table td::before { content: attr(data-label); float: left; color: var(--muted);
     font-weight: 400; padding-right: 8px; text-align: left; }
+  #corner-table td:first-child { display: none; }
+  #corner-table td:nth-child(2) { text-align: left; font-size: 1.05rem; }
+  #corner-table td:nth-child(2)::before { content: none; }
   #corner-table td.advice { text-align: left; }
   #corner-table td.advice::before { float: none; display: block; }
   .detail dl { grid-template-columns: 1fr; }
@@ -744,6 +747,7 @@ _SCRIPT = r"""
   function draw(f) {
     var div = views[f.key];
     var layout = res(f.layout);
+    if (div.clientWidth < 700) narrow(f, layout, div);
     baseShapes[f.key] = (layout.shapes || []).slice();
     if (f.linked) {
       layout.xaxis.range = current.slice();
@@ -760,6 +764,20 @@ _SCRIPT = r"""
       if (f.linked) linkView(f, div);
       if (f.key === "map") { linkMap(); if (!same(current, [0, D.length])) showStretch(current[0], current[1]); }
     });
+  }
+  // On a narrow screen: the figure's own narrow layout (the g-g panels one a row), the
+  // map about as tall as wide, and room for the legend, whose names then stand one a line.
+  function narrow(f, layout, div) {
+    if (f.narrow) Object.keys(f.narrow).forEach(function (k) { layout[k] = f.narrow[k]; });
+    if (f.key === "map") layout.height = Math.round(div.clientWidth * 0.9) + 150;
+    if (layout.showlegend !== false && !f.narrow) {
+      var groups = {};
+      f.data.forEach(function (t) {
+        if (t.showlegend !== false && t.name) groups[t.legendgroup || t.name] = true;
+      });
+      layout.height += 20 * Object.keys(groups).length;
+    }
+    div.style.height = layout.height + "px";
   }
   function isDrawn(div) { return drawnKeys[div.id.slice(4)] === true; }
   function same(a, b) { return Math.abs(a[0] - b[0]) < 1e-6 && Math.abs(a[1] - b[1]) < 1e-6; }
