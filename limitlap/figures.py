@@ -322,17 +322,47 @@ class LapData:
     corners: list
     units: Units
     lap_name: str
+    every: int = 1  # the session's other laps: every n-th point
+    x_laps: dict | None = None  # column reference of their distance
+
+
+#: The session's other laps are drawn every this many metres (a speed trace is smooth
+#: at that step; 40 laps of a long session stay a small part of the page). [m]
+OTHER_LAP_STEP_M = 4.0
 
 
 def lap_data(cols: Columns, v, units: Units) -> LapData:
     """The distance axis of the lap views, stored once in ``cols``."""
     axis = LapAxis.of(v.distance_m, v.length_m, v.corners)
-    x = cols.add("x", units.distance_value(axis.x), 1 if units.distance == "m" else 0)
-    return LapData(axis, x, v.corners, units, f"lap {v.lap_number}")
+    decimals = 1 if units.distance == "m" else 0
+    x = cols.add("x", units.distance_value(axis.x), decimals)
+    s = np.asarray(v.distance_m, dtype=np.float64)
+    spacing = float(np.median(np.diff(s))) if s.size > 1 else 1.0
+    every = max(1, round(OTHER_LAP_STEP_M / max(spacing, 1e-9)))
+    x_laps = cols.add("x_laps", units.distance_value(axis.x[::every]), decimals)
+    return LapData(axis, x, v.corners, units, f"lap {v.lap_number}", every, x_laps)
 
 
 def _series(cols: Columns, d: LapData, name: str, values, decimals: int) -> dict:
     return cols.add(name, np.asarray(values, dtype=np.float64)[d.axis.order], decimals)
+
+
+def _other_lap(cols: Columns, d: LapData, key: str, lap, values, decimals: int) -> dict:
+    """One of the session's other laps as a grey trace, off until switched on."""
+    y = cols.add(
+        f"{key}_lap{lap.number}",
+        np.asarray(values, dtype=np.float64)[d.axis.order[:: d.every]],
+        decimals,
+    )
+    return _line(
+        d.x_laps,
+        y,
+        f"lap {lap.number}",
+        OTHER_LAPS,
+        1.0,
+        visible="legendonly",
+        meta={"lap": lap.number},
+    )
 
 
 def speed_figure(cols: Columns, d: LapData, v, other_laps=()) -> FigureSpec:
@@ -354,18 +384,9 @@ def speed_figure(cols: Columns, d: LapData, v, other_laps=()) -> FigureSpec:
             2.0,
         ),
     ]
-    for lap in other_laps:
-        data.append(
-            _line(
-                d.x,
-                _series(cols, d, f"speed_lap{lap.number}", u.speed_value(lap.speed_m_s), 1),
-                f"lap {lap.number}",
-                OTHER_LAPS,
-                1.0,
-                visible="legendonly",
-                meta={"lap": lap.number},
-            )
-        )
+    data += [
+        _other_lap(cols, d, "speed", lap, u.speed_value(lap.speed_m_s), 1) for lap in other_laps
+    ]
     layout = _lap_layout(HEIGHT_PX["speed"], d.axis, d.corners, u, f"speed [{u.speed}]")
     return FigureSpec(
         "speed",
@@ -409,18 +430,7 @@ def delta_figure(cols: Columns, d: LapData, v, other_laps=()) -> FigureSpec:
         _line(d.x, zero, "ideal (0 s)", IDEAL, 1.2),
         _line(d.x, _series(cols, d, "delta_lap", delta, 3), f"{d.lap_name} (analysed)", LAP, 2.0),
     ]
-    for lap in other_laps:
-        data.append(
-            _line(
-                d.x,
-                _series(cols, d, f"delta_lap{lap.number}", lap.time_delta_s, 3),
-                f"lap {lap.number}",
-                OTHER_LAPS,
-                1.0,
-                visible="legendonly",
-                meta={"lap": lap.number},
-            )
-        )
+    data += [_other_lap(cols, d, "delta", lap, lap.time_delta_s, 3) for lap in other_laps]
     layout = _lap_layout(
         HEIGHT_PX["delta"], d.axis, d.corners, d.units, "time delta [s] (+ = behind)"
     )
@@ -783,7 +793,7 @@ def _hundredths_value(t: float) -> float:
 
 #: At most this many of a band's samples are drawn as dots (every n-th); the hull and the
 #: counts use all of them.
-GG_DOTS_PER_BAND = 500
+GG_DOTS_PER_BAND = 300
 #: At most this many points of the line are drawn as coloured dots on the map. [-]
 MAP_POINTS = 1200
 

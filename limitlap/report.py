@@ -737,7 +737,7 @@ _SCRIPT = r"""
     modeBarButtonsToRemove: ["toImage", "lasso2d", "autoScale2d"] };
   var views = {}, linked = [], baseShapes = {}, current = [0, D.length], drawnKeys = {};
   var busy = false, hovering = false, mapDiv = null, mapS = C.map_s, extraShapes = [];
-  var specs = {}, rest = [];
+  var specs = {}, rest = [], lapPool = {};
   D.figures.forEach(function (f) {
     specs[f.key] = f;
     views[f.key] = document.getElementById("fig-" + f.key);
@@ -759,7 +759,14 @@ _SCRIPT = r"""
         ysizemode: "pixel", xanchor: 0, yanchor: 0, x0: -8, x1: 8, y0: -8, y1: 8,
         line: { color: "#333333", width: 2 }, visible: false }];
     }
-    return Plotly.newPlot(div, res(f.data), layout, config).then(function () {
+    var data = res(f.data).filter(function (t) {
+      if (t.meta && t.meta.lap !== undefined) {
+        (lapPool[f.key] = lapPool[f.key] || {})[t.meta.lap] = t;
+        return false;
+      }
+      return true;
+    });
+    return Plotly.newPlot(div, data, layout, config).then(function () {
       drawnKeys[f.key] = true;
       if (f.linked) linkView(f, div);
       if (f.key === "map") { linkMap(); if (!same(current, [0, D.length])) showStretch(current[0], current[1]); }
@@ -944,13 +951,19 @@ _SCRIPT = r"""
       if (det && det.scrollIntoView) det.scrollIntoView({ behavior: "smooth", block: "start" });
     });
   }
+  // The session's other laps are drawn only once switched on (a long session has dozens).
   function showLap(n, on) {
     ["speed", "time_delta"].forEach(function (k) {
       var div = views[k];
       if (!div || !isDrawn(div)) return;
       var idx = [];
       div.data.forEach(function (t, j) { if (t.meta && t.meta.lap === n) idx.push(j); });
-      if (idx.length) Plotly.restyle(div, { visible: on ? true : "legendonly" }, idx);
+      if (idx.length) Plotly.restyle(div, { visible: on ? true : false }, idx);
+      else if (on && lapPool[k] && lapPool[k][n]) {
+        var t = lapPool[k][n];
+        t.visible = true;
+        Plotly.addTraces(div, t);
+      }
     });
   }
   var boxes = document.querySelectorAll("input.lap");
