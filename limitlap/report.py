@@ -709,8 +709,8 @@ button.corner { font: inherit; font-weight: 600; color: #0b4f8a; background: non
   td.advice { min-width: 0; }
   tr { break-inside: avoid; page-break-inside: avoid; }
   button.corner { color: inherit; text-decoration: none; }
-  #warnings { break-before: page; page-break-before: always; }
   .fig { break-inside: avoid; page-break-inside: avoid; }
+  .plot { zoom: var(--print-zoom, 1); }
   .note { font-size: 7.5pt; }
 }
 """
@@ -768,6 +768,7 @@ _SCRIPT = r"""
     });
     return Plotly.newPlot(div, data, layout, config).then(function () {
       drawnKeys[f.key] = true;
+      printZoom(div);
       if (f.linked) linkView(f, div);
       if (f.key === "map") { linkMap(); if (!same(current, [0, D.length])) showStretch(current[0], current[1]); }
     });
@@ -786,6 +787,17 @@ _SCRIPT = r"""
     }
     div.style.height = layout.height + "px";
   }
+  // Printed, a figure drawn at the screen's width is scaled to the paper's: A4 or Letter
+  // with 12 mm margins leaves about 700 CSS px (CSS zoom, set ahead: printing to PDF
+  // gives a script no chance to redraw).
+  var PRINT_PX = 700;
+  function printZoom(div) {
+    var w = div.getBoundingClientRect().width;
+    if (w > 0) div.style.setProperty("--print-zoom", String(Math.min(1, PRINT_PX / w)));
+  }
+  window.addEventListener("resize", function () {
+    Object.keys(views).forEach(function (k) { if (drawnKeys[k]) printZoom(views[k]); });
+  });
   function isDrawn(div) { return drawnKeys[div.id.slice(4)] === true; }
   function same(a, b) { return Math.abs(a[0] - b[0]) < 1e-6 && Math.abs(a[1] - b[1]) < 1e-6; }
   function setRange(a, b, src) {
@@ -978,19 +990,9 @@ _SCRIPT = r"""
   var bAll = document.getElementById("laps-all"), bNone = document.getElementById("laps-none");
   if (bAll) bAll.addEventListener("click", function () { all(true); });
   if (bNone) bNone.addEventListener("click", function () { all(false); });
-  function resize() {
-    Object.keys(views).forEach(function (k) { if (drawnKeys[k]) Plotly.Plots.resize(views[k]); });
-  }
-  if (window.matchMedia) {
-    var mq = window.matchMedia("print");
-    if (mq.addEventListener) mq.addEventListener("change", resize);
-    else if (mq.addListener) mq.addListener(resize);
-  }
   window.addEventListener("beforeprint", function () {
     while (rest.length) draw(rest.shift());
-    resize();
   });
-  window.addEventListener("afterprint", resize);
   window.limitlap = { views: views, setRange: setRange, showCorner: showCorner,
     showLap: showLap, corners: D.corners, drawn: drawnKeys };
   // The figures in view first, then the others one at a time, so the page answers

@@ -288,6 +288,18 @@ def test_printed_first_page_holds_the_summary_and_the_whole_table(demo, browser,
         {"paperWidth": paper[0], "paperHeight": paper[1], "printBackground": True},
     )
     reader = pypdf.PdfReader(io.BytesIO(base64.b64decode(pdf["data"])))
+    # Printed, every figure fits the paper's width: A4 less the page's 12 mm margins is
+    # (210 - 24) mm = 703 CSS px at 96 px to the inch (CSS Values 4: 1in = 96px).
+    browser.execute_cdp_cmd("Emulation.setEmulatedMedia", {"media": "print"})
+    try:
+        zooms = browser.execute_script(
+            "return Array.from(document.querySelectorAll('.plot')).map(function (p) {"
+            "  return [parseFloat(getComputedStyle(p).zoom),"
+            "          p.querySelector('svg.main-svg').width.baseVal.value]; });"
+        )
+    finally:
+        browser.execute_cdp_cmd("Emulation.setEmulatedMedia", {"media": ""})
+    assert zooms and all(z * w <= 703.0 + 0.5 for z, w in zooms), zooms
     first = " ".join(reader.pages[0].extract_text().split())
     summary = json.loads((page.parent / "summary.json").read_text(encoding="utf-8"))
     assert f"Lap {summary['lap']['number']}:" in first and "time left" in first
