@@ -238,6 +238,19 @@ def test_hover_reads_every_view_at_one_distance_and_laps_switch(demo, browser):
         "  return v[k].querySelectorAll('.hoverlayer text').length; });"
     )
     assert all(n > 0 for n in labels), labels
+    # a box selected on the map (the event plotly.js sends for it) shows that stretch in
+    # every lap view: from the first selected point's distance to the last's
+    picked = browser.execute_script(
+        "var m = window.limitlap.views.map, s = m.data[2].customdata, pts = [];"
+        "for (var i = 100; i < 160; i++) pts.push({curveNumber: 2, pointIndex: i});"
+        "m.emit('plotly_selected', {points: pts}); return [s[100], s[159]];"
+    )
+    end = time.monotonic() + 5
+    while time.monotonic() < end and not all(
+        r == pytest.approx(picked, abs=1e-6) for r in _ranges(browser).values()
+    ):
+        time.sleep(0.05)
+    assert all(r == pytest.approx(picked, abs=1e-6) for r in _ranges(browser).values())
     laps = _island(page)["laps"]
     assert laps  # the demo session has other complete laps
     n = laps[0]["number"]
