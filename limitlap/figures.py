@@ -622,6 +622,7 @@ def map_figure(cols: Columns, v, units: Units) -> FigureSpec:
             "x": xs,
             "y": ys,
             "name": "time lost per " + units.distance,
+            "showlegend": False,  # the colour bar under the map is its legend
             "customdata": cols.add("map_s", s * k, 1),
             "hovertemplate": f"%{{customdata}} {units.distance}<br>%{{marker.color:.2f}} {unit}"
             "<extra></extra>",

@@ -114,7 +114,8 @@ def picture(spec: FigureSpec, cols: Columns, width_px: int = PICTURE_WIDTH_PX) -
             continue  # the session's other laps: switched off at first, as on the page
         ax = axes[_trace_subplot(trace)]
         handle = _draw_trace(ax, fig, trace, categories, bars)
-        if handle is not None and trace.get("showlegend", True) and trace.get("name"):
+        drawn = len(trace.get("x", [])) > 0 or trace.get("type") == "bar"
+        if handle is not None and drawn and trace.get("showlegend", True) and trace.get("name"):
             handles.append((handle, trace["name"]))
     _shapes(axes, layout.get("shapes", []))
     _annotations(fig, frame, axes, layout.get("annotations", []))
@@ -341,7 +342,8 @@ def _annotations(fig, frame, axes, notes) -> None:
                 "",
                 xy=(a["x"], a["y"]),
                 xytext=(a["ax"], a["ay"]),
-                arrowprops={"arrowstyle": "->", "color": a.get("arrowcolor", INK), "lw": 1.5},
+                arrowprops={"arrowstyle": "->", "color": a.get("arrowcolor", INK), "lw": 1.8},
+                zorder=6,
             )
             continue
         transform = ax.transData
