@@ -9,7 +9,13 @@ the small bundled demo log (numba cache loaded, lazy imports done):
   timed in every measurement's own process just before each run (the ratios use that);
 - ``read_log``: limitlap's reader (parse, units, ENU), for information;
 - ``analyse``: ``pipeline.analyse`` + ``outputs.write_outputs(figures=False)``;
-- ``analyse+report``: the same with the figures (``figures=True``);
+- ``analyse+report``: the same with the PNG pictures (``figures=True``);
+- ``page``: writing report.html alone (the report's view of the analysis, the figures'
+  specifications and data, the page with the inlined plotly.js, written to disk): what
+  the interactive page adds to ``analyse --no-figures`` (target: at most 0.3 s). The page
+  of the one-hour log is then opened in headless Chromium (selenium and chromedriver,
+  when installed): its size (target: under 5 MB) and the time from opening it to the
+  first screen drawn and answering clicks, and to every figure drawn (target: within 1 s);
 - ``targets``: corners and target tables for dry, damp and wet on the analysed line;
 - ``sweep``: 1,000 grip scales on that line (``solve.lap_times_for_scales``).
 
@@ -48,7 +54,7 @@ from pathlib import Path
 ROOT = Path(__file__).resolve().parent.parent
 sys.path.insert(0, str(ROOT))
 
-MEASURES = ("parse", "read_log", "analyse", "analyse+report", "targets", "sweep")
+MEASURES = ("parse", "read_log", "analyse", "analyse+report", "page", "targets", "sweep")
 CONDITIONS = ("dry", "damp", "wet")
 
 
@@ -89,6 +95,12 @@ def _child(name: str, path: str, repeats: int) -> None:
     scales = np.linspace(0.2, 2.0, 1000)
 
     setup = None
+    page = Path(path + ".report.html")
+    if name == "page":
+        from limitlap import atomic, report
+
+        analysed = pipeline.analyse(path)
+        atomic.write_atomic(page, report.report_html(outputs.report_view(analysed)))
     if name in ("targets", "sweep"):
         a = pipeline.analyse(path)
         setup = (a.driven.line, a.vehicle)
@@ -103,6 +115,8 @@ def _child(name: str, path: str, repeats: int) -> None:
         elif name in ("analyse", "analyse+report"):
             a = pipeline.analyse(path)
             outputs.write_outputs(a, out_dir, figures=figures)
+        elif name == "page":
+            atomic.write_atomic(page, report.report_html(outputs.report_view(analysed)))
         elif name == "targets":
             corners = corners_mod.find_corners(setup[0])
             targets_mod.target_tables(setup[0], setup[1], list(CONDITIONS), corners)
@@ -132,6 +146,71 @@ def _measure(name: str, path: Path, repeats: int) -> dict:
     cmd = [sys.executable, __file__, "--child", name, str(path), "--repeats", str(repeats)]
     done = subprocess.run(cmd, check=True, capture_output=True, text=True, cwd=ROOT)
     return json.loads(done.stdout.strip().splitlines()[-1])
+
+
+def _in_browser(page: Path, n: int = 5):
+    """(median ms to the first screen answering, median ms to every figure drawn) in
+    headless Chromium, from navigation start (``performance.now()``); None without a
+    browser and its driver."""
+    import shutil
+
+    try:
+        from selenium import webdriver
+        from selenium.webdriver.chrome.options import Options
+        from selenium.webdriver.chrome.service import Service
+    except ImportError:
+        return None
+    browser, driver = shutil.which("chromium"), shutil.which("chromedriver")
+    if browser is None or driver is None:
+        return None
+    opts = Options()
+    opts.binary_location = browser
+    for arg in ("--headless=new", "--no-sandbox", "--disable-gpu", "--window-size=1280,1000"):
+        opts.add_argument(arg)
+    d = webdriver.Chrome(service=Service(driver), options=opts)
+    ready, drawn = [], []
+    try:
+        for _ in range(n):
+            d.get(page.as_uri())
+            t_end = time.monotonic() + 60
+            got = None
+            while time.monotonic() < t_end:
+                got = d.execute_script(
+                    "return [document.body.getAttribute('data-ready'),"
+                    " document.body.getAttribute('data-drawn')]"
+                )
+                if got[1]:
+                    break
+                time.sleep(0.02)
+            ready.append(float(got[0]))
+            drawn.append(float(got[1]))
+    finally:
+        d.quit()
+    return statistics.median(ready), statistics.median(drawn)
+
+
+def _page_targets(results: dict, path: Path) -> None:
+    """The page's figures: the time it adds, its size, and how soon it answers in a browser."""
+    if "page" not in results:
+        return
+    t_page = statistics.median(results["page"]["times"])
+    print("\nthe report page (one-hour log):")
+    print(f"  {'writing report.html adds <= 0.3 s':<44}{t_page:>8.3f} s  {_met(t_page <= 0.3)}")
+    if "analyse" in results:
+        t_an = statistics.median(results["analyse"]["times"])
+        print(f"  {'  of analyse --no-figures (page included)':<44}{t_an:>8.3f} s")
+    page = Path(str(path) + ".report.html")
+    size = page.stat().st_size / 1e6
+    print(f"  {'page size < 5 MB':<44}{size:>8.2f} MB {_met(size < 5.0)}")
+    timing = _in_browser(page)
+    if timing is None:
+        print("  in a browser: not measured (needs selenium, chromium and chromedriver)")
+        return
+    ready, drawn = timing
+    print(
+        f"  {'first screen drawn, answering (headless)':<44}{ready / 1000:>8.2f} s  {_met(ready <= 1000)}"
+    )
+    print(f"  {'every figure drawn (headless)':<44}{drawn / 1000:>8.2f} s  {_met(drawn <= 1000)}")
 
 
 def _cold(cmd: list[str], n: int = 5) -> float:
@@ -251,6 +330,7 @@ def main() -> None:
             "traced: tracemalloc peak (numpy/Python, not polars' buffers)"
         )
 
+        _page_targets(results, path)
         if args.only:
             _subset_targets(results, size)
             return

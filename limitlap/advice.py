@@ -11,7 +11,7 @@ from __future__ import annotations
 import math
 from dataclasses import dataclass
 
-from limitlap.formatting import metres, speed_kmh, time_left
+from limitlap.formatting import METRIC, time_left
 from limitlap.units import KMH_TO_M_S
 
 #: A corner's time is good to about a hundredth of a second (stations interpolated
@@ -100,7 +100,7 @@ def _arrives_slower(d: CornerDifferences) -> bool:
     return _beyond(d.arrival_deficit_m_s, SPEED_RESOLUTION_M_S) and d.arrival_deficit_m_s > 0
 
 
-def _parts(d: CornerDifferences) -> list[str]:
+def _parts(d: CornerDifferences, u) -> list[str]:
     """The differences worth naming, in driving order, each as a clause.
 
     A clause about the driver ("you ...") is followed by clauses that name the ideal
@@ -115,15 +115,15 @@ def _parts(d: CornerDifferences) -> list[str]:
         where = f"{d.previous}'s exit" if d.previous else "the corner before"
         parts.append(
             f"{time_left(d.approach_s)} s of it comes from {where}: you arrive "
-            f"{speed_kmh(d.arrival_deficit_m_s)} km/h slower"
+            f"{u.speed_text(d.arrival_deficit_m_s)} slower"
         )
     turning = d.braking_s + d.mid_s
     if d.ideal_without_slowing and math.isfinite(d.real_brake_m) and turning >= TIME_RESOLUTION_S:
         parts.append(
-            f"the ideal takes it without slowing; you slow from {d.real_brake_m:.0f} m "
-            f"to {speed_kmh(d.real_min_speed_m_s)} km/h"
+            f"the ideal takes it without slowing; you slow from {u.distance_text(d.real_brake_m)} "
+            f"to {u.speed_text(d.real_min_speed_m_s)}"
         )
-        return _with_subject(parts + _drive_part(d))
+        return _with_subject(parts + _drive_part(d, u))
     # Braking later because the lap arrived slower is no instruction: left out.
     later = d.brake_later_m > 0 or not _arrives_slower(d)
     if (
@@ -132,17 +132,17 @@ def _parts(d: CornerDifferences) -> list[str]:
         and later
     ):
         word = "later" if d.brake_later_m > 0 else "earlier"
-        parts.append(f"the ideal brakes {metres(d.brake_later_m)} {word}")
+        parts.append(f"the ideal brakes {u.distance_text(abs(d.brake_later_m))} {word}")
     if _beyond(d.min_speed_gain_m_s, SPEED_RESOLUTION_M_S) and turning >= TIME_RESOLUTION_S:
         word = "more" if d.min_speed_gain_m_s > 0 else "less"
-        parts.append(f"carries {speed_kmh(abs(d.min_speed_gain_m_s))} km/h {word} at the minimum")
-    return _with_subject(parts + _drive_part(d))
+        parts.append(f"carries {u.speed_text(abs(d.min_speed_gain_m_s))} {word} at the minimum")
+    return _with_subject(parts + _drive_part(d, u))
 
 
-def _drive_part(d: CornerDifferences) -> list[str]:
+def _drive_part(d: CornerDifferences, u) -> list[str]:
     if _beyond(d.full_drive_sooner_m, d.drive_resolution_m) and d.exit_s >= TIME_RESOLUTION_S:
         word = "sooner" if d.full_drive_sooner_m > 0 else "later"
-        return [f"is at full drive {metres(d.full_drive_sooner_m)} {word}"]
+        return [f"is at full drive {u.distance_text(abs(d.full_drive_sooner_m))} {word}"]
     return []
 
 
@@ -159,18 +159,20 @@ def _with_subject(parts: list[str]) -> list[str]:
     return out
 
 
-def advice_line(d: CornerDifferences) -> str:
+def advice_line(d: CornerDifferences, units=None) -> str:
     """One line a driver understands, e.g. "T6: 0.21 s — the ideal brakes 12 m later, ...".
 
     Parameters
     ----------
     d : CornerDifferences
         The corner's differences.
+    units : formatting.Units, optional
+        How speeds and distances are written (km/h and m by default).
 
     Returns
     -------
     str
-        Speeds in km/h, distances in m (docs/methods.md, Corners and comparison): a
+        Speeds in km/h, distances in m unless ``units`` says otherwise (docs/methods.md, Corners and comparison): a
         difference is named when it is larger than the data resolves (1 km/h; 2 m or
         0.05 s of travel) and its phase holds at least 0.02 s of time left; time left
         that comes from arriving slower from the corner before is said so; a corner
@@ -189,7 +191,7 @@ def advice_line(d: CornerDifferences) -> str:
             "lap used more grip here than the envelope gives at this grip scale (the "
             "scale or the envelope is set too low)"
         )
-    parts = _parts(d) if d.time_left_s >= TIME_RESOLUTION_S else []
+    parts = _parts(d, units or METRIC) if d.time_left_s >= TIME_RESOLUTION_S else []
     if not parts:
         if d.time_left_s < TIME_RESOLUTION_S:
             return f"{head} — on the ideal here: same brake point, minimum speed and drive point"

@@ -86,6 +86,7 @@ class _Job:
     figures: bool
     wording: Callable[[object], str] = str
     check_units: bool = True
+    units: str = "metric"  # how the report shows speeds and distances
 
 
 def _log_name(path: Path) -> str:
@@ -158,6 +159,7 @@ def analyse_job(job: _Job) -> BatchRow:
     import gc
 
     from limitlap import outputs, pipeline
+    from limitlap.formatting import units_named
 
     gc.freeze()  # the imports' objects out of the collector's way for the job (cli._settle_imports)
     say = job.wording
@@ -174,7 +176,9 @@ def analyse_job(job: _Job) -> BatchRow:
         )
         analysis = replace(analysis, warnings=[say(w) for w in analysis.warnings])
         Path(job.out_dir).parent.mkdir(parents=True, exist_ok=True)
-        outputs.write_outputs(analysis, job.out_dir, figures=job.figures)
+        outputs.write_outputs(
+            analysis, job.out_dir, figures=job.figures, units=units_named(job.units)
+        )
     except LimitlapError as err:
         return BatchRow(job.log, job.out_dir, error=say(err))
     except Exception as err:
@@ -210,6 +214,7 @@ def run_batch(
     on_done: Callable[[BatchRow, int, int], None] | None = None,
     wording: Callable[[object], str] = str,
     check_units: bool = True,
+    units: str = "metric",
 ) -> list[BatchRow]:
     """Analyse every log into ``out_dir/<log name>/``, in parallel.
 
@@ -239,6 +244,8 @@ def run_batch(
     check_units : bool
         Stop a log whose channels disagree with its GPS path (see
         :func:`limitlap.pipeline.analyse`). [-]
+    units : str
+        ``metric`` or ``imperial``: how each report shows speeds and distances. [-]
 
     Returns
     -------
@@ -249,7 +256,7 @@ def run_batch(
     folders = output_folders(paths, out_dir)
     Path(out_dir).mkdir(parents=True, exist_ok=True)
     common = (vehicle, grip_scale, lap, gate, channels, track, figures, wording, check_units)
-    jobs = [_job(p, f, *common) for p, f in zip(paths, folders, strict=True)]
+    jobs = [replace(_job(p, f, *common), units=units) for p, f in zip(paths, folders, strict=True)]
     rows: list[BatchRow | None] = [None] * len(jobs)
     for i, row in _finished(jobs, workers, scheduler):
         rows[i] = row

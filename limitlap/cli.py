@@ -123,6 +123,24 @@ def _kmh(v_m_s: float) -> float:
     return v_m_s / KMH_TO_M_S
 
 
+def _units_option():
+    return typer.Option(
+        "metric",
+        "--units",
+        help="How speeds and distances are shown: metric (km/h, m) or imperial (mph, ft). "
+        "JSON and the files for programs keep their documented units.",
+    )
+
+
+def _units(value: str):
+    from limitlap.formatting import units_named
+
+    try:
+        return units_named(value)
+    except ValueError as err:
+        raise InputError("--units", str(err)) from None
+
+
 @app.command()
 def solve(
     line: Path = typer.Argument(
@@ -132,6 +150,7 @@ def solve(
     grip: str = typer.Option(None, "--grip", help=_GRIP_HELP, callback=_grip_scale),
     as_json: bool = typer.Option(False, "--json", help="Print JSON on stdout."),
     out: Path = typer.Option(None, "--out", help="Write the speed profile as CSV here."),
+    units: str = _units_option(),
 ) -> None:
     """Ideal speed profile and lap time on a given line."""
     import numpy as np
@@ -141,6 +160,7 @@ def solve(
 
     _settle_imports()
     k = 1.0 if grip is None else float(grip)
+    shown = _units(units)
     car = ingest.read_vehicle(vehicle)
     the_line = ingest.read_line(line)
     _warn(the_line.meta.get("warnings", ()))
@@ -167,11 +187,13 @@ def solve(
     typer.echo(f"{car.name} on {line.name}, grip scale {k:.2f}")
     typer.echo(f"  lap time   {lap_time(profile.lap_time_s)}  ({profile.lap_time_s:.3f} s)")
     typer.echo(
-        f"  min speed  {speed_kmh(profile.speed_m_s[i_min])} km/h at "
-        f"{distance(result['min_speed_at_m'])} m"
+        f"  min speed  {speed_kmh(profile.speed_m_s[i_min], shown)} {shown.speed} at "
+        f"{distance(result['min_speed_at_m'], shown)} {shown.distance}"
     )
-    typer.echo(f"  max speed  {speed_kmh(profile.speed_m_s.max())} km/h")
-    typer.echo(f"  length     {distance(the_line.length_m)} m, {the_line.n} stations")
+    typer.echo(f"  max speed  {speed_kmh(profile.speed_m_s.max(), shown)} {shown.speed}")
+    typer.echo(
+        f"  length     {distance(the_line.length_m, shown)} {shown.distance}, {the_line.n} stations"
+    )
     if out is not None:
         typer.echo(f"  profile    {out}")
 
@@ -218,17 +240,18 @@ def _text_table(heads, rows, left=1) -> list[str]:
     return [line(heads)] + [line(r) for r in rows]
 
 
-def _points(points) -> str:
-    """Brake points to the metre, joined by "+"; the one blank without one."""
+def _points(points, units=None) -> str:
+    """Brake points to the metre (or foot), joined by "+"; the one blank without one."""
     from limitlap.formatting import NOT_AVAILABLE, distance
 
-    return " + ".join(distance(x) for x in points) if points else NOT_AVAILABLE
+    return " + ".join(distance(x, units) for x in points) if points else NOT_AVAILABLE
 
 
-def _corner_table(analysis) -> str:
-    """The ranked corner table and headline, for the terminal (with the bands when there are some)."""
+def _corner_table(analysis, u=None) -> str:
+    """The ranked corner table and headline, for the terminal (with the bands when there are some; speeds and distances in ``u``, km/h and m by default)."""
     from limitlap.bands import advice_shown
     from limitlap.formatting import (
+        METRIC,
         distance,
         grip,
         grip_used,
@@ -238,6 +261,7 @@ def _corner_table(analysis) -> str:
         with_band,
     )
 
+    u = u or METRIC
     cmp_ = analysis.comparison
     b = analysis.bands
     band_of = {c.name: b.corner_bands_s[i] for i, c in enumerate(cmp_.corners)} if b else {}
@@ -261,11 +285,11 @@ def _corner_table(analysis) -> str:
         "group",
         "corner",
         "",
-        "apex [m]",
+        f"apex [{u.distance}]",
         "time left [s]",
-        "min you/ideal [km/h]",
-        "brake you [m]",
-        "brake ideal [m]",
+        f"min you/ideal [{u.speed}]",
+        f"brake you [{u.distance}]",
+        f"brake ideal [{u.distance}]",
         "grip used",
     )
     rows = [
@@ -274,13 +298,13 @@ def _corner_table(analysis) -> str:
             str(group_of[c.name]) if c.name in group_of else "-",
             c.name,
             c.label,
-            distance(c.apex_m),
+            distance(c.apex_m, u),
             with_band(c.time_left_s, band_of.get(c.name), unit="")
             if c.name in band_of
             else time_left(c.time_left_s),
-            f"{speed_kmh(c.min_speed_actual_m_s)} / {speed_kmh(c.min_speed_ideal_m_s)}",
-            _points(c.brake_points_actual_m),
-            _points(c.brake_points_ideal_m),
+            f"{speed_kmh(c.min_speed_actual_m_s, u)} / {speed_kmh(c.min_speed_ideal_m_s, u)}",
+            _points(c.brake_points_actual_m, u),
+            _points(c.brake_points_ideal_m, u),
             grip_used(c.grip_used, c.grip_used_raw),
         )
         for c in cmp_.ranked()
@@ -288,7 +312,7 @@ def _corner_table(analysis) -> str:
     lines += ["", *_text_table(heads, rows, left=4), ""]
     lines += [f"{c.name}: {c.note}" for c in cmp_.corners if c.note]
     shown = [
-        advice_shown(c.name, c.time_left_s, band_of.get(c.name), c.advice)
+        advice_shown(c.name, c.time_left_s, band_of.get(c.name), c.advice_in(u))
         for c in cmp_.ranked()[:3]
     ]
     lines += [a for a in shown if a]
@@ -314,6 +338,7 @@ def laps(
     ),
     grip: str = typer.Option(None, "--grip", help=_GRIP_HELP, callback=_grip_scale),
     as_json: bool = typer.Option(False, "--json", help="Print JSON on stdout."),
+    units: str = _units_option(),
 ) -> None:
     """The laps of a log: number, kind (out, flying, in, pit, partial), time, distance, complete or why not.
 
@@ -332,7 +357,7 @@ def laps(
         if as_json:
             typer.echo(json.dumps(laps_mod.laps_json(found)))
         else:
-            typer.echo(format_laps_table(found))
+            typer.echo(format_laps_table(found, _units(units)))
         return
     _settle_imports()
     analysis = pipeline.analyse(
@@ -369,7 +394,18 @@ def _settle_imports() -> None:
 
 
 def _analyse_one(
-    log, vehicle, k, lap, gate, channels, track, out, quiet, figures=True, check_units=True
+    log,
+    vehicle,
+    k,
+    lap,
+    gate,
+    channels,
+    track,
+    out,
+    quiet,
+    figures=True,
+    check_units=True,
+    shown=None,
 ):
     """One log analysed and its files written; the warnings as :func:`worded` says them."""
     import dataclasses
@@ -392,7 +428,11 @@ def _analyse_one(
             check_units=check_units,
         )
         analysis = dataclasses.replace(analysis, warnings=[worded(w) for w in analysis.warnings])
-        written = outputs.write_outputs(analysis, out, figures=figures, progress=bar)
+        from limitlap.formatting import METRIC
+
+        written = outputs.write_outputs(
+            analysis, out, figures=figures, units=shown or METRIC, progress=bar
+        )
     finally:
         bar.close()
     return analysis, written
@@ -445,7 +485,9 @@ def analyse(
     track: Path = typer.Option(None, "--track", help="Track TOML (gate, corner names)."),
     out: Path = typer.Option(Path("limitlap-out"), "--out", help="Output folder."),
     no_figures: bool = typer.Option(
-        False, "--no-figures", help="Skip the PNG figures and their report panels."
+        False,
+        "--no-figures",
+        help="Skip the PNG pictures of the figures (report.html keeps its interactive figures).",
     ),
     quiet: bool = typer.Option(False, "--quiet", help="No progress display."),
     workers: int = typer.Option(
@@ -459,6 +501,7 @@ def analyse(
         "--accept-units",
         help="Go on when a channel disagrees with the GPS path (unit or sign); warn instead.",
     ),
+    units: str = _units_option(),
 ) -> None:
     """The whole job on one log: laps, line, envelope, ideal lap, corner comparison, report.
 
@@ -468,6 +511,7 @@ def analyse(
     from limitlap import report
 
     k = 1.0 if grip is None else float(grip)
+    shown = _units(units)
     if len(log) > 1 or log[0].is_dir() or scheduler is not None:
         _analyse_batch(
             log,
@@ -483,14 +527,26 @@ def analyse(
             figures=not no_figures,
             workers=workers,
             check_units=not accept_units,
+            units=shown.name,
         )
         return
     log = log[0]
     analysis, written = _analyse_one(
-        log, vehicle, k, lap, gate, channels, track, out, quiet, not no_figures, not accept_units
+        log,
+        vehicle,
+        k,
+        lap,
+        gate,
+        channels,
+        track,
+        out,
+        quiet,
+        not no_figures,
+        not accept_units,
+        shown,
     )
     _warn(analysis.warnings)
-    typer.echo(_corner_table(analysis))
+    typer.echo(_corner_table(analysis, shown))
     typer.echo(f"\nwritten to {out}/: " + ", ".join(sorted(Path(p).name for p in written.values())))
     typer.echo(report.SAFETY_CAUTION)
 
@@ -514,6 +570,7 @@ def targets(
         None, "--out", help="Also write CSV and printable sheets (PDF, PNG) here."
     ),
     as_json: bool = typer.Option(False, "--json", help="Print JSON on stdout."),
+    units: str = _units_option(),
 ) -> None:
     """Target sheet per corner for one or more grip scales (dry, damp, wet)."""
     from limitlap import corners as corners_mod
@@ -521,6 +578,7 @@ def targets(
     from limitlap import targets as targets_mod
 
     _settle_imports()
+    shown = _units(units)
     car = pipeline.require_vehicle_with_grip(vehicle)
     line, where = pipeline.line_from_source(
         source, lap=lap, gate=gate, channels=channels, track=track
@@ -533,7 +591,12 @@ def targets(
         from limitlap import sheets
 
         sheets.write_target_sheets(
-            conditions, out, trk.name if trk else where, car=car.name, date=_sheet_date()
+            conditions,
+            out,
+            trk.name if trk else where,
+            car=car.name,
+            date=_sheet_date(),
+            units=shown,
         )
     if as_json:
         typer.echo(json.dumps(targets_mod.targets_json(conditions)))
@@ -541,7 +604,7 @@ def targets(
     typer.echo(f"{car.name} on {where}")
     for cond in conditions:
         typer.echo("")
-        typer.echo(format_targets_table(cond))
+        typer.echo(format_targets_table(cond, shown))
     if out is not None:
         typer.echo(f"\nsheets written to {out}/")
 
@@ -652,16 +715,20 @@ def envelope(
 def demo(
     out: Path = typer.Option(Path("limitlap-demo"), "--out", help="Output folder."),
     quiet: bool = typer.Option(False, "--quiet", help="No progress display."),
+    units: str = _units_option(),
 ) -> None:
     """The whole job on the bundled demo session: report, figures and target sheets."""
     from limitlap import atomic, sheets
     from limitlap import targets as targets_mod
     from limitlap.resources import bundled_path
 
+    shown = _units(units)
     log = bundled_path("demo_tracks", "tarrowby_dry.csv.gz")
     track = bundled_path("demo_tracks", "tarrowby_heath.toml")
     with atomic.output_set(out) as folder:  # the report and the sheets: one set
-        analysis, _ = _analyse_one(log, None, 1.0, None, None, None, track, folder, quiet)
+        analysis, _ = _analyse_one(
+            log, None, 1.0, None, None, None, track, folder, quiet, shown=shown
+        )
         conditions = targets_mod.target_tables(
             analysis.driven.line, analysis.vehicle, ["dry", "damp", "wet"], analysis.corners
         )
@@ -674,12 +741,13 @@ def demo(
             analysis.track_name or "demo circuit",
             car=car,
             date=_sheet_date(),
+            units=shown,
         )
     _warn(analysis.warnings)
-    typer.echo(_corner_table(analysis))
+    typer.echo(_corner_table(analysis, shown))
     for cond in conditions:
         typer.echo("")
-        typer.echo(format_targets_table(cond))
+        typer.echo(format_targets_table(cond, shown))
     typer.echo(f"\nreport: {Path(out) / 'report.html'}  (open it in a browser)")
 
 
@@ -742,10 +810,10 @@ def run() -> None:
         gc.freeze()
 
 
-def format_laps_table(laps) -> str:
+def format_laps_table(laps, shown=None) -> str:
     """The lap table as text: number, kind, time m:ss.sss, distance, complete or why not; the fastest marked."""
     lines = [f"{'lap':>4}  {'kind':<7}  {'time':>9}  {'distance':>10}  status"]
-    from limitlap.formatting import lap_time
+    from limitlap.formatting import METRIC, lap_time
     from limitlap.laps import laps_table
 
     for rec in laps_table(laps):
@@ -753,26 +821,34 @@ def format_laps_table(laps) -> str:
         mark = "  <- fastest" if rec["fastest"] else ""
         lines.append(
             f"{rec['number']:>4}  {rec['kind']:<7}  {lap_time(rec['time_s']):>9}  "
-            f"{rec['distance_m']:>8.1f} m  {status}{mark}"
+            f"{(shown or METRIC).distance_text(rec['distance_m'], '.1f'):>10}  {status}{mark}"
         )
     return "\n".join(lines)
 
 
-def format_targets_table(condition: TargetCondition) -> str:
+def _times(x, factor):
+    """``x * factor``; None stays None (a corner without that point)."""
+    return None if x is None else x * factor
+
+
+def format_targets_table(condition: TargetCondition, shown=None) -> str:
     """The target table of one condition as fixed-width text for the terminal.
 
     Parameters
     ----------
     condition : TargetCondition
+    shown : formatting.Units, optional
+        How speeds and distances are shown; km/h and m by default.
 
     Returns
     -------
     str
-        Heading, one row per corner (km/h, m, s), and the caution.
+        Heading, one row per corner (speeds, distances, s), and the caution.
     """
-    from limitlap.formatting import distance, grip, lap_time, seconds, speed_kmh
+    from limitlap.formatting import METRIC, distance, grip, lap_time, seconds, speed_kmh
     from limitlap.targets import CAUTION
 
+    u = shown or METRIC
     name = f"{condition.label} " if condition.label else ""
     head = (
         f"Targets {name}(grip scale {grip(condition.grip_scale)}) — "
@@ -781,24 +857,24 @@ def format_targets_table(condition: TargetCondition) -> str:
     heads = (
         "corner",
         "",
-        "apex [m]",
-        "brake at [m]",
-        "before apex [m]",
-        "entry [km/h]",
-        "min [km/h]",
-        "exit [km/h]",
+        f"apex [{u.distance}]",
+        f"brake at [{u.distance}]",
+        f"before apex [{u.distance}]",
+        f"entry [{u.speed}]",
+        f"min [{u.speed}]",
+        f"exit [{u.speed}]",
         "segment [s]",
     )
     rows = [
         (
             t.name,
             t.label,
-            distance(t.apex_m),
-            _points(t.brake_points_m),
-            distance(t.brake_before_apex_m),
-            speed_kmh(t.entry_speed_m_s),
-            speed_kmh(t.min_speed_m_s),
-            speed_kmh(t.exit_speed_m_s),
+            distance(t.apex_m, u),
+            _points(t.brake_points_m, u),
+            distance(t.brake_before_apex_m, u),
+            speed_kmh(t.entry_speed_m_s, u),
+            speed_kmh(t.min_speed_m_s, u),
+            speed_kmh(t.exit_speed_m_s, u),
             seconds(t.segment_time_s),
         )
         for t in condition.corners

@@ -139,7 +139,9 @@ class CornerComparison:
     rank : int
         1 = most time left.
     advice : str
-        One plain-language line for the driver.
+        One plain-language line for the driver (km/h and m).
+    differences : advice.CornerDifferences
+        What the advice is read from (to word it in other units). [-]
     """
 
     name: str
@@ -185,6 +187,13 @@ class CornerComparison:
     grip_estimate: float | None
     rank: int
     advice: str
+    differences: CornerDifferences | None = None
+
+    def advice_in(self, units=None) -> str:
+        """The advice line in the units a person chose (km/h and m: :attr:`advice`)."""
+        if units is None or self.differences is None or units.name == "metric":
+            return self.advice
+        return advice_line(self.differences, units)
 
     def summary_dict(self) -> dict:
         """The docs/outputs.md, summary.json corner keys first (km/h where the key says so), then extras.
@@ -644,6 +653,7 @@ def _corner_row(c: Corner, previous: str, bound, g, actual: Trace, best: Trace):
         grip_used_raw=raw,
         grip_estimate=g,
         advice=advice_line(diff),
+        differences=diff,
     )
 
 

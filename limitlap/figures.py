@@ -1,443 +1,529 @@
-"""Figures of the report: each function draws one figure and returns its PNG bytes.
+"""What each report figure shows, as plotly.js figure specifications (plain JSON dicts).
 
-The report's figures are drawn by :mod:`limitlap._canvas` -- fixed pixel panels, ticks,
-text and legends straight onto matplotlib's Agg rasteriser, with no figure, axes or text
-objects in between -- because matplotlib's artist layer alone took 60-100 ms a figure;
-the printable target sheet (not drawn on every analysis) is laid out by matplotlib's
-figure layer. matplotlib is imported inside the functions (Agg, no display needed), so
-importing :mod:`limitlap.figures` or :mod:`limitlap.report` costs nothing until a figure
-is drawn. Every figure has a fixed pixel size (:data:`FIGURE_SIZE_PX`); nothing is
-cropped to fit, so the size is known before drawing.
+Each ``*_figure`` function returns one :class:`FigureSpec`: ``data`` (the traces) and
+``layout`` in plotly.js's documented figure schema, so the page (:mod:`limitlap.report`)
+hands them to the vendored plotly.js unchanged and :mod:`limitlap.pictures` draws the
+same specification with matplotlib for the PNG files. No plotting library is imported
+here: building the page costs the JSON and nothing else.
 
-PNG: RGB, "Up" row filter, zlib level 1, the two halves of the image deflated at once
-(:meth:`limitlap._canvas.Canvas.png`): 2-5 ms a figure against Pillow's 11-27 ms at any
-compress level, files 2-24 % larger than its level 3 (7 % over the report); measured on
-the demo report's figures.
+Long arrays are not repeated in every trace: a trace names a column of a
+:class:`Columns` store (``{"$col": "speed_ideal"}``), which the page's script and the
+PNG drawing resolve before drawing. Values are rounded per column to what can be seen
+(0.1 km/h, 0.1 m, 1 ms), which keeps the page small.
 
-Inputs are plain SI arrays and records; the conversion to km/h and g for display happens
-here, with the factors of :mod:`limitlap.units`.
+Inputs are the report's view of an analysis (SI) and the units a person reads
+(:class:`limitlap.formatting.Units`); the conversions happen here and in
+:mod:`limitlap.formatting`. Nothing is computed here that a stage should compute: the
+g-g bands come from :mod:`limitlap.gg`, the shares from :mod:`limitlap.limits`.
 
-Colours: the colour-blind-safe set of Okabe & Ito (2008), the real lap always in
-vermillion, the ideal lap always in blue; the map uses a blue-grey-orange diverging scale
-whose lightness runs monotonically from each end to the middle, so it also reads in grey
-print.
+Colours, one meaning each in every view and on the target sheets: the analysed lap in
+orange and the ideal in black (Okabe & Ito 2008 [1]); time lost and time gained as the
+two ends of ColorBrewer's red-blue diverging scheme [2], also for the map's scale
+(centred on zero); the session's other laps in grey; the best of the session's laps in
+bluish green. The set stays apart under simulated protanopia, deuteranopia and
+tritanopia (tests/test_page.py checks it with the simulation of Machado et al. 2009).
 
 References
 ----------
 .. [1] M. Okabe and K. Ito, "Color Universal Design (CUD): how to make figures and
    presentations that are friendly to colorblind people", J*FLY, 2008.
+.. [2] M. Harrower and C. A. Brewer, "ColorBrewer.org: an online tool for selecting
+   colour schemes for maps", The Cartographic Journal 40(1):27-37, 2003.
 """
 
 from __future__ import annotations
 
 import functools
 import io
+import json
 import math
 import threading
+from dataclasses import dataclass, field
 
 import numpy as np
 
-from limitlap.formatting import NOT_AVAILABLE, distance, lap_time, seconds, speed_kmh
-from limitlap.units import G0_M_S2, KMH_TO_M_S
+from limitlap.formatting import (
+    METRIC,
+    NOT_AVAILABLE,
+    Units,
+    distance,
+    lap_time,
+    seconds,
+    signed_time,
+    speed_kmh,
+)
+from limitlap.units import G0_M_S2
 
-# Okabe-Ito colours [1].
-REAL = "#D55E00"  # vermillion: the driven lap
-IDEAL = "#0072B2"  # blue: the ideal lap
-BEST = "#009E73"  # bluish green: best of the driver's own laps
-UNUSED = "#56B4E9"  # sky blue: grip the lap did not use
-ACCENT = "#E69F00"  # orange
-INK = "#222222"
-GRID = "#d9d9d9"
-BAND = "#f2f2f2"
-EDGE = "#888888"  # axis lines
-
-#: Resolution of every figure. [dots per inch]
-DPI = 100
-#: Pixel size (width, height) of each figure kind, fixed whatever the data.
-FIGURE_SIZE_PX = {
-    "speed": (1200, 460),
-    "delta": (1200, 360),
-    "time_left": (1200, 520),
-    "map": (1000, 800),
-    "gg": (1400, 520),
-    "detail": (1200, 640),
-    "best": (1200, 520),
-    "check": (1200, 420),
-    "session": (1200, 560),
-    "versus_delta": (1200, 380),
-    "versus_corners": (1200, 520),
-    "target_sheet": (1240, 1754),  # A4 portrait at 150 dpi (the sheet is drawn at 150 dpi)
-}
-#: Resolution of the printable target sheet: A4 = 8.27 x 11.69 in. [dots per inch]
-SHEET_DPI = 150
-
-# Type sizes of the figures (as the target sheet's matplotlib style): tick and axis
-# labels 11 pt, titles 12 pt. [pt]
-_FONT_PT = 11.0
-_TITLE_PT = 12.0
-
-#: Style of the target sheet, applied only while it is built and drawn (the caller's
-#: matplotlib settings are left as they were).
-_STYLE = {
-    "font.size": 11,
-    "axes.titlesize": 12,
-    "axes.labelsize": 11,
-    "axes.edgecolor": "#888888",
-    "axes.grid": True,
-    "grid.color": GRID,
-    "grid.linewidth": 0.6,
-    "axes.spines.top": False,
-    "axes.spines.right": False,
-    "legend.frameon": False,
-    "svg.hashsalt": "limitlap",
+# Colours by role (see the module's notes).
+LAP = "#E69F00"  # Okabe-Ito orange: the analysed lap (your lap)
+IDEAL = "#000000"  # black: the ideal lap and the envelope it runs on
+LOSS = "#B2182B"  # ColorBrewer RdBu, red end: time lost, grip left unused
+GAIN = "#2166AC"  # ColorBrewer RdBu, blue end: time gained on the ideal
+EVEN = "#BDBDBD"  # neutral: neither (rounds to 0.00 s)
+OTHER_LAPS = "#8C8C8C"  # grey: the session's other laps
+BEST = "#009E73"  # Okabe-Ito bluish green: best of the session's own laps
+CHECK_AY = "#56B4E9"  # Okabe-Ito sky blue: curvature from a_y / v²
+CHECK_YAW = "#CC79A7"  # Okabe-Ito reddish purple: curvature from yaw rate / v
+STRETCH = "#F0E442"  # Okabe-Ito yellow: the stretch shown, on the map
+INK = "#333333"  # text, axes, neutral marks
+GRID = "#E3E3E3"
+BAND = "#F4F4F4"  # every other corner segment
+#: The map's diverging scale, loss (1) to gain (0) through a light neutral at 0.5:
+#: ColorBrewer RdBu, 7 classes [2].
+LOSS_SCALE = [
+    [0.0, GAIN],
+    [1 / 6, "#67A9CF"],
+    [2 / 6, "#D1E5F0"],
+    [0.5, "#F7F7F7"],
+    [4 / 6, "#FDDBC7"],
+    [5 / 6, "#EF8A62"],
+    [1.0, LOSS],
+]
+#: Every role colour, for the legend of colours and the tests.
+ROLE_COLOURS = {
+    "your lap": LAP,
+    "ideal": IDEAL,
+    "time lost": LOSS,
+    "time gained": GAIN,
+    "other laps": OTHER_LAPS,
+    "best of your laps": BEST,
 }
 
-
-# rcParams are one dict per process: threads (e.g. a Dask worker's) draw one sheet at a
-# time, so one sheet's style context cannot end while another is being drawn.
-_STYLE_LOCK = threading.RLock()
-
-
-def _styled(draw):
-    """Run a matplotlib figure function inside the sheet's style (imported on first use)."""
-
-    @functools.wraps(draw)
-    def wrapper(*args, **kwargs):
-        import matplotlib
-
-        with _STYLE_LOCK, matplotlib.rc_context(_STYLE):
-            return draw(*args, **kwargs)
-
-    return wrapper
-
-
-def _figure(kind: str, **kwargs):
-    """A matplotlib figure of the kind's fixed size on its own Agg canvas (no pyplot)."""
-    from matplotlib.backends.backend_agg import FigureCanvasAgg
-    from matplotlib.figure import Figure
-
-    w, h = FIGURE_SIZE_PX[kind]
-    dpi = SHEET_DPI if kind == "target_sheet" else DPI
-    fig = Figure(figsize=(w / dpi, h / dpi), dpi=dpi, **kwargs)
-    FigureCanvasAgg(fig)
-    return fig
+FONT = 'system-ui, -apple-system, "Segoe UI", Roboto, "DejaVu Sans", sans-serif'
+#: Heights of the figures on the page and in the PNGs. [px]
+HEIGHT_PX = {
+    "speed": 340,
+    "delta": 250,
+    "pedals": 320,
+    "map": 560,
+    "time_left": 0,  # from the number of corners
+    "gg": 400,
+    "best": 380,
+    "check": 280,
+    "detail": 560,
+    "session": 360,
+}
+#: Width of the PNG pictures (the page's figures take the page's width). [px]
+PICTURE_WIDTH_PX = 1200
 
 
-def _canvas(kind: str):
-    """A blank canvas of the kind's fixed size."""
-    from limitlap._canvas import Canvas
+def rgba(colour: str, alpha: float) -> str:
+    """``#rrggbb`` with an opacity, as CSS ``rgba(...)``.
 
-    w, h = FIGURE_SIZE_PX[kind]
-    return Canvas(w, h, DPI)
-
-
-def _png(canvas, kind: str) -> bytes:
-    """The finished canvas as PNG bytes (see the module's notes on the encoding)."""
-    return canvas.png(DPI)
+    >>> rgba("#B2182B", 0.25)
+    'rgba(178,24,43,0.25)'
+    """
+    h = colour.lstrip("#")
+    r, g, b = (int(h[i : i + 2], 16) for i in (0, 2, 4))
+    return f"rgba({r},{g},{b},{alpha:g})"
 
 
-# Fixed layout: every figure has a fixed pixel size and fixed fonts, so its panels sit at
-# fixed places (pixel margins below). The margins hold the tick labels and axis labels
-# (11 pt = 15 px at 100 dpi); labels whose width depends on the data (y tick labels,
-# corner and lap names) are measured first.
-_TICK_PX = 10  # tick 3.5 pt + pad 3.5 pt at 100 dpi
-_LABEL_PX = 22  # an 11 pt axis label and its 4 pt pad
+# --------------------------------------------------------------------------- columns
 
 
-def _pt(points: float) -> float:
-    """Points as pixels at the figures' resolution. [px]."""
-    return points * DPI / 72.0
+class Columns:
+    """Named arrays the figures share, rounded per column; written once into the page."""
+
+    def __init__(self):
+        self.arrays: dict[str, np.ndarray] = {}
+
+    def add(self, name: str, values, decimals: int) -> dict:
+        """Store ``values`` rounded to ``decimals`` and give the reference a trace uses."""
+        a = np.round(np.asarray(values, dtype=np.float64), decimals) + 0.0
+        self.arrays[name] = a
+        return {"$col": name}
+
+    def json(self) -> str:
+        """The columns as a JSON object (NaN as null)."""
+        parts = [
+            f"{json.dumps(k)}:{json.dumps(a.tolist(), allow_nan=True)}"
+            for k, a in self.arrays.items()
+        ]
+        return ("{" + ",".join(parts) + "}").replace("NaN", "null").replace("Infinity", "null")
+
+    def resolve(self, obj):
+        """``obj`` with every column reference replaced by its array (for drawing in Python)."""
+        if isinstance(obj, dict):
+            if set(obj) == {"$col"}:
+                return self.arrays[obj["$col"]]
+            return {k: self.resolve(v) for k, v in obj.items()}
+        if isinstance(obj, list):
+            return [self.resolve(v) for v in obj]
+        return obj
 
 
-def _y_ticks(lo, hi, height_px):
-    """Y tick values and labels for a panel of this height (matplotlib's default rule)."""
-    from limitlap._canvas import auto_bins, nice_ticks, tick_labels
+@dataclass
+class FigureSpec:
+    """One figure: plotly.js ``data`` and ``layout``, and what the page says about it."""
 
-    values = nice_ticks(lo, hi, auto_bins(height_px, _FONT_PT, 2.0, DPI))
-    return values, tick_labels(values)
+    key: str  # short name, also the PNG's file name without ".png"
+    title: str
+    caption: str
+    data: list
+    layout: dict
+    linked: bool = False  # x is the distance along the lap (zoomed with the others)
+    subplots: list = field(default_factory=lambda: ["xy"])
+    #: Layout keys replaced on a narrow screen (under 700 px), e.g. panels one above another.
+    narrow: dict | None = None
 
-
-def _left_margin(c, labels, pad_px: float = 6.0) -> float:
-    """Left margin that holds the widest y tick label and the y axis label. [px]."""
-    return c.text_width(labels, _FONT_PT) + _TICK_PX + _LABEL_PX + pad_px
-
-
-def _kmh(v_m_s):
-    return np.asarray(v_m_s, dtype=np.float64) / KMH_TO_M_S
-
-
-def _finite_max(*arrays) -> float:
-    vals = [np.asarray(a, dtype=np.float64) for a in arrays]
-    vals = [v[np.isfinite(v)] for v in vals]
-    vals = [v for v in vals if v.size]
-    return max((float(v.max()) for v in vals), default=1.0)
-
-
-def _axes(p, xt, yt, xlabel, ylabel, title, *, xlabels=None, ylabels=None, title_pt=_TITLE_PT):
-    """Axis lines, ticks and their labels, axis labels and the title of a panel."""
-    p.frame(colour=EDGE)
-    bottom = p.xticks(xt, xlabels, size_pt=_FONT_PT, colour=INK)
-    left = p.yticks(yt, ylabels, size_pt=_FONT_PT, colour=INK)
-    if xlabel:
-        p.xlabel(xlabel, bottom, size_pt=_FONT_PT)
-    if ylabel:
-        p.ylabel(ylabel, left, size_pt=_FONT_PT)
-    if title:
-        p.title(title, size_pt=title_pt)
-
-
-def _corner_bands(p, corners) -> None:
-    """Shade every other corner segment (both ends of the lap for one across the gate)."""
-    lo, hi = p.xlim
-    for i, c in enumerate(corners):
-        if i % 2:
-            continue
-        start, end = c["start_m"], c["end_m"]
-        if end >= start:
-            p.vband(start, end, BAND)
-        else:  # the segment runs across the gate: shade both ends of the lap
-            p.vband(start, max(hi, start), BAND)
-            p.vband(min(lo, end), end, BAND)
-
-
-def _corner_names(p, corners, label_y) -> None:
-    """Each corner's name above its apex; a name that would touch the one before it on its line goes up a line (measured in pixels, 4 px apart)."""
-    ends = [-math.inf, -math.inf]  # right end of the last name on each line [px]
-    for c in corners:
-        x = float(p.px(c["apex_m"]))
-        half = 0.5 * p.canvas.text_extent(c["name"], 9)[0]
-        clear = [x - half - ends[k] >= 4.0 for k in (0, 1)]
-        level = 0 if clear[0] else 1 if clear[1] else int(ends[1] < ends[0])
-        ends[level] = x + half
-        p.text(
-            c["apex_m"],
-            label_y,
-            c["name"],
-            dy=_pt(12 if level else 2),
-            size_pt=9,
-            colour=INK,
-            ha="center",
-            va="bottom",
-        )
-
-
-def _lap_panel(c, s, ylim, *, right=22, top=30, bottom=52):
-    """A panel over the lap's distance, its left margin fitted to its y tick labels; returns (panel, x ticks, y ticks)."""
-    from limitlap._canvas import Panel
-
-    height = c.height - top - bottom
-    yt, ylabels = _y_ticks(ylim[0], ylim[1], height)
-    left = _left_margin(c, ylabels)
-    p = Panel(c, left, top, c.width - left - right, height, (s[0], s[-1]), ylim)
-    return p, p.auto_xticks(_FONT_PT), yt
+    def as_json(self) -> dict:
+        """What the page's script reads."""
+        out = {
+            "key": self.key,
+            "data": self.data,
+            "layout": self.layout,
+            "linked": self.linked,
+            "subplots": self.subplots,
+        }
+        if self.narrow:
+            out["narrow"] = self.narrow
+        return out
 
 
 # --------------------------------------------------------------------------- along the lap
 
 
-def speed_figure(distance_m, speed_real_m_s, speed_ideal_m_s, corners) -> bytes:
-    """Speed along the lap, real against ideal, with the corners named at their apexes.
+@dataclass
+class LapAxis:
+    """The stations of the lap views, with the stretch before the gate put in front.
 
-    Parameters
-    ----------
-    distance_m : array-like
-        Stations along the lap from the gate. [m]
-    speed_real_m_s, speed_ideal_m_s : array-like
-        Driven and ideal speed at the stations. [m/s]
-    corners : list of dict
-        ``name``, ``start_m``, ``apex_m``, ``end_m`` [m] of each corner segment.
-
-    Returns
-    -------
-    bytes
-        PNG image, ``FIGURE_SIZE_PX["speed"]`` pixels.
+    A corner whose segment runs across the gate is shown from its start (a negative
+    distance: metres before the gate) to its end; the stations of that stretch are
+    repeated in front of the lap, so every corner is one unbroken range.
     """
-    from limitlap._canvas import Entry
 
-    c = _canvas("speed")
-    s = np.asarray(distance_m, dtype=np.float64)
-    v_ideal, v_real = _kmh(speed_ideal_m_s), _kmh(speed_real_m_s)
-    top = _finite_max(v_ideal, v_real)
-    p, xt, yt = _lap_panel(c, s, (0.0, top * 1.12))
-    _corner_bands(p, corners)
-    p.grid(xt, yt, GRID, 0.6)
-    p.line(s, v_ideal, IDEAL, 1.8)
-    p.line(s, v_real, REAL, 1.3)
-    _axes(
-        p, xt, yt, "distance from the start/finish gate [m]", "speed [km/h]", "Speed along the lap"
-    )
-    _corner_names(p, corners, top * 1.02)
-    c.legend(
-        [Entry("ideal (your envelope)", "line", IDEAL, 1.8), Entry("your lap", "line", REAL, 1.3)],
-        loc="lower right",
-        within=p.box,
-        ncols=2,
-    )
-    return _png(c, "speed")
+    order: np.ndarray  # station index of each point shown
+    x: np.ndarray  # distance shown [m]: negative before the gate
+    length_m: float
 
-
-def delta_figure(distance_m, time_delta_s, corners) -> bytes:
-    """Time delta along the lap: how far the driven lap is behind the ideal.
-
-    Parameters
-    ----------
-    distance_m : array-like
-        Stations along the lap. [m]
-    time_delta_s : array-like
-        Elapsed time of the driven lap minus that of the ideal at each station;
-        + = behind the ideal. [s]
-    corners : list of dict
-        Corner segments as for :func:`speed_figure`.
-
-    Returns
-    -------
-    bytes
-        PNG image, ``FIGURE_SIZE_PX["delta"]`` pixels.
-    """
-    from limitlap._canvas import Entry
-
-    c = _canvas("delta")
-    s = np.asarray(distance_m, dtype=np.float64)
-    d = np.asarray(time_delta_s, dtype=np.float64)
-    lo, hi = float(np.nanmin(d)), float(np.nanmax(d))
-    span = max(hi - min(lo, 0.0), 1e-3)
-    p, xt, yt = _lap_panel(c, s, (min(lo, 0.0) - 0.05 * span, hi + 0.18 * span))
-    _corner_bands(p, corners)
-    with np.errstate(invalid="ignore"):
-        p.fill_between(s, 0.0, d, REAL, alpha=0.18, where=d >= 0)
-        p.fill_between(s, 0.0, d, IDEAL, alpha=0.18, where=d < 0)
-    p.grid(xt, yt, GRID, 0.6)
-    p.line(s, d, REAL, 1.5)
-    p.hline(0.0, IDEAL, 1.2)
-    _axes(
-        p,
-        xt,
-        yt,
-        "distance from the start/finish gate [m]",
-        "time delta [s]",
-        "Time delta: your lap minus the ideal (rising = losing time)",
-    )
-    _corner_names(p, corners, hi + 0.06 * span)
-    c.legend(
-        [Entry("your lap behind the ideal", "line", REAL, 1.5), Entry("ideal", "line", IDEAL, 1.2)],
-        loc="lower right",
-        within=p.box,
-    )
-    return _png(c, "delta")
-
-
-def curvature_check_figure(
-    distance_m, curvature_line_1_m, curvature_ay_1_m, curvature_yaw_1_m, corners, title
-) -> bytes:
-    """Data check: the rebuilt line's curvature against a_y/v² and yaw rate/v.
-
-    The three are the same quantity measured three ways (κ = a_n/v² = χ̇/v; docs/methods.md, Driven line
-    identities), so they should lie on top of one another; where they part, the line, and
-    every result built on it, is less certain there.
-
-    Parameters
-    ----------
-    distance_m : array-like
-        Stations along the lap. [m]
-    curvature_line_1_m, curvature_ay_1_m, curvature_yaw_1_m : array-like
-        Curvature of the rebuilt line, from lateral acceleration and from yaw rate
-        (NaN where a channel is missing or the car is slow). [1/m]
-    corners : list of dict
-        Corner segments as for :func:`speed_figure`.
-    title : str
-        Figure title (the agreement figures).
-
-    Returns
-    -------
-    bytes
-        PNG image, ``FIGURE_SIZE_PX["check"]`` pixels.
-    """
-    from limitlap._canvas import Entry
-
-    c = _canvas("check")
-    s = np.asarray(distance_m, dtype=np.float64)
-    k_line = 1000.0 * np.asarray(curvature_line_1_m, dtype=np.float64)
-    finite = np.concatenate([k_line[np.isfinite(k_line)], [0.0]])
-    lo, hi = float(finite.min()), float(finite.max())
-    span = max(hi - lo, 1e-3)
-    p, xt, yt = _lap_panel(c, s, (lo - 0.08 * span, hi + 0.2 * span))
-    _corner_bands(p, corners)
-    p.grid(xt, yt, GRID, 0.6)
-    p.line(s, k_line, INK, 1.6)
-    entries = [Entry("rebuilt line (GNSS + inertial)", "line", INK, 1.6)]
-    for values, colour, label in (
-        (curvature_ay_1_m, ACCENT, "a_y / v²"),
-        (curvature_yaw_1_m, BEST, "yaw rate / v"),
-    ):
-        k = 1000.0 * np.asarray(values, dtype=np.float64)
-        if np.isfinite(k).any():
-            p.line(s, k, colour, 1.0, alpha=0.9)
-            entries.append(Entry(label, "line", colour, 1.0, alpha=0.9))
-    _axes(p, xt, yt, "distance from the start/finish gate [m]", "curvature [1/km] (+ left)", title)
-    _corner_names(p, corners, hi + 0.08 * span)
-    c.legend(entries, loc="lower right", within=p.box, ncols=3)
-    return _png(c, "check")
-
-
-def time_left_figure(corners) -> bytes:
-    """Time left per corner, ranked, largest on top.
-
-    Parameters
-    ----------
-    corners : list of dict
-        ``name`` and ``time_left_s`` [s] of each corner segment.
-
-    Returns
-    -------
-    bytes
-        PNG image, ``FIGURE_SIZE_PX["time_left"]`` pixels.
-    """
-    from limitlap._canvas import Panel
-    from limitlap.formatting import hundredths  # the figure's labels as the tables print them
-
-    c = _canvas("time_left")
-    ranked = sorted(corners, key=lambda r: -r["time_left_s"])
-    names = [r["name"] for r in ranked]
-    name_pt = 10 if len(names) <= 18 else 8
-    left = c.text_width(names, name_pt) + _TICK_PX + 8
-    values = np.array([r["time_left_s"] for r in ranked], dtype=np.float64)
-    n = len(ranked)
-    span = max(float(np.max(np.abs(values))) if values.size else 0.0, 1e-3)
-    xlim = (min(0.0, float(values.min(initial=0.0))) - 0.02 * span, span * 1.18)
-    # bars 0.7 high on rows 0..n-1, 5 % margins (matplotlib's default), largest on top
-    lo_y, hi_y = -0.35, max(n - 1, 0) + 0.35
-    m = 0.05 * (hi_y - lo_y)
-    top, bottom = 30, 52
-    p = Panel(
-        c, left, top, c.width - left - 12, c.height - top - bottom, xlim, (hi_y + m, lo_y - m)
-    )
-    xt = p.auto_xticks(_FONT_PT)
-    p.grid(xticks=xt, colour=GRID, lw_pt=0.6)
-    y = np.arange(n)
-    colours = [
-        REAL if i < 3 and v > 0 else "#e8a27a" if v > 0 else IDEAL for i, v in enumerate(values)
-    ]
-    p.barh(y, values, colours, height=0.7)
-    p.vline(0.0, EDGE, 0.8)
-    for yi, v in zip(y, values, strict=True):
-        p.text(
-            max(v, 0.0),
-            yi,
-            f"{hundredths(v):+.2f} s",
-            dx=_pt(4),
-            size_pt=9,
-            colour=INK,
-            va="center",
+    @classmethod
+    def of(cls, distance_m, length_m: float, corners) -> LapAxis:
+        """The axis for these stations and corners (see the class notes)."""
+        s = np.asarray(distance_m, dtype=np.float64)
+        pad = max(
+            [length_m - c["start_m"] for c in corners if c["end_m"] < c["start_m"]], default=0.0
         )
-    p.frame(colour=EDGE)
-    below = p.xticks(xt, size_pt=_FONT_PT, colour=INK)
-    p.yticks(y, names, size_pt=name_pt, colour=INK)
-    p.xlabel("time left to the ideal [s]", below, size_pt=_FONT_PT)
-    p.title(
-        f"Time left per corner, ranked (total {values.sum():.2f} s; top three darker)",
-        size_pt=_TITLE_PT,
+        before = np.flatnonzero(s >= length_m - pad) if pad > 0 else np.array([], dtype=np.int64)
+        order = np.concatenate([before, np.arange(s.size)])
+        x = np.concatenate([s[before] - length_m, s])
+        return cls(order, x, float(length_m))
+
+    def corner_range_m(self, corner) -> tuple[float, float]:
+        """(from, to) of a corner's segment on this axis. [m]."""
+        start, end = corner["start_m"], corner["end_m"]
+        return (start - self.length_m, end) if end < start else (start, end)
+
+
+def _axis(title: str, **kw) -> dict:
+    out = {
+        "title": {"text": title, "standoff": 6},
+        "showgrid": True,
+        "gridcolor": GRID,
+        "zeroline": False,
+        "linecolor": "#999999",
+        "ticks": "outside",
+        "ticklen": 4,
+        "tickcolor": "#999999",
+        "automargin": True,
+    }
+    out.update(kw)
+    return out
+
+
+def _layout(height: int, **kw) -> dict:
+    out = {
+        "height": height,
+        "margin": {"l": 64, "r": 16, "t": 28, "b": 44},
+        "font": {"family": FONT, "size": 12, "color": INK},
+        "paper_bgcolor": "#ffffff",
+        "plot_bgcolor": "#ffffff",
+        "showlegend": True,
+        "legend": {
+            "orientation": "h",
+            "x": 0,
+            "xanchor": "left",
+            "y": 1.0,
+            "yanchor": "bottom",
+            "font": {"size": 11},
+        },
+    }
+    out.update(kw)
+    return out
+
+
+def _distance_title(units: Units) -> str:
+    return f"distance from the gate [{units.distance}]"
+
+
+def _corner_marks(axis: LapAxis, corners, units: Units, *, yref: str = "paper"):
+    """Shapes shading every other corner segment and its name at the apex."""
+    shapes, notes = [], []
+    k = 1.0 / units.m_per_distance
+    for i, c in enumerate(corners):
+        lo, hi = axis.corner_range_m(c)
+        pieces = [(lo, hi)]
+        if lo < 0:  # also shade its end after the gate and its start before the lap's end
+            pieces += [(lo + axis.length_m, axis.length_m)]
+        if i % 2 == 0:
+            shapes += [
+                {
+                    "type": "rect",
+                    "xref": "x",
+                    "yref": yref,
+                    "x0": a * k,
+                    "x1": b * k,
+                    "y0": 0,
+                    "y1": 1,
+                    "fillcolor": BAND,
+                    "line": {"width": 0},
+                    "layer": "below",
+                }
+                for a, b in pieces
+            ]
+        near = notes and abs(c["apex_m"] * k - notes[-1]["x"]) < 0.025 * axis.length_m * k
+        notes.append(
+            {
+                "x": c["apex_m"] * k,
+                "y": 0.92 if near and notes[-1]["y"] == 1.0 else 1.0,
+                "xref": "x",
+                "yref": yref,
+                "yanchor": "top",
+                "text": c["name"],
+                "showarrow": False,
+                "font": {"size": 10, "color": INK},
+            }
+        )
+    return shapes, notes
+
+
+def _lap_layout(height: int, axis: LapAxis, corners, units: Units, ytitle: str, **yaxis) -> dict:
+    k = 1.0 / units.m_per_distance
+    shapes, notes = _corner_marks(axis, corners, units)
+    return _layout(
+        height,
+        hovermode="x unified",
+        xaxis=_axis(_distance_title(units), range=[0.0, axis.length_m * k]),
+        yaxis=_axis(ytitle, **yaxis),
+        shapes=shapes,
+        annotations=notes,
     )
-    return _png(c, "time_left")
+
+
+def _line(x, y, name: str, colour: str, width: float, **kw) -> dict:
+    trace = {
+        "type": "scatter",
+        "mode": "lines",
+        "x": x,
+        "y": y,
+        "name": name,
+        "line": {"color": colour, "width": width},
+    }
+    trace.update(kw)
+    return trace
+
+
+@dataclass
+class LapData:
+    """What the lap views draw: the view's arrays as shown, in the page's units."""
+
+    axis: LapAxis
+    x: dict  # column reference of the distance shown
+    corners: list
+    units: Units
+    lap_name: str
+    every: int = 1  # the session's other laps: every n-th point
+    x_laps: dict | None = None  # column reference of their distance
+
+
+#: The session's other laps are drawn every this many metres (a speed trace is smooth
+#: at that step; 40 laps of a long session stay a small part of the page). [m]
+OTHER_LAP_STEP_M = 4.0
+
+
+def lap_data(cols: Columns, v, units: Units) -> LapData:
+    """The distance axis of the lap views, stored once in ``cols``."""
+    axis = LapAxis.of(v.distance_m, v.length_m, v.corners)
+    decimals = 1 if units.distance == "m" else 0
+    x = cols.add("x", units.distance_value(axis.x), decimals)
+    s = np.asarray(v.distance_m, dtype=np.float64)
+    spacing = float(np.median(np.diff(s))) if s.size > 1 else 1.0
+    every = max(1, round(OTHER_LAP_STEP_M / max(spacing, 1e-9)))
+    x_laps = cols.add("x_laps", units.distance_value(axis.x[::every]), decimals)
+    return LapData(axis, x, v.corners, units, f"lap {v.lap_number}", every, x_laps)
+
+
+def _series(cols: Columns, d: LapData, name: str, values, decimals: int) -> dict:
+    return cols.add(name, np.asarray(values, dtype=np.float64)[d.axis.order], decimals)
+
+
+def _other_lap(cols: Columns, d: LapData, key: str, lap, values, decimals: int) -> dict:
+    """One of the session's other laps as a grey trace, off until switched on."""
+    y = cols.add(
+        f"{key}_lap{lap.number}",
+        np.asarray(values, dtype=np.float64)[d.axis.order[:: d.every]],
+        decimals,
+    )
+    return _line(
+        d.x_laps,
+        y,
+        f"lap {lap.number}",
+        OTHER_LAPS,
+        1.0,
+        visible="legendonly",
+        meta={"lap": lap.number},
+    )
+
+
+def speed_figure(cols: Columns, d: LapData, v, other_laps=()) -> FigureSpec:
+    """Speed along the lap: the ideal, your lap and (switched off at first) the other laps."""
+    u = d.units
+    data = [
+        _line(
+            d.x,
+            _series(cols, d, "speed_ideal", u.speed_value(v.speed_ideal_m_s), 1),
+            "ideal (your envelope on your line)",
+            IDEAL,
+            2.0,
+        ),
+        _line(
+            d.x,
+            _series(cols, d, "speed_lap", u.speed_value(v.speed_real_m_s), 1),
+            f"{d.lap_name} (analysed)",
+            LAP,
+            2.0,
+        ),
+    ]
+    data += [
+        _other_lap(cols, d, "speed", lap, u.speed_value(lap.speed_m_s), 1) for lap in other_laps
+    ]
+    layout = _lap_layout(HEIGHT_PX["speed"], d.axis, d.corners, u, f"speed [{u.speed}]")
+    return FigureSpec(
+        "speed",
+        "Speed along the lap",
+        "Your lap against the ideal on your own line. The session's other laps can be "
+        "switched on (legend or the lap switches above); their distance is scaled to this "
+        "lap's length.",
+        data,
+        layout,
+        linked=True,
+    )
+
+
+def delta_figure(cols: Columns, d: LapData, v, other_laps=()) -> FigureSpec:
+    """Time delta along the lap: where the ideal pulls away (red) or falls back (blue)."""
+    delta = np.asarray(v.time_delta_s, dtype=np.float64)
+    with np.errstate(invalid="ignore"):
+        behind, ahead = np.maximum(delta, 0.0), np.minimum(delta, 0.0)
+    zero = cols.add("zero", np.zeros(d.axis.order.size), 0)
+    data = [
+        _line(
+            d.x,
+            _series(cols, d, "delta_behind", behind, 3),
+            "behind the ideal (time lost)",
+            LOSS,
+            0.0,
+            fill="tozeroy",
+            fillcolor=rgba(LOSS, 0.25),
+            hoverinfo="skip",
+        ),
+        _line(
+            d.x,
+            _series(cols, d, "delta_ahead", ahead, 3),
+            "ahead of the ideal (time gained)",
+            GAIN,
+            0.0,
+            fill="tozeroy",
+            fillcolor=rgba(GAIN, 0.25),
+            hoverinfo="skip",
+        ),
+        _line(d.x, zero, "ideal (0 s)", IDEAL, 1.2),
+        _line(d.x, _series(cols, d, "delta_lap", delta, 3), f"{d.lap_name} (analysed)", LAP, 2.0),
+    ]
+    data += [_other_lap(cols, d, "delta", lap, lap.time_delta_s, 3) for lap in other_laps]
+    layout = _lap_layout(
+        HEIGHT_PX["delta"], d.axis, d.corners, d.units, "time delta [s] (+ = behind)"
+    )
+    return FigureSpec(
+        "time_delta",
+        "Time delta: your lap minus the ideal",
+        "Rising: the ideal pulls away (time lost, red); falling: you gain on it (blue).",
+        data,
+        layout,
+        linked=True,
+    )
+
+
+def pedals_figure(cols: Columns, d: LapData, real: dict, ideal: dict) -> FigureSpec:
+    """Brake and throttle along the lap, real against ideal, in two rows on one axis."""
+    data = []
+    for key, yaxis, decimals in (("brake", "y", 1), ("throttle", "y2", 1)):
+        for who, colour, width in ((ideal, IDEAL, 1.6), (real, LAP, 1.4)):
+            tag = "ideal" if who is ideal else "lap"
+            trace = _line(
+                d.x,
+                _series(cols, d, f"{key}_{tag}", 100.0 * np.asarray(who[key]), decimals),
+                who[f"{key}_label"],
+                colour,
+                width,
+                yaxis=yaxis,
+            )
+            if key == "throttle":
+                trace["line"]["dash"] = "dot" if who is ideal else "solid"
+            data.append(trace)
+    layout = _lap_layout(HEIGHT_PX["pedals"], d.axis, d.corners, d.units, "brake [%]")
+    layout["yaxis"].update(domain=[0.54, 1.0], range=[-5, 110])
+    layout["yaxis2"] = _axis("throttle [%]", domain=[0.0, 0.46], range=[-5, 110], anchor="x")
+    layout["xaxis"]["anchor"] = "y2"
+    layout["hoversubplots"] = "axis"
+    for s in layout["shapes"]:
+        s["yref"] = "paper"
+    return FigureSpec(
+        "pedals",
+        "Brake and throttle",
+        "Your pedals (or, without a pedal channel, the share of the limit your "
+        "acceleration needs) against the share of the limit the ideal uses.",
+        data,
+        layout,
+        linked=True,
+        subplots=["xy", "xy2"],
+    )
+
+
+def curvature_check_figure(cols: Columns, d: LapData, v, title: str) -> FigureSpec:
+    """Data check: the rebuilt line's curvature against a_y/v² and yaw rate/v."""
+    check = v.curvature_check
+    data = [
+        _line(
+            d.x,
+            _series(cols, d, "k_line", 1000.0 * v.curvature_1_m, 3),
+            "rebuilt line (GNSS + inertial)",
+            "#555555",
+            1.6,
+        )
+    ]
+    for values, colour, label, key in (
+        (check.from_accel_lat_1_m, CHECK_AY, "a_y / v²", "k_ay"),
+        (check.from_yaw_rate_1_m, CHECK_YAW, "yaw rate / v", "k_yaw"),
+    ):
+        values = np.asarray(values, dtype=np.float64)
+        if np.isfinite(values).any():
+            data.append(_line(d.x, _series(cols, d, key, 1000.0 * values, 3), label, colour, 1.0))
+    layout = _lap_layout(
+        HEIGHT_PX["check"], d.axis, d.corners, d.units, "curvature [1/km] (+ left)"
+    )
+    return FigureSpec(
+        "data_check",
+        title,
+        "The rebuilt line's curvature against lateral acceleration / v² and yaw rate / v. "
+        "They measure the same thing and should lie on one another; where they part, the "
+        "line and every result on it are less certain.",
+        data,
+        layout,
+        linked=True,
+    )
+
+
+# --------------------------------------------------------------------------- map
 
 
 def time_loss_rate(distance_m, time_delta_s, *, window_m: float = 20.0, closed: bool = True):
@@ -477,303 +563,590 @@ def time_loss_rate(distance_m, time_delta_s, *, window_m: float = 20.0, closed: 
     return np.convolve(rate, kernel, mode="same")
 
 
-def _loss_colours():
-    """256 colours of the map's diverging scale (blue, grey, orange, linear between)."""
-    from limitlap._canvas import rgb
+def even_ticks(limit: float) -> tuple[float, list[float]]:
+    """A symmetric scale about zero with even ticks: (the scale's end, its ticks).
 
-    nodes = np.array([rgb(h) for h in (IDEAL, "#9cc3dc", "#e6e6e6", "#f0b07a", REAL, "#6b2b00")])
-    t = (np.arange(256) + 0.0) / 255.0
-    pos = np.linspace(0.0, 1.0, nodes.shape[0])
-    return np.column_stack([np.interp(t, pos, nodes[:, k]) for k in range(3)])
+    The end is the next multiple of a 1-2-2.5-5 step at or above ``limit``, with two to
+    four steps each side of zero, so zero sits in the middle and every step is equal.
 
-
-def _extent(k, lo, hi, anchors, half):
-    """(low edge, spread) [px] of the padded line extent [lo, hi] [m] and of the name boxes (anchors [m] +- half [px]) at a scale of ``k`` px/m."""
-    a = np.concatenate([[lo, hi], np.asarray(anchors, dtype=np.float64)])
-    w = np.concatenate([[0.0, 0.0], np.asarray(half, dtype=np.float64)])
-    low = float(np.min(k * a - w))
-    return low, float(np.max(k * a + w)) - low
-
-
-def _fit_scale(lo, hi, anchors, half, length_px):
-    """Largest scale [px/m] at which the padded line extent and the name boxes fit in ``length_px`` (see :func:`_extent`); their spread grows with the scale, so bisect."""
-    k_lo, k_hi = 0.0, length_px / max(hi - lo, 1e-9)
-    if _extent(k_hi, lo, hi, anchors, half)[1] <= length_px:
-        return k_hi
-    for _ in range(60):
-        mid = 0.5 * (k_lo + k_hi)
-        if _extent(mid, lo, hi, anchors, half)[1] <= length_px:
-            k_lo = mid
-        else:
-            k_hi = mid
-        if (k_hi - k_lo) * (hi - lo) < 1e-2:  # a hundredth of a pixel over the map
-            break
-    return k_lo
-
-
-def _arrow(c, x0, y0, x1, y1, colour, lw_pt):
-    """An open arrow from (x0, y0) to (x1, y1) [px], ends 2 pt short, head 4.4 pt long and 2.2 pt each side (matplotlib's "->" at 11 pt)."""
-    length = math.hypot(x1 - x0, y1 - y0)
-    if length < 1e-9:
-        return
-    ux, uy = (x1 - x0) / length, (y1 - y0) / length
-    shrink = _pt(2.0)
-    ax_, ay_ = x0 + shrink * ux, y0 + shrink * uy
-    bx, by = x1 - shrink * ux, y1 - shrink * uy
-    c.polyline([ax_, bx], [ay_, by], colour, lw_pt, cap="butt")
-    hl, hw = _pt(4.4), _pt(2.2)
-    c.polyline(
-        [bx - hl * ux - hw * uy, bx, bx - hl * ux + hw * uy],
-        [by - hl * uy + hw * ux, by, by - hl * uy - hw * ux],
-        colour,
-        lw_pt,
-        cap="butt",
-        join="miter",
-    )
-
-
-def map_figure(x_m, y_m, loss_rate_s_m, corners, distance_m) -> bytes:
-    """Map of the line coloured by where time is left (local time-loss rate).
-
-    Parameters
-    ----------
-    x_m, y_m : array-like
-        Line position, east and north. [m]
-    loss_rate_s_m : array-like
-        Time lost per metre, + = losing on the ideal (see :func:`time_loss_rate`). [s/m]
-    corners : list of dict
-        ``name`` and ``apex_m`` [m] of each corner, labelled on the map.
-    distance_m : array-like
-        Stations' distance, to place the labels. [m]
-
-    Returns
-    -------
-    bytes
-        PNG image, ``FIGURE_SIZE_PX["map"]`` pixels.
+    >>> even_ticks(0.37)
+    (0.4, [-0.4, -0.2, 0.0, 0.2, 0.4])
+    >>> even_ticks(1.3)[1]
+    [-1.5, -1.0, -0.5, 0.0, 0.5, 1.0, 1.5]
     """
-    from limitlap._canvas import Box, Entry, Panel, auto_bins, nice_ticks, tick_labels
+    limit = max(float(limit), 1e-6)
+    step = limit / 3.0
+    mag = 10.0 ** math.floor(math.log10(step))
+    step = next(m * mag for m in (1.0, 2.0, 2.5, 5.0, 10.0) if m * mag >= step - 1e-12)
+    n = max(1, math.ceil(limit / step - 1e-9))
+    end = round(n * step, 10)
+    ticks = [round(i * step, 10) + 0.0 for i in range(-n, n + 1)]
+    return end, ticks
 
-    c = _canvas("map")
-    x = np.asarray(x_m, dtype=np.float64)
-    y = np.asarray(y_m, dtype=np.float64)
-    rate_ms_m = np.asarray(loss_rate_s_m, dtype=np.float64) * 1e3  # [ms/m] for the scale
-    finite = rate_ms_m[np.isfinite(rate_ms_m)]
-    lim = max(float(np.percentile(finite, 98)) if finite.size else 1.0, 1e-3)
-    gain = -finite[finite < 0]
-    # The gaining side of the scale only as long as the data needs (at least a quarter).
-    lim_gain = max(float(np.percentile(gain, 98)) if gain.size else 0.0, 0.25 * lim)
 
-    # Names on the outside of each bend (the right-hand normal of a left bend, +kappa),
-    # 4 % of the map's span from the apex.
-    s = np.asarray(distance_m, dtype=np.float64)
-    span = max(np.ptp(x), np.ptp(y))
+def _outside_points(x, y, s, corners, span):
+    """Where each corner's name goes on the map: 4 % of the map's span outside its apex."""
     tx, ty = np.gradient(x), np.gradient(y)
     kappa = np.gradient(np.unwrap(np.arctan2(ty, tx))) / np.maximum(np.hypot(tx, ty), 1e-9)
-    names, nx, ny = [], [], []
-    for corner in corners:
-        i = int(np.argmin(np.abs(s - corner["apex_m"])))
+    out = []
+    for c in corners:
+        i = int(np.argmin(np.abs(s - c["apex_m"])))
         norm = math.hypot(tx[i], ty[i]) or 1.0
-        side = -1.0 if kappa[i] >= 0 else 1.0
+        side = -1.0 if kappa[i] >= 0 else 1.0  # the outside of a left bend is to the right
         off = 0.04 * span
-        names.append(str(corner["name"]))
-        nx.append(x[i] + off * (-ty[i] / norm * side))
-        ny.append(y[i] + off * (tx[i] / norm * side))
-    extents = [c.text_extent(n, 10, "bold") for n in names]
-    half_w = np.array([0.5 * e[0] + 1.0 for e in extents])
-    half_h = np.array([0.5 * (e[1] + e[2]) + 1.0 for e in extents])
+        out.append(
+            (x[i] + off * (-ty[i] / norm * side), y[i] + off * (tx[i] / norm * side), c["name"])
+        )
+    return out
 
-    # Equal scales on both axes, as large as the map area allows with 8 % of the line's
-    # span as margin each side and every name inside.
-    box = Box(30.0, 30.0, c.width - 30.0, c.height - 100.0)
-    mx, my = 0.08 * np.ptp(x), 0.08 * np.ptp(y)
-    lo_x, hi_x = x.min() - mx, x.max() + mx
-    lo_y, hi_y = y.min() - my, y.max() + my
-    k = min(
-        _fit_scale(lo_x, hi_x, nx, half_w, box.width),
-        _fit_scale(lo_y, hi_y, ny, half_h, box.height),
+
+def map_figure(cols: Columns, v, units: Units) -> FigureSpec:
+    """The line coloured by the local rate of time loss; red losing, blue gaining."""
+    k = 1.0 / units.m_per_distance
+    rate = time_loss_rate(v.distance_m, v.time_delta_s) * 1e3 * units.m_per_distance  # ms/unit
+    every = max(1, math.ceil(np.asarray(v.distance_m).size / MAP_POINTS))
+    x, y = np.asarray(v.x_m)[::every] * k, np.asarray(v.y_m)[::every] * k
+    s, rate = np.asarray(v.distance_m)[::every], rate[::every]
+    finite = np.abs(rate[np.isfinite(rate)])
+    end, ticks = even_ticks(float(np.percentile(finite, 98)) if finite.size else 0.1)
+    xs = cols.add("map_x", x, 1)
+    ys = cols.add("map_y", y, 1)
+    span = max(np.ptp(x), np.ptp(y), 1.0)
+    unit = f"ms/{units.distance}"
+    data = [
+        _line(
+            cols.add("map_x_closed", np.append(x, x[0]), 1),
+            cols.add("map_y_closed", np.append(y, y[0]), 1),
+            "your line",
+            "#C8C8C8",
+            9.0,
+            hoverinfo="skip",
+        ),
+        _line(
+            [], [], "stretch shown in the other views", STRETCH, 14.0, hoverinfo="skip", opacity=0.9
+        ),
+        {
+            "type": "scatter",
+            "mode": "markers",
+            "x": xs,
+            "y": ys,
+            "name": "time lost per " + units.distance,
+            "showlegend": False,  # the colour bar under the map is its legend
+            "customdata": cols.add("map_s", s * k, 1),
+            "hovertemplate": f"%{{customdata}} {units.distance}<br>%{{marker.color:.2f}} {unit}"
+            "<extra></extra>",
+            "marker": {
+                "color": cols.add("map_rate", np.clip(rate, -end, end), 3),
+                "colorscale": LOSS_SCALE,
+                "cmin": -end,
+                "cmax": end,
+                "cmid": 0.0,
+                "size": 5,
+                "showscale": True,
+                "colorbar": {
+                    "orientation": "h",
+                    "x": 0.5,
+                    "xanchor": "center",
+                    "y": -0.02,
+                    "yanchor": "top",
+                    "len": 0.8,
+                    "thickness": 14,
+                    "tickmode": "array",
+                    "tickvals": ticks,
+                    "ticktext": [f"{t:+g}" if t else "0" for t in ticks],
+                    "title": {
+                        "text": f"time lost [{unit}]: red losing, blue gaining",
+                        "side": "top",
+                    },
+                },
+            },
+        },
+        {
+            "type": "scatter",
+            "mode": "markers",
+            "x": [float(x[0])],
+            "y": [float(y[0])],
+            "name": "start/finish",
+            "marker": {"symbol": "square", "size": 11, "color": INK},
+            "hoverinfo": "name",
+        },
+    ]
+    j = min(max(int(np.searchsorted(s, s[0] + 0.04 * (s[-1] - s[0]))), 1), x.size - 1)
+    notes = [
+        {
+            "x": float(x[j]),
+            "y": float(y[j]),
+            "ax": float(x[0]),
+            "ay": float(y[0]),
+            "xref": "x",
+            "yref": "y",
+            "axref": "x",
+            "ayref": "y",
+            "showarrow": True,
+            "arrowhead": 2,
+            "arrowwidth": 1.5,
+            "arrowcolor": INK,
+            "text": "",
+        }
+    ]
+    notes += [
+        {
+            "x": float(nx),
+            "y": float(ny),
+            "text": f"<b>{name}</b>",
+            "showarrow": False,
+            "font": {"size": 11, "color": INK},
+        }
+        for nx, ny, name in _outside_points(x, y, s, v.corners, span)
+    ]
+    pad = 0.08 * span
+    layout = _layout(
+        HEIGHT_PX["map"],
+        hovermode="closest",
+        dragmode="select",
+        margin={"l": 8, "r": 8, "t": 28, "b": 70},
+        xaxis={
+            "visible": False,
+            "range": [float(x.min() - pad), float(x.max() + pad)],
+            "constrain": "domain",
+        },
+        yaxis={
+            "visible": False,
+            "range": [float(y.min() - pad), float(y.max() + pad)],
+            "scaleanchor": "x",
+            "scaleratio": 1,
+        },
+        annotations=notes,
     )
-    low_x, spread_x = _extent(k, lo_x, hi_x, nx, half_w)
-    low_y, spread_y = _extent(k, lo_y, hi_y, ny, half_h)
-    x0 = (low_x - 0.5 * (box.width - spread_x)) / k  # the content centred in the box
-    y0 = (low_y - 0.5 * (box.height - spread_y)) / k
-    p = Panel(
-        c,
-        box.x0,
-        box.y0,
-        box.width,
-        box.height,
-        (x0, x0 + box.width / k),
-        (y0, y0 + box.height / k),
+    return FigureSpec(
+        "map",
+        "Where the time is left on the lap",
+        "The line coloured by the local rate of time loss: red where the ideal pulls away, "
+        "blue where you gain on it, white where you are level (the scale is centred on "
+        "zero). The arrow shows the direction of travel from the start/finish square. Drag "
+        "a box on the map to show that stretch in the other views.",
+        data,
+        layout,
     )
-    X, Y = p.px(x), p.py(y)
-    c.polyline(np.r_[X, X[0]], np.r_[Y, Y[0]], "#bbbbbb", 9.0, cap="round")
-    colours = _loss_colours()
-    clipped = np.clip(np.nan_to_num(rate_ms_m, nan=0.0), -lim_gain, lim)
-    frac = np.interp(clipped, [-lim_gain, 0.0, lim], [0.0, 0.5, 1.0])
-    group = np.minimum((frac * 64).astype(np.int64), 63)  # 64 shades: 4 of the 256 each
-    # segment i runs from point i to point i+1 (the last one back to the first)
-    Xc, Yc = np.r_[X, X[0]], np.r_[Y, Y[0]]
-    change = np.flatnonzero(group[1:] != group[:-1]) + 1
-    run_start = np.r_[0, change]
-    run_stop = np.r_[change, group.size]
-    run_group = group[run_start]
-    for g in np.unique(run_group):
-        sel = run_group == g
-        shade = colours[4 * g : 4 * g + 4].mean(axis=0)
-        c.runs(Xc, Yc, run_start[sel], run_stop[sel] + 1, shade, 5.5, cap="round")
-    for name, ax_, ay_ in zip(names, nx, ny, strict=True):
-        p.text(ax_, ay_, name, size_pt=10, weight="bold", colour=INK, ha="center", va="center")
-    c.markers([X[0]], [Y[0]], "s", _pt(9), INK)
-    if x.size > 1:
-        j = int(np.searchsorted(s, s[0] + 0.04 * (s[-1] - s[0])))  # 4 % of the lap on
-        j = min(max(j, 1), x.size - 1)
-        _arrow(c, X[0], Y[0], X[j], Y[j], INK, 1.5)
-    p.title("Where the time is left on the lap", size_pt=_TITLE_PT)
-    c.legend(
-        [Entry("start/finish", "marker", INK, marker="s", size_px=_pt(9))],
-        loc="upper right",
-        within=p.box,
-        title="arrow: direction of travel",
-        title_size_pt=9,
+
+
+# --------------------------------------------------------------------------- per corner
+
+
+def time_left_figure(corners) -> FigureSpec:
+    """Time left per corner, ranked, largest on top; red where the ideal is quicker."""
+    ranked = sorted(corners, key=lambda r: -r["time_left_s"])
+    groups = (
+        ("time left (the ideal is quicker)", LOSS, lambda t: t > 0),
+        ("quicker than the ideal", GAIN, lambda t: t < 0),
+        ("even (0.00 s)", EVEN, lambda t: t == 0),
     )
-    bar = Box(0.15 * c.width, c.height - 66 - 17, 0.85 * c.width, c.height - 66)
-    ticks = nice_ticks(-lim_gain, lim, auto_bins(bar.width, _FONT_PT, 3.0, DPI))
-    c.colour_bar(
-        bar,
-        colours,
-        np.interp(ticks, [-lim_gain, 0.0, lim], [0.0, 0.5, 1.0]),
-        tick_labels(ticks),
-        "time lost per metre [ms/m]: orange = time left here, blue = gaining, grey = even",
-        size_pt=_FONT_PT,
+    data = []
+    for name, colour, keep in groups:
+        rows = [r for r in ranked if keep(_hundredths_value(r["time_left_s"]))]
+        if not rows:
+            continue
+        data.append(
+            {
+                "type": "bar",
+                "orientation": "h",
+                "name": name,
+                "x": [round(float(r["time_left_s"]), 3) for r in rows],
+                "y": [r["name"] for r in rows],
+                "text": [f"{signed_time(r['time_left_s'])} s" for r in rows],
+                "textposition": "outside",
+                "cliponaxis": False,
+                "marker": {"color": colour},
+                "hovertemplate": "%{y}: %{text}<extra></extra>",
+            }
+        )
+    total = sum(float(r["time_left_s"]) for r in ranked)
+    values = [abs(float(r["time_left_s"])) for r in ranked] or [0.0]
+    top = max(values) * 1.25 + 1e-3
+    lo = min([float(r["time_left_s"]) for r in ranked] + [0.0])
+    layout = _layout(
+        max(220, 26 * len(ranked) + 90),
+        hovermode="closest",
+        barmode="overlay",
+        bargap=0.3,
+        xaxis=_axis(
+            "time left to the ideal [s]",
+            range=[lo * 1.3 - 0.12 * top if lo < 0 else -0.02 * top, top],
+            zeroline=True,
+            zerolinecolor="#999999",
+        ),
+        yaxis=_axis(
+            "",
+            categoryorder="array",
+            categoryarray=[r["name"] for r in ranked],
+            autorange="reversed",
+            showgrid=False,
+        ),
     )
-    return _png(c, "map")
+    return FigureSpec(
+        "time_left",
+        f"Time left per corner, ranked (total {signed_time(total)} s)",
+        "Red: the ideal is quicker through the corner by that much; blue: you were quicker "
+        "than the ideal there; grey: level to the hundredth.",
+        data,
+        layout,
+    )
+
+
+def _hundredths_value(t: float) -> float:
+    """The time as shown, to 0.01 s (0 when it rounds to 0.00). [s]."""
+    return round(float(t), 2) + 0.0
 
 
 # --------------------------------------------------------------------------- g-g diagram
 
 
-def gg_figure(bands, fit_points=None) -> bytes:
-    """g-g diagram per speed band: envelope, the lap's samples, the grip left unused.
+#: At most this many of a band's samples are drawn as dots (every n-th); the hull and the
+#: counts use all of them.
+GG_DOTS_PER_BAND = 300
+#: At most this many points of the line are drawn as coloured dots on the map. [-]
+MAP_POINTS = 1200
 
-    Parameters
-    ----------
-    bands : list of limitlap.gg.GGBand
-        What each panel shows, computed by :func:`limitlap.gg.gg_bands`.
-    fit_points : list of dict, optional
-        Boundary points the envelope fit used, each with ``accel_lat_m_s2``,
-        ``accel_lon_m_s2`` and ``speed_m_s`` arrays; drawn as small crosses.
 
-    Returns
-    -------
-    bytes
-        PNG image, ``FIGURE_SIZE_PX["gg"]`` pixels.
-
-    Notes
-    -----
-    The envelope is drawn at the band's middle speed (solid) and its edges (dashed). The
-    shaded ring lies between the samples' reach (their convex hull) and the envelope at
-    the middle speed: grip the lap never asked for. Its share of the envelope's area is
-    in each panel's title.
-    """
-    from limitlap._canvas import Entry, Panel, auto_bins, nice_ticks
+def _gg_band_traces(b, i: int, fit) -> list:
+    """The traces of one speed band's panel."""
     from limitlap.gg import REACH_ANGLES_RAD
 
-    c = _canvas("gg")
-    angles = REACH_ANGLES_RAD
-    if fit_points:
-        fv, fy, fx = (
-            np.concatenate([np.asarray(fp[k], dtype=np.float64) for fp in fit_points])
-            for k in ("speed_m_s", "accel_lat_m_s2", "accel_lon_m_s2")
-        )
-    panels = []
-    lim = 0.0
-    for b in bands:
-        lo, hi = b.speed_lo_m_s, b.speed_hi_m_s
-        ey, ex = b.envelope_lat_m_s2 / G0_M_S2, b.envelope_lon_m_s2 / G0_M_S2
-        edges = [(lat / G0_M_S2, lon / G0_M_S2) for lon, lat in b.edge_boundaries]
-        sy, sx = b.sample_lat_m_s2 / G0_M_S2, b.sample_lon_m_s2 / G0_M_S2
-        title = f"{lo / KMH_TO_M_S:.0f}-{hi / KMH_TO_M_S:.0f} km/h"
-        ring = hull = None
-        if b.hull_lat_m_s2 is not None:
-            r_env, r_in = b.envelope_reach_m_s2 / G0_M_S2, b.sample_reach_m_s2 / G0_M_S2
-            # Ring between the samples' reach and the envelope: outer loop forward, inner
-            # loop back; the angles include both -pi and pi so the seam closes exactly.
-            ring = (
-                np.concatenate([r_env * np.cos(angles), (r_in * np.cos(angles))[::-1]]),
-                np.concatenate([r_env * np.sin(angles), (r_in * np.sin(angles))[::-1]]),
+    ax_x, ax_y = ("x", "y") if i == 0 else (f"x{i + 1}", f"y{i + 1}")
+    g = 1.0 / G0_M_S2
+    first = i == 0
+    common = {"xaxis": ax_x, "yaxis": ax_y, "showlegend": first}
+
+    def trace(name, **kw):
+        t = {"type": "scatter", "name": name, "legendgroup": name, **common}
+        t.update(kw)
+        return t
+
+    out = []
+    cos, sin = np.cos(REACH_ANGLES_RAD), np.sin(REACH_ANGLES_RAD)
+    if b.asked_reach_m_s2 is not None and b.sample_reach_m_s2 is not None:
+        outer = b.asked_reach_m_s2 * g
+        inner = np.minimum(b.sample_reach_m_s2 * g, outer)
+        ring_x = np.concatenate([outer * cos, (inner * cos)[::-1]])
+        ring_y = np.concatenate([outer * sin, (inner * sin)[::-1]])
+        out.append(
+            trace(
+                "grip not used where the ideal asks for it",
+                mode="lines",
+                x=_r(ring_x),
+                y=_r(ring_y),
+                fill="toself",
+                fillcolor=rgba(LOSS, 0.3),
+                line={"width": 0},
+                hoverinfo="skip",
             )
-            hull = (b.hull_lat_m_s2 / G0_M_S2, b.hull_lon_m_s2 / G0_M_S2)
-            title += f": {100 * b.unused_share:.0f} % of the envelope unused"
+        )
+    n = b.sample_lat_m_s2.size
+    step = max(1, math.ceil(n / GG_DOTS_PER_BAND))
+    out.append(
+        trace(
+            "your samples",
+            mode="markers",
+            x=_r(b.sample_lat_m_s2[::step] * g),
+            y=_r(b.sample_lon_m_s2[::step] * g),
+            marker={"color": LAP, "size": 3, "opacity": 0.35},
+            hoverinfo="skip",
+        )
+    )
+    if fit is not None and fit[0].size:
+        out.append(
+            trace(
+                "boundary points of the envelope fit",
+                mode="markers",
+                x=_r(fit[0] * g),
+                y=_r(fit[1] * g),
+                marker={
+                    "color": "#555555",
+                    "size": 6,
+                    "symbol": "x-thin",
+                    "line": {"width": 1.2, "color": "#555555"},
+                },
+                hoverinfo="skip",
+            )
+        )
+    if b.hull_lat_m_s2 is not None:
+        out.append(
+            trace(
+                "reach of your samples",
+                mode="lines",
+                x=_r(b.hull_lat_m_s2 * g),
+                y=_r(b.hull_lon_m_s2 * g),
+                line={"color": LAP, "width": 1.8},
+                hoverinfo="skip",
+            )
+        )
+    if b.asked_reach_m_s2 is not None:
+        r = np.where(b.asked_reach_m_s2 > 0, b.asked_reach_m_s2 * g, np.nan)
+        out.append(
+            trace(
+                "what the ideal asks for at these speeds",
+                mode="lines",
+                x=_r(r * cos),
+                y=_r(r * sin),
+                line={"color": IDEAL, "width": 1.2, "dash": "dot"},
+                hoverinfo="skip",
+            )
+        )
+    for j, (lon, lat) in enumerate(b.edge_boundaries):
+        out.append(
+            trace(
+                "envelope at the band's lowest and highest speed",
+                mode="lines",
+                x=_r(lat * g),
+                y=_r(lon * g),
+                line={"color": IDEAL, "width": 0.8, "dash": "dash"},
+                opacity=0.6,
+                hoverinfo="skip",
+                showlegend=first and j == 0,
+            )
+        )
+    out.append(
+        trace(
+            "envelope at the band's middle speed",
+            mode="lines",
+            x=_r(b.envelope_lat_m_s2 * g),
+            y=_r(b.envelope_lon_m_s2 * g),
+            line={"color": IDEAL, "width": 2.0},
+            hoverinfo="skip",
+        )
+    )
+    return out
+
+
+def _r(a, decimals: int = 3) -> list:
+    """A short array as a JSON-ready list, rounded, NaN as None."""
+    a = np.round(np.asarray(a, dtype=np.float64), decimals) + 0.0
+    return [None if not math.isfinite(x) else x for x in a.tolist()]
+
+
+def gg_title(b, units: Units) -> str:
+    """A band's panel title: its speeds and what the lap left unused there."""
+    lo, hi = units.speed_value(b.speed_lo_m_s), units.speed_value(b.speed_hi_m_s)
+    title = f"{lo:.0f}–{hi:.0f} {units.speed}"
+    if math.isfinite(b.unused_share):
+        title += f": {100 * b.unused_share:.0f} % unused"
+    elif b.hull_lat_m_s2 is not None:
+        title += ": the ideal does not run at these speeds"
+    if math.isfinite(b.beyond_share) and b.beyond_share >= 0.005:
+        title += f"<br>beyond the envelope in {100 * b.beyond_share:.0f} % of directions"
+    return title
+
+
+def gg_figure(bands, units: Units, fit_points=None) -> FigureSpec:
+    """g-g diagram per speed band: envelope, the lap's samples, the grip left unused."""
+    data, notes, layout_axes = [], [], {}
+    n = max(len(bands), 1)
+    gap = 0.04
+    width = (1.0 - gap * (n - 1)) / n
+    lim = 0.0
+    for i, b in enumerate(bands):
         fit = None
         if fit_points:
-            sel = (fv >= lo) & (fv < hi)
-            fit = (fy[sel] / G0_M_S2, fx[sel] / G0_M_S2)
-        panels.append((ey, ex, edges, sy, sx, ring, hull, fit, title))
-        lim = max(lim, float(np.max(np.abs(ey))), float(np.max(np.abs(ex))))
-    lim *= 1.08
-
-    # Square panels side by side, centred; below them the axis labels, then the legend.
-    n = len(bands)
-    left, right, top, bottom, gap = 62, 12, 48, 100, 24
-    avail_w, avail_h = c.width - left - right, c.height - top - bottom
-    side = min((avail_w - (n - 1) * gap) / n, avail_h)
-    x0 = left + 0.5 * (avail_w - n * side - (n - 1) * gap)
-    y_top = top + 0.5 * (avail_h - side)
-    xt = nice_ticks(-lim, lim, auto_bins(side, _FONT_PT, 3.0, DPI))
-    yt = nice_ticks(-lim, lim, auto_bins(side, _FONT_PT, 2.0, DPI))
-    used = set()
-    for i, (ey, ex, edges, sy, sx, ring, hull, fit, title) in enumerate(panels):
-        p = Panel(c, x0 + i * (side + gap), y_top, side, side, (-lim, lim), (-lim, lim))
-        # matplotlib's order: patches and markers, then the grid, then lines
-        if ring is not None:
-            p.canvas.polygon(p.px(ring[0]), p.py(ring[1]), UNUSED, alpha=0.45, clip=p.box)
-            used.update(("ring", "hull"))
-        p.scatter(sy, sx, "o", _pt(math.sqrt(5.0)), "#444444", alpha=0.4)
-        if fit is not None and fit[0].size:
-            p.scatter(fit[0], fit[1], "x", _pt(math.sqrt(14.0)), ACCENT, lw_pt=0.9)
-            used.add("fit")
-        p.grid(xt, yt, GRID, 0.6)
-        for ly, lx in edges:
-            p.line(ly, lx, IDEAL, 0.7, dash="--", alpha=0.45)
-        if hull is not None:
-            p.line(hull[0], hull[1], REAL, 1.2)
-        p.line(ey, ex, IDEAL, 1.8)
-        p.hline(0.0, "#999999", 0.6)
-        p.vline(0.0, "#999999", 0.6)
-        p.frame(colour=EDGE)
-        below = p.xticks(xt, size_pt=_FONT_PT, colour=INK)
-        p.xlabel("lateral [g] (+ left)", below, size_pt=_FONT_PT)
-        p_left = p.yticks(yt, size_pt=_FONT_PT, colour=INK, show_labels=(i == 0))
-        if i == 0:
-            p.ylabel("longitudinal [g] (+ forward)", p_left, size_pt=_FONT_PT)
-        p.title(title, size_pt=10, loc="center")
-    entries = []
-    if "ring" in used:
-        entries += [
-            Entry("grip not used", "patch", UNUSED, alpha=0.45),
-            Entry("reach of your samples", "line", REAL, 1.2),
-        ]
-    entries += [
-        Entry("envelope", "line", IDEAL, 1.8),
-        # markers three times their size in the panels, as the legend's markerscale
-        Entry("your samples", "marker", "#444444", alpha=0.4, size_px=3 * _pt(math.sqrt(5.0))),
-    ]
-    if "fit" in used:
-        entries.append(
-            Entry(
-                "fit points",
-                "marker",
-                ACCENT,
-                lw_pt=0.9,
-                marker="x",
-                size_px=3 * _pt(math.sqrt(14.0)),
+            fv, fy, fx = (
+                np.concatenate([np.asarray(fp[k], dtype=np.float64) for fp in fit_points])
+                for k in ("speed_m_s", "accel_lat_m_s2", "accel_lon_m_s2")
             )
+            sel = (fv >= b.speed_lo_m_s) & (fv < b.speed_hi_m_s)
+            fit = (fy[sel], fx[sel])
+        data += _gg_band_traces(b, i, fit)
+        lim = max(
+            lim,
+            float(np.max(np.abs(b.envelope_lat_m_s2))),
+            float(np.max(np.abs(b.envelope_lon_m_s2))),
         )
-    c.legend(entries, loc="lower center", ncols=len(entries))
-    return _png(c, "gg")
+        x0 = i * (width + gap)
+        sx = "" if i == 0 else str(i + 1)
+        layout_axes[f"xaxis{sx}"] = _axis(
+            "lateral [g] (+ left)",
+            domain=[x0, x0 + width],
+            anchor=f"y{sx}",
+            zeroline=True,
+            zerolinecolor="#AAAAAA",
+        )
+        layout_axes[f"yaxis{sx}"] = _axis(
+            "longitudinal [g] (+ forward)" if i == 0 else "",
+            anchor=f"x{sx}",
+            scaleanchor=f"x{sx}",
+            scaleratio=1,
+            zeroline=True,
+            zerolinecolor="#AAAAAA",
+            showticklabels=i == 0,
+        )
+        notes.append(
+            {
+                "text": gg_title(b, units),
+                "x": x0 + 0.5 * width,
+                "y": 1.0,
+                "xref": "paper",
+                "yref": "paper",
+                "yanchor": "bottom",
+                "showarrow": False,
+                "font": {"size": 11},
+            }
+        )
+    lim = 1.08 * lim / G0_M_S2
+    for ax in layout_axes.values():
+        ax["range"] = [-lim, lim]
+    layout = _layout(
+        HEIGHT_PX["gg"],
+        hovermode=False,
+        margin={"l": 64, "r": 16, "t": 48, "b": 44},
+        legend={"orientation": "h", "x": 0, "y": -0.18, "yanchor": "top", "font": {"size": 11}},
+        annotations=notes,
+        **layout_axes,
+    )
+    layout["height"] = HEIGHT_PX["gg"] + 60
+    narrow = _gg_narrow(layout, n)
+    return FigureSpec(
+        "gg",
+        "g-g diagram by speed band",
+        "Your lap's samples against the envelope. Grip is counted as unused only in the "
+        "directions and at the speeds the ideal lap on your line asks for (dotted line: "
+        "the reach of the ideal's own samples in the band), so a direction no corner "
+        "needs at these speeds counts nothing. The shaded area is that grip: asked for by "
+        "the ideal, not reached by your samples. Where your samples reach beyond the envelope "
+        "the title says in how many directions: the envelope is fitted with the sensors' "
+        "noise taken out, so noisy samples on the limit scatter a little outside it.",
+        data,
+        layout,
+        subplots=[("xy" if i == 0 else f"x{i + 1}y{i + 1}") for i in range(n)],
+        narrow=narrow,
+    )
 
 
-# --------------------------------------------------------------------------- corner detail
+def _gg_narrow(layout: dict, n: int) -> dict:
+    """The g-g layout on a narrow screen: one speed band a row, the legend below."""
+    row_px, legend_px = 330, 150
+    height = n * row_px + legend_px
+    plot = 1.0 - legend_px / height  # the rows' share of the paper, legend below
+    out = {"height": height, "margin": {"l": 56, "r": 10, "t": 40, "b": legend_px}}
+    notes = []
+    for i in range(n):
+        sx = "" if i == 0 else str(i + 1)
+        top = 1.0 - i / n
+        bottom = top - 1.0 / n + 0.12 / n
+        out[f"xaxis{sx}"] = {**layout[f"xaxis{sx}"], "domain": [0.0, 1.0]}
+        out[f"yaxis{sx}"] = {
+            **layout[f"yaxis{sx}"],
+            "domain": [bottom, top - 0.1 / n],
+            "showticklabels": True,
+            "title": {"text": "longitudinal [g]", "standoff": 6},
+        }
+        notes.append({**layout["annotations"][i], "x": 0.5, "y": top - 0.1 / n})
+    out["annotations"] = notes
+    out["legend"] = {**layout["legend"], "y": -0.02 * plot, "yanchor": "top"}
+    return out
+
+
+# --------------------------------------------------------------------------- best of laps
+
+
+def best_figure(corners, lap_time_s, best_time_s, ideal_time_s, lap_label) -> FigureSpec:
+    """Best of the driver's own laps beside the analysed lap and the limit."""
+    names = [r["name"] for r in corners]
+    above = [
+        t - ideal_time_s if t is not None and math.isfinite(t) else None
+        for t in (lap_time_s, best_time_s, ideal_time_s)
+    ]
+    whole = [lap_label, "best of your laps", "ideal"]
+    texts = [
+        lap_time(t, decimals=2) + (f" (+{a:.2f} s)" if a else "")
+        if a is not None
+        else NOT_AVAILABLE
+        for t, a in zip((lap_time_s, best_time_s, ideal_time_s), above, strict=True)
+    ]
+    data = [
+        {
+            "type": "bar",
+            "orientation": "h",
+            "name": name,
+            "x": [0.0 if a is None else round(a, 3)],
+            "y": [name],
+            "text": [text],
+            "textposition": "outside",
+            "cliponaxis": False,
+            "marker": {"color": colour},
+            "xaxis": "x",
+            "yaxis": "y",
+            "showlegend": False,
+            "hovertemplate": "%{y}: %{text}<extra></extra>",
+        }
+        for name, a, text, colour in zip(whole, above, texts, (LAP, BEST, IDEAL), strict=True)
+    ]
+    this = [round(r["actual_s"] - r["ideal_s"], 3) for r in corners]
+    best = [
+        round(r["best_s"] - r["ideal_s"], 3) if math.isfinite(r.get("best_s", math.nan)) else None
+        for r in corners
+    ]
+    data += [
+        {
+            "type": "bar",
+            "name": f"{lap_label} above the ideal",
+            "x": names,
+            "y": this,
+            "marker": {"color": LAP},
+            "xaxis": "x2",
+            "yaxis": "y2",
+            "hovertemplate": "%{x}: %{y:.2f} s<extra>" + lap_label + "</extra>",
+        },
+        {
+            "type": "bar",
+            "name": "your best segment above the ideal",
+            "x": names,
+            "y": best,
+            "marker": {"color": BEST},
+            "xaxis": "x2",
+            "yaxis": "y2",
+            "hovertemplate": "%{x}: %{y:.2f} s<extra>best</extra>",
+        },
+        {
+            "type": "scatter",
+            "mode": "lines",
+            "name": "ideal (0 s)",
+            "x": [names[0], names[-1]] if names else [],
+            "y": [0, 0],
+            "line": {"color": IDEAL, "width": 1.5},
+            "xaxis": "x2",
+            "yaxis": "y2",
+            "hoverinfo": "skip",
+        },
+    ]
+    top = max([a for a in above if a is not None] + [1e-3])
+    layout = _layout(
+        HEIGHT_PX["best"],
+        hovermode="closest",
+        barmode="group",
+        margin={"l": 120, "r": 16, "t": 48, "b": 60},
+        xaxis=_axis("time above the ideal lap [s]", domain=[0.0, 0.3], range=[0, top * 1.9]),
+        yaxis=_axis("", autorange="reversed", showgrid=False),
+        xaxis2=_axis(
+            "",
+            domain=[0.42, 1.0],
+            anchor="y2",
+            showgrid=False,
+            categoryorder="array",
+            categoryarray=names,
+        ),
+        yaxis2=_axis("time above the ideal [s]", anchor="x2"),
+        legend={"orientation": "h", "x": 0.42, "y": 1.0, "yanchor": "bottom", "font": {"size": 11}},
+    )
+    return FigureSpec(
+        "best_of_laps",
+        "Your best segments from the session beside the limit",
+        "Left: the whole lap; right: per corner, what you have already done against what "
+        "the grip allows.",
+        data,
+        layout,
+        subplots=["xy", "x2y2"],
+    )
+
+
+# --------------------------------------------------------------------------- corner detail (PNG)
 
 
 def _window(distance_m, start_m, end_m, length_m):
@@ -788,287 +1161,160 @@ def _window(distance_m, start_m, end_m, length_m):
     return idx, np.concatenate([s[first], s[second] + length_m])
 
 
-def detail_figure(corner, distance_m, length_m, real, ideal, caption="") -> bytes:
-    """Speed, brake and throttle over one corner, real against ideal.
+def detail_figure(corner, v, real: dict, ideal: dict, units: Units, key: str) -> FigureSpec:
+    """Speed, brake and throttle over one corner, real against ideal (the PNG pictures).
 
-    Parameters
-    ----------
-    corner : dict
-        ``name``, ``start_m``, ``apex_m``, ``end_m``, and where known
-        ``brake_points_actual_m``, ``brake_points_ideal_m`` (lists; or the first only,
-        ``brake_start_actual_m``, ``brake_start_ideal_m``) [m].
-    distance_m : array-like
-        Stations of the lap. [m]
-    length_m : float
-        Lap length, to unwrap a segment across the gate. [m]
-    real, ideal : dict
-        ``speed_m_s`` [m/s], ``brake`` and ``throttle`` as shares 0-1 [-] (NaN where
-        unknown), and ``brake_label`` / ``throttle_label`` saying what the share is of.
-    caption : str
-        The corner's plain-language line, printed as the title.
-
-    Returns
-    -------
-    bytes
-        PNG image, ``FIGURE_SIZE_PX["detail"]`` pixels.
+    The page shows the same over any corner by zooming its lap views to it.
     """
-    from limitlap._canvas import Entry, Panel
-
-    c = _canvas("detail")
-    idx, s = _window(distance_m, corner["start_m"], corner["end_m"], length_m)
+    idx, s = _window(v.distance_m, corner["start_m"], corner["end_m"], v.length_m)
     if idx.size < 2:
-        idx = np.arange(np.asarray(distance_m).size)
-        s = np.asarray(distance_m, dtype=np.float64)
-
-    def unwrap(x):
-        return x + length_m if x < s[0] - 1e-9 else x
-
-    v_ideal = _kmh(ideal["speed_m_s"][idx])
-    v_real = _kmh(real["speed_m_s"][idx])
-    shares = {
-        key: (100 * np.asarray(ideal[key])[idx], 100 * np.asarray(real[key])[idx])
-        for key in ("brake", "throttle")
-    }
-    # Three rows sharing the distance axis, heights 2.2 : 1 : 1, 12 px apart; the speed
-    # row's limits as matplotlib's automatic ones (5 % margins), the shares -5 to 110 %.
-    right, top, bottom, gap = 22, 28, 52, 12
-    unit = (c.height - top - bottom - 2 * gap) / 4.2
-    heights = (2.2 * unit, unit, unit)
-    lo = min(float(np.nanmin(v_ideal)), float(np.nanmin(v_real)))
-    hi = max(float(np.nanmax(v_ideal)), float(np.nanmax(v_real)))
-    pad = 0.05 * max(hi - lo, 1e-6)
-    ylims = [(lo - pad, hi + pad), (-5.0, 110.0), (-5.0, 110.0)]
-    ticks = [_y_ticks(a, b, h) for (a, b), h in zip(ylims, heights, strict=True)]
-    left = _left_margin(c, [t for _, labels in ticks for t in labels])
-    xlim = (s[0], s[-1])
-    panels, y = [], top
-    for h, yl in zip(heights, ylims, strict=True):
-        panels.append(Panel(c, left, y, c.width - left - right, h, xlim, yl))
-        y += h + gap
-    xt = panels[0].auto_xticks(_FONT_PT)
-    brakes = []
-    for key, colour, word, y_frac, va in (
-        ("ideal", IDEAL, "ideal brakes", 0.98, "top"),
-        ("actual", REAL, "you brake", 0.02, "bottom"),
-    ):
-        points = corner.get(f"brake_points_{key}_m")
-        if points is None:  # a record with the first brake point only
-            points = [corner.get(f"brake_start_{key}_m")]
-        for b in points:
-            if b is not None and np.isfinite(b):
-                brakes.append((unwrap(b), colour, word, y_frac, va))
-    apex = unwrap(corner["apex_m"])
+        idx = np.arange(np.asarray(v.distance_m).size)
+        s = np.asarray(v.distance_m, dtype=np.float64)
+    k = 1.0 / units.m_per_distance
+    x = _r(s * k, 1)
     rows = [
-        ("speed [km/h]", v_ideal, v_real, (1.8, 1.3), None),
-        ("brake [%]", *shares["brake"], (1.6, 1.2), "brake"),
-        ("throttle [%]", *shares["throttle"], (1.6, 1.2), "throttle"),
+        ("speed", "y", [0.5, 1.0], f"speed [{units.speed}]", units.speed_value),
+        ("brake", "y2", [0.26, 0.46], "brake [%]", lambda a: 100.0 * a),
+        ("throttle", "y3", [0.0, 0.2], "throttle [%]", lambda a: 100.0 * a),
     ]
-    for i, (p, (yt, ylabels), (ylabel, y_ideal, y_real, lws, key)) in enumerate(
-        zip(panels, ticks, rows, strict=True)
-    ):
-        p.grid(xt, yt, GRID, 0.6)
-        p.line(s, y_ideal, IDEAL, lws[0])
-        p.line(s, y_real, REAL, lws[1])
-        for b, colour, *_ in brakes:
-            p.vline(b, colour, 1.0, dash="--")
-        if i == 0:
-            p.vline(apex, "#777777", 0.8, dash=":")
-        p.frame(colour=EDGE)
-        last = i == len(panels) - 1
-        below = p.xticks(
-            xt,
-            [f"{x % length_m:.0f}" for x in xt],  # past the gate, distances from the gate
-            size_pt=_FONT_PT,
-            colour=INK,
-            show_labels=last,
-        )
-        p.ylabel(ylabel, p.yticks(yt, ylabels, size_pt=_FONT_PT, colour=INK), size_pt=_FONT_PT)
-        if last:
-            p.xlabel("distance from the start/finish gate [m]", below, size_pt=_FONT_PT)
-        if key is not None:
-            c.legend(
-                [
-                    Entry(ideal.get(f"{key}_label", "ideal"), "line", IDEAL, lws[0]),
-                    Entry(real.get(f"{key}_label", "your lap"), "line", REAL, lws[1]),
-                ],
-                loc="center right",
-                within=p.box,
-                ncols=2,
-                size_pt=8,
-                frame=True,
+    data, layout_axes = [], {}
+    for key_, yaxis, domain, title, conv in rows:
+        for who, colour, width in ((ideal, IDEAL, 1.8), (real, LAP, 1.5)):
+            tag = "ideal" if who is ideal else "lap"
+            values = np.asarray(who["speed_m_s" if key_ == "speed" else key_])[idx]
+            name = (
+                ("ideal" if tag == "ideal" else f"lap {v.lap_number}")
+                if key_ == "speed"
+                else who[f"{key_}_label"]
             )
-    top_panel = panels[0]
-    words = []
-    for b, colour, word, y_frac, va in brakes:
-        words.append(
-            c.text(
-                float(top_panel.px(b)) - 2.0,  # clear of the 1 px line
-                top_panel.fy(y_frac),
-                word,
-                size_pt=8,
-                colour=colour,
-                rotation=90.0,
-                ha="right",
-                va=va,
+            data.append(_line(x, _r(conv(values), 2), name, colour, width, yaxis=yaxis))
+        ax_name = "yaxis" if yaxis == "y" else f"yaxis{yaxis[1:]}"
+        layout_axes[ax_name] = _axis(title, domain=domain, anchor="x")
+        if key_ != "speed":
+            layout_axes[ax_name]["range"] = [-5, 110]
+    shapes = []
+    for which, colour, word in (("ideal", IDEAL, "ideal brakes"), ("actual", LAP, "you brake")):
+        points = [b for b in _brake_points(corner, which) if b is not None and math.isfinite(b)]
+        for b in points:
+            b = b + v.length_m if b < s[0] - 1e-9 else b
+            shapes.append(_vline(b * k, colour, "dash"))
+        if points:
+            data.append(
+                _line(
+                    [None],
+                    [None],
+                    word,
+                    colour,
+                    1.0,
+                    line={"color": colour, "width": 1.0, "dash": "dash"},
+                )
             )
-        )
-    words.append(
-        c.text(
-            float(top_panel.px(apex)),
-            top_panel.fy(0.02),
+    apex = corner["apex_m"] + (v.length_m if corner["apex_m"] < s[0] - 1e-9 else 0.0)
+    shapes.append(_vline(apex * k, "#777777", "dot"))
+    data.append(
+        _line(
+            [None],
+            [None],
             "apex",
-            size_pt=8,
-            colour="#555555",
-            ha="left",
-            va="bottom",
+            "#777777",
+            1.0,
+            line={"color": "#777777", "width": 1.0, "dash": "dot"},
         )
     )
-    # the legend keeps off the curves, the brake and apex lines and their words
-    keep = np.isfinite(v_ideal) | np.isfinite(v_real)
-    box = top_panel.box
-    down = np.arange(box.y0, box.y1, 4.0)
-    marks = [top_panel.px(x) for x in [b for b, *_ in brakes] + [apex]]
-    avoid_x = np.concatenate(
-        [top_panel.px(s[keep]), top_panel.px(s[keep])] + [np.full(down.size, m) for m in marks]
+    layout = _layout(
+        HEIGHT_PX["detail"],
+        hovermode="x unified",
+        xaxis=_axis(
+            f"distance from the start/finish gate [{units.distance}] (past the gate: lap "
+            "length added)",
+            anchor="y3",
+        ),
+        shapes=shapes,
+        legend={"orientation": "h", "x": 0, "y": 1.0, "yanchor": "bottom", "font": {"size": 10}},
+        margin={"l": 64, "r": 16, "t": 70, "b": 44},
+        **layout_axes,
     )
-    avoid_y = np.concatenate(
-        [top_panel.py(np.nan_to_num(v_ideal[keep])), top_panel.py(np.nan_to_num(v_real[keep]))]
-        + [down] * len(marks)
+    return FigureSpec(
+        key, corner["plain"], corner["plain"], data, layout, subplots=["xy", "xy2", "xy3"]
     )
-    c.legend(
-        [Entry("ideal", "line", IDEAL, 1.8), Entry("your lap", "line", REAL, 1.3)],
-        loc="best",
-        within=top_panel.box,
-        ncols=2,
-        frame=True,
-        avoid=(avoid_x, avoid_y),
-        avoid_boxes=words,
-    )
-    title = caption or corner["name"]
-    top_panel.title(title if len(title) < 130 else title[:127] + "...", size_pt=11)
-    return _png(c, "detail")
 
 
-# --------------------------------------------------------------------------- best of own laps
+def _brake_points(corner: dict, which: str) -> list:
+    """A corner's brake points (``actual`` or ``ideal``): every braking zone's, or the first only."""
+    points = corner.get(f"brake_points_{which}_m")
+    if points is None:
+        points = (corner.get("_summary") or {}).get(f"brake_points_{which}_m")
+    return list(points) if points is not None else [corner.get(f"brake_start_{which}_m")]
 
 
-def best_figure(corners, lap_time_s, best_time_s, ideal_time_s, lap_label="this lap") -> bytes:
-    """Best of the driver's own laps beside the analysed lap and the limit.
-
-    Parameters
-    ----------
-    corners : list of dict
-        Per segment: ``name``, ``actual_s``, ``ideal_s`` and ``best_s`` (the best time
-        over the session's complete laps, NaN when unknown). [s]
-    lap_time_s, best_time_s, ideal_time_s : float
-        Analysed lap, the composite of own best segments, and the ideal lap. [s]
-    lap_label : str
-        Name of the analysed lap in the legend.
-
-    Returns
-    -------
-    bytes
-        PNG image, ``FIGURE_SIZE_PX["best"]`` pixels.
-    """
-    from limitlap._canvas import Entry, Panel
-
-    c = _canvas("best")
-    labels = [lap_label, "best of your laps", "ideal (limit)"]
-    # Whole lap on the left (width 1), per corner on the right (2.6); the gap holds the
-    # right panel's tick labels and axis label.
-    margin_l = c.text_width(labels, _FONT_PT) + _TICK_PX + 8
-    gap, margin_r, top, bottom = 84, 12, 30, 52
-    unit = (c.width - margin_l - margin_r - gap) / 3.6
-    # Corner names wider than their place under the bars are set at 30 degrees.
-    names = [r["name"] for r in corners]
-    name_pt = 10 if len(names) <= 16 else 8
-    name_px = c.text_width(names, name_pt)
-    tilt = name_px > 0.9 * 2.6 * unit / max(len(names), 1)
-    if tilt:  # the slanted names' height (w sin 30 + h cos 30) below the ticks
-        bottom = max(bottom, _TICK_PX + 0.5 * name_px + 0.87 * 1.4 * name_pt + 8)
-    height = c.height - top - bottom
-
-    # Whole lap: time above the ideal, bars 0.6 high on rows 0-2 with 5 % margins.
-    values = [lap_time_s, best_time_s, ideal_time_s]
-    above = [v - ideal_time_s if v is not None and np.isfinite(v) else np.nan for v in values]
-    x_top = max([a for a in above if np.isfinite(a)] + [1e-3])
-    m = 0.05 * 2.6
-    left = Panel(c, margin_l, top, unit, height, (0.0, x_top * 1.9), (2.3 + m, -0.3 - m))
-    xt = left.auto_xticks(_FONT_PT)
-    left.grid(xticks=xt, colour=GRID, lw_pt=0.6)
-    y = np.arange(3)
-    left.barh(y, np.nan_to_num(above), [REAL, BEST, IDEAL], height=0.6)
-    for yi, v, a in zip(y, values, above, strict=True):
-        text = (
-            NOT_AVAILABLE
-            if not np.isfinite(a)
-            else f"{lap_time(v, decimals=2)}  (+{a:.2f} s)"
-            if a > 0
-            else lap_time(v, decimals=2)
-        )
-        left.text(
-            max(a, 0.0) if np.isfinite(a) else 0.0,
-            yi,
-            text,
-            dx=_pt(4),
-            size_pt=10,
-            colour=INK,
-            va="center",
-        )
-    left.frame(colour=EDGE)
-    below = left.xticks(xt, size_pt=_FONT_PT, colour=INK)
-    left.yticks(y, labels, size_pt=_FONT_PT, colour=INK)
-    left.xlabel("time above the ideal lap [s]", below, size_pt=_FONT_PT)
-    left.title("Whole lap", size_pt=_TITLE_PT)
-
-    # Per corner: pairs of bars 0.38 wide, limits as matplotlib's automatic ones (5 %
-    # margins; the bars' zero base is not padded when all are above it).
-    x = np.arange(len(corners))
-    this = np.array([r["actual_s"] - r["ideal_s"] for r in corners], dtype=np.float64)
-    best = np.array([r.get("best_s", np.nan) - r["ideal_s"] for r in corners], dtype=np.float64)
-    w = 0.38
-    both = np.concatenate([this[np.isfinite(this)], np.nan_to_num(best), [0.0]])
-    lo, hi = float(both.min()), float(both.max())
-    span = max(hi - lo, 1e-3)
-    ylim = (lo - 0.05 * span if lo < 0 else 0.0, hi + 0.05 * span if hi > 0 else 0.05 * span)
-    xs = max(len(corners) - 1, 0) + 2 * w
-    xlim = (-w - 0.05 * xs, max(len(corners) - 1, 0) + w + 0.05 * xs)
-    r_yt, r_ylabels = _y_ticks(ylim[0], ylim[1], height)
-    right = Panel(c, margin_l + unit + gap, top, 2.6 * unit, height, xlim, ylim)
-    right.grid(yticks=r_yt, colour=GRID, lw_pt=0.6)
-    right.bar(x - w / 2, this, REAL, width=w)
-    right.bar(x + w / 2, np.nan_to_num(best), BEST, width=w)
-    right.hline(0.0, IDEAL, 1.5)
-    right.frame(colour=EDGE)
-    if tilt:
-        right.xticks(x, names, size_pt=name_pt, rotation=30, ha="right", anchor=True, colour=INK)
-    else:
-        right.xticks(x, names, size_pt=name_pt, colour=INK)
-    right.ylabel(
-        "time above the ideal [s]",
-        right.yticks(r_yt, r_ylabels, size_pt=_FONT_PT, colour=INK),
-        size_pt=_FONT_PT,
-    )
-    right.title(
-        "Per corner: what you have already done against what the grip allows", size_pt=_TITLE_PT
-    )
-    c.legend(
-        [
-            Entry("ideal (limit)", "line", IDEAL, 1.5),
-            Entry(f"{lap_label} above the limit", "patch", REAL),
-            Entry("your best segment above the limit", "patch", BEST),
-        ],
-        loc="upper right",
-        within=right.box,
-        size_pt=9,
-    )
-    return _png(c, "best")
+def _vline(x: float, colour: str, dash: str) -> dict:
+    return {
+        "type": "line",
+        "xref": "x",
+        "yref": "paper",
+        "x0": x,
+        "x1": x,
+        "y0": 0,
+        "y1": 1,
+        "line": {"color": colour, "width": 1.0, "dash": dash},
+    }
 
 
 # --------------------------------------------------------------------------- target sheet
 
+#: Pixel size of the printable target sheet's PNG: A4 portrait at 150 dpi.
+SHEET_SIZE_PX = (1240, 1754)
+#: Resolution of the printable target sheet: A4 = 8.27 x 11.69 in. [dots per inch]
+SHEET_DPI = 150
+#: The caution box's edge and heading (not a data colour).
+CAUTION = "#B8860B"
 
-def _sheet_rows(condition) -> list[list[str]]:
+#: Style of the target sheet and the PNG pictures, applied only while one is built and
+#: drawn (the caller's matplotlib settings are left as they were).
+STYLE = {
+    "font.size": 11,
+    "axes.titlesize": 12,
+    "axes.labelsize": 11,
+    "axes.edgecolor": "#999999",
+    "axes.grid": True,
+    "grid.color": GRID,
+    "grid.linewidth": 0.6,
+    "axes.spines.top": False,
+    "axes.spines.right": False,
+    "legend.frameon": False,
+    "svg.hashsalt": "limitlap",
+}
+
+
+# rcParams are one dict per process: threads (e.g. a Dask worker's) draw one sheet at a
+# time, so one sheet's style context cannot end while another is being drawn.
+STYLE_LOCK = threading.RLock()
+
+
+def styled(draw):
+    """Run a matplotlib figure function inside the sheets' style (imported on first use)."""
+
+    @functools.wraps(draw)
+    def wrapper(*args, **kwargs):
+        import matplotlib
+
+        with STYLE_LOCK, matplotlib.rc_context(STYLE):
+            return draw(*args, **kwargs)
+
+    return wrapper
+
+
+def _figure(width_px: int, height_px: int, dpi: float):
+    """A matplotlib figure of that size on its own Agg canvas (no pyplot)."""
+    from matplotlib.backends.backend_agg import FigureCanvasAgg
+    from matplotlib.figure import Figure
+
+    fig = Figure(figsize=(width_px / dpi, height_px / dpi), dpi=dpi)
+    FigureCanvasAgg(fig)
+    return fig
+
+
+def _sheet_rows(condition, units: Units) -> list[list[str]]:
     """The sheet's table cells, in the one rounding of every output (limitlap.formatting)."""
     rows = []
     for c in condition["corners"]:
@@ -1079,20 +1325,55 @@ def _sheet_rows(condition) -> list[list[str]]:
             [
                 str(c["name"]),
                 str(c.get("label", "")),
-                distance(c["apex_m"]),
-                " + ".join(distance(p) for p in points) if points else "no braking",
-                distance(c.get("before_apex_m")),
-                speed_kmh(c.get("entry_speed_m_s")),
-                speed_kmh(c["min_speed_m_s"]),
-                speed_kmh(c["exit_speed_m_s"]),
+                distance(c["apex_m"], units),
+                " + ".join(distance(p, units) for p in points) if points else "no braking",
+                distance(c.get("before_apex_m"), units),
+                speed_kmh(c.get("entry_speed_m_s"), units),
+                speed_kmh(c["min_speed_m_s"], units),
+                speed_kmh(c["exit_speed_m_s"], units),
                 seconds(c["segment_time_s"]),
             ]
         )
     return rows
 
 
-@_styled
-def target_sheet(condition, circuit_name: str, caution: str, fmt: str = "png") -> bytes:
+def _sheet_table(fig, header, rows) -> None:
+    """The sheet's corner table: header, rule, banded rows, font fitted to the row count."""
+    from matplotlib.lines import Line2D
+    from matplotlib.patches import Rectangle
+
+    n = max(len(rows), 1)
+    top, bottom = 0.875, 0.215
+    header_h = 0.04
+    row_h = min(0.055, (top - header_h - bottom) / n)
+    font = max(7.0, min(13.0, row_h * 11.69 * 72 * 0.34))
+    cols_x = [0.06, 0.115, 0.38, 0.55, 0.645, 0.725, 0.8, 0.865, 0.95]
+    aligns = ["left", "left"] + ["right"] * 7
+    y = top
+    for x, h, al in zip(cols_x, header, aligns, strict=True):
+        fig.text(x, y, h, fontsize=10, ha=al, va="top", color="#444444", linespacing=1.1)
+    y -= header_h
+    fig.add_artist(Line2D([0.05, 0.95], [y, y], color=INK, lw=1.2))
+    y -= 0.2 * row_h
+    for i, row in enumerate(rows):
+        if i % 2 == 0:
+            fig.add_artist(
+                Rectangle((0.05, y - row_h), 0.90, row_h, color="#eef3f8", lw=0, zorder=0)
+            )
+        for j, (x, cell, al) in enumerate(zip(cols_x, row, aligns, strict=True)):
+            weight = "bold" if j in (0, 6) else "normal"
+            size = font * (0.75 if cell == "no braking" or j == 1 or "+" in cell else 1.0)
+            fig.text(
+                x, y - row_h * 0.5, cell, fontsize=size, ha=al, va="center",
+                fontweight=weight, color=INK,
+            )  # fmt: skip
+        y -= row_h
+
+
+@styled
+def target_sheet(
+    condition, circuit_name: str, caution: str, fmt: str = "png", units: Units = METRIC
+) -> bytes:
     """One printable A4 page of targets for one condition, to take to the car.
 
     Parameters
@@ -1109,18 +1390,19 @@ def target_sheet(condition, circuit_name: str, caution: str, fmt: str = "png") -
         Safety caution printed at the foot of the page.
     fmt : {"png", "pdf"}
         Output format.
+    units : Units
+        Speeds and distances as a person reads them (km/h and m, or mph and ft).
 
     Returns
     -------
     bytes
-        The page; PNG is ``FIGURE_SIZE_PX["target_sheet"]`` pixels (A4 at 150 dpi).
+        The page; PNG is :data:`SHEET_SIZE_PX` pixels (A4 at 150 dpi).
     """
     import textwrap
 
-    fig = _figure("target_sheet")
-    from matplotlib.lines import Line2D
     from matplotlib.patches import Rectangle
 
+    fig = _figure(*SHEET_SIZE_PX, SHEET_DPI)
     fig.text(0.06, 0.965, f"{circuit_name}", fontsize=20, fontweight="bold", va="top")
     label = condition.get("label") or f"grip {condition['grip_scale']:.2f}"
     fig.text(
@@ -1144,50 +1426,19 @@ def target_sheet(condition, circuit_name: str, caution: str, fmt: str = "png") -
         va="top",
         color=IDEAL,
     )
+    d, v = units.distance, units.speed
     header = [
         "corner",
         "",
-        "apex\n[m]",
-        "brake at\n[m]",
-        "before\napex [m]",
-        "entry\n[km/h]",
-        "min\n[km/h]",
-        "exit\n[km/h]",
+        f"apex\n[{d}]",
+        f"brake at\n[{d}]",
+        f"before\napex [{d}]",
+        f"entry\n[{v}]",
+        f"min\n[{v}]",
+        f"exit\n[{v}]",
         "segment\n[s]",
     ]
-    rows = _sheet_rows(condition)
-    n = max(len(rows), 1)
-    top, bottom = 0.875, 0.215
-    header_h = 0.04
-    row_h = min(0.055, (top - header_h - bottom) / n)
-    font = max(7.0, min(13.0, row_h * 11.69 * 72 * 0.34))
-    cols_x = [0.06, 0.115, 0.38, 0.55, 0.645, 0.725, 0.8, 0.865, 0.95]
-    aligns = ["left", "left"] + ["right"] * 7
-    y = top
-    for x, h, al in zip(cols_x, header, aligns, strict=True):
-        fig.text(x, y, h, fontsize=10, ha=al, va="top", color="#444444", linespacing=1.1)
-    y -= header_h
-    fig.add_artist(Line2D([0.05, 0.95], [y, y], color=INK, lw=1.2))
-    y -= 0.2 * row_h
-    for i, row in enumerate(rows):
-        if i % 2 == 0:
-            fig.add_artist(
-                Rectangle((0.05, y - row_h), 0.90, row_h, color="#eef3f8", lw=0, zorder=0)
-            )
-        for j, (x, cell, al) in enumerate(zip(cols_x, row, aligns, strict=True)):
-            weight = "bold" if j in (0, 6) else "normal"
-            size = font * (0.75 if cell == "no braking" or j == 1 or "+" in cell else 1.0)
-            fig.text(
-                x,
-                y - row_h * 0.5,
-                cell,
-                fontsize=size,
-                ha=al,
-                va="center",
-                fontweight=weight,
-                color=INK,
-            )
-        y -= row_h
+    _sheet_table(fig, header, _sheet_rows(condition, units))
     note = (
         "Brake at: where the ideal's speed starts falling into the corner (a lift counts), "
         "from the start/finish gate, one per braking zone; before apex: from the first "
@@ -1197,7 +1448,7 @@ def target_sheet(condition, circuit_name: str, caution: str, fmt: str = "png") -
     )
     fig.text(0.06, 0.2, textwrap.fill(note, 105), fontsize=9, va="top", color="#444444")
     fig.add_artist(
-        Rectangle((0.05, 0.025), 0.90, 0.115, facecolor="#fff4e0", edgecolor=ACCENT, lw=1.5)
+        Rectangle((0.05, 0.025), 0.90, 0.115, facecolor="#fff4e0", edgecolor=CAUTION, lw=1.5)
     )
     fig.text(0.07, 0.128, "Caution", fontsize=12, fontweight="bold", va="top", color="#7a4a00")
     fig.text(
@@ -1222,186 +1473,147 @@ def target_sheet(condition, circuit_name: str, caution: str, fmt: str = "png") -
 # --------------------------------------------------------------------------- the session
 
 
-def _number_ticks(lo: int, hi: int, width_px: float) -> np.ndarray:
-    """Whole-number ticks for lap numbers, as many as fit the width."""
-    from limitlap._canvas import auto_bins, nice_ticks
-
-    ticks = nice_ticks(lo, hi, auto_bins(width_px, _FONT_PT, 3.0, DPI))
-    ticks = ticks[(ticks == np.round(ticks)) & (ticks >= lo) & (ticks <= hi)]
-    return ticks if ticks.size else np.array([lo])
-
-
-def session_figure(lap_numbers, grip_estimates, time_left_s, analysed: int) -> bytes:
+def session_figure(lap_numbers, grip_estimates, time_left_s, analysed: int) -> FigureSpec:
     """Grip found and time left against lap number, every lap timed gate to gate.
 
     Parameters
     ----------
-    lap_numbers : array-like of int
+    lap_numbers : sequence of int
         The laps. [-]
-    grip_estimates : array-like
-        Grip scale each lap showed against the envelope (NaN where unknown). [-]
-    time_left_s : array-like
+    grip_estimates : sequence of float or None
+        Grip scale each lap showed against the envelope (None where unknown). [-]
+    time_left_s : sequence of float
         Each lap's time left to the ideal on its own line. [s]
     analysed : int
-        The analysed lap (drawn darker). [-]
-
-    Returns
-    -------
-    bytes
-        PNG image, ``FIGURE_SIZE_PX["session"]`` pixels.
+        The analysed lap (drawn in the lap colour). [-]
     """
-    from limitlap._canvas import Panel
-
-    c = _canvas("session")
-    n = np.asarray(lap_numbers, dtype=np.float64)
-    k = np.asarray(grip_estimates, dtype=np.float64)
-    left_s = np.asarray(time_left_s, dtype=np.float64)
-    xlim = (float(n.min()) - 0.6, float(n.max()) + 0.6) if n.size else (0.0, 1.0)
-    kf = k[np.isfinite(k)]
-    k_lo, k_hi = (float(kf.min()), float(kf.max())) if kf.size else (0.9, 1.1)
-    k_pad = max(0.1 * (k_hi - k_lo), 0.05 - 0.5 * (k_hi - k_lo))  # 0.1 at least: noise stays small
-    lf = np.concatenate([left_s[np.isfinite(left_s)], [0.0]])
-    l_span = max(float(lf.max() - lf.min()), 1e-3)
-    limits = (
-        (k_lo - k_pad, k_hi + k_pad),
-        (min(float(lf.min()), 0.0) - 0.05 * l_span, float(lf.max()) + 0.12 * l_span),
+    n = [int(x) for x in lap_numbers]
+    k = [None if g is None or not math.isfinite(g) else round(float(g), 3) for g in grip_estimates]
+    left = [None if t is None or not math.isfinite(t) else round(float(t), 3) for t in time_left_s]
+    colours = [LAP if x == analysed else OTHER_LAPS for x in n]
+    data = [
+        {
+            "type": "scatter",
+            "mode": "lines+markers",
+            "name": "grip found",
+            "x": n,
+            "y": k,
+            "line": {"color": BEST, "width": 1.5},
+            "marker": {"color": colours, "size": 8},
+            "xaxis": "x",
+            "yaxis": "y",
+            "hovertemplate": "lap %{x}: grip %{y:.2f}<extra></extra>",
+        },
+        {
+            "type": "bar",
+            "name": "time left to the ideal on the lap's own line",
+            "x": n,
+            "y": left,
+            "marker": {"color": colours},
+            "xaxis": "x2",
+            "yaxis": "y2",
+            "hovertemplate": "lap %{x}: %{y:.2f} s<extra></extra>",
+        },
+    ]
+    ticks = {"tickmode": "array", "tickvals": n, "ticktext": [str(x) for x in n]}
+    layout = _layout(
+        HEIGHT_PX["session"],
+        hovermode="closest",
+        xaxis=_axis("", anchor="y", showticklabels=False, **ticks),
+        yaxis=_axis("grip found [-]", domain=[0.56, 1.0]),
+        xaxis2=_axis("lap number", anchor="y2", matches="x", **ticks),
+        yaxis2=_axis("time left [s]", domain=[0.0, 0.44], anchor="x2", rangemode="tozero"),
     )
-    top, gap, bottom, right = 30, 58, 52, 22
-    height = (c.height - top - gap - bottom) / 2
-    ticks = [_y_ticks(lo, hi, height) for lo, hi in limits]
-    left = max(_left_margin(c, labels) for _, labels in ticks)
-    width = c.width - left - right
-    xt = _number_ticks(int(n.min()) if n.size else 0, int(n.max()) if n.size else 1, width)
-    grip_p = Panel(c, left, top, width, height, xlim, limits[0])
-    time_p = Panel(c, left, top + height + gap, width, height, xlim, limits[1])
-    for p, (yt, _) in zip((grip_p, time_p), ticks, strict=True):
-        p.grid(xt, yt, GRID, 0.6)
-    ok = np.isfinite(k)
-    grip_p.line(n[ok], k[ok], ACCENT, 1.2)
-    grip_p.scatter(n[ok], k[ok], "o", 7.0, ACCENT)
-    mine = n == analysed
-    grip_p.scatter(n[mine & ok], k[mine & ok], "o", 10.0, REAL)
-    time_p.bar(n[~mine], np.nan_to_num(left_s[~mine]), "#e8a27a", width=0.6)
-    time_p.bar(n[mine], np.nan_to_num(left_s[mine]), REAL, width=0.6)
-    time_p.hline(0.0, IDEAL, 1.2)
-    for p, (yt, ylabels), label, title in (
-        (grip_p, ticks[0], "grip found [-]", "Grip found on each lap (the envelope's grip = 1)"),
-        (
-            time_p,
-            ticks[1],
-            "time left [s]",
-            f"Time left to the ideal on each lap's own line (lap {analysed} darker)",
-        ),
-    ):
-        below = p.xticks(xt, [f"{int(x)}" for x in xt], size_pt=_FONT_PT, colour=INK)
-        p.frame(colour=EDGE)
-        p.ylabel(label, p.yticks(yt, ylabels, size_pt=_FONT_PT, colour=INK), size_pt=_FONT_PT)
-        p.title(title, size_pt=_TITLE_PT)
-    time_p.xlabel("lap number", below, size_pt=_FONT_PT)
-    return _png(c, "session")
+    return FigureSpec(
+        "session",
+        "Grip found and time left, lap by lap",
+        f"Grip found: the grip scale each lap showed against the envelope (1 = the "
+        f"envelope's); a drying or rubbering-in track shows as grip rising. Time left: to "
+        f"the ideal on each lap's own line. Lap {analysed} (orange) is analysed below.",
+        data,
+        layout,
+        subplots=["xy", "x2y2"],
+    )
 
 
 # --------------------------------------------------------------------------- lap against lap
 
 
-def versus_delta_figure(distance_m, delta_s, corners, label_a: str, label_b: str) -> bytes:
-    """Time delta of lap B against lap A along the common line (rising = B losing time).
+def versus_delta_figure(distance_m, delta_s, corners, label_a: str, label_b: str) -> FigureSpec:
+    """Time delta of lap B against lap A along A's line (rising = B losing time).
 
-    Parameters
-    ----------
-    distance_m : array-like
-        Stations of the common line. [m]
-    delta_s : array-like
-        B's elapsed time minus A's at each station. [s]
-    corners : list of dict
-        Corner segments (``name``, ``start_m``, ``apex_m``, ``end_m``) on the common line. [m]
-    label_a, label_b : str
-        What A and B are ("lap 3 of dry.csv").
-
-    Returns
-    -------
-    bytes
-        PNG image, ``FIGURE_SIZE_PX["versus_delta"]`` pixels.
+    ``corners``: records with ``name``, ``start_m``, ``apex_m``, ``end_m`` on A's line. [m]
     """
-    c = _canvas("versus_delta")
     s = np.asarray(distance_m, dtype=np.float64)
     d = np.asarray(delta_s, dtype=np.float64)
-    fin = np.concatenate([d[np.isfinite(d)], [0.0]])
-    lo, hi = float(fin.min()), float(fin.max())
-    span = max(hi - lo, 1e-3)
-    p, xt, yt = _lap_panel(c, s, (lo - 0.05 * span, hi + 0.2 * span))
-    _corner_bands(p, corners)
-    with np.errstate(invalid="ignore"):
-        p.fill_between(s, 0.0, d, REAL, alpha=0.18, where=d >= 0)
-        p.fill_between(s, 0.0, d, IDEAL, alpha=0.18, where=d < 0)
-    p.grid(xt, yt, GRID, 0.6)
-    p.line(s, d, INK, 1.5)
-    p.hline(0.0, EDGE, 1.0)
-    _axes(
-        p,
-        xt,
-        yt,
-        "distance along the common line from the start/finish gate [m]",
-        "B minus A [s]",
-        f"Time delta: B ({label_b}) minus A ({label_a}); rising = B losing time",
+    step = max(1, s.size // 2000)
+    x, y = _r(s[::step], 1), _r(d[::step], 3)
+    shapes, notes = [], []
+    for i, c in enumerate(corners):
+        if i % 2 == 0 and c["end_m"] >= c["start_m"]:
+            shapes.append(
+                {
+                    "type": "rect", "xref": "x", "yref": "paper", "x0": c["start_m"],
+                    "x1": c["end_m"], "y0": 0, "y1": 1, "fillcolor": BAND,
+                    "line": {"width": 0}, "layer": "below",
+                }
+            )  # fmt: skip
+        notes.append(
+            {
+                "x": c["apex_m"], "y": 1.0, "xref": "x", "yref": "paper", "yanchor": "top",
+                "text": c["name"], "showarrow": False, "font": {"size": 10, "color": INK},
+            }
+        )  # fmt: skip
+    data = [_line(x, y, "B minus A", INK, 1.5, hovertemplate="%{x:.0f} m: %{y:+.3f} s")]
+    layout = _layout(
+        HEIGHT_PX["delta"],
+        hovermode="x unified",
+        xaxis=_axis("distance along A's line from the start/finish gate [m]"),
+        yaxis=_axis("B minus A [s]", zeroline=True, zerolinecolor="#999999"),
+        shapes=shapes,
+        annotations=notes,
     )
-    _corner_names(p, corners, hi + 0.08 * span)
-    return _png(c, "versus_delta")
-
-
-def versus_corner_figure(names, delta_s, left_a_s, left_b_s, label_a: str, label_b: str) -> bytes:
-    """Per corner: B minus A, and each lap's time left to its ideal at the common envelope.
-
-    Parameters
-    ----------
-    names : sequence of str
-        Corner names in driving order.
-    delta_s : array-like
-        B's corner time minus A's. [s]
-    left_a_s, left_b_s : array-like
-        Each lap's time left in the corner. [s]
-    label_a, label_b : str
-        What A and B are.
-
-    Returns
-    -------
-    bytes
-        PNG image, ``FIGURE_SIZE_PX["versus_corners"]`` pixels.
-    """
-    from limitlap._canvas import Entry, Panel
-
-    c = _canvas("versus_corners")
-    x = np.arange(len(names), dtype=np.float64)
-    series = [np.asarray(a, dtype=np.float64) for a in (delta_s, left_a_s, left_b_s)]
-    allv = np.concatenate([np.nan_to_num(a) for a in series] + [[0.0]])
-    lo, hi = float(allv.min()), float(allv.max())
-    span = max(hi - lo, 1e-3)
-    ylim = (lo - 0.05 * span, hi + 0.25 * span)
-    top, bottom, right = 30, 52, 22
-    height = c.height - top - bottom
-    yt, ylabels = _y_ticks(ylim[0], ylim[1], height)
-    left = _left_margin(c, ylabels)
-    w = 0.27
-    p = Panel(c, left, top, c.width - left - right, height, (-0.6, len(names) - 0.4), ylim)
-    p.grid(yticks=yt, colour=GRID, lw_pt=0.6)
-    colours = (INK, ACCENT, BEST)
-    for off, values, colour in zip((-w, 0.0, w), series, colours, strict=True):
-        p.bar(x + off, np.nan_to_num(values), colour, width=w)
-    p.hline(0.0, EDGE, 1.0)
-    p.frame(colour=EDGE)
-    name_pt = 10 if len(names) <= 16 else 8
-    below = p.xticks(x, list(names), size_pt=name_pt, colour=INK)
-    p.xlabel("corner", below, size_pt=_FONT_PT)
-    p.ylabel("[s]", p.yticks(yt, ylabels, size_pt=_FONT_PT, colour=INK), size_pt=_FONT_PT)
-    p.title("Per corner: B minus A, and each lap's time left to its ideal", size_pt=_TITLE_PT)
-    c.legend(
-        [
-            Entry("B minus A (+ = B slower)", "patch", INK),
-            Entry(f"A ({label_a}): time left", "patch", ACCENT),
-            Entry(f"B ({label_b}): time left", "patch", BEST),
-        ],
-        loc="upper right",
-        within=p.box,
-        size_pt=9,
+    return FigureSpec(
+        "versus_delta",
+        f"Time delta: B ({label_b}) minus A ({label_a})",
+        "Rising: B losing time to A; falling: B gaining. Along A's line.",
+        data,
+        layout,
     )
-    return _png(c, "versus_corners")
+
+
+def versus_corner_figure(names, delta_s, left_a_s, left_b_s, label_a: str, label_b: str):
+    """Per corner: B minus A, and each lap's time left to its ideal at the common envelope."""
+    names = list(names)
+    series = (
+        ("B minus A (+ = B slower)", delta_s, INK),
+        (f"A ({label_a}): time left", left_a_s, LAP),
+        (f"B ({label_b}): time left", left_b_s, BEST),
+    )
+    data = [
+        {
+            "type": "bar",
+            "name": name,
+            "x": names,
+            "y": [
+                None if v is None or not math.isfinite(v) else round(float(v), 3) for v in values
+            ],
+            "marker": {"color": colour},
+            "hovertemplate": "%{x}: %{y:.2f} s<extra></extra>",
+        }
+        for name, values, colour in series
+    ]
+    layout = _layout(
+        HEIGHT_PX["best"],
+        hovermode="closest",
+        barmode="group",
+        xaxis=_axis("corner", categoryorder="array", categoryarray=names, showgrid=False),
+        yaxis=_axis("[s]", zeroline=True, zerolinecolor="#999999"),
+    )
+    return FigureSpec(
+        "versus_corners",
+        "Per corner: B minus A, and each lap's time left to its ideal",
+        "Each lap's time left is to the ideal on its own line at the common envelope.",
+        data,
+        layout,
+    )

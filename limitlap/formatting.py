@@ -9,6 +9,9 @@ minutes and seconds, so a lap of 119.9996 s reads ``2:00.000``, never ``1:60.000
 from __future__ import annotations
 
 import math
+from dataclasses import dataclass
+
+from limitlap.units import FT_TO_M, KMH_TO_M_S, MPH_TO_M_S
 
 #: What every output for people shows for a value that is not known or has no such
 #: point (a corner taken without braking): one blank everywhere. CSV cells stay empty
@@ -96,21 +99,25 @@ def metres(distance_m: float) -> str:
 _KMH_PER_M_S = 3.6
 
 
-def speed_kmh(v_m_s) -> str:
-    """A speed for people: whole km/h, the one rounding of every output. "—" if unknown.
+def speed_kmh(v_m_s, units=None) -> str:
+    """A speed for people: whole km/h (or mph with ``units``), the one rounding of every output; no unit. "—" if unknown.
 
-    >>> speed_kmh(24.69), speed_kmh(None)
-    ('89', '—')
+    >>> speed_kmh(24.69), speed_kmh(None), speed_kmh(24.69, units_named("imperial"))
+    ('89', '—', '55')
     """
+    if units is not None and _known(v_m_s):
+        return number(units.speed_value(v_m_s), ".0f")
     return number(None if not _known(v_m_s) else v_m_s * _KMH_PER_M_S, ".0f")
 
 
-def distance(distance_m) -> str:
-    """A distance along the lap for people: whole metres, no unit. "—" if unknown.
+def distance(distance_m, units=None) -> str:
+    """A distance along the lap for people: whole metres (or feet with ``units``), no unit. "—" if unknown.
 
-    >>> distance(359.44), distance(float("nan"))
-    ('359', '—')
+    >>> distance(359.44), distance(float("nan")), distance(3.048, units_named("imperial"))
+    ('359', '—', '10')
     """
+    if units is not None and _known(distance_m):
+        return number(units.distance_value(distance_m), ".0f")
     return number(distance_m, ".0f")
 
 
@@ -185,3 +192,93 @@ def band_range(band, unit: str = " s", decimals: int = 2) -> str:
         return NOT_AVAILABLE
     lo, hi = (hundredths(b) if decimals == 2 else b for b in band)
     return f"{lo:.{decimals}f} to {hi:.{decimals}f}{unit}"
+
+
+# --------------------------------------------------------------------------- units
+
+
+@dataclass(frozen=True)
+class Units:
+    """How speeds and distances are shown to people: ``metric`` (km/h, m) or ``imperial`` (mph, ft).
+
+    Files for programs (summary.json, CSV, TOML) keep their documented units; this is for
+    the terminal, the report page, its pictures and the target sheets only.
+
+    Attributes
+    ----------
+    name : str
+        ``"metric"`` or ``"imperial"``.
+    speed : str
+        Speed unit shown: ``"km/h"`` or ``"mph"``.
+    distance : str
+        Distance unit shown: ``"m"`` or ``"ft"``.
+    m_s_per_speed : float
+        Metres per second in one shown speed unit. [m/s]
+    m_per_distance : float
+        Metres in one shown distance unit. [m]
+    """
+
+    name: str
+    speed: str
+    distance: str
+    m_s_per_speed: float
+    m_per_distance: float
+
+    def speed_value(self, v_m_s):
+        """A speed in the shown unit (arrays too). [km/h or mph]."""
+        return v_m_s / self.m_s_per_speed
+
+    def distance_value(self, d_m):
+        """A distance in the shown unit (arrays too). [m or ft]."""
+        return d_m / self.m_per_distance
+
+    def speed_text(self, v_m_s, spec: str = ".0f", blank: str = NOT_AVAILABLE) -> str:
+        """A speed with its unit: ``"88 km/h"``; ``blank`` when unknown."""
+        return number(
+            None if not _known(v_m_s) else self.speed_value(v_m_s), spec, " " + self.speed, blank
+        )
+
+    def distance_text(self, d_m, spec: str = ".0f", blank: str = NOT_AVAILABLE) -> str:
+        """A distance with its unit: ``"120 m"``; ``blank`` when unknown."""
+        return number(
+            None if not _known(d_m) else self.distance_value(d_m), spec, " " + self.distance, blank
+        )
+
+
+#: The unit systems a person can choose (``--units``). Exact factors: km/h and mph by
+#: definition (SI brochure; international yard and pound agreement, 1959), as in
+#: :mod:`limitlap.units`.
+UNIT_SYSTEMS = {
+    "metric": Units("metric", "km/h", "m", KMH_TO_M_S, 1.0),
+    "imperial": Units("imperial", "mph", "ft", MPH_TO_M_S, FT_TO_M),
+}
+
+
+def units_named(name: str) -> Units:
+    """The unit system called ``name`` (``metric`` or ``imperial``).
+
+    >>> units_named("imperial").speed_text(100 * 0.44704)
+    '100 mph'
+    >>> units_named("metric").distance_text(12.4), units_named("imperial").distance_text(3.048)
+    ('12 m', '10 ft')
+    """
+    try:
+        return UNIT_SYSTEMS[str(name).strip().lower()]
+    except KeyError:
+        raise ValueError(f"units must be one of {', '.join(UNIT_SYSTEMS)}, not '{name}'") from None
+
+
+#: The default: km/h and m.
+METRIC = UNIT_SYSTEMS["metric"]
+
+
+def signed_time(time_s) -> str:
+    """A time left with its sign, to 0.01 s: ``+0.48``, ``-0.12``, ``0.00``; never ``-0.00``.
+
+    >>> signed_time(0.4849), signed_time(-0.012), signed_time(-0.004), signed_time(None)
+    ('+0.48', '-0.01', '0.00', '—')
+    """
+    if not _known(time_s):
+        return NOT_AVAILABLE
+    t = hundredths(time_s)
+    return "0.00" if t == 0 else f"{t:+.2f}"

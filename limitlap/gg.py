@@ -1,10 +1,13 @@
 """The lap's samples against the envelope in the g-g diagram, speed band by speed band.
 
 For each speed band: the envelope's boundary at the band's middle speed and at its
-edges, the lap's samples in the band, their convex hull, and how far the samples and
-the envelope reach in every direction; the share of the envelope's area the samples
-never reached is the grip the lap left unused there (polar area on equal angle steps).
-All in m/s², + forward, + left (ISO 8855).
+edges, the lap's samples in the band, their convex hull, and how far the samples, the
+envelope and the ideal lap reach in every direction. The grip the lap left unused is
+counted only where the ideal lap on the same line asks for it: in the directions and at
+the speeds of the ideal's own samples (their convex hull, within the envelope), the
+share of that area the lap's samples never reached (polar area on equal angle steps).
+A fast circuit with no fast right-hand bend asks for no right-hand grip at 250 km/h, so
+none is counted there. All in m/s², + forward, + left (ISO 8855).
 """
 
 from __future__ import annotations
@@ -44,7 +47,15 @@ class GGBand:
         each of :data:`REACH_ANGLES_RAD`, angles measured in the diagram's plane from
         + lateral (left) towards + longitudinal (forward). [m/s²]
     unused_share : float
-        Share of the envelope's area beyond the samples' reach; NaN without a hull. [-]
+        Of the area the ideal asks for (``asked_reach_m_s2``), the share beyond the
+        samples' reach; NaN without a hull of the samples or of the ideal's. [-]
+    asked_reach_m_s2 : numpy.ndarray or None
+        How far the ideal lap's samples in the band reach (their hull, never beyond the
+        envelope) along each angle; None when the ideal was not given or has fewer than
+        3 samples in the band. [m/s²]
+    beyond_share : float
+        Share of the directions (of :data:`REACH_ANGLES_RAD`) in which the samples' hull
+        reaches beyond the envelope at the band's middle speed; NaN without a hull. [-]
     """
 
     speed_lo_m_s: float
@@ -59,10 +70,18 @@ class GGBand:
     envelope_reach_m_s2: np.ndarray | None
     sample_reach_m_s2: np.ndarray | None
     unused_share: float
+    asked_reach_m_s2: np.ndarray | None = None
+    beyond_share: float = math.nan
 
 
 def gg_bands(
-    speed_m_s, accel_lon_m_s2, accel_lat_m_s2, vehicle: Vehicle, grip_scale=1.0, bands=None
+    speed_m_s,
+    accel_lon_m_s2,
+    accel_lat_m_s2,
+    vehicle: Vehicle,
+    grip_scale=1.0,
+    bands=None,
+    asked=None,
 ):
     """The lap's samples against the envelope in each speed band.
 
@@ -76,6 +95,9 @@ def gg_bands(
         Grip scale of the comparison. [-]
     bands : list of tuple, optional
         (low, high) speed bands [m/s]; by default four from :func:`speed_bands_m_s`.
+    asked : tuple of array-like, optional
+        The ideal lap's (speed [m/s], a_x [m/s²], a_y [m/s²]) on the same line: the
+        directions and speeds the lap asks for. Without it nothing is counted unused.
 
     Returns
     -------
@@ -88,10 +110,12 @@ def gg_bands(
     if bands is None:
         bands = speed_bands_m_s(v, n_bands=4)
     bands = list(bands)[:4] or [(0.0, 1.0)]
-    return [_band(v, ax, ay, env, lo, hi) for lo, hi in bands]
+    if asked is not None:
+        asked = tuple(np.asarray(a, dtype=np.float64) for a in asked)
+    return [_band(v, ax, ay, env, lo, hi, asked) for lo, hi in bands]
 
 
-def _band(v, ax, ay, env, lo, hi) -> GGBand:
+def _band(v, ax, ay, env, lo, hi, asked=None) -> GGBand:
     ex, ey = limits.envelope_boundary(0.5 * (lo + hi), env)
     edges = tuple(limits.envelope_boundary(edge, env) for edge in (lo, hi) if edge > 0)
     inband = (v >= lo) & (v < hi) & np.isfinite(ax) & np.isfinite(ay)
@@ -100,11 +124,30 @@ def _band(v, ax, ay, env, lo, hi) -> GGBand:
     if hull is None:
         return GGBand(lo, hi, ex, ey, edges, sx, sy, None, None, None, None, math.nan)
     r_env = ray_reach(ey, ex, REACH_ANGLES_RAD)
-    r_in = np.minimum(ray_reach(hull[0], hull[1], REACH_ANGLES_RAD), r_env)
-    # Polar area 1/2 sum r^2 dtheta on equal steps (the last angle repeats the first).
-    unused = 1.0 - float(np.sum(r_in[:-1] ** 2) / np.sum(r_env[:-1] ** 2))
+    r_raw = ray_reach(hull[0], hull[1], REACH_ANGLES_RAD)
+    beyond = float(np.mean(r_raw[:-1] > r_env[:-1]))
+    r_in = np.minimum(r_raw, r_env)
+    r_ask = _asked_reach(asked, lo, hi, r_env)
+    unused = math.nan
+    if r_ask is not None and np.any(r_ask > 0):
+        # Polar area 1/2 sum r^2 dtheta on equal steps (the last angle repeats the first):
+        # the part of the asked area the samples did not reach.
+        short = np.maximum(r_ask[:-1] ** 2 - r_in[:-1] ** 2, 0.0)
+        unused = float(np.sum(short) / np.sum(r_ask[:-1] ** 2))
     hy, hx = np.append(hull[0], hull[0][0]), np.append(hull[1], hull[1][0])
-    return GGBand(lo, hi, ex, ey, edges, sx, sy, hx, hy, r_env, r_in, unused)
+    return GGBand(lo, hi, ex, ey, edges, sx, sy, hx, hy, r_env, r_in, unused, r_ask, beyond)
+
+
+def _asked_reach(asked, lo, hi, r_env):
+    """How far the ideal's samples in the band reach per angle (within the envelope)."""
+    if asked is None:
+        return None
+    v, ax, ay = asked
+    inband = (v >= lo) & (v < hi) & np.isfinite(ax) & np.isfinite(ay)
+    hull = convex_hull(ay[inband], ax[inband])
+    if hull is None:
+        return None
+    return np.minimum(ray_reach(hull[0], hull[1], REACH_ANGLES_RAD), r_env)
 
 
 def ray_reach(poly_x, poly_y, angles):

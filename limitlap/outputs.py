@@ -28,6 +28,7 @@ import numpy as np
 
 from limitlap.atomic import output_set, write_atomic
 from limitlap.errors import LimitlapError
+from limitlap.formatting import METRIC, Units
 from limitlap.units import KMH_TO_M_S, KW_TO_W
 
 if TYPE_CHECKING:
@@ -360,6 +361,7 @@ def corner_rows(comparison: LapComparison) -> list[dict]:
             "brake_points_ideal_m": [float(x) for x in c.brake_points_ideal_m],
             "plain": c.advice.strip(),
             "_summary": c.summary_dict(),
+            "_differences": c.differences,
         }
         for f in dataclasses.fields(c):
             v = getattr(c, f.name)
@@ -417,6 +419,38 @@ class ReportView:
     time_left_words: str = ""
     session: object = None
     bands: object = None
+    other_laps: list = dataclasses.field(default_factory=list)
+
+
+@dataclasses.dataclass(frozen=True, eq=False)
+class OtherLap:
+    """One of the session's other complete laps on the analysed lap's stations.
+
+    Its elapsed time and speed are read at the same share of its own length as each
+    station of the analysed lap (laps a few metres longer or shorter line up, as in the
+    best-of-laps composite, docs/outputs.md).
+    """
+
+    number: int
+    lap_time_s: float
+    speed_m_s: np.ndarray  # logged speed: distance travelled over time between rows [m/s]
+    time_delta_s: np.ndarray  # its elapsed time minus the ideal's at each station [s]
+
+
+def other_laps(analysis, distance_m, length_m, time_ideal_s) -> list[OtherLap]:
+    """The session's complete laps other than the analysed one, on its stations."""
+    out = []
+    for tl in getattr(analysis, "complete_laps", None) or []:
+        if tl.number == analysis.lap.number or len(tl.distance_m) < 3:
+            continue
+        d = np.asarray(tl.distance_m, dtype=np.float64)
+        t = np.asarray(tl.time_s, dtype=np.float64)
+        at = np.asarray(distance_m) * (tl.length_m / length_m)
+        elapsed = np.interp(at, d, t)
+        mid_speed = np.diff(d) / np.maximum(np.diff(t), 1e-9)
+        speed = np.interp(at, 0.5 * (d[1:] + d[:-1]), mid_speed)
+        out.append(OtherLap(int(tl.number), float(tl.lap_time_s), speed, elapsed - time_ideal_s))
+    return out
 
 
 def _best_of_laps(best: BestOfLaps | None, corners) -> float:
@@ -489,6 +523,7 @@ def report_view(analysis) -> ReportView:
         time_left_words=comparison.time_left_words(),
         session=getattr(analysis, "session", None),
         bands=getattr(analysis, "bands", None),
+        other_laps=other_laps(analysis, s, float(line.length_m), t_ideal - t_ideal[0]),
     )
 
 
@@ -589,6 +624,39 @@ def _band_keys(v: ReportView, ideal: dict) -> dict:
     }
 
 
+_CORNER_KEYS = (
+    "name",
+    "start_m",
+    "apex_m",
+    "end_m",
+    "actual_s",
+    "ideal_s",
+    "time_left_s",
+    "min_speed_actual_kmh",
+    "min_speed_ideal_kmh",
+    "brake_start_actual_m",
+    "brake_start_ideal_m",
+    "grip_used",
+)
+
+
+def summary_corner(c: dict) -> dict:
+    """A corner's summary.json record (docs/outputs.md, Corners), from its report row.
+
+    The report page carries the same records, rounded the same way.
+    """
+    if "_summary" in c:
+        rec = dict(c["_summary"])
+        rec.setdefault("plain", c["plain"])
+    else:
+        rec = {k: c[k] for k in _CORNER_KEYS}
+        rec["plain"] = c["plain"]
+    for key in ("best_s", "best_lap", "label", "time_left_band_s", "rank_group"):
+        if key in c:
+            rec[key] = c[key]
+    return _plain(rec)
+
+
 def build_summary(analysis) -> dict:
     """The docs/outputs.md, summary.json summary of an Analysis, plus corner extras and the warnings.
 
@@ -602,38 +670,7 @@ def build_summary(analysis) -> dict:
         Keys in the order of docs/outputs.md, summary.json; values SI or km/h as the keys say (not yet rounded).
     """
     v = report_view(analysis)
-    corners = []
-    for c in v.corners:
-        if "_summary" in c:
-            rec = dict(c["_summary"])
-            rec.setdefault("plain", c["plain"])
-            for key in ("best_s", "best_lap", "label", "time_left_band_s", "rank_group"):
-                if key in c:
-                    rec[key] = c[key]
-            corners.append(rec)
-            continue
-        rec = {
-            k: c[k]
-            for k in (
-                "name",
-                "start_m",
-                "apex_m",
-                "end_m",
-                "actual_s",
-                "ideal_s",
-                "time_left_s",
-                "min_speed_actual_kmh",
-                "min_speed_ideal_kmh",
-                "brake_start_actual_m",
-                "brake_start_ideal_m",
-                "grip_used",
-            )
-        }
-        rec["plain"] = c["plain"]
-        for key in ("best_s", "best_lap", "label", "time_left_band_s", "rank_group"):
-            if key in c:
-                rec[key] = c[key]
-        corners.append(rec)
+    corners = [summary_corner(c) for c in v.corners]
     best_rec = {"time_s": v.best_time_s, "complete_laps": v.n_laps}
     if analysis.best_of_laps is not None:
         best_rec.update(analysis.best_of_laps.summary_dict())
@@ -710,7 +747,12 @@ def stepper(progress, total):
 
 
 def write_outputs(
-    analysis, out_dir, *, figures: bool = True, progress: Progress | None = None
+    analysis,
+    out_dir,
+    *,
+    figures: bool = True,
+    units: Units = METRIC,
+    progress: Progress | None = None,
 ) -> dict:
     """Write everything ``analyse`` leaves in its output folder.
 
@@ -722,7 +764,11 @@ def write_outputs(
         Output folder, replaced whole by this run's files (:func:`output_set`); or a set
         open for more files of the same run.
     figures : bool
-        Draw the PNG figures and put them in report.html.
+        Also write the figures as PNG pictures (matplotlib); the page always has its
+        interactive figures.
+    units : formatting.Units
+        How the page and the pictures show speeds and distances; the files for programs
+        keep their documented units.
     progress : callable, optional
         ``progress(done, total, step)`` after each step; None = silent.
 
@@ -732,40 +778,34 @@ def write_outputs(
         File kind -> path written: ``summary``, ``profile``, ``envelope``, ``report`` and
         one entry per PNG (its file name).
     """
-    from limitlap.report import _curvature_check, _figures, report_html
+    from limitlap import report
 
     v = report_view(analysis)
-    n_fig = (
-        (
-            3
-            + (v.x_m is not None)
-            + 1
-            + min(3, len(v.corners))
-            + (math.isfinite(v.best_time_s) and bool(v.corners))
-            + (_curvature_check(v) is not None)
-            + (v.session is not None and bool(v.session.timed()))
-        )
-        if figures
-        else 0
-    )
-    step = stepper(progress, 4 + n_fig + 1)
+    cols = specs = None
+    if figures:
+        cols, specs = report.page_figures(v, units)
+        specs += report.detail_figures(v, cols, units)
+    step = stepper(progress, 4 + (len(specs) if figures else 0))
     written = {}
     with output_set(out_dir) as out:
         written["summary"] = out.write("summary.json", summary_json_text(build_summary(analysis)))
         step("summary.json")
-        columns, units = _profile_columns(v)
-        written["profile"] = out.write("profile.csv", profile_csv_text(columns, units))
+        columns, col_units = _profile_columns(v)
+        written["profile"] = out.write("profile.csv", profile_csv_text(columns, col_units))
         step("profile.csv")
         fit_info = None
         if v.fit is not None:
             fit_info = {"quality": v.fit.quality, "uncertainty": v.fit.uncertainty}
         written["envelope"] = out.write("envelope.toml", envelope_toml_text(v.vehicle, fit_info))
         step("envelope.toml")
-        figure_list = _figures(v, step) if figures else []
-        for name, _caption, png in figure_list:
-            written[name] = out.write(name, png)
-        step("figures written")
-        written["report"] = out.write("report.html", report_html(v, figure_list))
+        if figures:
+            from limitlap.pictures import picture
+
+            for spec in specs:
+                name = f"{spec.key}.png"
+                written[name] = out.write(name, picture(spec, cols))
+                step(f"{spec.key} figure")
+        written["report"] = out.write("report.html", report.report_html(v, units))
         step("report.html")
     return written
 

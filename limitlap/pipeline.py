@@ -446,7 +446,12 @@ def analyse(
         corner_labels=_corner_labels(trk),
         warnings=warnings,
         gg_bands=gg.gg_bands(
-            the_lap.speed_m_s, the_lap.accel_lon_m_s2, the_lap.accel_lat_m_s2, car, k
+            the_lap.speed_m_s,
+            the_lap.accel_lon_m_s2,
+            the_lap.accel_lat_m_s2,
+            car,
+            k,
+            asked=(ideal.speed_m_s, ideal.accel_lon_m_s2, ideal.accel_lat_m_s2),
         ),
         session=table,
         bands=band,

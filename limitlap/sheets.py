@@ -13,6 +13,7 @@ from pathlib import Path
 from typing import TYPE_CHECKING
 
 from limitlap.atomic import output_set
+from limitlap.formatting import METRIC, Units
 from limitlap.outputs import Progress, csv_cell, float_or_nan, stepper
 from limitlap.units import KMH_TO_M_S
 
@@ -122,6 +123,7 @@ def write_target_sheets(
     car: str = "",
     date: str = "",
     progress: Progress | None = None,
+    units: Units = METRIC,
 ) -> list[Path]:
     """Write a printable one-page sheet per condition (PDF and PNG) and targets.csv.
 
@@ -143,15 +145,14 @@ def write_target_sheets(
         The date the sheets are for (ISO 8601, e.g. the session's), printed on each sheet.
     progress : callable, optional
         ``progress(done, total, step)``; None = silent.
+    units : formatting.Units
+        How the printed sheets show speeds and distances; targets.csv keeps km/h and m.
 
     Returns
     -------
     list of Path
         Files written: per condition ``targets_<label>.pdf`` and ``.png``, then targets.csv.
     """
-    from limitlap import figures as fg
-    from limitlap import report
-
     conds = [_condition(c, length_m, car=car, date=date) for c in conditions]
     step = stepper(progress, 2 * len(conds) + 1)
     written, seen = [], set()
@@ -162,9 +163,17 @@ def write_target_sheets(
                 slug = f"{slug}_{c['grip_scale']:.2f}".replace(".", "_")
             seen.add(slug)
             for fmt in ("pdf", "png"):
-                data = fg.target_sheet(c, circuit_name, report.SAFETY_CAUTION, fmt=fmt)
+                data = _sheet(c, circuit_name, fmt, units)
                 written.append(out.write(f"targets_{slug}.{fmt}", data))
                 step(f"target sheet {c['label']} ({fmt})")
         written.append(out.write("targets.csv", targets_csv_text(conditions, length_m=length_m)))
         step("targets.csv")
     return written
+
+
+def _sheet(condition: dict, circuit_name: str, fmt: str, units: Units) -> bytes:
+    """One condition's printable page (PDF or PNG), drawn by matplotlib (:func:`limitlap.figures.target_sheet`)."""
+    from limitlap import figures as fg
+    from limitlap import report
+
+    return fg.target_sheet(condition, circuit_name, report.SAFETY_CAUTION, fmt=fmt, units=units)

@@ -22,6 +22,7 @@ V_CAP_M_S = 200.0
 # Exact unit definitions (SI brochure, 9th ed.; international yard and pound agreement 1959).
 KMH_TO_M_S = 1000.0 / 3600.0
 MPH_TO_M_S = 1609.344 / 3600.0
+FT_TO_M = 0.3048
 DEG_TO_RAD = 3.141592653589793 / 180.0
 BAR_TO_PA = 1.0e5
 KPA_TO_PA = 1.0e3

@@ -115,6 +115,9 @@ def test_wheel_installs_and_runs_the_demo_outside_the_clone(tmp_path):
     assert run.returncode == 0, run.stderr
     out = work / "demo-out"
     assert (out / "report.html").stat().st_size > 0
+    # the vendored plotly.js travels in the wheel (package data) and is inlined in the page
+    page = (out / "report.html").read_text(encoding="utf-8")
+    assert "plotly.js (basic - minified) v4.1.1" in page
     summary = json.loads((out / "summary.json").read_text(encoding="utf-8"))
     assert summary["schema"] == "limitlap.summary/1"
     # The session it analysed is the wheel's own copy, not the clone's.
