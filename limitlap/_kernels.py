@@ -89,20 +89,23 @@ def brake_decel(kappa, b, sin_grad, veh):
     return (fx_tyre + resist) * veh[I_INV_MASS] + g * sin_grad
 
 
+@njit(cache=True, inline="always")
+def _cornering_limit(kappa, veh):
+    """v_lim² at curvature kappa: m v² |κ| = μ_y (m g + ½ρ C_L A v²), capped. [m²/s²]."""
+    aero_gain_1_m = 0.5 * veh[I_RHO] * veh[I_LIFT_AREA] / veh[I_MASS]
+    mu = veh[I_MU_LAT]
+    b_cap = veh[I_V_CAP] * veh[I_V_CAP]
+    denom = abs(kappa) - mu * aero_gain_1_m
+    if denom <= 0.0:  # straight, or downforce grows faster than the corner needs
+        return b_cap
+    return min(b_cap, mu * veh[I_G] / denom)
+
+
 @njit(cache=True)
 def _cornering_limit_into(curvature_1_m, veh, out):
     """v_lim² per point into ``out`` (:func:`cornering_speed_limit`)."""
-    m = veh[I_MASS]
-    aero_gain_1_m = 0.5 * veh[I_RHO] * veh[I_LIFT_AREA] / m
-    mu = veh[I_MU_LAT]
-    g = veh[I_G]
-    b_cap = veh[I_V_CAP] * veh[I_V_CAP]
     for i in range(curvature_1_m.shape[0]):
-        denom = abs(curvature_1_m[i]) - mu * aero_gain_1_m
-        if denom <= 0.0:  # straight, or downforce grows faster than the corner needs
-            out[i] = b_cap
-        else:
-            out[i] = min(b_cap, mu * g / denom)
+        out[i] = _cornering_limit(curvature_1_m[i], veh)
 
 
 @njit(cache=True)
@@ -359,6 +362,21 @@ def solve_speed_squared(
     (:func:`_split_passes`; the same result). On return ``work[W_FWD]`` holds v² and
     ``work[W_GRIP]`` the grip-only limit.
     """
+    pass_traces(curvature_1_m, sin_grad, ds_m, veh, closed, b_entry, b_exit, b_max, work, split)
+    fwd = work[W_FWD]
+    bwd = work[W_BWD]
+    for i in range(curvature_1_m.shape[0]):
+        fwd[i] = min(fwd[i], bwd[i])
+
+
+@njit(cache=True)
+def pass_traces(curvature_1_m, sin_grad, ds_m, veh, closed, b_entry, b_exit, b_max, work, split):
+    """The forward and backward traces of :func:`solve_speed_squared`, not yet combined.
+
+    On return ``work[W_FWD]``/``work[W_BWD]`` hold the passes' v², ``work[W_FA]``/
+    ``work[W_BD]`` the accelerations they carried, ``work[W_LIM]`` their limit, and for a
+    closed lap the index of the station both passes started from is returned (-1 open).
+    """
     n = curvature_1_m.shape[0]
     b_grip = work[W_GRIP]
     b_lim = work[W_LIM]
@@ -381,12 +399,11 @@ def solve_speed_squared(
         _split_passes(curvature_1_m, sin_grad, ds_m, veh, b_lim, work, i0, i0, split)
         _close_forward(curvature_1_m, sin_grad, ds_m, veh, b_lim, fwd, work[W_FA], i0)
         _close_backward(curvature_1_m, sin_grad, ds_m, veh, b_lim, bwd, work[W_BD], i0)
-    else:
-        fwd[0] = min(b_entry, b_lim[0])
-        bwd[n - 1] = min(b_exit, b_lim[n - 1])
-        _split_passes(curvature_1_m, sin_grad, ds_m, veh, b_lim, work, 0, n - 1, split)
-    for i in range(n):
-        fwd[i] = min(fwd[i], bwd[i])
+        return i0
+    fwd[0] = min(b_entry, b_lim[0])
+    bwd[n - 1] = min(b_exit, b_lim[n - 1])
+    _split_passes(curvature_1_m, sin_grad, ds_m, veh, b_lim, work, 0, n - 1, split)
+    return -1
 
 
 @njit(cache=True, error_model="numpy")
@@ -911,3 +928,142 @@ def despike(x, width, threshold):
     for k in range(n_bad):  # replaced after the test: every window reads unreplaced values
         x[at[k]] = med[k]
     return bad
+
+
+@njit(cache=True)
+def lap_times_for_lines(curvatures, steps, sin_grad, veh, work, split):
+    """Closed-lap time of each line given as a row of curvatures and steps, same car.
+
+    ``curvatures[r, i]`` is line r's curvature at station i, ``steps[r, i]`` the length
+    of its step from station i to i+1 (the last back to station 0); ``sin_grad`` is
+    shared. The QSS profile of :func:`solve_speed_squared` on each row.
+    """
+    n_lines, n = curvatures.shape
+    out = np.empty(n_lines)
+    no_cap = np.empty(0)
+    for r in range(n_lines):
+        k = curvatures[r]
+        ds = steps[r]
+        solve_speed_squared(k, sin_grad, ds, veh, True, 0.0, 0.0, no_cap, work, split)
+        b = work[W_FWD]
+        total = 0.0
+        for i in range(n - 1):
+            total += _step_time(ds[i], np.sqrt(b[i]) + np.sqrt(b[i + 1]))
+        total += _step_time(ds[n - 1], np.sqrt(b[n - 1]) + np.sqrt(b[0]))
+        out[r] = total
+    return out
+
+
+#: Rows of :func:`lap_time_changes`'s float scratch: a row's curvature, step and limit in
+#: its window; the forward and backward traces where they changed.
+C_K, C_DS, C_LIM, C_F, C_FA, C_B, C_BD = 0, 1, 2, 3, 4, 5, 6
+#: Rows of its mark scratch: station in the row's window; forward, backward trace changed.
+M_WIN, M_F, M_B = 0, 1, 2
+
+
+@njit(cache=True)
+def _forward_change(k, sg, ds, veh, work, i0, start, width, r, mark, ch):
+    """A row's forward trace from the station before its window (``start``) until it lands on the base trace again; returns the last station changed, or -1 when it reaches the passes' start i0 first."""
+    n = k.shape[0]
+    fwd, fa, b_lim = work[W_FWD], work[W_FA], work[W_LIM]
+    i = start - 1 if start > 0 else n - 1
+    b, acc = fwd[i], fa[i]
+    last = i
+    for m in range(n):
+        j = i + 1 if i + 1 < n else 0
+        inside = mark[M_WIN, j] == r
+        h = ch[C_DS, i] if mark[M_WIN, i] == r else ds[i]
+        kj = ch[C_K, j] if inside else k[j]
+        lim = ch[C_LIM, j] if inside else b_lim[j]
+        b, acc = _forward_step(b, acc, kj, sg[j], h, lim, veh)
+        if m >= width and b == fwd[j] and acc == fa[j]:
+            return last
+        if j == i0:
+            return -1
+        ch[C_F, j], ch[C_FA, j] = b, acc
+        mark[M_F, j] = r
+        last = j
+        i = j
+    return -1
+
+
+@njit(cache=True)
+def _backward_change(k, sg, ds, veh, work, i0, end, width, r, mark, ch):
+    """Backward twin of :func:`_forward_change` from the station after the window's ``end``; returns the first station changed, or -1."""
+    n = k.shape[0]
+    bwd, bd, b_lim = work[W_BWD], work[W_BD], work[W_LIM]
+    j = end + 1 if end + 1 < n else 0
+    b, dec = bwd[j], bd[j]
+    first = j
+    for m in range(n):
+        i = j - 1 if j > 0 else n - 1
+        inside = mark[M_WIN, i] == r
+        h = ch[C_DS, i] if inside else ds[i]
+        ki = ch[C_K, i] if inside else k[i]
+        lim = ch[C_LIM, i] if inside else b_lim[i]
+        b, dec = _backward_step(b, dec, ki, sg[i], h, lim, veh)
+        if m >= width and b == bwd[i] and dec == bd[i]:
+            return first
+        if i == i0:
+            return -1
+        ch[C_B, i], ch[C_BD, i] = b, dec
+        mark[M_B, i] = r
+        first = i
+        j = i
+    return -1
+
+
+@njit(cache=True, error_model="numpy")
+def _time_change(ds, work, first, last, r, mark, ch):
+    """New minus base time over the steps from the one before ``first`` to the one leaving ``last``. [s]."""
+    n = ds.shape[0]
+    fwd, bwd = work[W_FWD], work[W_BWD]
+    i = first - 1 if first > 0 else n - 1
+    v_old = np.sqrt(min(fwd[i], bwd[i]))
+    v_new = v_old
+    total = 0.0
+    for _ in range((last - first) % n + 2):
+        j = i + 1 if i + 1 < n else 0
+        f = ch[C_F, j] if mark[M_F, j] == r else fwd[j]
+        b = ch[C_B, j] if mark[M_B, j] == r else bwd[j]
+        w_old = np.sqrt(min(fwd[j], bwd[j]))
+        w_new = np.sqrt(min(f, b))
+        h = ch[C_DS, i] if mark[M_WIN, i] == r else ds[i]
+        total += _step_time(h, v_new + w_new) - _step_time(ds[i], v_old + w_old)
+        v_old, v_new, i = w_old, w_new, j
+    return total
+
+
+@njit(cache=True)
+def lap_time_changes(k, sg, ds, veh, work, i0, windows, k_rows, ds_rows):
+    """Change of a closed lap's time when each row's window takes the row's curvature and steps.
+
+    ``work`` holds the base line's traces (:func:`pass_traces`, which returned ``i0``);
+    ``windows[r]`` are consecutive stations (wrapping), ``k_rows[r]``/``ds_rows[r]`` their
+    new curvature and step. Only the stretch where a trace differs from the base is
+    stepped again: from the window back to where the braking trace lands on the base's,
+    and on to where the driving trace does. NaN for a row whose change reaches the
+    passes' start (solve that line whole). [s]
+    """
+    n = k.shape[0]
+    n_rows, width = windows.shape
+    mark = np.full((3, n), -1, np.int64)
+    ch = np.empty((7, n))
+    out = np.empty(n_rows)
+    for r in range(n_rows):
+        for m in range(width):
+            i = windows[r, m]
+            mark[M_WIN, i] = r
+            ch[C_K, i], ch[C_DS, i] = k_rows[r, m], ds_rows[r, m]
+            ch[C_LIM, i] = _cornering_limit(k_rows[r, m], veh)
+        start, end = windows[r, 0], windows[r, width - 1]
+        if mark[M_WIN, i0] == r:
+            out[r] = np.nan
+            continue
+        last = _forward_change(k, sg, ds, veh, work, i0, start, width, r, mark, ch)
+        first = _backward_change(k, sg, ds, veh, work, i0, end, width, r, mark, ch)
+        if last < 0 or first < 0:
+            out[r] = np.nan
+            continue
+        out[r] = _time_change(ds, work, first, last, r, mark, ch)
+    return out
