@@ -25,11 +25,14 @@ periodic uniform cubic B-splines, so every line is smooth and its curvature is e
    own; the gradient by forward differences, every coefficient's line solved in one
    compiled loop (:func:`limitlap._kernels.lap_times_for_lines`). This combination is
    this code's choice, no published source.
-4. **Per corner**: the time through the corner's segment on the driven line (the
-   ideal's) less that on the better line, both timed at the same cross-sections of the
-   track (the reference's stations), is the corner's ``line_time_s``; a segment the
-   better line is slower through shows 0 (the corners then add up to more than the
-   whole lap's). Where the corridor is narrower than
+4. **Per corner**: each corner's share runs from the end of the acceleration before it
+   (the fastest point of the ideal on the driven line since the corner before) to the
+   same point before the next corner, so what a better exit carries down the straight
+   counts for the corner it came from (:func:`line_segments`). The time through that
+   stretch on the driven line (the ideal's) less that on the better line, both timed at
+   the same cross-sections of the track (the reference's stations), is the corner's
+   ``line_time_s``; they add up to the whole lap's, except that a stretch the better
+   line is slower through shows 0. Where the corridor is narrower than
    :data:`TOLD_WIDTH_M` all through the corner, the laps all took one line there and the
    corner gets no number (:attr:`CornerLine.told` false).
 
@@ -47,6 +50,7 @@ from __future__ import annotations
 import math
 from dataclasses import dataclass
 
+import clarabel
 import numpy as np
 from scipy import optimize, sparse
 from scipy.ndimage import gaussian_filter1d
@@ -55,9 +59,13 @@ from scipy.sparse import linalg as sparse_linalg
 from limitlap import _kernels, solve
 from limitlap.corners import Corner, plateau_middle
 from limitlap.corridor import Corridor, Frame
+from limitlap.errors import LimitlapError
 from limitlap.line import Line
 from limitlap.vehicle import Vehicle
 
+#: Candidate lines are joined over a Gaussian of this standard deviation at the corners'
+#: shares' bounds (ends of straights' acceleration). [m]
+BLEND_M = 10.0
 #: Knot spacing of the line's spline: shorter than a corner's turn-in (20-50 m), long
 #: enough that the descent has few coefficients. [m]
 KNOT_M = 6.0
@@ -68,16 +76,27 @@ DESCENT_STEP_M = 2.0
 DIFFERENCE_M = 0.002
 #: Iterations of the descent. [-]
 ITERATIONS = 25
-#: A line may change curvature no faster than the driven line's :data:`RATE_QUANTILE`
-#: (over 5 m) times :data:`RATE_ALLOWANCE`: steering no quicker than the driver's own.
-RATE_QUANTILE = 0.99
-RATE_ALLOWANCE = 1.2
 #: Time a curvature rate twice the bound over 10 m costs in the descent (a soft wall). [s]
 RATE_PENALTY_S = 0.2
 #: A corner is told only where the corridor is at least this wide somewhere from
 #: :data:`TOLD_REACH_M` before its turn-in to as far after its exit. [m]
 TOLD_WIDTH_M = 0.5
 TOLD_REACH_M = 30.0
+#: Re-linearisations of the minimum-curvature problem about its own result. [-]
+RELINEARISE = 1
+#: Half-width a corridor closed on the driven line is given in the quadratic programmes
+#: (so it keeps an interior). [m]
+CLOSED_M = 0.005
+#: Time a line outside the corridor costs in the descent, per m² of excess and per m of
+#: line (a stiff wall: 1 cm outside over 10 m costs 0.01 s; the result is then held
+#: inside exactly). [s/m³]
+CORRIDOR_PENALTY = 10.0
+#: The descent's walls lie this far inside the corridor, so the little it leans on them
+#: mostly stays inside. [m]
+WALL_MARGIN_M = 0.02
+#: Weight of curvature against position when a line is moved back inside the corridor:
+#: (1/m²)⁻² per m². [m⁴]
+KEEP_CURVATURE = 1.0e5
 #: Pull of the minimum-curvature problem towards the driven line, per station and m²
 #: of offset: a curvature change of 1e-5 1/m at 0.01 1/m outweighs a metre's shift. [1/m²]
 STAY_WEIGHT = 1.0e-9
@@ -134,22 +153,6 @@ def spline_basis(distance_m, length_m: float, knot_m: float = KNOT_M) -> Basis:
     return Basis(h, *mats)
 
 
-def coefficient_bounds(basis: Basis, low_m, high_m):
-    """Bounds of each coefficient: the corridor's tightest over its support. [m].
-
-    The spline is a convex combination of the coefficients whose support holds a
-    station, so within these the line keeps inside the corridor everywhere.
-    """
-    support = basis.b0.tocsc()
-    lo = np.full(basis.size, -np.inf)
-    hi = np.full(basis.size, np.inf)
-    for k in range(basis.size):
-        rows = support.indices[support.indptr[k] : support.indptr[k + 1]]
-        if rows.size:
-            lo[k], hi[k] = np.max(low_m[rows]), np.min(high_m[rows])
-    return lo, hi
-
-
 def offset_geometry(frame: Frame, n, n1, n2, rows=None):
     """Curvature [1/m] and step length [m] of the offset line at the stations.
 
@@ -173,58 +176,91 @@ def positions(frame: Frame, offset_m):
     )
 
 
-def box_qp(h, g, lo, hi, iterations: int = 60) -> np.ndarray:
-    r"""Minimiser of :math:`\tfrac12 c^T H c + g^T c` for ``lo <= c <= hi``: projected Newton.
+def corridor_qp(basis: Basis, h, g, low_m, high_m) -> np.ndarray:
+    r"""Minimiser of :math:`\tfrac12 c^T H c + g^T c` whose line keeps inside the corridor at every station. [m].
 
-    Bertsekas' projected Newton method for simple bounds: a Newton step on the
-    coefficients not held at a bound (those at a bound with the gradient pushing out),
-    then an Armijo search along the projection arc. ``h`` sparse, positive definite.
+    A convex quadratic programme with two inequalities per station, solved by the
+    interior-point method of Clarabel (Goulart & Chen 2024). A corridor closed on the
+    driven line is opened to ±:data:`CLOSED_M` so the problem keeps an interior.
     """
-    c = np.clip(np.zeros_like(g), lo, hi)
+    low = np.minimum(low_m, -CLOSED_M)
+    high = np.maximum(high_m, CLOSED_M)
+    a = sparse.vstack([basis.b0, -basis.b0]).tocsc()
+    settings = clarabel.DefaultSettings()
+    settings.verbose = False
+    cones = [clarabel.NonnegativeConeT(a.shape[0])]
+    solver = clarabel.DefaultSolver(
+        sparse.triu(h).tocsc(),
+        np.asarray(g, float),
+        a,
+        np.concatenate([high, -low]),
+        cones,
+        settings,
+    )
+    sol = solver.solve()
+    if str(sol.status) not in ("Solved", "AlmostSolved"):
+        raise LimitlapError(f"the line's quadratic programme did not solve ({sol.status})")
+    return np.asarray(sol.x, float)
 
-    def cost(x):
-        return 0.5 * x @ (h @ x) + g @ x
 
-    for _ in range(iterations):
-        r = h @ c + g
-        held = ((c <= lo + 1e-9) & (r > 0)) | ((c >= hi - 1e-9) & (r < 0))
-        step = np.zeros_like(c)
-        free = ~held
-        if free.any():
-            step[free] = sparse_linalg.spsolve(h[free][:, free].tocsc(), -r[free])
-        f0, alpha = cost(c), 1.0
-        while True:
-            trial = np.clip(c + alpha * step, lo, hi)
-            if cost(trial) <= f0 + 1e-4 * r @ (trial - c) or alpha < 1e-6:
-                break
-            alpha *= 0.5
-        moved = np.max(np.abs(trial - c), initial=0.0)
-        c = trial
-        if moved < 1e-7:
-            break
-    return c
+def curvature_jacobian(frame: Frame, basis: Basis, c):
+    """Curvature of the line of ``c`` at the stations and its Jacobian in the coefficients (sparse). [1/m], [1/m²].
+
+    Each station's curvature depends on n, n' and n'' there only (:func:`offset_geometry`),
+    so its three partial derivatives are taken by forward differences at all stations at
+    once.
+    """
+    n, n1, n2 = basis.b0 @ c, basis.b1 @ c, basis.b2 @ c
+    k0, _ = offset_geometry(frame, n, n1, n2)
+    d = 1e-6
+    parts = [
+        (offset_geometry(frame, n + d, n1, n2)[0] - k0) / d,
+        (offset_geometry(frame, n, n1 + d, n2)[0] - k0) / d,
+        (offset_geometry(frame, n, n1, n2 + d)[0] - k0) / d,
+    ]
+    jac = sum(
+        sparse.diags(p) @ b for p, b in zip(parts, (basis.b0, basis.b1, basis.b2), strict=True)
+    )
+    return k0, jac.tocsc()
 
 
 def min_curvature(frame: Frame, corridor: Corridor, basis: Basis) -> np.ndarray:
     r"""The minimum-curvature line's coefficients (Heilmeier et al. 2020). [m].
 
-    Minimises :math:`\sum (\kappa_r + n'' + \kappa_r^2 n)^2` over the stations,
-    coefficients bounded by :func:`coefficient_bounds` (:func:`box_qp`); those the
-    corridor holds at zero over their whole support are left out. A tiny pull towards
-    the driven line (:data:`STAY_WEIGHT`) settles what the curvature does not care about
+    Minimises :math:`\sum_i \kappa_i^2` with the line inside the corridor
+    (:func:`corridor_qp`): first with the curvature linearised about the driven line,
+    :math:`\kappa \approx \kappa_r + n'' + \kappa_r^2 n`, then :data:`RELINEARISE`
+    times about the line found, with the exact curvature's Jacobian (the linearisation
+    errs by about n κ_r: 20 % at 5 m from a 25 m hairpin). A tiny pull towards the
+    driven line (:data:`STAY_WEIGHT`) settles what the curvature does not care about
     (how far across a straight the line runs).
     """
-    lo, hi = coefficient_bounds(basis, corridor.low_m, corridor.high_m)
-    free = hi - lo > 1e-6
-    c = np.zeros(basis.size)
-    if not free.any():
-        return c
     kr = frame.curvature_1_m
-    a = (basis.b2 + sparse.diags(kr * kr) @ basis.b0).tocsc()[:, free]
-    b0 = basis.b0.tocsc()[:, free]
-    h = (a.T @ a + STAY_WEIGHT * (b0.T @ b0)).tocsc()
-    c[free] = box_qp(h, a.T @ kr, lo[free], hi[free])
+    stay = STAY_WEIGHT * (basis.b0.T @ basis.b0)
+    jac = (basis.b2 + sparse.diags(kr * kr) @ basis.b0).tocsc()
+    c = corridor_qp(basis, jac.T @ jac + stay, jac.T @ kr, corridor.low_m, corridor.high_m)
+    for _ in range(RELINEARISE):
+        k0, jac = curvature_jacobian(frame, basis, c)
+        g = jac.T @ (k0 - jac @ c)
+        c = corridor_qp(basis, jac.T @ jac + stay, g, corridor.low_m, corridor.high_m)
     return c
+
+
+def fitted(basis: Basis, offset_m) -> np.ndarray:
+    """Coefficients of the spline nearest (least squares) to offsets at the stations; 0 (the driven line) where NaN. [m]."""
+    b0 = basis.b0.tocsc()
+    h = (b0.T @ b0 + 1e-9 * sparse.identity(basis.size)).tocsc()
+    return sparse_linalg.spsolve(h, b0.T @ np.nan_to_num(offset_m))
+
+
+def inside_corridor(basis: Basis, c, corridor: Corridor) -> np.ndarray:
+    """The line of ``c`` where it keeps inside the corridor at every station; else the line inside nearest to it, nearness weighted towards its curvature (:data:`KEEP_CURVATURE`) (:func:`corridor_qp`). [m]."""
+    n = basis.b0 @ c
+    if np.all((n >= corridor.low_m - 1e-9) & (n <= corridor.high_m + 1e-9)):
+        return c
+    b0, b2 = basis.b0.tocsc(), basis.b2.tocsc()
+    h = (b0.T @ b0 + KEEP_CURVATURE * (b2.T @ b2) + 1e-9 * sparse.identity(basis.size)).tocsc()
+    return corridor_qp(basis, h, -(h @ c), corridor.low_m, corridor.high_m)
 
 
 def coarse_frame(frame: Frame, step_m: float = DESCENT_STEP_M) -> Frame:
@@ -252,31 +288,37 @@ def coarse_frame(frame: Frame, step_m: float = DESCENT_STEP_M) -> Frame:
     )
 
 
+def curvature_rate(kappa, steps) -> np.ndarray:
+    """Change of curvature from each station to the next over the step between them. [1/m²]."""
+    return np.abs(np.roll(kappa, -1, axis=-1) - kappa) / steps
+
+
 def rate_bound(frame: Frame) -> float:
-    """Highest curvature rate a line may have: :data:`RATE_ALLOWANCE` times the driven line's :data:`RATE_QUANTILE` over 5 m. [1/m²]."""
-    kappa = gaussian_filter1d(frame.curvature_1_m, 5.0 / frame.step_m, mode="wrap")
-    rate = np.abs(np.roll(kappa, -1) - kappa) / frame.step_m
-    return RATE_ALLOWANCE * float(np.quantile(rate, RATE_QUANTILE))
+    """Highest curvature rate a line may have: the driven line's own highest on the same stations (steering no quicker than the driver's quickest). [1/m²]."""
+    return float(np.max(curvature_rate(frame.curvature_1_m, frame.step_m)))
 
 
 def _rate_penalty(curv, steps, bound):
     """:data:`RATE_PENALTY_S` times the squared share of curvature rate beyond ``bound``, per 10 m, summed along each row. [s]."""
-    rate = np.abs(np.roll(curv, -1, axis=-1) - curv) / steps
+    rate = curvature_rate(curv, steps)
     excess = np.maximum(rate / bound - 1.0, 0.0)
     return RATE_PENALTY_S * np.sum(excess * excess * steps, axis=-1) / 10.0
 
 
 class _LapTime:
-    """Lap time (plus the rate penalty) of a line's coefficients, and its gradient by forward differences.
+    """Lap time plus penalties (curvature rate, leaving the corridor) of a line's coefficients, and its gradient by forward differences.
 
     Every coefficient's line is the base line with that coefficient moved by
     :data:`DIFFERENCE_M`; only the stations of its support (its window) change, and only
     the stretch of the speed traces that they reach is solved again
-    (:func:`limitlap._kernels.lap_time_changes`).
+    (:func:`limitlap._kernels.lap_time_changes`). ``low_m``/``high_m`` are the corridor
+    at ``frame``'s stations.
     """
 
-    def __init__(self, frame: Frame, basis: Basis, vehicle: Vehicle, grip_scale, bound):
-        self.frame, self.basis, self.bound = frame, basis, bound
+    def __init__(self, frame: Frame, basis: Basis, vehicle: Vehicle, grip_scale, walls):
+        self.frame, self.basis = frame, basis
+        self.bound = rate_bound(frame)
+        self.low, self.high = walls
         self.veh = solve.vehicle_array(vehicle, grip_scale)
         g = frame.gradient
         self.sin_grad = np.ascontiguousarray(g / np.sqrt(1.0 + g * g))
@@ -290,56 +332,54 @@ class _LapTime:
         t = (np.mod(frame.distance_m[self.rows] - centre + half, frame.length_m) - half) / h
         b0, b1, b2 = _bspline(t)
         self.shape = (b0, b1 / h, b2 / (h * h))
+        is_open = self.high - self.low > 2.0 * CLOSED_M
+        self.free = is_open[self.rows].any(axis=1)
 
-    def geometry(self, c):
-        """Curvature and steps of the line of coefficients ``c``. [1/m], [m]."""
-        b = self.basis
-        return offset_geometry(self.frame, b.b0 @ c, b.b1 @ c, b.b2 @ c)
+    def _wall(self, n, rows=None):
+        """Penalty of offsets outside the corridor, per station. [s]."""
+        low = self.low if rows is None else self.low[rows]
+        high = self.high if rows is None else self.high[rows]
+        out = np.maximum(np.maximum(low - n, n - high), 0.0)
+        return CORRIDOR_PENALTY * out * out * self.frame.step_m
 
     def time(self, c) -> float:
-        """Lap time plus rate penalty of one line. [s]."""
-        curv, steps = self.geometry(c)
-        return float(self._solve(curv[None, :], steps[None, :])[0])
+        """Lap time plus penalties of one line. [s]."""
+        b = self.basis
+        n = b.b0 @ c
+        curv, steps = offset_geometry(self.frame, n, b.b1 @ c, b.b2 @ c)
+        lap = self._traces(curv, steps)[0]
+        return lap + float(_rate_penalty(curv, steps, self.bound) + self._wall(n).sum())
 
-    def _solve(self, curv, steps):
-        """Lap time plus rate penalty of each row's line. [s]."""
-        split = self.frame.n >= _kernels.SPLIT_MIN_STATIONS
-        times = _kernels.lap_times_for_lines(
-            np.ascontiguousarray(curv),
-            np.ascontiguousarray(steps),
-            self.sin_grad,
-            self.veh,
-            self.work,
-            split,
-        )
-        return times + _rate_penalty(curv, steps, self.bound)
-
-    def with_gradient(self, c, free):
-        """(time, gradient over the ``free`` coefficients) of the line of ``c``. [s], [s/m]."""
+    def with_gradient(self, c):
+        """(time plus penalties, their gradient over the free coefficients) of the line of ``c``. [s], [s/m]."""
         b = self.basis
         n, n1, n2 = b.b0 @ c, b.b1 @ c, b.b2 @ c
         curv, steps = offset_geometry(self.frame, n, n1, n2)
-        ks = np.flatnonzero(free)
-        rows = self.rows[ks]
-        e = DIFFERENCE_M
-        sh = [v[ks] for v in self.shape]
+        rows, e = self.rows[self.free], DIFFERENCE_M
+        sh = [v[self.free] for v in self.shape]
+        moved = n[rows] + e * sh[0]
         pk, ps = offset_geometry(
-            self.frame, n[rows] + e * sh[0], n1[rows] + e * sh[1], n2[rows] + e * sh[2], rows
+            self.frame, moved, n1[rows] + e * sh[1], n2[rows] + e * sh[2], rows
         )
-        base = self._traces(curv, steps)
+        lap, i0 = self._traces(curv, steps)
         change = _kernels.lap_time_changes(
-            curv, self.sin_grad, steps, self.veh, self.work, base[1], rows, pk, ps
+            curv, self.sin_grad, steps, self.veh, self.work, i0, rows, pk, ps
         )
         whole = np.flatnonzero(~np.isfinite(change))
         if whole.size:  # a change that reaches the passes' start: solve those lines whole
-            all_k = np.tile(curv, (whole.size, 1))
-            all_s = np.tile(steps, (whole.size, 1))
-            all_k[np.arange(whole.size)[:, None], rows[whole]] = pk[whole]
-            all_s[np.arange(whole.size)[:, None], rows[whole]] = ps[whole]
-            change[whole] = self._solve(all_k, all_s) - _rate_penalty(all_k, all_s, self.bound)
-            change[whole] -= base[0]
+            change[whole] = self._whole(curv, steps, rows[whole], pk[whole], ps[whole]) - lap
         change += self._penalty_change(curv, steps, rows, pk, ps)
-        return base[0] + float(_rate_penalty(curv, steps, self.bound)), change / e
+        change += (self._wall(moved, rows) - self._wall(n[rows], rows)).sum(axis=1)
+        base = lap + float(_rate_penalty(curv, steps, self.bound) + self._wall(n).sum())
+        return base, change / e
+
+    def _whole(self, curv, steps, rows, pk, ps):
+        """Lap times of the lines patched at ``rows``, each solved whole. [s]."""
+        all_k = np.tile(curv, (rows.shape[0], 1))
+        all_s = np.tile(steps, (rows.shape[0], 1))
+        all_k[np.arange(rows.shape[0])[:, None], rows] = pk
+        all_s[np.arange(rows.shape[0])[:, None], rows] = ps
+        return _lap_times_of(self, all_k, all_s)
 
     def _traces(self, curv, steps):
         """The base line's pass traces into the scratch: (lap time [s], the passes' start)."""
@@ -359,7 +399,7 @@ class _LapTime:
         return float(np.sum(2.0 * steps / (v + np.roll(v, -1)))), int(i0)
 
     def _penalty_change(self, curv, steps, rows, pk, ps):
-        """Change of the rate penalty of each row's line (its window and the station before). [s]."""
+        """Change of the rate penalty of each row's line (its window and a station either side). [s]."""
         n = self.frame.n
         ext = np.concatenate([np.mod(rows[:, :1] - 1, n), rows, np.mod(rows[:, -1:] + 1, n)], 1)
         k_new = curv[ext]
@@ -375,32 +415,35 @@ class _LapTime:
         return terms(k_new, s_new) - terms(k_old, s_old)
 
 
-def faster_line(frame, basis, bounds, start, vehicle, grip_scale, iterations=ITERATIONS):
-    """Coefficients of a line faster than ``start``'s: L-BFGS-B on :class:`_LapTime`. [m].
+def _lap_times_of(problem: _LapTime, curv, steps) -> np.ndarray:
+    """Closed-lap QSS time of each row's line on the problem's stations. [s]."""
+    return _kernels.lap_times_for_lines(
+        np.ascontiguousarray(curv),
+        np.ascontiguousarray(steps),
+        problem.sin_grad,
+        problem.veh,
+        problem.work,
+        problem.frame.n >= _kernels.SPLIT_MIN_STATIONS,
+    )
 
-    ``frame`` and ``basis`` are the descent's (:func:`coarse_frame`); ``bounds`` the
-    coefficients' (:func:`coefficient_bounds` on the corridor), which they keep.
-    """
-    lo, hi = bounds
-    free = hi - lo > 1e-6
-    problem = _LapTime(frame, basis, vehicle, grip_scale, rate_bound(frame))
-    c = np.clip(start, lo, hi)
-    if not free.any():
-        return c
+
+def faster_line(problem: _LapTime, start, iterations=ITERATIONS):
+    """Coefficients of a line faster than ``start``'s: L-BFGS-B on ``problem`` (:class:`_LapTime`, on the descent's stations) over the coefficients that reach an open corridor; the others hold the driven line (0). [m]."""
+    c = np.where(problem.free, start, 0.0)
 
     def fun(x):
-        c[free] = x
-        return problem.with_gradient(c, free)
+        c[problem.free] = x
+        return problem.with_gradient(c)
 
-    res = optimize.minimize(
-        fun,
-        c[free].copy(),
-        jac=True,
-        method="L-BFGS-B",
-        bounds=list(zip(lo[free], hi[free], strict=True)),
-        options={"maxiter": iterations},
-    )
-    c[free] = np.clip(res.x, lo[free], hi[free])
+    if problem.free.any():
+        res = optimize.minimize(
+            fun,
+            c[problem.free].copy(),
+            jac=True,
+            method="L-BFGS-B",
+            options={"maxiter": iterations},
+        )
+        c[problem.free] = res.x
     return c
 
 
@@ -412,15 +455,26 @@ def line_of(frame: Frame, n, n1, n2) -> Line:
     return Line(distance, curv, frame.gradient, float(steps.sum()), True, x, y)
 
 
-def segment_times(frame: Frame, elapsed_s, lap_time_s: float, corners) -> np.ndarray:
-    """Time through each corner's segment from a line's elapsed time at the reference's stations (bounds placed by the reference's distance; through the gate, wrapped). [s]."""
+def line_segments(frame: Frame, speed_m_s, corners) -> np.ndarray:
+    """Where each corner's share of the line's time begins: the fastest station of the ideal on the driven line between the previous corner's apex and this one's (the end of the straight's acceleration: what a better exit gains is carried to there). [m]."""
+    ds, n = frame.step_m, frame.n
+    apexes = np.array([round(c.apex_m / ds) for c in corners], np.int64)
+    out = []
+    for i, apex in enumerate(apexes):
+        prev = apexes[i - 1] if len(apexes) > 1 else apex - n + 1
+        idx = np.mod(np.arange(prev + 1 if prev < apex else prev + 1 - n, apex), n)
+        out.append(frame.distance_m[idx[np.argmax(speed_m_s[idx])]] if idx.size else 0.0)
+    return np.array(out)
+
+
+def segment_times(frame: Frame, elapsed_s, lap_time_s: float, bounds_m) -> np.ndarray:
+    """Time from each bound to the next (the last back round to the first) from a line's elapsed time at the reference's stations. [s]."""
     s_ring = np.append(frame.distance_m, frame.length_m)
     t_ring = np.append(elapsed_s, lap_time_s)
-    out = []
-    for c in corners:
-        t0, t1 = np.interp([c.start_m, c.end_m], s_ring, t_ring)
-        out.append((t1 - t0) % lap_time_s if c.start_m != c.end_m else lap_time_s)
-    return np.array(out)
+    t = np.interp(bounds_m, s_ring, t_ring)
+    if t.size == 1:
+        return np.array([lap_time_s])
+    return np.mod(np.roll(t, -1) - t, lap_time_s)
 
 
 def _lap_times(frame: Frame, curv, steps, vehicle: Vehicle, grip_scale) -> np.ndarray:
@@ -576,21 +630,65 @@ def _fine_times(frame, basis, coefficient_sets, vehicle, grip_scale):
     return _lap_times(frame, curv, steps, vehicle, grip_scale)
 
 
-def _better_coefficients(frame, corridor, basis, vehicle, grip_scale):
-    """(minimum-curvature coefficients, better coefficients, their lap times and the driven line's). [m], [s]."""
+def _shares(frame, basis, c, vehicle, grip_scale, driven, bounds):
+    """Each corner's share of the time the line of ``c`` saves against the driven line (:func:`line_segments`), and its lap time. [s]."""
+    line = line_of(frame, basis.b0 @ c, basis.b1 @ c, basis.b2 @ c)
+    prof = solve.solve_profile(line, vehicle, grip_scale)
+    saved = segment_times(frame, driven.time_s, driven.lap_time_s, bounds) - segment_times(
+        frame, prof.time_s, prof.lap_time_s, bounds
+    )
+    return saved, prof.lap_time_s
+
+
+def _composite(frame, basis, corridor, candidates, shares, bounds):
+    """Coefficients of the line that takes, through each corner's share of the lap, the candidate line that saves most there (the driven line where none saves), blended over :data:`BLEND_M` at the shares' bounds. [m]."""
+    pick = np.argmax(np.vstack([np.zeros(len(bounds)), *shares]), axis=0)
+    lines = [np.zeros(frame.n)] + [basis.b0 @ c for c in candidates]
+    edges = np.round(np.asarray(bounds) / frame.step_m).astype(np.int64)
+    n = np.zeros(frame.n)
+    for j, choice in enumerate(pick):
+        part = np.zeros(frame.n)
+        stop = edges[(j + 1) % len(edges)] if len(edges) > 1 else edges[j] + frame.n
+        part[np.mod(np.arange(edges[j], stop if stop > edges[j] else stop + frame.n), frame.n)] = 1
+        part = gaussian_filter1d(part, BLEND_M / frame.step_m, mode="wrap")
+        n += part * lines[choice]
+    return fitted(basis, n)
+
+
+def _better_coefficients(frame, corridor, basis, vehicle, grip_scale, driven, bounds):
+    """(better coefficients, lap times of the minimum-curvature and better lines). [m], [s].
+
+    Candidates: the minimum-curvature line and each lap's own line where the corridor is
+    open (the driven line where it is closed). The descent starts from the faster of the
+    minimum-curvature line and the line that takes each corner from the candidate that
+    saves most there (:func:`_composite`), with its walls :data:`WALL_MARGIN_M` inside
+    the corridor; its result is then held inside the corridor exactly
+    (:func:`inside_corridor`). A line slower than the driven one is never given.
+    """
     c_mc = min_curvature(frame, corridor, basis)
-    bounds = coefficient_bounds(basis, corridor.low_m, corridor.high_m)
+    opened = gaussian_filter1d(
+        (corridor.width_m > 2.0 * CLOSED_M).astype(float), BLEND_M / frame.step_m, mode="wrap"
+    )
+    laps = [] if corridor.lap_offsets_m is None else corridor.lap_offsets_m
+    candidates = [c_mc] + [fitted(basis, opened * np.nan_to_num(row)) for row in laps]
+    shares = [_shares(frame, basis, c, vehicle, grip_scale, driven, bounds) for c in candidates]
+    composite = _composite(frame, basis, corridor, candidates, [sh[0] for sh in shares], bounds)
+    composite = inside_corridor(basis, composite, corridor)
     coarse = coarse_frame(frame)
     basis_c = spline_basis(coarse.distance_m, coarse.length_m, basis.knot_m)
-    zero = np.zeros(basis.size)
-    c_best = faster_line(coarse, basis_c, bounds, c_mc, vehicle, grip_scale)
-    t_drv, t_mc, t_best = _fine_times(frame, basis, (zero, c_mc, c_best), vehicle, grip_scale)
-    if t_best > t_drv:  # the descent from the driven line instead; never worse than it
-        c_best = faster_line(coarse, basis_c, bounds, zero, vehicle, grip_scale)
-        t_best = float(_fine_times(frame, basis, (c_best,), vehicle, grip_scale)[0])
-        if t_best > t_drv:
-            c_best, t_best = zero, t_drv
-    return c_mc, c_best, (float(t_drv), float(t_mc), float(t_best))
+    low, high = (
+        np.interp(coarse.distance_m, frame.distance_m, v, period=frame.length_m)
+        for v in (corridor.low_m, corridor.high_m)
+    )
+    walls = (np.minimum(low + WALL_MARGIN_M, 0.0), np.maximum(high - WALL_MARGIN_M, 0.0))
+    problem = _LapTime(coarse, basis_c, vehicle, grip_scale, walls)
+    times = _fine_times(frame, basis, (c_mc, composite), vehicle, grip_scale)
+    start = (c_mc, composite)[int(np.argmin(times))]
+    c_best = inside_corridor(basis, faster_line(problem, start), corridor)
+    t_best = float(_fine_times(frame, basis, (c_best,), vehicle, grip_scale)[0])
+    if t_best > driven.lap_time_s:
+        c_best, t_best = np.zeros(basis.size), driven.lap_time_s
+    return c_best, (float(shares[0][1]), t_best)
 
 
 def line_opportunity(frame: Frame, corridor: Corridor, corners, vehicle: Vehicle, grip_scale=1.0):
@@ -614,13 +712,15 @@ def line_opportunity(frame: Frame, corridor: Corridor, corners, vehicle: Vehicle
     LineOpportunity
     """
     basis = spline_basis(frame.distance_m, frame.length_m)
-    _c_mc, c, (_t_drv, t_mc, _) = _better_coefficients(frame, corridor, basis, vehicle, grip_scale)
+    zero = np.zeros(frame.n)
+    driven = solve.solve_profile(line_of(frame, zero, zero, zero), vehicle, grip_scale)
+    bounds = line_segments(frame, driven.speed_m_s, corners)
+    c, (t_mc, _) = _better_coefficients(frame, corridor, basis, vehicle, grip_scale, driven, bounds)
     n, n1, n2 = basis.b0 @ c, basis.b1 @ c, basis.b2 @ c
     line = line_of(frame, n, n1, n2)
     better = solve.solve_profile(line, vehicle, grip_scale)
-    driven = solve.solve_profile(line_of(frame, 0.0 * n, 0.0 * n, 0.0 * n), vehicle, grip_scale)
-    saved = segment_times(frame, driven.time_s, driven.lap_time_s, corners) - segment_times(
-        frame, better.time_s, better.lap_time_s, corners
+    saved = segment_times(frame, driven.time_s, driven.lap_time_s, bounds) - segment_times(
+        frame, better.time_s, better.lap_time_s, bounds
     )
     kappa, steps = line.curvature_1_m, line.ds_m
     records = tuple(
@@ -628,7 +728,6 @@ def line_opportunity(frame: Frame, corridor: Corridor, corners, vehicle: Vehicle
         for cn, t in zip(corners, saved, strict=True)
     )
     x, y = positions(frame, n)
-    rate = np.abs(np.roll(kappa, -1) - kappa) / steps
     return LineOpportunity(
         corridor=corridor,
         offset_m=n,
@@ -644,5 +743,5 @@ def line_opportunity(frame: Frame, corridor: Corridor, corners, vehicle: Vehicle
         profile=better,
         corners=records,
         rate_bound_1_m2=rate_bound(frame),
-        rate_max_1_m2=float(np.max(gaussian_filter1d(rate, 5.0 / frame.step_m, mode="wrap"))),
+        rate_max_1_m2=float(np.max(curvature_rate(kappa, steps))),
     )

@@ -67,7 +67,7 @@ MIN_LAPS = 2
 #: highest and lowest of a few laps step from lap to lap. [m]
 EDGE_SMOOTHING_M = 2.0
 #: Smallest σ taken (a noiseless generated log would otherwise give none). [m]
-UNCERTAINTY_FLOOR_M = 0.03
+UNCERTAINTY_FLOOR_M = 0.01
 #: The quantile of the laps' spread along the lap that σ is read from. [-]
 SPREAD_QUANTILE = 0.25
 #: The band of laps that all drove one line is shrunk so far that it closes at this
@@ -358,6 +358,8 @@ class Corridor:
         The laps whose paths made it. [-]
     source : str
         ``"laps"`` or ``"track edges"``.
+    lap_offsets_m : numpy.ndarray
+        Each lap's offset at each station (rows: ``laps``), NaN where it does not count. [m]
     """
 
     distance_m: np.ndarray
@@ -369,6 +371,7 @@ class Corridor:
     uncertainty_m: float
     laps: tuple[int, ...]
     source: str
+    lap_offsets_m: np.ndarray | None = None
 
     @property
     def width_m(self) -> np.ndarray:
@@ -382,8 +385,9 @@ def _band(frame: Frame, offsets: np.ndarray, sigma: float):
     some = count >= MIN_LAPS
     hi = np.full(frame.n, np.nan)
     lo = np.full(frame.n, np.nan)
-    hi[some] = np.nanmax(offsets[:, some], axis=0)
-    lo[some] = np.nanmin(offsets[:, some], axis=0)
+    if some.any():
+        hi[some] = np.nanmax(offsets[:, some], axis=0)
+        lo[some] = np.nanmin(offsets[:, some], axis=0)
     width = EDGE_SMOOTHING_M / frame.step_m
     hi_s = gaussian_filter1d(np.where(some, hi, 0.0), width, mode="wrap")
     lo_s = gaussian_filter1d(np.where(some, lo, 0.0), width, mode="wrap")
@@ -431,4 +435,5 @@ def corridor(frame: Frame, paths, edges: EdgeLines | None = None) -> Corridor:
         uncertainty_m=sigma,
         laps=tuple(p.number for p in paths),
         source=source,
+        lap_offsets_m=offsets,
     )

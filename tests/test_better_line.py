@@ -1,0 +1,111 @@
+"""The corridor and the better line on lines whose answer is known in closed form."""
+
+from __future__ import annotations
+
+import math
+
+import numpy as np
+import pytest
+from scipy.spatial import cKDTree
+
+from limitlap import better_line, corridor
+from limitlap.line import Line
+from tests import arc_circuit
+
+#: Rounded square: four 90° left-hand arcs of radius R joined by straights of length L.
+R_M, STRAIGHT_M, HALF_WIDTH_M = 50.0, 300.0, 4.0
+
+
+def _belt(centres, radii, step_m=0.25):
+    """The belt round circles (tests/arc_circuit.py: no limitlap geometry), sampled: x, y, heading, curvature."""
+    xs, ys, hs, ks = [], [], [], []
+    for p in arc_circuit.belt_pieces(centres, radii):
+        s = np.arange(0.0, p.length_m, step_m)
+        if isinstance(p, arc_circuit.Straight):
+            xs.append(p.start_xy[0] + s * math.cos(p.heading_rad))
+            ys.append(p.start_xy[1] + s * math.sin(p.heading_rad))
+            hs.append(np.full_like(s, p.heading_rad))
+            ks.append(np.zeros_like(s))
+        else:
+            psi = p.heading_in_rad + s / p.radius_m
+            xs.append(p.centre_xy[0] + p.radius_m * np.sin(psi))
+            ys.append(p.centre_xy[1] - p.radius_m * np.cos(psi))
+            hs.append(psi)
+            ks.append(np.full_like(s, 1.0 / p.radius_m))
+    return tuple(np.concatenate(v) for v in (xs, ys, hs, ks))
+
+
+def _smooth_reference(length_m, start_xy, heading, width_m=10.0, step_m=0.25) -> Line:
+    """A closed line through the rounded square from the middle of a straight, whose curvature is the band's centreline's
+    (1/R on the arcs, 0 on the straights) smoothed by a Gaussian, as a rebuilt lap's is
+    smooth; heading and position integrated (it closes by the square's symmetry); 1 m
+    stations."""
+    from scipy.ndimage import gaussian_filter1d
+
+    quarter = STRAIGHT_M + R_M * math.pi / 2
+    per_quarter = round(quarter / step_m)
+    h = quarter / per_quarter
+    grid = np.arange(4 * per_quarter) * h
+    on_arc = np.mod(grid + STRAIGHT_M / 2, quarter) >= STRAIGHT_M  # from a straight's middle
+    k = gaussian_filter1d(np.where(on_arc, 1.0, 0.0), width_m / h, mode="wrap")
+    k *= 2 * math.pi / (np.sum(k) * h)  # exactly one turn, so that it closes
+    psi = heading + np.concatenate([[0.0], np.cumsum(0.5 * (k[1:] + k[:-1])) * h])
+    x = start_xy[0] + np.concatenate([[0.0], np.cumsum(np.cos(0.5 * (psi[1:] + psi[:-1]))) * h])
+    y = start_xy[1] + np.concatenate([[0.0], np.cumsum(np.sin(0.5 * (psi[1:] + psi[:-1]))) * h])
+    n = round(length_m)
+    s = np.arange(n) * (length_m / n)
+    at = [np.interp(s, grid, v) for v in (k, x, y)]
+    return Line(s, at[0], np.zeros(n), length_m, True, at[1], at[2])
+
+
+@pytest.fixture(scope="module")
+def square():
+    """The band's centreline (x, y at 0.25 m), its edges, and a smooth reference line inside it."""
+    half = STRAIGHT_M / 2.0
+    centres = [(half, -half), (half, half), (-half, half), (-half, -half)]
+    x, y, psi, _ = _belt(centres, [R_M] * 4)
+    length = 4 * (STRAIGHT_M + R_M * math.pi / 2)
+    nx, ny = -np.sin(psi), np.cos(psi)
+    w = HALF_WIDTH_M
+    edges = corridor.EdgeLines(x + w * nx, y + w * ny, x - w * nx, y - w * ny, margin_m=0.0)
+    reference = _smooth_reference(length, (half + R_M, 0.0), math.pi / 2)
+    return x, y, edges, reference
+
+
+def test_minimum_curvature_is_the_largest_arc_that_fits(square):
+    # Closed form (plane geometry): in a band of half-width w round a θ = 90° arc of
+    # radius R between straights, the largest arc tangent to both outer edges and
+    # touching the inner edge has radius ρ = R + w (1 + cos θ/2) / (1 - cos θ/2) (its
+    # centre on the bisector; |OV| = (R + w) / cos θ/2 from the arc's centre to the outer
+    # edges' corner). No line in the band turns through the corner with a larger smallest
+    # radius, and the arc's Σκ²ds = θ/ρ bounds the minimum-curvature line's from above.
+    x, y, edges, reference = square
+    frame = corridor.reference_frame(reference)
+    band = corridor.corridor(frame, [], edges)
+    basis = better_line.spline_basis(frame.distance_m, frame.length_m)
+    c = better_line.min_curvature(frame, band, basis)
+    n = basis.b0 @ c
+    kappa, steps = better_line.offset_geometry(frame, n, basis.b1 @ c, basis.b2 @ c)
+    half_turn = math.pi / 4.0
+    rho = R_M + HALF_WIDTH_M * (1 + math.cos(half_turn)) / (1 - math.cos(half_turn))
+    assert np.all(n >= band.low_m - 1e-9) and np.all(n <= band.high_m + 1e-9)
+    assert 1.0 / np.max(np.abs(kappa)) <= rho * 1.005  # no radius beyond the largest arc
+    assert 1.0 / np.max(np.abs(kappa)) > 0.8 * rho  # and close to it
+    assert np.sum(kappa**2 * steps) <= 4 * (math.pi / 2) / rho * 1.01
+    # Inside at each apex, the full width at entry and exit: the line's distance from the
+    # band's centreline (+ towards the inside) at the arcs' middles and along the
+    # straights either side. Tolerance: the spline's coefficients keep it inside by up
+    # to the band's curvature over a knot (a few cm).
+    lx, ly = better_line.positions(frame, n)
+    tree = cKDTree(np.column_stack([x, y]))
+    _, near = tree.query(np.column_stack([lx, ly]))
+    half = STRAIGHT_M / 2.0
+    inside = np.hypot(lx - x[near], ly - y[near]) * np.sign(
+        (np.hypot(lx, ly) < np.hypot(x[near], y[near])) - 0.5
+    )
+    for cx, cy in [(half, -half), (half, half), (-half, half), (-half, -half)]:
+        d = np.hypot(lx - cx, ly - cy)
+        assert d.min() == pytest.approx(R_M - HALF_WIDTH_M, abs=0.05)  # touches the inside
+    assert inside.max() == pytest.approx(HALF_WIDTH_M, abs=0.05)
+    assert inside.min() == pytest.approx(-HALF_WIDTH_M, abs=0.05)  # and the outside
+    assert np.sum(inside < -HALF_WIDTH_M + 0.05) > 4 * 20  # before and after every corner
