@@ -32,7 +32,7 @@ import numpy as np
 from numba import njit
 from scipy import optimize
 
-from tests.arc_circuit import G, Arc, Car, belt_pieces
+from tests.arc_circuit import Arc, Car, G, belt_pieces
 
 #: The invented track: a kite of four left-hand corners (82°, 108°, a 21° kink and a
 #: 150° hairpin of radius 20 m), 1.87 km round its centreline.
