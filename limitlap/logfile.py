@@ -19,6 +19,7 @@ from pathlib import Path
 
 import numpy as np
 
+from limitlap import derived as derived_mod
 from limitlap.errors import InputError
 from limitlap.gnss import dropout_warnings, to_enu
 from limitlap.ingest import (
@@ -51,6 +52,11 @@ class Log:
         (latitude deg, longitude deg, height m) of the ENU origin, None for x/y logs.
     warnings : list of str
         Problems found that did not stop the read (one line each, naming the file).
+    derived : dict
+        Channels not logged but derived from others (:mod:`limitlap.derived`): name -> how
+        (its record there). They stand in where a channel is needed as a quantity, never
+        where one is checked against the GPS path or taken as an independent
+        measurement of the line's shape (:meth:`measured`).
     """
 
     path: str
@@ -58,6 +64,7 @@ class Log:
     channels: dict[str, np.ndarray]
     origin: tuple[float, float, float] | None = None
     warnings: list[str] = field(default_factory=list)
+    derived: dict = field(default_factory=dict)
 
     def has(self, name: str) -> bool:
         """True when the channel exists and has at least one value (a deferred channel, see :func:`read_log`'s ``defer``: when its column exists)."""
@@ -71,6 +78,10 @@ class Log:
         if hit is None or hit[0] is not ch:
             hit = seen[name] = (ch, bool(np.isfinite(ch).any()))
         return hit[1]
+
+    def measured(self, name: str) -> bool:
+        """True when the log has the channel and it was logged, not derived (:attr:`derived`)."""
+        return name not in self.derived and self.has(name)
 
     def channel_rows(self, name: str, start: int, stop: int) -> np.ndarray:
         """Values of channel ``name`` for rows ``start`` to ``stop`` (exclusive), SI.
@@ -155,12 +166,11 @@ def _resolve_columns(path: Path, header: list[str], cmap: ChannelMap | None):
                 column=cell,
             )
         found[name] = (i, CHANNEL_UNITS[name][unit], 1.0)
-    for channel in ("time", "speed"):
-        if channel not in found:
-            raise InputError(
-                path,
-                f"missing required channel '{channel}' (a column '{channel} [unit]' or a channel-map entry)",
-            )
+    if "time" not in found:
+        raise InputError(
+            path,
+            "missing required channel 'time' (a column 'time [unit]' or a channel-map entry)",
+        )
     has_geo = "latitude" in found and "longitude" in found
     has_xy = "x" in found and "y" in found
     if not (has_geo or has_xy):
@@ -590,20 +600,32 @@ def read_log(path, channel_map=None, *, on_channels=None, defer=()) -> Log:
     data, rows, keep = _data_rows(path, data, found, column)
     warnings: list[str] = []
     time_s, data, rows = _time_base(path, data, rows, column, warnings)
-    if not np.isfinite(data["speed"]).any():
+    if "speed" in data and not np.isfinite(data["speed"]).any():
         raise InputError(path, "no speed: the column is blank in every row", column=column("speed"))
     if "lap" in data:
         _check_lap_column(path, data["lap"], rows, column("lap"))
-    if on_channels is not None:
+    if on_channels is not None and "speed" in data:
         on_channels(time_s, data)
     origin = _local_positions(path, data, time_s, rows, column, warnings)
+    derived = {}
+    if "speed" not in data:  # a GPS-only log without speed: from the fixes
+        derived["speed"] = _speed_from_fixes(path, data, time_s, warnings)
+        if on_channels is not None:
+            on_channels(time_s, data)
     channels = _Channels(data)
     if later:
         channels.deferred = _Deferred(
             path, source, *fmt, later, found["time"], time_s, rows - 2,
             np.flatnonzero(~keep), n_rows,
         )  # fmt: skip
-    log = Log(path=str(path), time_s=time_s, channels=channels, origin=origin, warnings=warnings)
+    log = Log(
+        path=str(path),
+        time_s=time_s,
+        channels=channels,
+        origin=origin,
+        warnings=warnings,
+        derived=derived,
+    )
     warnings.extend(dropout_warnings(log, rows))
     return log
 
@@ -718,17 +740,44 @@ def _require_movement(path, data, time_s, fix, names, column, where):
         if np.fmax.reduce(probe) - np.fmin.reduce(probe) >= _FROZEN_SPAN_M:
             return
     span = max(float(np.ptp(x[fix])), float(np.ptp(y[fix])))
+    cols = " and ".join(f"'{column(n)}'" for n in names)
+    if "speed" not in data:
+        if span >= _FROZEN_SPAN_M or fix.sum() < 3:  # too few fixes: the speed's own message
+            return
+        raise InputError(
+            path,
+            f"no 'speed' channel, and columns {cols} never change (all {int(fix.sum())} "
+            f"fixes within {_FROZEN_SPAN_M:g} m of {where}): speed cannot be derived from "
+            "a frozen or absent GPS position",
+        )
     speed = data["speed"]
     moved = float(np.nansum(0.5 * (speed[1:] + speed[:-1]) * np.diff(time_s)))
     if span >= _FROZEN_SPAN_M or not moved > _FROZEN_TRAVEL_M:
         return
-    cols = " and ".join(f"'{column(n)}'" for n in names)
     raise InputError(
         path,
         f"columns {cols}: the position never changes (all {int(fix.sum())} fixes within "
         f"{_FROZEN_SPAN_M:g} m of {where} while the speed covers {moved / 1000:.1f} km): "
         "frozen or absent GPS",
     )
+
+
+def _speed_from_fixes(path, data, time_s, warnings):
+    """Speed from the fixes (:func:`limitlap.derived.speed_from_fixes`) into ``data``, a warning saying so; its record."""
+    found = derived_mod.speed_from_fixes(time_s, data["x"], data["y"])
+    if not np.isfinite(found.speed_m_s).any():
+        raise InputError(
+            path,
+            "no 'speed' channel, and too few GPS fixes in a row to derive it from them "
+            f"(no {max(found.window, 3)} fixes without a gap of {derived_mod.GAP_INTERVALS:g} "
+            "fix intervals or more)",
+        )
+    data["speed"] = found.speed_m_s
+    warnings.append(
+        f"{path}: no 'speed' channel: speed derived from the GPS fixes (their path "
+        f"smoothed over {found.window_s:.2g} s, noise about {found.noise_m_s:.2f} m/s)"
+    )
+    return found
 
 
 def _require_a_fix(path, first, fix, first_name, second_name, column):

@@ -273,7 +273,7 @@ BAD_LOGS = [
     ("\r\n  \n", "log.csv: file is empty"),
     ("time,speed,latitude,longitude\n", "no data rows (header only)"),
     ("time,speed,latitude,longitude\n\n", "no data rows (header only)"),
-    ("time,latitude,longitude\n0,1,2\n", "missing required channel 'speed'"),
+    ("time,latitude,longitude\n0,1,2\n", "no 'speed' channel, and too few GPS fixes"),
     ("speed,latitude,longitude\n0,1,2\n", "missing required channel 'time'"),
     (
         "time,speed\n0,1\n",
