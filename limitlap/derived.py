@@ -64,6 +64,13 @@ ACCEL_NOISE_TARGET_M_S2 = 0.1
 #: over the window, so the peak deceleration of a short braking zone is shaved; 1.5 s is
 #: under half of a typical 3-5 s braking zone (common practice, no published source). [s]
 MAX_WINDOW_S = 1.5
+#: How much faster than the truth the ideal lap came out with a_y derived from the GPS
+#: line (both accelerations derived, with or without speed): 0.1-1.05 % on generated
+#: sessions at 10 and 25 Hz (seeds 1-6, benchmarks/gps_only.py); with a_y logged and a_x
+#: derived, 0.1 %. The a_y of a GPS-only line carries the fixes' noise through the
+#: line's smoothing (5-7 % of a_y on a circle at 10 Hz, 0.1 m noise): a high quantile
+#: of it widens the lateral limit. Said in the warning. [%]
+IDEAL_FAST_PERCENT = 1.0
 #: Samples further apart than this many of their own intervals break a stretch (the
 #: filter never reaches across a dropout). [-]
 GAP_INTERVALS = 2.5
@@ -157,7 +164,8 @@ def derivative(time_s, values, target, *, sigma=None, default_sigma, before=None
         Noise wanted in the derivative. [unit/s]
     sigma : float, optional
         White noise of one sample; measured from the samples' second differences
-        (:func:`limitlap.noise.difference_noise`) when not given. [unit]
+        (:func:`limitlap.noise.difference_noise`: a constant slope leaves none) when not
+        given. [unit]
     default_sigma : float
         Used when the samples are too few to measure it. [unit]
     before : numpy.ndarray, optional
@@ -261,7 +269,10 @@ def speed_from_fixes(time_s, x_m, y_m) -> SpeedFromFixes:
     x = np.asarray(x_m, dtype=np.float64)
     y = np.asarray(y_m, dtype=np.float64)
     fix = np.isfinite(x) & np.isfinite(y)
-    sigmas = [noise.difference_noise(a[fix], order=2) for a in (x, y)]
+    # third differences: a path's second differences hold its curvature (v² κ dt², 0.1 m
+    # through a corner at 10 Hz, as large as the fixes' noise); its third, a constant
+    # lateral acceleration left out, hold little but noise
+    sigmas = [noise.difference_noise(a[fix], order=3) for a in (x, y)]
     sigma = max((s for s in sigmas if math.isfinite(s)), default=DEFAULT_FIX_NOISE_M)
     kw = {"sigma": sigma, "default_sigma": DEFAULT_FIX_NOISE_M}
     xs, ys = np.where(fix, x, np.nan), np.where(fix, y, np.nan)
@@ -415,14 +426,14 @@ def note(acc: Accelerations) -> str:
         ("accel_lon",): f"longitudinal acceleration derived from {source}",
         ("accel_lat",): "lateral acceleration derived from speed and the GPS line",
     }[acc.missing]
-    smooth = (
-        f"; grip limits from them are smoothed by about {acc.smoothing_s:.1f} s"
-        if math.isfinite(acc.smoothing_s)
-        else ""
-    )
+    said = []
+    if math.isfinite(acc.smoothing_s):
+        said.append(f"grip limits from them are smoothed by about {acc.smoothing_s:.1f} s")
+    if "accel_lat" in acc.missing:
+        said.append(f"the ideal lap may come out up to about {IDEAL_FAST_PERCENT:g} % fast")
     return (
-        f"no {names} channel: {how}{smooth} (the unit, sign and line checks skip a "
-        "derived channel: it agrees with the GPS by construction)"
+        f"no {names} channel: {how}; {', and '.join(said) or 'as they are'} (the unit, sign "
+        "and line checks skip a derived channel: it agrees with the GPS by construction)"
     )
 
 

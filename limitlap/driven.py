@@ -116,7 +116,7 @@ SHAPE_CROSSOVER_M = 30.0
 GNSS_CUTOFF_S = 2.0
 #: GNSS-only lines (no yaw rate, no lateral acceleration): the same spline's half-response
 #: period, from the fixes' own white noise sigma (:func:`limitlap.noise.difference_noise`
-#: of east and north, the larger): ``GNSS_ONLY_CUTOFF_S * (sigma / GNSS_ONLY_NOISE_M) **
+#: of east and north from third differences, the larger): ``GNSS_ONLY_CUTOFF_S * (sigma / GNSS_ONLY_NOISE_M) **
 #: 0.25``, within GNSS_ONLY_CUTOFF_RANGE_S. Too short a period lets the fixes' noise into
 #: the curvature (a noisy corner is a slower corner), too long shaves the corners' peaks
 #: (a faster one). Measured on generated sessions at 10 and 25 Hz, with the true car on
@@ -468,7 +468,7 @@ def gnss_only_cutoff_s(x_fix, y_fix) -> float:
 
     ``x_fix``, ``y_fix``: east and north of the fixes in time order. [m]
     """
-    sigmas = [noise.difference_noise(a, order=2) for a in (x_fix, y_fix)]
+    sigmas = [noise.difference_noise(a, order=3) for a in (x_fix, y_fix)]  # curvature left out
     sigma = max((s for s in sigmas if math.isfinite(s)), default=GNSS_ONLY_NOISE_M)
     low, high = GNSS_ONLY_CUTOFF_RANGE_S
     period = GNSS_ONLY_CUTOFF_S * (max(sigma, 1e-9) / GNSS_ONLY_NOISE_M) ** 0.25
