@@ -64,13 +64,14 @@ ACCEL_NOISE_TARGET_M_S2 = 0.1
 #: over the window, so the peak deceleration of a short braking zone is shaved; 1.5 s is
 #: under half of a typical 3-5 s braking zone (common practice, no published source). [s]
 MAX_WINDOW_S = 1.5
-#: How much faster than the truth the ideal lap came out with a_y derived from the GPS
-#: line (both accelerations derived, with or without speed): 0.1-1.05 % on generated
-#: sessions at 10 and 25 Hz (seeds 1-6, benchmarks/gps_only.py); with a_y logged and a_x
-#: derived, 0.1 %. The a_y of a GPS-only line carries the fixes' noise through the
-#: line's smoothing (5-7 % of a_y on a circle at 10 Hz, 0.1 m noise): a high quantile
-#: of it widens the lateral limit. Said in the warning. [%]
-IDEAL_FAST_PERCENT = 1.0
+#: How much faster than the truth the ideal lap may come out with a_y derived from the
+#: GPS line: on generated sessions at 10 and 25 Hz (seeds 1-6, benchmarks/gps_only.py)
+#: 0.6-1.0 % with speed logged, up to 1.3 % without (with a_y logged and a_x derived,
+#: 0.1 %). The a_y of a GPS-only line carries the fixes' noise through the line's
+#: smoothing (6 % of a_y on a circle at 10 Hz, 0.1 m noise): a high quantile of it
+#: widens the lateral limit. Said in the warning (docs/methods.md, Derived
+#: accelerations). [%]
+IDEAL_FAST_PERCENT = 1.5
 #: Samples further apart than this many of their own intervals break a stretch (the
 #: filter never reaches across a dropout). [-]
 GAP_INTERVALS = 2.5
