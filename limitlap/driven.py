@@ -682,8 +682,8 @@ def _heading_rate(log, lap, rows: _LapRows, warnings: list[str]):
     A channel whose gain against the GNSS course rate is far from 1 (sign or scale wrong)
     is left out with a warning; the gain compares the GNSS path with the channel's own
     path through the same smoothing (:func:`_path_curvature_like_gnss`). Without inertial
-    channels the GNSS spline's course rate stands in (smoothing by generalised
-    cross-validation). Returns the rate [rad/s], its variance [rad²/s²], the channels
+    channels the GNSS spline's course rate stands in (smoothed over a period from the
+    fixes' noise, :func:`gnss_only_cutoff_s`). Returns the rate [rad/s], its variance [rad²/s²], the channels
     used, the GNSS-only curvature per row [1/m], each channel's curvature through the
     GNSS path's smoothing [1/m] and the noise figures measured.
     """
