@@ -640,10 +640,11 @@ _CORNER_KEYS = (
 )
 
 
-def summary_corner(c: dict) -> dict:
+def summary_corner(c: dict, rounded: bool = True) -> dict:
     """A corner's summary.json record (docs/outputs.md, Corners), from its report row.
 
-    The report page carries the same records, rounded the same way.
+    The report page carries the same records, rounded as summary.json is written;
+    ``rounded=False`` keeps the numbers as computed (summary.json rounds when written).
     """
     if "_summary" in c:
         rec = dict(c["_summary"])
@@ -654,7 +655,7 @@ def summary_corner(c: dict) -> dict:
     for key in ("best_s", "best_lap", "label", "time_left_band_s", "rank_group"):
         if key in c:
             rec[key] = c[key]
-    return _plain(rec)
+    return _plain(rec) if rounded else rec
 
 
 def build_summary(analysis) -> dict:
@@ -670,7 +671,7 @@ def build_summary(analysis) -> dict:
         Keys in the order of docs/outputs.md, summary.json; values SI or km/h as the keys say (not yet rounded).
     """
     v = report_view(analysis)
-    corners = [summary_corner(c) for c in v.corners]
+    corners = [summary_corner(c, rounded=False) for c in v.corners]
     best_rec = {"time_s": v.best_time_s, "complete_laps": v.n_laps}
     if analysis.best_of_laps is not None:
         best_rec.update(analysis.best_of_laps.summary_dict())

@@ -379,8 +379,8 @@ _HEADS = (
     ("group", ""),
     ("apex [{distance}]", ""),
     ("time left [s]", ""),
-    ("yours [s]", ""),
-    ("ideal [s]", ""),
+    ("yours [s]", "seg"),
+    ("ideal [s]", "seg"),
     ("min speed yours / ideal [{speed}]", ""),
     ("brake yours / ideal [{distance} from gate]", ""),
     ("grip used", ""),
@@ -811,8 +811,9 @@ button.corner { font: inherit; font-weight: 600; color: #0b4f8a; background: non
   .screen-only, .modebar-container { display: none !important; }
   .card { padding: 3px 8px; min-width: 0; } .card .v { font-size: 12pt; }
   .card .k { font-size: 7.5pt; }
-  table { font-size: 7.5pt; } th, td { padding: 1px 4px; }
+  table { font-size: 7pt; line-height: 1.15; } th, td { padding: 1px 3px; }
   td.advice { min-width: 0; }
+  #corner-table .seg { display: none; }
   tr { break-inside: avoid; page-break-inside: avoid; }
   button.corner { color: inherit; text-decoration: none; }
   .fig { break-inside: avoid; page-break-inside: avoid; }
