@@ -420,6 +420,7 @@ class ReportView:
     session: object = None
     bands: object = None
     other_laps: list = dataclasses.field(default_factory=list)
+    session_info: dict = dataclasses.field(default_factory=dict)
 
 
 @dataclasses.dataclass(frozen=True, eq=False)
@@ -524,6 +525,7 @@ def report_view(analysis) -> ReportView:
         session=getattr(analysis, "session", None),
         bands=getattr(analysis, "bands", None),
         other_laps=other_laps(analysis, s, float(line.length_m), t_ideal - t_ideal[0]),
+        session_info=dict(getattr(analysis, "session_info", None) or {}),
     )
 
 
@@ -677,14 +679,15 @@ def build_summary(analysis) -> dict:
         best_rec.update(analysis.best_of_laps.summary_dict())
     ideal = {"time_s": v.ideal_time_s, "grip_scale": v.grip_scale}
     extras = _band_keys(v, ideal)
-    session = {}
+    every_lap = {}
     if v.session is not None:
-        session = {
+        every_lap = {
             "laps": session_laps(v.session),
             "consistency": [dataclasses.asdict(c) for c in v.session.consistency],
         }
     return {
         "schema": SUMMARY_SCHEMA,
+        "session": dict(v.session_info),
         "lap": {"number": v.lap_number, "time_s": v.lap_time_s, "distance_m": v.lap_distance_m},
         "ideal": ideal,
         "time_left_s": v.time_left_s,
@@ -692,7 +695,7 @@ def build_summary(analysis) -> dict:
         "grip_estimate": v.grip_estimate,
         "corners": corners,
         "laps": laps_summary(analysis.laps),
-        **session,
+        **every_lap,
         "best_of_laps": best_rec,
         "envelope": {
             "fitted": v.fit is not None,

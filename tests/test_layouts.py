@@ -1,6 +1,6 @@
 """Log file layouts as loggers and spreadsheet exports write them.
 
-One short generated session (limitlap.synth: two flying laps at 50 Hz, about 17,000
+One short generated session (limitlap.synth: two flying laps at 20 Hz, about 8,500
 rows) is written in the plain form of docs/formats.md (one header row, units in
 brackets, commas, seconds) and again in each layout of docs/formats.md, Log files,
 Layouts: metadata lines above the header, a units row under bare names, semicolons with
@@ -20,6 +20,8 @@ offset (ISO 8601-1:2019, 4.3.13 and 5.3.4).
 
 from __future__ import annotations
 
+import html
+import json
 from datetime import UTC, datetime, timedelta, timezone
 
 import numpy as np
@@ -54,7 +56,7 @@ SESSION = {
 
 @pytest.fixture(scope="module")
 def plain_text():
-    session = synth.generate_session(n_laps=2, seed=41, sample_rate_hz=50.0)
+    session = synth.generate_session(n_laps=2, seed=41, sample_rate_hz=20.0)
     return synth.session_csv_text(session)
 
 
@@ -244,8 +246,8 @@ def test_layouts_analyse_to_the_plain_summary(folder, plain_text, plain_summary,
     assert len(want["corners"]) >= 5 and sum(c > 0 for c in want["corners"]) >= 2
     for key in ("lap", "ideal", "time_left", "laps", "corners"):
         assert got[key] == pytest.approx(want[key], abs=1e-6), key
-    assert summary.get("session", {}) == _session_of(name)
-    assert "session" not in plain_summary  # the plain file names nothing
+    assert summary["session"] == _session_of(name)
+    assert plain_summary["session"] == {}  # the plain file names nothing
 
 
 def test_a_zone_change_inside_the_log_keeps_the_time_base(tmp_path):
@@ -429,3 +431,49 @@ def test_session_date_from_a_date_time_is_its_date():
     assert session_info(meta) == {"venue": "Tarrowby Heath", "car": "GT coupe", "session": "Race"}
     stamp = datetime(2026, 10, 17, 23, 59, tzinfo=timezone(timedelta(hours=-5)))
     assert session_info([], stamp) == {"date": "2026-10-17"}
+
+
+# ------------------------------------------------------------------- through the commands
+
+
+@pytest.fixture
+def cli(capsys, monkeypatch):
+    from .robust_data import run_cli
+
+    return lambda *args: run_cli(args, capsys, monkeypatch)
+
+
+def test_the_command_line_says_what_it_detected_in_one_line(folder, plain, plain_text, cli):
+    path = _write(folder, "combined", LAYOUTS["combined"](plain_text))
+    code, out, err = cli("laps", path, "--json")
+    assert code == 0, err
+    said = [ln for ln in err.splitlines() if not ln.startswith("limitlap: warning: ")]
+    assert said == [f"limitlap: {path}: {NOTES['combined']}"]
+    code, plain_out, err = cli("laps", plain[0], "--json")
+    assert code == 0 and json.loads(plain_out) == json.loads(out)
+    assert all(ln.startswith("limitlap: warning: ") for ln in err.splitlines())  # no note
+
+
+def test_analyse_writes_the_session_and_shows_it_in_the_report(folder, plain_text, cli):
+    path = _write(folder, "combined", LAYOUTS["combined"](plain_text))
+    out = folder / "combined-out"
+    code, _, err = cli("analyse", path, "--out", out, "--no-figures", "--quiet")
+    assert code == 0, err
+    assert f"limitlap: {path}: {NOTES['combined']}" in err.splitlines()
+    summary = json.loads((out / "summary.json").read_text())
+    assert summary["session"] == SESSION
+    page = (out / "report.html").read_text()
+    header = page[page.index('<header id="summary">') : page.index("</header>")]
+    for key, value in SESSION.items():
+        assert f'<span class="k">{key}</span> {html.escape(value)}' in header
+    assert "combined.csv" in header and str(folder) not in page  # the file's name, no path
+
+
+def test_a_refused_layout_is_one_error_line(tmp_path, cli):
+    path = tmp_path / "meta.csv"
+    path.write_text("Venue,Tarrowby Heath\nDriver: Ada Quill\n")
+    code, out, err = cli("laps", path)
+    assert code == 2 and out == ""
+    assert err.splitlines() == [
+        f"limitlap: error: {path}: 2 metadata lines and no header row after them"
+    ]
