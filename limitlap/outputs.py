@@ -687,13 +687,13 @@ def build_summary(analysis) -> dict:
         }
     return {
         "schema": SUMMARY_SCHEMA,
-        "session": dict(v.session_info),
         "lap": {"number": v.lap_number, "time_s": v.lap_time_s, "distance_m": v.lap_distance_m},
         "ideal": ideal,
         "time_left_s": v.time_left_s,
         **extras,
         "grip_estimate": v.grip_estimate,
         "corners": corners,
+        "session": dict(v.session_info),
         "laps": laps_summary(analysis.laps),
         **every_lap,
         "best_of_laps": best_rec,
