@@ -1,10 +1,11 @@
 """Reading a session log: CSV in, SI channels on the log's own time base out.
 
-:func:`read_log` detects the file's layout (gzip, delimiter, decimal comma, encoding and
-line ends; what is not a text table is refused as such),
-maps column headers to channels (built-in names with units in brackets, or a channel
-map), parses the numbers with polars, merges duplicate time stamps and converts every
-channel to SI; latitude and longitude go to a local frame (:mod:`limitlap.gnss`). The
+:func:`read_log` detects the file's layout (gzip, encoding and line ends, metadata
+lines, a units row, delimiter and decimal comma, :mod:`limitlap.logformat`; what is not
+a text table is refused as such), maps column headers to channels (built-in names with
+units in brackets or a units row, or a channel map), parses the numbers with polars,
+turns date-times and clock times into seconds (:mod:`limitlap.logtime`), merges
+duplicate time stamps and converts every channel to SI; latitude and longitude go to a local frame (:mod:`limitlap.gnss`). The
 pedal, steering and gear columns can be left out of the parse and read later for one
 lap's rows only (:data:`TRACE_CHANNELS`, :meth:`Log.channel_rows`). Every problem
 becomes an :class:`~limitlap.errors.InputError` naming the file, row and column.
@@ -570,7 +571,10 @@ def read_log(path, channel_map=None, *, on_channels=None, defer=()) -> Log:
     path : str or Path
         CSV file, optionally gzip-compressed (``.csv.gz``); comma, semicolon (with
         decimal commas) or tab separated; UTF-8 (with or without a byte-order mark) or
-        UTF-16, LF, CRLF or CR line ends (:func:`limitlap.logformat.log_source`).
+        UTF-16, LF, CRLF or CR line ends (:func:`limitlap.logformat.log_source`);
+        metadata lines above the header and a units row under it are allowed, and time
+        as a number, ISO 8601 date-times or clock times
+        (:func:`limitlap.logformat.detect_layout`).
     channel_map : ChannelMap, str, Path or None
         Column names and units for a log that does not use the §1 names (a
         :class:`ChannelMap` or the path of its TOML file).
@@ -602,11 +606,12 @@ def read_log(path, channel_map=None, *, on_channels=None, defer=()) -> Log:
     InputError
         The file is missing, empty or header-only; it is not a text table (binary
         data, no separator, a first line over 1 MB or 10,000 columns, a limitlap TOML
-        file); its GPS position never changes while the car moves; a required channel
-        is missing; a
-        cell is not a number (its row as a spreadsheet counts: header = row 1); a unit
-        is unknown; a latitude/longitude is out of range; time goes backwards; no row
-        has a position.
+        file); metadata lines have no header after them; a units row does not match
+        the header; its GPS position never changes while the car moves; a required
+        channel is missing; a cell is not a number, or a time stamp not a date-time or
+        clock time (its row as a spreadsheet counts: the file's first line = row 1); a
+        unit is unknown; a latitude/longitude is out of range; time goes backwards; no
+        row has a position.
 
     References
     ----------

@@ -1,12 +1,17 @@
-"""What a log file is before its cells are read: encoding, delimiter, header.
+"""What a log file is before its cells are read: encoding, layout, header.
 
-Compression, encoding, line ends, delimiter, decimal mark and the header row.
-:func:`log_source` opens a log (gzip or plain) and hands on what polars can parse:
-the path itself for UTF-8 with LF or CRLF, else the text converted to UTF-8 with LF in
-memory (UTF-16 with or without a byte-order mark, CR-only line ends). :func:`detect_format`
-reads the header row: its cells, the delimiter (comma, semicolon with decimal commas, or
-tab) and the encoding. Files that are not text, not a table, a TOML file given as a log,
-or a header too long to be one are refused here in one line (docs/formats.md, Log files).
+Compression, encoding, line ends and the layout. :func:`log_source` opens a log (gzip or
+plain) and hands on what polars can parse: the path itself for UTF-8 with LF or CRLF,
+else the text converted to UTF-8 with LF in memory (UTF-16 with or without a byte-order
+mark, CR-only line ends). :func:`detect_layout` reads the first lines: metadata lines
+above the header, the header's cells, a units row under bare names, the delimiter
+(comma, semicolon with decimal commas, or tab), quoting and the encoding, as a
+:class:`Layout` (what a channel map's ``[layout]`` states replaces what is detected);
+:func:`time_format` tells how the time column is written, :func:`session_info` what the
+metadata names of the session, :func:`describe` the line saying what was found. Files
+that are not text, not a table, a TOML file given as a log, a header too long to be one,
+metadata lines with no header after them and a units row that does not match the header
+are refused here in one line (docs/formats.md, Log files, Layouts).
 """
 
 from __future__ import annotations
