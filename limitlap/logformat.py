@@ -300,15 +300,18 @@ def _key_value(line: str) -> tuple[str, str] | None:
     return cells[0], (full[1] if len(full) == 2 else "")
 
 
-def _head_lines(raw: bytes, whole: bool) -> tuple[list[str], str]:
-    """The complete lines of the start of a log as text, and polars' encoding for it.
+def _head_lines(raw: bytes, whole: bool, header_row: int | None) -> tuple[list[str], str]:
+    """The first complete lines of the start of a log as text, and polars' encoding for it.
 
-    UTF-8; lines that are not UTF-8 are read as Windows-1252 (a Latin-1 header), and
-    polars is then told to read the file leniently ("utf8-lossy").
+    As many lines as the layout's detection looks at: the metadata lines (or the rows
+    up to a stated header row), the header, the units row and the sample. UTF-8; lines
+    that are not UTF-8 are read as Windows-1252 (a Latin-1 header), and polars is then
+    told to read the file leniently ("utf8-lossy").
     """
-    parts = raw.split(b"\n")
-    if not whole and len(parts) > 1:
-        parts.pop()  # cut off by the end of the start
+    wanted = max(_MAX_METADATA_LINES, header_row or 0) + 2 + 4 * _SAMPLE_ROWS
+    parts = raw.split(b"\n", wanted)
+    if len(parts) > wanted or (not whole and len(parts) > 1):
+        parts.pop()  # the rest, or a line cut off by the end of the start
     lines, encoding = [], "utf8"
     for part in parts:
         try:
@@ -411,7 +414,7 @@ def detect_layout(path: Path, raw: bytes, whole: bool, stated=None) -> Layout:
         )
     if whole:  # a small file: perhaps a TOML file given where a log belongs
         _refuse_toml(path, raw)
-    lines, encoding = _head_lines(raw, whole)
+    lines, encoding = _head_lines(raw, whole, getattr(stated, "header_row", None))
     if not any(sep in lines[0] for sep in (",", ";", "\t")):
         _refuse_if_not_a_table(path, raw, whole)
     at, metadata = _header_at(path, lines, whole, getattr(stated, "header_row", None))
