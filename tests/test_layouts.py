@@ -254,7 +254,7 @@ def test_a_zone_change_inside_the_log_keeps_the_time_base(tmp_path):
     # Daylight saving time ends: the wall clock falls back an hour and the offset goes
     # from +11:00 to +10:00. ISO 8601 (4.3.13, 5.3.4): local time = UTC + offset, so
     # 02:59:59+11:00 = 15:59:59Z (the day before) and 02:00:00+10:00 = 16:00:00Z, one
-    # second later (worked by hand); then +0.5 s steps.
+    # second later (worked by hand; docs/checks.md, C6.4); then +0.5 s steps.
     stamps = [
         "2026-04-05T02:59:59.000+11:00",
         "2026-04-05T02:59:59.500+11:00",
@@ -477,3 +477,29 @@ def test_a_refused_layout_is_one_error_line(tmp_path, cli):
     assert err.splitlines() == [
         f"limitlap: error: {path}: 2 metadata lines and no header row after them"
     ]
+
+
+@pytest.mark.parametrize("name", ["metadata and units row", "ISO 8601 with zone"])
+def test_deferred_trace_channels_below_metadata_lines(folder, plain_text, name):
+    # The pedal and steering columns read later for a lap's rows (docs DEVELOPERS.md,
+    # Speed) are the whole column's values, found by their bytes below the metadata
+    # lines and the units row; with date-times, from the whole column.
+    from limitlap.logfile import TRACE_CHANNELS
+
+    if name == "metadata and units row":
+        text = LAYOUTS["metadata"](LAYOUTS["units row"](plain_text))
+    else:
+        text = LAYOUTS[name](plain_text)
+    path = _write(folder, name + " deferred", text)
+    eager, lazy = read_log(path), read_log(path, defer=TRACE_CHANNELS)
+    n = eager.time_s.size
+    for start, stop in ((0, 40), (n // 2, n // 2 + 300), (n - 25, n)):
+        for ch in TRACE_CHANNELS:
+            np.testing.assert_array_equal(
+                lazy.channel_rows(ch, start, stop), eager.channels[ch][start:stop], err_msg=ch
+            )
+        if name == "metadata and units row":  # found by its bytes, no whole column
+            assert lazy.channels.deferred.cache[(start, stop)] is not None
+            assert not any(ch in lazy.channels for ch in TRACE_CHANNELS)
+    if name != "metadata and units row":  # stamps found by number only: parsed whole
+        assert all(ch in lazy.channels for ch in TRACE_CHANNELS)
