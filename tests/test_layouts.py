@@ -14,8 +14,9 @@ The outside truths: the date-times and clock times are written here with the sta
 library's own date arithmetic (``datetime + timedelta``, ISO 8601 as
 ``datetime.isoformat`` writes it; Python docs, datetime), independently of the reader,
 so reading them back must give the generator's seconds; the offsets in a zone change
-are worked out by hand from ISO 8601's rule that a time with an offset is UTC plus that
-offset (ISO 8601-1:2019, 4.3.13 and 5.3.4).
+are worked out by hand from ISO 8601's rule that a local time with a time shift is UTC
+plus that shift (ISO 8601-1:2019, time shift from UTC; clause numbers not quoted, from
+memory only).
 """
 
 from __future__ import annotations
@@ -194,8 +195,9 @@ def test_each_layout_reads_as_the_plain_file(folder, plain, plain_text, name):
         assert "\n23:59:59.9" in text and "\n00:00:00.0" in text  # it does cross midnight
     path = _write(folder, name, text)
     log, base = read_log(path), plain[1]
-    # The date-times and clock times were written from the generator's seconds by
-    # datetime + timedelta (Python docs, datetime): read back they are those seconds.
+    # docs/checks.md, C6.3. The date-times and clock times were written from the
+    # generator's seconds by datetime + timedelta (Python docs, datetime): read back
+    # they are those seconds.
     # Whole microseconds divided by 1e6 round as the decimal text does (IEEE 754 division
     # and parsing both round correctly), so they agree bit for bit; milliseconds times
     # 0.001 round once more (a few 1e-14 s).
@@ -252,7 +254,7 @@ def test_layouts_analyse_to_the_plain_summary(folder, plain_text, plain_summary,
 
 def test_a_zone_change_inside_the_log_keeps_the_time_base(tmp_path):
     # Daylight saving time ends: the wall clock falls back an hour and the offset goes
-    # from +11:00 to +10:00. ISO 8601 (4.3.13, 5.3.4): local time = UTC + offset, so
+    # from +11:00 to +10:00. ISO 8601-1:2019: local time = UTC + time shift, so
     # 02:59:59+11:00 = 15:59:59Z (the day before) and 02:00:00+10:00 = 16:00:00Z, one
     # second later (worked by hand; docs/checks.md, C6.4); then +0.5 s steps.
     stamps = [
