@@ -292,7 +292,10 @@ def _key_value(line: str) -> tuple[str, str] | None:
     hit = _KEY_COLON.match(line)
     if hit:
         return hit.group(1).strip(), (hit.group(2) or "").strip().strip('"').strip()
-    cells = _cells(line, _line_sep(line))
+    sep = _line_sep(line)
+    if line.count(sep) >= _MAX_COLUMNS:  # a header too wide to be one: refused unsplit
+        return None
+    cells = _cells(line, sep)
     full = [c for c in cells if c]
     if not cells or not cells[0] or len(full) > 2 or _is_value(cells[0]):
         return None
