@@ -933,7 +933,7 @@ def gg_title(b, units: Units) -> str:
     elif b.hull_lat_m_s2 is not None:
         title += ": the ideal does not run at these speeds"
     if math.isfinite(b.beyond_share) and b.beyond_share >= 0.005:
-        title += f"<br>beyond the envelope in {100 * b.beyond_share:.0f} % of directions"
+        title += f"<br>samples beyond the envelope<br>in {100 * b.beyond_share:.0f} % of directions"
     return title
 
 
@@ -1487,10 +1487,13 @@ def session_figure(lap_numbers, grip_estimates, time_left_s, analysed: int) -> F
     analysed : int
         The analysed lap (drawn in the lap colour). [-]
     """
-    n = [int(x) for x in lap_numbers]
+    n = [str(int(x)) for x in lap_numbers]
     k = [None if g is None or not math.isfinite(g) else round(float(g), 3) for g in grip_estimates]
     left = [None if t is None or not math.isfinite(t) else round(float(t), 3) for t in time_left_s]
-    colours = [LAP if x == analysed else OTHER_LAPS for x in n]
+    colours = [LAP if x == str(analysed) else OTHER_LAPS for x in n]
+    known = [g for g in k if g is not None] or [1.0]
+    lo, hi = min(known), max(known)
+    pad = max(0.1 * (hi - lo), 0.05 - 0.5 * (hi - lo))  # lap-to-lap noise stays small
     data = [
         {
             "type": "scatter",
@@ -1515,13 +1518,13 @@ def session_figure(lap_numbers, grip_estimates, time_left_s, analysed: int) -> F
             "hovertemplate": "lap %{x}: %{y:.2f} s<extra></extra>",
         },
     ]
-    ticks = {"tickmode": "array", "tickvals": n, "ticktext": [str(x) for x in n]}
+    laps = {"type": "category", "categoryorder": "array", "categoryarray": n}
     layout = _layout(
         HEIGHT_PX["session"],
         hovermode="closest",
-        xaxis=_axis("", anchor="y", showticklabels=False, **ticks),
-        yaxis=_axis("grip found [-]", domain=[0.56, 1.0]),
-        xaxis2=_axis("lap number", anchor="y2", matches="x", **ticks),
+        xaxis=_axis("", anchor="y", showticklabels=False, **laps),
+        yaxis=_axis("grip found [-]", domain=[0.56, 1.0], range=[lo - pad, hi + pad]),
+        xaxis2=_axis("lap number", anchor="y2", matches="x", **laps),
         yaxis2=_axis("time left [s]", domain=[0.0, 0.44], anchor="x2", rangemode="tozero"),
     )
     return FigureSpec(

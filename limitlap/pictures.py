@@ -152,7 +152,10 @@ def _make_axes(fig, frame, subplots, layout) -> dict:
         xname, yname = _axis_names(sub)
         xa, ya = layout.get(xname, {}), layout.get(yname, {})
         rect = frame.rect(xa.get("domain", [0, 1]), ya.get("domain", [0, 1]))
-        ax = fig.add_axes(rect, sharex=by_x.get(xname))
+        twin = xa.get("matches")  # an x axis that follows another's range (plotly "matches")
+        ax = fig.add_axes(
+            rect, sharex=by_x.get(xname) or (by_x.get("xaxis" + twin[1:]) if twin else None)
+        )
         by_x.setdefault(xname, ax)
         _style_axis(ax.xaxis, ax, xa, "x")
         _style_axis(ax.yaxis, ax, ya, "y")

@@ -134,6 +134,12 @@ class Analysis:
     bands : bands.Bands or None
         Intervals of the ideal lap time and each corner's time left (None with fewer
         than :data:`limitlap.bands.MIN_LAPS` flying laps, or when not asked for).
+    session_info : dict of str to str
+        What the log names of its session (``date``, ``venue``, ``driver``, ``car``,
+        ``session``; :attr:`limitlap.logfile.Log.session`).
+    layout_note : str or None
+        The reader's line on the log's layout when it is not the plain form
+        (:attr:`limitlap.logfile.Log.layout_note`), for the command line to show.
     """
 
     log_path: str
@@ -156,6 +162,8 @@ class Analysis:
     gg_bands: list[gg.GGBand] = field(default_factory=list)
     session: session_mod.SessionTable | None = None
     bands: bands.Bands | None = None
+    session_info: dict[str, str] = field(default_factory=dict)
+    layout_note: str | None = None
 
 
 def lap_timelines(log: logfile.Log, laps) -> dict[int, LapTimeline]:
@@ -451,6 +459,8 @@ def analyse(
         ),
         session=table,
         bands=band,
+        session_info=dict(log.session),
+        layout_note=log.layout_note,
     )
 
 
@@ -889,6 +899,8 @@ def line_from_source(source, *, lap: int | None = None, gate=None, channels=None
             raise InputError(path, f"no complete lap {lap} in the log")
         chosen = matches[0]
     d = driven_mod.reconstruct_lap(log, chosen)
+    if log.layout_note:  # for the command line to show, as the line's warnings
+        d.line.meta["layout_note"] = log.layout_note
     return d.line, f"lap {chosen.number} of {path.name}"
 
 

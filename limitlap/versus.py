@@ -54,8 +54,9 @@ MAX_GATE_SHIFT_M = 5.0
 #: times are good to about a hundredth of a second, see
 #: :data:`limitlap.advice.TIME_RESOLUTION_S`). [s]
 LEVEL_S = advice.TIME_RESOLUTION_S
-#: Time left under this is "at the limit" in the sentences. [s]
-AT_LIMIT_S = 0.005
+#: Time left (either sign) under this is "at the limit" in the sentences: less than the
+#: corner times resolve (:data:`limitlap.advice.TIME_RESOLUTION_S`). [s]
+AT_LIMIT_S = advice.TIME_RESOLUTION_S
 
 
 @dataclass(frozen=True, eq=False)

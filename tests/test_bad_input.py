@@ -1,4 +1,4 @@
-"""Bad-input battery through the real command line (issue 7).
+"""Bad-input battery through the real command line.
 
 Every case runs ``limitlap`` as a user would (in-process through ``limitlap.cli.main``,
 the console entry point with its error handling; a few as a subprocess of
