@@ -53,6 +53,8 @@ class BatchRow:
         One-line error; empty when the log went through.
     warnings : list of str
         The analysis warnings, one line each (as the batch's ``wording`` says them).
+    layout_note : str or None
+        The reader's line on the log's layout when it is not the plain form.
     """
 
     log: str
@@ -64,6 +66,7 @@ class BatchRow:
     grip_estimate: float | None = None
     error: str = ""
     warnings: list[str] = field(default_factory=list)
+    layout_note: str | None = None
 
     @property
     def ok(self) -> bool:
@@ -195,6 +198,7 @@ def analyse_job(job: _Job) -> BatchRow:
         time_left_s=float(cmp_.time_left_s),
         grip_estimate=None if analysis.grip_estimate is None else float(analysis.grip_estimate),
         warnings=list(analysis.warnings),
+        layout_note=analysis.layout_note,
     )
 
 

@@ -91,6 +91,12 @@ def _warn(warnings) -> None:
         typer.echo(f"limitlap: warning: {worded(w)}", err=True)
 
 
+def _layout(note: str | None) -> None:
+    """The reader's one line on a log's layout, when it is not the plain form, on stderr."""
+    if note:
+        typer.echo(f"limitlap: {note}", err=True)
+
+
 def _condition(value: str) -> float:
     """One ``--grip`` value, ``dry``/``damp``/``wet`` or a number, as its grip scale. [-]."""
     from limitlap.conditions import resolve_condition
@@ -350,9 +356,10 @@ def laps(
     from limitlap import pipeline
 
     if vehicle is None:
-        _, found, _, warnings = pipeline.load_session(
+        read, found, _, warnings = pipeline.load_session(
             log, gate=gate, channels=channels, track=track
         )
+        _layout(read.layout_note)
         _warn(warnings)
         if as_json:
             typer.echo(json.dumps(laps_mod.laps_json(found)))
@@ -369,6 +376,7 @@ def laps(
         track=track,
         intervals=False,
     )
+    _layout(analysis.layout_note)
     _warn(analysis.warnings)
     if as_json:
         from limitlap.outputs import session_laps, summary_json_text
@@ -456,6 +464,7 @@ def _analyse_batch(logs, out, quiet, scheduler, **options) -> None:
     finally:
         bar.close()
     for row in rows:
+        _layout(row.layout_note)
         for w in row.warnings:  # each line names its log
             typer.echo(
                 f"limitlap: warning: {w if w.startswith(row.log) else f'{row.log}: {w}'}", err=True
@@ -545,6 +554,7 @@ def analyse(
         not accept_units,
         shown,
     )
+    _layout(analysis.layout_note)
     _warn(analysis.warnings)
     typer.echo(_corner_table(analysis, shown))
     typer.echo(f"\nwritten to {out}/: " + ", ".join(sorted(Path(p).name for p in written.values())))
@@ -583,6 +593,7 @@ def targets(
     line, where = pipeline.line_from_source(
         source, lap=lap, gate=gate, channels=channels, track=track
     )
+    _layout(line.meta.get("layout_note"))
     _warn(line.meta.get("warnings", ()))
     trk = ingest.read_track(track) if track is not None else None
     corners = corners_mod.track_corners(line, trk)
@@ -645,6 +656,7 @@ def versus(
         log, found, _, warnings = pipeline.load_session(
             path, gate=gate, channels=channels, track=trk
         )
+        _layout(log.layout_note)
         _warn(warnings)
         sessions.append((path, log, found))
     result = versus_mod.compare_laps(
@@ -696,6 +708,7 @@ def envelope(
         log, found, _, warnings = pipeline.load_session(
             path, gate=gate, channels=channels, track=trk
         )
+        _layout(log.layout_note)
         _warn(warnings)
         sessions.append((path, log, found))
     fit = versus_mod.common_envelope(sessions, base)

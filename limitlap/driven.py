@@ -36,8 +36,8 @@ through the same spline (like with like); the figures go into
 corner's minimum speed uncertain (docs/methods.md, Rates and noise).
 
 Without yaw rate and lateral acceleration the course rate of the GNSS smoothing spline
-takes the gyro's place, its smoothing then chosen by generalised cross-validation
-(Craven & Wahba 1979; slower, about 0.5 s a lap). Planar ``x``/``y`` logs (simulators) go through the same steps.
+takes the gyro's place, its smoothing then chosen from the fixes' measured noise
+(:func:`gnss_only_cutoff_s`). Planar ``x``/``y`` logs (simulators) go through the same steps.
 
 References
 ----------
@@ -114,6 +114,20 @@ SHAPE_CROSSOVER_M = 30.0
 #: period T. 2 s keeps a corner's shape (2-5 s long) and leaves the GNSS noise a tenth
 #: of the curvature or less at 5-25 Hz. [s]
 GNSS_CUTOFF_S = 2.0
+#: GNSS-only lines (no yaw rate, no lateral acceleration): the same spline's half-response
+#: period, from the fixes' own white noise sigma (:func:`limitlap.noise.difference_noise`
+#: of east and north from third differences, the larger): ``GNSS_ONLY_CUTOFF_S * (sigma / GNSS_ONLY_NOISE_M) **
+#: 0.25``, within GNSS_ONLY_CUTOFF_RANGE_S. Too short a period lets the fixes' noise into
+#: the curvature (a noisy corner is a slower corner), too long shaves the corners' peaks
+#: (a faster one). Measured on generated sessions at 10 and 25 Hz, with the true car on
+#: the rebuilt line (seeds 1-2, noise 0.5-2 times the generator's): the period that gave
+#: the generator's ideal lap time was 1.0-1.1 s at 0.05 m, 1.25-1.3 s at 0.1 m and 1.5 s
+#: at 0.2 m of measured noise, at either rate. The smoothing chosen by generalised
+#: cross-validation, used before, took the fixes' time-correlated error for signal: the
+#: ideal on its lines came out 0.9-2.1 % slow (common practice, no published source). [s]
+GNSS_ONLY_CUTOFF_S = 1.3
+GNSS_ONLY_NOISE_M = 0.1
+GNSS_ONLY_CUTOFF_RANGE_S = (0.8, 3.0)
 #: Height: shortest wavelength kept by the periodic low-pass. [m]
 HEIGHT_CUTOFF_M = 150.0
 #: Padding either side of the lap given to the smoothers (edge effects). [s]
@@ -436,23 +450,29 @@ def _smoothing_spline(x, y, lam):
     return interpolate.BSpline.construct_fast(t, coef, 3, axis=0)
 
 
-def _spline_path(t, x, y, fix, gcv=False):
-    """GNSS-only smoothing splines x(t), y(t); course rate and curvature per row."""
+def _spline_path(t, x, y, fix, cutoff_s=GNSS_CUTOFF_S):
+    """GNSS-only smoothing splines x(t), y(t) of half-response period ``cutoff_s``; course rate and curvature per row."""
     f = np.flatnonzero(fix)
-    if gcv:
-        sx = interpolate.make_smoothing_spline(t[f], x[f], lam=None)
-        sy = interpolate.make_smoothing_spline(t[f], y[f], lam=None)
-        xd, yd = sx.derivative(1)(t), sy.derivative(1)(t)
-        xdd, ydd = sx.derivative(2)(t), sy.derivative(2)(t)
-    else:
-        lam = (GNSS_CUTOFF_S / (2 * math.pi)) ** 4 / float(np.median(np.diff(t[f])))
-        sxy = _smoothing_spline(t[f], np.column_stack([x[f], y[f]]), lam)
-        d1, d2 = sxy.derivative(1)(t), sxy.derivative(2)(t)
-        xd, yd, xdd, ydd = d1[:, 0], d1[:, 1], d2[:, 0], d2[:, 1]
+    lam = (cutoff_s / (2 * math.pi)) ** 4 / float(np.median(np.diff(t[f])))
+    sxy = _smoothing_spline(t[f], np.column_stack([x[f], y[f]]), lam)
+    d1, d2 = sxy.derivative(1)(t), sxy.derivative(2)(t)
+    xd, yd, xdd, ydd = d1[:, 0], d1[:, 1], d2[:, 0], d2[:, 1]
     sp2 = np.maximum(xd * xd + yd * yd, 1e-6)
     course_rate = (xd * ydd - yd * xdd) / sp2
     kappa = course_rate / np.sqrt(sp2)
     return course_rate, kappa
+
+
+def gnss_only_cutoff_s(x_fix, y_fix) -> float:
+    """Half-response period of a GNSS-only line's spline, from the fixes' white noise (:data:`GNSS_ONLY_CUTOFF_S`). [s].
+
+    ``x_fix``, ``y_fix``: east and north of the fixes in time order. [m]
+    """
+    sigmas = [noise.difference_noise(a, order=3) for a in (x_fix, y_fix)]  # curvature left out
+    sigma = max((s for s in sigmas if math.isfinite(s)), default=GNSS_ONLY_NOISE_M)
+    low, high = GNSS_ONLY_CUTOFF_RANGE_S
+    period = GNSS_ONLY_CUTOFF_S * (max(sigma, 1e-9) / GNSS_ONLY_NOISE_M) ** 0.25
+    return float(min(max(period, low), high))
 
 
 def _periodic_lowpass(values, ds_m, cutoff_m):
@@ -525,7 +545,10 @@ def reconstruct_lap(log, lap, spacing_m: float = 1.0) -> DrivenLap:
     line, st = _closed_line(log, lap, rows, (psi, rate - bias), px, py, s_row, spacing_m, used)
     ch = _StationChannels(log, rows, st)
     speed_st, ay_st, r_st = ch("speed"), ch("accel_lat"), ch("yaw_rate")
-    check = _curvature_check(speed_st, ay_st, r_st, st.ds)
+    # a channel derived from the line (GPS-only logs, limitlap.derived) would only be
+    # checked against itself: no check is made with it
+    ay_check, r_check = ch.measured_only("accel_lat", ay_st), ch.measured_only("yaw_rate", r_st)
+    check = _curvature_check(speed_st, ay_check, r_check, st.ds)
     like_st = {name: ch.along(k) for name, k in like.items()}
     agreement = _agreement(
         log, lap, line.curvature_1_m, ch.along(gnss_kappa), like_st, check, warnings
@@ -628,12 +651,12 @@ def _inertial_sources(log, rows: _LapRows) -> list[_Source]:
     t, sl, v, ch = rows.t, rows.rows, rows.v, log.channels
     dt_row = float(np.median(rows.dt))
     out = []
-    if log.has("yaw_rate"):
+    if log.measured("yaw_rate"):
         raw = ch["yaw_rate"][sl]
         sigma, own = _measured_noise(t, raw, SIGMA_YAW_RAD_S, dt_row)
         var = np.full(t.shape, sigma**2 * own / dt_row)
         out.append(_Source("yaw_rate", _fill(t, raw), var, sigma, own))
-    if log.has("accel_lat"):
+    if log.measured("accel_lat"):
         raw = ch["accel_lat"][sl]
         sigma, own = _measured_noise(t, raw, SIGMA_ACCEL_M_S2, dt_row)
         vv = np.maximum(v, MIN_SPEED_M_S)
@@ -659,8 +682,8 @@ def _heading_rate(log, lap, rows: _LapRows, warnings: list[str]):
     A channel whose gain against the GNSS course rate is far from 1 (sign or scale wrong)
     is left out with a warning; the gain compares the GNSS path with the channel's own
     path through the same smoothing (:func:`_path_curvature_like_gnss`). Without inertial
-    channels the GNSS spline's course rate stands in (smoothing by generalised
-    cross-validation). Returns the rate [rad/s], its variance [rad²/s²], the channels
+    channels the GNSS spline's course rate stands in (smoothed over a period from the
+    fixes' noise, :func:`gnss_only_cutoff_s`). Returns the rate [rad/s], its variance [rad²/s²], the channels
     used, the GNSS-only curvature per row [1/m], each channel's curvature through the
     GNSS path's smoothing [1/m] and the noise figures measured.
     """
@@ -689,10 +712,12 @@ def _heading_rate(log, lap, rows: _LapRows, warnings: list[str]):
         den += 1.0 / src.var
     if used:
         return num / den, 1.0 / den, used, gnss_kappa, like, measured
-    # GNSS alone: generalised cross-validation picks the smoothing. The spline's course
-    # rate is smooth and already holds all the GNSS information: trust it like a gyro,
-    # and let the course measurements only stop the drift.
-    gnss_rate, gnss_kappa = _spline_path(t, rows.x_raw, rows.y_raw, rows.fix, gcv=True)
+    # GNSS alone: the fixes' measured noise sets the smoothing. The spline's course rate
+    # is smooth and already holds all the GNSS information: trust it like a gyro, and let
+    # the course measurements only stop the drift.
+    cutoff = gnss_only_cutoff_s(rows.x_raw[rows.fix], rows.y_raw[rows.fix])
+    measured["gnss_cutoff_s"] = cutoff
+    gnss_rate, gnss_kappa = _spline_path(t, rows.x_raw, rows.y_raw, rows.fix, cutoff)
     var = np.full(t.shape, SIGMA_YAW_RAD_S**2)
     return gnss_rate, var, ["gnss"], gnss_kappa, like, measured
 
@@ -857,6 +882,10 @@ class _StationChannels:
         """A per-row array at the stations."""
         return np.interp(self.s_in, self.st.s_k, per_row[self.st.keep])
 
+    def measured_only(self, name, values):
+        """``values`` (a channel at the stations) when the log measured it, else NaN."""
+        return values if self.log.measured(name) else np.full(values.shape, np.nan)
+
     def __call__(self, name, nearest=False):
         n_st = self.s_in.shape[0]
         if not self.log.has(name):
@@ -987,7 +1016,7 @@ def _agreement(log, lap, kappa, k_gnss, like, check: CurvatureCheck, warnings):
         ("accel_lat", check.from_accel_lat_1_m),
         ("yaw_rate", check.from_yaw_rate_1_m),
     ):
-        if not log.has(name):
+        if not log.measured(name):
             continue
         fig = _compare(kappa, other, check.fast)
         if fig is not None:

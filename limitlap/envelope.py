@@ -745,8 +745,10 @@ class _FitProblem:
                     self.v, self.ax, self.ay, veh, noise_m_s2, self.quantile, w[0], w[4]
                 )
                 tyre_b, power_b = _tyre_and_power_shares(bv, bax, bay, veh)[:2]
-                # each point fitted off the limit it is on
-                self.offset = np.where(power_b >= tyre_b, lifts[1], lifts[0])
+                # each point fitted off the limit it is on (no lift: the points of ``bp``
+                # stay, whose number this boundary's may not share)
+                offset = np.where(power_b >= tyre_b, lifts[1], lifts[0])
+                self.offset = offset if np.any(offset > 0.0) or calibrated is not None else 0.0
         every = list(range(len(self.names)))
         if calibrated is None and np.any(self.offset > 0.0):  # same parameters, points off
             sol = self.fit_points(every, veh, self.x0, bv, bax, bay)

@@ -933,7 +933,7 @@ def gg_title(b, units: Units) -> str:
     elif b.hull_lat_m_s2 is not None:
         title += ": the ideal does not run at these speeds"
     if math.isfinite(b.beyond_share) and b.beyond_share >= 0.005:
-        title += f"<br>beyond the envelope in {100 * b.beyond_share:.0f} % of directions"
+        title += f"<br>samples beyond the envelope<br>in {100 * b.beyond_share:.0f} % of directions"
     return title
 
 

@@ -130,7 +130,7 @@ def _compute_travelled_m(log: Log) -> np.ndarray:
 
 def bridge_limit_s(log: Log) -> float:
     """Longest GPS dropout the log's channels can bridge: :data:`BRIDGE_INERTIAL_MAX_S` with a yaw rate or lateral acceleration, else :data:`BRIDGE_MAX_S`. [s]."""
-    inertial = log.has("yaw_rate") or log.has("accel_lat")
+    inertial = log.measured("yaw_rate") or log.measured("accel_lat")
     return BRIDGE_INERTIAL_MAX_S if inertial else BRIDGE_MAX_S
 
 
@@ -187,9 +187,9 @@ def dropout_warnings(log: Log, rows: np.ndarray) -> list[str]:
     limit = bridge_limit_s(log)
     how = (
         "bridged from speed and yaw rate"
-        if log.has("yaw_rate")
+        if log.measured("yaw_rate")
         else "bridged from speed and lateral acceleration"
-        if log.has("accel_lat")
+        if log.measured("accel_lat")
         else "bridged along the chord (no yaw rate or lateral acceleration)"
     )
     for d in gps_dropouts(log):
@@ -204,11 +204,11 @@ def dropout_warnings(log: Log, rows: np.ndarray) -> list[str]:
 def _yaw_rate_rad_s(log: Log) -> np.ndarray | None:
     """Yaw rate from ``yaw_rate``, else a_y / v (ISO 8855 signs); None when neither exists."""
     t = log.time_s
-    if log.has("yaw_rate"):
+    if log.measured("yaw_rate"):
         r = log.channels["yaw_rate"]
         ok = np.isfinite(r)
         return r if ok.all() else np.interp(t, t[ok], r[ok])
-    if log.has("accel_lat"):
+    if log.measured("accel_lat"):
         ay = log.channels["accel_lat"]
         v = log.channels["speed"]
         ok = np.isfinite(ay) & np.isfinite(v) & (v > _YAW_FROM_AY_MIN_SPEED_M_S)

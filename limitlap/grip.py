@@ -149,7 +149,10 @@ def grip_estimate(
     k = _grip_demand(v[ok], ax[ok], ay[ok], vehicle, POWER_LIMIT_MARGIN)
     k = k[np.isfinite(k)]
     if k.size == 0:
-        raise LimitlapError("no samples within the power limit to estimate the grip scale from")
+        raise LimitlapError(
+            f"no samples faster than {min_speed_m_s:g} m/s and within the power limit to "
+            "estimate the grip scale from"
+        )
     return float(np.quantile(k, quantile))
 
 

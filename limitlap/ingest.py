@@ -282,12 +282,49 @@ class ChannelSpec:
     invert: bool = False
 
 
+#: What a channel map's ``[layout]`` table may state, and the values each key takes
+#: (docs/formats.md, Channel map, Stating a layout).
+TIME_FORMATS = ("number", "iso8601", "clock")
+DELIMITERS = {",": ",", ";": ";", "tab": "\t", "\t": "\t"}
+
+
+@dataclass(frozen=True)
+class StatedLayout:
+    """A log's layout as a channel map states it; None leaves that part to detection.
+
+    Attributes
+    ----------
+    header_row : int or None
+        The row (the file's first line = 1) that names the columns; the lines above it
+        are metadata lines. [-]
+    units_row : bool or None
+        True: the row under the header gives the units; False: there is none. [-]
+    delimiter : str or None
+        ``","``, ``";"`` or a tab. [-]
+    decimal : str or None
+        The decimal mark, ``"."`` or ``","``. [-]
+    time_format : str or None
+        ``"number"`` (seconds or milliseconds by the unit), ``"iso8601"`` (date-times)
+        or ``"clock"`` (hh:mm:ss.sss). [-]
+    """
+
+    header_row: int | None = None
+    units_row: bool | None = None
+    delimiter: str | None = None
+    decimal: str | None = None
+    time_format: str | None = None
+
+
 @dataclass(frozen=True)
 class ChannelMap:
-    """A channel-map file: docs/formats.md, Log files channel name -> :class:`ChannelSpec`."""
+    """A channel-map file: docs/formats.md, Log files channel name -> :class:`ChannelSpec`.
+
+    ``layout``: what its ``[layout]`` table states (:class:`StatedLayout`), or None.
+    """
 
     path: str
     channels: dict[str, ChannelSpec]
+    layout: StatedLayout | None = None
 
 
 def unit_key(channel: str, unit: str) -> str | None:
@@ -322,7 +359,7 @@ _TOML_KINDS = (
         "track file",
         {"gate": "[gate]", "corners": "[[corners]]", "line": "line", "origin": "[origin]"},
     ),
-    ("channel-map file", {"channels": "[channels.NAME]"}),
+    ("channel-map file", {"channels": "[channels.NAME]", "layout": "[layout]"}),
 )
 
 
@@ -409,6 +446,16 @@ def read_channel_map(path) -> ChannelMap:
         [channels.accel_lat]
         invert = true             # optional: flip the sign; column defaults to the name
 
+    and, for a log whose layout detection cannot tell, a ``[layout]`` table
+    (:class:`StatedLayout`)::
+
+        [layout]
+        header_row = 5            # the lines above are metadata lines
+        units_row = true
+        delimiter = ";"           # ",", ";" or "tab"
+        decimal = ","
+        time_format = "iso8601"   # "number", "iso8601" or "clock"
+
     Parameters
     ----------
     path : str or Path
@@ -417,56 +464,97 @@ def read_channel_map(path) -> ChannelMap:
     Returns
     -------
     ChannelMap
-        Checked entries: known channel names, accepted units, one column per channel.
+        Checked entries: known channel names, accepted units, one column per channel;
+        the stated layout.
     """
     path = Path(path)
     data = _open_toml(path, "channel-map file")
     _refuse_other_kind(path, data, "channel-map file")
-    extra = sorted(set(data) - {"channels"})
+    extra = sorted(set(data) - {"channels", "layout"})
     if extra:
         raise InputError(
-            path, f"unknown key '{extra[0]}'; a channel map holds [channels.NAME] tables"
+            path,
+            f"unknown key '{extra[0]}'; a channel map holds [channels.NAME] tables and [layout]",
         )
-    tables = data.get("channels")
-    if not isinstance(tables, dict) or not tables:
-        raise InputError(path, "no [channels.NAME] tables")
+    tables = data.get("channels", {})
+    if not isinstance(tables, dict) or not (tables or "layout" in data):
+        raise InputError(path, "no [channels.NAME] tables and no [layout]")
     specs: dict[str, ChannelSpec] = {}
     used: dict[str, str] = {}
     for name, entry in tables.items():
-        key = f"channels.{name}"
-        if name not in CHANNEL_UNITS:
-            known = ", ".join(CHANNEL_UNITS)
-            raise InputError(path, f"unknown channel '{name}' in [{key}]; known: {known}")
-        if not isinstance(entry, dict):
-            raise InputError(path, f"[{key}] must be a table (column, unit, invert)")
-        unknown = sorted(set(entry) - {"column", "unit", "invert"})
-        if unknown:
-            raise InputError(
-                path, f"unknown key '{key}.{unknown[0]}' (expected column, unit, invert)"
-            )
-        column = entry.get("column", name)
-        if not isinstance(column, str) or not column.strip():
-            raise InputError(path, f"key '{key}.column' must be a non-empty text, got {column!r}")
-        unit = entry.get("unit")
-        if unit is not None:
-            if not isinstance(unit, str):
-                raise InputError(path, f"key '{key}.unit' must be text, got {unit!r}")
-            resolved = unit_key(name, unit)
-            if resolved is None:
-                raise InputError(
-                    path,
-                    f"key '{key}.unit': unknown unit '{unit}' (accepted: {accepted_units(name)})",
-                )
-            unit = resolved
-        invert = entry.get("invert", False)
-        if not isinstance(invert, bool):
-            raise InputError(path, f"key '{key}.invert' must be true or false, got {invert!r}")
-        folded = column.strip().lower()
+        specs[name] = _channel_spec(path, name, entry)
+        folded = specs[name].column.lower()
         if folded in used:
-            raise InputError(path, f"column '{column}' is mapped twice ({used[folded]} and {name})")
+            raise InputError(
+                path, f"column '{specs[name].column}' is mapped twice ({used[folded]} and {name})"
+            )
         used[folded] = name
-        specs[name] = ChannelSpec(column=column.strip(), unit=unit, invert=invert)
-    return ChannelMap(path=str(path), channels=specs)
+    layout = _stated_layout(path, data["layout"]) if "layout" in data else None
+    return ChannelMap(path=str(path), channels=specs, layout=layout)
+
+
+def _channel_spec(path: Path, name: str, entry) -> ChannelSpec:
+    """One ``[channels.NAME]`` table of a channel map, checked."""
+    key = f"channels.{name}"
+    if name not in CHANNEL_UNITS:
+        known = ", ".join(CHANNEL_UNITS)
+        raise InputError(path, f"unknown channel '{name}' in [{key}]; known: {known}")
+    if not isinstance(entry, dict):
+        raise InputError(path, f"[{key}] must be a table (column, unit, invert)")
+    unknown = sorted(set(entry) - {"column", "unit", "invert"})
+    if unknown:
+        raise InputError(path, f"unknown key '{key}.{unknown[0]}' (expected column, unit, invert)")
+    column = entry.get("column", name)
+    if not isinstance(column, str) or not column.strip():
+        raise InputError(path, f"key '{key}.column' must be a non-empty text, got {column!r}")
+    unit = entry.get("unit")
+    if unit is not None:
+        if not isinstance(unit, str):
+            raise InputError(path, f"key '{key}.unit' must be text, got {unit!r}")
+        resolved = unit_key(name, unit)
+        if resolved is None:
+            raise InputError(
+                path,
+                f"key '{key}.unit': unknown unit '{unit}' (accepted: {accepted_units(name)})",
+            )
+        unit = resolved
+    invert = entry.get("invert", False)
+    if not isinstance(invert, bool):
+        raise InputError(path, f"key '{key}.invert' must be true or false, got {invert!r}")
+    return ChannelSpec(column=column.strip(), unit=unit, invert=invert)
+
+
+def _stated_layout(path: Path, table) -> StatedLayout:
+    """The ``[layout]`` table of a channel map, checked (docs/formats.md, Channel map)."""
+    if not isinstance(table, dict):
+        raise InputError(path, "[layout] must be a table (header_row, units_row, delimiter, ...)")
+    keys = ("header_row", "units_row", "delimiter", "decimal", "time_format")
+    unknown = sorted(set(table) - set(keys))
+    if unknown:
+        raise InputError(path, f"unknown key 'layout.{unknown[0]}' (expected {', '.join(keys)})")
+    row = table.get("header_row")
+    if row is not None and (isinstance(row, bool) or not isinstance(row, int) or row < 1):
+        raise InputError(path, f"key 'layout.header_row' must be a row number from 1, got {row!r}")
+    units = table.get("units_row")
+    if units is not None and not isinstance(units, bool):
+        raise InputError(path, f"key 'layout.units_row' must be true or false, got {units!r}")
+    choices = {
+        "delimiter": tuple(DELIMITERS),
+        "decimal": (".", ","),
+        "time_format": TIME_FORMATS,
+    }
+    for key, allowed in choices.items():
+        if key in table and table[key] not in allowed:
+            shown = ", ".join(f"'{a}'" for a in allowed)
+            raise InputError(path, f"key 'layout.{key}' must be one of {shown}, got {table[key]!r}")
+    sep = table.get("delimiter")
+    return StatedLayout(
+        header_row=row,
+        units_row=units,
+        delimiter=None if sep is None else DELIMITERS[sep],
+        decimal=table.get("decimal"),
+        time_format=table.get("time_format"),
+    )
 
 
 # --------------------------------------------------------------------------- track files

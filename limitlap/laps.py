@@ -395,10 +395,10 @@ def _yaw_rate_rad_s(log: Log) -> np.ndarray | None:
     Milliken 1995, §5.3); blanks filled linearly.
     """
     t = log.time_s
-    if log.has("yaw_rate"):
+    if log.measured("yaw_rate"):
         r = log.channels["yaw_rate"]
         ok = np.isfinite(r)
-    elif log.has("accel_lat"):
+    elif log.measured("accel_lat"):
         v = log.channels["speed"]
         with np.errstate(invalid="ignore", divide="ignore"):
             r = log.channels["accel_lat"] / v

@@ -1,10 +1,11 @@
 """Reading a session log: CSV in, SI channels on the log's own time base out.
 
-:func:`read_log` detects the file's layout (gzip, delimiter, decimal comma, encoding and
-line ends; what is not a text table is refused as such),
-maps column headers to channels (built-in names with units in brackets, or a channel
-map), parses the numbers with polars, merges duplicate time stamps and converts every
-channel to SI; latitude and longitude go to a local frame (:mod:`limitlap.gnss`). The
+:func:`read_log` detects the file's layout (gzip, encoding and line ends, metadata
+lines, a units row, delimiter and decimal comma, :mod:`limitlap.logformat`; what is not
+a text table is refused as such), maps column headers to channels (built-in names with
+units in brackets or a units row, or a channel map), parses the numbers with polars,
+turns date-times and clock times into seconds (:mod:`limitlap.logtime`), merges
+duplicate time stamps and converts every channel to SI; latitude and longitude go to a local frame (:mod:`limitlap.gnss`). The
 pedal, steering and gear columns can be left out of the parse and read later for one
 lap's rows only (:data:`TRACE_CHANNELS`, :meth:`Log.channel_rows`). Every problem
 becomes an :class:`~limitlap.errors.InputError` naming the file, row and column.
@@ -19,6 +20,7 @@ from pathlib import Path
 
 import numpy as np
 
+from limitlap import derived as derived_mod
 from limitlap.errors import InputError
 from limitlap.gnss import dropout_warnings, to_enu
 from limitlap.ingest import (
@@ -27,7 +29,16 @@ from limitlap.ingest import (
     read_channel_map,
     unit_key,
 )
-from limitlap.logformat import detect_format, log_source, split_header
+from limitlap.logformat import (
+    Layout,
+    describe,
+    detect_layout,
+    log_source,
+    session_info,
+    split_header,
+    time_format,
+)
+from limitlap.logtime import clock_seconds, iso_seconds
 from limitlap.units import CHANNEL_UNITS
 
 
@@ -51,6 +62,19 @@ class Log:
         (latitude deg, longitude deg, height m) of the ENU origin, None for x/y logs.
     warnings : list of str
         Problems found that did not stop the read (one line each, naming the file).
+    session : dict of str to str
+        What the log says of its session: ``date``, ``venue``, ``driver``, ``car``,
+        ``session``, each only when named (:func:`limitlap.logformat.session_info`).
+    metadata : tuple of (str, str)
+        Every metadata line above the header, key and value as written.
+    layout_note : str or None
+        One line saying what was detected when the file is not in the plain form
+        (:func:`limitlap.logformat.describe`), None when it is.
+    derived : dict
+        Channels not logged but derived from others (:mod:`limitlap.derived`): name -> how
+        (its record there). They stand in where a channel is needed as a quantity, never
+        where one is checked against the GPS path or taken as an independent
+        measurement of the line's shape (:meth:`measured`).
     """
 
     path: str
@@ -58,6 +82,10 @@ class Log:
     channels: dict[str, np.ndarray]
     origin: tuple[float, float, float] | None = None
     warnings: list[str] = field(default_factory=list)
+    session: dict[str, str] = field(default_factory=dict)
+    metadata: tuple[tuple[str, str], ...] = ()
+    layout_note: str | None = None
+    derived: dict = field(default_factory=dict)
 
     def has(self, name: str) -> bool:
         """True when the channel exists and has at least one value (a deferred channel, see :func:`read_log`'s ``defer``: when its column exists)."""
@@ -71,6 +99,10 @@ class Log:
         if hit is None or hit[0] is not ch:
             hit = seen[name] = (ch, bool(np.isfinite(ch).any()))
         return hit[1]
+
+    def measured(self, name: str) -> bool:
+        """True when the log has the channel and it was logged, not derived (:attr:`derived`)."""
+        return name not in self.derived and self.has(name)
 
     def channel_rows(self, name: str, start: int, stop: int) -> np.ndarray:
         """Values of channel ``name`` for rows ``start`` to ``stop`` (exclusive), SI.
@@ -112,8 +144,14 @@ class Log:
         return value
 
 
-def _resolve_columns(path: Path, header: list[str], cmap: ChannelMap | None):
-    """Channel -> (column index, factor to SI, sign) for the channels the log holds."""
+def _resolve_columns(path: Path, layout: Layout, cmap: ChannelMap | None):
+    """Channel -> (column index, factor to SI, sign) for the channels the log holds.
+
+    A time column of date-times or clock times (:func:`limitlap.logformat.time_format`)
+    takes no unit: its factor is 1 (its text becomes seconds in :func:`read_log`).
+    """
+    header = layout.header
+    stated = cmap.layout.time_format if cmap is not None and cmap.layout is not None else None
     found: dict[str, tuple[int, float, float]] = {}
     claimed: set[int] = set()
     mapped = cmap.channels if cmap is not None else {}
@@ -129,38 +167,21 @@ def _resolve_columns(path: Path, header: list[str], cmap: ChannelMap | None):
                 path, f"no column '{spec.column}' (channel '{channel}' of channel map {cmap.path})"
             )
         i = hits[0]
-        unit = spec.unit
-        if unit is None:
-            written = split_header(header[i])[1] or ""
-            unit = unit_key(channel, written)
-            if unit is None:
-                raise InputError(
-                    path,
-                    f"unknown unit '{written}' for channel '{channel}' (accepted: {accepted_units(channel)})",
-                    column=header[i],
-                )
-        found[channel] = (i, CHANNEL_UNITS[channel][unit], -1.0 if spec.invert else 1.0)
+        factor = _to_si(path, channel, header[i], spec.unit, layout, i, stated)
+        found[channel] = (i, factor, -1.0 if spec.invert else 1.0)
         claimed.add(i)
     for i, cell in enumerate(header):
-        name, written = split_header(cell)
+        name, _ = split_header(cell)
         if name not in CHANNEL_UNITS or name in mapped or i in claimed:
             continue
         if name in found:
             raise InputError(path, f"two columns for channel '{name}'", column=cell)
-        unit = unit_key(name, written or "")
-        if unit is None:
-            raise InputError(
-                path,
-                f"unknown unit '{written}' for channel '{name}' (accepted: {accepted_units(name)})",
-                column=cell,
-            )
-        found[name] = (i, CHANNEL_UNITS[name][unit], 1.0)
-    for channel in ("time", "speed"):
-        if channel not in found:
-            raise InputError(
-                path,
-                f"missing required channel '{channel}' (a column '{channel} [unit]' or a channel-map entry)",
-            )
+        found[name] = (i, _to_si(path, name, cell, None, layout, i, stated), 1.0)
+    if "time" not in found:
+        raise InputError(
+            path,
+            "missing required channel 'time' (a column 'time [unit]' or a channel-map entry)",
+        )
     has_geo = "latitude" in found and "longitude" in found
     has_xy = "x" in found and "y" in found
     if not (has_geo or has_xy):
@@ -170,21 +191,45 @@ def _resolve_columns(path: Path, header: list[str], cmap: ChannelMap | None):
             path,
             f"missing position: needs columns 'latitude' and 'longitude', or 'x' and 'y'{detail}",
         )
-    return found
+    return found, time_format(layout, found["time"][0], stated)
 
 
-def _parse_numbers(path, raw, header, sep, decimal_comma, encoding, found):
-    """Selected columns as float64 arrays (NaN for blanks), one polars pass when clean."""
+def _to_si(path, channel, cell, unit, layout, i, stated_time) -> float:
+    """The factor from a column's unit (``unit``, else its header's) to SI.
+
+    1 for a time column written as date-times or clock times, whatever unit it gives.
+    """
+    if channel == "time" and time_format(layout, i, stated_time) != "number":
+        return 1.0
+    if unit is None:
+        written = split_header(cell)[1] or ""
+        unit = unit_key(channel, written)
+        if unit is None:
+            raise InputError(
+                path,
+                f"unknown unit '{written}' for channel '{channel}' (accepted: {accepted_units(channel)})",
+                column=cell,
+            )
+    return CHANNEL_UNITS[channel][unit]
+
+
+def _parse_numbers(path, raw, layout: Layout, found, text=()):
+    """Selected columns as float64 arrays (NaN for blanks), one polars pass when clean.
+
+    Channels in ``text`` come back as lists of their stripped cells (None for a blank).
+    """
     import polars as pl  # deferred: polars takes a quarter of a second to import
 
+    header, decimal_comma = layout.header, layout.decimal_comma
     names = [f"column_{i}" for i in range(len(header))]
-    wanted = {names[i]: ch for ch, (i, _, _) in found.items()}
+    wanted = {names[i]: ch for ch, (i, _, _) in found.items() if ch not in text}
+    texts = {names[found[ch][0]]: ch for ch in text}
     options = dict(
         has_header=False,
-        skip_rows=1,
-        separator=sep,
-        columns=list(wanted),
-        encoding=encoding,
+        skip_lines=layout.skip,
+        separator=layout.sep,
+        columns=[*wanted, *texts],
+        encoding=layout.encoding,
         truncate_ragged_lines=True,
         missing_columns="insert",
         extra_columns="ignore",
@@ -199,14 +244,14 @@ def _parse_numbers(path, raw, header, sep, decimal_comma, encoding, found):
         clean = False
     if not clean:  # find the first cell that is not a number, or parse after trimming
         try:
-            text = pl.read_csv(raw, schema={n: pl.String for n in names}, **options)
+            strings = pl.read_csv(raw, schema={n: pl.String for n in names}, **options)
         except pl.exceptions.PolarsError as err:
             first = str(err).splitlines()[0]
             raise InputError(path, f"cannot be read as CSV: {first}") from err
         cols = {}
         bad_rows = []
         for name in wanted:
-            cells = text[name].str.strip_chars()
+            cells = strings[name].str.strip_chars()
             cells = cells.replace("", None)
             numeric = cells.str.replace(",", ".", literal=True) if decimal_comma else cells
             values = numeric.cast(pl.Float64, strict=False)
@@ -217,14 +262,20 @@ def _parse_numbers(path, raw, header, sep, decimal_comma, encoding, found):
         if bad_rows:
             row, _, name, value = min(bad_rows)
             raise InputError(
-                path, f"'{value}' is not a number", row=row + 2, column=header[int(name[7:])]
+                path,
+                f"'{value}' is not a number",
+                row=row + layout.first_row,
+                column=header[int(name[7:])],
             )
-        frame = pl.DataFrame(cols)
+        frame = pl.DataFrame(cols).hstack(strings.select(list(texts)))
     # One conversion of the whole frame (blanks -> NaN), each channel a contiguous column.
     table = frame.select(list(wanted)).to_numpy(order="fortran").astype(np.float64, copy=False)
     if not table.flags.writeable:
         table = table.copy(order="F")
-    return {wanted[n]: table[:, j] for j, n in enumerate(wanted)}
+    data = {wanted[n]: table[:, j] for j, n in enumerate(wanted)}
+    for n, ch in texts.items():
+        data[ch] = frame[n].str.strip_chars().replace("", None).to_list()
+    return data
 
 
 def _merge_duplicate_stamps(time_s, data, rows):
@@ -277,17 +328,16 @@ class _Channels(dict):
 class _Deferred:
     """What it takes to parse deferred channels later, and where each log row came from.
 
-    ``group_start[j]``: the parsed row (0-based after the header) of log row j's first
-    line (later lines with the same time stamp were merged into it); ``dropped``: parsed
-    rows left out as blank.
+    ``group_start[j]``: the parsed row (0-based after the header, or the units row) of
+    log row j's first line (later lines with the same time stamp were merged into it);
+    ``dropped``: parsed rows left out as blank. ``time_kind``: how the time column is
+    written (:func:`limitlap.logformat.time_format`).
     """
 
     path: Path
     source: str | bytes
-    header: list
-    sep: str
-    decimal_comma: bool
-    encoding: str
+    layout: Layout
+    time_kind: str
     specs: dict
     time_spec: tuple
     time_s: np.ndarray
@@ -298,15 +348,7 @@ class _Deferred:
 
     def whole(self, name):
         """The channel for every log row, from a parse of its whole column."""
-        values = _parse_numbers(
-            self.path,
-            self.source,
-            self.header,
-            self.sep,
-            self.decimal_comma,
-            self.encoding,
-            {name: self.specs[name]},
-        )[name]
+        values = _parse_numbers(self.path, self.source, self.layout, {name: self.specs[name]})[name]
         return self._merged(name, values, 0, self.group_start)
 
     def rows(self, name, start, stop):
@@ -329,8 +371,8 @@ class _Deferred:
         -> log rows whose first lines are ``starts``: units, the reader's checks,
         and the first non-blank cell of merged duplicates.
         """
-        rows = np.arange(values.shape[0]) + first + 2  # spreadsheet rows: header = 1
-        _check_finite(self.path, values, rows, self.header[self.specs[name][0]])
+        rows = np.arange(values.shape[0]) + first + self.layout.first_row  # spreadsheet rows
+        _check_finite(self.path, values, rows, self.layout.header[self.specs[name][0]])
         _, factor, sign = self.specs[name]
         if factor * sign != 1.0:
             values = values * (factor * sign)
@@ -340,10 +382,9 @@ class _Deferred:
             ]
             cell = np.isfinite(values[inside - first])
             if cell.any():
-                row = int(inside[np.argmax(cell)]) + 2
-                raise InputError(
-                    self.path, "time is blank", row=row, column=self.header[self.time_spec[0]]
-                )
+                row = int(inside[np.argmax(cell)]) + self.layout.first_row
+                column = self.layout.header[self.time_spec[0]]
+                raise InputError(self.path, "time is blank", row=row, column=column)
         if starts.shape[0] == values.shape[0]:  # one line per log row: nothing merged
             return values
         group = np.searchsorted(starts - first, np.arange(values.shape[0]), side="right") - 1
@@ -351,11 +392,13 @@ class _Deferred:
 
     def _window(self, start, stop):
         """Every deferred channel for log rows start..stop, or None when the stretch cannot be found or does not parse to the same time stamps."""
-        if not (0 <= start < stop <= self.time_s.shape[0]) or self.encoding != "utf8":
+        if not (0 <= start < stop <= self.time_s.shape[0]) or self.layout.encoding != "utf8":
+            return None
+        if self.time_kind != "number":  # stamps found by number only: the whole column
             return None
         first = int(self.group_start[start])
         last = int(self.group_start[stop]) if stop < self.time_s.shape[0] else self.n_parsed
-        with _ByteSource(self.source) as src:
+        with _ByteSource(self.source, self.layout.skip) as src:
             begin = src.line_offset(first, float(self.time_s[start]), self)
             end = (
                 src.size
@@ -367,16 +410,16 @@ class _Deferred:
             text = src.read(begin, end - begin)
         import polars as pl
 
-        names = [f"column_{i}" for i in range(len(self.header))]
+        names = [f"column_{i}" for i in range(len(self.layout.header))]
         wanted = {names[self.time_spec[0]]: "time"}
         wanted.update({names[spec[0]]: ch for ch, spec in self.specs.items()})
         frame = pl.read_csv(
             text,
             has_header=False,
-            separator=self.sep,
+            separator=self.layout.sep,
             columns=list(wanted),
             schema={n: (pl.Float64 if n in wanted else pl.String) for n in names},
-            decimal_comma=self.decimal_comma,
+            decimal_comma=self.layout.decimal_comma,
             truncate_ragged_lines=True,
             missing_columns="insert",
             extra_columns="ignore",
@@ -396,26 +439,38 @@ class _Deferred:
         return {ch: self._merged(ch, values, first, starts) for ch, values in cols.items()}
 
 
+def _after_lines(data: bytes, n: int) -> int:
+    """The offset just past the ``n``-th line end of ``data``, 0 when it has fewer."""
+    at = 0
+    for _ in range(n):
+        end = data.find(b"\n", at)
+        if end < 0:
+            return 0
+        at = end + 1
+    return at
+
+
 class _ByteSource:
     """Byte ranges of a log: a plain file read at offsets, or gzip-decompressed bytes."""
 
     #: Bytes read around an estimated row offset: a hundred lines or so. [B]
     CHUNK = 1 << 13
 
-    def __init__(self, source):
+    def __init__(self, source, skip=1):
         self.source = source
+        self.skip = skip  # lines before the data: metadata, header, units row
 
     def __enter__(self):
         if isinstance(self.source, bytes):
             self.fh, self.size = None, len(self.source)
-            data_start = self.source.find(b"\n") + 1
+            data_start = _after_lines(self.source, self.skip)
         else:
             self.fh = open(self.source, "rb")  # closed in __exit__
             self.size = self.fh.seek(0, 2)
             length = self.CHUNK
-            while True:  # the header line, however long
+            while True:  # the lines above the data, however long
                 chunk = self.read(0, length)
-                data_start = chunk.find(b"\n") + 1
+                data_start = _after_lines(chunk, self.skip)
                 if data_start or len(chunk) < length:
                     break
                 length *= 4
@@ -503,10 +558,10 @@ class _ByteSource:
     def _time(line, deferred):
         """The time stamp of one line in SI, NaN when blank or not a number."""
         col, factor, sign = deferred.time_spec
-        cells = line.split(deferred.sep.encode(), col + 1)
+        cells = line.split(deferred.layout.sep.encode(), col + 1)
         try:
             cell = cells[col].strip().strip(b'"').strip()
-            if deferred.decimal_comma:
+            if deferred.layout.decimal_comma:
                 cell = cell.replace(b",", b".")
             return float(cell) * (factor * sign) if cell else math.nan
         except (IndexError, ValueError):
@@ -526,7 +581,10 @@ def read_log(path, channel_map=None, *, on_channels=None, defer=()) -> Log:
     path : str or Path
         CSV file, optionally gzip-compressed (``.csv.gz``); comma, semicolon (with
         decimal commas) or tab separated; UTF-8 (with or without a byte-order mark) or
-        UTF-16, LF, CRLF or CR line ends (:func:`limitlap.logformat.log_source`).
+        UTF-16, LF, CRLF or CR line ends (:func:`limitlap.logformat.log_source`);
+        metadata lines above the header and a units row under it are allowed, and time
+        as a number, ISO 8601 date-times or clock times
+        (:func:`limitlap.logformat.detect_layout`).
     channel_map : ChannelMap, str, Path or None
         Column names and units for a log that does not use the §1 names (a
         :class:`ChannelMap` or the path of its TOML file).
@@ -558,11 +616,12 @@ def read_log(path, channel_map=None, *, on_channels=None, defer=()) -> Log:
     InputError
         The file is missing, empty or header-only; it is not a text table (binary
         data, no separator, a first line over 1 MB or 10,000 columns, a limitlap TOML
-        file); its GPS position never changes while the car moves; a required channel
-        is missing; a
-        cell is not a number (its row as a spreadsheet counts: header = row 1); a unit
-        is unknown; a latitude/longitude is out of range; time goes backwards; no row
-        has a position.
+        file); metadata lines have no header after them; a units row does not match
+        the header; its GPS position never changes while the car moves; a required
+        channel is missing; a cell is not a number, or a time stamp not a date-time or
+        clock time (its row as a spreadsheet counts: the file's first line = row 1); a
+        unit is unknown; a latitude/longitude is out of range; time goes backwards; no
+        row has a position.
 
     References
     ----------
@@ -575,47 +634,68 @@ def read_log(path, channel_map=None, *, on_channels=None, defer=()) -> Log:
     source, head, whole = log_source(path)
     if whole and (not head or head.isspace()):
         raise InputError(path, "file is empty")
-    fmt = detect_format(path, head, whole)
-    header = fmt[0]
-    found = _resolve_columns(path, header, channel_map)
+    layout = detect_layout(path, head, whole, getattr(channel_map, "layout", None))
+    header = layout.header
+    found, time_kind = _resolve_columns(path, layout, channel_map)
     later = {ch: found[ch] for ch in defer if ch in found and ch != "time"}
+    text = ("time",) if time_kind != "number" else ()
     data = _parse_numbers(
-        path, source, *fmt, {ch: spec for ch, spec in found.items() if ch not in later}
+        path, source, layout, {ch: spec for ch, spec in found.items() if ch not in later}, text
     )
     n_rows = len(data["time"])
 
     def column(channel):
         return header[found[channel][0]]
 
-    data, rows, keep = _data_rows(path, data, found, column)
+    first_stamp = None
+    if text:
+        data["time"], first_stamp = _text_times(path, data["time"], layout, time_kind, column)
+    data, rows, keep = _data_rows(path, data, found, column, layout.first_row)
     warnings: list[str] = []
     time_s, data, rows = _time_base(path, data, rows, column, warnings)
-    if not np.isfinite(data["speed"]).any():
+    if "speed" in data and not np.isfinite(data["speed"]).any():
         raise InputError(path, "no speed: the column is blank in every row", column=column("speed"))
     if "lap" in data:
         _check_lap_column(path, data["lap"], rows, column("lap"))
-    if on_channels is not None:
+    if on_channels is not None and "speed" in data:
         on_channels(time_s, data)
     origin = _local_positions(path, data, time_s, rows, column, warnings)
+    derived = {}
+    if "speed" not in data:  # a GPS-only log without speed: from the fixes
+        derived["speed"] = _speed_from_fixes(path, data, time_s, warnings)
+        if on_channels is not None:
+            on_channels(time_s, data)
     channels = _Channels(data)
     if later:
         channels.deferred = _Deferred(
-            path, source, *fmt, later, found["time"], time_s, rows - 2,
-            np.flatnonzero(~keep), n_rows,
+            path, source, layout, time_kind, later, found["time"], time_s,
+            rows - layout.first_row, np.flatnonzero(~keep), n_rows,
         )  # fmt: skip
-    log = Log(path=str(path), time_s=time_s, channels=channels, origin=origin, warnings=warnings)
+    log = Log(
+        path=str(path), time_s=time_s, channels=channels, origin=origin, warnings=warnings,
+        session=session_info(layout.metadata, first_stamp), metadata=layout.metadata,
+        layout_note=describe(path, layout, time_kind), derived=derived,
+    )  # fmt: skip
     warnings.extend(dropout_warnings(log, rows))
     return log
 
 
-def _data_rows(path, data, found, column):
+def _text_times(path, cells, layout, time_kind, column):
+    """The time column's date-times or clock times as seconds from the first, and the first date-time (None for clock times)."""
+    rows = np.arange(len(cells)) + layout.first_row
+    if time_kind == "iso8601":
+        return iso_seconds(path, cells, rows, column("time"))
+    return clock_seconds(path, cells, rows, column("time")), None
+
+
+def _data_rows(path, data, found, column, first_row=2):
     """Blank rows dropped, every value checked finite and scaled to SI.
 
     Returns the data, the spreadsheet row of each kept row (header = 1) and the mask of
     the parsed rows kept.
     """
     n_rows = len(data["time"])
-    rows = np.arange(n_rows) + 2  # spreadsheet rows: header = 1
+    rows = np.arange(n_rows) + first_row  # spreadsheet rows: the file's first line = 1
     # A row is blank when every cell is; only rows without a time can be (cheap to test).
     blank = np.isnan(data["time"])
     if blank.any():
@@ -718,17 +798,44 @@ def _require_movement(path, data, time_s, fix, names, column, where):
         if np.fmax.reduce(probe) - np.fmin.reduce(probe) >= _FROZEN_SPAN_M:
             return
     span = max(float(np.ptp(x[fix])), float(np.ptp(y[fix])))
+    cols = " and ".join(f"'{column(n)}'" for n in names)
+    if "speed" not in data:
+        if span >= _FROZEN_SPAN_M or fix.sum() < 3:  # too few fixes: the speed's own message
+            return
+        raise InputError(
+            path,
+            f"no 'speed' channel, and columns {cols} never change (all {int(fix.sum())} "
+            f"fixes within {_FROZEN_SPAN_M:g} m of {where}): speed cannot be derived from "
+            "a frozen or absent GPS position",
+        )
     speed = data["speed"]
     moved = float(np.nansum(0.5 * (speed[1:] + speed[:-1]) * np.diff(time_s)))
     if span >= _FROZEN_SPAN_M or not moved > _FROZEN_TRAVEL_M:
         return
-    cols = " and ".join(f"'{column(n)}'" for n in names)
     raise InputError(
         path,
         f"columns {cols}: the position never changes (all {int(fix.sum())} fixes within "
         f"{_FROZEN_SPAN_M:g} m of {where} while the speed covers {moved / 1000:.1f} km): "
         "frozen or absent GPS",
     )
+
+
+def _speed_from_fixes(path, data, time_s, warnings):
+    """Speed from the fixes (:func:`limitlap.derived.speed_from_fixes`) into ``data``, a warning saying so; its record."""
+    found = derived_mod.speed_from_fixes(time_s, data["x"], data["y"])
+    if not np.isfinite(found.speed_m_s).any():
+        raise InputError(
+            path,
+            "no 'speed' channel, and too few GPS fixes in a row to derive it from them "
+            f"(no {max(found.window, 3)} fixes without a gap of {derived_mod.GAP_INTERVALS:g} "
+            "fix intervals or more)",
+        )
+    data["speed"] = found.speed_m_s
+    warnings.append(
+        f"{path}: no 'speed' channel: speed derived from the GPS fixes (their path "
+        f"smoothed over {found.window_s:.2g} s, noise about {found.noise_m_s:.2f} m/s)"
+    )
+    return found
 
 
 def _require_a_fix(path, first, fix, first_name, second_name, column):

@@ -420,6 +420,7 @@ class ReportView:
     session: object = None
     bands: object = None
     other_laps: list = dataclasses.field(default_factory=list)
+    session_info: dict = dataclasses.field(default_factory=dict)
 
 
 @dataclasses.dataclass(frozen=True, eq=False)
@@ -524,6 +525,7 @@ def report_view(analysis) -> ReportView:
         session=getattr(analysis, "session", None),
         bands=getattr(analysis, "bands", None),
         other_laps=other_laps(analysis, s, float(line.length_m), t_ideal - t_ideal[0]),
+        session_info=dict(getattr(analysis, "session_info", None) or {}),
     )
 
 
@@ -640,10 +642,11 @@ _CORNER_KEYS = (
 )
 
 
-def summary_corner(c: dict) -> dict:
+def summary_corner(c: dict, rounded: bool = True) -> dict:
     """A corner's summary.json record (docs/outputs.md, Corners), from its report row.
 
-    The report page carries the same records, rounded the same way.
+    The report page carries the same records, rounded as summary.json is written;
+    ``rounded=False`` keeps the numbers as computed (summary.json rounds when written).
     """
     if "_summary" in c:
         rec = dict(c["_summary"])
@@ -654,7 +657,7 @@ def summary_corner(c: dict) -> dict:
     for key in ("best_s", "best_lap", "label", "time_left_band_s", "rank_group"):
         if key in c:
             rec[key] = c[key]
-    return _plain(rec)
+    return _plain(rec) if rounded else rec
 
 
 def build_summary(analysis) -> dict:
@@ -670,15 +673,15 @@ def build_summary(analysis) -> dict:
         Keys in the order of docs/outputs.md, summary.json; values SI or km/h as the keys say (not yet rounded).
     """
     v = report_view(analysis)
-    corners = [summary_corner(c) for c in v.corners]
+    corners = [summary_corner(c, rounded=False) for c in v.corners]
     best_rec = {"time_s": v.best_time_s, "complete_laps": v.n_laps}
     if analysis.best_of_laps is not None:
         best_rec.update(analysis.best_of_laps.summary_dict())
     ideal = {"time_s": v.ideal_time_s, "grip_scale": v.grip_scale}
     extras = _band_keys(v, ideal)
-    session = {}
+    every_lap = {}
     if v.session is not None:
-        session = {
+        every_lap = {
             "laps": session_laps(v.session),
             "consistency": [dataclasses.asdict(c) for c in v.session.consistency],
         }
@@ -690,8 +693,9 @@ def build_summary(analysis) -> dict:
         **extras,
         "grip_estimate": v.grip_estimate,
         "corners": corners,
+        "session": dict(v.session_info),
         "laps": laps_summary(analysis.laps),
-        **session,
+        **every_lap,
         "best_of_laps": best_rec,
         "envelope": {
             "fitted": v.fit is not None,

@@ -29,6 +29,7 @@ from limitlap import (
     bands,
     best_laps,
     compare,
+    derived,
     envelope,
     formatting,
     gg,
@@ -133,6 +134,12 @@ class Analysis:
     bands : bands.Bands or None
         Intervals of the ideal lap time and each corner's time left (None with fewer
         than :data:`limitlap.bands.MIN_LAPS` flying laps, or when not asked for).
+    session_info : dict of str to str
+        What the log names of its session (``date``, ``venue``, ``driver``, ``car``,
+        ``session``; :attr:`limitlap.logfile.Log.session`).
+    layout_note : str or None
+        The reader's line on the log's layout when it is not the plain form
+        (:attr:`limitlap.logfile.Log.layout_note`), for the command line to show.
     """
 
     log_path: str
@@ -155,6 +162,8 @@ class Analysis:
     gg_bands: list[gg.GGBand] = field(default_factory=list)
     session: session_mod.SessionTable | None = None
     bands: bands.Bands | None = None
+    session_info: dict[str, str] = field(default_factory=dict)
+    layout_note: str | None = None
 
 
 def lap_timelines(log: logfile.Log, laps) -> dict[int, LapTimeline]:
@@ -312,20 +321,11 @@ def _imu_samples(log, laps, rows_of, pad_s=None):
     return v, ax, ay, mask, rate, None if throttle is None else throttle[rows]
 
 
-def _trace_samples(drivens):
-    """Speed/a_x/a_y from the reconstructed laps (speed and line curvature)."""
-    v = np.concatenate([d.speed_m_s for d in drivens])
-    ax = np.concatenate([d.accel_lon_m_s2 for d in drivens])
-    ay = np.concatenate([d.accel_lat_m_s2 for d in drivens])
-    mask = np.isfinite(v) & np.isfinite(ax) & np.isfinite(ay)
-    throttle = np.concatenate([d.throttle for d in drivens])
-    return v, ax, ay, mask, None, throttle if np.isfinite(throttle).any() else None
-
-
-def _fit(log_path, samples, base, early):
+def _fit(log_path, samples, base, early, derived_clause=""):
     """The envelope fitted to ``samples`` (see :func:`_imu_samples`); ``early`` is the pending sample selection of the whole log, or None.
 
-    Errors name the log.
+    Errors name the log, and say when its accelerations were derived (``derived_clause``,
+    :func:`_derived_clause`).
     """
     v_s, ax_s, ay_s, mask_s, rate, thr_s = samples
     try:
@@ -342,7 +342,9 @@ def _fit(log_path, samples, base, early):
     except InputError:
         raise
     except LimitlapError as err:  # the log's data cannot support a fit: name the log
-        raise InputError(log_path, f"{err} (give a vehicle file with [grip])") from err
+        raise InputError(
+            log_path, f"{err}{derived_clause} (give a vehicle file with [grip])"
+        ) from err
 
 
 #: The steps ``analyse`` reports to its ``progress`` callable.
@@ -400,25 +402,27 @@ def analyse(
     _step(progress, 0, _STEPS, "reading the log")
     with _EnvelopeBeside(log_path, base) as beside:  # the envelope's work overlaps the line's
         log, trk, warnings = _read_session(log_path, channels, track, on_channels=beside.select)
-        _require_accelerations(log_path, log)
         _check_channel_units(log_path, log, check_units, warnings)
         laps = _split_session(log_path, log, trk, gate, warnings)
         chosen = _chosen_lap(log_path, laps, lap)
+        _step(progress, 1, _STEPS, "rebuilding the driven line")
+        rebuilt = _derived_accelerations(log_path, log, laps, chosen, warnings)
         flying = laps_mod.flying_laps(laps)  # the envelope's laps (out-laps left out)
         beside.start_fit(log, laps, flying)
-        _step(progress, 1, _STEPS, "rebuilding the driven line")
-        the_lap = _rebuild_line(log, chosen, warnings)
+        the_lap = _rebuild_line(log, chosen, warnings, rebuilt)
         corners = _find_corners(the_lap, trk)
         timelines = lap_timelines(log, [lp for lp in laps if lp.complete and lp is not chosen])
         _step(progress, 2, _STEPS, "fitting the grip envelope")
-        car, fit = _grip_envelope(
-            log_path, log, laps, chosen, the_lap, flying, beside, vehicle, warnings
-        )
+        car, fit = _grip_envelope(log_path, log, laps, flying, beside, vehicle, warnings)
     _step(progress, 3, _STEPS, "solving the ideal lap")
-    with _LapsBeside(log, laps, chosen, car, fit, beside.selection(), every_lap, intervals) as more:
+    with _LapsBeside(
+        log, laps, chosen, car, fit, beside.selection(), (every_lap, intervals), rebuilt
+    ) as more:
         ideal = solve.solve_profile(the_lap.line, car, k)
         _step(progress, 4, _STEPS, "comparing corner by corner")
-        grip_est = _grip_estimate(log, laps, chosen, the_lap, car, k, fit is not None, warnings)
+        grip_est = _grip_estimate(
+            (log_path, vehicle), log, laps, chosen, car, k, fit is not None, warnings
+        )
         comparison = compare.compare_lap(
             the_lap, ideal, car, corners, grip_scale=k, grip_estimate=grip_est
         )
@@ -455,6 +459,8 @@ def analyse(
         ),
         session=table,
         bands=band,
+        session_info=dict(log.session),
+        layout_note=log.layout_note,
     )
 
 
@@ -478,13 +484,16 @@ class _LapsBeside:
         Its fit (None: given by a vehicle file). [-]
     selection : samples.Selection or None
         The whole log's filtered samples, when the fit made them. [-]
-    every_lap, intervals : bool
-        What to build (see :func:`analyse`). [-]
+    what : (bool, bool)
+        ``every_lap`` and ``intervals``: what to build (see :func:`analyse`). [-]
+    rebuilt : dict
+        Laps whose lines were rebuilt already, by number (:func:`_derived_accelerations`). [-]
     """
 
-    def __init__(self, log, laps, chosen, car, fit, selection, every_lap, intervals):
+    def __init__(self, log, laps, chosen, car, fit, selection, what, rebuilt):
         self.log, self.laps, self.chosen, self.car, self.fit = log, laps, chosen, car, fit
-        self.selection = selection
+        self.selection, self.rebuilt = selection, rebuilt
+        every_lap, intervals = what
         self.every_lap, self.intervals = every_lap, intervals and every_lap
         self._pool = ThreadPoolExecutor(max_workers=1)
         self.band_laps = self._band_laps()
@@ -553,7 +562,7 @@ class _LapsBeside:
         corner_times = [bands.corner_ideal(the_lap.line, ideal, corners)]
         shares = session_mod.corner_shares(self.log, self.chosen, the_lap, corners)
         for lp in self._near:
-            drv = driven_mod.reconstruct_lap(self.log, lp)
+            drv = self.rebuilt.get(lp.number) or driven_mod.reconstruct_lap(self.log, lp)
             prof = solve.solve_profile(drv.line, self.car, k)
             lap_times.append(prof.lap_time_s)
             placed = session_mod.corners_on(self.log, lp, drv, corners, shares)
@@ -601,21 +610,42 @@ class _LapsBeside:
         )
 
 
-def _require_accelerations(log_path, log) -> None:
-    """Refuse a log without acceleration channels, naming them (GPS-only logs).
+def _derived_accelerations(log_path, log, laps, chosen, warnings) -> dict:
+    """The accelerations the log lacks, derived (:mod:`limitlap.derived`), and a warning that says so.
 
-    The envelope and the grip estimate need a_x and a_y; deriving them from speed and the
-    rebuilt line is not built yet.
+    Every complete lap's line is rebuilt (a_y = v² κ needs each lap's own curvature; the
+    envelope is fitted to the flying laps, the lap table's grip to every complete lap);
+    a lap whose line cannot be rebuilt keeps no a_y, unless it is the analysed lap (its
+    error stops the run, as it would without). Returns the rebuilt laps by number, their
+    stations carrying the derived accelerations (the analysed lap's and the bands'
+    neighbours' lines are not rebuilt again); empty when nothing was missing.
     """
-    missing = [name for name in ("accel_lon", "accel_lat") if not log.has(name)]
-    if missing:
-        names = " and ".join(f"'{name}'" for name in missing)
-        raise InputError(
-            log_path,
-            f"no {names} channel{'s' if len(missing) > 1 else ''} (a GPS-only log?): the "
-            "envelope and the grip estimate need the accelerations; deriving them from "
-            "speed and the line is not supported yet",
-        )
+    if not derived.missing_accelerations(log):
+        return {}
+    rebuilt = []
+    for lp in laps:
+        if not lp.complete:
+            continue
+        try:
+            rebuilt.append((lp, driven_mod.reconstruct_lap(log, lp)))
+        except LimitlapError:
+            if lp is chosen:
+                raise
+    acc = derived.add_accelerations(log, rebuilt)
+    warnings.append(f"{log_path}: {derived.note(acc)}")
+    ax = log.channels["accel_lon"]
+    return {lp.number: derived.on_stations(d, lp, log.time_s, ax) for lp, d in rebuilt}
+
+
+def _derived_clause(log) -> str:
+    """`` (... derived ...)`` for an error about the accelerations when they were derived, else empty."""
+    names = [n for n in ("accel_lon", "accel_lat") if n in log.derived]
+    if not names:
+        return ""
+    return (
+        f" (the log has no {' or '.join(repr(n) for n in names)} channel: the accelerations "
+        "were derived from speed and the GPS line)"
+    )
 
 
 def _check_channel_units(log_path, log, strict: bool, warnings: list[str]) -> None:
@@ -692,13 +722,13 @@ class _EnvelopeBeside:
         )
 
     def start_fit(self, log, laps, flying) -> None:
-        """Start the fit to the flying laps' IMU samples (it needs no line); a log without IMU channels is fitted on the rebuilt lines instead (:func:`_grip_envelope`)."""
+        """Start the fit to the flying laps' acceleration samples (logged, or derived before: :func:`_derived_accelerations`)."""
         if self.base.is_complete:
             return
         samples = _imu_samples(log, laps, flying)
         if samples is not None:
             self._fitting = self._pool.submit(
-                _fit, self._log_path, samples, self.base, self._selection
+                _fit, self._log_path, samples, self.base, self._selection, _derived_clause(log)
             )
 
     def selection(self):
@@ -734,13 +764,14 @@ def _chosen_lap(log_path, laps, lap: int | None) -> laps_mod.Lap:
     return chosen
 
 
-def _rebuild_line(log, chosen, warnings) -> driven_mod.DrivenLap:
+def _rebuild_line(log, chosen, warnings, rebuilt) -> driven_mod.DrivenLap:
     """The analysed lap's driven line (GNSS/inertial fusion), its warnings added once.
 
-    Only this lap's line is rebuilt; the other laps give the composite their time against
+    Only this lap's line is rebuilt (unless ``rebuilt``, the laps rebuilt to derive the
+    accelerations, holds it); the other laps give the composite their time against
     distance straight from the logged speed (:func:`lap_timelines`).
     """
-    the_lap = driven_mod.reconstruct_lap(log, chosen)
+    the_lap = rebuilt.get(chosen.number) or driven_mod.reconstruct_lap(log, chosen)
     warnings += [w for w in the_lap.warnings if w not in warnings]
     return the_lap
 
@@ -750,7 +781,7 @@ def _find_corners(the_lap, trk) -> list[corners_mod.Corner]:
     return corners_mod.track_corners(the_lap.line, trk)
 
 
-def _grip_envelope(log_path, log, laps, chosen, the_lap, flying, beside, vehicle, warnings):
+def _grip_envelope(log_path, log, laps, flying, beside, vehicle, warnings):
     """The envelope: the complete vehicle's, else the fit to the flying laps, with its warnings added.
 
     Returns (Vehicle, envelope.EnvelopeFit or None).
@@ -758,11 +789,13 @@ def _grip_envelope(log_path, log, laps, chosen, the_lap, flying, beside, vehicle
     if beside.base.is_complete:
         return beside.base, None
     fit = beside.fitted()
-    if fit is None:  # no IMU: samples from every flying lap's rebuilt line
-        samples = _trace_samples(
-            [the_lap if lp is chosen else driven_mod.reconstruct_lap(log, lp) for lp in flying]
+    if fit is None:  # the derivation left both channels blank on every row
+        missing = " and ".join(f"'{n}'" for n in ("accel_lon", "accel_lat") if not log.has(n))
+        raise InputError(
+            log_path,
+            f"no {missing} values to fit a grip envelope to: none logged, and none could be "
+            "derived from speed and the GPS line (give a vehicle file with [grip])",
         )
-        fit = _fit(log_path, samples, beside.base, None)
     slow = [lp for lp in laps if lp.complete and lp not in flying]
     if slow:
         which = ", ".join(f"{lp.number} ({formatting.lap_time(lp.time_s)})" for lp in slow)
@@ -781,16 +814,25 @@ def _grip_envelope(log_path, log, laps, chosen, the_lap, flying, beside, vehicle
     return fit.vehicle, fit
 
 
-def _grip_estimate(log, laps, chosen, the_lap, car, k, fitted, warnings):
-    """Grip scale the analysed lap used, relative to ``car`` (None when its samples do not tell); a warning when a given envelope was far from the grip found.
+def _grip_estimate(files, log, laps, chosen, car, k, fitted, warnings):
+    """Grip scale the analysed lap used, relative to ``car`` (None without accelerations); a warning when a given envelope was far from the grip found.
 
-    [-].
+    ``files`` is (the log's path, the vehicle given: a path, a Vehicle or None); an
+    error names the vehicle file (its envelope is what the lap is measured against) or
+    the log, and says when the accelerations were derived. [-].
     """
     lap_samples = _imu_samples(log, laps, [chosen], pad_s=2.0)
     if lap_samples is None:
-        lap_samples = _trace_samples([the_lap])
+        return None
     v_l, ax_l, ay_l, mask_l, rate_l, _ = lap_samples
-    grip_est = grip.grip_estimate(v_l, ax_l, ay_l, car, mask=mask_l, sample_rate_hz=rate_l)
+    try:
+        grip_est = grip.grip_estimate(v_l, ax_l, ay_l, car, mask=mask_l, sample_rate_hz=rate_l)
+    except LimitlapError as err:
+        log_path, vehicle = files
+        named = vehicle if isinstance(vehicle, str | Path) else log_path
+        raise InputError(
+            named, f"lap {chosen.number} of {log_path}: {err}{_derived_clause(log)}"
+        ) from err
     if grip_est is not None and not fitted and grip_est < 0.9 * k:
         warnings.append(
             WarningLine(
@@ -857,6 +899,8 @@ def line_from_source(source, *, lap: int | None = None, gate=None, channels=None
             raise InputError(path, f"no complete lap {lap} in the log")
         chosen = matches[0]
     d = driven_mod.reconstruct_lap(log, chosen)
+    if log.layout_note:  # for the command line to show, as the line's warnings
+        d.line.meta["layout_note"] = log.layout_note
     return d.line, f"lap {chosen.number} of {path.name}"
 
 

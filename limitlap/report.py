@@ -348,6 +348,8 @@ def _cards(v: ReportView, units: Units, out: list[str]) -> None:
         f"laps in the session &middot; speeds in {e(units.speed)}, distances in "
         f"{e(units.distance)}</p>"
     )
+    if v.session_info:
+        out.append(_session_line(v.session_info))
     band = v.bands.time_left_band_s if v.bands is not None else None
     cards = [
         ("lap", "lap time", lap_time(v.lap_time_s)),
@@ -373,14 +375,24 @@ def _cards(v: ReportView, units: Units, out: list[str]) -> None:
     out.append("</header>")
 
 
+def _session_line(info: dict) -> str:
+    """The session the log names (date, venue, driver, car, session), as one line of the header; any path in a value cut to its file name."""
+    e = html.escape
+    parts = [
+        f'<span class="k">{e(key)}</span> {e(file_names_only(value))}'
+        for key, value in info.items()
+    ]
+    return f'<p class="sub session">{" &middot; ".join(parts)}</p>'
+
+
 _HEADS = (
     ("rank", ""),
     ("corner", "t"),
     ("group", ""),
     ("apex [{distance}]", ""),
     ("time left [s]", ""),
-    ("yours [s]", ""),
-    ("ideal [s]", ""),
+    ("yours [s]", "seg"),
+    ("ideal [s]", "seg"),
     ("min speed yours / ideal [{speed}]", ""),
     ("brake yours / ideal [{distance} from gate]", ""),
     ("grip used", ""),
@@ -750,6 +762,7 @@ h2 { font-size: 1.15rem; margin: 24px 0 8px; border-bottom: 2px solid var(--line
   padding-bottom: 3px; }
 h3 { font-size: 1rem; margin: 8px 0 4px; }
 .sub, .note, figcaption, .muted { color: var(--muted); }
+.session .k { font-weight: 600; }
 .note, figcaption { font-size: .88rem; }
 .cards { display: flex; flex-wrap: wrap; gap: 10px; }
 .card { border: 1px solid var(--line); border-radius: 6px; padding: 8px 14px;
@@ -811,8 +824,9 @@ button.corner { font: inherit; font-weight: 600; color: #0b4f8a; background: non
   .screen-only, .modebar-container { display: none !important; }
   .card { padding: 3px 8px; min-width: 0; } .card .v { font-size: 12pt; }
   .card .k { font-size: 7.5pt; }
-  table { font-size: 7.5pt; } th, td { padding: 1px 4px; }
+  table { font-size: 7pt; line-height: 1.15; } th, td { padding: 1px 3px; }
   td.advice { min-width: 0; }
+  #corner-table .seg { display: none; }
   tr { break-inside: avoid; page-break-inside: avoid; }
   button.corner { color: inherit; text-decoration: none; }
   .fig { break-inside: avoid; page-break-inside: avoid; }

@@ -231,7 +231,7 @@ def course_curvature(log, rows: slice) -> np.ndarray | None:
     numpy.ndarray or None
         Curvature per row. [1/m]
     """
-    has_yaw, has_ay = log.has("yaw_rate"), log.has("accel_lat")
+    has_yaw, has_ay = log.measured("yaw_rate"), log.measured("accel_lat")
     if not (has_yaw or has_ay):
         return None
     vv = np.maximum(np.asarray(log.channels["speed"][rows], dtype=np.float64), MIN_SPEED_M_S)

@@ -114,12 +114,18 @@ def check_units(log) -> list[UnitFinding]:
     -------
     list of UnitFinding
         Empty when every channel agrees, or when the log moves too little to tell.
+
+    Notes
+    -----
+    A channel the log did not record but that was derived from the GPS path
+    (``log.derived``, :mod:`limitlap.derived`) is not checked: it agrees with the path
+    by construction, so a pass would say nothing.
     """
     path = _gnss_path(log)
     if path is None:
         return []
     out = []
-    k = _speed_factor(log, path)
+    k = _speed_factor(log, path) if log.measured("speed") else math.nan
     out += _judge("speed", k, _SPEED, "the distance between GPS fixes", signed=False)
     # The other checks use speed as the GPS measures it, so a wrong speed unit is not
     # blamed on the accelerations as well.
@@ -129,7 +135,7 @@ def check_units(log) -> list[UnitFinding]:
         ("accel_lat", "speed times the GPS course rate", _ACCEL),
         ("yaw_rate", "the GPS course rate", _YAW),
     ):
-        if log.has(name):
+        if log.measured(name):
             k_ch = _channel_factor(log, path, name, speed_scale)
             out += _judge(name, k_ch, cands, against, signed=True)
     return out

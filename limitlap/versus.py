@@ -22,7 +22,7 @@ from pathlib import Path
 import numpy as np
 from scipy.ndimage import gaussian_filter1d
 
-from limitlap import advice, compare, envelope, ingest, session, solve
+from limitlap import advice, compare, derived, envelope, ingest, session, solve
 from limitlap import corners as corners_mod
 from limitlap import driven as driven_mod
 from limitlap import laps as laps_mod
@@ -54,8 +54,9 @@ MAX_GATE_SHIFT_M = 5.0
 #: times are good to about a hundredth of a second, see
 #: :data:`limitlap.advice.TIME_RESOLUTION_S`). [s]
 LEVEL_S = advice.TIME_RESOLUTION_S
-#: Time left under this is "at the limit" in the sentences. [s]
-AT_LIMIT_S = 0.005
+#: Time left (either sign) under this is "at the limit" in the sentences: less than the
+#: corner times resolve (:data:`limitlap.advice.TIME_RESOLUTION_S`). [s]
+AT_LIMIT_S = advice.TIME_RESOLUTION_S
 
 
 @dataclass(frozen=True, eq=False)
@@ -291,6 +292,14 @@ def _on_rate(log, rate, arrays):
     return out
 
 
+def with_accelerations(path, log, laps) -> list[str]:
+    """A log's missing acceleration channels derived (:func:`limitlap.derived.add_accelerations`, on every complete lap's rebuilt line); the sentence saying so, naming the log, or nothing when it had both (or they were derived already)."""
+    if not derived.missing_accelerations(log):
+        return []
+    rebuilt = [(lp, driven_mod.reconstruct_lap(log, lp)) for lp in laps if lp.complete]
+    return [f"{path}: {derived.note(derived.add_accelerations(log, rebuilt))}"]
+
+
 def common_envelope(sessions: Sequence, base: Vehicle) -> envelope.EnvelopeFit:
     """One envelope fitted to the flying laps of several logs together (the best samples of all).
 
@@ -315,12 +324,11 @@ def common_envelope(sessions: Sequence, base: Vehicle) -> envelope.EnvelopeFit:
     boundary is the high quantile of all the logs' flying samples.
     """
     names = ", ".join(str(p) for p, _, _ in sessions)
+    notes = []
     for path, log, laps in sessions:
-        missing = [c for c in ("accel_lon", "accel_lat") if not log.has(c)]
-        if missing:
-            raise InputError(path, f"no {' and '.join(missing)} channel to fit an envelope to")
         if not laps_mod.flying_laps(list(laps)):
             raise InputError(path, "no complete lap to fit an envelope to")
+        notes += with_accelerations(path, log, laps)  # GPS-only logs
     rate = _rate(sessions[0][1])
     parts = []
     for _, log, laps in sessions:
@@ -343,7 +351,7 @@ def common_envelope(sessions: Sequence, base: Vehicle) -> envelope.EnvelopeFit:
     v, ax, ay, thr, mask = joined
     try:
         sel = select_samples(v, ax, ay, sample_rate_hz=rate)
-        return envelope.fit_envelope(
+        fit = envelope.fit_envelope(
             v,
             ax,
             ay,
@@ -356,7 +364,11 @@ def common_envelope(sessions: Sequence, base: Vehicle) -> envelope.EnvelopeFit:
     except InputError:
         raise
     except LimitlapError as err:
-        raise InputError(names, f"{err} (give a vehicle file with [grip])") from err
+        derived_from = "; ".join(notes)
+        extra = f" ({derived_from})" if derived_from else ""
+        raise InputError(names, f"{err}{extra} (give a vehicle file with [grip])") from err
+    fit.warnings[:0] = notes
+    return fit
 
 
 # ---------------------------------------------------------------------------- corners
@@ -535,6 +547,9 @@ def compare_laps(
     lb = _pick(path_b, laps_b, lap_b, avoid=la if same_log else None)
     if same_log and la is lb:
         raise InputError(path_a, f"lap {la.number} given as both A and B")
+    # GPS-only logs: their accelerations derived before the laps' traces are taken
+    notes = with_accelerations(path_a, log_a, laps_a)
+    notes += [] if same_log else with_accelerations(path_b, log_b, laps_b)
     da = driven_mod.reconstruct_lap(log_a, la)
     db = driven_mod.reconstruct_lap(log_b, lb)
     if not same_log:
@@ -588,9 +603,9 @@ def compare_laps(
                 sentence=corner_sentence(c.name, d, ca, cb),
             )
         )
-    warnings = [*da.warnings, *db.warnings]
+    warnings = [*notes, *da.warnings, *db.warnings]
     if fit is not None:
-        warnings += [f"common envelope: {w}" for w in fit.warnings]
+        warnings += [f"common envelope: {w}" for w in fit.warnings if w not in notes]
     return Versus(
         side_a, side_b, car, fit, env_logs, float(grip_scale), s, delta, tuple(rows),
         tuple(corners), warnings,

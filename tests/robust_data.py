@@ -1,4 +1,4 @@
-"""Shared inputs of the robustness tests (issue 7): small generated sessions, hand-written
+"""Shared inputs of the robustness tests: small generated sessions, hand-written
 files, and an in-process runner of the real command line (``limitlap.cli.main``)."""
 
 from __future__ import annotations

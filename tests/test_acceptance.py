@@ -91,7 +91,7 @@ def test_planted_corners_are_the_three_largest(dry, dry_analyses, which):
 
 @pytest.mark.parametrize("which", ENVELOPES)
 def test_planted_time_left_within_25_percent_of_the_truth(dry, dry_analyses, which):
-    # Tolerance 25 %: issue 4's acceptance figure (a project requirement, no published
+    # Tolerance 25 %: the project's acceptance figure (a project requirement, no published
     # source). The truth of a corner is the generator's cost of the planted mistakes in
     # that corner's segment. A late throttle (T9) is partly paid on the following
     # straight, after the boundary in the middle of the straight that summary.json's
@@ -117,7 +117,7 @@ def test_planted_time_left_within_25_percent_of_the_truth(dry, dry_analyses, whi
 def test_planted_time_left_of_early_braking_and_lift_against_whole_lap_cost(dry, dry_analyses):
     # The early brake (T1) and the mid-corner lift (T7) cost nothing after their own
     # segment, so there the segment time left is compared with
-    # PlantedMistake.time_cost_s directly (issue 4, 25 %). True envelope only: the
+    # PlantedMistake.time_cost_s directly (25 %). True envelope only: the
     # fitted one adds its own bias (see the fitted case of the test above).
     session, _ = dry
     rows = _planted_rows(dry_analyses["true"], session.truth)
@@ -128,7 +128,7 @@ def test_planted_time_left_of_early_braking_and_lift_against_whole_lap_cost(dry,
 
 @pytest.mark.parametrize("which", ENVELOPES)
 def test_ideal_lap_within_1_percent_of_the_solver_on_the_true_line(dry, dry_analyses, which):
-    # Issue 4: within 1 % of solve_profile on the true line with the true envelope
+    # Requirement: within 1 % of solve_profile on the true line with the true envelope
     # (SessionTruth.ideal_lap_time_s).
     session, _ = dry
     a = dry_analyses[which]
@@ -140,7 +140,7 @@ def test_ideal_lap_within_1_percent_of_the_solver_on_the_true_line(dry, dry_anal
 def test_corner_time_left_adds_up_to_the_lap(dry_analyses, which):
     # docs/outputs.md (summary.json): the segments tile the lap. Segment times are
     # differences of one interpolated elapsed-time curve, so they telescope: 1e-9 s is
-    # float rounding of a sum of a dozen numbers of about 10 s (issue 4 asks for 1 ms).
+    # float rounding of a sum of a dozen numbers of about 10 s (the project asks for 1 ms).
     cmp_ = dry_analyses[which].comparison
     assert sum(c.time_left_s for c in cmp_.corners) == pytest.approx(cmp_.time_left_s, abs=1e-9)
     assert sum(c.actual_s for c in cmp_.corners) == pytest.approx(cmp_.lap_time_s, abs=1e-9)
@@ -173,7 +173,7 @@ def at_limit(tmp_path_factory):
 
 @pytest.mark.parametrize("which", ENVELOPES)
 def test_lap_at_the_limit_leaves_under_0_3_percent(at_limit, which):
-    # Issue 4: a lap generated exactly at the limit gives a total time left under
+    # Requirement: a lap generated exactly at the limit gives a total time left under
     # 0.3 % of the lap time (project requirement, no published source).
     session, path = at_limit
     vehicle = session.truth.vehicle if which == "true" else None
@@ -194,7 +194,7 @@ def wet_with_dry_envelope(dry, dry_analyses, tmp_path_factory):
 
 
 def test_wet_session_grip_estimate_with_the_dry_envelope(wet_with_dry_envelope):
-    # Issue 4: grip_estimate within 0.03 of the generator's grip scale 0.72.
+    # Requirement: grip_estimate within 0.03 of the generator's grip scale 0.72.
     wet, a = wet_with_dry_envelope
     assert wet.truth.grip_scale == 0.72
     assert a.fit is None  # the file was used as the envelope, not refitted
@@ -204,7 +204,7 @@ def test_wet_session_grip_estimate_with_the_dry_envelope(wet_with_dry_envelope):
 
 def test_wet_session_grip_found_corner_by_corner(wet_with_dry_envelope):
     # The wet grip is uniform in the generator, so every corner driven at the limit
-    # finds it: within the same 0.03 as the overall estimate (issue 4), and within
+    # finds it: within the same 0.03 as the overall estimate , and within
     # 0.02 of the overall estimate (one estimator on subsets of the same samples; the
     # 0.02 is the scatter of a 99 % quantile over a corner's few hundred samples with
     # 0.03 g IMU noise, an estimate, no published source).

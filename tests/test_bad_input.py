@@ -1,4 +1,4 @@
-"""Bad-input battery through the real command line (issue 7).
+"""Bad-input battery through the real command line.
 
 Every case runs ``limitlap`` as a user would (in-process through ``limitlap.cli.main``,
 the console entry point with its error handling; a few as a subprocess of
@@ -87,9 +87,15 @@ BAD_LOGS = [
     ("empty", "", ": file is empty"),
     ("header only", "time [s],speed [km/h],latitude,longitude\n", ": no data rows (header only)"),
     (
-        "missing speed",
+        # no speed: derived from the fixes, which one fix cannot give
+        "missing speed, one fix",
         "time [s],latitude,longitude\n0,-33.86,147.24\n",
-        ": missing required channel 'speed'",
+        ": no 'speed' channel, and too few GPS fixes in a row to derive it from them",
+    ),
+    (
+        "missing speed, frozen position",
+        "time [s],latitude,longitude\n0,-33.86,147.24\n0.1,-33.86,147.24\n0.2,-33.86,147.24\n",
+        ": no 'speed' channel, and columns 'latitude' and 'longitude' never change",
     ),
     (
         "missing position",

@@ -531,7 +531,7 @@ def test_a_lift_before_a_flat_out_kink_is_its_own_corner(session):
     # Without a track file the kink is found and named T8 (so T9 is T9), the ideal takes
     # it without slowing, the driver's lift is a brake point (a lift counts), and its
     # cost stays in T8's segment: T8 and T9 each within 25 % of the generator's cost of
-    # their own planted mistake in their segment (issue 4's 25 %, as
+    # their own planted mistake in their segment (the project's 25 %, as
     # tests/test_acceptance.py).
     from tests.test_acceptance import _segment_truth
 

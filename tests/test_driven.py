@@ -85,7 +85,7 @@ def test_fusion_beats_gnss_only_and_recovers_the_radius(circle_session):
     rms_fused = np.sqrt(np.mean(e_fused**2)) / k[0]
     rms_alone = np.sqrt(np.mean(e_alone**2)) / k[0]
     assert rms_fused < rms_alone  # docs/checks.md, C3.2
-    # Issue 3: radius within 2 % with the inertial channels (median over the lap; the
+    # Requirement: radius within 2 % with the inertial channels (median over the lap; the
     # GNSS-only figure is kept beside it for comparison).
     radius = 1.0 / np.median(fused.line.curvature_1_m)
     assert radius == pytest.approx(100.0, rel=0.02)
@@ -106,7 +106,7 @@ def test_closure_t33(circle_session):
     assert np.sum(line.curvature_1_m * line.ds_m) == pytest.approx(2 * math.pi, abs=1e-3)
     assert line.closed and line.distance_m[0] == 0.0
     assert np.allclose(np.diff(line.distance_m), ds)
-    # length against the true 2πR: GNSS scale, 0.5 % (issue 3 lap-distance tolerance)
+    # length against the true 2πR: GNSS scale, 0.5 % (the project's lap-distance tolerance)
     assert line.length_m == pytest.approx(2 * math.pi * 100.0, rel=5e-3)
 
 
@@ -138,7 +138,7 @@ def test_demo_lap_line_and_speed():
     elapsed = time.perf_counter() - start
     assert elapsed < 1.0  # contract: well under a second per lap
     line = dl.line
-    assert line.length_m == pytest.approx(tr.line.length_m, rel=5e-3)  # issue 3: 0.5 %
+    assert line.length_m == pytest.approx(tr.line.length_m, rel=5e-3)  # the project's 0.5 %
     # Ideal lap on the rebuilt line against the truth: 0.5 % (docs/methods.md, Rules of thumb: gaps above
     # 0.5 % between correct solvers on smooth lines point to a bug; measured 0.1 % here).
     ideal = solve_profile(line, tr.vehicle).lap_time_s

@@ -163,7 +163,7 @@ def ggv_fit(ggv_data):
 
 def test_ggv_recovers_friction_aero_and_power(ggv_fit):
     # Samples from the docs/formats.md, Vehicle files model of the example vehicle (Crr = 0.012, the
-    # default the fit assumes). Friction 3 % and exponent 10 % are issue 4's acceptance
+    # default the fit assumes). Friction 3 % and exponent 10 % are the project's acceptance
     # tolerances. Power 3 %, drag area 10 %, downforce area 5 % are ours: downforce comes
     # from the v² growth of the lateral limit (well determined), power from the driving
     # side above ~22 m/s, drag only from the small v² terms of braking and traction, so
@@ -249,7 +249,7 @@ def test_required_grip_scale_puts_sample_on_scaled_envelope():
 
 
 def test_grip_estimate_wet_session_and_own_data(ggv_data):
-    # Issue 4: a dry envelope applied to samples that reached an envelope scaled by 0.75
+    # Requirement: a dry envelope applied to samples that reached an envelope scaled by 0.75
     # must give 0.75 (± 0.02, the brief's tolerance); on its own data 1.0 ± 0.02.
     wet = ggv_samples(np.random.default_rng(75), EXAMPLE_CAR.scaled(0.75), 60_000)
     assert grip.grip_estimate(*wet, EXAMPLE_CAR) == pytest.approx(0.75, abs=0.02)
@@ -366,7 +366,7 @@ def test_fit_on_a_time_series_with_kerb_strikes():
     # vector circles the envelope at 0.3 rev/s with its radius between 0.7 and 1 of the
     # limit, white noise 0.1 m/s² and 0.5 % single-sample kerb strikes of 3 g. With the
     # sample rate the fit despikes and low-passes (select_samples) and must still meet
-    # issue 4's 3 % on the friction coefficients; the spikes are not used.
+    # the project's 3 % on the friction coefficients; the spikes are not used.
     fs = 100.0
     t, v, ax, ay, rng = circling_record(600.0, fs=fs, seed=8)
     m = EXAMPLE_CAR.mass_kg
@@ -408,7 +408,7 @@ def test_too_few_samples_is_a_limitlap_error():
         envelope.fit_envelope([30.0] * 10, [0.0] * 10, [1.0] * 10, Vehicle("x", 0.0))
 
 
-# --- generated sessions (limitlap.synth): issue 4's acceptance checks ----------------
+# --- generated sessions (limitlap.synth): the project's acceptance checks ----------------
 
 
 @pytest.fixture(scope="module")
@@ -430,7 +430,7 @@ def dry_session_fit():
 
 
 def test_generated_session_recovers_friction_and_exponent(dry_session_fit):
-    # Issue 4: friction coefficients within 3 % of the generator's when the driver reached
+    # Requirement: friction coefficients within 3 % of the generator's when the driver reached
     # the limit, exponent within 10 %. 100 Hz IMU with 0.03 g white noise (generator
     # default), despiked and low-passed by select_samples.
     session, _, fit = dry_session_fit
@@ -445,7 +445,7 @@ def test_generated_session_recovers_friction_and_exponent(dry_session_fit):
 
 
 def test_generated_session_recovers_traction(dry_session_fit):
-    # Issue 4: 3 %. The pure traction limit is never demonstrated on this circuit (power
+    # Requirement: 3 %. The pure traction limit is never demonstrated on this circuit (power
     # takes over at ~22 m/s, the slowest corner is ~15 m/s), so mu_trac is extrapolated
     # from combined corner exits and is the most sensitive of the three.
     session, _, fit = dry_session_fit
@@ -453,7 +453,7 @@ def test_generated_session_recovers_traction(dry_session_fit):
 
 
 def test_wet_session_grip_estimate_with_dry_envelope(dry_session_fit):
-    # Issue 4: a wet session (generator at grip 0.72) analysed with the dry envelope
+    # Requirement: a wet session (generator at grip 0.72) analysed with the dry envelope
     # fitted above gives grip_estimate within 0.03 of the truth; the dry session on its
     # own envelope gives 1 (± 0.02, docs/outputs.md, summary.json "near 1").
     from limitlap import synth

@@ -1,4 +1,4 @@
-"""Fuzzing the entry points with hypothesis (issue 7), bounded to a few seconds each.
+"""Fuzzing the entry points with hypothesis , bounded to a few seconds each.
 
 Whatever the input, only the project's own errors (``LimitlapError`` subclasses; for a
 file, ``InputError`` naming it) may escape, and the solver's speeds stay finite,

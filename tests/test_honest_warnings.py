@@ -1,4 +1,4 @@
-"""Honest warnings (issue 7): when the data cannot support a confident result, both
+"""Honest warnings: when the data cannot support a confident result, both
 summary.json ("warnings") and report.html say so in plain words."""
 
 from __future__ import annotations
@@ -75,7 +75,7 @@ def test_poor_curvature_agreement_is_reported(tmp_path, capsys, monkeypatch):
     assert flagged and "going on as asked" in flagged[0]
     poor = [w for w in warnings if "agrees poorly with the GNSS path" in w]
     assert poor and all(w.startswith(f"{log}: lap ") and "'accel_lat'" in w for w in poor)
-    # ... with the figure that shows it (issue 7): the data-check panel is in the report
+    # ... with the figure that shows it: the data-check panel is in the report
     assert "data-check figure" in poor[0]
     out = tmp_path / "with_figures"
     code, _, err_fig = run_cli(

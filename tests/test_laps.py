@@ -87,7 +87,7 @@ def test_lap_numbering_times_and_distances(tmp_path):
     assert "partial lap: the log ends on the move" in laps[-1].reason
     for lap in laps[1:4]:
         assert lap.reason == ""
-        assert lap.time_s == pytest.approx(lap_time, abs=0.01)  # issue 3 target
+        assert lap.time_s == pytest.approx(lap_time, abs=0.01)  # the project's lap-time target
         # Constant speed integrates exactly; the ends are the crossing times, measured
         # within 5e-4 s of the closed form (x 25 m/s = 0.0125 m): 0.05 m allowed.
         assert lap.distance_m == pytest.approx(2 * math.pi * RADIUS_M, abs=0.05)
@@ -172,7 +172,7 @@ def test_long_dropout_marks_its_lap_incomplete(tmp_path):
 
 
 def test_thirty_second_dropout_over_the_gate(tmp_path):
-    # Issue 7 battery: a 30 s dropout swallows a crossing; the merged lap is not complete.
+    # Bad-input battery: a 30 s dropout swallows a crossing; the merged lap is not complete.
     circle = Circle(radius_m=RADIUS_M, duration_s=120.0)
     circle.drop_gps(40.0, 70.0)
     log = read_log(circle.write(tmp_path / "c.csv"))

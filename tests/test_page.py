@@ -18,7 +18,7 @@ from pathlib import Path
 import pytest
 
 from limitlap import outputs, pipeline
-from limitlap.formatting import number, time_left, units_named
+from limitlap.formatting import number, units_named, with_band
 from limitlap.resources import bundled_path
 from limitlap.units import KMH_TO_M_S, MPH_TO_M_S
 
@@ -79,12 +79,14 @@ def test_page_data_match_summary_json(demo):
     assert len(rows) == len(ranked)
     for cells, c in zip(rows, ranked, strict=True):
         assert cells[1].startswith(c["name"])
-        assert cells[2] == time_left(c["time_left_s"])
-        assert cells[3] == number(c["actual_s"], ".2f") and cells[4] == number(c["ideal_s"], ".2f")
-        assert cells[5] == (
+        assert cells[2] == str(c["rank_group"])
+        assert cells[3] == number(c["apex_m"], ".0f")
+        assert cells[4] == with_band(c["time_left_s"], c["time_left_band_s"], unit="")
+        assert cells[5] == number(c["actual_s"], ".2f") and cells[6] == number(c["ideal_s"], ".2f")
+        assert cells[7] == (
             f"{number(c['min_speed_actual_kmh'], '.0f')} / {number(c['min_speed_ideal_kmh'], '.0f')}"
         )
-        assert cells[9] == c["plain"]
+        assert cells[11] == c["plain"]
     text = page.read_text(encoding="utf-8")
     assert f"Lap {summary['lap']['number']}:" in text
     # no machine paths in what the user reads: the log by its file name only
@@ -104,8 +106,8 @@ def test_imperial_page_shows_mph_and_feet_and_keeps_the_data(demo):
     for cells, c in zip(_rows(imperial), ranked, strict=True):
         # 1 mph = 0.44704 m/s exactly (international yard and pound agreement, 1959)
         mph = c["min_speed_ideal_kmh"] * KMH_TO_M_S / MPH_TO_M_S
-        assert cells[5].split(" / ")[1] == f"{mph:.0f}"
-        assert "km/h" not in cells[9]
+        assert cells[7].split(" / ")[1] == f"{mph:.0f}"
+        assert "km/h" not in cells[11]
 
 
 # --------------------------------------------------------------------------- browser
@@ -273,9 +275,12 @@ def test_nothing_is_wider_than_a_420_px_window(demo):
         _open(d, page)
         widths = d.execute_script(
             "return [document.documentElement.scrollWidth, window.innerWidth,"
-            " Math.max.apply(null, Array.from(document.querySelectorAll('body *')).map("
+            " Math.max.apply(null, Array.from(document.querySelectorAll('body *')).filter("
+            "   function (e) { return !e.parentElement.closest('.table-wrap'); }).map("
             "   function (e) { return e.getBoundingClientRect().right; }))];"
         )
+        # a table wider than the window (the session's, one column per corner) scrolls
+        # inside its own box (.table-wrap); the box and everything outside one must fit
         scroll, inner, right = widths
         assert scroll <= inner and right <= inner + 0.5, widths
         # the corner table reflows to cards: a row is no taller than its cells stacked

@@ -1,4 +1,4 @@
-"""Safe output (issue 7): inputs never change, an interrupted write leaves the earlier
+"""Safe output: inputs never change, an interrupted write leaves the earlier
 result whole, and the same inputs give byte-identical summary.json."""
 
 from __future__ import annotations

@@ -190,18 +190,22 @@ def test_laps_command_with_a_vehicle_prints_every_lap(capsys, monkeypatch):
 
 
 @pytest.mark.slow
-def test_report_opens_with_the_session_and_its_figure(one_slip, tmp_path):
-    # The report's first section is the session lap by lap, with the grip-by-lap figure
-    # (PNG at its fixed size, read back by matplotlib's own PNG reader).
+def test_report_shows_the_session_and_its_figure(one_slip, tmp_path):
+    # The report carries the session lap by lap (after the summary, the corner table and
+    # the warnings, which fill the first printed page), one row per lap of the log, and
+    # the grip-by-lap figure (PNG at the pictures' width, read back by matplotlib's own
+    # PNG reader).
     from matplotlib import image
 
-    from limitlap.figures import FIGURE_SIZE_PX
+    from limitlap.figures import HEIGHT_PX, PICTURE_WIDTH_PX
 
     _, analysis = one_slip
     written = outputs.write_outputs(analysis, tmp_path / "out")
     png = image.imread(written["session.png"])
-    assert png.shape[:2] == FIGURE_SIZE_PX["session"][::-1]
+    assert png.shape[1] == PICTURE_WIDTH_PX and png.shape[0] > HEIGHT_PX["session"]
     page = (tmp_path / "out" / "report.html").read_text(encoding="utf-8")
-    first = page.index("<h2>")
-    assert page[first:].startswith("<h2>The session, lap by lap</h2>")
-    assert page.index('data-file="session.png"') < page.index("<h2>Warnings</h2>")
+    at = page.index('<section id="session"><h2>The session, lap by lap</h2>')
+    assert page.index('<section id="corners">') < page.index('<section id="warnings">') < at
+    table = page[at : page.index("</table>", at)]
+    assert table.count("<tr") == 1 + len(analysis.laps) + 1  # head, laps, spread
+    assert 'id="figure-session"' in page

@@ -94,9 +94,9 @@ import matplotlib
 from limitlap import figures, pictures
 from limitlap.formatting import units_named
 cond = {"label": "wet", "grip_scale": 0.7, "lap_time_s": 95.2, "length_m": 3000.0,
-  "corners": [{"name": "T1", "apex_m": 400.0, "brake_start_m": 300.0,
-  "entry_speed_kmh": 200.0, "min_speed_kmh": 80.0, "exit_speed_kmh": 150.0,
-  "segment_time_s": 9.5}]}
+  "corners": [{"name": "T1", "label": "Hook", "apex_m": 400.0, "brake_points_m": [300.0],
+  "before_apex_m": 100.0, "entry_speed_m_s": 55.6, "min_speed_m_s": 22.2,
+  "exit_speed_m_s": 41.7, "segment_time_s": 9.5}]}
 pdf = figures.target_sheet(cond, "Invented Ring", "Take care.", fmt="pdf")
 png = figures.target_sheet(cond, "Invented Ring", "Take care.", fmt="png",
                            units=units_named("imperial"))

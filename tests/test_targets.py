@@ -96,7 +96,7 @@ def test_friction_only_car_scales_with_sqrt_k_and_brake_points_stay(line, corner
 
 
 def test_lower_grip_is_never_faster_and_matches_the_solver(line, corners):
-    # Issue 5: lower grip never gives a higher minimum speed or a shorter lap; the lap time
+    # Requirement: lower grip never gives a higher minimum speed or a shorter lap; the lap time
     # of the table is solve_profile's on the same line and envelope (same call: exact).
     tables = targets.target_tables(line, EXAMPLE_CAR, SCALES, corners)
     for hi, lo in itertools.pairwise(tables):

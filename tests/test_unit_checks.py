@@ -101,16 +101,16 @@ def test_the_run_stops_with_one_line_unless_asked_to_go_on(
     assert "speed looks like km/h labelled mph" in err and "going on as asked" in err
 
 
-def test_a_gps_only_log_names_the_missing_channels(tmp_path, clean_text, capsys, monkeypatch):
-    # Time, position and speed only (what phones and GPS lap timers record): one line that
-    # names the file and the missing channels, exit 2, no traceback.
-    keep = ("time [s]", "latitude [deg]", "longitude [deg]", "speed [km/h]")
-    rows = [line.split(",") for line in clean_text.strip().splitlines()]
-    cols = [i for i, name in enumerate(rows[0]) if name in keep]
-    log = tmp_path / "gps_only.csv"
-    log.write_text("\n".join(",".join(r[i] for i in cols) for r in rows) + "\n")
-    args = ["analyse", log, "--gate", demo_gate(), "--out", tmp_path / "o", "--quiet"]
-    code, _, err = run_cli(args, capsys, monkeypatch)
-    lines = [ln for ln in err.splitlines() if ln.strip()]
-    assert code == 2 and len(lines) == 1 and "Traceback" not in err
-    assert str(log) in lines[0] and "'accel_lon' and 'accel_lat'" in lines[0]
+def test_derived_channels_are_skipped_not_passed(tmp_path, clean_text):
+    # A channel derived from the GPS path (limitlap.derived: GPS-only logs) agrees with it
+    # by construction, so it is not checked. Shown with a lateral acceleration in the
+    # wrong unit: logged, it is flagged; the same values marked derived are not checked
+    # at all (a check of them would pass or fail on how they were made, not on the log).
+    path = tmp_path / "session.csv"
+    path.write_text(clean_text)
+    log = logfile.read_log(path)
+    log.channels["accel_lat"] = log.channels["accel_lat"] * 9.80665
+    (logged,) = unit_checks.check_units(log)
+    assert logged.channel == "accel_lat" and "m/s^2 labelled g" in str(logged)
+    log.derived["accel_lat"] = "test: as if derived"
+    assert unit_checks.check_units(log) == []
