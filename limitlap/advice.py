@@ -207,3 +207,68 @@ def advice_line(d: CornerDifferences, units=None) -> str:
         )
     text = parts[0] if len(parts) == 1 else ", ".join(parts[:-1]) + ", and " + parts[-1]
     return f"{head} — {text}"
+
+
+# --------------------------------------------------------------------------- the line
+
+#: A line's offset from the driven line is named from this much: about the rebuilt
+#: lines' own uncertainty between laps (docs/methods.md, Line opportunity). Common
+#: practice, no published source. [m]
+OFFSET_RESOLUTION_M = 0.2
+
+
+def _offset_words(metres: float, where: str, u) -> str | None:
+    """An offset in words, e.g. '1.2 m wider at turn-in' (+ = towards the corner's outside); None below the resolution."""
+    if not _beyond(metres, OFFSET_RESOLUTION_M):
+        return None
+    word = "wider" if metres > 0 else "tighter"
+    return f"{u.distance_text(abs(metres), '.1f')} {word} {where}"
+
+
+def _shift_words(metres: float, what: str, u) -> str | None:
+    """A shift along the line in words, e.g. 'apex 6 m later'; None below :data:`DISTANCE_FLOOR_M`."""
+    if not _beyond(metres, DISTANCE_FLOOR_M):
+        return None
+    return f"{what} {u.distance_text(abs(metres))} {'later' if metres > 0 else 'earlier'}"
+
+
+def line_advice(c, units=None) -> str:
+    """One line on a corner's better line, e.g. "T4: a later turn-in (1.2 m wider at turn-in, apex 6 m later) brings 0.19 s".
+
+    ``c`` is the corner's :class:`limitlap.better_line.CornerLine`. Offsets are named from
+    :data:`OFFSET_RESOLUTION_M`, shifts of the turn-in and apex from
+    :data:`DISTANCE_FLOOR_M`; a line time under :data:`TIME_RESOLUTION_S` is no advice.
+    Where the corridor is too narrow to tell, the line says so instead of a number.
+
+    Examples
+    --------
+    >>> from types import SimpleNamespace as C
+    >>> line_advice(C(name="T4", told=True, line_time_s=0.19, turn_in_offset_m=1.2,
+    ...               apex_offset_m=0.1, exit_offset_m=0.0, turn_in_later_m=4.0,
+    ...               apex_later_m=6.0))
+    'T4: a later turn-in (1.2 m wider at turn-in, apex 6 m later) brings 0.19 s'
+    """
+    u = units or METRIC
+    if not c.told:
+        return f"{c.name}: the laps all took one line here, too alike to tell a better one"
+    if c.line_time_s < TIME_RESOLUTION_S:
+        return f"{c.name}: no faster line inside the corridor the laps drove"
+    shifts = [
+        ("turn-in", _shift_words(c.turn_in_later_m, "turn-in", u), c.turn_in_later_m),
+        ("apex", _shift_words(c.apex_later_m, "apex", u), c.apex_later_m),
+    ]
+    details = [
+        _offset_words(c.turn_in_offset_m, "at turn-in", u),
+        _offset_words(c.apex_offset_m, "at the apex", u),
+        _offset_words(c.exit_offset_m, "at the exit", u),
+    ]
+    lead = next(((what, value) for what, text, value in shifts if text), None)
+    if lead is not None:
+        head = f"{'a later' if lead[1] > 0 else 'an earlier'} {lead[0]}"
+        details += [text for what, text, _ in shifts if text and what != lead[0]]
+    else:
+        wide = c.turn_in_offset_m + c.apex_offset_m + c.exit_offset_m
+        head = "a wider line" if wide > 0 else "a tighter line"
+    details = [d for d in details if d]
+    said = f" ({', '.join(details)})" if details else ""
+    return f"{c.name}: {head}{said} brings {time_left(c.line_time_s)} s"

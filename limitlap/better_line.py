@@ -603,6 +603,9 @@ class LineOpportunity:
         The curvature rate allowed (the driver's own) and the better line's largest. [1/m²]
     profile : solve.Profile
         The QSS profile on the better line (its stations: the driven line's). [-]
+    corridor_xy : tuple of numpy.ndarray
+        The corridor's left and right edges in the plane: (left x, left y, right x,
+        right y) at the stations. [m]
     """
 
     corridor: Corridor
@@ -618,6 +621,7 @@ class LineOpportunity:
     rate_bound_1_m2: float
     rate_max_1_m2: float
     profile: solve.Profile | None = None
+    corridor_xy: tuple | None = None
 
 
 def _fine_times(frame, basis, coefficient_sets, vehicle, grip_scale):
@@ -741,6 +745,7 @@ def line_opportunity(frame: Frame, corridor: Corridor, corners, vehicle: Vehicle
         if any(r.told for r in records)
         else None,
         profile=better,
+        corridor_xy=(*positions(frame, corridor.high_m), *positions(frame, corridor.low_m)),
         corners=records,
         rate_bound_1_m2=rate_bound(frame),
         rate_max_1_m2=float(np.max(curvature_rate(kappa, steps))),

@@ -255,6 +255,7 @@ def _points(points, units=None) -> str:
 
 def _corner_table(analysis, u=None) -> str:
     """The ranked corner table and headline, for the terminal (with the bands when there are some; speeds and distances in ``u``, km/h and m by default)."""
+    from limitlap.advice import TIME_RESOLUTION_S, line_advice
     from limitlap.bands import advice_shown
     from limitlap.formatting import (
         METRIC,
@@ -280,6 +281,18 @@ def _corner_table(analysis, u=None) -> str:
     ]
     if cmp_.time_left_words():
         lines.append(f"time left below zero: {cmp_.time_left_words()}")
+    line = analysis.line
+    line_of = {}
+    if line is not None:
+        line_of = {c.name: cl for c, cl in zip(analysis.corners, line.corners, strict=True)}
+        lines.append(
+            f"a better line inside the corridor ({line.corridor.source}) would bring "
+            + (
+                f"{time_left(line.line_time_s)} s"
+                if line.line_time_s is not None
+                else "— (the laps all took one line: too alike to tell)"
+            )
+        )
     if b is not None:
         lo, hi = b.ideal_time_band_s
         lines.append(
@@ -293,6 +306,7 @@ def _corner_table(analysis, u=None) -> str:
         "",
         f"apex [{u.distance}]",
         "time left [s]",
+        "line [s]",
         f"min you/ideal [{u.speed}]",
         f"brake you [{u.distance}]",
         f"brake ideal [{u.distance}]",
@@ -308,6 +322,7 @@ def _corner_table(analysis, u=None) -> str:
             with_band(c.time_left_s, band_of.get(c.name), unit="")
             if c.name in band_of
             else time_left(c.time_left_s),
+            _line_cell(line_of.get(c.name)),
             f"{speed_kmh(c.min_speed_actual_m_s, u)} / {speed_kmh(c.min_speed_ideal_m_s, u)}",
             _points(c.brake_points_actual_m, u),
             _points(c.brake_points_ideal_m, u),
@@ -322,7 +337,21 @@ def _corner_table(analysis, u=None) -> str:
         for c in cmp_.ranked()[:3]
     ]
     lines += [a for a in shown if a]
+    told = sorted(
+        (cl for cl in line_of.values() if cl.told and cl.line_time_s >= TIME_RESOLUTION_S),
+        key=lambda cl: -cl.line_time_s,
+    )
+    lines += [line_advice(cl, u) for cl in told[:3]]
     return "\n".join(lines)
+
+
+def _line_cell(cl) -> str:
+    """A corner's line time for the table: the time, or "narrow" where the corridor is too narrow to tell; the one blank without a line."""
+    from limitlap.formatting import NOT_AVAILABLE, time_left
+
+    if cl is None:
+        return NOT_AVAILABLE
+    return time_left(cl.line_time_s) if cl.told else "narrow"
 
 
 def _gate_option():

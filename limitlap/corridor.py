@@ -77,9 +77,6 @@ NOISE_QUANTILE = 0.99
 SEARCH_M = 60.0
 #: Gap between a lap's counted points beyond which the stations between count nothing. [m]
 GAP_M = 4.0
-#: Default distance the car's centre keeps from a track edge (half a car's width of
-#: about 1.9 m, and a little). [m]
-EDGE_MARGIN_M = 1.0
 
 
 @dataclass(frozen=True, eq=False)
@@ -322,7 +319,18 @@ class EdgeLines:
     left_y_m: np.ndarray
     right_x_m: np.ndarray
     right_y_m: np.ndarray
-    margin_m: float = EDGE_MARGIN_M
+    margin_m: float
+
+
+def edges_from_widths(x_m, y_m, left_m, right_m, margin_m: float) -> EdgeLines:
+    """Edge lines from points of a line along the track and the widths to its left and right, square to it (the line's direction from its neighbouring points). [m]."""
+    x, y = np.asarray(x_m, float), np.asarray(y_m, float)
+    tx, ty = np.gradient(x), np.gradient(y)
+    norm = np.hypot(tx, ty)
+    norm[norm == 0] = 1.0
+    nx, ny = -ty / norm, tx / norm
+    left, right = np.asarray(left_m, float), np.asarray(right_m, float)
+    return EdgeLines(x + left * nx, y + left * ny, x - right * nx, y - right * ny, margin_m)
 
 
 def edge_offsets(frame: Frame, edges: EdgeLines):

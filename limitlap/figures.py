@@ -65,6 +65,7 @@ BEST = "#009E73"  # Okabe-Ito bluish green: best of the session's own laps
 CHECK_AY = "#56B4E9"  # Okabe-Ito sky blue: curvature from a_y / v²
 CHECK_YAW = "#CC79A7"  # Okabe-Ito reddish purple: curvature from yaw rate / v
 STRETCH = "#F0E442"  # Okabe-Ito yellow: the stretch shown, on the map
+BETTER = "#009E73"  # Okabe-Ito bluish green: the better line, on the map
 INK = "#333333"  # text, axes, neutral marks
 GRID = "#E3E3E3"
 BAND = "#F4F4F4"  # every other corner segment
@@ -671,6 +672,7 @@ def map_figure(cols: Columns, v, units: Units) -> FigureSpec:
             "hoverinfo": "name",
         },
     ]
+    data += _better_line_traces(cols, v, every, k)
     j = min(max(int(np.searchsorted(s, s[0] + 0.04 * (s[-1] - s[0]))), 1), x.size - 1)
     notes = [
         {
@@ -724,10 +726,52 @@ def map_figure(cols: Columns, v, units: Units) -> FigureSpec:
         "The line coloured by the local rate of time loss: red where the ideal pulls away, "
         "blue where you gain on it, white where you are level (the scale is centred on "
         "zero). The arrow shows the direction of travel from the start/finish square. Drag "
-        "a box on the map to show that stretch in the other views.",
+        "a box on the map to show that stretch in the other views."
+        + (
+            " The green line is a better line inside the corridor (thin grey lines) that "
+            "the session's laps drove, or the track's edges; click a corner to see it close."
+            if getattr(v, "line", None) is not None
+            else ""
+        ),
         data,
         layout,
     )
+
+
+def _better_line_traces(cols: Columns, v, every: int, k: float) -> list:
+    """The corridor's edges and the better line on the map (after the map's own traces, whose order the page's script relies on); none without a better line."""
+    line = getattr(v, "line", None)
+    if line is None or line.corridor_xy is None:
+        return []
+
+    def closed(a, name):
+        a = np.asarray(a)[::every] * k
+        return cols.add(name, np.append(a, a[0]), 1)
+
+    lx, ly, rx, ry = line.corridor_xy
+    edge = {"hoverinfo": "skip", "line": {"color": "#9A9A9A", "width": 1.0}}
+    return [
+        _line(
+            closed(lx, "corridor_lx"), closed(ly, "corridor_ly"), "corridor", "#9A9A9A", 1.0, **edge
+        ),
+        _line(
+            closed(rx, "corridor_rx"),
+            closed(ry, "corridor_ry"),
+            "corridor",
+            "#9A9A9A",
+            1.0,
+            showlegend=False,
+            **edge,
+        ),
+        _line(
+            closed(line.x_m, "better_x"),
+            closed(line.y_m, "better_y"),
+            "better line",
+            BETTER,
+            2.0,
+            hoverinfo="skip",
+        ),
+    ]
 
 
 # --------------------------------------------------------------------------- per corner

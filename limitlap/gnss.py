@@ -91,6 +91,17 @@ def to_enu(lat, lon, altitude, fix):
     return x, y, origin
 
 
+def enu_of(lat, lon, origin) -> tuple[np.ndarray, np.ndarray]:
+    """WGS84 points [deg] -> east/north [m] in a log's frame at ``origin`` (latitude, longitude, height), on the origin's height (pymap3d, WGS84 ellipsoid)."""
+    import pymap3d
+
+    lat = np.asarray(lat, dtype=np.float64)
+    east, north, _ = pymap3d.geodetic2enu(
+        lat, np.asarray(lon, float), np.full_like(lat, origin[2]), *origin
+    )
+    return np.asarray(east), np.asarray(north)
+
+
 def fix_rows(log: Log) -> np.ndarray:
     """Rows with a new GPS fix (a value held from the previous fix is not new)."""
     return log.remembered("fix_rows", _compute_fix_rows)

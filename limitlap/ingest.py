@@ -575,6 +575,85 @@ class Track:
     corner_labels: tuple[str, ...]
     corner_apexes_m: tuple[float, ...]
     line_path: str | None
+    edges: TrackEdges | None = None
+
+
+#: Default distance the car's centre keeps from a track edge (half a car's width of
+#: about 1.9 m, and a little): docs/formats.md, Track edges. Common practice, no published
+#: source. [m]
+EDGE_MARGIN_M = 1.0
+
+#: The two forms of an edges file (docs/formats.md, Track edges): the columns of each,
+#: WGS84 or plane, in the order they are kept.
+_EDGE_FORMS = {
+    ("widths", True): ("latitude", "longitude", "left", "right"),
+    ("widths", False): ("x", "y", "left", "right"),
+    ("edges", True): ("left_latitude", "left_longitude", "right_latitude", "right_longitude"),
+    ("edges", False): ("left_x", "left_y", "right_x", "right_y"),
+}
+_EDGE_UNITS = {"latitude": "deg", "longitude": "deg", "x": "m", "y": "m", "left": "m", "right": "m"}
+
+
+@dataclass(frozen=True, eq=False)
+class TrackEdges:
+    """A track's edges as its file gives them (docs/formats.md, Track edges).
+
+    ``form`` is ``"widths"`` (points of a line along the track with the width to its left
+    and to its right, square to it) or ``"edges"`` (rows of paired points, one on each
+    edge); ``geodetic`` says whether points are WGS84 degrees (latitude, longitude) or
+    plane metres (x east, y north). ``columns`` holds the four columns of
+    :data:`_EDGE_FORMS` in that order. ``margin_m``: how far the car's centre keeps from
+    an edge. [m]
+    """
+
+    path: str
+    form: str
+    geodetic: bool
+    columns: tuple[np.ndarray, ...]
+    margin_m: float
+
+
+def read_edges(path, margin_m: float) -> TrackEdges:
+    """Read a track's edges file (docs/formats.md, Track edges); a missing column, a unit other than the one accepted, a negative width or fewer than 4 rows is refused, naming the file."""
+    header, data = _read_numeric_csv(path)
+    names = {}
+    for i, cell in enumerate(header):
+        name, unit = _column_name(cell)
+        want = _EDGE_UNITS.get(
+            name.rpartition("_")[2] if name.startswith(("left_", "right_")) else name
+        )
+        if want is not None and unit not in ("", want):
+            raise InputError(path, f"unit '{unit}' not accepted, expected '{want}'", column=cell)
+        names[name] = data[:, i]
+    found = [key for key, cols in _EDGE_FORMS.items() if all(c in names for c in cols)]
+    if not found:
+        raise InputError(
+            path,
+            "needs columns 'latitude [deg], longitude [deg], left [m], right [m]' (or x/y), "
+            "or 'left_latitude, left_longitude, right_latitude, right_longitude' (or left_x ...)",
+        )
+    (form, geodetic), cols = found[0], _EDGE_FORMS[found[0]]
+    if data.shape[0] < 4:
+        raise InputError(path, f"edges need at least 4 rows, found {data.shape[0]}")
+    if form == "widths":
+        for side in ("left", "right"):
+            bad = np.flatnonzero(names[side] < 0)
+            if bad.size:
+                raise InputError(path, "a width is negative", row=int(bad[0]) + 2, column=side)
+    return TrackEdges(str(path), form, geodetic, tuple(names[c] for c in cols), float(margin_m))
+
+
+def _track_edges(path: Path, data: dict) -> TrackEdges | None:
+    """The ``[edges]`` table of a track file read, or None."""
+    table = data.get("edges")
+    if table is None:
+        return None
+    if not isinstance(table, dict) or not isinstance(table.get("file"), str):
+        raise InputError(path, "[edges] needs 'file', the edges file beside the track file")
+    margin = table.get("margin_m", EDGE_MARGIN_M)
+    if isinstance(margin, bool) or not isinstance(margin, int | float) or not 0 <= margin < 10:
+        raise InputError(path, f"[edges] margin_m must be a number from 0 to 10 m, got {margin!r}")
+    return read_edges(path.parent / table["file"], float(margin))
 
 
 def read_track(path) -> Track:
@@ -619,6 +698,7 @@ def read_track(path) -> Track:
         tuple(labels),
         tuple(apexes),
         line_path,
+        _track_edges(path, data),
     )
 
 

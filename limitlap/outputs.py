@@ -421,6 +421,7 @@ class ReportView:
     bands: object = None
     other_laps: list = dataclasses.field(default_factory=list)
     session_info: dict = dataclasses.field(default_factory=dict)
+    line: object = None
 
 
 @dataclasses.dataclass(frozen=True, eq=False)
@@ -478,6 +479,7 @@ def report_view(analysis) -> ReportView:
     t_ideal = np.asarray(ideal.time_s, dtype=np.float64)
     corners = corner_rows(comparison)
     _with_bands(corners, getattr(analysis, "bands", None))
+    _with_line(corners, getattr(analysis, "line", None))
     warnings = [str(w) for w in analysis.warnings]
     fit_warnings = analysis.fit.warnings if analysis.fit is not None else []
     for extra in (driven.warnings, fit_warnings):
@@ -526,6 +528,7 @@ def report_view(analysis) -> ReportView:
         bands=getattr(analysis, "bands", None),
         other_laps=other_laps(analysis, s, float(line.length_m), t_ideal - t_ideal[0]),
         session_info=dict(getattr(analysis, "session_info", None) or {}),
+        line=getattr(analysis, "line", None),
     )
 
 
@@ -587,6 +590,66 @@ def _with_bands(corners, bands) -> None:
             c["_summary"] = {**c["_summary"], "advice": c["plain"]}
 
 
+def _with_line(corners, line) -> None:
+    """Each corner row gets its better line's keys (docs/outputs.md, summary.json: ``line_time_s`` and the rest) and the line record itself (``_line``, for the report)."""
+    if line is None:
+        return
+    from limitlap.advice import line_advice
+
+    for c, cl in zip(corners, line.corners, strict=True):
+        keys = {
+            "line_time_s": cl.line_time_s,
+            "line_told": cl.told,
+            "line_note": "" if cl.told else LINE_NARROW_NOTE,
+            "line_offsets_m": {
+                "turn_in": cl.turn_in_offset_m,
+                "apex": cl.apex_offset_m,
+                "exit": cl.exit_offset_m,
+            },
+            "line_turn_in_later_m": cl.turn_in_later_m,
+            "line_apex_later_m": cl.apex_later_m,
+            "line_advice": line_advice(cl),
+        }
+        c.update(keys)
+        c["_line"] = cl
+        if "_summary" in c:
+            c["_summary"] = {**c["_summary"], **keys}
+
+
+#: What a corner's ``line_note`` says when its corridor is too narrow to tell.
+LINE_NARROW_NOTE = (
+    "corridor too narrow to tell: the laps' lines here differ by less than their own uncertainty"
+)
+
+
+def _line_keys(line) -> dict:
+    """The better line's top-level summary.json keys: ``line_time_s`` and ``line`` (docs/outputs.md)."""
+    if line is None:
+        return {}
+    band = line.corridor
+    note = ""
+    if line.line_time_s is None:
+        note = (
+            LINE_NARROW_NOTE
+            if len(band.laps) > 1 or band.source != "laps"
+            else ("one lap only and no track edges: no corridor to look in")
+        )
+    return {
+        "line_time_s": line.line_time_s,
+        "line": {
+            "corridor": band.source,
+            "laps": list(band.laps),
+            "uncertainty_m": band.uncertainty_m,
+            "driven_time_s": line.driven_time_s,
+            "min_curvature_time_s": line.min_curvature_time_s,
+            "better_time_s": line.better_time_s,
+            "curvature_rate_max_1_m2": line.rate_max_1_m2,
+            "curvature_rate_bound_1_m2": line.rate_bound_1_m2,
+            "note": note,
+        },
+    }
+
+
 def session_laps(table) -> list[dict]:
     """summary.json ``laps`` (docs/outputs.md): one record per lap of the log, in order.
 
@@ -642,6 +705,17 @@ _CORNER_KEYS = (
 )
 
 
+_LINE_KEYS = (
+    "line_time_s",
+    "line_told",
+    "line_note",
+    "line_offsets_m",
+    "line_turn_in_later_m",
+    "line_apex_later_m",
+    "line_advice",
+)
+
+
 def summary_corner(c: dict, rounded: bool = True) -> dict:
     """A corner's summary.json record (docs/outputs.md, Corners), from its report row.
 
@@ -654,7 +728,7 @@ def summary_corner(c: dict, rounded: bool = True) -> dict:
     else:
         rec = {k: c[k] for k in _CORNER_KEYS}
         rec["plain"] = c["plain"]
-    for key in ("best_s", "best_lap", "label", "time_left_band_s", "rank_group"):
+    for key in ("best_s", "best_lap", "label", "time_left_band_s", "rank_group", *_LINE_KEYS):
         if key in c:
             rec[key] = c[key]
     return _plain(rec) if rounded else rec
@@ -691,6 +765,7 @@ def build_summary(analysis) -> dict:
         "ideal": ideal,
         "time_left_s": v.time_left_s,
         **extras,
+        **_line_keys(getattr(analysis, "line", None)),
         "grip_estimate": v.grip_estimate,
         "corners": corners,
         "session": dict(v.session_info),

@@ -40,7 +40,9 @@ from limitlap import (
     solve,
     unit_checks,
 )
+from limitlap import better_line as better_line_mod
 from limitlap import corners as corners_mod
+from limitlap import corridor as corridor_mod
 from limitlap import driven as driven_mod
 from limitlap import laps as laps_mod
 from limitlap import session as session_mod
@@ -131,6 +133,10 @@ class Analysis:
     session : session.SessionTable or None
         Every lap of the log: kind, time, ideal on its own line, time left, grip found,
         corner times; and each corner's consistency over the flying laps.
+    line : better_line.LineOpportunity or None
+        The better line inside the corridor of the session's laps (or the track's
+        edges) and the time it would bring, in total and per corner (None when not
+        asked for).
     bands : bands.Bands or None
         Intervals of the ideal lap time and each corner's time left (None with fewer
         than :data:`limitlap.bands.MIN_LAPS` flying laps, or when not asked for).
@@ -164,6 +170,7 @@ class Analysis:
     bands: bands.Bands | None = None
     session_info: dict[str, str] = field(default_factory=dict)
     layout_note: str | None = None
+    line: better_line_mod.LineOpportunity | None = None
 
 
 def lap_timelines(log: logfile.Log, laps) -> dict[int, LapTimeline]:
@@ -364,6 +371,7 @@ def analyse(
     check_units: bool = True,
     every_lap: bool = True,
     intervals: bool = True,
+    better_line: bool = True,
 ) -> Analysis:
     """The whole job on one log: laps, line, envelope, ideal lap, comparison.
 
@@ -391,6 +399,9 @@ def analyse(
         Build the table of every lap (:mod:`limitlap.session`). [-]
     intervals : bool
         Work out the bands (:mod:`limitlap.bands`; needs ``every_lap``). [-]
+    better_line : bool
+        Look for a better line in the corridor of the flying laps (and the track file's
+        edges) and the time it would bring (:mod:`limitlap.better_line`). [-]
 
     Returns
     -------
@@ -430,6 +441,11 @@ def analyse(
         _step(progress, 5, _STEPS, "best of the session's own laps")
         complete_laps, best = _best_of_laps(laps, chosen, the_lap, timelines, corners, ideal)
         table, band = more.finish(the_lap, ideal, k, corners, comparison, grip_est)
+        line = (
+            _line_opportunity(log, laps, chosen, the_lap, corners, (car, k), trk, rebuilt)
+            if better_line
+            else None
+        )
     _step(progress, 6, _STEPS, "done")
     return Analysis(
         log_path=str(log_path),
@@ -461,6 +477,7 @@ def analyse(
         bands=band,
         session_info=dict(log.session),
         layout_note=log.layout_note,
+        line=line,
     )
 
 
@@ -859,6 +876,59 @@ def _best_of_laps(laps, chosen, the_lap, timelines, corners, ideal):
         ideal=ideal,
     )
     return complete_laps, best
+
+
+#: Laps whose rebuilt paths make the corridor: the fastest flying laps, at most this many
+#: (each rebuild costs about 20 ms; more laps widen the band little). [-]
+CORRIDOR_LAPS = 12
+
+
+def _lap_paths(log, laps, chosen, the_lap, rebuilt) -> list:
+    """The rebuilt paths of the fastest flying laps (the analysed lap's own among them), stations inside a GNSS dropout marked unsound; a lap whose line cannot be rebuilt is left out."""
+    flying = sorted(laps_mod.flying_laps(laps), key=lambda lp: lp.time_s)[:CORRIDOR_LAPS]
+    if chosen not in flying:
+        flying.append(chosen)
+    drops = [(d.start_time_s, d.end_time_s) for d in gnss.gps_dropouts(log)]
+    paths = []
+    for lp in flying:
+        try:
+            drv = the_lap if lp is chosen else rebuilt.get(lp.number)
+            drv = drv or driven_mod.reconstruct_lap(log, lp)
+        except LimitlapError:
+            continue
+        t = np.asarray(drv.time_s, float) + lp.start_time_s
+        unsound = np.zeros(t.shape, bool)
+        for t0, t1 in drops:
+            unsound |= (t >= t0) & (t <= t1)
+        line = drv.line
+        paths.append(corridor_mod.LapPath(lp.number, line.x_m, line.y_m, unsound))
+    return paths
+
+
+def _edge_lines(trk, log):
+    """The track file's edges in the log's plane (:class:`limitlap.corridor.EdgeLines`), None without; edges and log must both be WGS84 or both x/y."""
+    edges = trk.edges if trk is not None else None
+    if edges is None:
+        return None
+    a, b, c, d = edges.columns
+    if edges.geodetic != (log.origin is not None):
+        kind = "latitude/longitude" if edges.geodetic else "x/y"
+        raise InputError(edges.path, f"edges in {kind} need a log in {kind} too")
+
+    def plane(p, q):
+        return gnss.enu_of(p, q, log.origin) if edges.geodetic else (p, q)
+
+    if edges.form == "widths":
+        return corridor_mod.edges_from_widths(*plane(a, b), c, d, edges.margin_m)
+    return corridor_mod.EdgeLines(*plane(a, b), *plane(c, d), edges.margin_m)
+
+
+def _line_opportunity(log, laps, chosen, the_lap, corners, car_k, trk, rebuilt):
+    """The better line inside the corridor of the flying laps (or the track's edges) and the time it brings (:mod:`limitlap.better_line`)."""
+    frame = corridor_mod.reference_frame(the_lap.line)
+    paths = _lap_paths(log, laps, chosen, the_lap, rebuilt)
+    band = corridor_mod.corridor(frame, paths, _edge_lines(trk, log))
+    return better_line_mod.line_opportunity(frame, band, corners, *car_k)
 
 
 def _corner_labels(trk) -> dict[str, str]:

@@ -23,6 +23,7 @@ import re
 from importlib import resources
 
 from limitlap import figures as fg
+from limitlap.advice import line_advice
 from limitlap.formatting import (
     METRIC,
     NOT_AVAILABLE,
@@ -358,6 +359,11 @@ def _cards(v: ReportView, units: Units, out: list[str]) -> None:
         ("", "grip estimate", grip(v.grip_estimate)),
         ("best", "best of your laps", lap_time(v.best_time_s)),
     ]
+    if v.line is not None:
+        told = v.line.line_time_s
+        cards.append(
+            ("line", "better line", NOT_AVAILABLE if told is None else f"{time_left(told)} s")
+        )
     out.append('<div class="cards">')
     out += [
         f'<div class="card {cls}"><div class="k">{e(k)}</div><div class="v">{e(val)}</div></div>'
@@ -391,6 +397,7 @@ _HEADS = (
     ("group", ""),
     ("apex [{distance}]", ""),
     ("time left [s]", ""),
+    ("line [s]", ""),
     ("yours [s]", "seg"),
     ("ideal [s]", "seg"),
     ("min speed yours / ideal [{speed}]", ""),
@@ -417,6 +424,7 @@ def _corner_cells(rank: int, c: dict, units: Units) -> list[str]:
         str(c["rank_group"]) if "rank_group" in c else "",
         distance(c["apex_m"], units),
         with_band(c["time_left_s"], band, unit="") if band else time_left(c["time_left_s"]),
+        _line_cell(c),
         number(c["actual_s"], ".2f"),
         number(c["ideal_s"], ".2f"),
         f"{speed_kmh(c.get('min_speed_actual_m_s'), units)} / "
@@ -427,6 +435,13 @@ def _corner_cells(rank: int, c: dict, units: Units) -> list[str]:
         grip(c.get("grip_estimate")),
         c["plain"],
     ]
+
+
+def _line_cell(c: dict) -> str:
+    """A corner's line time for the table: the time, "narrow" where the corridor is too narrow to tell, the one blank without a line."""
+    if "line_told" not in c:
+        return NOT_AVAILABLE
+    return time_left(c["line_time_s"]) if c["line_told"] else "narrow"
 
 
 def _corner_table(v: ReportView, units: Units, out: list[str]) -> None:
@@ -464,8 +479,25 @@ def _corner_table(v: ReportView, units: Units, out: list[str]) -> None:
         "Grip found: the grip scale the corner showed against the envelope (below 1 = less "
         f"grip there than at its best, e.g. a damp patch; {NOT_AVAILABLE} where the corner "
         "is taken flat out, on the engine's limit, so it does not show the tyres')."
+        + e(_line_note(v))
         + e(_band_note(v))
         + " Click a corner to show it in every view below.</p></section>"
+    )
+
+
+def _line_note(v: ReportView) -> str:
+    """What the line column means, for the corner table's note."""
+    if v.line is None:
+        return ""
+    where = (
+        "the track's edges"
+        if v.line.corridor.source == "track edges"
+        else "the band your laps drove"
+    )
+    return (
+        f" Line: the time a better line inside {where} would bring through the corner, "
+        "apart from the time left (the speed's, on your own line); narrow: your laps all "
+        "took one line there, too alike to tell a better one."
     )
 
 
@@ -624,7 +656,32 @@ def _detail_rows(c: dict, units: Units) -> list[tuple[str, str]]:
     pa, pi = c.get("peak_accel_lat_actual_m_s2"), c.get("peak_accel_lat_ideal_m_s2")
     if pa is not None and pi is not None:
         rows.append(("peak lateral yours / ideal", f"{pa / G0_M_S2:.2f} / {pi / G0_M_S2:.2f} g"))
+    return rows + _line_rows(c, units)
+
+
+def _line_rows(c: dict, units: Units) -> list[tuple[str, str]]:
+    """The better line's lines of a corner's detail panel: its sentence and its offsets from your line at your turn-in, apex and exit (+ wider)."""
+    cl = c.get("_line")
+    if cl is None:
+        return []
+    rows = [("better line", line_advice(cl, units))]
+    if cl.told:
+        parts = [
+            f"{word} {_signed_distance(x, units)}"
+            for word, x in (
+                ("turn-in", cl.turn_in_offset_m),
+                ("apex", cl.apex_offset_m),
+                ("exit", cl.exit_offset_m),
+            )
+        ]
+        rows.append(("better line from yours (+ wider)", ", ".join(parts)))
     return rows
+
+
+def _signed_distance(metres: float, units: Units) -> str:
+    """An offset to 0.1 of the shown unit with its sign (+ wider); never "-0.0"."""
+    value = round(units.distance_value(metres), 1) + 0.0
+    return f"{value:+.1f} {units.distance}" if value else f"0.0 {units.distance}"
 
 
 def _lap_switches(v: ReportView, out: list[str]) -> None:
