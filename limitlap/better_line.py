@@ -544,17 +544,28 @@ def _apex_and_turn_in(kappa_s, lo, hi, ds):
     return (lo + apex) * ds, (lo + j) * ds
 
 
+def _reach(frame: Frame, corner: Corner) -> tuple[int, int]:
+    """Stations from :data:`TOLD_REACH_M` before a corner's turn-in to as far after its exit (the upper one may pass the lap's end: take it modulo the stations). [-]."""
+    ds = frame.step_m
+    exit_m = corner.exit_m + (frame.length_m if corner.exit_m < corner.turn_in_m else 0.0)
+    return math.floor((corner.turn_in_m - TOLD_REACH_M) / ds), math.ceil(
+        (exit_m + TOLD_REACH_M) / ds
+    )
+
+
+def widest(frame: Frame, corner: Corner, widths) -> float:
+    """The corridor's widest round one corner (:func:`_reach`). [m]."""
+    lo, hi = _reach(frame, corner)
+    return float(np.max(widths[np.mod(np.arange(lo, hi + 1), frame.n)]))
+
+
 def _corner_line(frame, corner: Corner, n, kappa_b, widths, saved):
     """:class:`CornerLine` of one corner: offsets at the driven turn-in, apex and exit, and the two lines' apexes and turn-ins compared."""
     ds, length = frame.step_m, frame.length_m
     smooth = 8.0 / ds  # as limitlap.corners.SMOOTHING_M
-    lo = math.floor((corner.turn_in_m - TOLD_REACH_M) / ds)
-    hi = math.ceil(
-        (corner.exit_m + (length if corner.exit_m < corner.turn_in_m else 0.0) + TOLD_REACH_M) / ds
-    )
-    idx = np.mod(np.arange(lo, hi + 1), frame.n)
-    widest = float(np.max(widths[idx]))
-    told = widest >= TOLD_WIDTH_M
+    lo, hi = _reach(frame, corner)
+    wide = widest(frame, corner, widths)
+    told = wide >= TOLD_WIDTH_M
     sign = 1.0 if corner.direction == "left" else -1.0
 
     def outward(at_m):
@@ -568,7 +579,7 @@ def _corner_line(frame, corner: Corner, n, kappa_b, widths, saved):
         name=corner.name,
         told=told,
         line_time_s=max(saved, 0.0) if told else None,
-        widest_m=widest,
+        widest_m=wide,
         turn_in_offset_m=outward(corner.turn_in_m),
         apex_offset_m=outward(corner.apex_m),
         exit_offset_m=outward(corner.exit_m),
@@ -719,7 +730,12 @@ def line_opportunity(frame: Frame, corridor: Corridor, corners, vehicle: Vehicle
     zero = np.zeros(frame.n)
     driven = solve.solve_profile(line_of(frame, zero, zero, zero), vehicle, grip_scale)
     bounds = line_segments(frame, driven.speed_m_s, corners)
-    c, (t_mc, _) = _better_coefficients(frame, corridor, basis, vehicle, grip_scale, driven, bounds)
+    if any(widest(frame, cn, corridor.width_m) >= TOLD_WIDTH_M for cn in corners):
+        c, (t_mc, _) = _better_coefficients(
+            frame, corridor, basis, vehicle, grip_scale, driven, bounds
+        )
+    else:  # no corner wide enough to tell: the driven line is the only one to show
+        c, t_mc = np.zeros(basis.size), driven.lap_time_s
     n, n1, n2 = basis.b0 @ c, basis.b1 @ c, basis.b2 @ c
     line = line_of(frame, n, n1, n2)
     better = solve.solve_profile(line, vehicle, grip_scale)

@@ -580,6 +580,7 @@ class _LapsBeside:
         shares = session_mod.corner_shares(self.log, self.chosen, the_lap, corners)
         for lp in self._near:
             drv = self.rebuilt.get(lp.number) or driven_mod.reconstruct_lap(self.log, lp)
+            self.rebuilt.setdefault(lp.number, drv)  # the line opportunity's corridor reuses it
             prof = solve.solve_profile(drv.line, self.car, k)
             lap_times.append(prof.lap_time_s)
             placed = session_mod.corners_on(self.log, lp, drv, corners, shares)
