@@ -109,3 +109,82 @@ def test_minimum_curvature_is_the_largest_arc_that_fits(square):
     assert inside.max() == pytest.approx(HALF_WIDTH_M, abs=0.05)
     assert inside.min() == pytest.approx(-HALF_WIDTH_M, abs=0.05)  # and the outside
     assert np.sum(inside < -HALF_WIDTH_M + 0.05) > 4 * 20  # before and after every corner
+
+
+def _noisy_paths(reference: Line, sigma_m, n_laps, seed, extra=None):
+    """Lap paths on the reference line moved sideways by a smooth random offset (standard deviation ``sigma_m``, correlated over about 30 m), plus ``extra(lap, s)`` metres. Independent of limitlap's geometry: the normal from the points' own differences."""
+    from scipy.ndimage import gaussian_filter1d
+
+    rng = np.random.default_rng(seed)
+    x, y = reference.x_m, reference.y_m
+    tx, ty = np.roll(x, -1) - np.roll(x, 1), np.roll(y, -1) - np.roll(y, 1)
+    norm = np.hypot(tx, ty)
+    nx, ny = -ty / norm, tx / norm
+    paths = []
+    for lap in range(n_laps):
+        raw = gaussian_filter1d(rng.standard_normal(x.size), 30.0, mode="wrap")
+        off = sigma_m * raw / raw.std()
+        if extra is not None:
+            off = off + extra(lap, reference.distance_m)
+        paths.append(corridor.LapPath(lap + 1, x + off * nx, y + off * ny))
+    return paths
+
+
+def test_laps_on_one_line_close_the_corridor(square):
+    # Six laps on one line, moved only by a smooth error of σ = 0.3 m: the rebuild's
+    # uncertainty read from their spread is σ (its estimator divides the spread's lower
+    # quartile by the same quartile of a chi-distributed sample standard deviation, so
+    # pure noise gives σ back; ±35 % for six laps over the ~50 independent stretches of a
+    # 1.5 km lap: measured 0.32-0.36 m over seeds 1-5), and the band shrunk by the 99 %
+    # reach of the largest of six errors closes at nearly every station (99 % per station
+    # by construction).
+    _, _, _, reference = square
+    frame = corridor.reference_frame(reference)
+    band = corridor.corridor(frame, _noisy_paths(reference, 0.3, 6, seed=1))
+    assert band.uncertainty_m == pytest.approx(0.3, rel=0.35)
+    assert np.mean(band.width_m < 0.05) > 0.95
+    assert np.all(band.low_m <= 0.0) and np.all(band.high_m >= 0.0)
+
+
+def test_a_lap_off_the_track_does_not_widen_the_corridor_but_another_line_does(square):
+    # Five laps on one line (σ = 0.05 m); lap 2 takes a line 3 m to the left for 150 m
+    # (a smooth bump), lap 4 goes 15 m off for 40 m (beyond OFF_M of the laps' median).
+    # The corridor opens towards lap 2's line by its offset less the shrink, and not at
+    # all where lap 4 went off.
+    _, _, _, reference = square
+    frame = corridor.reference_frame(reference)
+
+    def bump(centre, half, size, s):
+        return size * np.exp(-0.5 * ((s - centre) / half) ** 2)
+
+    def extra(lap, s):
+        if lap == 1:
+            return bump(300.0, 50.0, 3.0, s)
+        if lap == 3:
+            return bump(900.0, 12.0, 15.0, s)
+        return 0.0 * s
+
+    band = corridor.corridor(frame, _noisy_paths(reference, 0.05, 5, seed=2, extra=extra))
+    at = np.argmin(np.abs(frame.distance_m - 300.0))
+    off = np.argmin(np.abs(frame.distance_m - 900.0))
+    shrink = corridor.noise_reach(5) * band.uncertainty_m
+    assert band.high_m[at] == pytest.approx(3.0 - shrink, abs=0.25)
+    assert band.width_m[off] < 0.05
+
+
+def test_dropout_stations_do_not_count(square):
+    # The same 3 m line of lap 2, but its rebuild only dead-reckoned there (a GNSS
+    # dropout marks those points unsound): the corridor stays closed.
+    _, _, _, reference = square
+    frame = corridor.reference_frame(reference)
+    paths = _noisy_paths(
+        reference,
+        0.05,
+        5,
+        seed=2,
+        extra=lambda lap, s: 3.0 * np.exp(-0.5 * ((s - 300.0) / 50.0) ** 2) * (lap == 1),
+    )
+    s = frame.distance_m
+    paths[1] = corridor.LapPath(2, paths[1].x_m, paths[1].y_m, np.abs(s - 300.0) < 200.0)
+    band = corridor.corridor(frame, paths)
+    assert band.width_m[np.argmin(np.abs(s - 300.0))] < 0.05
