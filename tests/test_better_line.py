@@ -188,3 +188,91 @@ def test_dropout_stations_do_not_count(square):
     paths[1] = corridor.LapPath(2, paths[1].x_m, paths[1].y_m, np.abs(s - 300.0) < 200.0)
     band = corridor.corridor(frame, paths)
     assert band.width_m[np.argmin(np.abs(s - 300.0))] < 0.05
+
+
+def _vehicle():
+    from tests.test_outside_truth import _true_vehicle
+
+    return _true_vehicle(arc_circuit.Car())
+
+
+def _corners_of(reference):
+    from limitlap.corners import track_corners
+
+    return track_corners(reference)
+
+
+def test_better_line_keeps_inside_the_corridor_and_is_no_slower(square):
+    # The rounded square's band (edges 4 m either side of its centreline, the reference a
+    # smoothed line inside it): the better line keeps inside the corridor at every
+    # station, is no slower than the driven line, no corner's line time is negative, the
+    # corners' line times add up to at least the whole lap's (each stretch's gain counted,
+    # its losses shown as 0), and the line steers no quicker than the reference does
+    # (its curvature rate under the bound, the reference's own highest, with the soft
+    # penalty's slack of 25 %: our choice).
+    _, _, edges, reference = square
+    frame = corridor.reference_frame(reference)
+    band = corridor.corridor(frame, [], edges)
+    result = better_line.line_opportunity(frame, band, _corners_of(reference), _vehicle())
+    n = result.offset_m
+    assert np.all(n >= band.low_m - 1e-6) and np.all(n <= band.high_m + 1e-6)
+    assert result.better_time_s <= result.driven_time_s
+    assert result.line_time_s == pytest.approx(result.driven_time_s - result.better_time_s)
+    times = [c.line_time_s for c in result.corners]
+    assert all(t >= 0.0 for t in times)
+    assert sum(times) >= result.line_time_s - 1e-9
+    assert result.rate_max_1_m2 <= 1.25 * result.rate_bound_1_m2
+
+
+def _track_with_edges(folder, csv_text, table='file = "edges.csv"'):
+    (folder / "edges.csv").write_text(csv_text, encoding="utf-8")
+    path = folder / "track.toml"
+    path.write_text(f'name = "t"\n[edges]\n{table}\n', encoding="utf-8")
+    return path
+
+
+def test_track_edges_in_both_forms(tmp_path):
+    from limitlap.ingest import read_track
+
+    widths = "latitude [deg],longitude [deg],left [m],right [m]\n" + "".join(
+        f"{-33.0 + i * 1e-4},{147.0},{5 + i},{6}\n" for i in range(5)
+    )
+    trk = read_track(_track_with_edges(tmp_path, widths, 'file = "edges.csv"\nmargin_m = 1.5'))
+    assert trk.edges.form == "widths" and trk.edges.geodetic and trk.edges.margin_m == 1.5
+    assert list(trk.edges.columns[2]) == [5, 6, 7, 8, 9]
+    lines = "left_x [m],left_y [m],right_x [m],right_y [m]\n" + "".join(
+        f"{i},{5},{i},{-5}\n" for i in range(4)
+    )
+    trk = read_track(_track_with_edges(tmp_path, lines))
+    assert trk.edges.form == "edges" and not trk.edges.geodetic and trk.edges.margin_m == 1.0
+    # The widths form becomes edge lines square to its line (here due north: left is west).
+    e = corridor.edges_from_widths(
+        np.zeros(4), np.arange(4.0) * 10, np.full(4, 5.0), np.full(4, 6.0), 1.0
+    )
+    assert np.allclose(e.left_x_m, -5.0) and np.allclose(e.right_x_m, 6.0)
+
+
+@pytest.mark.parametrize(
+    ("csv_text", "table", "says"),
+    [
+        ("x [m],y [m],left [m],right [m]\n0,0,5,-1\n1,0,5,5\n2,0,5,5\n3,0,5,5\n", None, "negative"),
+        ("x [m],y [m],left [ft],right [m]\n0,0,5,1\n1,0,5,5\n2,0,5,5\n3,0,5,5\n", None, "unit"),
+        ("x [m],y [m],width [m]\n0,0,5\n1,0,5\n2,0,5\n3,0,5\n", None, "needs columns"),
+        ("x [m],y [m],left [m],right [m]\n0,0,5,5\n1,0,5,5\n", None, "at least 4 rows"),
+        (
+            "x [m],y [m],left [m],right [m]\n0,0,5,5\n",
+            'file = "edges.csv"\nmargin_m = 20',
+            "margin_m",
+        ),
+        ("x [m],y [m],left [m],right [m]\n0,0,5,5\n", "margin = 1", "needs 'file'"),
+    ],
+)
+def test_bad_track_edges_name_the_file(tmp_path, csv_text, table, says):
+    from limitlap.errors import InputError
+    from limitlap.ingest import read_track
+
+    path = _track_with_edges(tmp_path, csv_text, table or 'file = "edges.csv"')
+    with pytest.raises(InputError) as err:
+        read_track(path)
+    assert says in str(err.value)
+    assert "edges.csv" in str(err.value) or "track.toml" in str(err.value)
