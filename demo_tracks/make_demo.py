@@ -8,6 +8,8 @@ Writes, next to this script:
 - ``tarrowby_heath.toml``      track file: name, ENU origin, gate, corner names and apexes
 - ``tarrowby_heath_line.csv``  the reference line (docs/formats.md, Line files; x/y/z in
                                the origin's ENU frame)
+- ``tarrowby_heath_edges.csv`` the track's edges as widths either side of that line
+                               (docs/formats.md, Track edges)
 - ``tarrowby_dry.csv.gz``      dry session: out-lap, 7 flying laps, in-lap; 100 Hz, 10 Hz GNSS
 - ``tarrowby_wet.csv.gz``      wet session (grip scale 0.75): out-lap, 4 laps, in-lap
 - ``tarrowby_second.csv.gz``   a second invented driver's dry session in the same car, with
@@ -52,6 +54,10 @@ def track_toml(circuit: circuits.Circuit) -> str:
         "[gate]                              # a point on the start/finish straight",
         f"latitude = {lat:.8f}",
         f"longitude = {lon:.8f}",
+        "",
+        "[edges]                             # docs/formats.md, Track edges",
+        'file = "tarrowby_heath_edges.csv"',
+        "margin_m = 1.0",
     ]
     for c in circuit.corners:
         out += [
@@ -62,6 +68,37 @@ def track_toml(circuit: circuits.Circuit) -> str:
             f"apex_m = {c.apex_m:.1f}             # from the gate",
         ]
     return "\n".join(out) + "\n"
+
+
+#: The invented track's width, and how far the demo line sits from its middle towards
+#: the inside of a bend (at most): a line that keeps to the middle on the straights,
+#: leaving the outside at turn-in and exit to a better line. [m]
+TRACK_WIDTH_M = 12.0
+LINE_INSIDE_M = 3.5
+
+
+def edges_csv(circuit: circuits.Circuit) -> str:
+    """The track's edges as widths along the demo line (docs/formats.md, Track edges), WGS84.
+
+    The line sits ``LINE_INSIDE_M * tanh(κ / 0.008)`` from the track's middle towards the
+    inside of each bend (κ its curvature smoothed over 15 m): in the middle on the
+    straights, near the inside kerb at the apexes.
+    """
+    import numpy as np
+    import pymap3d
+    from scipy.ndimage import gaussian_filter1d
+
+    line = circuit.line
+    step = max(1, round(5.0 / (line.length_m / line.n)))
+    kappa = gaussian_filter1d(line.curvature_1_m, 15.0 / (line.length_m / line.n), mode="wrap")
+    inside = LINE_INSIDE_M * np.tanh(kappa / 0.008)
+    lat, lon, _ = pymap3d.enu2geodetic(line.x_m, line.y_m, np.zeros(line.n), *circuit.origin)
+    half = TRACK_WIDTH_M / 2.0
+    rows = [
+        f"{lat[i]:.8f},{lon[i]:.8f},{half - inside[i]:.2f},{half + inside[i]:.2f}"
+        for i in range(0, line.n, step)
+    ]
+    return "latitude [deg],longitude [deg],left [m],right [m]\n" + "\n".join(rows) + "\n"
 
 
 def truth_record(session: synth.Session, settings: dict) -> dict:
@@ -92,6 +129,7 @@ def main() -> None:
     circuit = circuits.demo_circuit()
     (HERE / "tarrowby_heath.toml").write_text(track_toml(circuit), encoding="utf-8")
     (HERE / "tarrowby_heath_line.csv").write_text(line_csv_text(circuit.line), encoding="utf-8")
+    (HERE / "tarrowby_heath_edges.csv").write_text(edges_csv(circuit), encoding="utf-8")
     truth = {}
     for name, settings in (("dry", DRY), ("wet", WET), ("second", SECOND)):
         extra = {"mistakes": MISTAKES[name]} if name in MISTAKES else {}
