@@ -653,7 +653,10 @@ def _track_edges(path: Path, data: dict) -> TrackEdges | None:
     margin = table.get("margin_m", EDGE_MARGIN_M)
     if isinstance(margin, bool) or not isinstance(margin, int | float) or not 0 <= margin < 10:
         raise InputError(path, f"[edges] margin_m must be a number from 0 to 10 m, got {margin!r}")
-    return read_edges(path.parent / table["file"], float(margin))
+    edges = path.parent / table["file"]
+    if not edges.is_file():
+        raise InputError(path, f"[edges] file '{table['file']}' not found beside the track file")
+    return read_edges(edges, float(margin))
 
 
 def read_track(path) -> Track:

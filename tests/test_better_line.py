@@ -276,3 +276,13 @@ def test_bad_track_edges_name_the_file(tmp_path, csv_text, table, says):
         read_track(path)
     assert says in str(err.value)
     assert "edges.csv" in str(err.value) or "track.toml" in str(err.value)
+
+
+def test_missing_edges_file_names_the_track_file(tmp_path):
+    from limitlap.errors import InputError
+    from limitlap.ingest import read_track
+
+    path = tmp_path / "track.toml"
+    path.write_text('name = "t"\n[edges]\nfile = "gone.csv"\n', encoding="utf-8")
+    with pytest.raises(InputError, match=r"track\.toml: \[edges\] file 'gone\.csv' not found"):
+        read_track(path)

@@ -190,6 +190,8 @@ def _track(tmp_path, apex_t3, *, keep_length=True):
     text = text.replace("apex_m = 1060.0", f"apex_m = {apex_t3}")
     if not keep_length:
         text = re.sub(r"(?m)^length_m = .*\n", "", text)
+    edges = bundled_path("demo_tracks", "tarrowby_heath_edges.csv")  # the file its [edges] names
+    write(tmp_path, edges.name, edges.read_text(encoding="utf-8"))
     return write(tmp_path, "track.toml", text)
 
 
