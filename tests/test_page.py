@@ -18,7 +18,7 @@ from pathlib import Path
 import pytest
 
 from limitlap import outputs, pipeline
-from limitlap.formatting import number, units_named, with_band
+from limitlap.formatting import number, time_left, units_named, with_band
 from limitlap.resources import bundled_path
 from limitlap.units import KMH_TO_M_S, MPH_TO_M_S
 
@@ -82,11 +82,12 @@ def test_page_data_match_summary_json(demo):
         assert cells[2] == str(c["rank_group"])
         assert cells[3] == number(c["apex_m"], ".0f")
         assert cells[4] == with_band(c["time_left_s"], c["time_left_band_s"], unit="")
-        assert cells[5] == number(c["actual_s"], ".2f") and cells[6] == number(c["ideal_s"], ".2f")
-        assert cells[7] == (
+        assert cells[5] == (time_left(c["line_time_s"]) if c["line_told"] else "narrow")
+        assert cells[6] == number(c["actual_s"], ".2f") and cells[7] == number(c["ideal_s"], ".2f")
+        assert cells[8] == (
             f"{number(c['min_speed_actual_kmh'], '.0f')} / {number(c['min_speed_ideal_kmh'], '.0f')}"
         )
-        assert cells[11] == c["plain"]
+        assert cells[12] == c["plain"]
     text = page.read_text(encoding="utf-8")
     assert f"Lap {summary['lap']['number']}:" in text
     # no machine paths in what the user reads: the log by its file name only
@@ -106,8 +107,8 @@ def test_imperial_page_shows_mph_and_feet_and_keeps_the_data(demo):
     for cells, c in zip(_rows(imperial), ranked, strict=True):
         # 1 mph = 0.44704 m/s exactly (international yard and pound agreement, 1959)
         mph = c["min_speed_ideal_kmh"] * KMH_TO_M_S / MPH_TO_M_S
-        assert cells[7].split(" / ")[1] == f"{mph:.0f}"
-        assert "km/h" not in cells[11]
+        assert cells[8].split(" / ")[1] == f"{mph:.0f}"
+        assert "km/h" not in cells[12]
 
 
 # --------------------------------------------------------------------------- browser
