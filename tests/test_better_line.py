@@ -286,3 +286,21 @@ def test_missing_edges_file_names_the_track_file(tmp_path):
     path.write_text('name = "t"\n[edges]\nfile = "gone.csv"\n', encoding="utf-8")
     with pytest.raises(InputError, match=r"track\.toml: \[edges\] file 'gone\.csv' not found"):
         read_track(path)
+
+
+def test_local_re_solves_equal_whole_solves(square):
+    # The descent's gradient re-solves only the stretch of the speed traces a moved
+    # coefficient reaches (_kernels.lap_time_changes); each lap time must equal the whole
+    # QSS solve of the moved line (the same passes, so to rounding: 1e-9 s of a lap).
+    _, _, edges, reference = square
+    frame = better_line.coarse_frame(corridor.reference_frame(reference))
+    basis = better_line.spline_basis(frame.distance_m, frame.length_m)
+    walls = (np.full(frame.n, -4.0), np.full(frame.n, 4.0))
+    problem = better_line._LapTime(frame, basis, _vehicle(), 1.0, walls)
+    c = np.random.default_rng(5).normal(0.0, 0.5, basis.size)
+    base, gradient = problem.with_gradient(c)
+    for k in range(0, basis.size, 37):
+        moved = c.copy()
+        moved[k] += better_line.DIFFERENCE_M
+        whole = (problem.time(moved) - base) / better_line.DIFFERENCE_M
+        assert gradient[k] == pytest.approx(whole, abs=1e-9 / better_line.DIFFERENCE_M)
