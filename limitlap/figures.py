@@ -727,14 +727,24 @@ def map_figure(cols: Columns, v, units: Units) -> FigureSpec:
         "blue where you gain on it, white where you are level (the scale is centred on "
         "zero). The arrow shows the direction of travel from the start/finish square. Drag "
         "a box on the map to show that stretch in the other views."
-        + (
-            " The green line is a better line inside the corridor (thin grey lines) that "
-            "the session's laps drove, or the track's edges; click a corner to see it close."
-            if getattr(v, "line", None) is not None
-            else ""
-        ),
+        + _better_line_words(getattr(v, "line", None)),
         data,
         layout,
+    )
+
+
+def _better_line_words(line) -> str:
+    """The map caption's sentence on the better line; empty without one."""
+    if line is None:
+        return ""
+    where = (
+        "between the track's edges"
+        if line.corridor.source == "track edges"
+        else "inside the band the session's laps drove"
+    )
+    return (
+        f" The green line is a better line {where} (thin grey lines: the corridor it kept "
+        "to); click a corner to see it close."
     )
 
 

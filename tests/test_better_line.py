@@ -292,7 +292,7 @@ def test_local_re_solves_equal_whole_solves(square):
     # The descent's gradient re-solves only the stretch of the speed traces a moved
     # coefficient reaches (_kernels.lap_time_changes); each lap time must equal the whole
     # QSS solve of the moved line (the same passes, so to rounding: 1e-9 s of a lap).
-    _, _, edges, reference = square
+    _, _, _, reference = square
     frame = better_line.coarse_frame(corridor.reference_frame(reference))
     basis = better_line.spline_basis(frame.distance_m, frame.length_m)
     walls = (np.full(frame.n, -4.0), np.full(frame.n, 4.0))
