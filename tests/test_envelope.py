@@ -392,18 +392,18 @@ def _sweep(fs, duration_s, rev_s, car, noise_m_s2=0.0, seed=3, speed=30.0):
 
 
 def test_filtered_again_moves_a_sweep_as_far_again():
-    # Closed form (the Gaussian kernel's Fourier transform, H(f) = exp(-2 pi^2 s^2 f^2),
-    # Oppenheim & Schafer, from memory): a point going round a circle of radius R at f
-    # revolutions a second is a complex exponential, so one pass of the low-pass leaves a
-    # circle of radius R H and a second pass R H^2. One pass minus two, R (H - H^2), is
-    # then the shrink R (1 - H) times H: within 1 - H of it (1.7 % here, a turn in 1.5 s).
-    # The same at the accelerations' own rate when they sit on every 4th row of a 200 Hz
-    # log (50 Hz: the rows between stay blank), and within each stretch between blanks.
+    # docs/checks.md, C2.6. Closed form (the Gaussian kernel's Fourier transform, H(f) =
+    # exp(-2 pi^2 s^2 f^2), Oppenheim & Schafer, from memory): a point going round a circle
+    # of radius R at f revolutions a second is a complex exponential, so one pass of the
+    # low-pass leaves a circle of radius R H and a second pass R H^2. One pass minus two, R
+    # (H - H^2), is then the shrink R (1 - H) times H: within 1 - H of it (1.7 % here, a
+    # turn in 1.5 s). The same at the accelerations' own rate when they sit on every 4th row
+    # of a 200 Hz log (50 Hz: the rows between stay blank), and within each stretch between
+    # blanks.
     car = friction_car(1.3, exponent=2.0)
     fc, rev_s = 3.0, 1.5
-    h = math.exp(
-        -2.0 * math.pi**2 * (samples.gaussian_sigma_samples(fc, 1.0) / 1.0) ** 2 / rev_s**2
-    )
+    sigma_t = samples.gaussian_sigma_samples(fc, 1.0)  # the kernel's width in seconds
+    h = math.exp(-2.0 * math.pi**2 * sigma_t**2 / rev_s**2)
     radius = car.mu_lat * G
     for fs, every in ((100.0, 1), (200.0, 4)):
         t, v, ax, ay = _sweep(fs, 12.0, rev_s, car)
@@ -428,15 +428,14 @@ def test_filtered_again_moves_a_sweep_as_far_again():
 
 
 def test_low_pass_shrink_of_a_fast_sweep_is_given_back():
-    # The acceleration vector going round the limit once every 1.5 s (the fastest sweeps
-    # of a lap: braking into a quick corner, through it and out) with 0.02 g white noise
-    # at 100 Hz. The 3 Hz low-pass shrinks that circle by 1 - H = 1.7 % (closed form, the
-    # test above): left in, the fitted limits are that far inside the car's, less what
-    # the noise lifts the 99 % quantile (0.8 % here: at least a quarter of the shrink
-    # stays). Taken out, the
-    # friction coefficients must be within 0.3 % of the car's (the fit's scatter here is
-    # about 0.1 %), and the boundary points' mean shrink R (H - H^2) for radii R between
-    # the braking and the lateral limit.
+    # docs/checks.md, C2.6. The acceleration vector going round the limit once every 1.5 s
+    # (the fastest sweeps of a lap: braking into a quick corner, through it and out) with
+    # 0.02 g white noise at 100 Hz. The 3 Hz low-pass shrinks that circle by 1 - H = 1.7 %
+    # (closed form, the test above): left in, the fitted limits are that far inside the
+    # car's, less what the noise lifts the 99 % quantile (0.8 % here: at least a quarter of
+    # the shrink stays). Taken out, the friction coefficients must be within 0.3 % of the
+    # car's (the fit's scatter here is about 0.1 %), and the boundary points' mean shrink R
+    # (H - H^2) for radii R between the braking and the lateral limit.
     car = friction_car(1.3, mu_brk=1.3, mu_trac=1.3, exponent=2.0)
     car = replace(car, mu_lat=1.45)
     rev_s = 1.5
@@ -447,7 +446,8 @@ def test_low_pass_shrink_of_a_fast_sweep_is_given_back():
         )
         for remove in (True, False)
     }
-    h = math.exp(-2.0 * math.pi**2 * (samples.gaussian_sigma_samples(3.0, 1.0)) ** 2 / rev_s**2)
+    sigma_t = samples.gaussian_sigma_samples(3.0, 1.0)  # the kernel's width in seconds
+    h = math.exp(-2.0 * math.pi**2 * sigma_t**2 / rev_s**2)
     for k in ("mu_lat", "mu_brk", "mu_trac"):
         assert getattr(fits[True].vehicle, k) == pytest.approx(getattr(car, k), rel=0.003), k
         assert getattr(fits[False].vehicle, k) < getattr(car, k) * (1.0 - 0.25 * (1.0 - h)), k
@@ -462,13 +462,13 @@ def test_low_pass_shrink_of_a_fast_sweep_is_given_back():
 
 
 def test_bins_never_driven_to_the_limit_do_not_pull_the_envelope_in():
-    # Sweeps round the limit at 20-40 m/s of a car with downforce (its limits grow with
-    # speed, and the fit finds the downforce area from that growth), and a flat-out bend
-    # at 45-50 m/s held at 70 % of the lateral limit: those bins' boundary points lie 30 %
-    # inside. They say where the driver was, not where the limit is: the fit with them
-    # must equal the one without them (within 0.2 %), and the car's downforce area within
-    # 3 %. Negative control: with every point kept, each far point still pulls under the
-    # soft-L1 loss and the downforce area comes out lower (measured when written: 2 %).
+    # docs/checks.md, C2.7. Sweeps round the limit at 20-40 m/s of a car with downforce (its
+    # limits grow with speed, and the fit finds the downforce area from that growth), and a
+    # flat-out bend at 45-50 m/s held at 70 % of the lateral limit: those bins' boundary
+    # points lie 30 % inside. They say where the driver was, not where the limit is: the fit
+    # with them must equal the one without them (within 0.2 %), and the car's downforce area
+    # within 3 %. Negative control: with every point kept, each far point still pulls under
+    # the soft-L1 loss and the downforce area comes out lower (measured when written: 2 %).
     car = replace(friction_car(1.3, exponent=2.0), mu_lat=1.45, downforce_area_m2=1.0)
     base = Vehicle("no power, drag or rolling", 1000.0, math.inf, 0.0, None, 0.0)
     parts = []
