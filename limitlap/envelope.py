@@ -526,8 +526,7 @@ def fit_envelope(
     used = _thinned(sel, sample_rate_hz, fit_rate_hz)
     rows = np.flatnonzero(used)  # the rows in use, found once
     v, ax, ay = (np.take(a, rows) for a in (sel.speed_m_s, sel.accel_lon_m_s2, sel.accel_lat_m_s2))
-    again = filtered_again(sel) if remove_noise else None
-    twice = None if again is None else tuple(np.take(a, rows) for a in again)
+    twice = filtered_again(sel, rows) if remove_noise else None
     dense = _densified(rows, v, ax, ay, sel.sample_rate_hz, sample_rate_hz, twice)
     default_bin, default_near = bin_counts(dense.rate_hz)
     min_bin_samples = default_bin if min_bin_samples is None else min_bin_samples
@@ -957,20 +956,26 @@ def _pile_levels(v, ax, ay, veh, noise, quantile, tyre, power, twice=None):
     b_tyre = b_power = 0.0
     near = np.flatnonzero((tyre > _NEAR_LIMIT_SHARE) & (tyre > power))
     if near.size >= _MIN_TAIL_SAMPLES:
-        r = _residuals(v[near], ax[near], ay[near], replace(veh, power_w=math.inf))
+        r = _radial(v[near], ax[near], ay[near], veh, tyre[near])
         if twice is not None:
-            pair = (twice[0][near], twice[1][near])
-            r += _filter_shrink(v[near], ax[near], ay[near], pair, veh, np.zeros(near.size, bool))
+            r += r - _radial(v[near], twice[0][near], twice[1][near], veh)
         b_tyre = _pile_level(r, noise, quantile)
     if math.isfinite(veh.power_w):
         on = np.flatnonzero((power > _NEAR_LIMIT_SHARE) & (power >= tyre))
         if on.size >= _MIN_TAIL_SAMPLES:
-            excess = _power_excess(v[on], ax[on], ay[on], veh)
+            excess = (power[on] - 1.0) * veh.power_w / (veh.mass_kg * np.maximum(v[on], 1e-3))
             if twice is not None:
-                pair = (twice[0][on], twice[1][on])
-                excess += _filter_shrink(v[on], ax[on], ay[on], pair, veh, np.ones(on.size, bool))
+                excess += excess - _power_excess(v[on], twice[0][on], twice[1][on], veh)
             b_power = _pile_level(excess, noise, quantile)
     return b_tyre, b_power
+
+
+def _radial(v, ax, ay, veh, tyre=None):
+    """:func:`_residuals` from the tyre limit alone (power left out), from the tyre shares ``tyre`` when given (:func:`_tyre_and_power_shares`' first, which it computes otherwise). [m/s²]."""
+    if tyre is None:
+        tyre = _tyre_and_power_shares(v, ax, ay, veh)[0]
+    force = np.hypot(ax + resistance_n(v, veh) / veh.mass_kg, ay)
+    return force * (1.0 - 1.0 / np.maximum(tyre, 1e-9))
 
 
 def _power_excess(v, ax, ay, veh):
@@ -991,13 +996,14 @@ def _filter_shrink(v, ax, ay, twice, veh, on_power):
     limit's samples, the excess over the power line where ``on_power``. Positive when
     the low-pass moved the sample inside.
     """
-    tyre_only = replace(veh, power_w=math.inf)
-    shrink = _residuals(v, ax, ay, tyre_only) - _residuals(v, twice[0], twice[1], tyre_only)
-    if on_power.any() and math.isfinite(veh.power_w):
-        on = np.flatnonzero(on_power)
-        shrink[on] = _power_excess(v[on], ax[on], ay[on], veh) - _power_excess(
-            v[on], twice[0][on], twice[1][on], veh
-        )
+    on = on_power & math.isfinite(veh.power_w)
+    shrink = np.empty(v.shape[0])
+    for part, measure in ((~on, _radial), (on, _power_excess)):
+        i = np.flatnonzero(part)
+        if i.size:
+            shrink[i] = measure(v[i], ax[i], ay[i], veh) - measure(
+                v[i], twice[0][i], twice[1][i], veh
+            )
     return shrink
 
 
@@ -1022,7 +1028,8 @@ def _pile_level(r, noise, quantile):
     r = np.asarray(r, dtype=np.float64)
     step = 0.05 * noise
     edges = np.arange(-top - 4.0 * noise, 5.0 * noise + step, step)
-    count, _ = np.histogram(r, edges)
+    # equal bins by count and range: numpy's histogram then bins without sorting r
+    count, _ = np.histogram(r, edges.size - 1, (edges[0], edges[-1]))
     if count.sum() <= _MIN_TAIL_SAMPLES:
         return 0.0
     density = gaussian_filter1d(count.astype(np.float64), 0.5 * noise / step, mode="constant")
