@@ -773,7 +773,8 @@ class _FitProblem:
             )  # fmt: skip
         far = FAR_INSIDE_M_S2 + FAR_INSIDE_NOISE * noise_m_s2
         keep = _residuals(bv, bax, bay, veh) >= -far  # bins not driven to the limit: out
-        if np.count_nonzero(keep) >= len(self.names) + 3:
+        corrected = noise_m_s2 > 0.0 or self.twice is not None  # remove_noise, with a rate
+        if corrected and np.count_nonzero(keep) >= len(self.names) + 3:
             idx, bp_band, bv, bax, bay = (a[keep] for a in (idx, bp_band, bv, bax, bay))
         tyre_b, power_b = _tyre_and_power_shares(bv, bax, bay, veh)[:2]
         on_power = power_b >= tyre_b  # each point fitted off the limit it is on
@@ -891,7 +892,8 @@ _PILE_TOLERANCE = 0.05
 #: gently, the low-pass's path across a step between two limits), and under the soft-L1
 #: loss each such point still pulls the envelope in by about the loss scale. Points near
 #: the limit lie within a few tenths of it (measured on generated sessions at 5-100 Hz:
-#: within 0.5 m/s² at 100 Hz, the points of bins never driven there 1-4 m/s² inside;
+#: within about 0.5 m/s² at 100 Hz, more at lower rates where the noise is larger; the
+#: points of bins never driven there 1-4 m/s² inside;
 #: left in, they took about 2 % off the fitted downforce area and made the ideal lap
 #: about 0.02 s slower over seeds 100-105). Five times the default loss scale; common
 #: practice, no published source. [m/s²]
@@ -917,8 +919,10 @@ def _noise_offsets(v, ax, ay, veh, noise, quantile, tyre, power, twice=None):
     samples inside the limit (driven below it) spread lower still: :math:`-b` is where
     the distances are densest (:func:`_pile_levels`). It is kept within
     :math:`[0, z_q \sigma]` (:math:`z_q` the normal quantile of ``quantile``: the lift
-    when every sample of a bin is on the limit), so the correction never widens the
-    envelope and never narrows it by more than the noise can have widened it.
+    when every sample of a bin is on the limit), so the noise correction never widens
+    the envelope (the low-pass's shrink given back to each point can,
+    :func:`_filter_shrink`) and never narrows it by more than the noise can have widened
+    it.
 
     Why from the peak and not from the samples beyond the envelope alone (their mean
     against a truncated normal's): how far the high quantile of a bin lies above the
