@@ -338,6 +338,7 @@ def _fit(log_path, samples, base, early, derived_clause=""):
             sample_rate_hz=rate,
             throttle=thr_s,
             selection=None if early is None else early.result(),
+            give_back_shrink=not derived_clause,  # derived accelerations: not this low-pass's
         )
     except InputError:
         raise
