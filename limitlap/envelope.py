@@ -403,7 +403,6 @@ def fit_envelope(
     fit_rate_hz=FIT_RATE_HZ,
     selection: Selection | None = None,
     remove_noise: bool = True,
-    give_back_shrink: bool = True,
 ) -> EnvelopeFit:
     r"""Fit the g-g-V envelope of docs/formats.md, Vehicle files to the samples a driver demonstrated.
 
@@ -464,11 +463,6 @@ def fit_envelope(
         them (:func:`_filter_shrink`) and leave out the points far inside (bins not driven
         to the limit, :data:`FAR_INSIDE_M_S2`); nothing without a sample rate, which leaves
         the samples unfiltered and their noise unknown: see Notes. [-]
-    give_back_shrink : bool, default True
-        With ``remove_noise``, give the boundary points back what the low-pass took off
-        them. False for accelerations derived from speed and the GNSS line
-        (:mod:`limitlap.derived`): their own smoothing is not this low-pass, and their
-        noise already widens the envelope (docs/methods.md, Derived accelerations). [-]
 
     Returns
     -------
@@ -532,7 +526,7 @@ def fit_envelope(
     used = _thinned(sel, sample_rate_hz, fit_rate_hz)
     rows = np.flatnonzero(used)  # the rows in use, found once
     v, ax, ay = (np.take(a, rows) for a in (sel.speed_m_s, sel.accel_lon_m_s2, sel.accel_lat_m_s2))
-    twice = filtered_again(sel, rows) if remove_noise and give_back_shrink else None
+    twice = filtered_again(sel, rows) if remove_noise else None
     dense = _densified(rows, v, ax, ay, sel.sample_rate_hz, sample_rate_hz, twice)
     default_bin, default_near = bin_counts(dense.rate_hz)
     min_bin_samples = default_bin if min_bin_samples is None else min_bin_samples
