@@ -51,7 +51,7 @@ from limitlap.limits import (
     resistance_n,
 )
 from limitlap.power_line import full_throttle_power_drag
-from limitlap.samples import Selection, select_samples
+from limitlap.samples import Selection, filtered_again, select_samples
 from limitlap.solve import vehicle_array
 from limitlap.units import G0_M_S2
 from limitlap.vehicle import EXPONENT_MAX, GRIP_COEFF_MAX, Vehicle
@@ -459,8 +459,10 @@ def fit_envelope(
         it splits the laps); ``mask`` is applied to it. [-]
     remove_noise : bool, default True
         Take out of the envelope the width the sensor noise adds to a high quantile
-        (:func:`_noise_offsets`; nothing without a sample rate, which leaves the samples
-        unfiltered and their noise unknown): see Notes. [-]
+        (:func:`_noise_offsets`), give the boundary points back what the low-pass took off
+        them (:func:`_filter_shrink`) and leave out the points far inside (bins not driven
+        to the limit, :data:`FAR_INSIDE_M_S2`); nothing without a sample rate, which leaves
+        the samples unfiltered and their noise unknown: see Notes. [-]
 
     Returns
     -------
@@ -492,12 +494,19 @@ def fit_envelope(
     by the normal quantile times the noise's standard deviation (2.33 sigma at 0.99) when
     every sample of a bin is on the limit, less when most are inside. Left in, it widens
     the envelope by the sensor's noise (about 1 % of the grip for 0.03 g white noise at
-    100 Hz after the 3 Hz low-pass) and the ideal lap gains time no driver can find. With
-    ``remove_noise``, that lift is estimated from where the samples near the limit are
-    densest, for the tyre limit and the power line apart (:func:`_noise_offsets`: the
-    noise level is measured from the accelerations' second differences,
-    :func:`filtered_noise`), and each boundary point is fitted that far outside the limit it is on (one more pass,
-    or the refit after the power calibration, whose central power line gets about none).
+    100 Hz after the 3 Hz low-pass) and the ideal lap gains time no driver can find. The
+    low-pass works the other way where the path through the g-g plane bends (sweeping
+    along the limit, turning from one limit onto another): it averages a sample on the
+    limit with neighbours inside it (about 0.2 % of grip on generated sessions' fast
+    corners). With ``remove_noise``, each boundary point's shrink is estimated as one
+    pass of the low-pass minus two (:func:`_filter_shrink`), and the lift from where the
+    near-limit samples, given their shrink back, are densest, for the tyre limit and the
+    power line apart (:func:`_noise_offsets`, :func:`_pile_levels`; the noise level from
+    the accelerations' second differences, :func:`filtered_noise`). Each boundary point
+    is fitted its limit's lift minus its own shrink outside the envelope (one more fit, or
+    the refit after the power calibration, whose central power line gets about no lift),
+    the lifts moved until that pile lies on the refitted envelope (a few rounds), and
+    points far inside it left out (:data:`FAR_INSIDE_M_S2`).
     """
     if base.mass_kg is None or not (base.mass_kg > 0):
         raise LimitlapError(f"vehicle '{base.name}' needs a positive mass to fit an envelope")
@@ -517,7 +526,8 @@ def fit_envelope(
     used = _thinned(sel, sample_rate_hz, fit_rate_hz)
     rows = np.flatnonzero(used)  # the rows in use, found once
     v, ax, ay = (np.take(a, rows) for a in (sel.speed_m_s, sel.accel_lon_m_s2, sel.accel_lat_m_s2))
-    dense = _densified(rows, v, ax, ay, sel.sample_rate_hz, sample_rate_hz)
+    twice = filtered_again(sel, rows) if remove_noise else None
+    dense = _densified(rows, v, ax, ay, sel.sample_rate_hz, sample_rate_hz, twice)
     default_bin, default_near = bin_counts(dense.rate_hz)
     min_bin_samples = default_bin if min_bin_samples is None else min_bin_samples
     min_near_limit = default_near if min_near_limit is None else min_near_limit
@@ -530,12 +540,15 @@ def fit_envelope(
         dense.v, dense.ax, dense.ay, base, quantile, band_width_m_s, min_speed_m_s,
         n_angle_bins, min_bin_samples, loss_scale_m_s2,
     )  # fmt: skip
+    problem.twice = dense.twice  # the low-pass's own shrink, taken out with the noise
     veh, bp, passes = problem.passes(max_passes)
     calibrated = full_throttle_power_drag(
         v, ax, ay, rows, throttle, veh, problem.names, sample_rate_hz
     )
     noise = sel.noise_m_s2 * dense.noise_factor if remove_noise else 0.0
-    veh, bp, lifts, full_throttle = problem.calibrated_and_lifted(veh, bp, calibrated, noise)
+    veh, bp, lifts, full_throttle, shrink = problem.calibrated_and_lifted(
+        veh, bp, calibrated, noise
+    )
     res, uncertainty = problem.uncertainty(veh, bp)
     if full_throttle is not None:  # over the samples; the interpolated ones come after
         full_throttle = np.concatenate([full_throttle, np.zeros(dense.v.size - v.size, bool)])
@@ -551,6 +564,7 @@ def fit_envelope(
         "fit_rate_hz": float(dense.rate_hz) if dense.rate_hz is not None else math.nan,
         "noise_offset_m_s2": float(lifts[0]),
         "noise_offset_power_m_s2": float(lifts[1]),
+        "filter_shrink_m_s2": shrink,
         "passes": int(passes),
     }
     bands, warnings = _bands_and_warnings(problem, bp, min_near_limit)
@@ -585,9 +599,10 @@ class _Dense:
     ay: np.ndarray  # [m/s²]
     rate_hz: float | None  # rate of these samples (None: no rate) [Hz]
     noise_factor: float  # their noise's standard deviation over the samples' [-]
+    twice: tuple | None = None  # a_x, a_y low-passed twice (filtered_again), or None [m/s²]
 
 
-def _densified(rows, v, ax, ay, own_rate_hz, row_rate_hz) -> _Dense:
+def _densified(rows, v, ax, ay, own_rate_hz, row_rate_hz, twice=None) -> _Dense:
     r"""The samples with k - 1 points interpolated linearly between neighbours, k = DENSE_RATE_HZ / rate.
 
     Only between samples that follow one another in the log (one own sample interval
@@ -596,20 +611,22 @@ def _densified(rows, v, ax, ay, own_rate_hz, row_rate_hz) -> _Dense:
     inside any convex envelope they both lie in (no overshoot, as for the low-pass).
     White noise of standard deviation :math:`\sigma` becomes
     :math:`\sigma\sqrt{(1-f)^2 + f^2}` at fraction f; ``noise_factor`` is the root mean
-    square of that over the samples, what :func:`_noise_offsets` is then given.
+    square of that over the samples, what :func:`_noise_offsets` is then given. The
+    twice-filtered accelerations ``twice`` (or None), at the same samples, are
+    interpolated alike.
     """
     if own_rate_hz is None or own_rate_hz * 1.5 >= DENSE_RATE_HZ or rows.size < 2:
-        return _Dense(v, ax, ay, own_rate_hz, 1.0)
+        return _Dense(v, ax, ay, own_rate_hz, 1.0, twice)
     k = round(DENSE_RATE_HZ / own_rate_hz)
     step = round(row_rate_hz / own_rate_hz) if row_rate_hz else 1
     pairs = np.flatnonzero(np.diff(rows) == max(step, 1))
     f = np.arange(1, k) / k
     parts = [
         np.concatenate([a, (a[pairs, None] * (1.0 - f) + a[pairs + 1, None] * f).ravel()])
-        for a in (v, ax, ay)
+        for a in (v, ax, ay, *(twice or ()))
     ]
     share = (1.0 + np.sum((1.0 - f) ** 2 + f**2)) / k  # mean variance factor of a step
-    return _Dense(*parts, own_rate_hz * k, math.sqrt(share))
+    return _Dense(*parts[:3], own_rate_hz * k, math.sqrt(share), tuple(parts[3:]) or None)
 
 
 def _thinned(sel: Selection, sample_rate_hz, fit_rate_hz):
@@ -639,8 +656,10 @@ class _FitProblem:
 
     One fit's state: the samples ``v, ax, ay`` [m/s, m/s²] and their speed band, the
     fitted parameter names with their internal scale and bounds, the priors, the work
-    arrays reused by every binning pass, and ``offset``, how far outside the envelope
-    the boundary points are fitted [m/s²] (``fit_envelope`` Notes).
+    arrays reused by every binning pass, ``offset``, how far outside the envelope the
+    boundary points are fitted [m/s²] (``fit_envelope`` Notes), and ``twice``, the
+    samples' accelerations low-passed a second time (None when they were not filtered,
+    or the noise is left in).
     """
 
     def __init__(
@@ -675,6 +694,7 @@ class _FitProblem:
         self.w_prior = 0.01  # m/s² per prior standard deviation
         self.work = np.empty((5, v.shape[0]))  # _usage_and_direction's arrays, reused
         self.offset = 0.0
+        self.twice = None  # a_x, a_y of these samples low-passed twice, or None [m/s²]
         self.usage = None  # combined usage of every sample, once the fit is done [-]
 
     def boundary(self, veh):
@@ -727,42 +747,77 @@ class _FitProblem:
         return veh, bp, passes
 
     def calibrated_and_lifted(self, veh, bp, calibrated, noise_m_s2):
-        """The fit after the power/drag calibration and with the noise lift taken out.
+        """The fit after the power/drag calibration, with the noise lift and the low-pass's shrink taken out.
 
         ``calibrated`` is :func:`full_throttle_power_drag`'s result (or None);
-        ``noise_m_s2`` the filtered noise (0 leaves the points on the limit). Returns the
-        vehicle, the boundary points, the lifts (tyre, power) [m/s²] and the
-        full-throttle rows used (or None).
+        ``noise_m_s2`` the filtered noise (0 leaves the points on the limit). Each
+        boundary point is fitted its lift minus its own filter shrink outside the envelope
+        (:func:`_filter_shrink`), the lift of each limit set so that the shrink-corrected
+        samples near it pile up on the refitted envelope (:func:`_pile_levels`, a few
+        rounds). Points far inside the envelope (:data:`FAR_INSIDE_M_S2`) are left out.
+        Returns the vehicle, the boundary points used, the lifts (tyre, power) [m/s²], the
+        full-throttle rows used (or None) and the boundary points' mean filter shrink
+        [m/s²].
         """
-        lifts, full_throttle = (0.0, 0.0), None
+        lifts, full_throttle, shrink = (0.0, 0.0), None, 0.0
         if calibrated is not None:
             veh, full_throttle = calibrated
-        if calibrated is not None or noise_m_s2 > 0.0:
-            idx, bp_band, bv, bax, bay = self.boundary(veh)  # leaves the shares in work
-            if noise_m_s2 > 0.0:
-                w = self.work
-                lifts = _noise_offsets(
-                    self.v, self.ax, self.ay, veh, noise_m_s2, self.quantile, w[0], w[4]
-                )
-                tyre_b, power_b = _tyre_and_power_shares(bv, bax, bay, veh)[:2]
-                # each point fitted off the limit it is on (no lift: the points of ``bp``
-                # stay, whose number this boundary's may not share)
-                offset = np.where(power_b >= tyre_b, lifts[1], lifts[0])
-                self.offset = offset if np.any(offset > 0.0) or calibrated is not None else 0.0
-        every = list(range(len(self.names)))
-        if calibrated is None and np.any(self.offset > 0.0):  # same parameters, points off
-            sol = self.fit_points(every, veh, self.x0, bv, bax, bay)
-            veh = _vehicle_from(sol.x, self.names, veh)
-            bp = (idx, bp_band, bv, bax, bay, sol)
-        if calibrated is not None:
-            keep = [i for i, k in enumerate(self.names) if k not in ("power_w", "drag_area_m2")]
-            names_f = [self.names[i] for i in keep]
-            x0f = np.array([getattr(veh, k) / _SCALE.get(k, 1.0) for k in names_f])
-            start_f = np.clip(x0f, self.lo[keep] + 1e-9, self.hi[keep] - 1e-9)
-            sol_f = self.fit_points(keep, veh, start_f, bv, bax, bay)
-            veh = _vehicle_from(sol_f.x, names_f, veh)
-            bp = (idx, bp_band, bv, bax, bay, bp[5])
-        return veh, bp, lifts, full_throttle
+        if calibrated is None and not noise_m_s2 > 0.0 and self.twice is None:
+            return veh, bp, lifts, full_throttle, shrink
+        idx, bp_band, bv, bax, bay = self.boundary(veh)  # leaves the shares in work
+        if noise_m_s2 > 0.0:  # from the samples' shares the binning left in work
+            w = self.work
+            lifts = _noise_offsets(
+                self.v, self.ax, self.ay, veh, noise_m_s2, self.quantile, w[0], w[4],
+                self.twice,
+            )  # fmt: skip
+        far = FAR_INSIDE_M_S2 + FAR_INSIDE_NOISE * noise_m_s2
+        keep = _residuals(bv, bax, bay, veh) >= -far  # bins not driven to the limit: out
+        corrected = noise_m_s2 > 0.0 or self.twice is not None  # remove_noise, with a rate
+        if corrected and np.count_nonzero(keep) >= len(self.names) + 3:
+            idx, bp_band, bv, bax, bay = (a[keep] for a in (idx, bp_band, bv, bax, bay))
+        tyre_b, power_b = _tyre_and_power_shares(bv, bax, bay, veh)[:2]
+        on_power = power_b >= tyre_b  # each point fitted off the limit it is on
+        shrinks = np.zeros(idx.size)
+        if self.twice is not None:
+            twice_b = (self.twice[0][idx], self.twice[1][idx])
+            shrinks = _filter_shrink(bv, bax, bay, twice_b, veh, on_power)
+            shrink = float(np.mean(shrinks))
+        top = NormalDist().inv_cdf(self.quantile) * noise_m_s2
+        for rounds in range(1, _PILE_ROUNDS + 1):
+            self.offset = np.where(on_power, lifts[1], lifts[0]) - shrinks
+            fitted, sol = self._refit(veh, calibrated, bv, bax, bay)
+            if not noise_m_s2 > 0.0 or rounds == _PILE_ROUNDS:
+                break
+            levels = self._levels(fitted, noise_m_s2)  # 0 once the envelope is on the piles
+            if max(abs(lv) for lv in levels) < _PILE_TOLERANCE * noise_m_s2:
+                break
+            lifts = tuple(
+                float(np.clip(b - lv, 0.0, top)) for b, lv in zip(lifts, levels, strict=True)
+            )
+        bp = (idx, bp_band, bv, bax, bay, sol if calibrated is None else bp[5])
+        return fitted, bp, lifts, full_throttle, shrink
+
+    def _levels(self, veh, noise_m_s2):
+        """:func:`_pile_levels` of the samples under ``veh`` (0, 0 without noise). [m/s²]."""
+        if not noise_m_s2 > 0.0:
+            return 0.0, 0.0
+        tyre, power = _tyre_and_power_shares(self.v, self.ax, self.ay, veh, self.work)[:2]
+        return _pile_levels(
+            self.v, self.ax, self.ay, veh, noise_m_s2, self.quantile, tyre, power, self.twice
+        )
+
+    def _refit(self, veh, calibrated, bv, bax, bay):
+        """The boundary points fitted ``offset`` off the envelope: every parameter from ``veh``'s, or with the calibrated power and drag held. Returns the vehicle and the solution."""
+        if calibrated is None:
+            sol = self.fit_points(list(range(len(self.names))), veh, self.x0, bv, bax, bay)
+            return _vehicle_from(sol.x, self.names, veh), sol
+        keep = [i for i, k in enumerate(self.names) if k not in ("power_w", "drag_area_m2")]
+        names_f = [self.names[i] for i in keep]
+        x0f = np.array([getattr(veh, k) / _SCALE.get(k, 1.0) for k in names_f])
+        start_f = np.clip(x0f, self.lo[keep] + 1e-9, self.hi[keep] - 1e-9)
+        sol_f = self.fit_points(keep, veh, start_f, bv, bax, bay)
+        return _vehicle_from(sol_f.x, names_f, veh), sol_f
 
     def uncertainty(self, veh, bp):
         """Residuals of the boundary points [m/s²] and the parameters' standard errors [SI].
@@ -823,13 +878,36 @@ def _bands_and_warnings(problem: _FitProblem, bp, min_near_limit):
 #: A noise lift is estimated only from at least this many samples near the limit. [-]
 _MIN_TAIL_SAMPLES = 30
 
+#: Rounds of refitting the boundary points at most, each lift moved by how far the
+#: shrink-corrected samples near its limit pile up off the refitted envelope, and the
+#: distance that counts as on it, as a share of the noise (the pile's level is read on
+#: a 0.05 sigma histogram). [-]
+_PILE_ROUNDS = 4
+#: See :data:`_PILE_ROUNDS`. [-]
+_PILE_TOLERANCE = 0.05
+
+#: A boundary point further inside the envelope fitted through them than this plus
+#: :data:`FAR_INSIDE_NOISE` times the filtered noise is left out of the final fit: its
+#: bin was not driven to the limit (a flat-out bend where power limits, a corner taken
+#: gently, the low-pass's path across a step between two limits), and under the soft-L1
+#: loss each such point still pulls the envelope in by about the loss scale. Points near
+#: the limit lie within a few tenths of it (measured on generated sessions at 5-100 Hz:
+#: within about 0.5 m/s² at 100 Hz, more at lower rates where the noise is larger; the
+#: points of bins never driven there 1-4 m/s² inside;
+#: left in, they took about 2 % off the fitted downforce area and made the ideal lap
+#: about 0.02 s slower over seeds 100-105). Five times the default loss scale; common
+#: practice, no published source. [m/s²]
+FAR_INSIDE_M_S2 = 0.5
+#: See :data:`FAR_INSIDE_M_S2`: the noise scatters the points near the limit too. [-]
+FAR_INSIDE_NOISE = 2.0
+
 #: Samples of a share of the limit above this take part in the lift estimate (the peak
 #: of those on the limit and its upper half lie well above it at any noise level met:
 #: 4 sigma of 0.4 m/s², the noise of 5 Hz samples, is 0.1 of a 1.6 g limit). [-]
 _NEAR_LIMIT_SHARE = 0.8
 
 
-def _noise_offsets(v, ax, ay, veh, noise, quantile, tyre, power):
+def _noise_offsets(v, ax, ay, veh, noise, quantile, tyre, power, twice=None):
     r"""How far the sensor noise lifts the boundary points above the tyre limit and above the power line.
 
     [m/s²].
@@ -839,10 +917,12 @@ def _noise_offsets(v, ax, ay, veh, noise, quantile, tyre, power):
     :math:`N(0, \sigma^2)`; an envelope fitted through high-quantile points lies
     :math:`b` outside the limit, so those samples pile up at :math:`-b` from it, and
     samples inside the limit (driven below it) spread lower still: :math:`-b` is where
-    the distances are densest (:func:`_lift_from_peak`). It is kept within
+    the distances are densest (:func:`_pile_levels`). It is kept within
     :math:`[0, z_q \sigma]` (:math:`z_q` the normal quantile of ``quantile``: the lift
-    when every sample of a bin is on the limit), so the correction never widens the
-    envelope and never narrows it by more than the noise can have widened it.
+    when every sample of a bin is on the limit), so the noise correction never widens
+    the envelope (the low-pass's shrink given back to each point can,
+    :func:`_filter_shrink`) and never narrows it by more than the noise can have widened
+    it.
 
     Why from the peak and not from the samples beyond the envelope alone (their mean
     against a truncated normal's): how far the high quantile of a bin lies above the
@@ -857,44 +937,103 @@ def _noise_offsets(v, ax, ay, veh, noise, quantile, tyre, power):
     :math:`(s_P - 1) P / (m v)`. A power line calibrated as a central fit (throttle
     channel) has its peak on it: its lift comes out 0. Each is 0 without noise or with
     fewer than :data:`_MIN_TAIL_SAMPLES` samples near the limit.
+
+    With ``twice`` (the accelerations low-passed a second time,
+    :func:`limitlap.samples.filtered_again`), each sample's distance is first given back
+    what the low-pass took off it (:func:`_filter_shrink`): the samples on the limit then
+    pile up where the limit is, whether the driver held it or swept along it.
+    """
+    top = NormalDist().inv_cdf(quantile) * noise
+    levels = _pile_levels(v, ax, ay, veh, noise, quantile, tyre, power, twice)
+    return tuple(float(np.clip(-lv, 0.0, top)) for lv in levels)
+
+
+def _pile_levels(v, ax, ay, veh, noise, quantile, tyre, power, twice=None):
+    """Where the samples near the tyre limit and near the power line are densest, from each (+ outside). [m/s²].
+
+    The samples and distances of :func:`_noise_offsets` (which see), the level of each
+    from :func:`_pile_level`; (0, 0) without noise, 0 for a limit with fewer than
+    :data:`_MIN_TAIL_SAMPLES` samples near it.
     """
     if not noise > 0.0:
         return 0.0, 0.0
     b_tyre = b_power = 0.0
     near = np.flatnonzero((tyre > _NEAR_LIMIT_SHARE) & (tyre > power))
     if near.size >= _MIN_TAIL_SAMPLES:
-        r = _residuals(v[near], ax[near], ay[near], replace(veh, power_w=math.inf))
-        b_tyre = _lift_from_peak(r, noise, quantile)
+        r = _radial(v[near], ax[near], ay[near], veh, tyre[near])
+        if twice is not None:
+            r += r - _radial(v[near], twice[0][near], twice[1][near], veh)
+        b_tyre = _pile_level(r, noise, quantile)
     if math.isfinite(veh.power_w):
         on = np.flatnonzero((power > _NEAR_LIMIT_SHARE) & (power >= tyre))
         if on.size >= _MIN_TAIL_SAMPLES:
             excess = (power[on] - 1.0) * veh.power_w / (veh.mass_kg * np.maximum(v[on], 1e-3))
-            b_power = _lift_from_peak(excess, noise, quantile)
+            if twice is not None:
+                excess += excess - _power_excess(v[on], twice[0][on], twice[1][on], veh)
+            b_power = _pile_level(excess, noise, quantile)
     return b_tyre, b_power
 
 
-def _lift_from_peak(r, noise, quantile):
-    r""":func:`_noise_offsets`' lift b from the distances r beyond a limit (+ outside). [m/s²].
+def _radial(v, ax, ay, veh, tyre=None):
+    """:func:`_residuals` from the tyre limit alone (power left out), from the tyre shares ``tyre`` when given (:func:`_tyre_and_power_shares`' first, which it computes otherwise). [m/s²]."""
+    if tyre is None:
+        tyre = _tyre_and_power_shares(v, ax, ay, veh)[0]
+    force = np.hypot(ax + resistance_n(v, veh) / veh.mass_kg, ay)
+    return force * (1.0 - 1.0 / np.maximum(tyre, 1e-9))
+
+
+def _power_excess(v, ax, ay, veh):
+    """How far each sample's driving force lies above the power line P/v, per mass. [m/s²]."""
+    power = _tyre_and_power_shares(v, ax, ay, veh)[1]
+    return (power - 1.0) * veh.power_w / (veh.mass_kg * np.maximum(v, 1e-3))
+
+
+def _filter_shrink(v, ax, ay, twice, veh, on_power):
+    r"""How far the low-pass moved each sample inside the limit it is on. [m/s²].
+
+    A sample on the limit whose path through the g-g plane bends (sweeping along the
+    limit from braking through cornering to traction, or turning onto it) is averaged
+    with neighbours inside the convex envelope, by about :math:`\tfrac12 s^2` times its
+    second derivative across the limit (s the kernel's width in time). One pass minus
+    two (``ax, ay`` against ``twice``, :func:`limitlap.samples.filtered_again`) is that
+    move again: the radial distance from the tyre limit (power left out) for the tyre
+    limit's samples, the excess over the power line where ``on_power``. Positive when
+    the low-pass moved the sample inside.
+    """
+    on = on_power & math.isfinite(veh.power_w)
+    shrink = np.empty(v.shape[0])
+    for part, measure in ((~on, _radial), (on, _power_excess)):
+        i = np.flatnonzero(part)
+        if i.size:
+            shrink[i] = measure(v[i], ax[i], ay[i], veh) - measure(
+                v[i], twice[0][i], twice[1][i], veh
+            )
+    return shrink
+
+
+def _pile_level(r, noise, quantile):
+    r"""The level where the distances r beyond a limit (+ outside) are densest. [m/s²].
 
     The level :math:`\mu` where the distances are densest, between :math:`-z_q\sigma`
     and :math:`3\sigma`: the samples driven on the limit pile up there, the samples
     inside it spread thinly below. The density is a histogram of 0.05 sigma bins smoothed
     by a Gaussian kernel of half the noise (a kernel density estimate: B. W. Silverman,
     *Density Estimation for Statistics and Data Analysis*, Chapman & Hall, 1986, ch. 3
-    [M]); smoothing a normal peak by a Gaussian leaves its mode where it was. The lift is
-    :math:`-\mu`, kept within :math:`[0, z_q\sigma]`. The densest level, not the first
+    [M]); smoothing a normal peak by a Gaussian leaves its mode where it was (a lift of
+    :math:`-\mu`, :func:`_noise_offsets`). The densest level, not the first
     from the top that looks like a peak's upper half: a few dozen samples 2-4 sigma
     outside (a region the envelope's shape fits badly, a kerb strike) stopped such a
     search at their own level (a two-lap 20 Hz log: no lift, ideal 0.4 % fast); here they
-    are outweighed by the hundreds on the limit. The background of samples inside pulls
-    the mode down a little: the lift errs towards a slower ideal (measured 0.05-0.1 % on
-    generated sessions at 100 Hz).
+    are outweighed by the hundreds on the limit. :math:`-z_q\sigma` when the density is
+    highest there (or below), 0 with :data:`_MIN_TAIL_SAMPLES` distances or fewer in the
+    histogram's range.
     """
     top = NormalDist().inv_cdf(quantile) * noise
     r = np.asarray(r, dtype=np.float64)
     step = 0.05 * noise
     edges = np.arange(-top - 4.0 * noise, 5.0 * noise + step, step)
-    count, _ = np.histogram(r, edges)
+    # equal bins by count and range: numpy's histogram then bins without sorting r
+    count, _ = np.histogram(r, edges.size - 1, (edges[0], edges[-1]))
     if count.sum() <= _MIN_TAIL_SAMPLES:
         return 0.0
     density = gaussian_filter1d(count.astype(np.float64), 0.5 * noise / step, mode="constant")
@@ -902,8 +1041,8 @@ def _lift_from_peak(r, noise, quantile):
     allowed = np.flatnonzero((centre >= -top) & (centre <= 3.0 * noise))
     best = allowed[int(np.argmax(density[allowed]))]
     if best == allowed[0]:
-        return top  # densest at (or beyond) the whole quantile's lift
-    return min(max(-float(centre[best]), 0.0), top)
+        return -top  # densest at (or beyond) the whole quantile's lift
+    return float(centre[best])
 
 
 #: How well the noise lift is known, as a share of the filtered noise: measured on the

@@ -345,6 +345,10 @@ def _fit(log_path, samples, base, early, derived_clause=""):
             sample_rate_hz=rate,
             throttle=thr_s,
             selection=None if early is None else early.result(),
+            # accelerations derived from speed and the GNSS line: their smoothing is not
+            # the low-pass's and their error shows in no noise figure (docs/methods.md,
+            # Derived accelerations), so nothing is taken out or given back
+            remove_noise=not derived_clause,
         )
     except InputError:
         raise

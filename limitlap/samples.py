@@ -33,6 +33,7 @@ from limitlap.noise import mad_scale
 
 __all__ = [
     "Selection",
+    "filtered_again",
     "filtered_noise",
     "gaussian_sigma_samples",
     "lowpassed_noise",
@@ -313,6 +314,36 @@ def lowpassed_noise(raw_sigma, sigma) -> float:
     w = np.exp(-0.5 * (j / max(float(sigma), 1e-12)) ** 2)
     w /= w.sum()
     return float(raw_sigma) * math.sqrt(float(np.sum(w * w)))
+
+
+def filtered_again(sel: Selection, rows=None):
+    r"""The selection's filtered accelerations low-passed once more by the same kernel: (a_x, a_y) at ``rows`` (every row when None), or None without a sample rate.
+
+    Each unbroken stretch of the accelerations' own samples is filtered as
+    :func:`select_samples` filtered it (on the rows that carry a value, at their own rate,
+    when they sit on every k-th row only); blank rows stay blank. A symmetric kernel of
+    variance :math:`s^2` moves a smooth signal :math:`x` by about
+    :math:`\tfrac12 s^2 \ddot x` (the leading term of its Taylor expansion), and a second
+    pass by the same kernel moves it by about as much again: one pass minus two estimates
+    what the low-pass did to each sample, for :func:`limitlap.envelope.fit_envelope`. One
+    record-long buffer serves both channels. [m/s²]
+    """
+    if sel.noise_parts is None:
+        return None
+    sigma = sel.noise_parts[2]
+    buffer = np.empty(sel.used.shape[0])
+    out = []
+    for a in (sel.accel_lon_m_s2, sel.accel_lat_m_s2):
+        finite = np.isfinite(a)
+        buffer.fill(np.nan)
+        if _own_step(finite) > 1:  # as _on_own_samples: the carrying rows in one stretch
+            idx = np.flatnonzero(finite)
+            buffer[idx] = gaussian_filter1d(a[idx], sigma, mode="nearest")
+        else:
+            for s, e in zip(*_runs(finite), strict=True):
+                gaussian_filter1d(a[s:e], sigma, mode="nearest", output=buffer[s:e])
+        out.append(buffer.copy() if rows is None else buffer[rows])
+    return tuple(out)
 
 
 def filtered_noise(second_differences, sigma):

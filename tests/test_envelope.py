@@ -380,6 +380,124 @@ def test_fit_on_a_time_series_with_kerb_strikes():
     assert fit.vehicle.exponent == pytest.approx(EXAMPLE_CAR.exponent, rel=0.10)
 
 
+def _sweep(fs, duration_s, rev_s, car, noise_m_s2=0.0, seed=3, speed=30.0):
+    """The acceleration vector going round the tyre limit of ``car`` (an ellipse: exponent 2, equal braking and traction) once every ``rev_s`` seconds at ``speed``, sampled at ``fs``, white noise added (invented test data). Returns (t, v, ax, ay)."""
+    t = np.arange(0.0, duration_s, 1.0 / fs)
+    th = 2.0 * np.pi * t / rev_s
+    normal, m = normal_load_n(speed, car), car.mass_kg
+    ax = np.cos(th) * car.mu_brk * normal / m - resistance_n(speed, car) / m
+    ay = np.sin(th) * car.mu_lat * normal / m
+    noise = np.random.default_rng(seed).normal(0.0, noise_m_s2, (2, t.size))
+    return t, np.full(t.size, speed), ax + noise[0], ay + noise[1]
+
+
+def test_filtered_again_moves_a_sweep_as_far_again():
+    # docs/checks.md, C2.6. Closed form (the Gaussian kernel's Fourier transform, H(f) =
+    # exp(-2 pi^2 s^2 f^2), Oppenheim & Schafer, from memory): a point going round a circle
+    # of radius R at f revolutions a second is a complex exponential, so one pass of the
+    # low-pass leaves a circle of radius R H and a second pass R H^2. One pass minus two, R
+    # (H - H^2), is then the shrink R (1 - H) times H: within 1 - H of it (1.7 % here, a
+    # turn in 1.5 s). The same at the accelerations' own rate when they sit on every 4th row
+    # of a 200 Hz log (50 Hz: the rows between stay blank), and within each stretch between
+    # blanks.
+    car = friction_car(1.3, exponent=2.0)
+    fc, rev_s = 3.0, 1.5
+    sigma_t = samples.gaussian_sigma_samples(fc, 1.0)  # the kernel's width in seconds
+    h = math.exp(-2.0 * math.pi**2 * sigma_t**2 / rev_s**2)
+    radius = car.mu_lat * G
+    for fs, every in ((100.0, 1), (200.0, 4)):
+        t, v, ax, ay = _sweep(fs, 12.0, rev_s, car)
+        blank = np.arange(t.size) % every != 0
+        ax[blank], ay[blank] = np.nan, np.nan
+        ax[t.size // 2 : t.size // 2 + 3 * every] = np.nan  # a gap: two stretches
+        sel = samples.select_samples(v, ax, ay, sample_rate_hz=fs, spike_threshold_m_s2=50.0)
+        twice = samples.filtered_again(sel)
+        assert np.isnan(twice[0][blank]).all() and np.isnan(twice[1][blank]).all()
+        mid = (t > 2.0) & (t < 4.0) & ~blank  # away from the record's and the gap's ends
+        once_r = np.hypot(sel.accel_lon_m_s2[mid], sel.accel_lat_m_s2[mid])
+        twice_r = np.hypot(twice[0][mid], twice[1][mid])
+        assert once_r == pytest.approx(np.full(once_r.size, radius * h), rel=2e-4)
+        assert twice_r == pytest.approx(np.full(twice_r.size, radius * h * h), rel=2e-4)
+        estimate = once_r - twice_r
+        assert estimate == pytest.approx(
+            np.full(estimate.size, radius * (1.0 - h)), rel=1.1 * (1 - h)
+        )
+    assert (
+        samples.filtered_again(samples.select_samples([30.0] * 50, [0.0] * 50, [1.0] * 50)) is None
+    )
+
+
+def test_low_pass_shrink_of_a_fast_sweep_is_given_back():
+    # docs/checks.md, C2.6. The acceleration vector going round the limit once every 1.5 s
+    # (the fastest sweeps of a lap: braking into a quick corner, through it and out) with
+    # 0.02 g white noise at 100 Hz. The 3 Hz low-pass shrinks that circle by 1 - H = 1.7 %
+    # (closed form, the test above): left in, the fitted limits are that far inside the
+    # car's, less what the noise lifts the 99 % quantile (0.8 % here: at least a quarter of
+    # the shrink stays). Taken out, the friction coefficients must be within 0.3 % of the
+    # car's (the fit's scatter here is about 0.1 %), and the boundary points' mean shrink R
+    # (H - H^2) for radii R between the braking and the lateral limit.
+    car = friction_car(1.3, mu_brk=1.3, mu_trac=1.3, exponent=2.0)
+    car = replace(car, mu_lat=1.45)
+    rev_s = 1.5
+    _, v, ax, ay = _sweep(100.0, 60.0, rev_s, car, noise_m_s2=0.02 * G)
+    fits = {
+        remove: envelope.fit_envelope(
+            v, ax, ay, friction_base(), sample_rate_hz=100.0, remove_noise=remove
+        )
+        for remove in (True, False)
+    }
+    sigma_t = samples.gaussian_sigma_samples(3.0, 1.0)  # the kernel's width in seconds
+    h = math.exp(-2.0 * math.pi**2 * sigma_t**2 / rev_s**2)
+    for k in ("mu_lat", "mu_brk", "mu_trac"):
+        assert getattr(fits[True].vehicle, k) == pytest.approx(getattr(car, k), rel=0.003), k
+        assert getattr(fits[False].vehicle, k) < getattr(car, k) * (1.0 - 0.25 * (1.0 - h)), k
+    # The boundary points are samples high by their noise, and one pass minus two
+    # carries 1 - sqrt(2/3) = 18 % of a sample's noise (the integral of the product of
+    # Gaussians of variance s^2 and 2 s^2 over that of the first squared): up to 0.18 x
+    # 2.33 sigma more.
+    shrink = fits[True].quality["filter_shrink_m_s2"]
+    lift = 0.18 * 2.33 * fits[True].quality["noise_m_s2"]
+    assert 1.3 * G * (h - h * h) <= shrink <= 1.45 * G * (h - h * h) + lift
+    assert fits[False].quality["filter_shrink_m_s2"] == 0.0
+
+
+def test_bins_never_driven_to_the_limit_do_not_pull_the_envelope_in():
+    # docs/checks.md, C2.7. Sweeps round the limit at 20-40 m/s of a car with downforce (its
+    # limits grow with speed, and the fit finds the downforce area from that growth), and a
+    # flat-out bend at 45-50 m/s held at 70 % of the lateral limit: those bins' boundary
+    # points lie 30 % inside. They say where the driver was, not where the limit is: the fit
+    # with them must equal the one without them (within 0.2 %), and the car's downforce area
+    # within 3 %. Negative control: with every point kept, each far point still pulls under
+    # the soft-L1 loss and the downforce area comes out lower (measured when written: 2 %).
+    car = replace(friction_car(1.3, exponent=2.0), mu_lat=1.45, downforce_area_m2=1.0)
+    base = Vehicle("no power, drag or rolling", 1000.0, math.inf, 0.0, None, 0.0)
+    parts = []
+    for speed in (22.0, 27.0, 32.0, 37.0, 42.0):
+        _, v, ax, ay = _sweep(100.0, 20.0, 1.5, car, 0.02 * G, seed=int(speed), speed=speed)
+        parts.append((v, ax, ay))
+    v = np.linspace(45.0, 50.0, 3000)  # 30 s of a flat-out bend, left and right
+    side = np.sign(np.sin(np.arange(v.size) / 400.0))
+    bend = 0.7 * side * car.mu_lat * normal_load_n(v, car) / car.mass_kg
+    noise = np.random.default_rng(1).normal(0.0, 0.02 * G, (2, v.size))
+    parts.append((v, noise[0], bend + noise[1]))
+    v, ax, ay = (np.concatenate([p[i] for p in parts]) for i in range(3))
+    on_limit = v < 44.0
+
+    def fit(keep):
+        return envelope.fit_envelope(v[keep], ax[keep], ay[keep], base, sample_rate_hz=100.0)
+
+    both, limit_only = fit(np.ones(v.size, bool)), fit(on_limit)
+    for k in ("mu_lat", "mu_brk", "mu_trac", "downforce_area_m2"):
+        assert getattr(both.vehicle, k) == pytest.approx(
+            getattr(limit_only.vehicle, k), rel=2e-3
+        ), k
+    assert both.vehicle.downforce_area_m2 == pytest.approx(1.0, rel=0.03)
+    with pytest.MonkeyPatch.context() as mp:
+        mp.setattr(envelope, "FAR_INSIDE_M_S2", math.inf)
+        kept = fit(np.ones(v.size, bool))
+    assert kept.vehicle.downforce_area_m2 < 0.99 * limit_only.vehicle.downforce_area_m2
+
+
 # --- warnings and errors -------------------------------------------------------------
 
 
