@@ -404,6 +404,7 @@ def laps(
         channels=channels,
         track=track,
         intervals=False,
+        better_line=False,  # the lap table does not show it
     )
     _layout(analysis.layout_note)
     _warn(analysis.warnings)

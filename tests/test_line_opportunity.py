@@ -73,7 +73,7 @@ def test_planted_line_mistakes_are_the_two_largest_line_times(truth, mistakes):
     # because the rebuilt line rounds the tight corners' curvature (docs/methods.md,
     # Driven line: the ideal on it is 0.1 s faster than the true line's) and the corridor
     # stops short of the good laps' line by the noise's reach. Measured (seed 1):
-    # early apex 0.28 s of 0.41 s, hairpin 0.19 s of 0.23 s.
+    # early apex 0.28 s of 0.41 s, hairpin 0.18 s of 0.23 s.
     track, _, _ = truth
     analysis, losses = mistakes
     line = analysis.line
