@@ -247,10 +247,10 @@ def _text_table(heads, rows, left=1) -> list[str]:
 
 
 def _points(points, units=None) -> str:
-    """Brake points to the metre (or foot), joined by "+"; the one blank without one."""
-    from limitlap.formatting import NOT_AVAILABLE, distance
+    """Brake points as every output writes them (:func:`limitlap.formatting.brake_points`)."""
+    from limitlap.formatting import brake_points
 
-    return " + ".join(distance(x, units) for x in points) if points else NOT_AVAILABLE
+    return brake_points(points, units)
 
 
 def _corner_table(analysis, u=None) -> str:

@@ -121,6 +121,16 @@ def distance(distance_m, units=None) -> str:
     return number(distance_m, ".0f")
 
 
+def brake_points(points, units=None, blank: str = NOT_AVAILABLE) -> str:
+    """Brake points for people: each as :func:`distance`, joined by "+"; ``blank`` without one.
+
+    >>> brake_points([2785.6, 2920.9]), brake_points([])
+    ('2786 + 2921', '—')
+    """
+    pts = [distance(x, units) for x in (points or [])]
+    return " + ".join(pts) if pts else blank
+
+
 def seconds(time_s) -> str:
     """A segment time for people: 0.01 s, no unit. "—" if unknown.
 

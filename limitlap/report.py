@@ -28,6 +28,7 @@ from limitlap.formatting import (
     METRIC,
     NOT_AVAILABLE,
     Units,
+    brake_points,
     distance,
     grip,
     grip_used,
@@ -117,7 +118,7 @@ def _pedal_traces(v: ReportView):
     )
 
 
-def _fit_points(fit):
+def _fitbrake_points(fit):
     """Boundary points of an envelope fit per speed band, for the g-g figure."""
     import numpy as np
 
@@ -173,7 +174,7 @@ def page_figures(v: ReportView, units: Units = METRIC):
         specs.append(fg.map_figure(cols, v, units))
     specs.append(fg.time_left_figure(v.corners))
     if v.gg_bands:
-        specs.append(fg.gg_figure(v.gg_bands, units, fit_points=_fit_points(v.fit)))
+        specs.append(fg.gg_figure(v.gg_bands, units, fit_points=_fitbrake_points(v.fit)))
     if math.isfinite(v.best_time_s) and v.corners:
         specs.append(
             fg.best_figure(
@@ -408,12 +409,6 @@ _HEADS = (
 )
 
 
-def _points(points, units: Units) -> str:
-    """Brake points for people: each to the metre (or foot), joined by "+"; "—" without one."""
-    pts = [distance(x, units) for x in (points or [])]
-    return " + ".join(pts) if pts else NOT_AVAILABLE
-
-
 def _corner_cells(rank: int, c: dict, units: Units) -> list[str]:
     """One row of the corner table (text), in the one rounding of every output (formatting)."""
     s = c.get("_summary") or {}
@@ -429,8 +424,8 @@ def _corner_cells(rank: int, c: dict, units: Units) -> list[str]:
         number(c["ideal_s"], ".2f"),
         f"{speed_kmh(c.get('min_speed_actual_m_s'), units)} / "
         f"{speed_kmh(c.get('min_speed_ideal_m_s'), units)}",
-        f"{_points(s.get('brake_points_actual_m'), units)} / "
-        f"{_points(s.get('brake_points_ideal_m'), units)}",
+        f"{brake_points(s.get('brake_points_actual_m'), units)} / "
+        f"{brake_points(s.get('brake_points_ideal_m'), units)}",
         grip_used(c["grip_used"], c.get("grip_used_raw")),
         grip(c.get("grip_estimate")),
         c["plain"],
@@ -643,8 +638,8 @@ def _detail_rows(c: dict, units: Units) -> list[tuple[str, str]]:
         ),
         (
             "brake points yours / ideal",
-            f"{_points(s.get('brake_points_actual_m'), units)} / "
-            f"{_points(s.get('brake_points_ideal_m'), units)} {units.distance} from the gate",
+            f"{brake_points(s.get('brake_points_actual_m'), units)} / "
+            f"{brake_points(s.get('brake_points_ideal_m'), units)} {units.distance} from the gate",
         ),
         (
             "full drive yours / ideal",
