@@ -132,6 +132,9 @@ GNSS_ONLY_CUTOFF_RANGE_S = (0.8, 3.0)
 HEIGHT_CUTOFF_M = 150.0
 #: Padding either side of the lap given to the smoothers (edge effects). [s]
 PAD_S = 5.0
+#: Rows a second a lap's path alone is rebuilt from (:func:`rebuild_path`): a faster log
+#: keeps every k-th row; 50 Hz rows give the 100 Hz line (docs/methods.md, Rates). [Hz]
+PATH_RATE_HZ = 50.0
 #: Agreement below which the result carries a warning: correlation of the line's
 #: curvature with a channel's, and the relative RMS difference. Common practice, no
 #: published source.
@@ -586,6 +589,32 @@ def reconstruct_lap(log, lap, spacing_m: float = 1.0) -> DrivenLap:
     )
 
 
+def rebuild_path(log, lap, fusion, spacing_m: float = 1.0, max_rate_hz=PATH_RATE_HZ):
+    """The path alone of one lap, rebuilt as :func:`reconstruct_lap` does: (time from the gate [s], east [m], north [m]) at its stations.
+
+    For laps whose path is all that is wanted (the corridor of the flying laps): the
+    heading is made from ``fusion``, the channels the analysed lap's rebuild kept
+    (``DrivenLap.agreement["fusion"]``), without checking each channel against the GNSS
+    course again, no channel is put on the stations, and a log faster than
+    ``max_rate_hz`` is rebuilt from about that many rows a second (every fix kept; None:
+    every row). With every row, the same stations, heading and positions as
+    :func:`reconstruct_lap` gives when it keeps the same channels.
+    """
+    rows = _lap_rows(log, lap, max_rate_hz)
+    sources = [src for src in _inertial_sources(log, rows) if src.name in fusion]
+    if sources:
+        rate, rate_var = _weighted_rate(sources)
+        used = [src.name for src in sources]
+    else:
+        _, rate, _, rate_var = _gnss_only_rate(rows)
+        used = ["gnss"]
+    psi, bias, _ = _heading(rows, rate, rate_var, used)
+    px, py, s_row = _positions(rows, psi)
+    line, st = _closed_line(log, lap, rows, (psi, rate - bias), px, py, s_row, spacing_m, used)
+    t_st = np.interp(st.s_st[:-1], st.s_k, rows.t[st.keep]) - lap.start_time_s
+    return t_st, line.x_m, line.y_m
+
+
 @dataclass(frozen=True, eq=False)
 class _LapRows:
     """The log's rows of one lap (with ``PAD_S`` either side), as the rebuild uses them."""
@@ -597,10 +626,25 @@ class _LapRows:
     fix: np.ndarray  # rows with a position fix [-]
     v: np.ndarray  # speed, gaps filled, >= 0 [m/s]
     dt: np.ndarray  # time steps [s]
+    pick: np.ndarray | None = None  # the rows of ``rows`` kept (None: every one) [-]
+
+    def raw(self, column):
+        """A log column on the kept rows, blanks left blank."""
+        values = column[self.rows]
+        return values if self.pick is None else values[self.pick]
+
+    def filled(self, t_all, column):
+        """A log column on the kept rows, blanks filled first on every row (:func:`_fill`)."""
+        values = _fill(t_all[self.rows], column[self.rows])
+        return values if self.pick is None else values[self.pick]
 
 
-def _lap_rows(log, lap) -> _LapRows:
-    """Step 1: the lap's rows, its positions and filled speed; too few rows or fixes raise."""
+def _lap_rows(log, lap, max_rate_hz: float | None = None) -> _LapRows:
+    """Step 1: the lap's rows, its positions and filled speed; too few rows or fixes raise.
+
+    With ``max_rate_hz`` a faster log keeps every k-th row (and every row with a fix),
+    so the rows come at about that rate; channels are filled on every row first.
+    """
     t_all = log.time_s
     ch = log.channels
     if "x" not in ch or "y" not in ch or "speed" not in ch:
@@ -609,15 +653,31 @@ def _lap_rows(log, lap) -> _LapRows:
     hi = int(np.searchsorted(t_all, lap.end_time_s + PAD_S, side="right"))
     lo, hi = max(0, min(lo, lap.start_index)), min(t_all.shape[0], max(hi, lap.end_index))
     sl = slice(lo, hi)
-    t = t_all[sl]
-    if t.shape[0] < 10:
+    if hi - lo < 10:
         raise LimitlapError(f"{log.path}: lap {lap.number} has too few rows for a line")
-    x_raw, y_raw = ch["x"][sl], ch["y"][sl]
-    fix = np.isfinite(x_raw) & np.isfinite(y_raw)
+    fix = np.isfinite(ch["x"][sl]) & np.isfinite(ch["y"][sl])
     if fix.sum() < 10:
         raise LimitlapError(f"{log.path}: lap {lap.number} has too few position fixes")
-    v = np.maximum(_fill(t, ch["speed"][sl]), 0.0)
-    return _LapRows(sl, t, x_raw, y_raw, fix, v, np.diff(t))
+    pick = _thinned(t_all[sl], fix, max_rate_hz)
+    rows = _LapRows(sl, t_all[sl], None, None, fix, None, None, pick)
+    t = rows.raw(t_all)
+    v = np.maximum(rows.filled(t_all, ch["speed"]), 0.0)
+    x_raw, y_raw = rows.raw(ch["x"]), rows.raw(ch["y"])
+    fix = fix if pick is None else fix[pick]
+    return _LapRows(sl, t, x_raw, y_raw, fix, v, np.diff(t), pick)
+
+
+def _thinned(t, fix, max_rate_hz):
+    """Rows kept for about ``max_rate_hz`` (every k-th, every fix, the last); None: all."""
+    if max_rate_hz is None:
+        return None
+    step = int(1.0 / (float(np.median(np.diff(t))) * max_rate_hz))
+    if step < 2:
+        return None
+    every = np.zeros(t.shape, bool)
+    every[::step] = True
+    every[-1] = True
+    return np.flatnonzero(every | fix)
 
 
 @dataclass(frozen=True, eq=False)
@@ -648,19 +708,19 @@ def _inertial_sources(log, rows: _LapRows) -> list[_Source]:
     ``var * dt**2``, so ``var`` is :math:`\sigma^2 \Delta t_c / \Delta t`: a channel at a
     lower rate than the rows (blank cells, interpolated) counts for what it measured.
     """
-    t, sl, v, ch = rows.t, rows.rows, rows.v, log.channels
+    t, v, ch, t_all = rows.t, rows.v, log.channels, log.time_s
     dt_row = float(np.median(rows.dt))
     out = []
     if log.measured("yaw_rate"):
-        raw = ch["yaw_rate"][sl]
-        sigma, own = _measured_noise(t, raw, SIGMA_YAW_RAD_S, dt_row)
+        raw = ch["yaw_rate"][rows.rows]  # the noise measured on every row
+        sigma, own = _measured_noise(t_all[rows.rows], raw, SIGMA_YAW_RAD_S, dt_row)
         var = np.full(t.shape, sigma**2 * own / dt_row)
-        out.append(_Source("yaw_rate", _fill(t, raw), var, sigma, own))
+        out.append(_Source("yaw_rate", rows.filled(t_all, ch["yaw_rate"]), var, sigma, own))
     if log.measured("accel_lat"):
-        raw = ch["accel_lat"][sl]
-        sigma, own = _measured_noise(t, raw, SIGMA_ACCEL_M_S2, dt_row)
+        raw = ch["accel_lat"][rows.rows]
+        sigma, own = _measured_noise(t_all[rows.rows], raw, SIGMA_ACCEL_M_S2, dt_row)
         vv = np.maximum(v, MIN_SPEED_M_S)
-        rate = np.where(v > MIN_SPEED_M_S, _fill(t, raw) / vv, 0.0)
+        rate = np.where(v > MIN_SPEED_M_S, rows.filled(t_all, ch["accel_lat"]) / vv, 0.0)
         out.append(_Source("accel_lat", rate, (sigma / vv) ** 2 * own / dt_row, sigma, own))
     return out
 
@@ -690,9 +750,7 @@ def _heading_rate(log, lap, rows: _LapRows, warnings: list[str]):
     t, v = rows.t, rows.v
     gnss_rate, gnss_kappa = _spline_path(t, rows.x_raw, rows.y_raw, rows.fix)
     moving = v > MIN_SPEED_M_S
-    used, like, measured = [], {}, {}
-    num = np.zeros(t.shape)
-    den = np.zeros(t.shape)
+    like, measured, kept = {}, {}, []
     g_ref = gnss_rate[moving]
     for src in _inertial_sources(log, rows):
         measured[src.name] = {"sigma": src.sigma, "interval_s": src.interval_s}
@@ -707,19 +765,32 @@ def _heading_rate(log, lap, rows: _LapRows, warnings: list[str]):
                 f"(gain {gain:.2f}); left out of the line (sign convention? ISO 8855: + left)"
             )
             continue
-        used.append(src.name)
-        num += src.rate / src.var
-        den += 1.0 / src.var
-    if used:
-        return num / den, 1.0 / den, used, gnss_kappa, like, measured
-    # GNSS alone: the fixes' measured noise sets the smoothing. The spline's course rate
-    # is smooth and already holds all the GNSS information: trust it like a gyro, and let
-    # the course measurements only stop the drift.
-    cutoff = gnss_only_cutoff_s(rows.x_raw[rows.fix], rows.y_raw[rows.fix])
+        kept.append(src)
+    if kept:
+        rate, var = _weighted_rate(kept)
+        return rate, var, [src.name for src in kept], gnss_kappa, like, measured
+    cutoff, gnss_rate, gnss_kappa, var = _gnss_only_rate(rows)
     measured["gnss_cutoff_s"] = cutoff
-    gnss_rate, gnss_kappa = _spline_path(t, rows.x_raw, rows.y_raw, rows.fix, cutoff)
-    var = np.full(t.shape, SIGMA_YAW_RAD_S**2)
     return gnss_rate, var, ["gnss"], gnss_kappa, like, measured
+
+
+def _weighted_rate(sources: list[_Source]):
+    """Heading rate [rad/s] and its variance [rad²/s²]: the sources weighted by their noise."""
+    num = sum(src.rate / src.var for src in sources)
+    den = sum(1.0 / src.var for src in sources)
+    return num / den, 1.0 / den
+
+
+def _gnss_only_rate(rows: _LapRows):
+    """(cutoff [s], course rate [rad/s], curvature [1/m], the rate's variance [rad²/s²]) from GNSS alone.
+
+    The fixes' measured noise sets the smoothing. The spline's course rate is smooth and
+    already holds all the GNSS information: it is trusted like a gyro, and the course
+    measurements only stop the drift.
+    """
+    cutoff = gnss_only_cutoff_s(rows.x_raw[rows.fix], rows.y_raw[rows.fix])
+    gnss_rate, gnss_kappa = _spline_path(rows.t, rows.x_raw, rows.y_raw, rows.fix, cutoff)
+    return cutoff, gnss_rate, gnss_kappa, np.full(rows.t.shape, SIGMA_YAW_RAD_S**2)
 
 
 def _heading(rows: _LapRows, rate, rate_var, used):
@@ -864,7 +935,7 @@ def _heights(log, rows, s_row, s_st, frac, ds, n_st):
     """Heights [m] and gradient [-] at the stations, low-passed and closed; zero without."""
     if not log.has("altitude"):
         return np.zeros(n_st), np.zeros(n_st)
-    alt = log.channels["altitude"][rows.rows]
+    alt = rows.raw(log.channels["altitude"])
     zf = np.isfinite(alt)
     z_st = np.interp(s_st, s_row[zf], alt[zf])
     z_st = z_st - frac * (z_st[-1] - z_st[0])

@@ -427,6 +427,8 @@ def analyse(
         the_lap = _rebuild_line(log, chosen, warnings, rebuilt)
         corners = _find_corners(the_lap, trk)
         timelines = lap_timelines(log, [lp for lp in laps if lp.complete and lp is not chosen])
+        # the corridor needs no envelope: built while the fit finishes in its thread
+        kept_to = _lap_corridor(log, laps, chosen, the_lap, trk, rebuilt) if better_line else None
         _step(progress, 2, _STEPS, "fitting the grip envelope")
         car, fit = _grip_envelope(log_path, log, laps, flying, beside, vehicle, warnings)
     _step(progress, 3, _STEPS, "solving the ideal lap")
@@ -446,8 +448,8 @@ def analyse(
         complete_laps, best = _best_of_laps(laps, chosen, the_lap, timelines, corners, ideal)
         table, band = more.finish(the_lap, ideal, k, corners, comparison, grip_est)
         line = (
-            _line_opportunity(log, laps, chosen, the_lap, corners, (car, k), trk, rebuilt)
-            if better_line
+            better_line_mod.line_opportunity(*kept_to, corners, car, k)
+            if kept_to is not None
             else None
         )
     _step(progress, 6, _STEPS, "done")
@@ -884,7 +886,8 @@ def _best_of_laps(laps, chosen, the_lap, timelines, corners, ideal):
 
 
 #: Laps whose rebuilt paths make the corridor: the fastest flying laps, at most this many
-#: (each rebuild costs about 20 ms; more laps widen the band little). [-]
+#: (each path rebuilt alone, :func:`limitlap.driven.rebuild_path`, costs about 10 ms on a
+#: 200 Hz lap; more laps widen the band little). [-]
 CORRIDOR_LAPS = 12
 
 
@@ -894,19 +897,23 @@ def _lap_paths(log, laps, chosen, the_lap, rebuilt) -> list:
     if chosen not in flying:
         flying.append(chosen)
     drops = [(d.start_time_s, d.end_time_s) for d in gnss.gps_dropouts(log)]
+    fusion = the_lap.agreement["fusion"]
     paths = []
     for lp in flying:
+        drv = the_lap if lp is chosen else rebuilt.get(lp.number)
         try:
-            drv = the_lap if lp is chosen else rebuilt.get(lp.number)
-            drv = drv or driven_mod.reconstruct_lap(log, lp)
+            t, x, y = (
+                (drv.time_s, drv.line.x_m, drv.line.y_m)
+                if drv is not None
+                else driven_mod.rebuild_path(log, lp, fusion)
+            )
         except LimitlapError:
             continue
-        t = np.asarray(drv.time_s, float) + lp.start_time_s
+        t = np.asarray(t, float) + lp.start_time_s
         unsound = np.zeros(t.shape, bool)
         for t0, t1 in drops:
             unsound |= (t >= t0) & (t <= t1)
-        line = drv.line
-        paths.append(corridor_mod.LapPath(lp.number, line.x_m, line.y_m, unsound))
+        paths.append(corridor_mod.LapPath(lp.number, x, y, unsound))
     return paths
 
 
@@ -928,12 +935,11 @@ def _edge_lines(trk, log):
     return corridor_mod.EdgeLines(*plane(a, b), *plane(c, d), edges.margin_m)
 
 
-def _line_opportunity(log, laps, chosen, the_lap, corners, car_k, trk, rebuilt):
-    """The better line inside the corridor of the flying laps (or the track's edges) and the time it brings (:mod:`limitlap.better_line`)."""
+def _lap_corridor(log, laps, chosen, the_lap, trk, rebuilt):
+    """(frame, corridor) the better line keeps to (:func:`limitlap.better_line.line_opportunity`): the flying laps' paths about the analysed lap's line, or the track's edges."""
     frame = corridor_mod.reference_frame(the_lap.line)
     paths = _lap_paths(log, laps, chosen, the_lap, rebuilt)
-    band = corridor_mod.corridor(frame, paths, _edge_lines(trk, log))
-    return better_line_mod.line_opportunity(frame, band, corners, *car_k)
+    return frame, corridor_mod.corridor(frame, paths, _edge_lines(trk, log))
 
 
 def _corner_labels(trk) -> dict[str, str]:
