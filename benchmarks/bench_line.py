@@ -62,8 +62,8 @@ def main() -> None:
     f = 4000.0 / a.driven.line.length_m
     line = scaled(a.driven.line, f)
     paths = [
-        corridor.LapPath(lp.number, x * f, y * f)
-        for lp, (_, x, y) in zip(flying, rebuilt, strict=True)
+        corridor.LapPath(lp.number, d.line.x_m * f, d.line.y_m * f)
+        for lp, d in zip(flying, rebuilt, strict=True)
     ]
     lat, lon, left, right = trk.edges.columns
     x, y = gnss.enu_of(lat, lon, log.origin)

@@ -589,10 +589,18 @@ def reconstruct_lap(log, lap, spacing_m: float = 1.0) -> DrivenLap:
     )
 
 
-def rebuild_path(log, lap, fusion, spacing_m: float = 1.0, max_rate_hz=PATH_RATE_HZ):
-    """The path alone of one lap, rebuilt as :func:`reconstruct_lap` does: (time from the gate [s], east [m], north [m]) at its stations.
+@dataclass(frozen=True, eq=False)
+class RebuiltPath:
+    """A lap's line rebuilt alone (:func:`rebuild_path`): ``line`` and ``time_s`` as in :class:`DrivenLap`."""
 
-    For laps whose path is all that is wanted (the corridor of the flying laps): the
+    line: Line
+    time_s: np.ndarray  # at each station, from the gate [s]
+
+
+def rebuild_path(log, lap, fusion, spacing_m: float = 1.0, max_rate_hz=PATH_RATE_HZ) -> RebuiltPath:
+    """The line alone of one lap, rebuilt as :func:`reconstruct_lap` does, with the time at its stations.
+
+    For laps whose line is all that is wanted (the corridor, the bands' neighbours): the
     heading is made from ``fusion``, the channels the analysed lap's rebuild kept
     (``DrivenLap.agreement["fusion"]``), without checking each channel against the GNSS
     course again, no channel is put on the stations, and a log faster than
@@ -612,7 +620,7 @@ def rebuild_path(log, lap, fusion, spacing_m: float = 1.0, max_rate_hz=PATH_RATE
     px, py, s_row = _positions(rows, psi)
     line, st = _closed_line(log, lap, rows, (psi, rate - bias), px, py, s_row, spacing_m, used)
     t_st = np.interp(st.s_st[:-1], st.s_k, rows.t[st.keep]) - lap.start_time_s
-    return t_st, line.x_m, line.y_m
+    return RebuiltPath(line, t_st)
 
 
 @dataclass(frozen=True, eq=False)

@@ -427,7 +427,9 @@ def analyse(
         the_lap = _rebuild_line(log, chosen, warnings, rebuilt)
         corners = _find_corners(the_lap, trk)
         timelines = lap_timelines(log, [lp for lp in laps if lp.complete and lp is not chosen])
-        # the corridor needs no envelope: built while the fit finishes in its thread
+        # the bands' lines and the corridor need no envelope: built while the fit finishes
+        if every_lap and intervals:
+            _lines_before_the_fit(log, laps, chosen, the_lap, not base.is_complete, rebuilt)
         kept_to = _lap_corridor(log, laps, chosen, the_lap, trk, rebuilt) if better_line else None
         _step(progress, 2, _STEPS, "fitting the grip envelope")
         car, fit = _grip_envelope(log_path, log, laps, flying, beside, vehicle, warnings)
@@ -519,7 +521,7 @@ class _LapsBeside:
         every_lap, intervals = what
         self.every_lap, self.intervals = every_lap, intervals and every_lap
         self._pool = ThreadPoolExecutor(max_workers=1)
-        self.band_laps = self._band_laps()
+        self.band_laps = _band_laps(laps, fit is not None)
         timed = [lp for lp in laps if lp.complete and lp is not chosen]
         self._grips = (
             self._pool.submit(
@@ -533,30 +535,13 @@ class _LapsBeside:
             if self.every_lap
             else None
         )
-        by_number = {lp.number: lp for lp in laps}
-        self._near = [
-            by_number[n]
-            for n in sorted(
-                (n for n in self.band_laps if n != chosen.number),
-                key=lambda n: (abs(n - chosen.number), n),
-            )[: bands.LINE_LAPS]
-        ]
+        self._near = _band_neighbours(laps, chosen, self.band_laps)
 
     def __enter__(self) -> _LapsBeside:
         return self
 
     def __exit__(self, *exc) -> None:
         self._pool.shutdown(wait=True)
-
-    def _band_laps(self) -> list[int]:
-        """The laps the bands resample: the envelope's (flying within 107 %) when it was fitted, else every flying lap timed gate to gate."""
-        if self.fit is not None:
-            return [lp.number for lp in laps_mod.flying_laps(self.laps)]
-        return [
-            lp.number
-            for lp in self.laps
-            if lp.complete and session_mod.lap_kind(lp, self.laps) == "flying"
-        ]
 
     def finish(self, the_lap, ideal, k, corners, comparison, grip_est):
         """(session.SessionTable or None, bands.Bands or None)."""
@@ -584,9 +569,11 @@ class _LapsBeside:
         lap_times = [ideal.lap_time_s]
         corner_times = [bands.corner_ideal(the_lap.line, ideal, corners)]
         shares = session_mod.corner_shares(self.log, self.chosen, the_lap, corners)
+        fusion = the_lap.agreement["fusion"]
         for lp in self._near:
-            drv = self.rebuilt.get(lp.number) or driven_mod.reconstruct_lap(self.log, lp)
-            self.rebuilt.setdefault(lp.number, drv)  # the line opportunity's corridor reuses it
+            drv = self.rebuilt.get(lp.number) or driven_mod.rebuild_path(
+                self.log, lp, fusion, max_rate_hz=None
+            )
             prof = solve.solve_profile(drv.line, self.car, k)
             lap_times.append(prof.lap_time_s)
             placed = session_mod.corners_on(self.log, lp, drv, corners, shares)
@@ -632,6 +619,35 @@ class _LapsBeside:
             quantile=self.fit.quality["quantile"] if self.fit is not None else 0.99,
             ranks=[c.rank for c in comparison.corners],
         )
+
+
+def _band_laps(laps, fitted: bool) -> list[int]:
+    """The laps the bands resample: the envelope's (flying within 107 %) when it was fitted, else every flying lap timed gate to gate."""
+    if fitted:
+        return [lp.number for lp in laps_mod.flying_laps(laps)]
+    return [lp.number for lp in laps if lp.complete and session_mod.lap_kind(lp, laps) == "flying"]
+
+
+def _band_neighbours(laps, chosen, band_laps) -> list[laps_mod.Lap]:
+    """The laps nearest the analysed one in number among ``band_laps`` whose lines the bands solve (:data:`limitlap.bands.LINE_LAPS` of them)."""
+    by_number = {lp.number: lp for lp in laps}
+    nearest = sorted(
+        (n for n in band_laps if n != chosen.number),
+        key=lambda n: (abs(n - chosen.number), n),
+    )
+    return [by_number[n] for n in nearest[: bands.LINE_LAPS]]
+
+
+def _lines_before_the_fit(log, laps, chosen, the_lap, fitted, rebuilt) -> None:
+    """Rebuild the bands' neighbours' lines into ``rebuilt`` (every row, path alone: :func:`limitlap.driven.rebuild_path`) while the envelope's fit finishes in its thread; one that cannot be rebuilt is left for :meth:`_LapsBeside._line_draws` to report."""
+    fusion = the_lap.agreement["fusion"]
+    for lp in _band_neighbours(laps, chosen, _band_laps(laps, fitted)):
+        if lp.number in rebuilt:
+            continue
+        try:
+            rebuilt[lp.number] = driven_mod.rebuild_path(log, lp, fusion, max_rate_hz=None)
+        except LimitlapError:
+            continue
 
 
 def _derived_accelerations(log_path, log, laps, chosen, warnings) -> dict:
@@ -902,18 +918,14 @@ def _lap_paths(log, laps, chosen, the_lap, rebuilt) -> list:
     for lp in flying:
         drv = the_lap if lp is chosen else rebuilt.get(lp.number)
         try:
-            t, x, y = (
-                (drv.time_s, drv.line.x_m, drv.line.y_m)
-                if drv is not None
-                else driven_mod.rebuild_path(log, lp, fusion)
-            )
+            drv = drv or driven_mod.rebuild_path(log, lp, fusion)
         except LimitlapError:
             continue
-        t = np.asarray(t, float) + lp.start_time_s
+        t = np.asarray(drv.time_s, float) + lp.start_time_s
         unsound = np.zeros(t.shape, bool)
         for t0, t1 in drops:
             unsound |= (t >= t0) & (t <= t1)
-        paths.append(corridor_mod.LapPath(lp.number, x, y, unsound))
+        paths.append(corridor_mod.LapPath(lp.number, drv.line.x_m, drv.line.y_m, unsound))
     return paths
 
 

@@ -201,10 +201,13 @@ def test_path_alone_is_the_full_rebuilds_path_and_thinning_keeps_it():
     lap = truth_lap(s, 2)
     dl = driven.reconstruct_lap(log, lap)
     fusion = dl.agreement["fusion"]
-    t, x, y = driven.rebuild_path(log, lap, fusion, max_rate_hz=None)
+    alone = driven.rebuild_path(log, lap, fusion, max_rate_hz=None)
+    t, x, y = alone.time_s, alone.line.x_m, alone.line.y_m
     assert np.array_equal(x, dl.line.x_m) and np.array_equal(y, dl.line.y_m)
     assert np.array_equal(t, dl.time_s)
-    t50, x50, y50 = driven.rebuild_path(log, lap, fusion)
+    assert np.array_equal(alone.line.curvature_1_m, dl.line.curvature_1_m)
+    thinned = driven.rebuild_path(log, lap, fusion)
+    t50, x50, y50 = thinned.time_s, thinned.line.x_m, thinned.line.y_m
     assert x50.shape == x.shape
     assert np.max(np.hypot(x50 - x, y50 - y)) < 0.05
     assert np.max(np.abs(t50 - t)) < 0.005
