@@ -40,6 +40,7 @@ References
 
 from __future__ import annotations
 
+import itertools
 import math
 from dataclasses import dataclass, replace
 
@@ -64,14 +65,15 @@ ACCEL_NOISE_TARGET_M_S2 = 0.1
 #: over the window, so the peak deceleration of a short braking zone is shaved; 1.5 s is
 #: under half of a typical 3-5 s braking zone (common practice, no published source). [s]
 MAX_WINDOW_S = 1.5
-#: How much faster than the truth the ideal lap may come out with a_y derived from the
-#: GPS line: on generated sessions at 10 and 25 Hz (seeds 1-6, benchmarks/gps_only.py)
-#: 0.6-1.0 % with speed logged, up to 1.3 % without (with a_y logged and a_x derived,
-#: 0.1 %). The a_y of a GPS-only line carries the fixes' noise through the line's
-#: smoothing (6 % of a_y on a circle at 10 Hz, 0.1 m noise): a high quantile of it
-#: widens the lateral limit. Said in the warning (docs/methods.md, Derived
-#: accelerations). [%]
-IDEAL_FAST_PERCENT = 1.5
+#: How far from the truth the ideal lap may come out with a_y derived from the GPS line,
+#: as the warning says it. The a_y of a GPS-only line carries the fixes' error through the
+#: line's smoothing (6 % of a_y on a circle at 10 Hz, 0.1 m noise); its noise, read from
+#: the laps (:func:`lateral_noise`), is taken out of the envelope as a sensor's is.
+#: Measured on generated sessions (seeds 1-6, 10 and 25 Hz, benchmarks/gps_only.py and
+#: tests/test_gps_only.py): speed logged -0.16 to -0.90 %; speed from the fixes -0.6 to
+#: +1.4 % (its a_x smoothed over 1.5 s shaves the braking limit); with the noise not read
+#: (a single lap, or laps not alike) up to 1.3 % fast, as before it was read. [%]
+IDEAL_OFF_PERCENT = {"speed logged": 1.0, "speed from fixes": 1.5, "unread": 1.5}
 #: Samples further apart than this many of their own intervals break a stretch (the
 #: filter never reaches across a dropout). [-]
 GAP_INTERVALS = 2.5
@@ -324,6 +326,85 @@ def yaw_rate_from_curvature(speed_m_s, curvature_1_m):
     return np.asarray(speed_m_s, dtype=np.float64) * np.asarray(curvature_1_m, dtype=np.float64)
 
 
+#: Where two laps' a_y are compared (:func:`lateral_noise`): both faster than this, their
+#: speeds within SAME_SPEED of each other, the stations within SAME_PLACE_M of each other
+#: and within SAME_SHARE of the lap (a stretch of track that passes close by is not the
+#: same place). Common practice, no published source. [m/s], [-], [m], [-]
+NOISE_MIN_SPEED_M_S = 15.0
+SAME_SPEED = 0.05
+SAME_PLACE_M = 3.0
+SAME_SHARE = 0.05
+#: Fewest differences :func:`lateral_noise` gives a figure from. [-]
+MIN_NOISE_DIFFERENCES = 200
+
+
+@dataclass(frozen=True)
+class LateralFromLine:
+    """How a derived a_y was made (``log.derived["accel_lat"]``), and its noise.
+
+    Attributes
+    ----------
+    noise_m_s2 : float or None
+        :func:`lateral_noise` of the laps it was derived on; None when too few laps. [m/s²]
+    """
+
+    noise_m_s2: float | None
+
+    def __str__(self) -> str:
+        """How it was made, in words."""
+        return "speed squared times the rebuilt line's curvature"
+
+
+def lateral_noise(rebuilt) -> float | None:
+    r"""Noise of a derived :math:`a_y = v^2\kappa`, from laps driven alike at the same place. [m/s²].
+
+    The curvature of a GPS-only line carries the fixes' error through the line's
+    smoothing (their white noise and their slow drift alike), and :math:`v^2` turns it into
+    lateral acceleration: noise that does not show in the derived channel's own
+    differences (it is as smooth as the line), but widens a high quantile of it as a
+    sensor's noise would. Two laps driven alike through one place have nearly the same
+    :math:`a_y` there, so their difference is mostly the two errors: each station of a lap
+    is matched to the previous lap's nearest station (within :data:`SAME_PLACE_M`, and
+    :data:`SAME_SHARE` of the lap), where both laps are faster than
+    :data:`NOISE_MIN_SPEED_M_S` and within :data:`SAME_SPEED` of each other's speed; the
+    noise is the differences' robust spread over :math:`\sqrt 2` (1.4826 times the median
+    absolute deviation). A real difference between the laps (another line, another speed)
+    only adds to it: the estimate errs large, and the envelope's noise lift with it
+    (a narrower envelope, a slower ideal: the safe side).
+
+    ``rebuilt``: (laps.Lap, DrivenLap) pairs. None with fewer than
+    :data:`MIN_NOISE_DIFFERENCES` differences (fewer than two laps alike).
+    """
+    pairs = sorted(rebuilt, key=lambda pair: pair[0].number)
+    diffs = [_same_place_differences(a, b) for (_, a), (_, b) in itertools.pairwise(pairs)]
+    d = np.concatenate(diffs) if diffs else np.zeros(0)
+    if d.size < MIN_NOISE_DIFFERENCES:
+        return None
+    return noise.mad_scale(d) / math.sqrt(2.0)
+
+
+def _same_place_differences(a, b) -> np.ndarray:
+    """Lap b's a_y less lap a's at the same place, where both went alike (:func:`lateral_noise`). [m/s²]."""
+    from scipy.spatial import cKDTree
+
+    ay_a = lateral_from_curvature(a.speed_m_s, a.line.curvature_1_m)
+    ay_b = lateral_from_curvature(b.speed_m_s, b.line.curvature_1_m)
+    gap, j = cKDTree(np.column_stack([a.line.x_m, a.line.y_m])).query(
+        np.column_stack([b.line.x_m, b.line.y_m])
+    )
+    share_a = np.asarray(a.line.distance_m) / a.line.length_m
+    share_b = np.asarray(b.line.distance_m) / b.line.length_m
+    va, vb = np.asarray(a.speed_m_s)[j], np.asarray(b.speed_m_s)
+    same = (
+        (gap <= SAME_PLACE_M)
+        & (np.abs(share_a[j] - share_b) <= SAME_SHARE)
+        & (np.minimum(va, vb) > NOISE_MIN_SPEED_M_S)
+        & (np.abs(va - vb) <= SAME_SPEED * np.maximum(va, vb))
+    )
+    d = ay_b[same] - ay_a[j][same]
+    return d[np.isfinite(d)]
+
+
 def line_on_rows(time_s, lap, drv):
     """A rebuilt lap's curvature [1/m] and grade sine [-] at the log's rows inside the lap (NaN elsewhere).
 
@@ -360,11 +441,15 @@ class Accelerations:
         The longitudinal acceleration's derivative (None when logged).
     speed_from_fixes : bool
         The speed it came from was itself derived from the fixes.
+    lateral_noise_m_s2 : float or None
+        The derived a_y's noise read from the laps (:func:`lateral_noise`); None when a_y
+        was logged or too few laps were alike. [m/s²]
     """
 
     missing: tuple[str, ...]
     accel_lon: Derivative | None
     speed_from_fixes: bool
+    lateral_noise_m_s2: float | None = None
 
     @property
     def smoothing_s(self) -> float:
@@ -388,7 +473,7 @@ def add_accelerations(log, rebuilt) -> Accelerations:
 
     Notes
     -----
-    ``accel_lon`` is :math:`\dot v + g\sin	heta` (what an accelerometer measures: the
+    ``accel_lon`` is :math:`\dot v + g\sin\theta` (what an accelerometer measures: the
     specific force, as the envelope reads a logged channel), θ the rebuilt line's grade
     at the row (0 outside the rebuilt laps and on a line without heights); ``accel_lat``
     is :math:`v^2\kappa` inside the rebuilt laps, NaN elsewhere.
@@ -403,7 +488,7 @@ def add_accelerations(log, rebuilt) -> Accelerations:
         kappa[inside], sin_grade[inside] = k_lap[inside], s_lap[inside]
     fixes = log.derived.get("speed")
     fixes = fixes if isinstance(fixes, SpeedFromFixes) else None
-    dvdt = None
+    dvdt, lateral = None, None
     if "accel_lon" in missing:
         dvdt = accel_from_speed(t, v, fixes)
         log.channels["accel_lon"] = dvdt.values + G0_M_S2 * sin_grade
@@ -412,8 +497,18 @@ def add_accelerations(log, rebuilt) -> Accelerations:
         ok = np.isfinite(v)
         filled = v if ok.all() else np.interp(t, t[ok], v[ok])
         log.channels["accel_lat"] = lateral_from_curvature(filled, kappa)
-        log.derived["accel_lat"] = "speed squared times the rebuilt line's curvature"
-    return Accelerations(missing, dvdt, fixes is not None)
+        lateral = lateral_noise(rebuilt)
+        log.derived["accel_lat"] = LateralFromLine(lateral)
+    return Accelerations(missing, dvdt, fixes is not None, lateral)
+
+
+def ideal_doubt(acc: Accelerations) -> str:
+    """How far the ideal lap on a derived a_y may be off, as measured (:data:`IDEAL_OFF_PERCENT`): "up to about 1 % fast"."""
+    if acc.lateral_noise_m_s2 is None:
+        return f"up to about {IDEAL_OFF_PERCENT['unread']:g} % fast"
+    if acc.speed_from_fixes:
+        return f"up to about {IDEAL_OFF_PERCENT['speed from fixes']:g} % fast or slow"
+    return f"up to about {IDEAL_OFF_PERCENT['speed logged']:g} % fast"
 
 
 def note(acc: Accelerations) -> str:
@@ -431,7 +526,7 @@ def note(acc: Accelerations) -> str:
     if math.isfinite(acc.smoothing_s):
         said.append(f"grip limits from them are smoothed by about {acc.smoothing_s:.1f} s")
     if "accel_lat" in acc.missing:
-        said.append(f"the ideal lap may come out up to about {IDEAL_FAST_PERCENT:g} % fast")
+        said.append(f"the ideal lap may come out {ideal_doubt(acc)}")
     return (
         f"no {names} channel: {how}; {', and '.join(said) or 'as they are'} (the unit, sign "
         "and line checks skip a derived channel: it agrees with the GPS by construction)"

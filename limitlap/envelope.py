@@ -403,6 +403,7 @@ def fit_envelope(
     fit_rate_hz=FIT_RATE_HZ,
     selection: Selection | None = None,
     remove_noise: bool = True,
+    noise_m_s2: float | None = None,
 ) -> EnvelopeFit:
     r"""Fit the g-g-V envelope of docs/formats.md, Vehicle files to the samples a driver demonstrated.
 
@@ -463,6 +464,11 @@ def fit_envelope(
         them (:func:`_filter_shrink`) and leave out the points far inside (bins not driven
         to the limit, :data:`FAR_INSIDE_M_S2`); nothing without a sample rate, which leaves
         the samples unfiltered and their noise unknown: see Notes. [-]
+    noise_m_s2 : float, optional
+        The accelerations' noise when it is known otherwise than from their differences
+        (derived channels, whose noise is as smooth as they are:
+        :func:`limitlap.derived.lateral_noise`): the noise lift is taken from it, and
+        nothing is given back for the low-pass. [m/s²]
 
     Returns
     -------
@@ -526,7 +532,7 @@ def fit_envelope(
     used = _thinned(sel, sample_rate_hz, fit_rate_hz)
     rows = np.flatnonzero(used)  # the rows in use, found once
     v, ax, ay = (np.take(a, rows) for a in (sel.speed_m_s, sel.accel_lon_m_s2, sel.accel_lat_m_s2))
-    twice = filtered_again(sel, rows) if remove_noise else None
+    twice = filtered_again(sel, rows) if remove_noise and noise_m_s2 is None else None
     dense = _densified(rows, v, ax, ay, sel.sample_rate_hz, sample_rate_hz, twice)
     default_bin, default_near = bin_counts(dense.rate_hz)
     min_bin_samples = default_bin if min_bin_samples is None else min_bin_samples
@@ -545,7 +551,8 @@ def fit_envelope(
     calibrated = full_throttle_power_drag(
         v, ax, ay, rows, throttle, veh, problem.names, sample_rate_hz
     )
-    noise = sel.noise_m_s2 * dense.noise_factor if remove_noise else 0.0
+    noise = sel.noise_m_s2 * dense.noise_factor if noise_m_s2 is None else noise_m_s2
+    noise = noise if remove_noise else 0.0
     veh, bp, lifts, full_throttle, shrink = problem.calibrated_and_lifted(
         veh, bp, calibrated, noise
     )
@@ -560,7 +567,7 @@ def fit_envelope(
         "speed_min_m_s": float(v.min()),
         "speed_max_m_s": float(v.max()),
         "quantile": float(quantile),
-        "noise_m_s2": float(sel.noise_m_s2),
+        "noise_m_s2": float(sel.noise_m_s2 if noise_m_s2 is None else noise_m_s2),
         "fit_rate_hz": float(dense.rate_hz) if dense.rate_hz is not None else math.nan,
         "noise_offset_m_s2": float(lifts[0]),
         "noise_offset_power_m_s2": float(lifts[1]),

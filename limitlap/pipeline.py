@@ -328,11 +328,12 @@ def _imu_samples(log, laps, rows_of, pad_s=None):
     return v, ax, ay, mask, rate, None if throttle is None else throttle[rows]
 
 
-def _fit(log_path, samples, base, early, derived_clause=""):
+def _fit(log_path, samples, base, early, derived_clause="", derived_noise=None):
     """The envelope fitted to ``samples`` (see :func:`_imu_samples`); ``early`` is the pending sample selection of the whole log, or None.
 
     Errors name the log, and say when its accelerations were derived (``derived_clause``,
-    :func:`_derived_clause`).
+    :func:`_derived_clause`); ``derived_noise`` is the derived a_y's noise read from the
+    laps (:func:`_derived_noise`), None when a_y was logged or too few laps were alike.
     """
     v_s, ax_s, ay_s, mask_s, rate, thr_s = samples
     try:
@@ -346,9 +347,11 @@ def _fit(log_path, samples, base, early, derived_clause=""):
             throttle=thr_s,
             selection=None if early is None else early.result(),
             # accelerations derived from speed and the GNSS line: their smoothing is not
-            # the low-pass's and their error shows in no noise figure (docs/methods.md,
-            # Derived accelerations), so nothing is taken out or given back
-            remove_noise=not derived_clause,
+            # the low-pass's and their noise does not show in their differences; a_y's
+            # is read from the laps (derived.lateral_noise: docs/methods.md, Derived
+            # accelerations), and nothing is given back for the low-pass
+            remove_noise=not derived_clause or derived_noise is not None,
+            noise_m_s2=derived_noise,
         )
     except InputError:
         raise
@@ -688,6 +691,12 @@ def _derived_clause(log) -> str:
     )
 
 
+def _derived_noise(log) -> float | None:
+    """The derived a_y's noise (:func:`limitlap.derived.lateral_noise`), None when a_y was logged or it could not be read. [m/s²]."""
+    how = log.derived.get("accel_lat")
+    return how.noise_m_s2 if isinstance(how, derived.LateralFromLine) else None
+
+
 def _check_channel_units(log_path, log, strict: bool, warnings: list[str]) -> None:
     """Each channel against the GPS path: a unit or sign mix-up stops the run or warns.
 
@@ -768,7 +777,13 @@ class _EnvelopeBeside:
         samples = _imu_samples(log, laps, flying)
         if samples is not None:
             self._fitting = self._pool.submit(
-                _fit, self._log_path, samples, self.base, self._selection, _derived_clause(log)
+                _fit,
+                self._log_path,
+                samples,
+                self.base,
+                self._selection,
+                _derived_clause(log),
+                _derived_noise(log),
             )
 
     def selection(self):
