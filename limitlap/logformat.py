@@ -258,9 +258,9 @@ _KEY_COLON = re.compile(r'^\s*"?([A-Za-z][^,;\t:=\[\]"]{0,79}?)"?\s*:(?:\s+(.*?)
 
 #: The start of an ISO 8601 date-time (ISO 8601-1:2019, date and time of day combined:
 #: a date, "T" or a space, the hour) and a clock time (hh:mm, hh:mm:ss, with a decimal
-#: fraction).
+#: fraction; a zone, Z or an offset from UTC, may follow).
 _ISO_DATE_TIME = re.compile(r"^\d{4}-?\d{2}-?\d{2}[T ]\d{2}")
-_CLOCK = re.compile(r"^\d{1,2}:\d{2}(?::\d{2}(?:[.,]\d+)?)?$")
+_CLOCK = re.compile(r"^\d{1,2}:\d{2}(?::\d{2}(?:[.,]\d+)?)?(?:Z|[+-]\d{2}(?::?\d{2})?)?$")
 
 
 def _cells(line: str, sep: str) -> list[str]:

@@ -79,7 +79,9 @@ def clock_seconds(path, cells, rows, column) -> np.ndarray:
     """Seconds from the first stamp of a column of clock times (hh:mm:ss.sss).
 
     Parameters and messages as :func:`iso_seconds`. A time more than 12 hours before
-    the one above it is taken as the next day's (a session past midnight).
+    the one above it is taken as the next day's (a session past midnight). Times with a
+    zone (``13:42:05.250Z``, ``13:42:05.250+10:00``) are compared in UTC, as date-times
+    are; times with and without a zone are not mixed.
 
     Returns
     -------
@@ -88,27 +90,24 @@ def clock_seconds(path, cells, rows, column) -> np.ndarray:
     """
     out = np.full(len(cells), np.nan)
     day = 0
-    first = last = None
+    first = last = zoned = None
     for i, cell in enumerate(cells):
         if not cell:
             continue
-        try:  # ISO 8601 writes two-digit hours; a logger's 9:05:01 is taken as 09:05:01
-            t = time.fromisoformat("0" + cell if cell[1:2] == ":" else cell)
-        except ValueError:
+        t = _clock(path, cell, int(rows[i]), column)
+        if zoned is None:
+            zoned = t.tzinfo is not None
+        elif zoned != (t.tzinfo is not None):
+            which = "has no time zone" if zoned else "has a time zone"
             raise InputError(
                 path,
-                f"'{cell}' is not a clock time (hh:mm:ss.sss)",
-                row=int(rows[i]),
-                column=column,
-            ) from None
-        if t.tzinfo is not None:
-            raise InputError(
-                path,
-                f"'{cell}': a clock time with a zone (write a date-time instead)",
+                f"'{cell}' {which} and the first time stamp {'does' if zoned else 'does not'}",
                 row=int(rows[i]),
                 column=column,
             )
         us = ((t.hour * 60 + t.minute) * 60 + t.second) * 1_000_000 + t.microsecond
+        if zoned:  # to UTC: an offset's change within the log does not move the time base
+            us -= (t.utcoffset().days * 86_400 + t.utcoffset().seconds) * 1_000_000
         if last is not None and us + day < last - _DAY_US // 2:
             day += _DAY_US
         last = us + day
@@ -116,3 +115,13 @@ def clock_seconds(path, cells, rows, column) -> np.ndarray:
             first = last
         out[i] = (last - first) / 1e6  # whole microseconds: exact until the division
     return out
+
+
+def _clock(path, cell, row, column) -> time:
+    """One clock time cell read by the standard library (a one-digit hour taken as two)."""
+    try:  # ISO 8601 writes two-digit hours; a logger's 9:05:01 is taken as 09:05:01
+        return time.fromisoformat("0" + cell if cell[1:2] == ":" else cell)
+    except ValueError:
+        raise InputError(
+            path, f"'{cell}' is not a clock time (hh:mm:ss.sss)", row=row, column=column
+        ) from None

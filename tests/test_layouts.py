@@ -130,6 +130,7 @@ LAYOUTS = {
     "ISO 8601 UTC (Z)": lambda t: _with_times(t, lambda s: _iso(UTC)(s)[:-6] + "Z"),
     "clock times": lambda t: _with_times(t, _clock()),
     "clock past midnight": lambda t: _with_times(t, _clock(datetime(2026, 10, 17, 23, 58, 30))),
+    "clock times with a zone": lambda t: _with_times(t, lambda s: _clock()(s) + "+02:00"),
     "quoted": _quoted,
     "empty last column": lambda t: "".join(ln + ",\n" for ln in t.splitlines()),
     "combined": _combined,
@@ -159,6 +160,7 @@ NOTES = {
     "ISO 8601 UTC (Z)": "ISO 8601 times",
     "clock times": "clock times",
     "clock past midnight": "clock times",
+    "clock times with a zone": "clock times",
     "quoted": "quoted cells",
     "empty last column": "an empty last column",
     "combined": (
@@ -270,6 +272,25 @@ def test_a_zone_change_inside_the_log_keeps_the_time_base(tmp_path):
     log = read_log(path)
     assert log.time_s.tolist() == [0.0, 0.5, 1.0, 1.5, 2.0]
     assert log.session == {"date": "2026-04-05"}  # the date as written, in its own zone
+
+
+def test_clock_times_with_a_zone_are_compared_in_utc(tmp_path):
+    # The same fall-back as above, written as clock times (ISO 8601-1:2019: a time of day
+    # may carry its shift from UTC): 02:59:59+11:00 is 15:59:59Z, 02:00:00+10:00 is
+    # 16:00:00Z, one second later (worked by hand). A time without a zone after one with
+    # is refused, naming its row, as for date-times.
+    stamps = ["02:59:59.000+11:00", "02:59:59.500+11:00", "02:00:00.000+10:00"]
+    rows = [f"{s},10,{i},0" for i, s in enumerate(stamps)]
+    path = tmp_path / "clock_dst.csv"
+    path.write_text("time,speed [m/s],x,y\n" + "\n".join(rows) + "\n")
+    assert read_log(path).time_s.tolist() == [0.0, 0.5, 1.0]
+    path.write_text("time,speed [m/s],x,y\n" + f"{stamps[0]},10,0,0\n13:00:00.000,10,1,0\n")
+    with pytest.raises(InputError) as err:
+        read_log(path)
+    assert str(err.value) == (
+        f"{path}, row 3, column 'time': '13:00:00.000' has no time zone and the first time "
+        "stamp does"
+    )
 
 
 def test_fractions_of_a_second_to_the_microsecond(tmp_path):
