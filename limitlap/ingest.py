@@ -161,8 +161,13 @@ def _read_numeric_csv(path):
     if not lines:
         raise InputError(path, "file is empty")
     header = [h.strip() for h in lines[0].split(",")]
+    first = 2
+    if len(lines) > 1 and _units_row(lines[1], header):  # bare names, their units under them
+        units = [u.strip() for u in lines[1].split(",")]
+        header = [f"{h} [{u}]" if u else h for h, u in zip(header, units, strict=True)]
+        first = 3
     rows = []
-    for r, ln in enumerate(lines[1:], start=2):
+    for r, ln in enumerate(lines[first - 1 :], start=first):
         cells = [c.strip() for c in ln.split(",")]
         if len(cells) != len(header):
             raise InputError(path, f"expected {len(header)} cells, found {len(cells)}", row=r)
@@ -179,6 +184,20 @@ def _read_numeric_csv(path):
             row.append(value)
         rows.append(row)
     return header, np.array(rows, dtype=np.float64).reshape(len(rows), len(header))
+
+
+def _units_row(line: str, header: list[str]) -> bool:
+    """True when ``line``, under a header of bare names, holds their units (no cell a number)."""
+    cells = [c.strip() for c in line.split(",")]
+    if len(cells) != len(header) or any("[" in h for h in header):
+        return False
+    for cell in cells:
+        try:
+            float(cell)
+            return False
+        except ValueError:
+            continue
+    return any(cells)
 
 
 def _column_name(header_cell: str) -> tuple[str, str]:

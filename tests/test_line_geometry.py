@@ -318,3 +318,25 @@ def test_line_file_with_heights_over_a_bridge(tmp_path):
         + "".join(f"{a:.3f},{b:.3f},{c}\n" for a, b, c in zip(x, y, deck, strict=True))
     )
     assert read_line(levels).length_m == pytest.approx(read_line(path).length_m, rel=1e-6)
+
+
+def test_line_file_with_a_units_row_reads_as_with_bracketed_units(tmp_path):
+    # The same points written the two ways the formats page allows: "x [m],y [m],z [m]",
+    # or bare names with "m,m,m" under them; a unit other than the one shown is refused,
+    # naming the column, either way (docs/formats.md, Line files). Through the command
+    # that takes a line file or a log by its header, the units row is a line file too.
+    x, y, z, *_ = figure_eight(n=800)
+    rows = "".join(f"{a:.3f},{b:.3f},{c:.3f}\n" for a, b, c in zip(x, y, z, strict=True))
+    bracketed, units_row = tmp_path / "bracketed.csv", tmp_path / "units_row.csv"
+    bracketed.write_text("x [m],y [m],z [m]\n" + rows)
+    units_row.write_text("x,y,z\nm,m,m\n" + rows)
+    a, b = read_line(bracketed), read_line(units_row)
+    np.testing.assert_array_equal(a.curvature_1_m, b.curvature_1_m)
+    np.testing.assert_array_equal(a.z_m, b.z_m)
+    from limitlap.pipeline import line_from_source
+
+    assert line_from_source(units_row)[1] == "line file units_row.csv"
+    feet = tmp_path / "feet.csv"
+    feet.write_text("x,y,z\nft,ft,ft\n" + rows)
+    with pytest.raises(InputError, match=r"feet\.csv, column 'x \[ft\]': unit 'ft' not accepted"):
+        read_line(feet)
