@@ -247,6 +247,10 @@ def line_advice(c, units=None) -> str:
     ...               apex_offset_m=0.1, exit_offset_m=0.0, turn_in_later_m=4.0,
     ...               apex_later_m=6.0))
     'T4: a later turn-in (1.2 m wider at turn-in, apex 6 m later) brings 0.19 s'
+    >>> line_advice(C(name="T2", told=True, line_time_s=0.12, turn_in_offset_m=0.9,
+    ...               apex_offset_m=0.0, exit_offset_m=0.0, turn_in_later_m=-5.0,
+    ...               apex_later_m=22.0))
+    'T2: a rounder line (turn-in 5 m earlier, apex 22 m later, 0.9 m wider at turn-in) brings 0.12 s'
     """
     u = units or METRIC
     if not c.told:
@@ -263,7 +267,12 @@ def line_advice(c, units=None) -> str:
         _offset_words(c.exit_offset_m, "at the exit", u),
     ]
     lead = next(((what, value) for what, text, value in shifts if text), None)
-    if lead is not None:
+    if all(text for _, text, _ in shifts) and c.turn_in_later_m * c.apex_later_m < 0:
+        # the two move apart: turning in earlier for a later apex is a longer, rounder
+        # arc; turning in later for an earlier apex, a sharper turn
+        head = "a rounder line" if c.apex_later_m > 0 else "a sharper turn"
+        details = [text for _, text, _ in shifts] + details
+    elif lead is not None:
         head = f"{'a later' if lead[1] > 0 else 'an earlier'} {lead[0]}"
         details += [text for what, text, _ in shifts if text and what != lead[0]]
     else:
