@@ -120,3 +120,40 @@ def test_laps_on_the_optimal_line_leave_no_line_time(truth, tmp_path_factory):
     assert analysis.line.corridor.source == "track edges"
     assert all(cl.told for cl in analysis.line.corners)
     assert 0.0 <= analysis.line.line_time_s < 0.05
+
+
+def test_edges_and_log_in_different_frames_are_refused(tmp_path, capsys, monkeypatch):
+    # The bundled track's edges rewritten as x/y in its own frame (pymap3d, the track's
+    # origin) beside the bundled WGS84 log: the frames are not mixed; one line naming the
+    # edges file, a non-zero exit, nothing written (docs/formats.md, Track edges).
+    import shutil
+
+    import pymap3d
+
+    from limitlap.resources import bundled_path
+    from tests.robust_data import run_cli
+
+    demo = bundled_path("demo_tracks", "tarrowby_heath.toml").parent
+    for name in ("tarrowby_heath.toml", "tarrowby_heath_line.csv"):
+        shutil.copy(demo / name, tmp_path / name)
+    rows = np.loadtxt(demo / "tarrowby_heath_edges.csv", delimiter=",", skiprows=1)
+    east, north, _ = pymap3d.geodetic2enu(rows[:, 0], rows[:, 1], 286.0, -33.8612, 147.2391, 286.0)
+    edges = tmp_path / "tarrowby_heath_edges.csv"
+    edges.write_text(
+        "x [m],y [m],left [m],right [m]\n"
+        + "".join(
+            f"{e:.3f},{n:.3f},{a:.2f},{b:.2f}\n"
+            for e, n, a, b in zip(east, north, rows[:, 2], rows[:, 3], strict=True)
+        ),
+        encoding="utf-8",
+    )
+    out = tmp_path / "out"
+    log = bundled_path("demo_tracks", "tarrowby_dry.csv.gz")
+    code, _, stderr = run_cli(
+        ["analyse", log, "--track", tmp_path / "tarrowby_heath.toml", "--out", out, "--quiet"],
+        capsys,
+        monkeypatch,
+    )
+    assert code != 0
+    assert stderr.splitlines() == [f"limitlap: error: {edges}: edges in x/y need a log in x/y too"]
+    assert not out.exists() or not any(out.iterdir())
