@@ -1467,7 +1467,8 @@ def target_sheet(
         fontsize=15,
         va="top",
     )
-    about = [x for x in (condition.get("car"), condition.get("date")) if x]
+    made = f"made {condition['date']}" if condition.get("date") else ""
+    about = [x for x in (condition.get("car"), made) if x]
     if about:
         fig.text(0.06, 0.905, "  ·  ".join(about), fontsize=11, va="top", color="#444444")
     fig.text(0.94, 0.965, "target lap", fontsize=12, ha="right", va="top", color="#555555")
