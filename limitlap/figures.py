@@ -609,12 +609,7 @@ def map_figure(cols: Columns, v, units: Units) -> FigureSpec:
     every = max(1, math.ceil(np.asarray(v.distance_m).size / MAP_POINTS))
     x, y = np.asarray(v.x_m)[::every] * k, np.asarray(v.y_m)[::every] * k
     s, rate = np.asarray(v.distance_m)[::every], rate[::every]
-    finite = np.abs(rate[np.isfinite(rate)])
-    end, ticks = even_ticks(float(np.percentile(finite, 98)) if finite.size else 0.1)
-    xs = cols.add("map_x", x, 1)
-    ys = cols.add("map_y", y, 1)
     span = max(np.ptp(x), np.ptp(y), 1.0)
-    unit = f"ms/{units.distance}"
     data = [
         _line(
             cols.add("map_x_closed", np.append(x, x[0]), 1),
@@ -627,42 +622,7 @@ def map_figure(cols: Columns, v, units: Units) -> FigureSpec:
         _line(
             [], [], "stretch shown in the other views", STRETCH, 14.0, hoverinfo="skip", opacity=0.9
         ),
-        {
-            "type": "scatter",
-            "mode": "markers",
-            "x": xs,
-            "y": ys,
-            "name": "time lost per " + units.distance,
-            "showlegend": False,  # the colour bar under the map is its legend
-            "customdata": cols.add("map_s", s * k, 1),
-            "hovertemplate": f"%{{customdata}} {units.distance}<br>%{{marker.color:.2f}} {unit}"
-            "<extra></extra>",
-            "marker": {
-                "color": cols.add("map_rate", np.clip(rate, -end, end), 3),
-                "colorscale": LOSS_SCALE,
-                "cmin": -end,
-                "cmax": end,
-                "cmid": 0.0,
-                "size": 5,
-                "showscale": True,
-                "colorbar": {
-                    "orientation": "h",
-                    "x": 0.5,
-                    "xanchor": "center",
-                    "y": -0.02,
-                    "yanchor": "top",
-                    "len": 0.8,
-                    "thickness": 14,
-                    "tickmode": "array",
-                    "tickvals": ticks,
-                    "ticktext": [f"{t:+g}" if t else "0" for t in ticks],
-                    "title": {
-                        "text": f"time lost [{unit}]: red losing, blue gaining",
-                        "side": "top",
-                    },
-                },
-            },
-        },
+        _loss_markers(cols, x, y, s * k, rate, units),
         {
             "type": "scatter",
             "mode": "markers",
@@ -674,25 +634,78 @@ def map_figure(cols: Columns, v, units: Units) -> FigureSpec:
         },
     ]
     data += _better_line_traces(cols, v, every, k)
+    return FigureSpec(
+        "map",
+        "Where the time is left on the lap",
+        "The line coloured by the local rate of time loss: red where the ideal pulls away, "
+        "blue where you gain on it, white where you are level (the scale is centred on "
+        "zero). The arrow shows the direction of travel from the start/finish square. Drag "
+        "a box on the map to show that stretch in the other views."
+        + _better_line_words(getattr(v, "line", None)),
+        data,
+        _map_layout(x, y, span, _map_notes(x, y, s, v.corners, span)),
+    )
+
+
+def _loss_markers(cols: Columns, x, y, shown_s, rate, units: Units) -> dict:
+    """The map's points coloured by the rate of time loss [ms per distance unit], with its colour bar (the scale centred on zero, to the 98th percentile)."""
+    finite = np.abs(rate[np.isfinite(rate)])
+    end, ticks = even_ticks(float(np.percentile(finite, 98)) if finite.size else 0.1)
+    unit = f"ms/{units.distance}"
+    return {
+        "type": "scatter",
+        "mode": "markers",
+        "x": cols.add("map_x", x, 1),
+        "y": cols.add("map_y", y, 1),
+        "name": "time lost per " + units.distance,
+        "showlegend": False,  # the colour bar under the map is its legend
+        "customdata": cols.add("map_s", shown_s, 1),
+        "hovertemplate": f"%{{customdata}} {units.distance}<br>%{{marker.color:.2f}} {unit}"
+        "<extra></extra>",
+        "marker": {
+            "color": cols.add("map_rate", np.clip(rate, -end, end), 3),
+            "colorscale": LOSS_SCALE,
+            "cmin": -end,
+            "cmax": end,
+            "cmid": 0.0,
+            "size": 5,
+            "showscale": True,
+            "colorbar": {
+                "orientation": "h",
+                "x": 0.5,
+                "xanchor": "center",
+                "y": -0.02,
+                "yanchor": "top",
+                "len": 0.8,
+                "thickness": 14,
+                "tickmode": "array",
+                "tickvals": ticks,
+                "ticktext": [f"{t:+g}" if t else "0" for t in ticks],
+                "title": {"text": f"time lost [{unit}]: red losing, blue gaining", "side": "top"},
+            },
+        },
+    }
+
+
+def _map_notes(x, y, s, corners, span) -> list[dict]:
+    """The map's annotations: the arrow of the direction of travel from the start/finish, and each corner's name outside its apex."""
     j = min(max(int(np.searchsorted(s, s[0] + 0.04 * (s[-1] - s[0]))), 1), x.size - 1)
-    notes = [
-        {
-            "x": float(x[j]),
-            "y": float(y[j]),
-            "ax": float(x[0]),
-            "ay": float(y[0]),
-            "xref": "x",
-            "yref": "y",
-            "axref": "x",
-            "ayref": "y",
-            "showarrow": True,
-            "arrowhead": 2,
-            "arrowwidth": 1.5,
-            "arrowcolor": INK,
-            "text": "",
-        }
-    ]
-    notes += [
+    arrow = {
+        "x": float(x[j]),
+        "y": float(y[j]),
+        "ax": float(x[0]),
+        "ay": float(y[0]),
+        "xref": "x",
+        "yref": "y",
+        "axref": "x",
+        "ayref": "y",
+        "showarrow": True,
+        "arrowhead": 2,
+        "arrowwidth": 1.5,
+        "arrowcolor": INK,
+        "text": "",
+    }
+    names = [
         {
             "x": float(nx),
             "y": float(ny),
@@ -700,10 +713,15 @@ def map_figure(cols: Columns, v, units: Units) -> FigureSpec:
             "showarrow": False,
             "font": {"size": 11, "color": INK},
         }
-        for nx, ny, name in _outside_points(x, y, s, v.corners, span)
+        for nx, ny, name in _outside_points(x, y, s, corners, span)
     ]
+    return [arrow, *names]
+
+
+def _map_layout(x, y, span, notes) -> dict:
+    """The map's layout: equal scales, no axes, 8 % of the span round the line, box selection."""
     pad = 0.08 * span
-    layout = _layout(
+    return _layout(
         HEIGHT_PX["map"],
         hovermode="closest",
         dragmode="select",
@@ -720,17 +738,6 @@ def map_figure(cols: Columns, v, units: Units) -> FigureSpec:
             "scaleratio": 1,
         },
         annotations=notes,
-    )
-    return FigureSpec(
-        "map",
-        "Where the time is left on the lap",
-        "The line coloured by the local rate of time loss: red where the ideal pulls away, "
-        "blue where you gain on it, white where you are level (the scale is centred on "
-        "zero). The arrow shows the direction of travel from the start/finish square. Drag "
-        "a box on the map to show that stretch in the other views."
-        + _better_line_words(getattr(v, "line", None)),
-        data,
-        layout,
     )
 
 
