@@ -871,41 +871,55 @@ MAP_POINTS = 1200
 
 
 def _gg_band_traces(b, i: int, fit) -> list:
-    """The traces of one speed band's panel."""
-    from limitlap.gg import REACH_ANGLES_RAD
+    """The traces of one speed band's panel, back to front: the grip not used, your samples and their reach, what the ideal asks for and the envelope."""
+    trace = _panel_trace(i)
+    return [*_unused_grip(b, trace), *_your_reach(b, fit, trace), *_band_limits(b, trace, i == 0)]
 
+
+def _panel_trace(i: int):
+    """A maker of scatter traces on panel ``i``'s axes (legend entries from the first panel only)."""
     ax_x, ax_y = ("x", "y") if i == 0 else (f"x{i + 1}", f"y{i + 1}")
-    g = 1.0 / G0_M_S2
-    first = i == 0
-    common = {"xaxis": ax_x, "yaxis": ax_y, "showlegend": first}
+    common = {"xaxis": ax_x, "yaxis": ax_y, "showlegend": i == 0}
 
     def trace(name, **kw):
         t = {"type": "scatter", "name": name, "legendgroup": name, **common}
         t.update(kw)
         return t
 
-    out = []
+    return trace
+
+
+def _unused_grip(b, trace) -> list:
+    """The ring between what the ideal asks for and your samples' reach (none without both)."""
+    from limitlap.gg import REACH_ANGLES_RAD
+
+    if b.asked_reach_m_s2 is None or b.sample_reach_m_s2 is None:
+        return []
     cos, sin = np.cos(REACH_ANGLES_RAD), np.sin(REACH_ANGLES_RAD)
-    if b.asked_reach_m_s2 is not None and b.sample_reach_m_s2 is not None:
-        outer = b.asked_reach_m_s2 * g
-        inner = np.minimum(b.sample_reach_m_s2 * g, outer)
-        ring_x = np.concatenate([outer * cos, (inner * cos)[::-1]])
-        ring_y = np.concatenate([outer * sin, (inner * sin)[::-1]])
-        out.append(
-            trace(
-                "grip not used where the ideal asks for it",
-                mode="lines",
-                x=_r(ring_x),
-                y=_r(ring_y),
-                fill="toself",
-                fillcolor=rgba(LOSS, 0.3),
-                line={"width": 0},
-                hoverinfo="skip",
-            )
+    g = 1.0 / G0_M_S2
+    outer = b.asked_reach_m_s2 * g
+    inner = np.minimum(b.sample_reach_m_s2 * g, outer)
+    ring_x = np.concatenate([outer * cos, (inner * cos)[::-1]])
+    ring_y = np.concatenate([outer * sin, (inner * sin)[::-1]])
+    return [
+        trace(
+            "grip not used where the ideal asks for it",
+            mode="lines",
+            x=_r(ring_x),
+            y=_r(ring_y),
+            fill="toself",
+            fillcolor=rgba(LOSS, 0.3),
+            line={"width": 0},
+            hoverinfo="skip",
         )
-    n = b.sample_lat_m_s2.size
-    step = max(1, math.ceil(n / GG_DOTS_PER_BAND))
-    out.append(
+    ]
+
+
+def _your_reach(b, fit, trace) -> list:
+    """Your samples (at most :data:`GG_DOTS_PER_BAND`), the fit's boundary points and the reach of your samples."""
+    g = 1.0 / G0_M_S2
+    step = max(1, math.ceil(b.sample_lat_m_s2.size / GG_DOTS_PER_BAND))
+    out = [
         trace(
             "your samples",
             mode="markers",
@@ -914,7 +928,7 @@ def _gg_band_traces(b, i: int, fit) -> list:
             marker={"color": LAP, "size": 3, "opacity": 0.35},
             hoverinfo="skip",
         )
-    )
+    ]
     if fit is not None and fit[0].size:
         out.append(
             trace(
@@ -942,14 +956,23 @@ def _gg_band_traces(b, i: int, fit) -> list:
                 hoverinfo="skip",
             )
         )
+    return out
+
+
+def _band_limits(b, trace, first: bool) -> list:
+    """What the ideal asks for at the band's speeds, and the envelope at its lowest, highest and middle speed."""
+    from limitlap.gg import REACH_ANGLES_RAD
+
+    g = 1.0 / G0_M_S2
+    out = []
     if b.asked_reach_m_s2 is not None:
         r = np.where(b.asked_reach_m_s2 > 0, b.asked_reach_m_s2 * g, np.nan)
         out.append(
             trace(
                 "what the ideal asks for at these speeds",
                 mode="lines",
-                x=_r(r * cos),
-                y=_r(r * sin),
+                x=_r(r * np.cos(REACH_ANGLES_RAD)),
+                y=_r(r * np.sin(REACH_ANGLES_RAD)),
                 line={"color": IDEAL, "width": 1.2, "dash": "dot"},
                 hoverinfo="skip",
             )
