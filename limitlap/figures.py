@@ -1138,14 +1138,48 @@ def best_figure(corners, lap_time_s, best_time_s, ideal_time_s, lap_label) -> Fi
         t - ideal_time_s if t is not None and math.isfinite(t) else None
         for t in (lap_time_s, best_time_s, ideal_time_s)
     ]
+    data = _whole_lap_bars(lap_label, (lap_time_s, best_time_s, ideal_time_s), above)
+    data += _corner_bars(corners, names, lap_label)
+    top = max([a for a in above if a is not None] + [1e-3])
+    layout = _layout(
+        HEIGHT_PX["best"],
+        hovermode="closest",
+        barmode="group",
+        margin={"l": 120, "r": 16, "t": 48, "b": 60},
+        xaxis=_axis("time above the ideal lap [s]", domain=[0.0, 0.3], range=[0, top * 1.9]),
+        yaxis=_axis("", autorange="reversed", showgrid=False),
+        xaxis2=_axis(
+            "",
+            domain=[0.42, 1.0],
+            anchor="y2",
+            showgrid=False,
+            categoryorder="array",
+            categoryarray=names,
+        ),
+        yaxis2=_axis("time above the ideal [s]", anchor="x2"),
+        legend={"orientation": "h", "x": 0.42, "y": 1.0, "yanchor": "bottom", "font": {"size": 11}},
+    )
+    return FigureSpec(
+        "best_of_laps",
+        "Your best segments from the session beside the limit",
+        "Left: the whole lap; right: per corner, what you have already done against what "
+        "the grip allows.",
+        data,
+        layout,
+        subplots=["xy", "x2y2"],
+    )
+
+
+def _whole_lap_bars(lap_label, times, above) -> list:
+    """The left panel: the analysed lap, the best of your laps and the ideal, each as its time above the ideal."""
     whole = [lap_label, "best of your laps", "ideal"]
     texts = [
         lap_time(t, decimals=2) + (f" (+{a:.2f} s)" if a else "")
         if a is not None
         else NOT_AVAILABLE
-        for t, a in zip((lap_time_s, best_time_s, ideal_time_s), above, strict=True)
+        for t, a in zip(times, above, strict=True)
     ]
-    data = [
+    return [
         {
             "type": "bar",
             "orientation": "h",
@@ -1163,12 +1197,16 @@ def best_figure(corners, lap_time_s, best_time_s, ideal_time_s, lap_label) -> Fi
         }
         for name, a, text, colour in zip(whole, above, texts, (LAP, BEST, IDEAL), strict=True)
     ]
+
+
+def _corner_bars(corners, names, lap_label) -> list:
+    """The right panel: each corner's time above the ideal on the analysed lap and in your best segment, and the ideal's zero line."""
     this = [round(r["actual_s"] - r["ideal_s"], 3) for r in corners]
     best = [
         round(r["best_s"] - r["ideal_s"], 3) if math.isfinite(r.get("best_s", math.nan)) else None
         for r in corners
     ]
-    data += [
+    return [
         {
             "type": "bar",
             "name": f"{lap_label} above the ideal",
@@ -1201,34 +1239,6 @@ def best_figure(corners, lap_time_s, best_time_s, ideal_time_s, lap_label) -> Fi
             "hoverinfo": "skip",
         },
     ]
-    top = max([a for a in above if a is not None] + [1e-3])
-    layout = _layout(
-        HEIGHT_PX["best"],
-        hovermode="closest",
-        barmode="group",
-        margin={"l": 120, "r": 16, "t": 48, "b": 60},
-        xaxis=_axis("time above the ideal lap [s]", domain=[0.0, 0.3], range=[0, top * 1.9]),
-        yaxis=_axis("", autorange="reversed", showgrid=False),
-        xaxis2=_axis(
-            "",
-            domain=[0.42, 1.0],
-            anchor="y2",
-            showgrid=False,
-            categoryorder="array",
-            categoryarray=names,
-        ),
-        yaxis2=_axis("time above the ideal [s]", anchor="x2"),
-        legend={"orientation": "h", "x": 0.42, "y": 1.0, "yanchor": "bottom", "font": {"size": 11}},
-    )
-    return FigureSpec(
-        "best_of_laps",
-        "Your best segments from the session beside the limit",
-        "Left: the whole lap; right: per corner, what you have already done against what "
-        "the grip allows.",
-        data,
-        layout,
-        subplots=["xy", "x2y2"],
-    )
 
 
 # --------------------------------------------------------------------------- corner detail (PNG)
