@@ -257,22 +257,36 @@ def _corner_table(analysis, u=None) -> str:
     """The ranked corner table and headline, for the terminal (with the bands when there are some; speeds and distances in ``u``, km/h and m by default)."""
     from limitlap.advice import TIME_RESOLUTION_S, line_advice
     from limitlap.bands import advice_shown
-    from limitlap.formatting import (
-        METRIC,
-        distance,
-        grip,
-        grip_used,
-        lap_time,
-        speed_kmh,
-        time_left,
-        with_band,
-    )
+    from limitlap.formatting import METRIC
 
     u = u or METRIC
     cmp_ = analysis.comparison
     b = analysis.bands
     band_of = {c.name: b.corner_bands_s[i] for i, c in enumerate(cmp_.corners)} if b else {}
-    group_of = {c.name: b.rank_group[i] for i, c in enumerate(cmp_.corners)} if b else {}
+    line = analysis.line
+    line_of = {}
+    if line is not None:
+        line_of = {c.name: cl for c, cl in zip(analysis.corners, line.corners, strict=True)}
+    lines = [*_headline(analysis), "", *_ranked_rows(analysis, band_of, line_of, u), ""]
+    lines += [f"{c.name}: {c.note}" for c in cmp_.corners if c.note]
+    shown = [
+        advice_shown(c.name, c.time_left_s, band_of.get(c.name), c.advice_in(u))
+        for c in cmp_.ranked()[:3]
+    ]
+    lines += [a for a in shown if a]
+    told = sorted(
+        (cl for cl in line_of.values() if cl.told and cl.line_time_s >= TIME_RESOLUTION_S),
+        key=lambda cl: -cl.line_time_s,
+    )
+    lines += [line_advice(cl, u) for cl in told[:3]]
+    return "\n".join(lines)
+
+
+def _headline(analysis) -> list[str]:
+    """The lines above the corner table: lap, ideal, time left and grip; time left below zero; the better line's time; the ideal's band."""
+    from limitlap.formatting import grip, lap_time, time_left, with_band
+
+    cmp_, b, line = analysis.comparison, analysis.bands, analysis.line
     lines = [
         f"lap {analysis.lap.number}: {lap_time(cmp_.lap_time_s)}   ideal "
         f"{lap_time(cmp_.ideal_lap_time_s)} at grip scale {grip(analysis.grip_scale)}   "
@@ -281,10 +295,7 @@ def _corner_table(analysis, u=None) -> str:
     ]
     if cmp_.time_left_words():
         lines.append(f"time left below zero: {cmp_.time_left_words()}")
-    line = analysis.line
-    line_of = {}
     if line is not None:
-        line_of = {c.name: cl for c, cl in zip(analysis.corners, line.corners, strict=True)}
         lines.append(
             f"a better line inside the corridor ({line.corridor.source}) would bring "
             + (
@@ -299,6 +310,17 @@ def _corner_table(analysis, u=None) -> str:
             f"ideal lap {lap_time(lo)} to {lap_time(hi)} ({b.coverage:.0%} band, bootstrap "
             f"over {b.n_laps} flying laps); corners in one group cannot be told apart"
         )
+    return lines
+
+
+def _ranked_rows(analysis, band_of, line_of, u) -> list[str]:
+    """The corner table's lines, ranked by time left (its group and band when the bands were made)."""
+    from limitlap.formatting import distance, grip_used, speed_kmh, time_left, with_band
+
+    b = analysis.bands
+    group_of = (
+        {c.name: b.rank_group[i] for i, c in enumerate(analysis.comparison.corners)} if b else {}
+    )
     heads = (
         "rank",
         "group",
@@ -328,21 +350,9 @@ def _corner_table(analysis, u=None) -> str:
             _points(c.brake_points_ideal_m, u),
             grip_used(c.grip_used, c.grip_used_raw),
         )
-        for c in cmp_.ranked()
+        for c in analysis.comparison.ranked()
     ]
-    lines += ["", *_text_table(heads, rows, left=4), ""]
-    lines += [f"{c.name}: {c.note}" for c in cmp_.corners if c.note]
-    shown = [
-        advice_shown(c.name, c.time_left_s, band_of.get(c.name), c.advice_in(u))
-        for c in cmp_.ranked()[:3]
-    ]
-    lines += [a for a in shown if a]
-    told = sorted(
-        (cl for cl in line_of.values() if cl.told and cl.line_time_s >= TIME_RESOLUTION_S),
-        key=lambda cl: -cl.line_time_s,
-    )
-    lines += [line_advice(cl, u) for cl in told[:3]]
-    return "\n".join(lines)
+    return _text_table(heads, rows, left=4)
 
 
 def _line_cell(cl) -> str:
