@@ -570,27 +570,31 @@ def _phase_cuts(c: Corner, ma: Marks, mi: Marks, start_u, end_u, length, closed)
     return out
 
 
-def _corner_row(c: Corner, previous: str, bound, g, actual: Trace, best: Trace):
-    """One corner's comparison as the fields of :class:`CornerComparison` (rank aside)."""
-    start_u, _, end_u, _, _ = bound
-    length, closed = actual.length, actual.closed
+def _segment_times(c: Corner, actual: Trace, best: Trace) -> tuple[float, float]:
+    """The real lap's and the ideal's time from the corner's start to its end (across the gate on a closed lap). [s]."""
     a_s = actual.time_at_mod(c.end_m) - actual.time_at_mod(c.start_m)
     i_s = best.time_at_mod(c.end_m) - best.time_at_mod(c.start_m)
-    if closed and c.end_m <= c.start_m:
+    if actual.closed and c.end_m <= c.start_m:
         a_s += actual.lap_time
         i_s += best.lap_time
-    ma, mi = corner_marks(actual, c, bound), corner_marks(best, c, bound)
-    cuts = [start_u, *_phase_cuts(c, ma, mi, start_u, end_u, length, closed), end_u]
-    phases = [
+    return a_s, i_s
+
+
+def _phase_times(c: Corner, bound, ma: Marks, mi: Marks, actual: Trace, best: Trace) -> list:
+    """Time left in the approach, braking, mid-corner and exit (:func:`_phase_cuts`). [s]."""
+    start_u, _, end_u, _, _ = bound
+    inner = _phase_cuts(c, ma, mi, start_u, end_u, actual.length, actual.closed)
+    cuts = [start_u, *inner, end_u]
+    return [
         (actual.time_at(b) - actual.time_at(a)) - (best.time_at(b) - best.time_at(a))
         for a, b in itertools.pairwise(cuts)
     ]
-    raw = _grip_used(actual, best, start_u, end_u)
 
-    def wrap(u):
-        return wrap_distance(u, length, closed)
 
-    diff = CornerDifferences(
+def _differences(c, previous, start_u, times, marks, traces) -> CornerDifferences:
+    """What the advice line is made from (:class:`limitlap.advice.CornerDifferences`)."""
+    (a_s, i_s, phases), (ma, mi), (actual, best) = times, marks, traces
+    return CornerDifferences(
         name=c.name,
         time_left_s=a_s - i_s,
         approach_s=phases[0],
@@ -607,9 +611,23 @@ def _corner_row(c: Corner, previous: str, bound, g, actual: Trace, best: Trace):
         previous=previous,
         arrival_deficit_m_s=best.speed_at(start_u) - actual.speed_at(start_u),
         ideal_without_slowing=not mi.own_minimum,
-        real_brake_m=wrap(ma.brake_start),
+        real_brake_m=wrap_distance(ma.brake_start, actual.length, actual.closed),
         real_min_speed_m_s=ma.min_speed,
     )
+
+
+def _corner_row(c: Corner, previous: str, bound, g, actual: Trace, best: Trace):
+    """One corner's comparison as the fields of :class:`CornerComparison` (rank aside)."""
+    start_u, _, end_u, _, _ = bound
+    a_s, i_s = _segment_times(c, actual, best)
+    ma, mi = corner_marks(actual, c, bound), corner_marks(best, c, bound)
+    phases = _phase_times(c, bound, ma, mi, actual, best)
+    raw = _grip_used(actual, best, start_u, end_u)
+    diff = _differences(c, previous, start_u, (a_s, i_s, phases), (ma, mi), (actual, best))
+
+    def wrap(u):
+        return wrap_distance(u, actual.length, actual.closed)
+
     return dict(
         name=c.name,
         direction=c.direction,
