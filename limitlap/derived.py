@@ -66,14 +66,20 @@ ACCEL_NOISE_TARGET_M_S2 = 0.1
 #: under half of a typical 3-5 s braking zone (common practice, no published source). [s]
 MAX_WINDOW_S = 1.5
 #: How far from the truth the ideal lap may come out with a_y derived from the GPS line,
-#: as the warning says it. The a_y of a GPS-only line carries the fixes' error through the
-#: line's smoothing (6 % of a_y on a circle at 10 Hz, 0.1 m noise); its noise, read from
-#: the laps (:func:`lateral_noise`), is taken out of the envelope as a sensor's is.
-#: Measured on generated sessions (seeds 1-6, 10 and 25 Hz, benchmarks/gps_only.py and
-#: tests/test_gps_only.py): speed logged -0.16 to -0.90 %; speed from the fixes -0.6 to
-#: +1.4 % (its a_x smoothed over 1.5 s shaves the braking limit); with the noise not read
-#: (a single lap, or laps not alike) up to 1.3 % fast, as before it was read. [%]
-IDEAL_OFF_PERCENT = {"speed logged": 1.0, "speed from fixes": 1.5, "unread": 1.5}
+#: as the warning says it, by the fixes' rate: (lowest rate [Hz], speed logged [% fast],
+#: speed from the fixes [% fast or slow], the a_y noise not read [% fast]). The a_y of a
+#: GPS-only line carries the fixes' error through the line's smoothing (6 % of a_y on a
+#: circle at 10 Hz, 0.1 m noise); its noise, read from the laps (:func:`lateral_noise`),
+#: is taken out of the envelope as a sensor's is. Measured on generated sessions, rows at
+#: the GNSS rate (tests/test_gps_only.py's form; seeds 1-8 with speed, 1-6 without):
+#: 5-25 Hz -0.90 to +0.16 % with speed (benchmarks/gps_only.py, cut from 100 Hz logs,
+#: the same), -0.58 to +1.34 % without (its a_x, from a speed itself smoothed over
+#: 1.5 s, shaves the braking limit); 2 Hz -1.39 to +0.12 % and -0.38 to +1.13 %; 1 Hz
+#: -3.11 to -0.56 % and -1.46 to +2.29 % (fixes a second apart round the line's corners:
+#: the true car on that line alone is up to 3 % fast). With the noise not read (a single
+#: lap, or laps not alike), as before it was read: up to 1.3 % fast at 10-25 Hz, 1.55 %
+#: at 2 Hz, 1.1 % at 1 Hz. [Hz], [%]
+IDEAL_OFF_PERCENT = ((5.0, 1.0, 1.5, 1.5), (2.0, 1.5, 1.5, 2.0), (0.0, 3.5, 2.5, 3.5))
 #: Samples further apart than this many of their own intervals break a stretch (the
 #: filter never reaches across a dropout). [-]
 GAP_INTERVALS = 2.5
@@ -444,12 +450,15 @@ class Accelerations:
     lateral_noise_m_s2 : float or None
         The derived a_y's noise read from the laps (:func:`lateral_noise`); None when a_y
         was logged or too few laps were alike. [m/s²]
+    fix_rate_hz : float
+        The GPS fixes' rate (their median interval); NaN with fewer than two. [Hz]
     """
 
     missing: tuple[str, ...]
     accel_lon: Derivative | None
     speed_from_fixes: bool
     lateral_noise_m_s2: float | None = None
+    fix_rate_hz: float = math.nan
 
     @property
     def smoothing_s(self) -> float:
@@ -499,16 +508,30 @@ def add_accelerations(log, rebuilt) -> Accelerations:
         log.channels["accel_lat"] = lateral_from_curvature(filled, kappa)
         lateral = lateral_noise(rebuilt)
         log.derived["accel_lat"] = LateralFromLine(lateral)
-    return Accelerations(missing, dvdt, fixes is not None, lateral)
+    return Accelerations(missing, dvdt, fixes is not None, lateral, _fix_rate_hz(log))
+
+
+def _fix_rate_hz(log) -> float:
+    """The rate of the log's GPS fixes (:func:`limitlap.gnss.fix_rows`, median interval). [Hz]."""
+    from limitlap.gnss import fix_rows
+
+    t = log.time_s[fix_rows(log)]
+    return 1.0 / float(np.median(np.diff(t))) if t.size > 1 else math.nan
+
+
+def ideal_off_percent(acc: Accelerations) -> tuple[float, bool]:
+    """How far the ideal lap on a derived a_y may be off (:data:`IDEAL_OFF_PERCENT`), and whether either way (True) or fast only. [%]."""
+    rate = acc.fix_rate_hz if math.isfinite(acc.fix_rate_hz) else 0.0
+    _, logged, from_fixes, unread = next(row for row in IDEAL_OFF_PERCENT if rate >= row[0])
+    if acc.lateral_noise_m_s2 is None:
+        return unread, False
+    return (from_fixes, True) if acc.speed_from_fixes else (logged, False)
 
 
 def ideal_doubt(acc: Accelerations) -> str:
-    """How far the ideal lap on a derived a_y may be off, as measured (:data:`IDEAL_OFF_PERCENT`): "up to about 1 % fast"."""
-    if acc.lateral_noise_m_s2 is None:
-        return f"up to about {IDEAL_OFF_PERCENT['unread']:g} % fast"
-    if acc.speed_from_fixes:
-        return f"up to about {IDEAL_OFF_PERCENT['speed from fixes']:g} % fast or slow"
-    return f"up to about {IDEAL_OFF_PERCENT['speed logged']:g} % fast"
+    """:func:`ideal_off_percent` in words: "up to about 1 % fast"."""
+    percent, either = ideal_off_percent(acc)
+    return f"up to about {percent:g} % {'fast or slow' if either else 'fast'}"
 
 
 def note(acc: Accelerations) -> str:
