@@ -72,7 +72,7 @@ MAX_WINDOW_S = 1.5
 #: circle at 10 Hz, 0.1 m noise); its noise, read from the laps (:func:`lateral_noise`),
 #: is taken out of the envelope as a sensor's is. Measured on generated sessions, rows at
 #: the GNSS rate (tests/test_gps_only.py's form; seeds 1-8 with speed, 1-6 without):
-#: 5-25 Hz -0.90 to +0.16 % with speed (benchmarks/gps_only.py, cut from 100 Hz logs,
+#: 5-25 Hz -0.88 to +0.16 % with speed (benchmarks/gps_only.py, cut from 100 Hz logs,
 #: the same), -0.58 to +1.34 % without (its a_x, from a speed itself smoothed over
 #: 1.5 s, shaves the braking limit); 2 Hz -1.39 to +0.12 % and -0.38 to +1.13 %; 1 Hz
 #: -3.11 to -0.56 % and -1.46 to +2.29 % (fixes a second apart round the line's corners:
