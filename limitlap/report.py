@@ -738,11 +738,16 @@ def _envelope_source(v: ReportView) -> str:
         if laps
         else ""
     )
+    lift = v.fit.quality.get("noise_offset_m_s2", 0.0)
+    noise = (
+        f" with the width the accelerations' noise adds to it taken out ({lift:.2f} m/s²)"
+        if lift > 0.0
+        else " with no width taken out for the accelerations' noise"
+    )
     return (
         "The envelope is a g-g-V envelope (lateral, braking and driving friction, a "
         "combined-slip exponent, power, drag and downforce) fitted to your own best samples"
-        f"{which} with the width the sensor's noise adds to it measured and taken out; so "
-        "the time left is time that grip you have already shown allows."
+        f"{which}{noise}; so the time left is time that grip you have already shown allows."
     )
 
 

@@ -487,3 +487,20 @@ def test_one_fix_a_second_is_told_and_kept_to(tmp_path):
     assert "the ideal lap may come out up to about 3.5 % fast" in line
     off = (a.ideal.lap_time_s / s.truth.ideal_lap_time_s - 1.0) * 100.0
     assert -derived.IDEAL_OFF_PERCENT[-1][1] < off < 0.5
+
+
+def test_the_report_says_what_was_taken_out_for_noise(gps_only):
+    # The report's method sentence names the lift the fit took out (quality
+    # noise_offset_m_s2), for a GPS-only log the derived a_y's noise read from the laps;
+    # a fit that took none out says so rather than claiming a sensor's noise was removed.
+    import dataclasses
+
+    from limitlap import outputs, report
+
+    _, a, _ = gps_only
+    v = outputs.report_view(a)
+    lift = a.fit.quality["noise_offset_m_s2"]
+    assert f"taken out ({lift:.2f} m/s²)" in report._envelope_source(v)
+    none = dataclasses.replace(a.fit, quality={**a.fit.quality, "noise_offset_m_s2": 0.0})
+    said = report._envelope_source(dataclasses.replace(v, fit=none))
+    assert "with no width taken out for the accelerations' noise" in said
