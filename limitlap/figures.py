@@ -1095,7 +1095,7 @@ def gg_figure(bands, units: Units, fit_points=None) -> FigureSpec:
         "the reach of the ideal's own samples in the band), so a direction no corner "
         "needs at these speeds counts nothing. The shaded area is that grip: asked for by "
         "the ideal, not reached by your samples. Where your samples reach beyond the envelope "
-        "the title says in how many directions: the envelope is fitted with the sensors' "
+        "the title says in how many directions: the envelope is fitted with the accelerations' "
         "noise taken out, so noisy samples on the limit scatter a little outside it.",
         data,
         layout,

@@ -232,7 +232,7 @@ def envelope_toml_text(vehicle, fit_info=None) -> str:
         if "quality.share_outside_tyre_limit" in names:
             lines += [
                 "# share_outside_tyre_limit: samples beyond the friction limits (up to half of those",
-                "#   driven on the limit: the sensor noise scatters them both ways, and it is taken",
+                "#   driven on the limit: the accelerations' noise scatters them both ways, and it is taken",
                 "#   out of the envelope, noise_offset_m_s2); share_above_power_line: full-throttle",
                 "#   samples above the power line (about half: it is a central fit of them).",
             ]
