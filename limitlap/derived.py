@@ -389,6 +389,12 @@ def lateral_noise(rebuilt) -> float | None:
     return noise.mad_scale(d) / math.sqrt(2.0)
 
 
+def noise_of(log) -> float | None:
+    """A log's derived a_y noise (:func:`lateral_noise`, kept in ``log.derived``), None when a_y was logged or its noise could not be read. [m/s²]."""
+    how = log.derived.get("accel_lat")
+    return how.noise_m_s2 if isinstance(how, LateralFromLine) else None
+
+
 def _same_place_differences(a, b) -> np.ndarray:
     """Lap b's a_y less lap a's at the same place, where both went alike (:func:`lateral_noise`). [m/s²]."""
     from scipy.spatial import cKDTree

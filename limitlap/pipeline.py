@@ -333,7 +333,8 @@ def _fit(log_path, samples, base, early, derived_clause="", derived_noise=None):
 
     Errors name the log, and say when its accelerations were derived (``derived_clause``,
     :func:`_derived_clause`); ``derived_noise`` is the derived a_y's noise read from the
-    laps (:func:`_derived_noise`), None when a_y was logged or too few laps were alike.
+    laps (:func:`limitlap.derived.noise_of`), None when a_y was logged or too few laps were
+    alike.
     """
     v_s, ax_s, ay_s, mask_s, rate, thr_s = samples
     try:
@@ -691,12 +692,6 @@ def _derived_clause(log) -> str:
     )
 
 
-def _derived_noise(log) -> float | None:
-    """The derived a_y's noise (:func:`limitlap.derived.lateral_noise`), None when a_y was logged or it could not be read. [m/s²]."""
-    how = log.derived.get("accel_lat")
-    return how.noise_m_s2 if isinstance(how, derived.LateralFromLine) else None
-
-
 def _check_channel_units(log_path, log, strict: bool, warnings: list[str]) -> None:
     """Each channel against the GPS path: a unit or sign mix-up stops the run or warns.
 
@@ -783,7 +778,7 @@ class _EnvelopeBeside:
                 self.base,
                 self._selection,
                 _derived_clause(log),
-                _derived_noise(log),
+                derived.noise_of(log),
             )
 
     def selection(self):

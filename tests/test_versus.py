@@ -262,3 +262,21 @@ def test_logs_timed_from_different_gates_are_refused(capsys, monkeypatch, tmp_pa
     assert "m apart" in err
     code, _, _ = run_cli(["versus", dry, wet, "--out", tmp_path / "b"], capsys, monkeypatch)
     assert code == 0
+
+
+def test_a_gps_only_log_gets_the_same_ideal_as_its_analysis(tmp_path):
+    # A GPS-only log (time, position, speed at 10 Hz): its accelerations are derived and
+    # the envelope fitted with the derived a_y's noise read from the laps, the same way by
+    # `versus` (its common envelope of one log) as by `analyse`; lap A's ideal on its own
+    # line is then the analysis's ideal of that lap (it was 0.7 % faster in `versus`,
+    # whose fit took the derived channel's noise from its differences, where it does not
+    # show).
+    from tests.test_gps_only import gps_only_session, written
+
+    s = gps_only_session(10.0, seed=2)
+    path = written(s, tmp_path / "gps.csv")
+    gate = f"{s.truth.gate_latlon[0]},{s.truth.gate_latlon[1]}"
+    log, laps, _, _ = pipeline.load_session(path, gate=gate)
+    result = versus.compare_laps((path, log, laps))
+    analysed = pipeline.analyse(path, gate=gate, lap=result.a.lap.number)
+    assert result.a.ideal.lap_time_s == pytest.approx(analysed.ideal.lap_time_s, abs=1e-9)
