@@ -268,13 +268,12 @@ def _parse_numbers(path, raw, layout: Layout, found, text=()):
                 column=header[int(name[7:])],
             )
         frame = pl.DataFrame(cols).hstack(strings.select(list(texts)))
-    # One conversion of the whole frame (blanks -> NaN), each channel a contiguous column.
-    table = frame.select(list(wanted)).to_numpy(order="fortran").astype(np.float64, copy=False)
-    if not table.flags.writeable:
-        table = table.copy(order="F")
-    data = {wanted[n]: table[:, j] for j, n in enumerate(wanted)}
-    for n, ch in texts.items():
-        data[ch] = frame[n].str.strip_chars().replace("", None).to_list()
+    data = {ch: frame[n].str.strip_chars().replace("", None).to_list() for n, ch in texts.items()}
+    # Column by column (blanks -> NaN), each parsed column let go once converted: the
+    # numbers are held twice one column at a time, not all at once.
+    for n, ch in wanted.items():
+        values = frame.drop_in_place(n).to_numpy().astype(np.float64, copy=False)
+        data[ch] = values if values.flags.writeable else values.copy()
     return data
 
 
