@@ -34,7 +34,6 @@ References
 from __future__ import annotations
 
 import functools
-import io
 import json
 import math
 import threading
@@ -43,15 +42,10 @@ from dataclasses import dataclass, field
 import numpy as np
 
 from limitlap.formatting import (
-    METRIC,
     NOT_AVAILABLE,
     Units,
-    brake_points,
-    distance,
     lap_time,
-    seconds,
     signed_time,
-    speed_kmh,
 )
 from limitlap.units import G0_M_S2
 
@@ -1357,13 +1351,6 @@ def _vline(x: float, colour: str, dash: str) -> dict:
 
 # --------------------------------------------------------------------------- target sheet
 
-#: Pixel size of the printable target sheet's PNG: A4 portrait at 150 dpi.
-SHEET_SIZE_PX = (1240, 1754)
-#: Resolution of the printable target sheet: A4 = 8.27 x 11.69 in. [dots per inch]
-SHEET_DPI = 150
-#: The caution box's edge and heading (not a data colour).
-CAUTION = "#B8860B"
-
 #: Style of the target sheet and the PNG pictures, applied only while one is built and
 #: drawn (the caller's matplotlib settings are left as they were).
 STYLE = {
@@ -1399,7 +1386,7 @@ def styled(draw):
     return wrapper
 
 
-def _figure(width_px: int, height_px: int, dpi: float):
+def agg_figure(width_px: int, height_px: int, dpi: float):
     """A matplotlib figure of that size on its own Agg canvas (no pyplot)."""
     from matplotlib.backends.backend_agg import FigureCanvasAgg
     from matplotlib.figure import Figure
@@ -1407,163 +1394,6 @@ def _figure(width_px: int, height_px: int, dpi: float):
     fig = Figure(figsize=(width_px / dpi, height_px / dpi), dpi=dpi)
     FigureCanvasAgg(fig)
     return fig
-
-
-def _sheet_rows(condition, units: Units) -> list[list[str]]:
-    """The sheet's table cells, in the one rounding of every output (limitlap.formatting)."""
-    rows = []
-    for c in condition["corners"]:
-        points = [p for p in c.get("brake_points_m", []) if np.isfinite(p)]
-        if not points and np.isfinite(c.get("brake_start_m", np.nan)):
-            points = [c["brake_start_m"]]
-        rows.append(
-            [
-                str(c["name"]),
-                str(c.get("label", "")),
-                distance(c["apex_m"], units),
-                brake_points(points, units, blank="no braking"),
-                distance(c.get("before_apex_m"), units),
-                speed_kmh(c.get("entry_speed_m_s"), units),
-                speed_kmh(c["min_speed_m_s"], units),
-                speed_kmh(c["exit_speed_m_s"], units),
-                seconds(c["segment_time_s"]),
-            ]
-        )
-    return rows
-
-
-def _sheet_table(fig, header, rows) -> None:
-    """The sheet's corner table: header, rule, banded rows, font fitted to the row count."""
-    from matplotlib.lines import Line2D
-    from matplotlib.patches import Rectangle
-
-    n = max(len(rows), 1)
-    top, bottom = 0.875, 0.215
-    header_h = 0.04
-    row_h = min(0.055, (top - header_h - bottom) / n)
-    font = max(7.0, min(13.0, row_h * 11.69 * 72 * 0.34))
-    cols_x = [0.06, 0.115, 0.38, 0.55, 0.645, 0.725, 0.8, 0.865, 0.95]
-    aligns = ["left", "left"] + ["right"] * 7
-    y = top
-    for x, h, al in zip(cols_x, header, aligns, strict=True):
-        fig.text(x, y, h, fontsize=10, ha=al, va="top", color="#444444", linespacing=1.1)
-    y -= header_h
-    fig.add_artist(Line2D([0.05, 0.95], [y, y], color=INK, lw=1.2))
-    y -= 0.2 * row_h
-    for i, row in enumerate(rows):
-        if i % 2 == 0:
-            fig.add_artist(
-                Rectangle((0.05, y - row_h), 0.90, row_h, color="#eef3f8", lw=0, zorder=0)
-            )
-        for j, (x, cell, al) in enumerate(zip(cols_x, row, aligns, strict=True)):
-            weight = "bold" if j in (0, 6) else "normal"
-            size = font * (0.75 if cell == "no braking" or j == 1 or "+" in cell else 1.0)
-            fig.text(
-                x, y - row_h * 0.5, cell, fontsize=size, ha=al, va="center",
-                fontweight=weight, color=INK,
-            )  # fmt: skip
-        y -= row_h
-
-
-@styled
-def target_sheet(
-    condition, circuit_name: str, caution: str, fmt: str = "png", units: Units = METRIC
-) -> bytes:
-    """One printable A4 page of targets for one condition, to take to the car.
-
-    Parameters
-    ----------
-    condition : dict
-        ``label`` (e.g. "wet"), ``grip_scale`` [-], ``lap_time_s`` [s], optionally
-        ``car`` and ``date`` (printed under the heading), and ``corners``: records with
-        ``name``, ``label``, ``apex_m``, ``brake_points_m`` (or ``brake_start_m``),
-        ``before_apex_m`` [m], ``entry_speed_m_s``, ``min_speed_m_s``,
-        ``exit_speed_m_s`` [m/s] and ``segment_time_s`` [s].
-    circuit_name : str
-        Printed in the heading.
-    caution : str
-        Safety caution printed at the foot of the page.
-    fmt : {"png", "pdf"}
-        Output format.
-    units : Units
-        Speeds and distances as a person reads them (km/h and m, or mph and ft).
-
-    Returns
-    -------
-    bytes
-        The page; PNG is :data:`SHEET_SIZE_PX` pixels (A4 at 150 dpi).
-    """
-    import textwrap
-
-    from matplotlib.patches import Rectangle
-
-    fig = _figure(*SHEET_SIZE_PX, SHEET_DPI)
-    fig.text(0.06, 0.965, f"{circuit_name}", fontsize=20, fontweight="bold", va="top")
-    label = condition.get("label") or f"grip {condition['grip_scale']:.2f}"
-    fig.text(
-        0.06,
-        0.93,
-        f"Targets: {label}  (grip scale {condition['grip_scale']:.2f})",
-        fontsize=15,
-        va="top",
-    )
-    made = f"made {condition['date']}" if condition.get("date") else ""
-    about = [x for x in (condition.get("car"), made) if x]
-    if about:
-        fig.text(0.06, 0.905, "  ·  ".join(about), fontsize=11, va="top", color="#444444")
-    fig.text(0.94, 0.965, "target lap", fontsize=12, ha="right", va="top", color="#555555")
-    fig.text(
-        0.94,
-        0.945,
-        lap_time(condition["lap_time_s"], decimals=2),
-        fontsize=30,
-        fontweight="bold",
-        ha="right",
-        va="top",
-        color=IDEAL,
-    )
-    d, v = units.distance, units.speed
-    header = [
-        "corner",
-        "",
-        f"apex\n[{d}]",
-        f"brake at\n[{d}]",
-        f"before\napex [{d}]",
-        f"entry\n[{v}]",
-        f"min\n[{v}]",
-        f"exit\n[{v}]",
-        "segment\n[s]",
-    ]
-    _sheet_table(fig, header, _sheet_rows(condition, units))
-    note = (
-        "Brake at: where the ideal's speed starts falling into the corner (a lift counts), "
-        "from the start/finish gate, one per braking zone; before apex: from the first "
-        "brake point to the apex. Entry: speed at the first brake point; minimum: the "
-        "lowest in the corner (at the apex where it is taken without slowing); exit: "
-        f"where the corner's curve ends. {NOT_AVAILABLE}: none."
-    )
-    fig.text(0.06, 0.2, textwrap.fill(note, 105), fontsize=9, va="top", color="#444444")
-    fig.add_artist(
-        Rectangle((0.05, 0.025), 0.90, 0.115, facecolor="#fff4e0", edgecolor=CAUTION, lw=1.5)
-    )
-    fig.text(0.07, 0.128, "Caution", fontsize=12, fontweight="bold", va="top", color="#7a4a00")
-    fig.text(
-        0.07,
-        0.105,
-        textwrap.fill(caution, 88),
-        fontsize=10.5,
-        va="top",
-        color=INK,
-        linespacing=1.35,
-    )
-    buf = io.BytesIO()
-    meta = (
-        {"Software": None}
-        if fmt == "png"
-        else {"Creator": None, "Producer": None, "CreationDate": None}
-    )
-    fig.savefig(buf, format=fmt, dpi=SHEET_DPI, metadata=meta)
-    return buf.getvalue()
 
 
 # --------------------------------------------------------------------------- the session

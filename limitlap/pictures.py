@@ -20,7 +20,7 @@ from limitlap.figures import (
     PICTURE_WIDTH_PX,
     Columns,
     FigureSpec,
-    _figure,
+    agg_figure,
     styled,
 )
 
@@ -101,7 +101,7 @@ def picture(spec: FigureSpec, cols: Columns, width_px: int = PICTURE_WIDTH_PX) -
     data = cols.resolve(spec.data)
     layout = cols.resolve(spec.layout)
     height = int(layout["height"]) + _TITLE_PX
-    fig = _figure(width_px, height, DPI)
+    fig = agg_figure(width_px, height, DPI)
     frame = _Frame(width_px, height, layout.get("margin", {}), _TITLE_PX)
     title, _ = _plain(spec.title)
     fig.text(0.01, 1 - 6 / height, title, fontsize=12.5, fontweight="bold", va="top", color=INK)

@@ -538,7 +538,7 @@ def test_target_sheets_pdf_png_and_csv(tmp_path):
     for p in files:
         data = p.read_bytes()
         if p.suffix == ".png":
-            assert png_size(data) == figures.SHEET_SIZE_PX
+            assert png_size(data) == sheets.SHEET_SIZE_PX
         elif p.suffix == ".pdf":
             assert data.startswith(b"%PDF-") and b"%%EOF" in data[-64:]
             assert (
@@ -557,8 +557,8 @@ def test_target_sheets_pdf_png_and_csv(tmp_path):
 @pytest.mark.slow
 def test_target_sheet_pdf_is_deterministic():
     cond = sheets._condition(_conditions()[1])
-    a = figures.target_sheet(cond, "Invented Ring", report.SAFETY_CAUTION, fmt="pdf")
-    b = figures.target_sheet(cond, "Invented Ring", report.SAFETY_CAUTION, fmt="pdf")
+    a = sheets.target_sheet(cond, "Invented Ring", report.SAFETY_CAUTION, fmt="pdf")
+    b = sheets.target_sheet(cond, "Invented Ring", report.SAFETY_CAUTION, fmt="pdf")
     assert a == b
 
 

@@ -91,15 +91,15 @@ def test_sheets_and_pictures_draw_on_the_oldest_declared_matplotlib(tmp_path):
         pytest.skip(f"matplotlib {mpl} could not be installed: {done.stderr.strip()[-300:]}")
     script = """
 import matplotlib
-from limitlap import figures, pictures
+from limitlap import figures, pictures, sheets
 from limitlap.formatting import units_named
 cond = {"label": "wet", "grip_scale": 0.7, "lap_time_s": 95.2, "length_m": 3000.0,
   "corners": [{"name": "T1", "label": "Hook", "apex_m": 400.0, "brake_points_m": [300.0],
   "before_apex_m": 100.0, "entry_speed_m_s": 55.6, "min_speed_m_s": 22.2,
   "exit_speed_m_s": 41.7, "segment_time_s": 9.5}]}
-pdf = figures.target_sheet(cond, "Invented Ring", "Take care.", fmt="pdf")
-png = figures.target_sheet(cond, "Invented Ring", "Take care.", fmt="png",
-                           units=units_named("imperial"))
+pdf = sheets.target_sheet(cond, "Invented Ring", "Take care.", fmt="pdf")
+png = sheets.target_sheet(cond, "Invented Ring", "Take care.", fmt="png",
+                          units=units_named("imperial"))
 corners = [{"name": "T1", "time_left_s": 0.3, "actual_s": 10.3, "ideal_s": 10.0},
            {"name": "T2", "time_left_s": -0.02, "actual_s": 8.0, "ideal_s": 8.02}]
 spec = figures.time_left_figure(corners)
