@@ -389,6 +389,21 @@ def lateral_noise(rebuilt) -> float | None:
     return noise.mad_scale(d) / math.sqrt(2.0)
 
 
+def noise_to_take_out(logs) -> tuple[bool, float | None]:
+    """(remove_noise, noise_m_s2) for :func:`limitlap.envelope.fit_envelope` on these logs' accelerations (one log's analysis, or a common envelope of several).
+
+    Logged accelerations only: the noise measured from their differences (True, None).
+    Any log with derived ones: the largest derived a_y noise read from the laps
+    (:func:`noise_of`), or nothing taken out when one's could not be read (False, None).
+    """
+    if not any(n in log.derived for log in logs for n in ("accel_lon", "accel_lat")):
+        return True, None
+    noises = [noise_of(log) for log in logs if "accel_lat" in log.derived]
+    if not noises or any(n is None for n in noises):
+        return False, None
+    return True, max(noises)
+
+
 def noise_of(log) -> float | None:
     """A log's derived a_y noise (:func:`lateral_noise`, kept in ``log.derived``), None when a_y was logged or its noise could not be read. [m/s²]."""
     how = log.derived.get("accel_lat")

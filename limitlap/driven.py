@@ -638,13 +638,16 @@ class _LapRows:
 
     def raw(self, column):
         """A log column on the kept rows, blanks left blank."""
-        values = column[self.rows]
-        return values if self.pick is None else values[self.pick]
+        return _kept(column[self.rows], self.pick)
 
     def filled(self, t_all, column):
         """A log column on the kept rows, blanks filled first on every row (:func:`_fill`)."""
-        values = _fill(t_all[self.rows], column[self.rows])
-        return values if self.pick is None else values[self.pick]
+        return _kept(_fill(t_all[self.rows], column[self.rows]), self.pick)
+
+
+def _kept(values, pick):
+    """``values`` on the rows ``pick`` keeps (all of them when None)."""
+    return values if pick is None else values[pick]
 
 
 def _lap_rows(log, lap, max_rate_hz: float | None = None) -> _LapRows:
@@ -667,12 +670,10 @@ def _lap_rows(log, lap, max_rate_hz: float | None = None) -> _LapRows:
     if fix.sum() < 10:
         raise LimitlapError(f"{log.path}: lap {lap.number} has too few position fixes")
     pick = _thinned(t_all[sl], fix, max_rate_hz)
-    rows = _LapRows(sl, t_all[sl], None, None, fix, None, None, pick)
-    t = rows.raw(t_all)
-    v = np.maximum(rows.filled(t_all, ch["speed"]), 0.0)
-    x_raw, y_raw = rows.raw(ch["x"]), rows.raw(ch["y"])
-    fix = fix if pick is None else fix[pick]
-    return _LapRows(sl, t, x_raw, y_raw, fix, v, np.diff(t), pick)
+    t = _kept(t_all[sl], pick)
+    v = np.maximum(_kept(_fill(t_all[sl], ch["speed"][sl]), pick), 0.0)
+    x_raw, y_raw = _kept(ch["x"][sl], pick), _kept(ch["y"][sl], pick)
+    return _LapRows(sl, t, x_raw, y_raw, _kept(fix, pick), v, np.diff(t), pick)
 
 
 def _thinned(t, fix, max_rate_hz):

@@ -328,13 +328,12 @@ def _imu_samples(log, laps, rows_of, pad_s=None):
     return v, ax, ay, mask, rate, None if throttle is None else throttle[rows]
 
 
-def _fit(log_path, samples, base, early, derived_clause="", derived_noise=None):
+def _fit(log_path, samples, base, early, derived_clause="", noise=(True, None)):
     """The envelope fitted to ``samples`` (see :func:`_imu_samples`); ``early`` is the pending sample selection of the whole log, or None.
 
     Errors name the log, and say when its accelerations were derived (``derived_clause``,
-    :func:`_derived_clause`); ``derived_noise`` is the derived a_y's noise read from the
-    laps (:func:`limitlap.derived.noise_of`), None when a_y was logged or too few laps were
-    alike.
+    :func:`_derived_clause`); ``noise`` is what to take out for the accelerations' noise
+    (:func:`limitlap.derived.noise_to_take_out`).
     """
     v_s, ax_s, ay_s, mask_s, rate, thr_s = samples
     try:
@@ -347,12 +346,11 @@ def _fit(log_path, samples, base, early, derived_clause="", derived_noise=None):
             sample_rate_hz=rate,
             throttle=thr_s,
             selection=None if early is None else early.result(),
-            # accelerations derived from speed and the GNSS line: their smoothing is not
-            # the low-pass's and their noise does not show in their differences; a_y's
-            # is read from the laps (derived.lateral_noise: docs/methods.md, Derived
-            # accelerations), and nothing is given back for the low-pass
-            remove_noise=not derived_clause or derived_noise is not None,
-            noise_m_s2=derived_noise,
+            # accelerations derived from speed and the GNSS line: their noise does not
+            # show in their differences; a_y's is read from the laps (docs/methods.md,
+            # Derived accelerations), and nothing is given back for the low-pass
+            remove_noise=noise[0],
+            noise_m_s2=noise[1],
         )
     except InputError:
         raise
@@ -778,7 +776,7 @@ class _EnvelopeBeside:
                 self.base,
                 self._selection,
                 _derived_clause(log),
-                derived.noise_of(log),
+                derived.noise_to_take_out([log]),
             )
 
     def selection(self):

@@ -349,7 +349,7 @@ def common_envelope(sessions: Sequence, base: Vehicle) -> envelope.EnvelopeFit:
             pieces += [a, off if j == 4 else blank]
         joined.append(np.concatenate(pieces[:-1]))
     v, ax, ay, thr, mask = joined
-    remove_noise, noise = _noise_to_take_out([log for _, log, _ in sessions])
+    remove_noise, noise = derived.noise_to_take_out([log for _, log, _ in sessions])
     try:
         sel = select_samples(v, ax, ay, sample_rate_hz=rate)
         fit = envelope.fit_envelope(
@@ -372,21 +372,6 @@ def common_envelope(sessions: Sequence, base: Vehicle) -> envelope.EnvelopeFit:
         raise InputError(names, f"{err}{extra} (give a vehicle file with [grip])") from err
     fit.warnings[:0] = notes
     return fit
-
-
-def _noise_to_take_out(logs) -> tuple[bool, float | None]:
-    """(remove_noise, noise_m_s2) for :func:`limitlap.envelope.fit_envelope` on these logs together, as the analysis of one log does.
-
-    Logged accelerations only: the noise measured from them. Any log with derived ones
-    (GPS-only): the largest derived a_y noise read from the laps
-    (:func:`limitlap.derived.noise_of`), or nothing taken out when one's could not be read.
-    """
-    if not any(n in log.derived for log in logs for n in ("accel_lon", "accel_lat")):
-        return True, None
-    noises = [derived.noise_of(log) for log in logs if "accel_lat" in log.derived]
-    if not noises or any(n is None for n in noises):
-        return False, None
-    return True, max(noises)
 
 
 # ---------------------------------------------------------------------------- corners
